@@ -1,0 +1,25 @@
+"""paths: the whole ridge regularization path from one factorization.
+
+Penalty convention: minimize ||y - b0 - X beta||^2 + lambda ||beta||^2 with X
+the column-centered (optionally standardized) design and b0 unpenalized.
+"""
+from ._validation import InputError
+from .factor import Factorization, factorize
+from .grid import default_grid, effective_df, lambda_for_df
+from .path import PENALTY_CONVENTION, MinNormFit, RidgePath, fit_path
+
+__version__ = "0.1.0"
+
+__all__ = [
+    "InputError",
+    "Factorization",
+    "factorize",
+    "default_grid",
+    "effective_df",
+    "lambda_for_df",
+    "PENALTY_CONVENTION",
+    "MinNormFit",
+    "RidgePath",
+    "fit_path",
+    "__version__",
+]
