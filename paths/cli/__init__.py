@@ -1,4 +1,6 @@
 """Command-line interface (typer): parses, calls the library, prints and writes."""
-from .app import app, main
+from .app import _load_commands, app, main
+
+_load_commands()
 
 __all__ = ["app", "main"]

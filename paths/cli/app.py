@@ -1,0 +1,88 @@
+"""The typer application and the error boundary of the command line.
+
+Command modules in this package register their commands with :func:`command`;
+they only parse options, call the library, print and write.  User errors
+(:class:`~paths.InputError`) print one line and exit with status 2; any other
+exception is an internal failure: one line with a hint to report it, exit
+status 1.  ``paths --debug ...`` shows the traceback instead.
+"""
+from __future__ import annotations
+
+import functools
+import importlib
+import pkgutil
+
+import typer
+from rich.console import Console
+
+from .._validation import InputError
+
+__all__ = ["app", "command", "console", "err_console", "main"]
+
+app = typer.Typer(
+    name="paths",
+    help=(
+        "The whole ridge regularization path from one factorization. Penalty convention: "
+        "minimize ||y - b0 - X beta||^2 + lambda ||beta||^2 on the centered "
+        "(optionally standardized) design, intercept unpenalized."
+    ),
+    no_args_is_help=True,
+    add_completion=False,
+    pretty_exceptions_enable=False,
+)
+console = Console(highlight=False)
+err_console = Console(stderr=True, highlight=False)
+_state = {"debug": False}
+
+
+@app.callback()
+def _root(debug: bool = typer.Option(False, "--debug", help="Show the traceback on errors.")):
+    _state["debug"] = debug
+
+
+def command(*args, **kwargs):
+    """``app.command`` with the error boundary: exit 2 for user errors, 1 for bugs."""
+
+    def register(func):
+        @functools.wraps(func)
+        def wrapper(*a, **kw):
+            try:
+                return func(*a, **kw)
+            except (typer.Exit, typer.Abort):
+                raise
+            except InputError as exc:
+                if _state["debug"]:
+                    raise
+                err_console.print(f"error: {exc}", soft_wrap=True, markup=False)
+                raise typer.Exit(2) from None
+            except KeyboardInterrupt:
+                err_console.print("interrupted; no partial file was left under a final name")
+                raise typer.Exit(130) from None
+            except Exception as exc:
+                if _state["debug"]:
+                    raise
+                err_console.print(
+                    f"internal error: {type(exc).__name__}: {exc} -- this is a bug in paths; "
+                    "please report it with the command line (add --debug for the traceback)",
+                    soft_wrap=True, markup=False,
+                )
+                raise typer.Exit(1) from None
+
+        return app.command(*args, **kwargs)(wrapper)
+
+    return register
+
+
+def _load_commands() -> None:
+    """Import every command module of this package (each registers itself)."""
+    from . import __path__ as here
+
+    for mod in pkgutil.iter_modules(here):
+        if mod.name != "app" and not mod.name.startswith("_"):
+            importlib.import_module(f"{__package__}.{mod.name}")
+
+
+def main() -> None:
+    """Console entry point."""
+    _load_commands()
+    app()

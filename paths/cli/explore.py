@@ -1,0 +1,80 @@
+"""``paths explore``: the whole path of one dataset, printed and written to a folder."""
+from __future__ import annotations
+
+import sys
+from enum import Enum
+from pathlib import Path
+
+import typer
+from rich.table import Table
+
+from ..analysis import explore, load_data
+from .app import command, console
+
+
+class Solver(str, Enum):
+    auto = "auto"
+    svd = "svd"
+    gram = "gram"
+
+
+def _fmt(v) -> str:
+    return "n/a" if v is None else f"{float(v):.4g}"
+
+
+def print_summary(run) -> None:
+    """The compact console summary of an explore run."""
+    r, s = run.result, run.summary
+    t = Table(title="ridge path (minimize ||y - b0 - X beta||^2 + lambda ||beta||^2)",
+              show_header=False, title_justify="left")
+    t.add_column("quantity")
+    t.add_column("value")
+    t.add_row("samples x features", f"{r.n_samples} x {r.n_features}  (p/n = {s['p_over_n']:.3g})")
+    if r.n_test:
+        t.add_row("test rows", str(r.n_test))
+    t.add_row("rank / condition number", f"{r.rank} / {r.condition_number:.3g}")
+    t.add_row("solver", f"{r.solver} ({r.solver_reason})")
+    t.add_row("scaling", "standardized (population SD)" if r.standardize else "centered only")
+    console.print(t)
+    c = Table(title="choices and errors", title_justify="left")
+    for col in ("fit", "lambda", "df", "train MSE", "GCV", "LOO MSE", "test MSE"):
+        c.add_column(col, justify="right" if col != "fit" else "left")
+    for rule, sel in s["selected"].items():
+        i = sel["index"]
+        row = [f"min {rule.upper()}", _fmt(sel["lambda"]), f"{sel['df']:.2f}"]
+        for key in ("train_mse", "gcv", "loo_mse", "test_mse"):
+            vals = s[key]
+            row.append(_fmt(None if vals is None else vals[i]))
+        c.add_row(*row)
+    mn = s["min_norm"]
+    c.add_row("min-norm (lambda -> 0+)", "0", f"{mn['df']:.0f}", _fmt(mn["train_mse"]),
+              _fmt(mn["gcv"]), _fmt(mn["loo_mse"]), _fmt(mn["test_mse"]))
+    console.print(c)
+    console.print(f"wrote {', '.join(f.name for f in run.files)} to {run.out_dir}")
+
+
+@command("explore")
+def explore_cmd(
+    data: Path = typer.Argument(..., help="Data file (CSV or TSV, with a header row)."),
+    target: str = typer.Option(..., "--target", "-t", help="Response column."),
+    test: Path = typer.Option(None, "--test", help="Separate test file with the same columns."),
+    holdout: float = typer.Option(None, "--holdout", help="Hold out this fraction of rows as a test set."),
+    seed: int = typer.Option(0, "--seed", help="Seed for --holdout."),
+    lambdas: int = typer.Option(100, "--lambdas", help="Number of penalties on the default grid."),
+    standardize: bool = typer.Option(True, "--standardize/--no-standardize",
+                                     help="Scale columns to unit population SD before penalizing."),
+    solver: Solver = typer.Option(Solver.auto, "--solver", help="Factorization route."),
+    out: Path = typer.Option(Path("paths-out"), "--out", "-o", help="Output folder."),
+    force: bool = typer.Option(False, "--force", help="Write into a non-empty output folder."),
+):
+    """Fit the whole ridge path of DATA and write path.csv, coefficients.csv, summary.json."""
+    dataset, digest = load_data(data, target)
+    digests = {str(data): digest}
+    test_set = None
+    if test is not None:
+        test_set, tdigest = load_data(test, target)
+        digests[str(test)] = tdigest
+    run = explore(dataset, out_dir=out, test=test_set, holdout=holdout, seed=seed,
+                  n_lambdas=lambdas, standardize=standardize, solver=solver.value, force=force,
+                  input_sha256=digests, command_line=["paths", *sys.argv[1:]])
+    print_summary(run)
