@@ -21,7 +21,7 @@ from .design import Design, prepare, to_sample_space
 from .factor import Factorization, factorize
 from .grid import default_grid
 
-__all__ = ["PENALTY_CONVENTION", "RidgePath", "MinNormFit", "fit_path"]
+__all__ = ["PENALTY_CONVENTION", "RidgePath", "MinNormFit", "Criteria", "criteria", "fit_path"]
 
 PENALTY_CONVENTION = (
     "minimize ||y - b0 - X beta||^2 + lambda ||beta||^2; X column-centered "
@@ -172,6 +172,16 @@ class RidgePath:
             values = values[:, target]
         return int(np.argmin(values))
 
+    def criteria_at(self, lam) -> "Criteria":
+        """df, training MSE, GCV and leave-one-out MSE at any penalties, from the factors.
+
+        Shapes follow the path's: (k,) per criterion [or (k, t) for several targets].
+        """
+        crit = criteria(self.factorization, self.design, self.uty, as_lambdas(lam))
+        if self.multi_target:
+            return crit
+        return Criteria(**{k: (v if k == "df" else v[..., 0]) for k, v in vars(crit).items()})
+
     def coef_at(self, lam) -> np.ndarray:
         """Coefficients (original scale) at any penalties, from the factors.
 
@@ -304,6 +314,73 @@ def _loo(fac: Factorization, design: Design, uty: np.ndarray, out: np.ndarray,
             num[:, zero, :] = lim[:, None, :]
         sum_sq += np.sum(np.square(num / den[:, :, None]), axis=0)
     return sum_sq / n, lim_sq / n
+
+
+@dataclass(frozen=True)
+class Criteria:
+    """Path criteria on a grid, with their :math:`\\lambda \\to 0^+` limits.
+
+    Arrays have shape (k,) for ``df`` and (k, t) otherwise; the ``*0`` fields
+    have shape (t,).
+    """
+
+    df: np.ndarray
+    train_mse: np.ndarray
+    gcv: np.ndarray
+    loo_mse: np.ndarray
+    train_mse0: np.ndarray
+    gcv0: np.ndarray
+    loo_mse0: np.ndarray
+
+
+def criteria(fac: Factorization, design: Design, uty: np.ndarray, lam) -> Criteria:
+    """Effective df, training MSE, GCV and exact leave-one-out MSE at penalties ``lam``.
+
+    Parameters
+    ----------
+    fac : Factorization
+        Factors of the reduced design.
+    design : Design
+        Its preprocessing (``design.zy`` is the reduced response).
+    uty : ndarray, shape (r, t)
+        ``fac.u.T @ design.zy``.
+    lam : array_like, shape (k,)
+        Non-negative penalties; 0 gives the min-norm limit.
+
+    Returns
+    -------
+    Criteria
+
+    Notes
+    -----
+    See :func:`fit_path`; every quantity is a closed form on the factors and the
+    cost is O((m + k) r t) plus O(n r k) for leave-one-out, with no refit.
+    """
+    lam = np.atleast_1d(np.asarray(lam, dtype=np.float64))
+    n = design.n_samples
+    c = uty
+    resid_out = design.zy - fac.u @ c  # (m, t): response outside the column span
+    rss_out = np.einsum("it,it->t", resid_out, resid_out)
+    m, r = fac.u.shape
+    d2 = np.square(fac.d)
+    denom = d2[:, None] + lam[None, :]
+    F = d2[:, None] / denom
+    S = lam[None, :] / denom
+    df = design.fit_intercept + F.sum(axis=0)
+    rss = rss_out[None, :] + np.square(S).T @ np.square(c)  # (k, t)
+    resid_dof = (m - r) + S.sum(axis=0)  # n - df, without cancellation
+    # min-norm limit of GCV: finite even when the fit interpolates (m == r)
+    if m > r:
+        gcv0 = n * rss_out / (m - r) ** 2
+    else:
+        inv_d2 = 1.0 / d2
+        gcv0 = n * (np.square(c).T @ np.square(inv_d2)) / inv_d2.sum() ** 2
+    zero = resid_dof == 0
+    gcv = n * rss / np.square(np.where(zero, 1.0, resid_dof))[:, None]
+    gcv[zero] = gcv0
+    loo_mse, loo0 = _loo(fac, design, c, resid_out, lam)
+    return Criteria(df=df, train_mse=rss / n, gcv=gcv, loo_mse=loo_mse,
+                    train_mse0=rss_out / n, gcv0=gcv0, loo_mse0=loo0)
 
 
 def fit_path(
@@ -452,29 +529,11 @@ def fit_path(
     lam = default_grid(fac.d, n_lambdas) if lam_user is None else lam_user
     _freeze(lam)
 
-    zy = design.zy
-    c = fac.u.T @ zy  # (r, t)
-    resid_out = zy - fac.u @ c  # (m, t): response outside the column span
-    rss_out = np.einsum("it,it->t", resid_out, resid_out)
+    c = fac.u.T @ design.zy  # (r, t)
+    crit = criteria(fac, design, c, lam)
+    df = crit.df
     m, r = fac.u.shape
-    d, d2 = fac.d, np.square(fac.d)
-    denom = d2[:, None] + lam[None, :]
-    F = d2[:, None] / denom
-    S = lam[None, :] / denom
-    df = fit_intercept + F.sum(axis=0)
-    rss = rss_out[None, :] + np.square(S).T @ np.square(c)  # (k, t)
-    train_mse = rss / n
-    resid_dof = (m - r) + S.sum(axis=0)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        gcv = n * rss / np.square(resid_dof)[:, None]
-    # min-norm limit of GCV: finite even when the fit interpolates (m == r)
-    if m > r:
-        gcv0 = n * rss_out / (m - r) ** 2
-    else:
-        inv_d2 = 1.0 / d2
-        gcv0 = n * (np.square(c).T @ np.square(inv_d2)) / inv_d2.sum() ** 2
-    gcv[lam == 0] = gcv0
-    loo_mse, loo0 = _loo(fac, design, c, resid_out, lam)
+    d = fac.d
 
     coef = _coefficients(fac, c, lam, design)  # (k, p, t)
     intercept = design.y_mean[None, :] - np.einsum("kpt,p->kt", coef, design.x_mean)
@@ -488,7 +547,7 @@ def fit_path(
     if has_test:
         n_test = X_test.shape[0]
         proj = design.transform(X_test) @ fac.vt.T  # (n_test, r), once per test set
-        gains = d[:, None] / denom
+        gains = _gains(d, lam)
         resid = (Yt - design.y_mean)[:, None, :] - np.einsum("ir,rk,rt->ikt", proj, gains, c)
         test_mse = np.mean(np.square(resid), axis=0)
         resid0 = Yt - design.y_mean - proj @ (c / d[:, None])
@@ -496,6 +555,7 @@ def fit_path(
 
     fitted = None
     if return_fitted:
+        F = np.square(d)[:, None] / (np.square(d)[:, None] + lam[None, :])
         fitted_c = to_sample_space(fac.u @ (F[:, :, None] * c[:, None, :]).reshape(r, -1),
                                    fit_intercept)
         fitted = design.y_mean + fitted_c.reshape(n, lam.size, -1).transpose(1, 0, 2)
@@ -504,13 +564,13 @@ def fit_path(
         return a if (multi or a is None) else a[..., 0]
 
     min_norm = MinNormFit(
-        coef=sq(coef0), intercept=sq(intercept0), train_mse=sq(rss_out / n), gcv=sq(gcv0),
-        loo_mse=sq(loo0), test_mse=sq(test0), df=float(fit_intercept + r),
+        coef=sq(coef0), intercept=sq(intercept0), train_mse=sq(crit.train_mse0),
+        gcv=sq(crit.gcv0), loo_mse=sq(crit.loo_mse0), test_mse=sq(test0), df=float(fit_intercept + r),
         coef_norm=sq(np.sqrt(np.sum(np.square(beta0), axis=1))), rank=r,
     )
     out = dict(
-        coef=sq(coef), intercept=sq(intercept), train_mse=sq(train_mse), gcv=sq(gcv),
-        loo_mse=sq(loo_mse), test_mse=sq(test_mse), fitted=sq(fitted),
+        coef=sq(coef), intercept=sq(intercept), train_mse=sq(crit.train_mse), gcv=sq(crit.gcv),
+        loo_mse=sq(crit.loo_mse), test_mse=sq(test_mse), fitted=sq(fitted),
     )
     _freeze(*out.values(), df, c, *(v for v in vars(min_norm).values()))
     return RidgePath(
