@@ -1,0 +1,135 @@
+"""`paths explore` and `paths demo` through typer's CliRunner.
+
+The numbers written are checked against scikit-learn ``Ridge`` refits (an
+outside reference); the file layout and the summary.json keys against the
+contract of issue 2.
+"""
+from __future__ import annotations
+
+import csv
+import json
+
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose
+from sklearn.linear_model import Ridge
+from sklearn.preprocessing import StandardScaler
+from typer.testing import CliRunner
+
+from paths.cli import app
+
+runner = CliRunner()
+
+SUMMARY_KEYS = {"n_samples", "n_features", "rank", "solver", "penalty_convention", "lambdas",
+                "df", "train_mse", "gcv", "loo_mse", "test_mse", "selected", "min_norm",
+                "versions", "input_sha256"}
+
+
+@pytest.fixture()
+def wide_csv(tmp_path):
+    """A small wide dataset (n = 30, p = 45) written as CSV, with a separate test file."""
+    rng = np.random.default_rng(7)
+    n, p = 40, 45
+    X = rng.standard_normal((n, p)) * rng.uniform(0.5, 3.0, p) + rng.uniform(-2, 2, p)
+    y = X[:, :3] @ np.array([1.0, -0.5, 0.25]) + 0.3 * rng.standard_normal(n)
+    cols = [f"f{j}" for j in range(p)]
+
+    def write(path, rows, yy):
+        with open(path, "w", newline="") as fh:
+            w = csv.writer(fh)
+            w.writerow(cols + ["resp"])
+            for row, v in zip(rows, yy):
+                w.writerow([repr(float(a)) for a in row] + [repr(float(v))])
+
+    write(tmp_path / "train.csv", X[:30], y[:30])
+    write(tmp_path / "test.csv", X[30:], y[30:])
+    return tmp_path, X, y
+
+
+def _read_csv(path):
+    with open(path, newline="") as fh:
+        rows = list(csv.reader(fh))
+    return rows[0], np.array([[float(v) if v else np.nan for v in r] for r in rows[1:]])
+
+
+def test_explore_writes_contract_files_matching_sklearn(wide_csv):
+    """path.csv / coefficients.csv / summary.json against scikit-learn Ridge on scaled data.
+
+    Reference: scikit-learn ``Ridge(alpha=lambda)`` on ``StandardScaler``-scaled
+    features (same objective; see the README's penalty convention).  Tolerance
+    1e-8 relative: both solve the same well-conditioned linear system.
+    """
+    tmp, X, y = wide_csv
+    out = tmp / "out"
+    res = runner.invoke(app, ["explore", str(tmp / "train.csv"), "--target", "resp",
+                              "--test", str(tmp / "test.csv"), "--lambdas", "25",
+                              "--out", str(out)])
+    assert res.exit_code == 0, res.output
+    summary = json.loads((out / "summary.json").read_text())
+    assert SUMMARY_KEYS <= set(summary)
+    assert summary["n_samples"] == 30 and summary["n_features"] == 45
+    assert set(summary["selected"]) >= {"gcv", "loo"}
+    assert {"lambda", "df", "index"} <= set(summary["selected"]["gcv"])
+    assert {"train_mse", "test_mse", "coef_norm"} <= set(summary["min_norm"])
+    assert len(summary["input_sha256"]) == 2
+
+    header, table = _read_csv(out / "path.csv")
+    assert header == ["lambda", "df", "train_mse", "gcv", "loo_mse", "test_mse", "coef_norm"]
+    assert table.shape == (25, 7)
+    cheader, coefs = _read_csv(out / "coefficients.csv")
+    assert cheader[:2] == ["lambda", "intercept"] and len(cheader) == 2 + 45
+
+    scaler = StandardScaler().fit(X[:30])
+    for i in (0, 12, 24):
+        lam = table[i, 0]
+        m = Ridge(alpha=lam).fit(scaler.transform(X[:30]), y[:30])
+        coef = m.coef_ / scaler.scale_
+        assert_allclose(coefs[i, 2:], coef, rtol=1e-8, atol=1e-10 * np.abs(coef).max())
+        pred_tr = m.predict(scaler.transform(X[:30]))
+        pred_te = m.predict(scaler.transform(X[30:]))
+        assert_allclose(table[i, 2], np.mean((y[:30] - pred_tr) ** 2), rtol=1e-8)
+        assert_allclose(table[i, 5], np.mean((y[30:] - pred_te) ** 2), rtol=1e-8)
+
+
+def test_explore_refuses_non_empty_out_without_force(wide_csv):
+    """No data loss (house rule): an existing non-empty --out is refused, exit status 2."""
+    tmp, _, _ = wide_csv
+    out = tmp / "out"
+    out.mkdir()
+    keep = out / "mine.txt"
+    keep.write_text("user data")
+    args = ["explore", str(tmp / "train.csv"), "-t", "resp", "--out", str(out)]
+    res = runner.invoke(app, args)
+    assert res.exit_code == 2
+    assert "--force" in res.output and "Traceback" not in res.output
+    assert keep.read_text() == "user data"
+    res = runner.invoke(app, args + ["--force"])
+    assert res.exit_code == 0, res.output
+    assert keep.read_text() == "user data" and (out / "summary.json").exists()
+
+
+@pytest.mark.parametrize("args, needle", [
+    (["--target", "nope"], "nope"),
+    (["--target", "resp", "--holdout", "1.5"], "holdout"),
+])
+def test_explore_user_errors_exit_2(wide_csv, args, needle):
+    """User errors: one line on stderr naming the problem, exit status 2 (house rule)."""
+    tmp, _, _ = wide_csv
+    res = runner.invoke(app, ["explore", str(tmp / "train.csv"), *args,
+                              "--out", str(tmp / "o2")])
+    assert res.exit_code == 2
+    assert needle in res.output and "Traceback" not in res.output
+
+
+def test_explore_holdout_split_is_seeded(wide_csv):
+    """--holdout FRAC --seed S: the same seed gives the same split (summary records it)."""
+    tmp, _, _ = wide_csv
+    outs = []
+    for k in range(2):
+        out = tmp / f"h{k}"
+        res = runner.invoke(app, ["explore", str(tmp / "train.csv"), "-t", "resp",
+                                  "--holdout", "0.2", "--seed", "3", "--out", str(out)])
+        assert res.exit_code == 0, res.output
+        outs.append(json.loads((out / "summary.json").read_text()))
+    assert outs[0]["n_test"] == 6 and outs[0]["split"]["seed"] == 3
+    assert outs[0]["test_mse"] == outs[1]["test_mse"]
