@@ -421,8 +421,8 @@ def fit_path(
     n_lambdas : int
         Size of the default grid.
     rtol : float, optional
-        Relative rank tolerance; default ``max(m, p) * eps`` with ``m`` the rows
-        of the centered design (``n - 1`` with an intercept).
+        Relative rank tolerance: singular values at or below ``rtol * d_max``
+        count as zero.  Default ``max(n, p) * eps`` (numpy's ``pinv`` default).
     return_fitted : bool
         Also return the training-set fitted values (k × n).
 
@@ -518,6 +518,8 @@ def fit_path(
             f"every one of the {p} columns of X is constant; nothing to fit — "
             "check the feature selection"
         )
+    if rtol is None:
+        rtol = max(n, p) * _EPS
     try:
         fac = factorize(z, solver=solver, rtol=rtol, overwrite=True)
     except np.linalg.LinAlgError:  # gesdd failed after overwriting z: rebuild, use gesvd
