@@ -1,17 +1,12 @@
 """Shared fixtures for the reference tests of the numerical core.
 
 Kept small on purpose: seeded synthetic problems (labelled synthetic, generated
-here) and the location of the NIST StRD copy.
+here).
 """
 from __future__ import annotations
 
-from pathlib import Path
-
 import numpy as np
 import pytest
-
-NIST_DIR = Path(__file__).resolve().parent / "data" / "nist"
-
 
 def _gaussian_problem(n, p, *, seed=0, t=None, noise=0.5, shift=3.0, spread=True):
     """Synthetic regression problem: Gaussian design with non-zero means and
@@ -30,8 +25,3 @@ def _gaussian_problem(n, p, *, seed=0, t=None, noise=0.5, shift=3.0, spread=True
 def make_problem():
     """Factory ``make_problem(n, p, seed=0, t=None, noise=0.5) -> (X, y)``."""
     return _gaussian_problem
-
-
-@pytest.fixture(scope="session")
-def nist_dir() -> Path:
-    return NIST_DIR
