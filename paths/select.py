@@ -1,0 +1,715 @@
+"""Choosing the penalty: every defensible rule side by side, each with its uncertainty.
+
+All rules work on the one factorization held by a :class:`~paths.path.RidgePath`
+(and, for the cross-validation rules, a :class:`~paths.cv.CVResult` computed on
+the same data).  Each reports the penalty, the effective degrees of freedom
+:math:`\\operatorname{tr} H_\\lambda`, the shrinkage fraction
+:math:`\\|\\beta_\\lambda\\|/\\|\\beta^+\\|` (on the scale the penalty acts on) and
+an estimated test mean squared error with its standard error where one exists.
+
+Rules (keys of :data:`RULES`):
+
+``gcv``, ``loo``, ``cv``
+    Minimum of generalized cross-validation (Golub, Heath & Wahba 1979), exact
+    leave-one-out, or K-fold cross-validation.  The grid minimum is refined by
+    bounded scalar minimization on :math:`\\log\\lambda` between its neighbours;
+    a minimum on the edge of the grid extends the grid (and says so).
+``one-se``
+    The largest penalty whose CV error is within one standard error of the
+    minimum (Breiman, Friedman, Olshen & Stone 1984; ESL §7.10).
+``df``, ``fraction``
+    A target effective degrees of freedom (:math:`\\operatorname{tr} H`,
+    intercept included), or a target shrinkage fraction in (0, 1].
+``hkb``, ``lw``
+    Hoerl, Kennard & Baldwin (1975) :math:`k = p\\hat\\sigma^2/\\|\\hat b\\|^2` and
+    Lawless & Wang (1976) :math:`k = p\\hat\\sigma^2/\\|X\\hat b\\|^2`, in the
+    correlation form of their papers (columns centered to unit length,
+    :math:`\\hat b` the OLS fit); in this package's convention (unit population
+    SD) :math:`\\lambda = n k`, i.e. :math:`\\lambda_{HKB} = p\\hat\\sigma^2/
+    \\|\\hat\\beta\\|^2` and :math:`\\lambda_{LW} = n p \\hat\\sigma^2/\\|X\\hat\\beta\\|^2`.
+``isotropic``
+    The random-matrix plug-in :math:`\\lambda^* = p\\hat\\sigma^2/\\hat r^2`,
+    :math:`\\hat r^2 = \\widehat{\\operatorname{var}}(y) - \\hat\\sigma^2`
+    (Dobriban & Wager 2018), optimal for roughly isotropic standardized features.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy.optimize import brentq, minimize_scalar
+
+from ._validation import InputError
+from .grid import lambda_for_df
+
+__all__ = [
+    "RULES",
+    "NoiseEstimate",
+    "Selection",
+    "SelectionReport",
+    "parse_rule",
+    "noise_variance",
+    "one_se_index",
+    "lambda_for_fraction",
+    "shrinkage_fraction",
+    "hkb_lambda",
+    "lw_lambda",
+    "isotropic_lambda",
+    "select",
+]
+
+RULES = ("gcv", "loo", "cv", "one-se", "df", "fraction", "hkb", "lw", "isotropic")
+_XATOL = 1e-7  # tolerance of the refinement, in log(lambda)
+_N_EXTEND = 24  # grid extension: up to 12 decades beyond the edge, half a decade a step
+
+
+def parse_rule(spec: str) -> tuple[str, float | None]:
+    """``"gcv"`` → ``("gcv", None)``; ``"df=12"`` → ``("df", 12.0)``; ``"fraction=0.5"`` likewise.
+
+    Raises
+    ------
+    InputError
+        Unknown rule, or a missing / non-numeric value for ``df`` and ``fraction``.
+    """
+    text = str(spec).strip().lower()
+    name, _, value = text.partition("=")
+    name = name.strip()
+    if name in ("one_se", "onese", "1se"):
+        name = "one-se"
+    if name not in RULES:
+        raise InputError(
+            f"unknown rule {spec!r}; choose gcv, loo, cv, one-se, df=VALUE, fraction=VALUE, "
+            "hkb, lw or isotropic"
+        )
+    if name in ("df", "fraction"):
+        try:
+            return name, float(value)
+        except ValueError:
+            raise InputError(
+                f"rule {name} needs a number: {name}=VALUE (e.g. "
+                f"{'df=10' if name == 'df' else 'fraction=0.5'}); got {spec!r}"
+            ) from None
+    if value:
+        raise InputError(f"rule {name} takes no value; got {spec!r}")
+    return name, None
+
+
+# ------------------------------------------------------------------ building blocks
+def _col(a, j):
+    a = np.asarray(a)
+    return float(a) if a.ndim == 0 else float(a[j]) if a.ndim == 1 else float(a[0, j])
+
+
+def shrinkage_fraction(path, lam, target: int = 0) -> np.ndarray:
+    """:math:`\\|\\beta_\\lambda\\| / \\|\\beta^+\\|` at penalties ``lam`` (shape of ``lam``).
+
+    Norms on the scale the penalty acts on (standardized when ``standardize``);
+    :math:`\\beta^+` is the minimum-norm fit, so the fraction is 1 at
+    :math:`\\lambda = 0` and decreases to 0.
+    """
+    lam = np.asarray(lam, dtype=float)
+    d = path.factorization.d
+    c = path.uty[:, target]
+    g = d[:, None] / (np.square(d)[:, None] + lam.reshape(1, -1))
+    num = np.sqrt(np.square(g * c[:, None]).sum(axis=0))
+    den = np.sqrt(np.sum(np.square(c / d)))
+    return (num / den).reshape(lam.shape)
+
+
+def lambda_for_fraction(path, fraction: float, target: int = 0) -> float:
+    """The penalty whose shrinkage fraction is ``fraction`` (0 < fraction <= 1; 1 gives 0).
+
+    The fraction decreases strictly in :math:`\\lambda` (each :math:`d_j/(d_j^2+\\lambda)`
+    does), so the root is unique; Brent's method on :math:`\\log\\lambda`.
+    """
+    if not (0.0 < fraction <= 1.0) or not np.isfinite(fraction):
+        raise InputError(f"target shrinkage fraction must lie in (0, 1]; got {fraction}")
+    if fraction == 1.0:
+        return 0.0
+    d2 = np.square(path.factorization.d)
+    f = lambda t: float(shrinkage_fraction(path, np.exp(t), target)) - fraction  # noqa: E731
+    lo, hi = np.log(d2[-1]) - 2.0, np.log(d2[0]) + 2.0
+    for _ in range(200):
+        if f(lo) > 0:
+            break
+        lo -= 2.0
+    for _ in range(200):
+        if f(hi) < 0:
+            break
+        hi += 2.0
+    return float(np.exp(brentq(f, lo, hi, xtol=1e-12, rtol=4 * np.finfo(float).eps)))
+
+
+def one_se_index(lambdas, mse, se, *, min_index: int | None = None) -> int:
+    """Grid index of the one-standard-error rule.
+
+    The largest penalty whose error is at most ``mse[i] + se[i]``, with ``i`` the
+    grid minimum (or ``min_index``).
+
+    Parameters
+    ----------
+    lambdas, mse, se : array_like, shape (k,)
+        Grid (any order), CV error and its standard error.
+    min_index : int, optional
+
+    Returns
+    -------
+    int
+
+    References
+    ----------
+    Breiman, L., Friedman, J., Olshen, R. and Stone, C. (1984). *Classification
+    and Regression Trees*, §3.4.3.  Hastie, Tibshirani & Friedman (2009),
+    *The Elements of Statistical Learning*, 2nd ed., §7.10.
+    """
+    lam = np.asarray(lambdas, dtype=float)
+    mse = np.asarray(mse, dtype=float)
+    se = np.asarray(se, dtype=float)
+    i = int(np.argmin(mse)) if min_index is None else int(min_index)
+    ok = (mse <= mse[i] + se[i]) & (lam >= lam[i])
+    cand = np.flatnonzero(ok)
+    return int(cand[np.argmax(lam[cand])])
+
+
+@dataclass(frozen=True)
+class NoiseEstimate:
+    """An estimate of the noise variance :math:`\\sigma^2`.
+
+    Attributes
+    ----------
+    value : float or ndarray, shape (t,)
+    method : str
+        ``"ols"`` or ``"ridge"``.
+    formula : str
+        The formula, named in the output.
+    dof : float or ndarray
+        Residual degrees of freedom used.
+    lam : float, ndarray or None
+        The ridge penalty (GCV choice) for ``"ridge"``.
+    reference : str
+    """
+
+    value: float | np.ndarray
+    method: str
+    formula: str
+    dof: float | np.ndarray
+    lam: float | np.ndarray | None
+    reference: str
+
+    def as_dict(self, target: int | None = None) -> dict:
+        def pick(v):
+            if v is None:
+                return None
+            v = np.asarray(v, dtype=float)
+            if v.ndim == 0:
+                return float(v)
+            return float(v[target]) if target is not None else v.tolist()
+        return {"value": pick(self.value), "method": self.method, "formula": self.formula,
+                "dof": pick(self.dof), "lambda": pick(self.lam), "reference": self.reference}
+
+
+def noise_variance(path, *, gcv_lambda=None) -> NoiseEstimate:
+    """Noise variance from the OLS residuals when n > rank + 1, else from a ridge fit.
+
+    Parameters
+    ----------
+    path : RidgePath
+    gcv_lambda : float or array_like (t,), optional
+        The penalty of the ridge estimate; default the refined GCV minimum of
+        each target.
+
+    Returns
+    -------
+    NoiseEstimate
+
+    Notes
+    -----
+    OLS: :math:`\\hat\\sigma^2 = \\mathrm{RSS}/(n - r - 1)` with ``r`` the rank of the
+    centered design (``p`` at full column rank; without an intercept
+    :math:`n - r`).  Otherwise ridge at the GCV choice:
+    :math:`\\hat\\sigma^2 = \\mathrm{RSS}(\\lambda)/(n - \\operatorname{tr}(2H - HH^T))`,
+    with :math:`n - \\operatorname{tr}(2H - HH^T) = (m - r) + \\sum_j s_j^2`,
+    :math:`s_j = \\lambda/(d_j^2+\\lambda)` (no cancellation).  The ridge estimate
+    is biased upward by the squared bias of the fit; it is accurate when the
+    signal is well captured at the chosen penalty.
+
+    References
+    ----------
+    Hastie, T. and Tibshirani, R. (1990). *Generalized Additive Models*, §3.5.
+    """
+    fac, design = path.factorization, path.design
+    m, r = fac.u.shape
+    n = design.n_samples
+    t = path.uty.shape[1]
+    if m - r >= 1:
+        resid = design.zy - fac.u @ path.uty
+        rss = np.einsum("it,it->t", resid, resid)
+        dof = float(m - r)
+        val = rss / dof
+        label = "n - rank - 1" if design.fit_intercept else "n - rank"
+        return NoiseEstimate(
+            value=_squeeze(val, path), method="ols",
+            formula=f"OLS: RSS/({label}) = RSS/{dof:g}",
+            dof=dof, lam=None, reference="least-squares residual variance (common practice)")
+    if gcv_lambda is None:
+        lam = np.array([_refine_minimum(_gcv_fun(path, j), path.lambdas,
+                                        _target_col(path.gcv, j))["lam"] for j in range(t)])
+    else:
+        lam = np.broadcast_to(np.asarray(gcv_lambda, dtype=float), (t,)).copy()
+    d2 = np.square(fac.d)
+    vals, dofs = np.empty(t), np.empty(t)
+    for j in range(t):
+        s = lam[j] / (d2 + lam[j])
+        rss = float(np.sum(np.square(s * path.uty[:, j])))
+        dofs[j] = (m - r) + float(np.sum(np.square(s)))
+        vals[j] = rss / dofs[j]
+    return NoiseEstimate(
+        value=_squeeze(vals, path), method="ridge",
+        formula="ridge: RSS(lambda)/(n - tr(2H - HH^T)) at the GCV-chosen lambda",
+        dof=_squeeze(dofs, path), lam=_squeeze(lam, path),
+        reference="Hastie & Tibshirani (1990), Generalized Additive Models, sec. 3.5")
+
+
+def _squeeze(a, path):
+    a = np.asarray(a, dtype=float)
+    return a if path.multi_target else float(a.reshape(-1)[0])
+
+
+def _target_col(a, j):
+    a = np.asarray(a)
+    return a if a.ndim == 1 else a[:, j]
+
+
+def hkb_lambda(path, sigma2, target: int = 0) -> float:
+    """Hoerl–Kennard–Baldwin (1975): :math:`\\lambda = p\\,\\hat\\sigma^2/\\|\\hat\\beta\\|^2`.
+
+    :math:`\\hat\\beta` is the least-squares (minimum-norm) fit on the scale the
+    penalty acts on, ``p`` the number of non-constant features.  Equal to
+    :math:`n k_{HKB}` with :math:`k_{HKB}` of the paper's correlation form.
+
+    References
+    ----------
+    Hoerl, A. E., Kennard, R. W. and Baldwin, K. F. (1975). Ridge regression:
+    some simulations. *Communications in Statistics* 4, 105–123.
+    """
+    c = path.uty[:, target]
+    d = path.factorization.d
+    p = int(path.design.active.sum())
+    return float(p * sigma2 / np.sum(np.square(c / d)))
+
+
+def lw_lambda(path, sigma2, target: int = 0) -> float:
+    """Lawless–Wang (1976): :math:`\\lambda = n\\,p\\,\\hat\\sigma^2/\\|X\\hat\\beta\\|^2`.
+
+    The paper's :math:`k = p\\hat\\sigma^2/\\hat b^T X^T X \\hat b` in correlation
+    form (columns of unit length), times ``n`` for this package's unit-SD
+    columns; :math:`\\|X\\hat\\beta\\|^2 = \\sum_j (u_j^T y)^2`, the fitted sum of squares.
+
+    References
+    ----------
+    Lawless, J. F. and Wang, P. (1976). A simulation study of ridge and other
+    regression estimators. *Communications in Statistics A* 5, 307–323.
+    """
+    c = path.uty[:, target]
+    p = int(path.design.active.sum())
+    return float(path.n_samples * p * sigma2 / np.sum(np.square(c)))
+
+
+def isotropic_lambda(path, sigma2, target: int = 0) -> float | None:
+    """Random-matrix plug-in :math:`\\lambda^* = p\\hat\\sigma^2/\\hat r^2` (``None`` if :math:`\\hat r^2 \\le 0`).
+
+    :math:`\\hat r^2 = \\|y - \\bar y\\|^2/(n-1) - \\hat\\sigma^2` estimates the signal
+    variance; with isotropic standardized features it is :math:`\\|\\beta\\|^2`, and
+    :math:`\\lambda_n^* = \\gamma\\sigma^2/r^2` (:math:`\\gamma = p/n`) is the
+    limiting-risk optimum of Dobriban & Wager (2018), i.e. :math:`\\lambda^* = n\\lambda_n^*`.
+
+    References
+    ----------
+    Dobriban, E. and Wager, S. (2018). High-dimensional asymptotics of
+    prediction: ridge regression and classification. *Ann. Statist.* 46, 247–279.
+    """
+    zy = path.design.zy[:, target]
+    n = path.n_samples
+    var_y = float(zy @ zy) / (n - 1 if path.fit_intercept else n)
+    r2 = var_y - sigma2
+    if not r2 > 0:
+        return None
+    p = int(path.design.active.sum())
+    return float(p * sigma2 / r2)
+
+
+# -------------------------------------------------------------------- refinement
+def _gcv_fun(path, j):
+    def f(lam):
+        crit = path.criteria_at(lam)
+        return _target_col(crit.gcv, j)
+    return f
+
+
+def _loo_fun(path, j):
+    def f(lam):
+        crit = path.criteria_at(lam)
+        return _target_col(crit.loo_mse, j)
+    return f
+
+
+def _cv_fun(cv, j):
+    def f(lam):
+        mse, _ = cv.at(lam)
+        return _target_col(mse, j)
+    return f
+
+
+def _refine_minimum(fun, lambdas, values) -> dict:
+    """Minimize a criterion given on a grid: refine between neighbours, extend at an edge.
+
+    ``fun(lam_array) -> values``.  Returns ``lam``, ``value``, ``index`` (grid
+    argmin, in the grid's own order), ``extended`` (bool) and ``note``.
+    """
+    lam = np.asarray(lambdas, dtype=float)
+    vals = np.asarray(values, dtype=float)
+    order = np.argsort(lam)
+    ls, vs = lam[order], vals[order]
+    i = int(np.argmin(vs))
+    index = int(order[i])
+    note = ""
+    extended = False
+    if ls.size == 1:
+        return dict(lam=float(ls[0]), value=float(vs[0]), index=index, extended=False,
+                    note="single penalty: nothing to refine")
+    pos = ls > 0
+    best_l, best_v = float(ls[i]), float(vs[i])
+    if i == ls.size - 1 or (i == 0 and ls[0] > 0):
+        extended = True
+        up = i == ls.size - 1
+        steps = 10.0 ** (0.5 * np.arange(1, _N_EXTEND + 1))
+        ext = ls[i] * steps if up else ls[i] / steps
+        ev = np.asarray(fun(ext), dtype=float)
+        seq_l = np.concatenate([[ls[i - 1] if up else ls[i + 1]], [ls[i]], ext])
+        seq_v = np.concatenate([[vs[i - 1] if up else vs[i + 1]], [vs[i]], ev])
+        rising = np.flatnonzero(np.diff(seq_v[1:]) > 0)
+        if rising.size:
+            j = int(rising[0]) + 1  # seq index of the bracketed minimum
+            lo, hi = sorted((seq_l[j - 1], seq_l[j + 1]))
+            best_l, best_v = float(seq_l[j]), float(seq_v[j])
+            note = (f"the grid minimum was at the {'largest' if up else 'smallest'} penalty; "
+                    f"the grid was extended to lambda = {seq_l[j + 1]:.3g} to bracket it")
+        elif up:
+            k = int(np.argmin(seq_v))
+            return dict(lam=float(seq_l[k]), value=float(seq_v[k]), index=index, extended=True,
+                        note=(f"criterion still decreasing at lambda = {ext[-1]:.3g} "
+                              "(grid extended 12 decades): the intercept-only model is preferred"))
+        else:
+            v0 = float(np.asarray(fun(np.array([0.0])), dtype=float).reshape(-1)[0])
+            k = int(np.argmin(seq_v))
+            if v0 <= seq_v[k]:
+                return dict(lam=0.0, value=v0, index=index, extended=True,
+                            note="criterion decreases all the way to the minimum-norm limit "
+                                 "lambda -> 0+ (grid extended 12 decades down)")
+            return dict(lam=float(seq_l[k]), value=float(seq_v[k]), index=index, extended=True,
+                        note=f"criterion still decreasing at lambda = {ext[-1]:.3g}")
+    else:
+        if i == 0:  # lambda = 0 on the grid
+            lo, hi = ls[0], ls[1]
+        else:
+            lo, hi = ls[i - 1], ls[i + 1]
+    if lo <= 0:
+        lo = hi * 1e-12 if not pos.any() else min(ls[pos].min(), hi) * 1e-3
+    res = minimize_scalar(lambda t: float(np.asarray(fun(np.array([np.exp(t)]))).reshape(-1)[0]),
+                          bounds=(np.log(lo), np.log(hi)), method="bounded",
+                          options={"xatol": _XATOL})
+    if res.fun <= best_v:
+        best_l, best_v = float(np.exp(res.x)), float(res.fun)
+    return dict(lam=best_l, value=best_v, index=index, extended=extended, note=note)
+
+
+# ----------------------------------------------------------------------- results
+@dataclass(frozen=True)
+class Selection:
+    """One rule's choice of penalty, for one target.
+
+    Attributes
+    ----------
+    rule : str
+    lam : float or None
+        The penalty (``None`` when the rule does not apply, see ``note``).
+    df : float or None
+        :math:`\\operatorname{tr} H_\\lambda`, the intercept's 1 included.
+    fraction : float or None
+        :math:`\\|\\beta_\\lambda\\|/\\|\\beta^+\\|`.
+    est_mse, est_se : float or None
+        Estimated test MSE and its standard error (``None`` where none exists).
+    est_source : str or None
+        Which estimate: ``"gcv"``, ``"loo"`` or ``"cv"``.
+    index : int or None
+        For the grid-based rules (gcv, loo, cv, one-se): the grid index of the
+        grid choice before refinement.
+    refined, extended : bool
+        Refined between grid points; grid extended past its edge.
+    note : str
+    target : int
+    """
+
+    rule: str
+    lam: float | None
+    df: float | None = None
+    fraction: float | None = None
+    est_mse: float | None = None
+    est_se: float | None = None
+    est_source: str | None = None
+    index: int | None = None
+    refined: bool = False
+    extended: bool = False
+    note: str = ""
+    target: int = 0
+
+    def as_dict(self) -> dict:
+        """The ``summary.json`` entry ``selected.<rule>``."""
+        out = {"lambda": self.lam, "df": self.df, "fraction": self.fraction,
+               "est_mse": self.est_mse, "est_se": self.est_se, "est_source": self.est_source}
+        if self.index is not None:
+            out["index"] = self.index
+            out["on_grid_index"] = self.index
+        if self.rule in ("gcv", "loo"):
+            out["value"] = self.est_mse
+        out["refined"] = self.refined
+        out["extended"] = self.extended
+        out["note"] = self.note
+        return out
+
+
+@dataclass(frozen=True)
+class SelectionReport:
+    """Every rule's choice, per target, with the noise estimate.
+
+    Attributes
+    ----------
+    per_target : tuple of dict
+        ``per_target[j][rule]`` is the :class:`Selection` of ``rule`` for target ``j``.
+    noise : NoiseEstimate
+    reported : str
+        The rule whose choice is reported (see :func:`select`).
+    df_target, fraction_target : float or None
+    """
+
+    per_target: tuple
+    noise: NoiseEstimate
+    reported: str
+    df_target: float | None = None
+    fraction_target: float | None = None
+    rules: dict = field(default_factory=dict)
+
+    def __post_init__(self):
+        object.__setattr__(self, "rules", self.per_target[0])
+
+    @property
+    def chosen(self) -> Selection:
+        """The reported rule's selection for the first target."""
+        return self.per_target[0][self.reported]
+
+    def chosen_lambdas(self) -> np.ndarray:
+        """The reported rule's penalty for each target, shape (t,)."""
+        return np.array([sel[self.reported].lam for sel in self.per_target], dtype=float)
+
+    def as_dict(self, target: int = 0) -> dict:
+        return {rule: sel.as_dict() for rule, sel in self.per_target[target].items()}
+
+
+# ------------------------------------------------------------------------ select
+def _estimate(path, cv, lam, j, loo_se_cache):
+    """(est_mse, est_se, source) at ``lam``: CV when available, else exact LOO."""
+    from .cv import loo_residuals
+
+    if lam is None:
+        return None, None, None
+    if cv is not None:
+        mse, se = cv.at(lam)
+        return _col(mse, j), _col(se, j), "cv"
+    res = loo_residuals(path, np.array([lam]))  # (n, 1[, t])
+    e2 = np.square(res[:, 0] if res.ndim == 2 else res[:, 0, j])
+    return float(e2.mean()), float(e2.std(ddof=1) / np.sqrt(e2.size)), "loo"
+
+
+def _df_at(path, lam):
+    d2 = np.square(path.factorization.d)
+    return float(path.fit_intercept + np.sum(d2 / (d2 + lam)))
+
+
+def select(path, cv=None, *, df_target: float | None = None,
+           fraction_target: float | None = None, reported: str | None = None) -> SelectionReport:
+    """Apply every selection rule to a fitted path (and optional CV errors).
+
+    Parameters
+    ----------
+    path : RidgePath
+    cv : CVResult, optional
+        K-fold errors on the same data (:func:`paths.cv.cross_validate`); the
+        ``cv`` and ``one-se`` rules need it, and the other rules then report CV
+        estimates of the test error (else exact leave-one-out).
+    df_target : float, optional
+        Target :math:`\\operatorname{tr} H` in (intercept, rank + intercept] —
+        (1, rank + 1] with an intercept, (0, rank] without.
+    fraction_target : float, optional
+        Target shrinkage fraction in (0, 1].
+    reported : str, optional
+        The rule to report: a rule name or spec (``"df=10"``).  Default ``"cv"``
+        when ``cv`` is given, else ``"gcv"``.
+
+    Returns
+    -------
+    SelectionReport
+
+    Raises
+    ------
+    InputError
+        A target outside its range, or a reported rule that cannot be computed
+        (``cv``/``one-se`` without CV, ``df``/``fraction`` without a target).
+
+    Notes
+    -----
+    The test-error estimate of a rule is its own criterion for gcv, loo and cv
+    (the GCV value has no standard error), and otherwise the CV error (or, with
+    no CV, the leave-one-out error, SE :math:`\\operatorname{sd}(e_{(i)}^2)/\\sqrt n`)
+    at the chosen penalty.  Estimates at a penalty chosen on the same data are
+    optimistic.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from paths import fit_path
+    >>> rng = np.random.default_rng(0)
+    >>> X = rng.standard_normal((60, 30)); y = X[:, 0] + rng.standard_normal(60)
+    >>> rep = select(fit_path(X, y))
+    >>> rep.reported, rep.noise.method
+    ('gcv', 'ols')
+    """
+    if reported is not None:
+        name, value = parse_rule(reported)
+        if name == "df":
+            df_target = value if df_target is None else df_target
+        elif name == "fraction":
+            fraction_target = value if fraction_target is None else fraction_target
+        reported = name
+    else:
+        reported = "cv" if cv is not None else "gcv"
+    if reported in ("cv", "one-se") and cv is None:
+        raise InputError(f"rule {reported} needs K-fold cross-validation; pass cv= (CLI: --cv K)")
+    r = path.rank
+    lo_df, hi_df = float(path.fit_intercept), float(r + path.fit_intercept)
+    if df_target is not None and not (lo_df < df_target <= hi_df):
+        raise InputError(
+            f"df target {df_target:g} is outside ({lo_df:g}, {hi_df:g}] "
+            f"(tr H, {'the intercept counted, ' if path.fit_intercept else ''}rank {r})"
+        )
+    if fraction_target is not None and not (0.0 < fraction_target <= 1.0):
+        raise InputError(f"target shrinkage fraction must lie in (0, 1]; got {fraction_target:g}")
+    if cv is not None and (cv.lambdas.size == 0 or cv.mse.shape[0] != cv.lambdas.size):
+        raise InputError("cv result has no penalties; compute it with cross_validate")
+    t = path.uty.shape[1]
+    gcv_choice = [_refine_minimum(_gcv_fun(path, j), path.lambdas, _target_col(path.gcv, j))
+                  for j in range(t)]
+    noise = noise_variance(path, gcv_lambda=np.array([g["lam"] for g in gcv_choice]))
+    sig = np.broadcast_to(np.asarray(noise.value, dtype=float), (t,))
+    per_target = []
+    for j in range(t):
+        per_target.append(_select_one(path, cv, j, gcv_choice[j], float(sig[j]), noise,
+                                      df_target, fraction_target))
+    return SelectionReport(per_target=tuple(per_target), noise=noise, reported=reported,
+                           df_target=df_target, fraction_target=fraction_target)
+
+
+def _make(path, rule, lam, j, *, est=None, cv=None, **kw):
+    if lam is None:
+        return Selection(rule=rule, lam=None, target=j, **kw)
+    if est is None:
+        est = _estimate(path, cv, lam, j, None)
+    return Selection(rule=rule, lam=float(lam), df=_df_at(path, lam),
+                     fraction=float(shrinkage_fraction(path, lam, j)),
+                     est_mse=est[0], est_se=est[1], est_source=est[2], target=j, **kw)
+
+
+def _select_one(path, cv, j, g, sigma2, noise, df_target, fraction_target):
+    out = {}
+    out["gcv"] = _make(path, "gcv", g["lam"], j, est=(g["value"], None, "gcv"), index=g["index"],
+                       refined=True, extended=g["extended"], note=g["note"])
+    lo = _refine_minimum(_loo_fun(path, j), path.lambdas, _target_col(path.loo_mse, j))
+    loo_est = _estimate(path, None, lo["lam"], j, None)
+    out["loo"] = _make(path, "loo", lo["lam"], j, est=(lo["value"], loo_est[1], "loo"),
+                       index=lo["index"], refined=True, extended=lo["extended"], note=lo["note"])
+    if cv is None:
+        out["cv"] = Selection("cv", None, target=j, note="no K-fold CV computed (--cv K)")
+        out["one-se"] = Selection("one-se", None, target=j, note="no K-fold CV computed (--cv K)")
+    else:
+        cm = _refine_minimum(_cv_fun(cv, j), cv.lambdas, _target_col(cv.mse, j))
+        mse_min, se_min = cv.at(cm["lam"])
+        mse_min, se_min = _col(mse_min, j), _col(se_min, j)
+        reason = (f"{cv.n_folds}-fold {cv.scheme}" + (f" x {cv.repeats} repeats" if cv.repeats > 1
+                                                    else "") + f", {cv.method} ({cv.form})")
+        out["cv"] = _make(path, "cv", cm["lam"], j, est=(mse_min, se_min, "cv"), index=cm["index"],
+                          refined=True, extended=cm["extended"],
+                          note="; ".join(x for x in (reason, cm["note"]) if x))
+        out["one-se"] = _one_se(path, cv, j, cm["lam"], mse_min, se_min)
+    est_cv = cv
+    if df_target is None:
+        out["df"] = Selection("df", None, target=j, note="no df target given (rule df=VALUE)")
+    else:
+        hi = path.rank + path.fit_intercept
+        lam = 0.0 if df_target == hi else lambda_for_df(path.factorization.d,
+                                                       df_target - path.fit_intercept)
+        out["df"] = _make(path, "df", lam, j, cv=est_cv, note=f"target df {df_target:g}")
+    if fraction_target is None:
+        out["fraction"] = Selection("fraction", None, target=j,
+                                    note="no fraction target given (rule fraction=VALUE)")
+    else:
+        lam = lambda_for_fraction(path, fraction_target, j)
+        out["fraction"] = _make(path, "fraction", lam, j, cv=est_cv,
+                                note=f"target fraction {fraction_target:g}")
+    outside = []
+    if noise.method != "ols":
+        outside.append("OLS undefined (rank >= n - 1): min-norm fit and the ridge noise "
+                       "estimate used, outside the published setting")
+    if not path.standardize:
+        outside.append("features not standardized: the published rules assume standardized "
+                       "columns")
+    note = "; ".join(outside)
+    out["hkb"] = _make(path, "hkb", hkb_lambda(path, sigma2, j), j, cv=est_cv,
+                       note="; ".join(x for x in ("Hoerl, Kennard & Baldwin (1975)", note) if x))
+    out["lw"] = _make(path, "lw", lw_lambda(path, sigma2, j), j, cv=est_cv,
+                      note="; ".join(x for x in ("Lawless & Wang (1976)", note) if x))
+    iso = isotropic_lambda(path, sigma2, j)
+    iso_note = "Dobriban & Wager (2018); assumes roughly isotropic standardized features"
+    if not path.standardize:
+        iso_note += "; features not standardized"
+    if iso is None:
+        out["isotropic"] = Selection("isotropic", None, target=j,
+                                     note=iso_note + "; estimated signal variance <= 0 "
+                                     "(the plug-in says: intercept only)")
+    else:
+        out["isotropic"] = _make(path, "isotropic", iso, j, cv=est_cv, note=iso_note)
+    return out
+
+
+def _one_se(path, cv, j, lam_min, mse_min, se_min):
+    """Largest penalty with CV error <= min + SE(min), the crossing refined by Brent's method."""
+    lam = np.asarray(cv.lambdas, dtype=float)
+    mse = _target_col(cv.mse, j)
+    thresh = mse_min + se_min
+    ok = (mse <= thresh) & (lam >= lam_min)
+    note = f"largest lambda with CV error <= {mse_min:.4g} + {se_min:.4g} (min + 1 SE)"
+    if not ok.any():
+        lam_1se, idx = lam_min, int(np.argmin(np.abs(np.log(np.maximum(lam, 1e-300))
+                                                     - np.log(max(lam_min, 1e-300)))))
+        return _make(path, "one-se", lam_1se, j, cv=cv, index=idx, note=note)
+    cand = np.flatnonzero(ok)
+    idx = int(cand[np.argmax(lam[cand])])
+    above = lam > lam[idx]
+    chosen, refined = float(lam[idx]), False
+    if above.any():
+        nxt = float(lam[above].min())
+        f = lambda t: _col(cv.at(np.exp(t))[0], j) - thresh  # noqa: E731
+        a, b = np.log(lam[idx]) if lam[idx] > 0 else np.log(nxt) - 30.0, np.log(nxt)
+        if f(a) <= 0 < f(b):
+            chosen, refined = float(np.exp(brentq(f, a, b, xtol=1e-10))), True
+    else:
+        note += "; at the largest grid penalty"
+    return _make(path, "one-se", chosen, j, cv=cv, index=idx, refined=refined, note=note)
