@@ -90,12 +90,24 @@ def as_response(y, n: int, what: str = "y") -> np.ndarray:
 
 def as_lambdas(lambdas) -> np.ndarray:
     """Return a user grid as a 1-D float64 array of finite, non-negative penalties."""
-    lam = np.atleast_1d(np.asarray(lambdas, dtype=np.float64))
+    try:
+        lam = np.atleast_1d(np.asarray(lambdas, dtype=np.float64))
+    except (TypeError, ValueError):
+        shown = " ".join(repr(lambdas).split())[:80]
+        raise InputError(
+            f"lambdas must be numeric penalties >= 0; got the non-numeric {shown}"
+        ) from None
     if lam.ndim != 1 or lam.size == 0:
         raise InputError(f"lambdas must be a non-empty 1-D sequence; got shape {lam.shape}")
+    nan = np.isnan(lam)
+    if nan.any():
+        raise InputError(
+            f"lambdas contain {int(nan.sum())} NaN value(s) (first at position "
+            f"{int(np.argmax(nan))}); pass finite penalties >= 0"
+        )
     if not np.all(np.isfinite(lam)) or np.any(lam < 0):
         raise InputError(
             "lambdas must be finite and >= 0 (penalty on ||beta||^2); "
-            f"got min {np.nanmin(lam)!r}, max {np.nanmax(lam)!r}"
+            f"got min {lam.min()!r}, max {lam.max()!r}"
         )
     return lam

@@ -11,10 +11,10 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from .datasets import split_holdout
-from .io import Dataset, read_table, select, sha256_of
+from .io import Dataset, load_dataset, sha256_of
 from .output import prepare_out_dir, write_csv, write_json
 from .path import RidgePath, fit_path
-from .summary import coefficient_table, path_table, summary_dict
+from .summary import coefficient_table, path_table, selections, summary_dict
 
 __all__ = ["ExploreRun", "explore", "load_data"]
 
@@ -29,10 +29,46 @@ class ExploreRun:
     files: list = field(default_factory=list)
 
 
-def load_data(path, target, *, sep=None) -> tuple[Dataset, str]:
-    """Read ``path`` and split off ``target``; returns the dataset and the file's SHA-256."""
-    df = read_table(path, sep=sep)
-    return select(df, target, source=str(path)), sha256_of(path)
+def load_data(path, target, *, sep=None, features=None, exclude=None, id_column=None,
+              encode=None, drop_missing=None, like: Dataset | None = None
+              ) -> tuple[Dataset, str]:
+    """Read ``path`` and split off ``target``; returns the dataset and the file's SHA-256.
+
+    The options are those of :func:`paths.io.select`; with ``like`` (the training
+    Dataset) the file is read as a test set aligned to its columns
+    (:func:`paths.io.select_like`).  The file is opened read-only.
+    """
+    data = load_dataset(path, target, sep=sep, features=features, exclude=exclude,
+                        id_column=id_column, encode=encode, drop_missing=drop_missing, like=like)
+    return data, sha256_of(path)
+
+
+def _per_target(table, result: RidgePath, targets) -> tuple[list, list]:
+    """One table for one target; for several, the rows of each stacked under a ``target`` column."""
+    if len(targets) == 1:
+        return table(result)
+    header, rows = None, []
+    for j, name in enumerate(targets):
+        h, r = table(result, j)
+        header = ["target", *h]
+        rows.extend([name, *row] for row in r)
+    return header, rows
+
+
+def _guard_inputs(out: Path, names, inputs) -> None:
+    """Refuse to write an output file over an input file (even with --force)."""
+    from ._validation import InputError
+
+    for name in names:
+        dest = out / name
+        for src in inputs:
+            try:
+                same = dest.exists() and Path(src).exists() and dest.samefile(src)
+            except OSError:
+                same = False
+            if same:
+                raise InputError(f"--out {out} would overwrite the input file {src} ({name}); "
+                                 "choose another --out")
 
 
 def explore(
@@ -94,10 +130,23 @@ def explore(
         input_sha256=input_sha256 or {},
         split=split,
         command_line=shlex.join(command_line if command_line is not None else sys.argv),
+        data_notes=list(data.notes) + [f"test data: {n}" for n in (test.notes if test else [])],
+        data_preparation=data.record(),
     )
+    if len(data.target_names) > 1:
+        summary["targets"] = list(data.target_names)
+        summary["by_target"] = {
+            name: {"selected": selections(result, j),
+                   "min_norm": {k: summary["min_norm"][k][j] if isinstance(
+                       summary["min_norm"][k], list) else summary["min_norm"][k]
+                       for k in summary["min_norm"]}}
+            for j, name in enumerate(data.target_names)
+        }
+    _guard_inputs(out, ("path.csv", "coefficients.csv", "summary.json"), (input_sha256 or {}))
     files = [
-        write_csv(out / "path.csv", *path_table(result)),
-        write_csv(out / "coefficients.csv", *coefficient_table(result)),
+        write_csv(out / "path.csv", *_per_target(path_table, result, data.target_names)),
+        write_csv(out / "coefficients.csv",
+                  *_per_target(coefficient_table, result, data.target_names)),
         write_json(out / "summary.json", summary),
     ]
     return ExploreRun(result=result, summary=summary, out_dir=out, files=files)

@@ -1,13 +1,44 @@
-"""Reading data files into a design and a response.
+"""Reading data into a design and a response, with every problem named.
 
-The reader returns a :class:`Dataset`; every problem raises
-:class:`~paths._validation.InputError` with a one-line message naming the file,
-the column or row, and the fix.
+Sources
+-------
+- Delimited text (``.csv``, ``.tsv``, ``.tab``, ``.txt``, ``.dat``; any other
+  suffix is read as text too): the delimiter is detected among tab,
+  semicolon, comma and pipe unless ``sep`` is given; a header row is detected
+  (a first row whose every field is a number is data, and the columns are then
+  named ``x0, x1, ...``).  The bytes must be UTF-8 (a byte-order mark is
+  accepted).
+- Parquet (``.parquet``, ``.pq``) through pyarrow; nested columns (lists,
+  structs, maps) are refused when they are used.
+- NumPy ``.npy`` (a 2-D array, columns ``x0, x1, ...``, or a structured array,
+  columns named by its fields) and ``.npz`` (each 1-D array is a column named by
+  its key, each 2-D array ``K`` of width ``c`` gives columns ``K0 ... K{c-1}``).
+- From Python: a pandas DataFrame, a 2-D NumPy array, a structured array or a
+  mapping of column name to 1-D array (:func:`as_frame`).
+
+Files are opened read-only and never modified.
+
+Selection (:func:`select`) turns a table into a :class:`Dataset`: targets, the
+features (names or glob patterns, minus exclusions), an identifier column kept
+out of the design, categorical columns refused or one-hot encoded, missing
+values refused or dropped (rows or columns), constant and exactly duplicated
+columns reported.  A separate test table is aligned to the training columns by
+:func:`select_like`.
+
+Every problem raises :class:`~paths._validation.InputError` with a one-line
+message naming the file, the column or line, and the fix.
 """
 from __future__ import annotations
 
+import csv
+import difflib
+import fnmatch
 import hashlib
+import io as _io
 import os
+import re
+import zipfile
+from collections import defaultdict
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -16,7 +47,48 @@ import pandas as pd
 
 from ._validation import InputError
 
-__all__ = ["Dataset", "read_table", "select", "sha256_of"]
+__all__ = [
+    "Dataset",
+    "NA_TOKENS",
+    "as_frame",
+    "load_dataset",
+    "read_table",
+    "select",
+    "select_like",
+    "sha256_of",
+]
+
+#: Cell contents read as a missing value (pandas' defaults, minus nothing, plus nothing).
+NA_TOKENS = (
+    "", "#N/A", "#N/A N/A", "#NA", "-1.#IND", "-1.#QNAN", "-NaN", "-nan", "1.#IND",
+    "1.#QNAN", "<NA>", "N/A", "NA", "NULL", "NaN", "None", "n/a", "nan", "null",
+)
+_NA_SET = frozenset(NA_TOKENS)
+_TEXT_SUFFIXES = (".csv", ".tsv", ".tab", ".txt", ".dat")
+_PARQUET_SUFFIXES = (".parquet", ".pq")
+_DELIMITERS = ("\t", ";", ",", "|")
+_DELIM_NAMES = {"\t": "tab", ";": "semicolon", ",": "comma", "|": "pipe", " ": "space"}
+_SHOW = 6  # names shown in a message before "and N more"
+
+# numbers written for people rather than for machines
+_THOUSANDS_COMMA = re.compile(r"^[+-]?\d{1,3}(,\d{3})+(\.\d*)?$")
+_THOUSANDS_DOT = re.compile(r"^[+-]?\d{1,3}(\.\d{3})+(,\d*)?$")
+_THOUSANDS_SPACE = re.compile(r"^[+-]?\d{1,3}([ '\u00a0\u202f]\d{3})+([.,]\d*)?$")
+_DECIMAL_COMMA = re.compile(r"^[+-]?\d*,\d+([eE][+-]?\d+)?$")
+
+
+def _one_line(text: str) -> str:
+    return " ".join(str(text).split())
+
+
+def _names(items, show: int = _SHOW) -> str:
+    items = [repr(str(x)) for x in items]
+    more = "" if len(items) <= show else f" and {len(items) - show} more"
+    return ", ".join(items[:show]) + more
+
+
+def _fail(where: str, message: str) -> InputError:
+    return InputError(_one_line(f"{where}{message}"))
 
 
 @dataclass(frozen=True)
@@ -27,12 +99,34 @@ class Dataset:
     ----------
     X : ndarray, shape (n, p)
     y : ndarray, shape (n,) or (n, t)
+        One-dimensional for a single target.
     feature_names : list of str
+        Design columns (one-hot columns are named ``COLUMN=LEVEL``).
     target_names : list of str
     source : str
         Where the data came from (a path, or a description).
     notes : list of str
-        What the reader did that the report should say (dropped columns, ...).
+        What the reader did or found that the report must say (header
+        detection, dropped rows or columns, encodings, constant and duplicate
+        columns), one sentence each.
+    ids : ndarray or None
+        The identifier column's values for the kept rows (``id_column``).
+    id_column : str or None
+    source_columns : list of str
+        The table columns the design was built from, before encoding.
+    encoding : dict
+        ``{column: [reference, level1, level2, ...]}`` for one-hot encoded
+        columns; the reference level (first, in sorted order) has no column.
+    dropped_rows : list of int
+        Lines (text files) or 1-based rows of the rows dropped for missing values.
+    dropped_columns : list of str
+        Columns dropped for missing values.
+    constant_columns : list of str
+        Design columns with a single value (left out of the fit, coefficient 0).
+    duplicate_columns : list of list of str
+        Groups of design columns that are exact copies of each other (kept).
+    drop_missing : {None, "rows", "columns"}
+        How missing values were handled.
     """
 
     X: np.ndarray
@@ -41,6 +135,32 @@ class Dataset:
     target_names: list
     source: str = ""
     notes: list = field(default_factory=list)
+    ids: np.ndarray | None = None
+    id_column: str | None = None
+    source_columns: list = field(default_factory=list)
+    encoding: dict = field(default_factory=dict)
+    dropped_rows: list = field(default_factory=list)
+    dropped_columns: list = field(default_factory=list)
+    constant_columns: list = field(default_factory=list)
+    duplicate_columns: list = field(default_factory=list)
+    drop_missing: str | None = None
+
+    def record(self) -> dict:
+        """The preparation record written to ``summary.json`` (JSON-serializable)."""
+        return {
+            "source": self.source,
+            "n_rows": int(self.X.shape[0]),
+            "n_features": int(self.X.shape[1]),
+            "targets": list(self.target_names),
+            "id_column": self.id_column,
+            "drop_missing": self.drop_missing,
+            "dropped_rows": [int(r) for r in self.dropped_rows],
+            "dropped_columns": list(self.dropped_columns),
+            "encoding": {k: {"reference": v[0], "levels": list(v)} for k, v in self.encoding.items()},
+            "constant_columns": list(self.constant_columns),
+            "duplicate_columns": [list(g) for g in self.duplicate_columns],
+            "notes": list(self.notes),
+        }
 
 
 def sha256_of(path: str | os.PathLike) -> str:
@@ -52,75 +172,840 @@ def sha256_of(path: str | os.PathLike) -> str:
     return h.hexdigest()
 
 
-def read_table(path: str | os.PathLike, *, sep: str | None = None) -> pd.DataFrame:
-    """Read a CSV or TSV file (delimiter sniffed unless ``sep``) into a DataFrame."""
-    p = Path(path)
-    if not p.exists():
-        raise InputError(f"{p}: no such file; check the path")
+# --------------------------------------------------------------------------- reading
+
+
+def _check_path(p: Path) -> None:
     if p.is_dir():
-        raise InputError(f"{p} is a folder, not a data file; pass the file inside it")
-    if sep is None and p.suffix.lower() in (".tsv", ".tab"):
-        sep = "\t"
+        raise _fail("", f"{p} is a folder, not a data file; pass the file inside it")
+    if not p.exists():
+        near = ""
+        if p.parent.is_dir():
+            close = difflib.get_close_matches(p.name, [c.name for c in p.parent.iterdir()], n=1)
+            if close:
+                near = f" (did you mean {close[0]!r}?)"
+        raise _fail("", f"{p}: no such file{near}; check the path")
+    if not p.is_file():
+        raise _fail("", f"{p} is not a regular file; pass a data file")
+
+
+def _parse_sep(sep: str) -> str:
+    aliases = {"\\t": "\t", "tab": "\t", "comma": ",", "semicolon": ";", "pipe": "|",
+               "space": " "}
+    s = aliases.get(sep.lower(), sep) if isinstance(sep, str) else sep
+    if not isinstance(s, str) or len(s) != 1 or s in "\"\r\n" or s.isalnum() or s == ".":
+        raise InputError(
+            f"--sep must be one delimiter character (',', ';', '|', or 'tab'); got {sep!r}"
+        )
+    return s
+
+
+def _decode(data: bytes, p: Path) -> str:
+    if data[:2] in (b"\xff\xfe", b"\xfe\xff"):
+        raise _fail("", f"{p} is UTF-16 text; re-save it as UTF-8")
     try:
-        df = pd.read_csv(p, sep=sep, engine="python" if sep is None else "c")
-    except pd.errors.EmptyDataError:
-        raise InputError(f"{p} is empty; pass a file with a header row and data rows") from None
+        text = data.decode("utf-8")
     except UnicodeDecodeError as exc:
-        raise InputError(f"{p} is not UTF-8 text (byte {exc.start}); re-save it as UTF-8") from None
-    except (pd.errors.ParserError, ValueError) as exc:
-        msg = str(exc).strip().splitlines()[-1]
-        raise InputError(f"{p} could not be parsed ({msg}); check the delimiter (--sep)") from None
-    if df.shape[0] == 0:
-        raise InputError(f"{p} has a header but no data rows; add data rows")
+        line = data[:exc.start].count(b"\n") + 1
+        byte = data[exc.start:exc.start + 1].hex().upper()
+        raise _fail("", f"{p} is not UTF-8 text (byte 0x{byte} on line {line}, offset "
+                        f"{exc.start}); re-save it as UTF-8") from None
+    if text.startswith("\ufeff"):
+        text = text[1:]
+    if "\x00" in text:
+        line = text[:text.index("\x00")].count("\n") + 1
+        raise _fail("", f"{p} contains NUL bytes (line {line}); it looks like a binary file, "
+                        "not delimited text; pass a CSV/TSV, Parquet or .npy/.npz file")
+    return text.replace("\r\n", "\n").replace("\r", "\n")
+
+
+def _scan(text: str, sep: str):
+    """Start line and field count of every non-blank record, and the first records' fields.
+
+    Returns ``(lines, counts, head)``; ``head`` holds the fields of the first six records
+    (for header detection).  Fields are only materialized for those; the rest are counted.
+    """
+    lines, counts, head = [], [], []
+    if '"' not in text:
+        for i, line in enumerate(text.split("\n")):
+            if line:
+                lines.append(i + 1)
+                counts.append(line.count(sep) + 1)
+                if len(head) < 6:
+                    head.append(line.split(sep))
+        return lines, counts, head
+    reader = csv.reader(_io.StringIO(text), delimiter=sep)
+    last = 0
+    try:
+        for row in reader:
+            start, last = last + 1, reader.line_num
+            if row:
+                lines.append(start)
+                counts.append(len(row))
+                if len(head) < 6:
+                    head.append(row)
+    except csv.Error as exc:
+        raise InputError(_one_line(f"line {reader.line_num + 1}: {exc}")) from None
+    return lines, counts, head
+
+
+def _sniff(text: str) -> str:
+    """The delimiter that splits the first lines into the same number (> 1) of fields."""
+    sample = []
+    for line in text.split("\n"):
+        if line.strip():
+            sample.append(line)
+            if len(sample) >= 50:
+                break
+    best, best_score = ",", (0, 0)
+    for cand in _DELIMITERS:
+        counts = [len(r) for r in csv.reader(sample, delimiter=cand)]
+        if not counts:
+            continue
+        modal = max(set(counts), key=counts.count)
+        consistent = all(c == counts[0] for c in counts)
+        if modal > 1 and consistent:
+            return cand
+        score = (counts.count(modal), modal) if modal > 1 else (0, 0)
+        if score > best_score:
+            best, best_score = cand, score
+    return best
+
+
+def _is_number(s: str) -> bool:
+    s = s.strip()
+    if s in _NA_SET:
+        return True
+    try:
+        float(s)
+    except ValueError:
+        return False
+    return True
+
+
+def _has_header(head) -> bool:
+    """A header row has a non-number field in a column the next rows hold numbers in,
+    or holds no numbers at all."""
+    first = head[0]
+    if all(_is_number(f) for f in first):
+        return False
+    rest = head[1:6]
+    if not rest:
+        return True
+    for j, f in enumerate(first):
+        if not _is_number(f) and all(j < len(r) and _is_number(r[j]) for r in rest):
+            return True
+    return not any(_is_number(f) and f.strip() for f in first)
+
+
+_BLANK = re.compile(r"(?m)^[ \t]+$")
+
+
+def _read_text(p: Path, sep: str | None, header: bool | None) -> pd.DataFrame:
+    with open(p, "rb") as fh:
+        data = fh.read()
+    text = _decode(data, p)
+    if not text.strip():
+        raise _fail("", f"{p} is empty; pass a file with a header row and data rows")
+    if _BLANK.search(text):
+        text = _BLANK.sub("", text)
+    notes = []
+    if sep is None:
+        if p.suffix.lower() in (".tsv", ".tab"):
+            sep = "\t"
+        else:
+            sep = _sniff(text)
+            notes.append(f"delimiter detected: {_DELIM_NAMES.get(sep, repr(sep))}")
+    else:
+        sep = _parse_sep(sep)
+    try:
+        starts, counts, head = _scan(text, sep)
+    except InputError as exc:
+        raise _fail(f"{p}: ", f"{exc}; check the quoting") from None
+    if header is None:
+        header = _has_header(head)
+        if not header:
+            notes.append("no header row detected: columns named x0, x1, ...")
+    counts = np.asarray(counts)
+    width = int(counts[0])
+    ragged = np.flatnonzero(counts != width)
+    if ragged.size:
+        k = int(ragged[0])
+        what = "the header" if header else f"line {starts[0]}"
+        hint = (" (a ',' inside an unquoted number, e.g. a thousands separator, splits it"
+                " in two: quote it or remove the separators)"
+                if sep == "," and counts[k] > width else "")
+        raise _fail(f"{p}: ", f"line {starts[k]} has {counts[k]} fields but {what} has {width} "
+                              f"({_DELIM_NAMES.get(sep, repr(sep))}-delimited; {ragged.size} "
+                              f"ragged line(s)){hint}; make every row the same length or pass "
+                              "the right --sep")
+    if header:
+        names = [f.strip() for f in head[0]]
+        for j, nm in enumerate(names):
+            if nm == "":
+                names[j] = f"unnamed_{j + 1}"
+                notes.append(f"column {j + 1} has no name in the header: named {names[j]!r}")
+        seen = {}
+        for j, nm in enumerate(names):
+            if nm in seen:
+                raise _fail(f"{p}: ", f"column name {nm!r} appears twice in the header "
+                                      f"(columns {seen[nm] + 1} and {j + 1}); rename one")
+            seen[nm] = j
+        body = starts[1:]
+    else:
+        names = [f"x{j}" for j in range(width)]
+        body = starts
+    if not body:
+        raise _fail("", f"{p} has a header row but no data rows; add data rows")
+    try:
+        df = pd.read_csv(
+            _io.StringIO(text), sep=sep, header=None, skiprows=starts[1] - 1 if header else 0,
+            names=names, na_values=list(NA_TOKENS), keep_default_na=False,
+            skipinitialspace=True, skip_blank_lines=True, engine="c", low_memory=False,
+            quotechar='"', index_col=False, dtype=None,
+        )
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, ValueError, csv.Error,
+            OverflowError) as exc:
+        msg = _one_line(str(exc).strip().splitlines()[-1] if str(exc).strip() else type(exc).__name__)
+        raise _fail(f"{p}: ", f"could not be parsed ({msg}); check the delimiter (--sep) "
+                              "and the quoting") from None
+    lines = np.asarray(body, dtype=np.int64)
+    if df.shape[0] != lines.size:  # pandas read the quoting differently: positions only
+        lines = None
+    df = _numeric_text_columns(df, p, lines)
+    df.attrs["paths_lines"] = lines
+    df.attrs["paths_notes"] = notes
     return df
 
 
-def select(df: pd.DataFrame, target, *, features=None, source: str = "") -> Dataset:
-    """Split a table into the response column(s) ``target`` and numeric features.
+def _numeric_text_columns(df: pd.DataFrame, p: Path, lines) -> pd.DataFrame:
+    """Convert text columns that hold numbers; name the column when numbers are written
+    with thousands separators or decimal commas."""
+    out = {}
+    for col in df.columns:
+        s = df[col]
+        if pd.api.types.is_numeric_dtype(s) or s.isna().all():
+            out[col] = s if not s.isna().all() else s.astype(np.float64)
+            continue
+        text = s.astype(object).where(s.notna(), None)
+        stripped = pd.Series([None if v is None else str(v).strip() for v in text],
+                             index=s.index, dtype=object)
+        stripped = stripped.where(~stripped.isin(_NA_SET), None)
+        num = pd.to_numeric(stripped, errors="coerce")
+        bad = num.isna() & stripped.notna()
+        if not bad.any():
+            out[col] = num.astype(np.float64)
+            continue
+        i = int(np.flatnonzero(bad.to_numpy())[0])
+        vals = stripped[bad]
+        at = f"line {lines[i]}" if lines is not None else f"row {i + 1}"
+        example = str(stripped.iloc[i])
+        kinds = []
+        for v in vals.iloc[:200]:
+            v = str(v)
+            if _THOUSANDS_COMMA.match(v) or _THOUSANDS_SPACE.match(v):
+                kinds.append("thousands")
+            elif _DECIMAL_COMMA.match(v):
+                kinds.append("decimal")
+            elif _THOUSANDS_DOT.match(v):
+                kinds.append("thousands")
+        share = len(kinds) / min(len(vals), 200)
+        if share >= 0.5:
+            kind = max(set(kinds), key=kinds.count)
+            if kind == "decimal":
+                raise _fail(f"{p}: ", f"column {col!r} has numbers with a decimal comma (e.g. "
+                                      f"{example!r} on {at}); re-export the file with '.' as the "
+                                      "decimal mark")
+            raise _fail(f"{p}: ", f"column {col!r} has numbers with thousands separators (e.g. "
+                                  f"{example!r} on {at}); re-export the file without thousands "
+                                  "separators")
+        out[col] = stripped.astype(object)
+    return pd.DataFrame(out, index=df.index, columns=df.columns)
+
+
+def _read_parquet(p: Path) -> pd.DataFrame:
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    try:
+        table = pq.read_table(p)
+    except (pa.ArrowException, OSError, ValueError) as exc:
+        msg = _one_line(str(exc)) or type(exc).__name__
+        raise _fail("", f"{p} is not a readable Parquet file ({msg[:160]}); check the file "
+                        "or re-export it") from None
+    nested = {}
+    keep = []
+    for i, fld in enumerate(table.schema):
+        if pa.types.is_nested(fld.type) or pa.types.is_union(fld.type):
+            nested[fld.name] = str(fld.type)
+        else:
+            keep.append(i)
+    names = table.schema.names
+    if len(set(names)) != len(names):
+        dup = next(n for n in names if names.count(n) > 1)
+        raise _fail(f"{p}: ", f"column name {dup!r} appears twice; rename one")
+    table = table.select(keep)
+    cols = {}
+    for fld, arr in zip(table.schema, table.columns):
+        if pa.types.is_decimal(fld.type):
+            arr = arr.cast(pa.float64())
+        cols[fld.name] = arr
+    table = pa.table(cols) if cols else table
+    df = table.to_pandas()
+    if df.shape[0] == 0:
+        raise _fail("", f"{p} has columns but no rows; add data rows")
+    df.attrs["paths_nested"] = nested
+    return df
+
+
+def _frame_from_arrays(arrays: dict, p, default_prefix: str) -> pd.DataFrame:
+    cols = {}
+    length = None
+    for key, arr in arrays.items():
+        arr = np.asarray(arr)
+        if arr.dtype.names:
+            for name in arr.dtype.names:
+                sub = arr[name]
+                if sub.ndim != 1:
+                    raise _fail(f"{p}: ", f"field {name!r} of {key!r} is not a scalar field; "
+                                          "store one value per row and field")
+                cols[name] = sub
+            n_rows = arr.shape[0] if arr.ndim else 1
+        elif arr.ndim == 1:
+            cols[key] = arr
+            n_rows = arr.shape[0]
+        elif arr.ndim == 2:
+            prefix = default_prefix if key is None else key
+            for j in range(arr.shape[1]):
+                cols[f"{prefix}{j}"] = arr[:, j]
+            n_rows = arr.shape[0]
+        else:
+            raise _fail(f"{p}: ", f"array {key or ''!r} has {arr.ndim} dimensions (shape "
+                                  f"{arr.shape}); a table needs 2-D (rows x columns)")
+        if arr.dtype.kind == "c":
+            raise _fail(f"{p}: ", f"array {key or ''!r} holds complex numbers; split them into "
+                                  "real and imaginary columns")
+        if length is None:
+            length = n_rows
+        elif n_rows != length:
+            raise _fail(f"{p}: ", f"array {key!r} has {n_rows} rows but the others have "
+                                  f"{length}; every array must have one entry per row")
+    if not cols:
+        raise _fail("", f"{p} holds no arrays; pass a file with data")
+    df = pd.DataFrame(cols)
+    if df.shape[0] == 0:
+        raise _fail("", f"{p} has no rows; pass data with at least 2 rows")
+    return df
+
+
+def _read_numpy(p: Path) -> pd.DataFrame:
+    try:
+        if p.suffix.lower() == ".npy":
+            arr = np.load(p, mmap_mode="r", allow_pickle=False)
+            return _frame_from_arrays({None: arr}, p, "x")
+        with np.load(p, allow_pickle=False) as z:
+            arrays = {k: z[k] for k in z.files}
+    except InputError:
+        raise
+    except (ValueError, OSError, EOFError, zipfile.BadZipFile, KeyError) as exc:
+        msg = _one_line(str(exc)) or type(exc).__name__
+        raise _fail("", f"{p} is not a readable NumPy file ({msg[:160]}); save it with "
+                        "numpy.save / numpy.savez, without object arrays") from None
+    return _frame_from_arrays(arrays, p, "x")
+
+
+def read_table(path: str | os.PathLike, *, sep: str | None = None,
+               header: bool | None = None) -> pd.DataFrame:
+    """Read a data file into a DataFrame (text, Parquet, ``.npy``/``.npz``).
 
     Parameters
     ----------
-    df : DataFrame
-    target : str or list of str
-    features : list of str, optional
-        Feature columns; default every column except the targets.
+    path : path-like
+        The file; its suffix picks the reader (text for anything not Parquet
+        or NumPy).
+    sep : str, optional
+        Delimiter for text files (one character, or ``"tab"``); detected when
+        omitted (tab for ``.tsv``/``.tab``).
+    header : bool, optional
+        Whether a text file's first row is a header; detected when omitted.
+
+    Returns
+    -------
+    DataFrame
+        Numeric columns as numbers, others as text.  ``attrs["paths_lines"]``
+        maps rows to file lines (text files), ``attrs["paths_notes"]`` lists
+        what the reader detected, ``attrs["paths_nested"]`` the nested Parquet
+        columns left out.
+
+    Raises
+    ------
+    InputError
+        A missing file or a folder, empty file, header without data, non-UTF-8
+        bytes, ragged rows, numbers with thousands separators or decimal
+        commas, duplicate column names, an unreadable Parquet/NumPy file.
     """
-    where = f"{source}: " if source else ""
-    targets = [target] if isinstance(target, str) else list(target)
-    missing = [t for t in targets if t not in df.columns]
-    if missing:
-        cols = ", ".join(map(str, df.columns[:8])) + (" ..." if df.shape[1] > 8 else "")
-        raise InputError(f"{where}target column {missing[0]!r} not found; columns are: {cols}")
-    if features is None:
-        features = [c for c in df.columns if c not in targets]
+    p = Path(path)
+    _check_path(p)
+    suffix = p.suffix.lower()
+    if suffix in _PARQUET_SUFFIXES:
+        df = _read_parquet(p)
+    elif suffix in (".npy", ".npz"):
+        df = _read_numpy(p)
     else:
-        absent = [c for c in features if c not in df.columns]
-        if absent:
-            raise InputError(f"{where}feature column {absent[0]!r} not found; check --features")
-    if not features:
-        raise InputError(f"{where}no feature columns left besides the target; add features")
-    X = df[features]
-    nonnum = [c for c in features if not pd.api.types.is_numeric_dtype(X[c])]
-    if nonnum:
-        shown = ", ".join(map(str, nonnum[:5])) + (" ..." if len(nonnum) > 5 else "")
-        raise InputError(f"{where}non-numeric feature column(s): {shown}; "
-                         "drop them or encode them as numbers")
-    Y = df[targets]
-    nonnum = [c for c in targets if not pd.api.types.is_numeric_dtype(Y[c])]
-    if nonnum:
-        raise InputError(f"{where}target column {nonnum[0]!r} is not numeric; "
-                         "choose a numeric target")
-    Xa = X.to_numpy(dtype=np.float64)
-    Ya = Y.to_numpy(dtype=np.float64)
-    for name, arr, cols in (("feature", Xa, features), ("target", Ya, targets)):
+        df = _read_text(p, sep, header)
+    df.attrs.setdefault("paths_notes", [])
+    df.attrs["paths_source"] = str(p)
+    return df
+
+
+def as_frame(data) -> pd.DataFrame:
+    """A DataFrame view of in-memory data: a DataFrame, a 2-D or structured NumPy array
+    (columns ``x0, x1, ...`` or the field names), or a mapping of names to 1-D arrays."""
+    if isinstance(data, pd.DataFrame):
+        return data
+    if isinstance(data, dict):
+        return _frame_from_arrays(data, "data", "x")
+    arr = np.asarray(data)
+    if arr.ndim == 1 and not arr.dtype.names:
+        raise InputError(f"data is 1-D with shape {arr.shape}; pass a 2-D array (rows x columns)")
+    return _frame_from_arrays({None: arr}, "data", "x")
+
+
+# --------------------------------------------------------------------------- selection
+
+
+def _row_label(lines, i: int) -> str:
+    return f"line {int(lines[i])}" if lines is not None else f"row {i + 1}"
+
+
+def _expand(patterns, columns, what: str, where: str) -> list:
+    """Columns matching names or glob patterns, in file order per pattern, no repeats."""
+    chosen = []
+    for pat in patterns:
+        pat = str(pat)
+        if pat in columns:
+            hits = [pat]
+        else:
+            hits = [c for c in columns if fnmatch.fnmatchcase(c, pat)]
+        if not hits:
+            close = difflib.get_close_matches(pat, columns, n=3)
+            hint = f" (close: {_names(close)})" if close else ""
+            raise _fail(where, f"{what} {pat!r} matches no column{hint}; columns are: "
+                               f"{_names(columns, 8)}")
+        chosen.extend(h for h in hits if h not in chosen)
+    return chosen
+
+
+def _split_list(values, columns) -> list:
+    """Accept repeated options and comma-separated lists (unless a name has a comma)."""
+    if values is None:
+        return None
+    if isinstance(values, str):
+        values = [values]
+    out = []
+    for v in values:
+        v = str(v)
+        if v in columns or "," not in v:
+            out.append(v)
+        else:
+            out.extend(s.strip() for s in v.split(",") if s.strip())
+    return out
+
+
+def _is_numeric(s: pd.Series) -> bool:
+    return (pd.api.types.is_numeric_dtype(s) and not pd.api.types.is_complex_dtype(s)) or \
+        pd.api.types.is_bool_dtype(s)
+
+
+def _float_column(s: pd.Series) -> np.ndarray:
+    if pd.api.types.is_bool_dtype(s) or pd.api.types.is_extension_array_dtype(s):
+        return s.astype("float64").to_numpy(dtype=np.float64, na_value=np.nan)
+    return s.to_numpy(dtype=np.float64)
+
+
+def _missing_mask(s: pd.Series) -> np.ndarray:
+    return s.isna().to_numpy()
+
+
+def select(df, target, *, features=None, exclude=None, id_column=None, encode=None,
+           drop_missing=None, source: str = "", min_rows: int = 2) -> Dataset:
+    """Split a table into the response column(s) and the numeric design.
+
+    Parameters
+    ----------
+    df : DataFrame (or anything :func:`as_frame` accepts)
+    target : str or list of str
+        Response column(s); several give a multi-target fit.
+    features : list of str, optional
+        Feature column names or glob patterns (``"x*"``, ``"band_[0-9]*"``);
+        default every column except the targets and the identifier.
+    exclude : list of str, optional
+        Names or glob patterns removed from the features.
+    id_column : str, optional
+        An identifier column, kept out of the design (its values are kept in
+        ``Dataset.ids``).
+    encode : {None, "onehot"}
+        Categorical (text) feature columns are refused by default; ``"onehot"``
+        encodes each as 0/1 columns ``COLUMN=LEVEL``, dropping the reference
+        level (the first in sorted order).
+    drop_missing : {None, "rows", "columns"}
+        Missing values are refused by default (with a count per column);
+        ``"rows"`` drops the rows with a missing value in a used column,
+        ``"columns"`` drops the feature columns with one.
+    source : str
+        Name used in messages (default: the file the table was read from).
+    min_rows : int
+        Fewest rows accepted after dropping (2: an intercept and a slope).
+
+    Returns
+    -------
+    Dataset
+
+    Raises
+    ------
+    InputError
+        Unknown columns or patterns, no feature left, non-numeric targets,
+        categorical features without ``encode``, missing or infinite values,
+        all-missing columns, too few rows, a constant target.
+    """
+    df = as_frame(df)
+    attrs = dict(df.attrs)
+    source = source or attrs.get("paths_source", "")
+    where = f"{source}: " if source else ""
+    lines = attrs.get("paths_lines")
+    nested = dict(attrs.get("paths_nested") or {})
+    notes = list(attrs.get("paths_notes") or [])
+    if encode in ("none", ""):
+        encode = None
+    if encode not in (None, "onehot"):
+        raise InputError(f"encode must be 'onehot' or None; got {encode!r}")
+    if drop_missing not in (None, "rows", "columns"):
+        raise InputError(f"drop_missing must be 'rows', 'columns' or None; got {drop_missing!r}")
+    df = df.rename(columns=str) if any(not isinstance(c, str) for c in df.columns) else df
+    columns = [str(c) for c in df.columns]
+    all_columns = columns + list(nested)
+
+    targets = _split_list(target, all_columns) or []
+    if not targets:
+        raise InputError(f"{where}no target given; pass --target COLUMN")
+    for t in targets:
+        if t not in all_columns:
+            close = difflib.get_close_matches(t, all_columns, n=3)
+            hint = f" (close: {_names(close)})" if close else ""
+            raise _fail(where, f"target column {t!r} not found{hint}; columns are: "
+                               f"{_names(all_columns, 8)}")
+    if len(set(targets)) != len(targets):
+        raise _fail(where, "a target column is given twice; pass each --target once")
+    if id_column is not None:
+        if id_column not in all_columns:
+            raise _fail(where, f"--id column {id_column!r} not found; columns are: "
+                               f"{_names(all_columns, 8)}")
+        if id_column in targets:
+            raise _fail(where, f"column {id_column!r} is both the --id and a --target; "
+                               "choose one")
+    reserved = set(targets) | ({id_column} if id_column else set())
+    if features is None:
+        feats = [c for c in all_columns if c not in reserved]
+    else:
+        feats = _expand(_split_list(features, all_columns), all_columns, "--features pattern",
+                        where)
+        named = [f for f in feats if f in reserved]
+        explicit = [f for f in named if f in _split_list(features, all_columns)]
+        if explicit:
+            raise _fail(where, f"column {explicit[0]!r} is given as a feature and as the "
+                               "target or --id; remove it from --features")
+        feats = [f for f in feats if f not in reserved]
+    if exclude:
+        gone = _expand(_split_list(exclude, all_columns), all_columns, "--exclude pattern", where)
+        feats = [f for f in feats if f not in gone]
+    if not feats:
+        raise _fail(where, "no feature columns left (p = 0) after the target, --id, --features "
+                           "and --exclude; keep at least one feature column")
+    for c in targets + feats + ([id_column] if id_column else []):
+        if c in nested:
+            raise _fail(where, f"column {c!r} has the nested type {nested[c]}; flatten it "
+                               f"into scalar columns or leave it out (--exclude {c})")
+
+    # ---- types
+    for t in targets:
+        s = df[t]
+        if not _is_numeric(s) and not s.isna().all():
+            i = int(np.flatnonzero(s.notna().to_numpy())[0])
+            raise _fail(where, f"target column {t!r} is not numeric (e.g. {str(s.iloc[i])!r} "
+                               f"on {_row_label(lines, i)}); choose a numeric target or "
+                               "recode it as numbers")
+    categorical, dates = [], []
+    for c in feats:
+        s = df[c]
+        if _is_numeric(s) or s.isna().all():
+            continue
+        if pd.api.types.is_datetime64_any_dtype(s) or pd.api.types.is_timedelta64_dtype(s):
+            dates.append(c)
+        elif pd.api.types.is_complex_dtype(s):
+            raise _fail(where, f"column {c!r} holds complex numbers; split it into real and "
+                               "imaginary columns")
+        else:
+            categorical.append(c)
+    if dates:
+        raise _fail(where, f"column(s) {_names(dates)} hold dates or times; convert them to "
+                           "numbers (e.g. days since a start) or --exclude them")
+    if categorical and encode != "onehot":
+        raise _fail(where, f"non-numeric (categorical) feature column(s): {_names(categorical)}; "
+                           "pass --encode onehot to one-hot encode them, or --exclude them")
+
+    # ---- missing values
+    n0 = df.shape[0]
+    used = targets + feats
+    miss = {c: _missing_mask(df[c]) for c in used}
+    all_missing = [c for c in used if miss[c].all()]
+    dropped_cols = []
+    for t in targets:
+        if miss[t].all():
+            raise _fail(where, f"target column {t!r} is entirely missing; choose another target")
+    if all_missing:
+        if drop_missing == "columns":
+            pass  # dropped below with the other incomplete columns
+        else:
+            raise _fail(where, f"column(s) {_names(all_missing)} are entirely missing (all {n0} "
+                               "values); --exclude them or pass --drop-missing columns")
+    counts = {c: int(m.sum()) for c, m in miss.items() if m.any()}
+    keep = np.ones(n0, dtype=bool)
+    dropped_rows = []
+    if counts:
+        def detail(cols):
+            return ", ".join(
+                f"{c!r} ({counts[c]}, first on {_row_label(lines, int(np.argmax(miss[c])))})"
+                for c in cols[:_SHOW]) + (f" and {len(cols) - _SHOW} more" if len(cols) > _SHOW
+                                           else "")
+        cols = list(counts)
+        if drop_missing is None:
+            raise _fail(where, f"missing values in {len(cols)} column(s): {detail(cols)}; "
+                               "remove or impute them, or pass --drop-missing rows|columns")
+        if drop_missing == "columns":
+            bad_t = [t for t in targets if t in counts]
+            if bad_t:
+                raise _fail(where, f"target column {bad_t[0]!r} has {counts[bad_t[0]]} missing "
+                                   "value(s); a target cannot be dropped: use --drop-missing "
+                                   "rows")
+            dropped_cols = [c for c in feats if c in counts]
+            feats = [c for c in feats if c not in counts]
+            notes.append(f"dropped {len(dropped_cols)} column(s) with missing values: "
+                         + ", ".join(f"{c!r} ({counts[c]})" for c in dropped_cols))
+            categorical = [c for c in categorical if c in feats]
+            if not feats:
+                raise _fail(where, "every feature column has missing values: none is left (p = 0) "
+                                   "after --drop-missing columns; impute them or use "
+                                   "--drop-missing rows")
+        else:
+            for c in used:
+                keep &= ~miss[c]
+            gone = np.flatnonzero(~keep)
+            dropped_rows = [int(lines[i]) if lines is not None else int(i + 1) for i in gone]
+            word = "line" if lines is not None else "row"
+            shown = ", ".join(map(str, dropped_rows[:10])) + (" ..." if len(gone) > 10 else "")
+            notes.append(f"dropped {gone.size} of {n0} row(s) with missing values ({word}s "
+                         f"{shown})")
+            if not keep.any():
+                raise _fail(where, f"every row has a missing value in the used columns; "
+                                   f"nothing is left after --drop-missing rows; try "
+                                   "--drop-missing columns")
+    sub = df if keep.all() else df.loc[keep]
+    sub_lines = None if lines is None else np.asarray(lines)[keep]
+    n = sub.shape[0]
+    if n < min_rows:
+        after = " after dropping rows with missing values" if dropped_rows else ""
+        raise _fail(where, f"{n} data row{'s' if n != 1 else ''}{after}; at least {min_rows} "
+                           "are needed to fit an intercept and a slope; add rows")
+
+    # ---- build the design
+    blocks, names, encoding = [], [], {}
+    for c in feats:
+        s = sub[c]
+        if c in categorical:
+            vals = s.astype(str).to_numpy()
+            levels = sorted(set(vals.tolist()))
+            encoding[c] = levels
+            if len(levels) == 1:
+                notes.append(f"categorical column {c!r} has the single level {levels[0]!r}: "
+                             "no column (constant)")
+                continue
+            for lvl in levels[1:]:
+                blocks.append((vals == lvl).astype(np.float64))
+                names.append(f"{c}={lvl}")
+            notes.append(f"one-hot encoded {c!r} ({len(levels)} levels): reference level "
+                         f"{levels[0]!r} dropped, columns " + ", ".join(
+                             repr(f"{c}={lv}") for lv in levels[1:4])
+                         + (" ..." if len(levels) > 4 else ""))
+        else:
+            blocks.append(_float_column(s))
+            names.append(c)
+    if len(set(names)) != len(names):
+        dup = next(nm for nm in names if names.count(nm) > 1)
+        raise _fail(where, f"one-hot column {dup!r} clashes with an existing column name; "
+                           "rename that column")
+    if not blocks:
+        raise _fail(where, "no feature columns left (p = 0): every feature is a single-level "
+                           "categorical; keep at least one varying feature")
+    X = np.column_stack(blocks) if len(blocks) > 1 else blocks[0][:, None]
+    X = np.ascontiguousarray(X, dtype=np.float64)
+    Y = np.column_stack([_float_column(sub[t]) for t in targets])
+    for arr, cols, kind in ((X, names, "feature"), (Y, targets, "target")):
         bad = ~np.isfinite(arr)
         if bad.any():
             j = int(np.flatnonzero(bad.any(axis=0))[0])
             i = int(np.flatnonzero(bad[:, j])[0])
-            raise InputError(
-                f"{where}{name} column {cols[j]!r} has {int(bad[:, j].sum())} missing or "
-                f"infinite value(s) (first at data row {i + 1}); remove or impute them"
-            )
-    y = Ya[:, 0] if len(targets) == 1 else Ya
-    return Dataset(X=Xa, y=y, feature_names=[str(c) for c in features],
-                   target_names=[str(t) for t in targets], source=source)
+            raise _fail(where, f"{kind} column {cols[j]!r} has {int(bad[:, j].sum())} infinite "
+                               f"value(s) (first on {_row_label(sub_lines, i)}); replace them "
+                               "with finite numbers or remove those rows")
+    for j, t in enumerate(targets):
+        if Y[:, j].max() == Y[:, j].min():
+            raise _fail(where, f"target column {t!r} is constant (every value {Y[0, j]:g}); "
+                               "there is nothing to fit: choose another target")
+
+    constant = [names[j] for j in np.flatnonzero(X.max(axis=0) == X.min(axis=0))]
+    if constant:
+        notes.append(f"constant column(s) {_names(constant)}: left out of the fit "
+                     "(coefficient 0)")
+    duplicates = _duplicate_groups(X, names, skip=set(constant))
+    if duplicates:
+        notes.append("exact duplicate columns (kept; ridge shares the weight between copies): "
+                     + "; ".join(" = ".join(map(repr, g)) for g in duplicates[:_SHOW])
+                     + (" ..." if len(duplicates) > _SHOW else ""))
+    ids = None
+    if id_column is not None:
+        ids = sub[id_column].to_numpy()
+        if len(pd.unique(ids)) != n:
+            notes.append(f"identifier column {id_column!r} has repeated values")
+    y = Y[:, 0] if len(targets) == 1 else Y
+    return Dataset(
+        X=X, y=y, feature_names=names, target_names=list(targets), source=source, notes=notes,
+        ids=ids, id_column=id_column, source_columns=list(feats), encoding=encoding,
+        dropped_rows=dropped_rows, dropped_columns=dropped_cols, constant_columns=constant,
+        duplicate_columns=duplicates, drop_missing=drop_missing,
+    )
+
+
+def _duplicate_groups(X: np.ndarray, names, skip=()) -> list:
+    groups = defaultdict(list)
+    for j in range(X.shape[1]):
+        if names[j] in skip:
+            continue
+        groups[hashlib.blake2b(np.ascontiguousarray(X[:, j]).tobytes(), digest_size=16)
+               .digest()].append(j)
+    out = []
+    for idx in groups.values():
+        if len(idx) > 1:
+            first = X[:, idx[0]]
+            same = [j for j in idx if np.array_equal(X[:, j], first)]
+            if len(same) > 1:
+                out.append([names[j] for j in same])
+    return out
+
+
+def select_like(df, like: Dataset, *, source: str = "") -> Dataset:
+    """Build a test set with the training design's columns, in the training order.
+
+    Column order in ``df`` may differ and extra columns are ignored; missing
+    ones are named.  One-hot columns use the training levels (a level unseen in
+    training is refused); rows with missing values are dropped only when the
+    training set was read with ``drop_missing="rows"``.
+
+    Raises
+    ------
+    InputError
+        Missing training or target columns, unseen levels, non-numeric values,
+        missing or infinite values.
+    """
+    df = as_frame(df)
+    attrs = dict(df.attrs)
+    source = source or attrs.get("paths_source", "")
+    where = f"{source}: " if source else ""
+    lines = attrs.get("paths_lines")
+    nested = attrs.get("paths_nested") or {}
+    df = df.rename(columns=str) if any(not isinstance(c, str) for c in df.columns) else df
+    columns = set(map(str, df.columns))
+    need = list(like.source_columns) + list(like.target_names)
+    missing = [c for c in need if c not in columns]
+    if missing:
+        nest = [c for c in missing if c in nested]
+        if nest:
+            raise _fail(where, f"column {nest[0]!r} has the nested type {nested[nest[0]]}; "
+                               "give it the training column as scalars")
+        raise _fail(where, f"test data lack {len(missing)} training column(s): "
+                           f"{_names(missing)}; give the test file the training columns "
+                           "(order may differ; extra columns are ignored)")
+    for c in need:
+        s = df[c]
+        if c not in like.encoding and not _is_numeric(s) and not s.isna().all():
+            i = int(np.flatnonzero(s.notna().to_numpy())[0])
+            raise _fail(where, f"column {c!r} is numeric in the training data but holds "
+                               f"{str(s.iloc[i])!r} on {_row_label(lines, i)}; fix that value")
+    miss = {c: _missing_mask(df[c]) for c in need}
+    counts = {c: int(m.sum()) for c, m in miss.items() if m.any()}
+    keep = np.ones(df.shape[0], dtype=bool)
+    notes = list(attrs.get("paths_notes") or [])
+    if counts:
+        if like.drop_missing != "rows":
+            shown = ", ".join(f"{c!r} ({k})" for c, k in list(counts.items())[:_SHOW])
+            raise _fail(where, f"missing values in the test data: {shown}; remove or impute "
+                               "them, or pass --drop-missing rows")
+        for m in miss.values():
+            keep &= ~m
+        notes.append(f"dropped {int((~keep).sum())} test row(s) with missing values")
+        if not keep.any():
+            raise _fail(where, "every test row has a missing value; nothing is left to test")
+    sub = df if keep.all() else df.loc[keep]
+    sub_lines = None if lines is None else np.asarray(lines)[keep]
+    blocks = []
+    for c in like.source_columns:
+        s = sub[c]
+        if c in like.encoding:
+            levels = like.encoding[c]
+            vals = s.astype(str).to_numpy()
+            unseen = sorted(set(vals.tolist()) - set(levels))
+            if unseen:
+                i = int(np.flatnonzero(vals == unseen[0])[0])
+                raise _fail(where, f"column {c!r} has the level {unseen[0]!r} (on "
+                                   f"{_row_label(sub_lines, i)}) that the training data do not "
+                                   f"have (levels: {_names(levels)}); drop those rows or recode")
+            for lvl in levels[1:]:
+                blocks.append((vals == lvl).astype(np.float64))
+        else:
+            blocks.append(_float_column(s))
+    X = np.column_stack(blocks) if blocks else np.zeros((sub.shape[0], 0))
+    Y = np.column_stack([_float_column(sub[t]) for t in like.target_names])
+    for arr, cols, kind in ((X, like.feature_names, "feature"), (Y, like.target_names, "target")):
+        bad = ~np.isfinite(arr)
+        if bad.any():
+            j = int(np.flatnonzero(bad.any(axis=0))[0])
+            i = int(np.flatnonzero(bad[:, j])[0])
+            raise _fail(where, f"{kind} column {cols[j]!r} has {int(bad[:, j].sum())} infinite "
+                               f"value(s) (first on {_row_label(sub_lines, i)}); replace them "
+                               "with finite numbers or remove those rows")
+    y = Y[:, 0] if len(like.target_names) == 1 else Y
+    ids = sub[like.id_column].to_numpy() if like.id_column and like.id_column in columns else None
+    return Dataset(X=np.ascontiguousarray(X), y=y, feature_names=list(like.feature_names),
+                   target_names=list(like.target_names), source=source, notes=notes, ids=ids,
+                   id_column=like.id_column, source_columns=list(like.source_columns),
+                   encoding=dict(like.encoding), drop_missing=like.drop_missing)
+
+
+def load_dataset(data, target, *, sep=None, header=None, features=None, exclude=None,
+                 id_column=None, encode=None, drop_missing=None, like: Dataset | None = None,
+                 min_rows: int = 2) -> Dataset:
+    """Read (a path) or take (a DataFrame or array) data and select a :class:`Dataset`.
+
+    With ``like`` (a training Dataset), the data are aligned to its columns as a
+    test set (:func:`select_like`); otherwise :func:`select` is applied with the
+    given options.
+    """
+    if isinstance(data, (str, os.PathLike)):
+        frame = read_table(data, sep=sep, header=header)
+        source = str(data)
+    else:
+        frame = as_frame(data)
+        source = frame.attrs.get("paths_source", "")
+    if like is not None:
+        return select_like(frame, like, source=source)
+    return select(frame, target, features=features, exclude=exclude, id_column=id_column,
+                  encode=encode, drop_missing=drop_missing, source=source, min_rows=min_rows)

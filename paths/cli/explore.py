@@ -18,6 +18,16 @@ class Solver(str, Enum):
     gram = "gram"
 
 
+class Encode(str, Enum):
+    none = "none"
+    onehot = "onehot"
+
+
+class DropMissing(str, Enum):
+    rows = "rows"
+    columns = "columns"
+
+
 def _fmt(v) -> str:
     return "n/a" if v is None else f"{float(v):.4g}"
 
@@ -36,27 +46,52 @@ def print_summary(run) -> None:
     t.add_row("solver", f"{r.solver} ({r.solver_reason})")
     t.add_row("scaling", "standardized (population SD)" if r.standardize else "centered only")
     console.print(t)
-    c = Table(title="choices and errors", title_justify="left")
-    for col in ("fit", "lambda", "df", "train MSE", "GCV", "LOO MSE", "test MSE"):
-        c.add_column(col, justify="right" if col != "fit" else "left")
-    for rule, sel in s["selected"].items():
-        i = sel["index"]
-        row = [f"min {rule.upper()}", _fmt(sel["lambda"]), f"{sel['df']:.2f}"]
-        for key in ("train_mse", "gcv", "loo_mse", "test_mse"):
-            vals = s[key]
-            row.append(_fmt(None if vals is None else vals[i]))
-        c.add_row(*row)
-    mn = s["min_norm"]
-    c.add_row("min-norm (lambda -> 0+)", "0", f"{mn['df']:.0f}", _fmt(mn["train_mse"]),
-              _fmt(mn["gcv"]), _fmt(mn["loo_mse"]), _fmt(mn["test_mse"]))
-    console.print(c)
+    targets = s.get("targets") or [None]
+    for j, name in enumerate(targets):  # one table per target (several with --target a --target b)
+        sel_all = s["selected"] if name is None else s["by_target"][name]["selected"]
+        mn = s["min_norm"] if name is None else s["by_target"][name]["min_norm"]
+
+        def at(vals, i=None):
+            if vals is None:
+                return None
+            v = vals if i is None else vals[i]
+            return v if name is None or not isinstance(v, list) else v[j]
+
+        title = "choices and errors" + ("" if name is None else f" (target {name})")
+        c = Table(title=title, title_justify="left")
+        for col in ("fit", "lambda", "df", "train MSE", "GCV", "LOO MSE", "test MSE"):
+            c.add_column(col, justify="right" if col != "fit" else "left")
+        for rule, sel in sel_all.items():
+            i = sel["index"]
+            row = [f"min {rule.upper()}", _fmt(sel["lambda"]), f"{sel['df']:.2f}"]
+            for key in ("train_mse", "gcv", "loo_mse", "test_mse"):
+                row.append(_fmt(at(s[key], i)))
+            c.add_row(*row)
+        c.add_row("min-norm (lambda -> 0+)", "0", f"{mn['df']:.0f}", _fmt(at(mn["train_mse"])),
+                  _fmt(at(mn["gcv"])), _fmt(at(mn["loo_mse"])), _fmt(at(mn["test_mse"])))
+        console.print(c)
+    for note in s.get("data_notes", []):
+        console.print(f"note: {note}", markup=False)
     console.print(f"wrote {', '.join(f.name for f in run.files)} to {run.out_dir}")
 
 
 @command("explore")
 def explore_cmd(
-    data: Path = typer.Argument(..., help="Data file (CSV or TSV, with a header row)."),
-    target: str = typer.Option(..., "--target", "-t", help="Response column."),
+    data: Path = typer.Argument(..., help="Data file: CSV/TSV (delimiter and header detected), "
+                                "Parquet, or NumPy .npy/.npz."),
+    target: list[str] = typer.Option(..., "--target", "-t",
+                                     help="Response column; repeat (or comma-separate) for several."),
+    sep: str = typer.Option(None, "--sep", help="Delimiter of a text file (e.g. ',', ';', tab); "
+                            "detected by default."),
+    features: list[str] = typer.Option(None, "--features", help="Feature columns: names or glob "
+                                       "patterns (repeat or comma-separate); default all others."),
+    exclude: list[str] = typer.Option(None, "--exclude", help="Columns (names or glob patterns) "
+                                      "left out of the features."),
+    id_column: str = typer.Option(None, "--id", help="Identifier column, kept out of the design."),
+    encode: Encode = typer.Option(Encode.none, "--encode", help="Categorical (text) columns: "
+                                  "refused (none) or one-hot encoded, reference level dropped."),
+    drop_missing: DropMissing = typer.Option(None, "--drop-missing", help="Missing values: "
+                                             "refused by default; drop the rows or the columns."),
     test: Path = typer.Option(None, "--test", help="Separate test file with the same columns."),
     holdout: float = typer.Option(None, "--holdout", help="Hold out this fraction of rows as a test set."),
     seed: int = typer.Option(0, "--seed", help="Seed for --holdout."),
@@ -68,11 +103,14 @@ def explore_cmd(
     force: bool = typer.Option(False, "--force", help="Write into a non-empty output folder."),
 ):
     """Fit the whole ridge path of DATA and write path.csv, coefficients.csv, summary.json."""
-    dataset, digest = load_data(data, target)
+    dataset, digest = load_data(
+        data, target, sep=sep, features=features or None, exclude=exclude or None,
+        id_column=id_column, encode=None if encode is Encode.none else encode.value,
+        drop_missing=None if drop_missing is None else drop_missing.value)
     digests = {str(data): digest}
     test_set = None
     if test is not None:
-        test_set, tdigest = load_data(test, target)
+        test_set, tdigest = load_data(test, target, sep=sep, like=dataset)
         digests[str(test)] = tdigest
     run = explore(dataset, out_dir=out, test=test_set, holdout=holdout, seed=seed,
                   n_lambdas=lambdas, standardize=standardize, solver=solver.value, force=force,
