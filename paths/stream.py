@@ -1,0 +1,761 @@
+"""The ridge path of tall data (n ≫ p) read in row chunks, in bounded memory.
+
+One pass over the rows accumulates, per chunk, the column means and the
+centered cross-product matrix of the augmented block ``[X | Y]`` (or, with
+``accurate=True``, the triangular factor of its QR decomposition), and merges
+the chunks' statistics pairwise; the p × p factor then gives the whole path,
+GCV and the test error without holding X.  Exact leave-one-out (and K-fold)
+errors need the hat-matrix diagonals, which need every row again: a second pass
+computes them chunk by chunk.  Peak memory is O(p² log(n / chunk) + chunk · p).
+
+Merging two chunks ``a``, ``b`` (Chan, Golub & LeVeque 1979, 1983):
+
+.. math::
+
+    n = n_a + n_b,\\quad \\delta = \\bar w_b - \\bar w_a,\\quad
+    \\bar w = \\bar w_a + \\delta\\, n_b / n,\\quad
+    M = M_a + M_b + \\frac{n_a n_b}{n}\\, \\delta \\delta^T
+
+for the centered cross products :math:`M`; for triangular factors
+(``accurate=True``), the merged :math:`R` is the triangular factor of
+:math:`[R_a;\\ R_b;\\ \\sqrt{n_a n_b / n}\\, \\delta^T]`, whose Gram matrix is the
+:math:`M` above (the tall-skinny QR of Demmel, Grigori, Hoemmen & Langou 2012,
+with the centering correction as one extra row).  Merging equal-sized groups
+(a binary counter over chunks) keeps the rounding error growth logarithmic in
+the number of chunks.
+"""
+from __future__ import annotations
+
+import time
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+import scipy.linalg as sla
+
+from ._validation import InputError, as_lambdas
+from .chunks import DEFAULT_CHUNK_ROWS, RowSource, open_rows
+from .design import Design
+from .factor import Factorization
+from .grid import default_grid
+from .path import PENALTY_CONVENTION, MinNormFit, RidgePath, _coefficients, _gains
+
+__all__ = ["Moments", "chunk_moments", "merge_moments", "PairwiseMerger", "StreamPath",
+           "stream_path", "PassInfo", "path_from_moments", "HatPass"]
+
+_EPS = np.finfo(np.float64).eps
+
+
+# --------------------------------------------------------------------------- moments
+@dataclass(frozen=True)
+class Moments:
+    """Sufficient statistics of a block of rows of ``W = [X | Y]`` (c = p + t columns).
+
+    Attributes
+    ----------
+    n : int
+        Number of rows.
+    mean : ndarray, shape (c,)
+    m2 : ndarray, shape (c, c) or None
+        Centered cross products :math:`(W - \\bar w)^T (W - \\bar w)` (Gram route).
+    r : ndarray, shape (s, c) or None
+        Upper-triangular :math:`R` with :math:`R^T R = (W - \\bar w)^T (W - \\bar w)`
+        (``accurate`` route; s ≤ c).
+    lo, hi, absmax : ndarray, shape (c,)
+        Column minima, maxima and largest magnitudes (constant-column test).
+    """
+
+    n: int
+    mean: np.ndarray
+    m2: np.ndarray | None
+    r: np.ndarray | None
+    lo: np.ndarray
+    hi: np.ndarray
+    absmax: np.ndarray
+
+    @property
+    def accurate(self) -> bool:
+        return self.r is not None
+
+    def gram(self) -> np.ndarray:
+        """The centered cross-product matrix (formed from ``r`` on the accurate route)."""
+        return self.m2 if self.r is None else self.r.T @ self.r
+
+
+def _qr_r(a: np.ndarray) -> np.ndarray:
+    r = sla.qr(a, mode="r", check_finite=False, overwrite_a=True)[0]
+    return r[: min(a.shape)]
+
+
+def chunk_moments(block: np.ndarray, *, accurate: bool = False) -> Moments:
+    """Moments of one chunk of rows (shape (b, c), finite float64).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> m = chunk_moments(np.array([[1.0, 2.0], [3.0, 6.0]]))
+    >>> m.n, m.mean.tolist(), m.m2.tolist()
+    (2, [2.0, 4.0], [[2.0, 4.0], [4.0, 8.0]])
+    """
+    mean = block.mean(axis=0)
+    centered = block - mean
+    if accurate:
+        r, m2 = _qr_r(centered), None
+    else:
+        r, m2 = None, centered.T @ centered
+    lo, hi = block.min(axis=0), block.max(axis=0)
+    return Moments(n=block.shape[0], mean=mean, m2=m2, r=r, lo=lo, hi=hi,
+                   absmax=np.maximum(np.abs(lo), np.abs(hi)))
+
+
+def merge_moments(a: Moments, b: Moments) -> Moments:
+    """Merge the moments of two disjoint row blocks (Chan, Golub & LeVeque update)."""
+    n = a.n + b.n
+    delta = b.mean - a.mean
+    mean = a.mean + delta * (b.n / n)
+    w = a.n * b.n / n
+    if a.r is not None:
+        r = _qr_r(np.vstack([a.r, b.r, np.sqrt(w) * delta[None, :]]))
+        m2 = None
+    else:
+        r = None
+        m2 = a.m2 + b.m2 + w * np.outer(delta, delta)
+    return Moments(n=n, mean=mean, m2=m2, r=r, lo=np.minimum(a.lo, b.lo),
+                   hi=np.maximum(a.hi, b.hi), absmax=np.maximum(a.absmax, b.absmax))
+
+
+class PairwiseMerger:
+    """Merge a stream of chunk moments pairwise (a binary counter: at most log₂ chunks held)."""
+
+    def __init__(self):
+        self._stack: list[tuple[int, Moments]] = []
+
+    def add(self, m: Moments) -> None:
+        level = 0
+        while self._stack and self._stack[-1][0] == level:
+            _, prev = self._stack.pop()
+            m = merge_moments(prev, m)
+            level += 1
+        self._stack.append((level, m))
+
+    def result(self) -> Moments:
+        if not self._stack:
+            raise InputError("the data have no rows; pass a file with data rows")
+        out = self._stack[-1][1]
+        for _, m in reversed(self._stack[:-1]):
+            out = merge_moments(m, out)
+        return out
+
+
+# --------------------------------------------------------------------------- factors
+@dataclass(frozen=True)
+class _Fit:
+    design: Design
+    fac: Factorization
+    uty: np.ndarray  # (r, t)
+    rss_out: np.ndarray  # (t,)
+    raw_gram: bool
+
+
+def _preprocess(mom: Moments, p: int, fit_intercept: bool, standardize: bool):
+    """Means, scales and active columns, as :func:`paths.design.prepare` defines them."""
+    n = mom.n
+    t = mom.mean.size - p
+    if mom.r is not None:
+        diag = np.einsum("ij,ij->j", mom.r, mom.r)
+    else:
+        diag = np.diag(mom.m2).copy()
+    sd_all = np.sqrt(np.maximum(diag, 0.0) / n)
+    sd = sd_all[:p]
+    absmax = mom.absmax[:p]
+    if fit_intercept:
+        x_mean = mom.mean[:p].copy()
+        y_mean = mom.mean[p:].copy()
+        active = (sd > n * _EPS * absmax) & (mom.hi[:p] > mom.lo[:p])
+        spread = mom.hi[p:] > mom.lo[p:]
+    else:
+        x_mean = np.zeros(p)
+        y_mean = np.zeros(t)
+        active = np.ones(p, dtype=bool)
+        spread = mom.absmax[p:] > 0
+    if not spread.all():
+        j = int(np.flatnonzero(~spread)[0])
+        raise InputError(f"target column {j} is constant (every value {mom.lo[p + j]!r}); "
+                         "there is nothing to fit — check the target column")
+    scale = np.ones(p)
+    if standardize:
+        usable = sd > n * _EPS * absmax
+        scale[usable] = sd[usable]
+    if not active.any():
+        raise InputError(f"every one of the {p} columns of X is constant; nothing to fit — "
+                         "check the feature selection")
+    for a in (x_mean, y_mean, scale, active):
+        a.flags.writeable = False
+    design = Design(zy=np.empty((0, t)), x_mean=x_mean, x_scale=scale, y_mean=y_mean,
+                    active=active, n_samples=n, fit_intercept=fit_intercept,
+                    standardize=standardize)
+    return design
+
+
+def factor_moments(mom: Moments, p: int, *, fit_intercept: bool = True, standardize: bool = True,
+                   rtol: float | None = None) -> _Fit:
+    """Singular values, right singular vectors, :math:`U^T y` and the out-of-span RSS.
+
+    Gram route: the eigendecomposition of the scaled p × p centered Gram
+    :math:`Z^T Z = V D^2 V^T`, :math:`U^T y = D^{-1} V^T Z^T y` and
+    :math:`\\|y_\\perp\\|^2 = \\|y\\|^2 - \\|U^T y\\|^2`.  Accurate route: the QR
+    factor of the augmented block, re-triangularized on the active scaled
+    columns, :math:`[Z\\ y] = Q [R_{11}\\ R_{12};\\ 0\\ R_{22}]`; the SVD
+    :math:`R_{11} = W D V^T` gives :math:`U^T y = W^T R_{12}` and
+    :math:`\\|y_\\perp\\|^2 = \\|(I - W W^T) R_{12}\\|^2 + \\|R_{22}\\|^2`, with no
+    difference of large squares and no squared condition number.
+    """
+    design = _preprocess(mom, p, fit_intercept, standardize)
+    n = mom.n
+    t = mom.mean.size - p
+    act = design.active
+    q = int(act.sum())
+    m = n - 1 if fit_intercept else n
+    s = design.x_scale[act]
+    cols = np.concatenate([np.flatnonzero(act), p + np.arange(t)])
+    colscale = np.concatenate([s, np.ones(t)])
+    if mom.r is not None:
+        R = mom.r
+        if not fit_intercept:  # raw cross products: append the mean row
+            R = _qr_r(np.vstack([R, np.sqrt(n) * mom.mean[None, :]]))
+        A = R[:, cols] / colscale
+        if A.shape[0] < A.shape[1]:
+            A = np.vstack([A, np.zeros((A.shape[1] - A.shape[0], A.shape[1]))])
+        R2 = _qr_r(A)
+        R11, R12, R22 = R2[:q, :q], R2[:q, q:], R2[q:, q:]
+        w, d_all, vt_all = sla.svd(R11, full_matrices=False, check_finite=False)
+        if rtol is None:
+            rtol = max(m, q) * _EPS
+        dmax = float(d_all[0])
+        tol = rtol * dmax
+        r = int(np.count_nonzero(d_all > tol))
+        d, vt, w = d_all[:r], vt_all[:r], w[:, :r]
+        uty = w.T @ R12
+        rest = R12 - w @ uty
+        rss_out = np.einsum("it,it->t", rest, rest) + np.einsum("it,it->t", R22, R22)
+        solver = "stream-tsqr"
+        reason = ("accurate: chunked TSQR of the centered design, SVD of the final R "
+                  "(backward stable, no squared condition number)")
+    else:
+        G = mom.m2
+        if not fit_intercept:
+            G = G + n * np.outer(mom.mean, mom.mean)
+        G = G[np.ix_(cols, cols)] / np.outer(colscale, colscale)
+        Gx, Gxy, Gyy = G[:q, :q], G[:q, q:], np.diag(G[q:, q:])
+        with np.errstate(over="ignore", invalid="ignore"):
+            finite = np.all(np.isfinite(Gx))
+        if not finite:
+            raise InputError("the Gram matrix overflows for this design; pass accurate=True "
+                             "(--accurate) or standardize the columns")
+        wv, V = sla.eigh(Gx, check_finite=False)
+        wv, V = np.maximum(wv[::-1], 0.0), V[:, ::-1]
+        d_all = np.sqrt(wv)
+        dmax = float(d_all[0])
+        tol = max(rtol if rtol is not None else max(m, q) * _EPS,
+                  np.sqrt(max(m, q) * _EPS)) * dmax
+        r = int(np.count_nonzero(d_all > tol))
+        d, vt = d_all[:r], np.ascontiguousarray(V[:, :r].T)
+        uty = (vt @ Gxy) / d[:, None] if r else np.zeros((0, t))
+        rss_out = np.maximum(Gyy - np.einsum("it,it->t", uty, uty), 0.0)
+        predicted = 0.5 * max(m, q) * _EPS * wv[0] / wv[-1] if wv[-1] > 0 else np.inf
+        solver = "stream-gram"
+        reason = (f"Gram route over row chunks: predicted relative error of the smallest "
+                  f"singular value {predicted:.1e}")
+        if predicted > 1e-10:
+            warnings.warn(
+                f"the streamed Gram route squares the condition number (predicted relative "
+                f"error {predicted:.1e} of the smallest singular value); pass accurate=True "
+                "(--accurate) for the chunked TSQR route", UserWarning, stacklevel=3)
+            reason += "; accurate=True recommended"
+    if r == 0:
+        raise InputError("the centered design is numerically zero; nothing to fit")
+    for a in (d, vt, uty):
+        a.flags.writeable = False
+    fac = Factorization(u=np.empty((0, r)), d=d, vt=vt, rank=r, tol=float(tol), d_max=dmax,
+                        d_min=float(d_all[-1]), solver=solver, reason=reason)
+    return _Fit(design=design, fac=fac, uty=uty, rss_out=rss_out, raw_gram=mom.r is None)
+
+
+# --------------------------------------------------------------------------- second pass
+class HatPass:
+    """Accumulates leave-one-out (and K-fold) sums chunk by chunk from the hat diagonals.
+
+    For rows :math:`x_i` the sample-space singular vectors are
+    :math:`u_i = V^T z_i / d`, with :math:`z_i` the centered scaled row; then, as
+    in :func:`paths.path._loo`, the leave-one-out residual is
+    :math:`(e_{\\perp,i} + \\sum_j u_{ij} s_j c_j) / (\\ell_i + \\sum_j u_{ij}^2 s_j)`
+    with :math:`s_j = \\lambda/(d_j^2+\\lambda)`, :math:`e_{\\perp,i} = y_i - \\bar y - u_i^T c`
+    and :math:`\\ell_i = 1 - 1/n - \\|u_i\\|^2` (the leverage outside the span).
+
+    K-fold (fold f held out, fixed preprocessing): the held-out residuals are
+    :math:`(I - H_{ff})^{-1} e_f` (Liland, Skogholt & Indahl 2024); with
+    :math:`H_{ff} = \\tilde U_f \\Phi \\tilde U_f^T`, :math:`\\tilde U = [1/\\sqrt n,\\ U]`,
+    :math:`\\Phi = \\operatorname{diag}(1, f)`, the Woodbury identity gives
+    :math:`(I - H_{ff})^{-1} = I + \\tilde U_f M \\tilde U_f^T`,
+    :math:`M = \\Phi^{1/2}(I - \\Phi^{1/2} A_f \\Phi^{1/2})^{-1}\\Phi^{1/2}`, so only
+    :math:`A_f = \\tilde U_f^T \\tilde U_f`, :math:`\\tilde U_f^T y_f` and
+    :math:`\\|y_f\\|^2` are accumulated per fold.
+    """
+
+    def __init__(self, fit: _Fit, lam: np.ndarray, *, n_folds: int = 0, fold_seed=None):
+        self.fit = fit
+        self.lam = lam
+        d = fit.fac.d
+        d2 = np.square(d)
+        self.S = lam[None, :] / (d2[:, None] + lam[None, :])  # (r, k)
+        self.F = d2[:, None] / (d2[:, None] + lam[None, :])
+        self.k, self.t = lam.size, fit.uty.shape[1]
+        r = d.size
+        self.SC = (self.S[:, :, None] * fit.uty[:, None, :]).reshape(r, -1)  # (r, k t)
+        self.proj = fit.fac.vt.T / d  # (q, r)
+        self.sum_sq = np.zeros((self.k, self.t))
+        self.lim_sq = np.zeros(self.t)
+        self.inv_d2 = 1.0 / d2
+        self.uty_inv = fit.uty * self.inv_d2[:, None]
+        des = fit.design
+        self.base = 1.0 - 1.0 / des.n_samples if des.fit_intercept else 1.0
+        self.n_folds = int(n_folds)
+        self.fold_seed = fold_seed
+        if self.n_folds:
+            ra = r + int(des.fit_intercept)
+            self.A = np.zeros((self.n_folds, ra, ra))
+            self.h = np.zeros((self.n_folds, ra, self.t))
+            self.ss = np.zeros((self.n_folds, self.t))
+            self.count = np.zeros(self.n_folds, dtype=np.int64)
+
+    def rows_u(self, block: np.ndarray, p: int):
+        des = self.fit.design
+        a = des.active
+        z = (block[:, :p][:, a] - des.x_mean[a]) / des.x_scale[a]
+        yc = block[:, p:] - des.y_mean
+        return z @ self.proj, yc
+
+    def fold_of(self, start: int, rows: int) -> np.ndarray:
+        """Fold labels of rows ``start .. start+rows-1``: blocked (contiguous) or hashed shuffle."""
+        idx = np.arange(start, start + rows, dtype=np.uint64)
+        n = self.fit.design.n_samples
+        if self.fold_seed is None:
+            return (idx * np.uint64(self.n_folds) // np.uint64(n)).astype(np.int64)
+        # splitmix64 of (index + seed): a seeded shuffle independent of the chunk size
+        x = idx + np.uint64((0x9E3779B97F4A7C15 * (int(self.fold_seed) + 1)) % 2**64)
+        x = (x ^ (x >> np.uint64(30))) * np.uint64(0xBF58476D1CE4E5B9)
+        x = (x ^ (x >> np.uint64(27))) * np.uint64(0x94D049BB133111EB)
+        x = x ^ (x >> np.uint64(31))
+        return (x % np.uint64(self.n_folds)).astype(np.int64)
+
+    def add(self, start: int, block: np.ndarray, p: int) -> None:
+        ub, yc = self.rows_u(block, p)
+        self.add_rows(start, ub, yc)
+
+    def add_rows(self, start: int, ub: np.ndarray, yc: np.ndarray) -> None:
+        fit = self.fit
+        m = fit.design.n_samples - int(fit.design.fit_intercept)
+        b = ub.shape[0]
+        e_perp = yc - ub @ fit.uty  # (b, t)
+        lev_out = np.maximum(self.base - np.einsum("ir,ir->i", ub, ub), 0.0)
+        full_row_rank = fit.fac.rank == m
+        if full_row_rank:
+            lev_out[:] = 0.0
+        den = lev_out[:, None] + np.square(ub) @ self.S  # (b, k)
+        num = e_perp[:, None, :] + (ub @ self.SC).reshape(b, self.k, self.t)
+        small = lev_out <= 100 * m * _EPS
+        lim = np.empty((b, self.t))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            lim[~small] = e_perp[~small] / lev_out[~small, None]
+        if small.any():
+            lim[small] = (ub[small] @ self.uty_inv) / (np.square(ub[small]) @ self.inv_d2)[:, None]
+        self.lim_sq += np.sum(np.square(lim), axis=0)
+        zero = self.lam == 0
+        if zero.any():
+            den[:, zero] = 1.0
+            num[:, zero, :] = lim[:, None, :]
+        self.sum_sq += np.sum(np.square(num / den[:, :, None]), axis=0)
+        if self.n_folds:
+            n = fit.design.n_samples
+            ut = np.hstack([np.full((b, 1), 1.0 / np.sqrt(n)), ub]) if fit.design.fit_intercept else ub
+            labels = self.fold_of(start, b)
+            for f in np.unique(labels):
+                sel = labels == f
+                uf, yf = ut[sel], yc[sel]
+                self.A[f] += uf.T @ uf
+                self.h[f] += uf.T @ yf
+                self.ss[f] += np.einsum("it,it->t", yf, yf)
+                self.count[f] += int(sel.sum())
+
+    def merge(self, other: "HatPass") -> None:
+        self.sum_sq += other.sum_sq
+        self.lim_sq += other.lim_sq
+        if self.n_folds:
+            self.A += other.A
+            self.h += other.h
+            self.ss += other.ss
+            self.count += other.count
+
+    def loo(self):
+        n = self.fit.design.n_samples
+        return self.sum_sq / n, self.lim_sq / n
+
+    def kfold(self):
+        """K-fold CV MSE (k, t) and its standard error across folds (k, t)."""
+        if not self.n_folds:
+            return None, None
+        if np.any(self.count == 0):
+            raise InputError(f"{int(np.sum(self.count == 0))} of the {self.n_folds} folds are "
+                             "empty; use fewer folds")
+        icpt = self.fit.design.fit_intercept
+        ctil = np.vstack([np.zeros((1, self.t)), self.fit.uty]) if icpt else self.fit.uty
+        ra = ctil.shape[0]
+        fold_mse = np.zeros((self.n_folds, self.k, self.t))
+        for f in range(self.n_folds):
+            A, h0, ss = self.A[f], self.h[f], self.ss[f]
+            for i in range(self.k):
+                phi = np.concatenate([[1.0], self.F[:, i]]) if icpt else self.F[:, i]
+                ph = np.sqrt(phi)
+                fc = phi[:, None] * ctil  # (ra, t)
+                g = h0 - A @ fc
+                ee = ss - 2 * np.einsum("rt,rt->t", fc, h0) + np.einsum("rt,rt->t", fc, A @ fc)
+                inner = np.eye(ra) - ph[:, None] * A * ph[None, :]
+                try:
+                    Mg = ph[:, None] * np.linalg.solve(inner, ph[:, None] * g)
+                except np.linalg.LinAlgError:
+                    raise InputError(
+                        f"fold {f} cannot be held out at lambda={self.lam[i]:.3g} (I - H_ff is "
+                        "singular: the other folds do not determine the fit); use fewer folds "
+                        "or a larger lambda") from None
+                rr = ee + 2 * np.einsum("rt,rt->t", g, Mg) + np.einsum("rt,rt->t", Mg, A @ Mg)
+                fold_mse[f, i] = np.maximum(rr, 0.0) / self.count[f]
+        n = self.fit.design.n_samples
+        w = self.count / n
+        mse = np.einsum("f,fkt->kt", w, fold_mse)
+        se = fold_mse.std(axis=0, ddof=1) / np.sqrt(self.n_folds)
+        return mse, se
+
+
+# --------------------------------------------------------------------------- result
+@dataclass(frozen=True)
+class PassInfo:
+    """One pass over the data: what it computed, rows, seconds, throughput."""
+
+    label: str
+    rows: int
+    seconds: float
+    bytes: int
+
+    @property
+    def rows_per_second(self) -> float:
+        return self.rows / self.seconds if self.seconds > 0 else float("inf")
+
+    @property
+    def mb_per_second(self) -> float:
+        return self.bytes / 1e6 / self.seconds if self.seconds > 0 else float("inf")
+
+    def as_dict(self) -> dict:
+        return {"label": self.label, "rows": self.rows, "seconds": self.seconds,
+                "rows_per_second": self.rows_per_second, "mb_per_second": self.mb_per_second}
+
+
+@dataclass(frozen=True)
+class StreamPath(RidgePath):
+    """A :class:`~paths.path.RidgePath` computed without holding the design.
+
+    Same fields and methods as the in-memory result, plus:
+
+    Attributes
+    ----------
+    engine : str
+        ``"stream"``, ``"dask"`` or ``"wide"``.
+    passes : tuple of PassInfo
+        The passes over the data, with rows and throughput.
+    cv_mse, cv_se : ndarray, shape (k,) or (k, t), or None
+        K-fold CV error (fixed preprocessing) and its standard error across folds.
+    n_folds : int
+    notes : tuple of str
+        What the engine did that a report should state.
+
+    ``factorization.u`` is empty (0 × r): the left singular vectors are never
+    formed, so :meth:`criteria_at` (which needs them for leave-one-out) is not
+    available; ``fitted`` is always None.
+    """
+
+    engine: str = "stream"
+    passes: tuple = ()
+    cv_mse: np.ndarray | None = None
+    cv_se: np.ndarray | None = None
+    n_folds: int = 0
+    notes: tuple = ()
+
+    def criteria_at(self, lam):
+        raise InputError("criteria at new penalties need another pass over the data with this "
+                         "engine; pass the penalties as lambdas= when streaming")
+
+    def engine_record(self) -> dict:
+        """The engine's part of the summary record (passes, throughput, notes)."""
+        return {"engine": self.engine, "passes": [p.as_dict() for p in self.passes],
+                "n_folds": self.n_folds, "notes": list(self.notes)}
+
+
+def _closed_forms(fit: _Fit, lam: np.ndarray):
+    """df, training MSE and GCV on the grid and at the min-norm limit (as paths.path.criteria)."""
+    fac, des = fit.fac, fit.design
+    n = des.n_samples
+    m = n - int(des.fit_intercept)
+    r = fac.rank
+    c = fit.uty
+    d2 = np.square(fac.d)
+    denom = d2[:, None] + lam[None, :]
+    F = d2[:, None] / denom
+    S = lam[None, :] / denom
+    df = des.fit_intercept + F.sum(axis=0)
+    rss = fit.rss_out[None, :] + np.square(S).T @ np.square(c)
+    resid_dof = (m - r) + S.sum(axis=0)
+    if m > r:
+        gcv0 = n * fit.rss_out / (m - r) ** 2
+    else:
+        inv_d2 = 1.0 / d2
+        gcv0 = n * (np.square(c).T @ np.square(inv_d2)) / inv_d2.sum() ** 2
+    zero = resid_dof == 0
+    gcv = n * rss / np.square(np.where(zero, 1.0, resid_dof))[:, None]
+    gcv[zero] = gcv0
+    return df, rss / n, gcv, fit.rss_out / n, gcv0
+
+
+def _test_pass(fit: _Fit, lam, source: RowSource, p: int, progress):
+    des, fac = fit.design, fit.fac
+    gains = _gains(fac.d, lam)
+    GC = (gains[:, :, None] * fit.uty[:, None, :]).reshape(fac.rank, -1)
+    c0 = fit.uty / fac.d[:, None]
+    k, t = lam.size, fit.uty.shape[1]
+    sq = np.zeros((k, t))
+    sq0 = np.zeros(t)
+    n_test = 0
+    for start, block in source:
+        if block.shape[1] != p + t:
+            raise InputError(f"{source.source}: test data have {block.shape[1] - t} feature "
+                             f"columns but the training data {p}; pass the same features")
+        proj = des.transform(block[:, :p]) @ fac.vt.T
+        yc = block[:, p:] - des.y_mean
+        b = block.shape[0]
+        res = yc[:, None, :] - (proj @ GC).reshape(b, k, t)
+        sq += np.einsum("ikt,ikt->kt", res, res)
+        res0 = yc - proj @ c0
+        sq0 += np.einsum("it,it->t", res0, res0)
+        n_test += b
+        if progress:
+            progress("test rows: test error", start + b, source.n_rows)
+    if n_test == 0:
+        raise InputError(f"{source.source}: the test data have no rows; pass test rows")
+    return sq / n_test, sq0 / n_test, n_test
+
+
+def path_from_moments(fit: _Fit, lam, *, feature_names, loo, loo0, test=None, cv=None,
+                      n_folds=0, engine="stream", passes=(), notes=()) -> StreamPath:
+    """Assemble the path result from the factors and the pass results."""
+    fac, des = fit.fac, fit.design
+    p = des.n_features
+    multi = fit.uty.shape[1] > 1
+    df, train, gcv, train0, gcv0 = _closed_forms(fit, lam)
+    c = fit.uty
+    coef = _coefficients(fac, c, lam, des)
+    intercept = des.y_mean[None, :] - np.einsum("kpt,p->kt", coef, des.x_mean)
+    beta0 = (c / fac.d[:, None]).T @ fac.vt
+    coef0 = np.zeros((p, c.shape[1]))
+    coef0[des.active] = (beta0 / des.x_scale[des.active]).T
+    intercept0 = des.y_mean - des.x_mean @ coef0
+    test_mse, test0, n_test = test if test is not None else (None, None, 0)
+    cv_mse, cv_se = cv if cv is not None else (None, None)
+
+    def sq(a):
+        return a if (multi or a is None) else a[..., 0]
+
+    min_norm = MinNormFit(
+        coef=sq(coef0), intercept=sq(intercept0), train_mse=sq(train0), gcv=sq(gcv0),
+        loo_mse=sq(loo0), test_mse=sq(test0), df=float(des.fit_intercept + fac.rank),
+        coef_norm=sq(np.sqrt(np.sum(np.square(beta0), axis=1))), rank=fac.rank)
+    out = dict(coef=sq(coef), intercept=sq(intercept), train_mse=sq(train), gcv=sq(gcv),
+               loo_mse=sq(loo), test_mse=sq(test_mse), cv_mse=sq(cv_mse), cv_se=sq(cv_se))
+    for v in (*out.values(), df, lam, *vars(min_norm).values()):
+        if isinstance(v, np.ndarray):
+            v.flags.writeable = False
+    return StreamPath(
+        lambdas=lam, df=df, fitted=None, rank=fac.rank, rank_tol=fac.tol,
+        singular_values=fac.d, condition_number=fac.condition_number, min_norm=min_norm,
+        solver=fac.solver, solver_reason=fac.reason, n_samples=des.n_samples, n_features=p,
+        n_test=n_test, fit_intercept=des.fit_intercept, standardize=des.standardize,
+        feature_names=list(feature_names), design=des, factorization=fac, uty=c,
+        penalty_convention=PENALTY_CONVENTION, engine=engine, passes=tuple(passes),
+        n_folds=int(n_folds), notes=tuple(notes),
+        **out)
+
+
+# --------------------------------------------------------------------------- entry point
+def stream_path(
+    data,
+    lambdas=None,
+    *,
+    target=None,
+    y=None,
+    features=None,
+    sep: str | None = None,
+    chunk_rows: int = DEFAULT_CHUNK_ROWS,
+    accurate: bool = False,
+    fit_intercept: bool = True,
+    standardize: bool = True,
+    test=None,
+    y_test=None,
+    n_lambdas: int = 100,
+    rtol: float | None = None,
+    loo: bool = True,
+    cv: int | None = None,
+    cv_seed: int | None = None,
+    progress=None,
+) -> StreamPath:
+    """The ridge path of tall data read in row chunks, without holding the design.
+
+    Parameters
+    ----------
+    data : path, RowSource or array_like
+        A Parquet file or folder of part files, a CSV/TSV file, a ``.npy`` file,
+        a :class:`~paths.chunks.RowSource`, or an array (with ``y``).
+    lambdas : array_like, optional
+        Penalties (>= 0); default: ``n_lambdas`` from the spectrum as in
+        :func:`paths.path.fit_path`.
+    target : str or list of str
+        Target column(s) of a file.
+    y : array_like, optional
+        Response, with an array ``data``.
+    features : list of str, optional
+        Feature columns of a file (default: all but the targets).
+    sep : str, optional
+        CSV delimiter (default ``","``, tab for ``.tsv``).
+    chunk_rows : int
+        Rows per chunk (memory ~ 3 × chunk_rows × (p + t) × 8 bytes).
+    accurate : bool
+        Chunked TSQR instead of the Gram matrix: backward stable, about twice
+        the arithmetic.
+    fit_intercept, standardize : bool
+        As in :func:`paths.path.fit_path`.
+    test : path, RowSource or array_like, optional
+        Test rows (same columns), streamed in a separate pass; ``y_test`` with arrays.
+    n_lambdas : int
+    rtol : float, optional
+        Relative rank tolerance; default ``max(m, q)·eps`` (raised to
+        ``sqrt(max(m, q)·eps)`` on the Gram route, the smallest it resolves).
+    loo : bool
+        Make the second pass for exact leave-one-out (default True).  With
+        ``False`` the result's ``loo_mse`` is None.
+    cv : int, optional
+        Also exact K-fold CV with ``cv`` folds in the second pass (fixed
+        preprocessing): contiguous blocks of rows, or a seeded hashed shuffle
+        with ``cv_seed``.
+    progress : callable, optional
+        ``progress(label, rows_done, rows_total_or_None)`` after each chunk.
+
+    Returns
+    -------
+    StreamPath
+        A :class:`~paths.path.RidgePath` (same fields) plus ``passes``,
+        ``cv_mse``, ``cv_se``.
+
+    Raises
+    ------
+    InputError
+        Missing columns, non-numeric or missing values (with their row range),
+        a Parquet part with a different schema, a constant target, fewer than
+        two rows.
+
+    Notes
+    -----
+    Pass 1 accumulates the moments (see the module notes) and factors the
+    p × p result; df, training error and GCV are closed forms of the singular
+    values and :math:`U^T y` (as in :func:`paths.path.fit_path`).  Pass 2
+    recomputes :math:`u_i = V^T z_i / d` row by row for the hat diagonals.
+    Memory: O(p² log(n/chunk) + chunk·(p + k·t)).
+
+    References
+    ----------
+    Chan, T. F., Golub, G. H. and LeVeque, R. J. (1983). Algorithms for computing
+    the sample variance: analysis and recommendations. *Amer. Statist.* 37, 242–247.
+
+    Demmel, J., Grigori, L., Hoemmen, M. and Langou, J. (2012). Communication-
+    optimal parallel and sequential QR and LU factorizations. *SIAM J. Sci.
+    Comput.* 34, A206–A239.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(0)
+    >>> X = rng.standard_normal((5000, 10)); y = X[:, 0] + rng.standard_normal(5000)
+    >>> res = stream_path(X, y=y, chunk_rows=1000)
+    >>> res.coef.shape, res.engine
+    ((100, 10), 'stream')
+    """
+    src = open_rows(data, target, features=features, sep=sep, chunk_rows=chunk_rows, y=y)
+    p = src.n_features
+    if n_lambdas < 1:
+        raise InputError(f"n_lambdas must be at least 1; got {n_lambdas}")
+    if cv is not None and (int(cv) != cv or cv < 2):
+        raise InputError(f"cv must be an integer >= 2 (number of folds); got {cv!r}")
+    lam_user = None if lambdas is None else as_lambdas(lambdas)
+    test_src = None
+    if test is not None:
+        test_src = open_rows(test, target if target is not None else src.target_names,
+                             features=src.feature_names if not isinstance(test, RowSource) and
+                             not hasattr(test, "shape") else None,
+                             sep=sep, chunk_rows=chunk_rows, y=y_test)
+    passes = []
+    merger = PairwiseMerger()
+    label1 = "pass 1/2: moments (X'X, X'y, y'y)" if loo or cv else "pass 1/1: moments (X'X, X'y, y'y)"
+    t0 = time.perf_counter()
+    rows = 0
+    for start, block in src:
+        merger.add(chunk_moments(block, accurate=accurate))
+        rows = start + block.shape[0]
+        if progress:
+            progress(label1, rows, src.n_rows)
+    mom = merger.result()
+    passes.append(PassInfo(label1, mom.n, time.perf_counter() - t0, mom.n * src.nbytes_per_row))
+    if fit_intercept and mom.n < 2:
+        raise InputError(f"the data have {mom.n} row; at least 2 samples are needed to fit an "
+                         "intercept (or pass fit_intercept=False)")
+    fit = factor_moments(mom, p, fit_intercept=fit_intercept, standardize=standardize, rtol=rtol)
+    lam = default_grid(fit.fac.d, n_lambdas) if lam_user is None else lam_user
+    loo_mse = loo0 = cvres = None
+    notes = []
+    if loo or cv:
+        label2 = ("pass 2/2: hat diagonals for exact leave-one-out"
+                  + (f" and {cv}-fold CV" if cv else ""))
+        hp = HatPass(fit, lam, n_folds=cv or 0, fold_seed=cv_seed)
+        t0 = time.perf_counter()
+        rows2 = 0
+        for start, block in src:
+            hp.add(start, block, p)
+            rows2 = start + block.shape[0]
+            if progress:
+                progress(label2, rows2, mom.n)
+        if rows2 != mom.n:
+            raise InputError(f"{src.source}: the data changed between passes ({mom.n} rows, then "
+                             f"{rows2}); do not modify the input while it is read")
+        passes.append(PassInfo(label2, rows2, time.perf_counter() - t0, rows2 * src.nbytes_per_row))
+        loo_mse, loo0 = hp.loo()
+        if cv:
+            cvres = hp.kfold()
+            notes.append(f"{cv}-fold CV with preprocessing (centering, scaling) from all rows; "
+                         + ("hashed shuffle, seed " + str(cv_seed) if cv_seed is not None
+                            else "contiguous blocks of rows"))
+    else:
+        notes.append("leave-one-out skipped (loo=False): no second pass")
+    test_res = None
+    if test_src is not None:
+        t0 = time.perf_counter()
+        test_res = _test_pass(fit, lam, test_src, p, progress)
+        passes.append(PassInfo("test rows: test error", test_res[2], time.perf_counter() - t0,
+                               test_res[2] * test_src.nbytes_per_row))
+    res = path_from_moments(fit, lam, feature_names=src.feature_names, loo=loo_mse, loo0=loo0,
+                            test=test_res, cv=cvres, n_folds=cv or 0, passes=passes,
+                            notes=notes)
+    return res
