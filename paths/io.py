@@ -623,6 +623,12 @@ def _float_column(s: pd.Series) -> np.ndarray:
     return s.to_numpy(dtype=np.float64)
 
 
+def _first_non_number(s: pd.Series) -> int:
+    num = pd.to_numeric(s.astype(object).where(s.notna(), None), errors="coerce")
+    bad = (num.isna() & s.notna()).to_numpy()
+    return int(np.argmax(bad)) if bad.any() else int(np.argmax(s.notna().to_numpy()))
+
+
 def _missing_mask(s: pd.Series) -> np.ndarray:
     return s.isna().to_numpy()
 
@@ -730,7 +736,7 @@ def select(df, target, *, features=None, exclude=None, id_column=None, encode=No
     for t in targets:
         s = df[t]
         if not _is_numeric(s) and not s.isna().all():
-            i = int(np.flatnonzero(s.notna().to_numpy())[0])
+            i = _first_non_number(s)
             raise _fail(where, f"target column {t!r} is not numeric (e.g. {str(s.iloc[i])!r} "
                                f"on {_row_label(lines, i)}); choose a numeric target or "
                                "recode it as numbers")
@@ -937,7 +943,7 @@ def select_like(df, like: Dataset, *, source: str = "") -> Dataset:
     for c in need:
         s = df[c]
         if c not in like.encoding and not _is_numeric(s) and not s.isna().all():
-            i = int(np.flatnonzero(s.notna().to_numpy())[0])
+            i = _first_non_number(s)
             raise _fail(where, f"column {c!r} is numeric in the training data but holds "
                                f"{str(s.iloc[i])!r} on {_row_label(lines, i)}; fix that value")
     miss = {c: _missing_mask(df[c]) for c in need}

@@ -40,33 +40,52 @@ def prepare_out_dir(path: str | os.PathLike, *, force: bool = False) -> Path:
                           "choose a writable --out") from None
     if not os.access(out, os.W_OK | os.X_OK):
         raise OutputError(f"output folder {out} is not writable; choose a writable --out")
+    try:  # os.access says yes to root and on some network file systems: try for real
+        fd, probe = tempfile.mkstemp(prefix=".paths-probe.", dir=out)
+        os.close(fd)
+        os.unlink(probe)
+    except OSError as exc:
+        raise OutputError(f"output folder {out} is not writable ({exc.strerror}); "
+                          "choose a writable --out") from None
     return out
 
 
 def write_bytes(path: str | os.PathLike, data: bytes) -> Path:
     """Write ``data`` to ``path`` atomically (temporary file in the same folder, then rename)."""
     dest = Path(path)
-    fd, tmp = tempfile.mkstemp(prefix=f".{dest.name}.", suffix=".tmp", dir=dest.parent)
+    if dest.is_dir():
+        raise OutputError(f"{dest} is a folder; cannot write a file over it: remove it or "
+                          "choose another --out")
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{dest.name}.", suffix=".tmp", dir=dest.parent)
+    except OSError as exc:
+        raise OutputError(f"cannot write in {dest.parent} ({exc.strerror}); "
+                          "choose a writable --out") from None
     try:
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
             fh.flush()
             os.fsync(fh.fileno())
         os.replace(tmp, dest)
-    except BaseException:  # includes KeyboardInterrupt: never leave the temporary behind
+    except BaseException as exc:  # includes KeyboardInterrupt: never leave the temporary behind
         try:
             os.unlink(tmp)
         except FileNotFoundError:
             pass
+        if isinstance(exc, OSError) and exc.errno is not None:
+            raise OutputError(f"cannot write {dest} ({exc.strerror}); free space or choose "
+                              "another --out") from None
         raise
     return dest
 
 
 def write_text(path: str | os.PathLike, text: str) -> Path:
+    """Write ``text`` as UTF-8, atomically."""
     return write_bytes(path, text.encode("utf-8"))
 
 
 def write_json(path: str | os.PathLike, obj) -> Path:
+    """Write ``obj`` as indented JSON, atomically; NaN and infinity are refused (strict JSON)."""
     return write_text(path, json.dumps(obj, indent=2, allow_nan=False) + "\n")
 
 
