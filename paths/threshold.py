@@ -1,0 +1,1071 @@
+"""Test-risk sweeps across the interpolation threshold (p = n), with theory overlays.
+
+A *sweep* fits, at every point of a grid, the same family of estimators on a
+growing model and records their training and test errors:
+
+- ``over="features"``: nested feature sets of size :math:`p'` (1 to all) on the
+  training rows, in the given column order, in random orders (one per repeat)
+  or by a screening score (absolute correlation with the response on the
+  training rows only).  With ``random_features=N`` the inputs are first mapped
+  to ``N`` random nonlinear features (:class:`RandomFeatureMap`), so
+  :math:`p'` can run to several times :math:`n`;
+- ``over="samples"``: all features, training subsets of growing size
+  :math:`n'` (nested, in file order or a random order per repeat).
+
+At every point: the minimum-norm / OLS fit (``min_norm``), ridge at a fixed
+penalty or fixed df fraction (``ridge_fixed``), ridge at the GCV-chosen penalty
+(``ridge_gcv``), ridge at the penalty best on the test rows (``ridge_oracle`` —
+an oracle, not a usable rule), and two baselines: the training mean
+(``baseline_mean``) and the best single feature chosen on the training rows
+(``baseline_best_feature``).  Every point is its own factorization
+(:func:`paths.factor.factorize`); all penalties of a point are closed forms on
+its factors.
+
+What is reused: the column reordering, centering and scaling are done once per
+repeat (they act column by column, so the reduced design of a nested set is the
+leading columns of the full one); the factorization takes the smaller Gram side
+when that is accurate (:func:`paths.factor.factorize` ``solver="auto"``); the
+test rows are projected on the right singular vectors once per point and serve
+every penalty.
+
+Penalties follow :data:`paths.PENALTY_CONVENTION` (unnormalized λ on the
+standardized design); the theory overlay uses :math:`\\lambda_n = \\lambda/m`
+with :math:`m = n' - 1` the rows of the centered design.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Callable
+
+import numpy as np
+
+from ._validation import InputError, as_design, as_response
+from .design import Design, prepare, to_sample_space
+from .factor import Factorization, factorize
+from .grid import lambda_for_df
+from . import theory
+
+__all__ = [
+    "METHODS",
+    "FIELDS",
+    "CSV_COLUMNS",
+    "RandomFeatureMap",
+    "random_feature_map",
+    "VarianceEstimate",
+    "estimate_variances",
+    "TheoryCurves",
+    "PointFit",
+    "ThresholdResult",
+    "sweep_sizes",
+    "threshold_sweep",
+    "threshold_table",
+    "threshold_summary",
+]
+
+METHODS = ("min_norm", "ridge_fixed", "ridge_gcv", "ridge_oracle", "baseline_mean",
+           "baseline_best_feature")
+FIELDS = ("lambda", "df", "train_mse", "test_mse", "rank", "min_singular_value", "coef_norm")
+CSV_COLUMNS = ("over", "n_train", "n_features", "ratio", "repeat", "method", "lambda", "df",
+               "train_mse", "test_mse", "rank", "min_singular_value", "coef_norm")
+OVERS = ("features", "samples")
+ORDERS = ("given", "random", "screening")
+FEATURE_MAPS = ("relu", "fourier")
+BANDS = ("se", "quantile")
+_EPS = np.finfo(np.float64).eps
+# normalized penalties lambda_n = lambda / m searched by GCV and the oracle (plus 0)
+_LAMBDA_N_GRID = np.geomspace(1e-4, 1e3, 57)
+
+
+# ----------------------------------------------------------------- random features
+@dataclass(frozen=True)
+class RandomFeatureMap:
+    """A fixed random nonlinear feature map of standardized inputs.
+
+    Attributes
+    ----------
+    kind : {"relu", "fourier"}
+    weights : ndarray, shape (d, N)
+        Gaussian projection :math:`W`, entries :math:`N(0, 1/d)`.
+    offsets : ndarray, shape (N,)
+        Phases :math:`b \\sim U(0, 2\\pi)` (Fourier features; zeros for ReLU).
+    x_mean, x_scale : ndarray, shape (d,)
+        Standardization of the inputs (training rows).
+
+    Notes
+    -----
+    ReLU features :math:`\\phi(x) = \\max(0, W^T \\tilde x)` and random Fourier
+    features :math:`\\phi(x) = \\sqrt2\\cos(W^T\\tilde x + b)`, an unbiased
+    approximation of the Gaussian kernel with bandwidth :math:`\\sqrt d` on the
+    standardized inputs :math:`\\tilde x` (Rahimi & Recht 2007).
+
+    References
+    ----------
+    Rahimi, A. and Recht, B. (2007). Random features for large-scale kernel
+    machines. *Advances in Neural Information Processing Systems* 20.
+    """
+
+    kind: str
+    weights: np.ndarray
+    offsets: np.ndarray
+    x_mean: np.ndarray
+    x_scale: np.ndarray
+
+    @property
+    def n_features(self) -> int:
+        return self.weights.shape[1]
+
+    def transform(self, X: np.ndarray) -> np.ndarray:
+        """Features of the rows of ``X``, shape (n, N)."""
+        proj = ((np.asarray(X, dtype=np.float64) - self.x_mean) / self.x_scale) @ self.weights
+        if self.kind == "relu":
+            return np.maximum(proj, 0.0)
+        return np.sqrt(2.0) * np.cos(proj + self.offsets)
+
+
+def random_feature_map(X_train, n_features: int, *, kind: str = "relu",
+                       seed=0) -> RandomFeatureMap:
+    """Draw a :class:`RandomFeatureMap` with ``n_features`` features for inputs like ``X_train``.
+
+    Parameters
+    ----------
+    X_train : array_like, shape (n, d)
+        Training inputs (their column means and SDs standardize every input).
+    n_features : int
+        Number of random features, at least 1.
+    kind : {"relu", "fourier"}
+    seed : int or numpy.random.Generator
+
+    Raises
+    ------
+    InputError
+        ``n_features < 1`` or an unknown ``kind``.
+    """
+    if int(n_features) != n_features or n_features < 1:
+        raise InputError(f"the random-features count must be an integer >= 1; got {n_features}"
+                         " (pass e.g. --random-features 800)")
+    if kind not in FEATURE_MAPS:
+        raise InputError(f"feature map must be one of {', '.join(FEATURE_MAPS)}; got {kind!r}")
+    X = as_design(X_train, "X")
+    rng = np.random.default_rng(seed)
+    d = X.shape[1]
+    mean = X.mean(axis=0)
+    sd = X.std(axis=0)
+    sd = np.where(sd > 0, sd, 1.0)
+    W = rng.standard_normal((d, int(n_features))) / np.sqrt(d)
+    b = rng.uniform(0.0, 2 * np.pi, int(n_features)) if kind == "fourier" else np.zeros(int(n_features))
+    return RandomFeatureMap(kind=kind, weights=W, offsets=b, x_mean=mean, x_scale=sd)
+
+
+# ----------------------------------------------------------------- noise and signal
+@dataclass(frozen=True)
+class VarianceEstimate:
+    """Noise variance :math:`\\sigma^2` and signal variance :math:`r^2`, and how they were obtained."""
+
+    noise_variance: float
+    signal_variance: float
+    noise_estimator: str
+    signal_estimator: str
+
+
+def estimate_variances(X, y, *, fit_intercept: bool = True,
+                       standardize: bool = True) -> VarianceEstimate:
+    """Estimate :math:`\\sigma^2` and :math:`r^2` for the theory overlay.
+
+    Parameters
+    ----------
+    X : array_like, shape (n, p)
+    y : array_like, shape (n,)
+
+    Returns
+    -------
+    VarianceEstimate
+
+    Notes
+    -----
+    With :math:`m = n - 1` centered rows (``fit_intercept``) and rank :math:`q`:
+
+    - when the residual degrees of freedom :math:`m - q` are at least
+      :math:`\\max(5, m/10)`: :math:`\\hat\\sigma^2 = \\mathrm{RSS}/(n - p - 1)`
+      (the OLS residual variance, unbiased for any design) and
+      :math:`\\hat r^2 = \\max(s_y^2 - \\hat\\sigma^2, 0)` with :math:`s_y^2` the
+      sample variance of the response;
+    - otherwise the moment estimator for isotropic Gaussian designs (Dicker
+      2014), from :math:`E\\|y\\|^2 = m(\\sigma^2 + r^2)` and
+      :math:`E\\|Z^Ty\\|^2 = m(m + 1 + q) r^2 + m q \\sigma^2` (second moment of a
+      Wishart matrix): :math:`\\hat r^2 = (\\|Z^Ty\\|^2 - q\\|y\\|^2)/(m(m+1))`,
+      :math:`\\hat\\sigma^2 = ((m+q+1)\\|y\\|^2 - \\|Z^Ty\\|^2)/(m(m+1))`, with the
+      standardized columns rescaled to unit mean square; both clipped to
+      :math:`[0, s_y^2]`.  It assumes roughly isotropic features.
+
+    References
+    ----------
+    Dicker, L. H. (2014). Variance estimation in high-dimensional linear models.
+    *Biometrika* 101, 269–284.
+    """
+    X = as_design(X, "X")
+    yv = as_response(y, X.shape[0], "y")
+    if yv.ndim != 1:
+        raise InputError("the threshold sweep takes one target; pass a single --target column")
+    design, z = prepare(X, yv[:, None], fit_intercept=fit_intercept, standardize=standardize)
+    return _variances_from(z, design.zy[:, 0], factorize(z))
+
+
+def _variances_from(z: np.ndarray, zy: np.ndarray, fac: Factorization) -> VarianceEstimate:
+    """:func:`estimate_variances` on a reduced design and its factors."""
+    m, q = z.shape
+    s_y2 = float(zy @ zy) / max(m, 1)
+    dof = m - fac.rank
+    if dof >= max(5, m / 10):
+        c = fac.u.T @ zy
+        res = zy - fac.u @ c
+        s2 = float(res @ res) / dof
+        s2 = min(s2, s_y2)
+        return VarianceEstimate(
+            s2, max(s_y2 - s2, 0.0),
+            f"OLS residual variance RSS/(n - rank - 1) on all {q} features ({dof} residual df)",
+            "sample variance of the response minus the noise variance")
+    zs = z * np.sqrt(m / np.maximum(np.einsum("ij,ij->j", z, z), _EPS))
+    yy = float(zy @ zy)
+    zty = zs.T @ zy
+    g = float(zty @ zty)
+    r2 = (g - q * yy) / (m * (m + 1.0))
+    s2 = ((m + q + 1.0) * yy - g) / (m * (m + 1.0))
+    r2 = float(np.clip(r2, 0.0, s_y2))
+    s2 = float(np.clip(s2, 0.0, s_y2))
+    label = ("moment estimator for isotropic designs (Dicker 2014) on all "
+             f"{q} standardized features ({m} centered rows)")
+    return VarianceEstimate(s2, r2, label, label)
+
+
+# ----------------------------------------------------------------- results
+@dataclass(frozen=True)
+class TheoryCurves:
+    """Isotropic-theory predictions at the sweep's points (means over nothing: formulas).
+
+    Attributes
+    ----------
+    ratio : ndarray, shape (P,)
+        ``n_features / n_train`` of each point (the csv ``ratio``).
+    gamma : ndarray, shape (P,)
+        :math:`p'/m`, :math:`m` the centered rows, at which the formulas are
+        evaluated.
+    noise_variance, signal_variance : ndarray, shape (P,)
+        Per-point :math:`\\sigma^2_{\\text{eff}}`, :math:`r^2_{\\text{eff}}`
+        (:func:`paths.theory.misspecified_variances` in a feature-wise sweep).
+    min_norm_test_mse, ridge_optimal_test_mse : ndarray, shape (P,)
+        :math:`(1 + 1/n')\\,\\sigma^2_{\\text{eff}}` plus the limits of
+        :func:`paths.theory.min_norm_risk` and :func:`paths.theory.optimal_ridge_risk`
+        (``inf`` at :math:`\\gamma = 1`).
+    ridge_fixed_test_mse : ndarray, shape (P,)
+        The same for ridge at the sweep's fixed penalty (mean over repeats).
+    ls_train_mse : ndarray, shape (P,)
+        :func:`paths.theory.ls_train_mse` with :math:`\\sigma^2_{\\text{eff}}`.
+    source : str
+        Where :math:`\\sigma^2`, :math:`r^2` came from (estimators or the truth).
+    nesting : str
+        The nesting order the misspecified-model adjustment assumes.
+    applies : bool
+        False where the isotropic linear theory is not expected to describe the
+        sweep (screening order, random features).
+    note : str
+    """
+
+    ratio: np.ndarray
+    gamma: np.ndarray
+    noise_variance: np.ndarray
+    signal_variance: np.ndarray
+    min_norm_test_mse: np.ndarray
+    ridge_optimal_test_mse: np.ndarray
+    ridge_fixed_test_mse: np.ndarray
+    ls_train_mse: np.ndarray
+    source: str
+    nesting: str
+    applies: bool
+    note: str = ""
+
+
+@dataclass(frozen=True)
+class PointFit:
+    """One fitted sweep point, handed to the ``on_point`` callback of :func:`threshold_sweep`.
+
+    Attributes
+    ----------
+    repeat, index : int
+        Repeat and point number.
+    columns : ndarray of int
+        Columns of the sweep's feature matrix in the model, in order (indices
+        into ``X`` or into the random features).
+    rows : ndarray of int
+        Training rows used (indices into the training rows).
+    design : Design
+        Centering and scaling of the point.
+    factorization : Factorization
+    lambdas : dict
+        Penalty of each ridge method (``min_norm`` is 0).
+    """
+
+    repeat: int
+    index: int
+    columns: np.ndarray
+    rows: np.ndarray
+    design: Design
+    factorization: Factorization
+    lambdas: dict
+
+    def coef(self, lam: float = 0.0):
+        """Coefficients (original feature scale, the point's columns) and intercept at ``lam``."""
+        fac, des = self.factorization, self.design
+        c = fac.u.T @ des.zy[:, 0]
+        beta_std = fac.vt.T @ (fac.d * c / (np.square(fac.d) + lam))
+        beta = np.zeros(des.n_features)
+        beta[des.active] = beta_std / des.x_scale[des.active]
+        return beta, float(des.y_mean[0] - des.x_mean @ beta)
+
+
+@dataclass(frozen=True)
+class ThresholdResult:
+    """A sweep: every method's errors at every point and repeat, plus theory and context.
+
+    Arrays of measurements have shape (R, P, M): repeats × points × methods, in
+    the order of :attr:`methods` (:data:`METHODS`).  NaN marks a field that does
+    not apply (the penalty of a baseline, the smallest singular value of the
+    mean predictor).
+
+    Attributes
+    ----------
+    over : {"features", "samples"}
+    order : {"given", "random", "screening"}
+    feature_map : str or None
+        ``"relu"``/``"fourier"`` in random-features mode.
+    n_train, n_test : int
+        All training rows, test rows.
+    n_features_total : int
+        Columns available to the sweep (random features in that mode).
+    n_features, n_train_points : ndarray of int, shape (P,)
+        :math:`p'` and :math:`n'` of each point.
+    ratio : ndarray, shape (P,)
+        ``n_features / n_train_points``.
+    repeats : int
+    methods : tuple of str
+    lam, df, train_mse, test_mse, rank, min_singular_value, coef_norm : ndarray, shape (R, P, M)
+        ``coef_norm`` is :math:`\\|\\beta\\|_2` on the standardized scale.
+    band : {"se", "quantile"}
+        How :meth:`band_of` summarizes the repeats.
+    variances : VarianceEstimate
+        :math:`\\sigma^2`, :math:`r^2` behind the theory (estimated or true).
+    theory : TheoryCurves or None
+        None in random-features mode (the isotropic linear theory does not apply).
+    spectrum_gamma : float
+        Aspect ratio :math:`q/m` of the full training design.
+    spectrum : ndarray
+        Non-zero eigenvalues of :math:`Z^TZ/m` of the full (standardized)
+        training design, to hold against :func:`paths.theory.mp_density`.
+    ridge_rule : str
+        How ``ridge_fixed`` chose its penalty.
+    lambda_n_grid : ndarray
+        Normalized penalties searched by GCV and the oracle (plus 0).
+    seed : int
+    fit_intercept, standardize : bool
+    notes : list of str
+    """
+
+    over: str
+    order: str
+    feature_map: str | None
+    n_train: int
+    n_test: int
+    n_features_total: int
+    n_features: np.ndarray
+    n_train_points: np.ndarray
+    ratio: np.ndarray
+    repeats: int
+    methods: tuple
+    lam: np.ndarray
+    df: np.ndarray
+    train_mse: np.ndarray
+    test_mse: np.ndarray
+    rank: np.ndarray
+    min_singular_value: np.ndarray
+    coef_norm: np.ndarray
+    band: str
+    variances: VarianceEstimate
+    theory: TheoryCurves | None
+    spectrum_gamma: float
+    spectrum: np.ndarray = field(repr=False)
+    ridge_rule: str = ""
+    lambda_n_grid: np.ndarray = field(default_factory=lambda: _LAMBDA_N_GRID, repr=False)
+    seed: int = 0
+    fit_intercept: bool = True
+    standardize: bool = True
+    notes: list = field(default_factory=list)
+
+    def _values(self, field_name: str) -> np.ndarray:
+        key = {"lambda": "lam"}.get(field_name, field_name)
+        if key not in ("lam", "df", "train_mse", "test_mse", "rank", "min_singular_value",
+                       "coef_norm"):
+            raise InputError(f"field must be one of {', '.join(FIELDS)}; got {field_name!r}")
+        return getattr(self, key)
+
+    def method_index(self, method: str) -> int:
+        if method not in self.methods:
+            raise InputError(f"method must be one of {', '.join(self.methods)}; got {method!r}")
+        return self.methods.index(method)
+
+    def mean(self, field_name: str = "test_mse", method: str = "min_norm") -> np.ndarray:
+        """Mean over repeats, shape (P,)."""
+        v = self._values(field_name)[:, :, self.method_index(method)]
+        if np.all(np.isnan(v)):
+            return np.full(v.shape[1], np.nan)
+        return np.nanmean(v, axis=0) if np.isnan(v).any() else v.mean(axis=0)
+
+    def band_of(self, field_name: str = "test_mse", method: str = "min_norm"):
+        """``(lower, upper)`` band over repeats, each shape (P,).
+
+        ``band="se"``: mean ∓ one standard error (SD with ddof=1 over √R; zero
+        width for one repeat).  ``band="quantile"``: the 10% and 90% quantiles
+        over repeats.
+        """
+        v = self._values(field_name)[:, :, self.method_index(method)]
+        if self.band == "quantile":
+            return np.quantile(v, 0.1, axis=0), np.quantile(v, 0.9, axis=0)
+        mu = v.mean(axis=0)
+        if v.shape[0] < 2:
+            return mu.copy(), mu.copy()
+        se = v.std(axis=0, ddof=1) / np.sqrt(v.shape[0])
+        return mu - se, mu + se
+
+    @property
+    def peak(self) -> dict:
+        """The point where the min-norm curve's mean test MSE is highest."""
+        mu = self.mean("test_mse", "min_norm")
+        i = int(np.nanargmax(mu))
+        return {"ratio": float(self.ratio[i]), "n_features": int(self.n_features[i]),
+                "n_train": int(self.n_train_points[i]), "test_mse": float(mu[i]), "index": i}
+
+    @property
+    def best_ridge(self) -> dict:
+        """The lowest mean test MSE of a usable ridge rule (fixed or GCV; not the oracle)."""
+        best = None
+        for meth in ("ridge_fixed", "ridge_gcv"):
+            mu = self.mean("test_mse", meth)
+            i = int(np.nanargmin(mu))
+            if best is None or mu[i] < best["test_mse"]:
+                best = {"method": meth, "ratio": float(self.ratio[i]),
+                        "n_features": int(self.n_features[i]),
+                        "n_train": int(self.n_train_points[i]), "test_mse": float(mu[i])}
+        return best
+
+
+# ----------------------------------------------------------------- grids
+def sweep_sizes(lo: int, hi: int, threshold: int, n_points: int) -> np.ndarray:
+    """Integer sizes from ``lo`` to ``hi``, dense around ``threshold``.
+
+    Points are evenly spaced in :math:`t = \\operatorname{sign}(x)\\sqrt{|x|}`,
+    :math:`x = \\log(v/\\text{threshold})`, so their spacing shrinks toward the
+    threshold; ``lo``, ``hi`` and the threshold (and its neighbours) are always
+    included; the largest gaps are split until there are ``n_points`` distinct
+    integers (or every integer in range).
+
+    Returns
+    -------
+    ndarray of int, increasing
+    """
+    lo, hi, thr = int(lo), int(hi), int(threshold)
+    if hi - lo + 1 <= n_points:
+        return np.arange(lo, hi + 1)
+    thr = min(max(thr, lo), hi)
+    x_lo, x_hi = np.log(lo / thr), np.log(hi / thr)
+    t_lo, t_hi = -np.sqrt(-x_lo), np.sqrt(x_hi)
+    forced = {lo, hi, thr, max(lo, thr - 1), min(hi, thr + 1)}
+    best = np.array(sorted(forced))
+    for k in range(max(2, n_points - len(forced)), 4 * n_points):
+        t = np.linspace(t_lo, t_hi, k)
+        v = thr * np.exp(np.sign(t) * t * t)
+        cand = np.unique(np.concatenate([np.clip(np.rint(v), lo, hi).astype(int),
+                                         list(forced)]))
+        if cand.size > n_points:
+            break
+        best = cand
+    vals = list(best)
+    while len(vals) < n_points:
+        arr = np.array(vals, dtype=float)
+        gaps = np.diff(np.log(arr))
+        gaps[np.diff(arr) < 2] = -1
+        j = int(np.argmax(gaps))
+        if gaps[j] < 0:
+            break
+        vals.append(int(np.rint(np.sqrt(arr[j] * arr[j + 1]))))
+        vals = sorted(set(vals))
+    return np.array(vals, dtype=int)
+
+
+# ----------------------------------------------------------------- one point
+def _fit_point(fac: Factorization, zy: np.ndarray, n: int, fit_intercept: bool,
+               test_std: np.ndarray, yt_c: np.ndarray, lam_fixed: float | None,
+               df_fraction: float | None, lam_grid: np.ndarray):
+    """All ridge methods of one point from its factors.
+
+    Returns an (M_ridge=4, 7) array of FIELDS for min_norm, ridge_fixed,
+    ridge_gcv, ridge_oracle, and the dict of penalties.
+    """
+    u, d, r = fac.u, fac.d, fac.rank
+    m = u.shape[0]
+    c = u.T @ zy
+    res = zy - u @ c
+    rss_out = float(res @ res)
+    if lam_fixed is None:
+        target = df_fraction * r
+        lam_f = lambda_for_df(d, target) if 0 < target < r else 0.0
+    else:
+        lam_f = lam_fixed
+    lam = np.concatenate([[0.0], lam_grid, [lam_f]])
+    d2 = np.square(d)
+    den = d2[:, None] + lam[None, :]
+    S = lam[None, :] / den  # shrinkage complements
+    G = d[:, None] / den  # gains; 1/d at lambda = 0
+    c2 = np.square(c)
+    rss = rss_out + np.square(S).T @ c2  # (K,)
+    resid_dof = (m - r) + S.sum(axis=0)
+    df = fit_intercept + (d2[:, None] / den).sum(axis=0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        gcv = n * rss / np.square(resid_dof)
+    if resid_dof[0] <= 0:
+        # interpolation: GCV is 0/0 at lambda = 0; its limit n sum(c^2/d^4)/(sum 1/d^2)^2 is
+        # dominated by the smallest singular direction and says nothing about the test
+        # error, so the search keeps lambda > 0 there
+        gcv[0] = np.inf
+    gc = G * c[:, None]  # (r, K): standardized coefficients
+    coef_norm = np.sqrt(np.sum(np.square(gc), axis=0))
+    pred = test_std @ gc  # (n_test, K), test projections once per point
+    test = np.mean(np.square(yt_c[:, None] - pred), axis=0)
+    K = lam.size
+    i_gcv = int(np.nanargmin(gcv[:K - 1]))
+    i_or = int(np.argmin(test[:K - 1]))
+    idx = [0, K - 1, i_gcv, i_or]
+    out = np.empty((4, 7))
+    dmin = float(d[-1]) if r else np.nan
+    for row, i in enumerate(idx):
+        out[row] = (lam[i], df[i], rss[i] / n, test[i], r, dmin, coef_norm[i])
+    lambdas = {"min_norm": 0.0, "ridge_fixed": float(lam_f), "ridge_gcv": float(lam[i_gcv]),
+               "ridge_oracle": float(lam[i_or])}
+    return out, lambdas
+
+
+def _baselines(z: np.ndarray, zy: np.ndarray, n: int, test_std: np.ndarray, yt_c: np.ndarray,
+               fit_intercept: bool, best=None):
+    """Training-mean and best-single-feature rows (2, 7); ``best`` = (j, beta) to reuse."""
+    yy = float(zy @ zy)
+    out = np.full((2, 7), np.nan)
+    out[0] = (np.nan, float(fit_intercept), yy / n, float(np.mean(np.square(yt_c))), 0,
+              np.nan, 0.0)
+    if best is None:
+        zz = np.einsum("ij,ij->j", z, z)
+        zty = z.T @ zy
+        ok = zz > 0
+        gain = np.where(ok, np.square(zty) / np.where(ok, zz, 1.0), -1.0)
+        j = int(np.argmax(gain))
+        best = (j, float(zty[j] / zz[j]), float(np.sqrt(zz[j])), float(gain[j]))
+    j, b, norm_j, gain_j = best
+    test = float(np.mean(np.square(yt_c - test_std[:, j] * b)))
+    out[1] = (np.nan, fit_intercept + 1.0, max(yy - gain_j, 0.0) / n, test, 1, norm_j, abs(b))
+    return out, best
+
+
+# ----------------------------------------------------------------- the sweep
+def _check_choice(name, value, choices):
+    if value not in choices:
+        raise InputError(f"{name} must be one of {', '.join(choices)}; got {value!r}")
+
+
+def threshold_sweep(
+    X,
+    y,
+    X_test,
+    y_test,
+    *,
+    over: str = "features",
+    order: str = "given",
+    repeats: int = 1,
+    seed: int = 0,
+    n_points: int = 40,
+    sizes=None,
+    random_features: int | None = None,
+    feature_map: str = "relu",
+    ridge_lambda: float | None = None,
+    ridge_df_fraction: float | None = None,
+    band: str = "se",
+    fit_intercept: bool = True,
+    standardize: bool = True,
+    solver: str = "auto",
+    variances: VarianceEstimate | None = None,
+    variance_source: str | None = None,
+    progress: Callable[[int, int], None] | None = None,
+    on_point: Callable[[PointFit], None] | None = None,
+) -> ThresholdResult:
+    """Sweep the model size across the interpolation threshold and record every method's errors.
+
+    Parameters
+    ----------
+    X, y : array_like, shapes (n, d) and (n,)
+        Training rows.
+    X_test, y_test : array_like, shapes (n_test, d) and (n_test,)
+        Test rows (at least 2).
+    over : {"features", "samples"}
+        Grow the feature set (nested, :math:`p' = 1 \\ldots p`) or the training
+        set (nested, :math:`n' = 3 \\ldots n`).
+    order : {"given", "random", "screening"}
+        Nesting order: the given order, a random order per repeat (seeded), or by
+        decreasing absolute correlation with ``y`` on the training rows
+        (features only).  In samples mode, the order of the rows.
+    repeats : int
+        Number of repeats; with ``order="given"`` or ``"screening"`` only
+        meaningful with random features (new features per repeat).
+    seed : int
+    n_points : int
+        Grid points (:func:`sweep_sizes`), dense around the threshold.
+    sizes : array_like of int, optional
+        Explicit grid (must straddle the threshold).
+    random_features : int, optional
+        Map the inputs to this many random features first (:func:`random_feature_map`).
+    feature_map : {"relu", "fourier"}
+    ridge_lambda : float, optional
+        Fixed penalty of ``ridge_fixed`` (package convention).
+    ridge_df_fraction : float, optional
+        Or: the penalty leaving this fraction of the point's rank as df.
+        Default when neither is given: ``ridge_lambda = 0.1 * m``
+        (:math:`\\lambda_n = 0.1`).
+    band : {"se", "quantile"}
+    fit_intercept, standardize : bool
+    solver : {"auto", "svd", "gram"}
+    variances : VarianceEstimate, optional
+        :math:`\\sigma^2`, :math:`r^2` for the theory; default
+        :func:`estimate_variances` on the training rows.
+    variance_source : str, optional
+        Label of ``variances`` (e.g. "truth (simulation)").
+    progress : callable ``(done, total)``, optional
+    on_point : callable ``(PointFit)``, optional
+        Called with each fitted point (used by :mod:`paths.simulate`).
+
+    Returns
+    -------
+    ThresholdResult
+
+    Raises
+    ------
+    InputError
+        A grid that cannot reach the threshold (the message gives the range it
+        reaches), fewer than 2 test rows, a random-features count below 1, an
+        unknown option.
+
+    Notes
+    -----
+    Per point with factors :math:`Z = UDV^T`, :math:`c = U^Ty`: ridge
+    coefficients :math:`V\\operatorname{diag}(d/(d^2+\\lambda))c`, RSS and GCV as
+    in :func:`paths.fit_path`, test predictions :math:`(\\tilde X_{\\text{test}}V)
+    \\operatorname{diag}(d/(d^2+\\lambda))c` for all penalties at once.
+    ``ridge_gcv`` and ``ridge_oracle`` search :math:`\\lambda = m\\lambda_n`,
+    :math:`\\lambda_n \\in \\{0\\} \\cup [10^{-4}, 10^3]` (57 log-spaced values);
+    where the point interpolates (rank = m) GCV is 0/0 at :math:`\\lambda = 0` and
+    that candidate is left out of its search.
+
+    With an intercept the theory's test MSE carries the factor :math:`1 + 1/n'`:
+    for Gaussian rows the sample mean is independent of the centered rows, so
+    the intercept's error :math:`\\bar\\varepsilon - \\bar x^T(\\hat\\beta - \\beta)`
+    adds :math:`(\\sigma^2 + \\text{excess})/n'`.
+    """
+    _check_choice("over", over, OVERS)
+    _check_choice("order", order, ORDERS)
+    _check_choice("band", band, BANDS)
+    X = as_design(X, "X")
+    n, d_in = X.shape
+    yv = as_response(y, n, "y")
+    if yv.ndim != 1:
+        raise InputError("the threshold sweep takes one target; pass a single --target column")
+    if X_test is None or y_test is None:
+        raise InputError("the sweep needs test rows; pass a test file (--test) or --holdout")
+    Xt = as_design(X_test, "X_test")
+    if Xt.shape[0] < 2:
+        raise InputError(f"the sweep has {Xt.shape[0]} test row(s); at least 2 are needed — "
+                         "pass a larger --holdout fraction or a bigger --test file")
+    if Xt.shape[1] != d_in:
+        raise InputError(f"X_test has {Xt.shape[1]} columns but X has {d_in}; "
+                         "pass the same features in the same order")
+    yt = as_response(y_test, Xt.shape[0], "y_test").reshape(-1)
+    if int(repeats) != repeats or repeats < 1:
+        raise InputError(f"repeats must be an integer >= 1; got {repeats}")
+    repeats = int(repeats)
+    if n_points < 3:
+        raise InputError(f"the sweep needs at least 3 points; got {n_points} (pass --points 40)")
+    if ridge_lambda is not None and ridge_df_fraction is not None:
+        raise InputError("give either a fixed ridge penalty or a df fraction, not both")
+    if ridge_lambda is not None and not (np.isfinite(ridge_lambda) and ridge_lambda > 0):
+        raise InputError(f"the fixed ridge penalty must be finite and > 0; got {ridge_lambda}")
+    if ridge_df_fraction is not None and not 0 < ridge_df_fraction < 1:
+        raise InputError(f"the ridge df fraction must lie in (0, 1); got {ridge_df_fraction}")
+    if order == "screening" and over == "samples":
+        raise InputError("order 'screening' ranks features; for --over samples use "
+                         "--order given or random")
+    if random_features is not None:
+        if int(random_features) != random_features or random_features < 1:
+            raise InputError(f"the random-features count must be an integer >= 1; got "
+                             f"{random_features} (pass e.g. --random-features 800)")
+    if (repeats > 1 and random_features is None and over == "features"
+            and order != "random"):
+        raise InputError(f"--repeats {repeats} repeats nothing with order {order!r}; "
+                         "use --order random or --random-features, or --repeats 1")
+    if (repeats > 1 and over == "samples" and order != "random"
+            and random_features is None):
+        raise InputError(f"--repeats {repeats} repeats nothing with rows in the given order; "
+                         "use --order random or --repeats 1")
+    if np.ptp(yv) == 0:
+        raise InputError("y is constant on the training rows; there is nothing to fit")
+
+    rng = np.random.default_rng(seed)
+    intercept = 1 if fit_intercept else 0
+    notes: list = []
+    if random_features is None:
+        sd = X.std(axis=0)
+        keep = sd > n * _EPS * np.max(np.abs(X), axis=0)
+        if fit_intercept and not keep.all():
+            notes.append(f"{int((~keep).sum())} constant training column(s) left out of the sweep")
+            X, Xt = X[:, keep], Xt[:, keep]
+            if X.shape[1] == 0:
+                raise InputError("every feature is constant on the training rows; nothing to fit")
+    p_total = int(random_features) if random_features is not None else X.shape[1]
+
+    # grid
+    if over == "features":
+        thr = n - intercept
+        if sizes is None:
+            lo, hi = 1, p_total
+            if hi < n:
+                fix = ("pass more random features (--random-features N with N >= "
+                       f"{n})" if random_features is not None else
+                       f"map the inputs to random features (--random-features N, N >= {n})")
+                raise InputError(
+                    f"the feature-wise sweep reaches p' = 1..{hi} but the threshold is at "
+                    f"p' = n_train = {n}; {fix} or hold out more rows (--holdout)")
+            grid = sweep_sizes(lo, hi, thr, n_points)
+        else:
+            grid = np.unique(np.asarray(sizes, dtype=int))
+            if grid.min() < 1 or grid.max() > p_total or grid.min() > thr or grid.max() < n:
+                raise InputError(
+                    f"the given sizes reach p' = {grid.min()}..{grid.max()} but must lie in "
+                    f"1..{p_total} and straddle the threshold p' = n_train = {n}; adjust them")
+        n_feat = grid
+        n_rows = np.full(grid.size, n)
+    else:
+        thr = p_total + intercept
+        lo = 2 + intercept
+        if sizes is None:
+            if n <= thr:
+                raise InputError(
+                    f"the sample-wise sweep reaches n' = {lo}..{n} but the threshold is at "
+                    f"n' = p + 1 = {thr}; use fewer features (--features) or a smaller "
+                    "--holdout so the training rows exceed the features")
+            grid = sweep_sizes(lo, n, thr, n_points)
+        else:
+            grid = np.unique(np.asarray(sizes, dtype=int))
+            if grid.min() < lo or grid.max() > n or grid.min() > thr or grid.max() <= thr:
+                raise InputError(
+                    f"the given sizes reach n' = {grid.min()}..{grid.max()} but must lie in "
+                    f"{lo}..{n} and straddle the threshold n' = {thr}; adjust them")
+        n_rows = grid
+        n_feat = np.full(grid.size, p_total)
+    P = grid.size
+    M = len(METHODS)
+    vals = np.full((repeats, P, M, 7), np.nan)
+    total = repeats * P
+    done = 0
+    spectrum = None
+    spec_gamma = float("nan")
+    est = None
+    for rep in range(repeats):
+        if random_features is not None:
+            fmap = random_feature_map(X, int(random_features), kind=feature_map, seed=rng)
+            F, Ft = fmap.transform(X), fmap.transform(Xt)
+        else:
+            F, Ft = X, Xt
+        # one column (or row) reordering per repeat
+        if over == "features":
+            if order == "random":
+                perm = rng.permutation(F.shape[1])
+            elif order == "screening":
+                Fc = F - F.mean(axis=0)
+                yc = yv - yv.mean()
+                nrm = np.sqrt(np.einsum("ij,ij->j", Fc, Fc)) * np.sqrt(yc @ yc)
+                score = np.abs(Fc.T @ yc) / np.where(nrm > 0, nrm, 1.0)
+                perm = np.argsort(-score, kind="stable")
+            else:
+                perm = np.arange(F.shape[1])
+            Fr, Ftr = F[:, perm], Ft[:, perm]
+            design, z = prepare(Fr, yv[:, None], fit_intercept=fit_intercept,
+                                standardize=standardize)
+            if not design.active.all():  # constant random features: drop, keep nesting
+                z_full = np.zeros((z.shape[0], Fr.shape[1]))
+                z_full[:, design.active] = z
+                z = z_full
+            zf = np.asfortranarray(z)
+            zy = design.zy[:, 0]
+            tstd = np.zeros_like(Ftr)
+            a = design.active
+            tstd[:, a] = (Ftr[:, a] - design.x_mean[a]) / design.x_scale[a]
+            tstd = np.asfortranarray(tstd)
+            yt_c = yt - design.y_mean[0]
+            base, best = _baselines(zf, zy, n, tstd, yt_c, fit_intercept)
+            m = zf.shape[0]
+            lam_grid = m * _LAMBDA_N_GRID
+            lam_fixed = (ridge_lambda if ridge_lambda is not None else
+                         (None if ridge_df_fraction is not None else 0.1 * m))
+            for i, k in enumerate(n_feat):
+                zk = zf[:, :k]
+                fac = factorize(zk, solver=solver)
+                if rep == 0 and k == zf.shape[1]:  # the full design: spectrum, sigma^2, r^2
+                    spectrum, spec_gamma = _spectrum_of(fac, m), k / m
+                    if random_features is None and variances is None:
+                        est = _variances_from(zk, zy, fac)
+                if fac.rank == 0:
+                    vals[rep, i, :4, :] = np.nan
+                    lambdas = {}
+                else:
+                    vals[rep, i, :4], lambdas = _fit_point(
+                        fac, zy, n, fit_intercept, tstd[:, :k] @ fac.vt.T, yt_c, lam_fixed,
+                        ridge_df_fraction, lam_grid)
+                vals[rep, i, 4:] = base
+                if on_point is not None:
+                    on_point(PointFit(rep, i, perm[:k], np.arange(n),
+                                      _sub_design(design, k), fac, lambdas))
+                done += 1
+                if progress is not None:
+                    progress(done, total)
+        else:
+            rows = rng.permutation(n) if order == "random" else np.arange(n)
+            for i, k in enumerate(n_rows):
+                sel = rows[:k]
+                Fk = F[sel]
+                if np.ptp(yv[sel]) == 0:
+                    done += 1
+                    if progress is not None:
+                        progress(done, total)
+                    continue
+                design, z = prepare(Fk, yv[sel, None], fit_intercept=fit_intercept,
+                                    standardize=standardize)
+                zy = design.zy[:, 0]
+                tstd = design.transform(Ft)
+                yt_c = yt - design.y_mean[0]
+                m = z.shape[0]
+                lam_fixed = (ridge_lambda if ridge_lambda is not None else
+                             (None if ridge_df_fraction is not None else 0.1 * (n - intercept)))
+                fac = factorize(z, solver=solver)
+                if rep == 0 and k == n_rows[-1]:  # all training rows: spectrum, sigma^2, r^2
+                    spectrum, spec_gamma = _spectrum_of(fac, m), z.shape[1] / m
+                    if variances is None:
+                        est = _variances_from(z, zy, fac)
+                if fac.rank == 0:
+                    lambdas = {}
+                else:
+                    vals[rep, i, :4], lambdas = _fit_point(
+                        fac, zy, int(k), fit_intercept, tstd @ fac.vt.T, yt_c, lam_fixed,
+                        ridge_df_fraction, m * _LAMBDA_N_GRID)
+                vals[rep, i, 4:], _ = _baselines(z, zy, int(k), tstd, yt_c, fit_intercept)
+                if on_point is not None:
+                    on_point(PointFit(rep, i, np.flatnonzero(design.active), sel, design, fac,
+                                      lambdas))
+                done += 1
+                if progress is not None:
+                    progress(done, total)
+
+    ratio = n_feat / n_rows
+    if ridge_lambda is not None:
+        rule = f"fixed penalty lambda = {ridge_lambda:g}"
+    elif ridge_df_fraction is not None:
+        rule = f"penalty leaving df = {ridge_df_fraction:g} x rank at each point"
+    else:
+        m_all = n - intercept
+        rule = f"fixed penalty lambda = 0.1 x {m_all} = {0.1 * m_all:g} (lambda_n = 0.1)"
+    if variances is None:
+        variances = est if est is not None else estimate_variances(
+            X, yv, fit_intercept=fit_intercept, standardize=standardize)
+        source = "estimated from the training rows: " + variances.noise_estimator
+    else:
+        source = variance_source or "given"
+    fields = {name: vals[..., j] for j, name in enumerate(
+        ("lam", "df", "train_mse", "test_mse", "rank", "min_singular_value", "coef_norm"))}
+    lam_fixed_mean = np.nanmean(fields["lam"][:, :, 1], axis=0) if np.isfinite(
+        fields["lam"][:, :, 1]).any(axis=0).all() else np.full(P, np.nan)
+    th = None
+    if random_features is None:
+        th = _theory_curves(over, order, n_feat, n_rows, p_total, intercept, variances, source,
+                            lam_fixed_mean)
+    else:
+        notes.append("no theory overlay: the isotropic linear theory does not describe random "
+                     "features")
+    for a in fields.values():
+        a.flags.writeable = False
+    return ThresholdResult(
+        over=over, order=order, feature_map=feature_map if random_features is not None else None,
+        n_train=n, n_test=Xt.shape[0], n_features_total=p_total, n_features=n_feat,
+        n_train_points=n_rows, ratio=ratio, repeats=repeats, methods=METHODS, band=band,
+        variances=variances, theory=th, spectrum_gamma=float(spec_gamma),
+        spectrum=spectrum if spectrum is not None else np.zeros(0), ridge_rule=rule, seed=seed,
+        fit_intercept=fit_intercept, standardize=standardize, notes=notes, **fields)
+
+
+def _sub_design(design: Design, k: int) -> Design:
+    """The Design of the leading ``k`` columns (preprocessing is column by column)."""
+    return Design(zy=design.zy, x_mean=design.x_mean[:k], x_scale=design.x_scale[:k],
+                  y_mean=design.y_mean, active=design.active[:k], n_samples=design.n_samples,
+                  fit_intercept=design.fit_intercept, standardize=design.standardize)
+
+
+def _spectrum_of(fac: Factorization, m: int) -> np.ndarray:
+    """Non-zero eigenvalues :math:`d_j^2/m` of :math:`Z^TZ/m`, descending."""
+    return np.square(fac.d) / m
+
+
+def _theory_curves(over, order, n_feat, n_rows, p_total, intercept, var: VarianceEstimate,
+                   source, lam_fixed_mean) -> TheoryCurves:
+    m = n_rows - intercept
+    gamma = n_feat / m
+    if over == "features":
+        eff = theory.misspecified_variances(n_feat, p_total, var.noise_variance,
+                                            var.signal_variance)
+        s2, r2 = np.asarray(eff.noise_variance), np.asarray(eff.signal_variance)
+        nesting = (f"nested feature sets in {order} order; the omitted features' signal "
+                   "counted as noise, spread evenly (Hastie et al. 2022, sec. 5)")
+    else:
+        s2 = np.full(n_feat.shape, var.noise_variance)
+        r2 = np.full(n_feat.shape, var.signal_variance)
+        nesting = "all features; nested training rows"
+    # with an intercept the test error gains a factor (1 + 1/n'): for Gaussian rows the
+    # sample mean is independent of the centered rows, and the intercept's error
+    # eps_bar - xbar'(beta_hat - beta) has variance (sigma^2 + excess)/n'
+    infl = 1.0 + intercept / n_rows
+    mn = infl * (s2 + theory.min_norm_risk(gamma, s2, r2))
+    opt = infl * (s2 + theory.optimal_ridge_risk(gamma, s2, r2))
+    with np.errstate(invalid="ignore"):
+        lam_n = lam_fixed_mean / m
+    fixed = np.full(gamma.shape, np.nan)
+    ok = np.isfinite(lam_n) & (lam_n > 0)
+    fixed[ok] = infl[ok] * (s2[ok] + theory.ridge_risk(lam_n[ok], gamma[ok], s2[ok], r2[ok]))
+    train = theory.ls_train_mse(n_rows, np.minimum(n_feat, n_rows), s2,
+                                fit_intercept=bool(intercept))
+    applies = order != "screening"
+    note = ("" if applies else "screening puts the strong features first, so the evenly-spread "
+            "adjustment understates the signal of small models; curves for reference only")
+    return TheoryCurves(ratio=n_feat / n_rows, gamma=gamma, noise_variance=s2,
+                        signal_variance=r2, min_norm_test_mse=mn, ridge_optimal_test_mse=opt,
+                        ridge_fixed_test_mse=fixed, ls_train_mse=train, source=source,
+                        nesting=nesting, applies=applies, note=note)
+
+
+# ----------------------------------------------------------------- tables and records
+def _num(v):
+    v = float(v)
+    return v if np.isfinite(v) else None
+
+
+def threshold_table(result: ThresholdResult):
+    """``threshold.csv``: header and rows, one per point × repeat × method (:data:`CSV_COLUMNS`)."""
+    rows = []
+    for rep in range(result.repeats):
+        for i in range(result.n_features.size):
+            for j, meth in enumerate(result.methods):
+                rank = result.rank[rep, i, j]
+                rows.append([
+                    result.over, int(result.n_train_points[i]), int(result.n_features[i]),
+                    float(result.ratio[i]), rep, meth, _num(result.lam[rep, i, j]),
+                    _num(result.df[rep, i, j]), _num(result.train_mse[rep, i, j]),
+                    _num(result.test_mse[rep, i, j]),
+                    int(rank) if np.isfinite(rank) else None,
+                    _num(result.min_singular_value[rep, i, j]),
+                    _num(result.coef_norm[rep, i, j]),
+                ])
+    return list(CSV_COLUMNS), rows
+
+
+def _lst(a):
+    return None if a is None else [_num(v) for v in np.asarray(a, dtype=float)]
+
+
+def threshold_summary(result: ThresholdResult, **extra) -> dict:
+    """The ``threshold.json`` record (contract keys plus context); ``extra`` added verbatim.
+
+    Keys: ``n_train``, ``n_test``, ``over``, ``peak`` (``ratio``, ``n_features``,
+    ``test_mse`` of the min-norm curve's highest mean), ``best_ridge_test_mse``
+    (lowest mean test MSE of ``ridge_fixed``/``ridge_gcv``, the oracle excluded),
+    ``noise_variance``, ``signal_variance`` with ``noise_variance_estimator`` and
+    ``signal_variance_estimator``, ``theory`` (curves on the same ``ratio``; JSON
+    ``null`` where infinite), ``curves`` (mean and band per method), and context.
+    """
+    peak = result.peak
+    best = result.best_ridge
+    curves = {}
+    for meth in result.methods:
+        entry = {}
+        for fld in ("test_mse", "train_mse"):
+            lo, hi = result.band_of(fld, meth)
+            entry[fld] = {"mean": _lst(result.mean(fld, meth)), "lower": _lst(lo),
+                          "upper": _lst(hi)}
+        entry["lambda"] = _lst(result.mean("lambda", meth))
+        entry["df"] = _lst(result.mean("df", meth))
+        curves[meth] = entry
+    th = result.theory
+    theory_rec = None
+    if th is not None:
+        theory_rec = {
+            "ratio": _lst(th.ratio), "gamma": _lst(th.gamma),
+            "noise_variance": _lst(th.noise_variance),
+            "signal_variance": _lst(th.signal_variance),
+            "min_norm_test_mse": _lst(th.min_norm_test_mse),
+            "ridge_optimal_test_mse": _lst(th.ridge_optimal_test_mse),
+            "ridge_fixed_test_mse": _lst(th.ridge_fixed_test_mse),
+            "ls_train_mse": _lst(th.ls_train_mse),
+            "source": th.source, "nesting": th.nesting, "applies": th.applies, "note": th.note,
+            "references": [
+                "Hastie, Montanari, Rosset & Tibshirani (2022), Ann. Statist. 50, Thm 1 and sec. 5",
+                "Dobriban & Wager (2018), Ann. Statist. 46",
+            ],
+        }
+    band_desc = ("mean -/+ one standard error over repeats (SD ddof=1 / sqrt(R))"
+                 if result.band == "se" else "10% and 90% quantiles over repeats")
+    out = {
+        "n_train": result.n_train,
+        "n_test": result.n_test,
+        "over": result.over,
+        "order": result.order,
+        "feature_map": result.feature_map,
+        "n_features_total": result.n_features_total,
+        "repeats": result.repeats,
+        "seed": result.seed,
+        "points": int(result.n_features.size),
+        "ratio": _lst(result.ratio),
+        "n_features": [int(v) for v in result.n_features],
+        "n_train_points": [int(v) for v in result.n_train_points],
+        "peak": {k: peak[k] for k in ("ratio", "n_features", "n_train", "test_mse")},
+        "best_ridge_test_mse": best["test_mse"],
+        "best_ridge": best,
+        "best_oracle_ridge_test_mse": _num(np.nanmin(result.mean("test_mse", "ridge_oracle"))),
+        "noise_variance": result.variances.noise_variance,
+        "signal_variance": result.variances.signal_variance,
+        "noise_variance_estimator": result.variances.noise_estimator,
+        "signal_variance_estimator": result.variances.signal_estimator,
+        "theory": theory_rec,
+        "curves": curves,
+        "band": band_desc,
+        "methods": list(result.methods),
+        "ridge_fixed_rule": result.ridge_rule,
+        "ridge_gcv_grid": "lambda = m * lambda_n, lambda_n in {0} and 57 log-spaced values "
+                          "in [1e-4, 1e3], m = centered training rows",
+        "ridge_oracle_note": "ridge_oracle picks the penalty best on the TEST rows: an oracle "
+                             "bound, not a usable rule",
+        "spectrum": {"gamma": _num(result.spectrum_gamma),
+                     "eigenvalues": _lst(result.spectrum),
+                     "note": "non-zero eigenvalues of Z'Z/m of the full standardized training "
+                             "design; compare with the Marchenko-Pastur density at gamma"},
+        "fit_intercept": result.fit_intercept,
+        "standardize": result.standardize,
+        "notes": list(result.notes),
+    }
+    out.update(extra)
+    return out
