@@ -1,0 +1,234 @@
+"""The error catalogue (docs/errors.md) through the command line.
+
+Every user error: exit status 2, exactly one line on stderr naming the file /
+column / line and the fix, no traceback.  Internal failures: exit status 1 with
+a hint to report them; ``paths --debug`` shows the traceback.  These are the
+house rules of the project (common practice for command-line tools, no source;
+exit status 2 for usage errors follows the BSD ``sysexits``/getopt convention
+from memory).  Driven through ``typer.testing.CliRunner`` on ``paths.cli.app``.
+"""
+from __future__ import annotations
+
+import hashlib
+import os
+import subprocess
+import sys
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+import pytest
+from typer.testing import CliRunner
+
+from paths.cli import app
+
+runner = CliRunner()
+RNG = np.random.default_rng(11)
+
+
+def _good_rows(n=12, p=3):
+    X = RNG.standard_normal((n, p))
+    y = X @ np.arange(1, p + 1) + 0.1 * RNG.standard_normal(n)
+    return X, y
+
+
+def _csv(path, X, y, names=None, target="y"):
+    names = names or [f"f{j}" for j in range(X.shape[1])]
+    lines = [",".join(names + [target])]
+    lines += [",".join(repr(float(v)) for v in (*row, t)) for row, t in zip(X, y)]
+    path.write_text("\n".join(lines) + "\n")
+    return path
+
+
+def _user_error(args, needles=()):
+    res = runner.invoke(app, [str(a) for a in args])
+    assert res.exit_code == 2, (res.exit_code, res.output)
+    err = res.stderr.strip()
+    assert err.startswith("error: "), err
+    assert "\n" not in err, err
+    assert "Traceback" not in res.output
+    for needle in needles:
+        assert needle in err, (needle, err)
+    return err
+
+
+@pytest.fixture()
+def good(tmp_path):
+    X, y = _good_rows()
+    return _csv(tmp_path / "good.csv", X, y)
+
+
+CASES = {
+    # name: (file bytes, extra args, needles in the message)
+    "empty file": (b"", [], ["empty"]),
+    "header only": (b"f0,f1,y\n", [], ["no data rows"]),
+    "one row": (b"f0,f1,y\n1,2,3\n", [], ["1 data row", "at least 2"]),
+    "non-UTF-8 bytes": (b"f0,f1,y\n1,2,3\n4,5,\xe96\n", [], ["not UTF-8", "line 3"]),
+    "ragged rows": (b"f0,f1,y\n1,2,3\n4,5\n7,8,9\n", [], ["line 3 has 2 fields"]),
+    "thousands separators": (b'f0,f1,y\n"1,200",2,3\n"3,400",5,6\n"2,000",1,1\n', [],
+                             ["'f0'", "thousands separators"]),
+    "decimal commas": (b"f0;f1;y\n1,5;2,1;3\n3,25;5,5;6\n2,0;1,5;1\n", [],
+                       ["'f0'", "decimal comma"]),
+    "infinite value": (b"f0,f1,y\n1,2,3\n4,inf,6\n7,8,10\n", [], ["'f1'", "infinite", "line 3"]),
+    "missing value": (b"f0,f1,y\n1,2,3\n4,NA,6\n7,8,10\n", [], ["'f1' (1, first on line 3)",
+                                                               "--drop-missing"]),
+    "NaN in target": (b"f0,f1,y\n1,2,3\n4,5,nan\n7,8,10\n", [], ["'y'"]),
+    "target constant": (b"f0,f1,y\n1,2,3\n4,5,3\n7,8,3\n", [], ["'y'", "constant"]),
+    "target missing (not a column)": (b"f0,f1,z\n1,2,3\n4,5,6\n7,8,9\n", [],
+                                      ["'y'", "not found"]),
+    "column of all NaN": (b"f0,f1,y\n1,,3\n4,,6\n7,,10\n", [], ["'f1'", "entirely missing"]),
+    "p = 0 after exclusions": (b"f0,f1,y\n1,2,3\n4,5,6\n7,8,10\n", ["--exclude", "f*"],
+                               ["p = 0"]),
+    "categorical refused": (b"f0,site,y\n1,a,3\n4,b,6\n7,a,10\n", [], ["'site'",
+                                                                       "--encode onehot"]),
+    "target missing under --drop-missing columns": (
+        b"f0,f1,y\n1,2,3\n4,5,\n7,8,10\n", ["--drop-missing", "columns"], ["--drop-missing rows"]),
+}
+
+
+@pytest.mark.parametrize("case", list(CASES))
+def test_bad_data_file(tmp_path, case):
+    content, extra, needles = CASES[case]
+    f = tmp_path / "data.csv"
+    f.write_bytes(content)
+    err = _user_error(["explore", f, "--target", "y", "--out", tmp_path / "o", *extra], needles)
+    assert "data.csv" in err
+
+
+def test_file_does_not_exist(tmp_path):
+    _user_error(["explore", tmp_path / "absent.csv", "-t", "y", "--out", tmp_path / "o"],
+                ["absent.csv", "no such file"])
+
+
+def test_directory_given_as_file(tmp_path):
+    _user_error(["explore", tmp_path, "-t", "y", "--out", tmp_path / "o"], ["folder"])
+
+
+def test_unwritable_out(tmp_path, good):
+    """--out below a regular file cannot be created (works as root too)."""
+    blocker = tmp_path / "blocker"
+    blocker.write_text("x")
+    _user_error(["explore", good, "-t", "y", "--out", blocker / "sub"], ["--out"])
+    _user_error(["explore", good, "-t", "y", "--out", blocker], ["not a folder"])
+
+
+def test_unwritable_out_permissions(tmp_path, good):
+    """A read-only folder is refused (skipped as root, who may write anywhere)."""
+    if os.geteuid() == 0:
+        pytest.skip("root ignores folder permissions")
+    ro = tmp_path / "ro"
+    ro.mkdir()
+    ro.chmod(0o500)
+    try:
+        _user_error(["explore", good, "-t", "y", "--out", ro / "o"], ["writable"])
+    finally:
+        ro.chmod(0o700)
+
+
+def test_non_empty_out_refused_without_force(tmp_path, good):
+    out = tmp_path / "o"
+    out.mkdir()
+    (out / "keep.txt").write_text("mine")
+    _user_error(["explore", good, "-t", "y", "--out", out], ["--force"])
+    assert (out / "keep.txt").read_text() == "mine"
+
+
+def test_output_never_overwrites_input(tmp_path):
+    """Even with --force, an input named like an output file is not overwritten."""
+    X, y = _good_rows()
+    f = _csv(tmp_path / "path.csv", X, y)
+    before = hashlib.sha256(f.read_bytes()).hexdigest()
+    _user_error(["explore", f, "-t", "y", "--out", tmp_path, "--force"], ["overwrite the input"])
+    assert hashlib.sha256(f.read_bytes()).hexdigest() == before
+
+
+def test_parquet_nested_type(tmp_path):
+    f = tmp_path / "nested.parquet"
+    pq.write_table(pa.table({"f0": [1.0, 2.0, 3.0], "y": [1.0, 3.0, 2.0],
+                             "lst": pa.array([[1], [2, 3], []])}), f)
+    _user_error(["explore", f, "-t", "y", "--out", tmp_path / "o"], ["'lst'", "nested"])
+
+
+def test_test_file_missing_columns(tmp_path, good):
+    X, y = _good_rows(5, 2)
+    t = _csv(tmp_path / "test.csv", X, y, names=["f0", "f2"])
+    _user_error(["explore", good, "-t", "y", "--test", t, "--out", tmp_path / "o"],
+                ["test.csv", "'f1'"])
+
+
+def test_bad_sep(tmp_path, good):
+    _user_error(["explore", good, "-t", "y", "--sep", "::", "--out", tmp_path / "o"], ["--sep"])
+
+
+def test_fewer_rows_than_the_requested_cv(tmp_path):
+    """K-fold CV with more folds than rows is refused at the boundary (issue 3's --cv when
+    the CLI has it; the library's fold maker otherwise)."""
+    X, y = _good_rows(4, 2)
+    f = _csv(tmp_path / "small.csv", X, y)
+    help_text = runner.invoke(app, ["explore", "--help"]).output
+    if "--cv" in help_text:
+        _user_error(["explore", f, "-t", "y", "--cv", "10", "--out", tmp_path / "o"], ["fold"])
+    else:
+        from paths import InputError
+        from paths.cv import make_folds
+
+        with pytest.raises(InputError) as info:
+            make_folds(4, 10)
+        assert "\n" not in str(info.value) and "folds" in str(info.value)
+
+
+# --------------------------------------------------------------- internal failures
+
+
+def test_internal_error_exit_1_with_hint(tmp_path, good, monkeypatch):
+    """A bug (any non-InputError exception) exits 1 with one line asking for a report."""
+    import paths.analysis
+
+    def broken(*a, **k):
+        raise RuntimeError("synthetic failure")
+
+    monkeypatch.setattr(paths.analysis, "fit_path", broken)
+    res = runner.invoke(app, ["explore", str(good), "-t", "y", "--out", str(tmp_path / "o")])
+    assert res.exit_code == 1
+    err = res.stderr.strip()
+    assert "\n" not in err and "bug" in err and "--debug" in err and "Traceback" not in res.output
+
+
+def test_debug_shows_traceback(tmp_path):
+    """``paths --debug`` lets the traceback through (a real process, to see stderr)."""
+    f = tmp_path / "empty.csv"
+    f.write_bytes(b"")
+    code = "from paths.cli import main; main()"
+    proc = subprocess.run([sys.executable, "-c", code, "--debug", "explore", str(f), "-t", "y",
+                           "--out", str(tmp_path / "o")], capture_output=True, text=True,
+                          timeout=120)
+    assert proc.returncode != 0
+    assert "Traceback" in proc.stderr and "InputError" in proc.stderr
+    proc = subprocess.run([sys.executable, "-c", code, "explore", str(f), "-t", "y",
+                           "--out", str(tmp_path / "o")], capture_output=True, text=True,
+                          timeout=120)
+    assert proc.returncode == 2 and "Traceback" not in proc.stderr
+    assert len(proc.stderr.strip().splitlines()) == 1
+
+
+def test_ctrl_c_during_write_leaves_no_partial_file(tmp_path, good, monkeypatch):
+    """KeyboardInterrupt while a file is being written: exit 130, no file under a final name
+    is half-written and no temporary is left behind."""
+    import paths.output
+
+    real = paths.output.os.replace
+    calls = {"n": 0}
+
+    def interrupted(src, dst):
+        calls["n"] += 1
+        if calls["n"] == 2:  # path.csv renamed in place, then Ctrl-C before coefficients.csv
+            raise KeyboardInterrupt
+        return real(src, dst)
+
+    monkeypatch.setattr(paths.output.os, "replace", interrupted)
+    out = tmp_path / "o"
+    res = runner.invoke(app, ["explore", str(good), "-t", "y", "--out", str(out)])
+    assert res.exit_code == 130
+    assert sorted(p.name for p in out.iterdir()) == ["path.csv"]
+    text = (out / "path.csv").read_text()
+    assert text.endswith("\n") and len(text.splitlines()) == 101  # header + 100 penalties
