@@ -10,13 +10,15 @@ import sys
 from dataclasses import dataclass, field
 from pathlib import Path
 
+import numpy as np
+
 from .datasets import split_holdout
 from .io import Dataset, load_dataset, sha256_of
 from .output import prepare_out_dir, write_csv, write_json
 from .path import RidgePath, fit_path
 from .summary import coefficient_table, path_table, selections, summary_dict
 
-__all__ = ["ExploreRun", "explore", "load_data"]
+__all__ = ["ExploreRun", "explore", "load_data", "read_groups"]
 
 
 @dataclass(frozen=True)
@@ -27,6 +29,8 @@ class ExploreRun:
     summary: dict
     out_dir: Path
     files: list = field(default_factory=list)
+    selection: object = None  # SelectionReport: every rule side by side
+    cv: object = None  # CVResult, when K-fold CV was asked for
 
 
 def load_data(path, target, *, sep=None, features=None, exclude=None, id_column=None,
@@ -41,6 +45,25 @@ def load_data(path, target, *, sep=None, features=None, exclude=None, id_column=
     data = load_dataset(path, target, sep=sep, features=features, exclude=exclude,
                         id_column=id_column, encode=encode, drop_missing=drop_missing, like=like)
     return data, sha256_of(path)
+
+
+def read_groups(path, column: str, *, sep=None) -> np.ndarray:
+    """The values of the group column ``column`` of a data file, one per row (``--groups``).
+
+    The column must also be left out of the features (``exclude=[column]``).
+    """
+    from ._validation import InputError
+    from .io import read_table
+
+    frame = read_table(path, sep=sep)
+    if column not in frame.columns:
+        raise InputError(f"{path}: --groups column {column!r} not found; columns are: "
+                         f"{', '.join(map(str, list(frame.columns)[:8]))}")
+    values = frame[column]
+    if values.isna().any():
+        raise InputError(f"{path}: --groups column {column!r} has {int(values.isna().sum())} "
+                         "missing value(s); give every row a group")
+    return values.to_numpy()
 
 
 def _per_target(table, result: RidgePath, targets) -> tuple[list, list]:
@@ -84,6 +107,12 @@ def explore(
     force: bool = False,
     input_sha256: dict | None = None,
     command_line: list[str] | None = None,
+    cv: int | None = None,
+    repeats: int = 1,
+    groups=None,
+    folds: str = "shuffled",
+    cv_scaling: str = "global",
+    rule: str | None = None,
 ) -> ExploreRun:
     """Fit the whole path on ``data`` and write ``path.csv``, ``coefficients.csv``, ``summary.json``.
 
@@ -98,6 +127,15 @@ def explore(
     holdout : float, optional
         Fraction of ``data``'s rows held out at random (seeded by ``seed``) as the
         test set; not with ``test``.
+    cv, repeats, groups, folds, cv_scaling
+        K-fold cross-validation (:func:`paths.cv.cross_validate`): K folds,
+        ``repeats`` seeded repetitions (seed ``seed``), group labels per row of
+        ``data`` (grouped folds), ``"shuffled"`` or ``"blocked"`` folds, and the
+        scaling (``"global"`` or ``"per-fold"``).  ``groups`` without ``cv``
+        uses min(10, number of groups) folds.
+    rule : str, optional
+        The reported selection rule (:func:`paths.select.select`); default
+        ``"cv"`` with cross-validation, else ``"gcv"``.
     """
     from ._validation import InputError
 
@@ -118,11 +156,16 @@ def explore(
         train, held = split_holdout(X.shape[0], holdout, seed)
         X, y, X_test, y_test = X[train], y[train], X[held], y[held]
         split = {"holdout": holdout, "seed": seed, "n_test": int(held.size)}
+        if groups is not None and len(groups) == data.X.shape[0]:
+            groups = np.asarray(groups)[train]
     import pandas as pd
 
     frame = pd.DataFrame(X, columns=data.feature_names)
     result = fit_path(frame, y, n_lambdas=n_lambdas, standardize=standardize, solver=solver,
                       X_test=X_test, y_test=y_test)
+    selection, cv_record, cv_res = _selection(result, X, y, cv=cv, repeats=repeats, groups=groups,
+                                              folds=folds, cv_scaling=cv_scaling, seed=seed,
+                                              rule=rule)
     summary = summary_dict(
         result,
         target=data.target_names[0] if len(data.target_names) == 1 else data.target_names,
@@ -132,11 +175,15 @@ def explore(
         command_line=shlex.join(command_line if command_line is not None else sys.argv),
         data_notes=list(data.notes) + [f"test data: {n}" for n in (test.notes if test else [])],
         data_preparation=data.record(),
+        noise_variance=selection.noise.as_dict(None if result.multi_target else 0),
+        reported=selection.reported,
+        cv=cv_record,
     )
+    summary["selected"] = {**summary["selected"], **selection.as_dict(0)}
     if len(data.target_names) > 1:
         summary["targets"] = list(data.target_names)
         summary["by_target"] = {
-            name: {"selected": selections(result, j),
+            name: {"selected": {**selections(result, j), **selection.as_dict(j)},
                    "min_norm": {k: summary["min_norm"][k][j] if isinstance(
                        summary["min_norm"][k], list) else summary["min_norm"][k]
                        for k in summary["min_norm"]}}
@@ -149,5 +196,38 @@ def explore(
                   *_per_target(coefficient_table, result, data.target_names)),
         write_json(out / "summary.json", summary),
     ]
-    return ExploreRun(result=result, summary=summary, out_dir=out, files=files)
+    return ExploreRun(result=result, summary=summary, out_dir=out, files=files,
+                      selection=selection, cv=cv_res)
+
+
+def _selection(result, X, y, *, cv, repeats, groups, folds, cv_scaling, seed, rule):
+    """K-fold CV (when asked) and every selection rule; ``(report, cv record, CVResult)``."""
+    from ._validation import InputError
+    from .cv import cross_validate
+    from .select import select
+
+    cv_res = None
+    if groups is not None:
+        groups = np.asarray(groups)
+        if groups.shape[0] != X.shape[0]:
+            raise InputError(f"the group column has {groups.shape[0]} values for {X.shape[0]} "
+                             "rows (rows were dropped?); give every row a group")
+        if cv is None:
+            cv = min(10, np.unique(groups).size)
+    elif cv is None and repeats != 1:
+        raise InputError("--repeats needs --cv K")
+    if cv is not None:
+        cv_res = cross_validate(X, y, path=result, n_folds=cv, scheme=folds, seed=seed,
+                                repeats=repeats, groups=groups, scaling=cv_scaling)
+    report = select(result, cv_res, reported=rule)
+    record = None
+    if cv_res is not None:
+        def lst(a):
+            return None if a is None else np.asarray(a, dtype=float).tolist()
+        record = {"n_folds": cv_res.n_folds, "repeats": cv_res.repeats, "scheme": cv_res.scheme,
+                  "seed": cv_res.seed, "scaling": cv_res.scaling, "method": cv_res.method,
+                  "form": cv_res.form, "method_reason": cv_res.method_reason,
+                  "fold_sizes": cv_res.fold_sizes.tolist(), "mse": lst(cv_res.mse),
+                  "se": lst(cv_res.se), "se_repeats": lst(cv_res.se_repeats)}
+    return report, record, cv_res
 

@@ -229,7 +229,10 @@ def noise_variance(path, *, gcv_lambda=None) -> NoiseEstimate:
     :math:`n - r`).  Otherwise ridge at the GCV choice:
     :math:`\\hat\\sigma^2 = \\mathrm{RSS}(\\lambda)/(n - \\operatorname{tr}(2H - HH^T))`,
     with :math:`n - \\operatorname{tr}(2H - HH^T) = (m - r) + \\sum_j s_j^2`,
-    :math:`s_j = \\lambda/(d_j^2+\\lambda)` (no cancellation).  The ridge estimate
+    :math:`s_j = \\lambda/(d_j^2+\\lambda)` (no cancellation).  When the GCV
+    choice leaves fewer than max(1, n/10) residual degrees of freedom (GCV can
+    prefer the interpolating limit past p = n), the penalty is raised until it
+    leaves that many — our choice, said in ``formula``.  The ridge estimate
     is biased upward by the squared bias of the fit; it is accurate when the
     signal is well captured at the chosen penalty.
 
@@ -253,10 +256,19 @@ def noise_variance(path, *, gcv_lambda=None) -> NoiseEstimate:
             dof=dof, lam=None, reference="least-squares residual variance (common practice)")
     if gcv_lambda is None:
         lam = np.array([_refine_minimum(_gcv_fun(path, j), path.lambdas,
-                                        _target_col(path.gcv, j))["lam"] for j in range(t)])
+                                        _gcv_values(path, path.lambdas, j))["lam"]
+                        for j in range(t)])
     else:
         lam = np.broadcast_to(np.asarray(gcv_lambda, dtype=float), (t,)).copy()
     d2 = np.square(fac.d)
+    min_dof = max(1.0, 0.1 * n)
+    raised = False
+    for j in range(t):  # the estimate needs residual degrees of freedom
+        if (m - r) + float(np.sum(np.square(lam[j] / (d2 + lam[j])))) < min_dof:
+            g = lambda u: (m - r) + float(np.sum(np.square(np.exp(u) / (d2 + np.exp(u))))) - min_dof  # noqa: E731,E501
+            lam[j] = float(np.exp(brentq(g, np.log(d2[-1]) - 40.0, np.log(d2[0]) + 40.0,
+                                         xtol=1e-10)))
+            raised = True
     vals, dofs = np.empty(t), np.empty(t)
     for j in range(t):
         s = lam[j] / (d2 + lam[j])
@@ -265,7 +277,8 @@ def noise_variance(path, *, gcv_lambda=None) -> NoiseEstimate:
         vals[j] = rss / dofs[j]
     return NoiseEstimate(
         value=_squeeze(vals, path), method="ridge",
-        formula="ridge: RSS(lambda)/(n - tr(2H - HH^T)) at the GCV-chosen lambda",
+        formula="ridge: RSS(lambda)/(n - tr(2H - HH^T)) at the GCV-chosen lambda"
+                + (f" (raised to leave >= {min_dof:g} residual dof)" if raised else ""),
         dof=_squeeze(dofs, path), lam=_squeeze(lam, path),
         reference="Hastie & Tibshirani (1990), Generalized Additive Models, sec. 3.5")
 
@@ -339,17 +352,40 @@ def isotropic_lambda(path, sigma2, target: int = 0) -> float | None:
 
 
 # -------------------------------------------------------------------- refinement
+def _gcv_values(path, lam, j):
+    """GCV :math:`n\\,\\mathrm{RSS}/(n - \\mathrm{df})^2` at ``lam`` for target ``j``.
+
+    As :func:`paths.path.criteria`, except that at full row rank the part of
+    the response outside the column span is exactly zero and is not added (its
+    rounding-level value would dominate RSS for tiny penalties); at 0, the limit.
+    """
+    lam = np.atleast_1d(np.asarray(lam, dtype=float))
+    fac, design = path.factorization, path.design
+    m, r = fac.u.shape
+    c2 = np.square(path.uty[:, j])
+    d2 = np.square(fac.d)
+    if r == m:
+        out = np.empty(lam.size)
+        pos = lam > 0
+        w = 1.0 / (d2[:, None] + lam[None, pos])  # S/lam, exact as lam -> 0
+        out[pos] = design.n_samples * (np.square(w).T @ c2) / np.square(w.sum(axis=0))
+        if (~pos).any():
+            out[~pos] = design.n_samples * np.sum(c2 / d2**2) / np.sum(1.0 / d2) ** 2
+        return out
+    return _target_col(path.criteria_at(lam).gcv, j).reshape(lam.shape)
+
+
 def _gcv_fun(path, j):
-    def f(lam):
-        crit = path.criteria_at(lam)
-        return _target_col(crit.gcv, j)
-    return f
+    return lambda lam: _gcv_values(path, lam, j)
 
 
 def _loo_fun(path, j):
+    from .cv import loo_residuals
+
     def f(lam):
-        crit = path.criteria_at(lam)
-        return _target_col(crit.loo_mse, j)
+        res = loo_residuals(path, lam)
+        res = res if res.ndim == 2 else res[:, :, j]
+        return np.mean(np.square(res), axis=0)
     return f
 
 
@@ -387,7 +423,7 @@ def _refine_minimum(fun, lambdas, values) -> dict:
         ev = np.asarray(fun(ext), dtype=float)
         seq_l = np.concatenate([[ls[i - 1] if up else ls[i + 1]], [ls[i]], ext])
         seq_v = np.concatenate([[vs[i - 1] if up else vs[i + 1]], [vs[i]], ev])
-        rising = np.flatnonzero(np.diff(seq_v[1:]) > 0)
+        rising = np.flatnonzero(np.diff(seq_v[1:]) > 1e-9 * np.abs(seq_v[2:]))
         if rising.size:
             j = int(rising[0]) + 1  # seq index of the bracketed minimum
             lo, hi = sorted((seq_l[j - 1], seq_l[j + 1]))
@@ -402,7 +438,7 @@ def _refine_minimum(fun, lambdas, values) -> dict:
         else:
             v0 = float(np.asarray(fun(np.array([0.0])), dtype=float).reshape(-1)[0])
             k = int(np.argmin(seq_v))
-            if v0 <= seq_v[k]:
+            if v0 <= seq_v[k] * (1 + 1e-9):
                 return dict(lam=0.0, value=v0, index=index, extended=True,
                             note="criterion decreases all the way to the minimum-norm limit "
                                  "lambda -> 0+ (grid extended 12 decades down)")
@@ -606,8 +642,8 @@ def select(path, cv=None, *, df_target: float | None = None,
     if cv is not None and (cv.lambdas.size == 0 or cv.mse.shape[0] != cv.lambdas.size):
         raise InputError("cv result has no penalties; compute it with cross_validate")
     t = path.uty.shape[1]
-    gcv_choice = [_refine_minimum(_gcv_fun(path, j), path.lambdas, _target_col(path.gcv, j))
-                  for j in range(t)]
+    gcv_choice = [_refine_minimum(_gcv_fun(path, j), path.lambdas,
+                                  _gcv_values(path, path.lambdas, j)) for j in range(t)]
     noise = noise_variance(path, gcv_lambda=np.array([g["lam"] for g in gcv_choice]))
     sig = np.broadcast_to(np.asarray(noise.value, dtype=float), (t,))
     per_target = []
@@ -632,7 +668,7 @@ def _select_one(path, cv, j, g, sigma2, noise, df_target, fraction_target):
     out = {}
     out["gcv"] = _make(path, "gcv", g["lam"], j, est=(g["value"], None, "gcv"), index=g["index"],
                        refined=True, extended=g["extended"], note=g["note"])
-    lo = _refine_minimum(_loo_fun(path, j), path.lambdas, _target_col(path.loo_mse, j))
+    lo = _refine_minimum(_loo_fun(path, j), path.lambdas, _loo_fun(path, j)(path.lambdas))
     loo_est = _estimate(path, None, lo["lam"], j, None)
     out["loo"] = _make(path, "loo", lo["lam"], j, est=(lo["value"], loo_est[1], "loo"),
                        index=lo["index"], refined=True, extended=lo["extended"], note=lo["note"])

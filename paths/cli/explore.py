@@ -8,7 +8,7 @@ from pathlib import Path
 import typer
 from rich.table import Table
 
-from ..analysis import explore, load_data
+from ..analysis import explore, load_data, read_groups
 from .app import command, console
 
 
@@ -26,6 +26,53 @@ class Encode(str, Enum):
 class DropMissing(str, Enum):
     rows = "rows"
     columns = "columns"
+
+
+class Folds(str, Enum):
+    shuffled = "shuffled"
+    blocked = "blocked"
+
+
+class CVScaling(str, Enum):
+    global_ = "global"
+    per_fold = "per-fold"
+
+
+def _fmt_or(v, fmt="{:.4g}") -> str:
+    return "n/a" if v is None else fmt.format(float(v))
+
+
+def print_rules(run) -> None:
+    """The selection rules side by side; the reported choice is marked with ``*``."""
+    s = run.summary
+    targets = s.get("targets") or [None]
+    for name in targets:
+        sel_all = s["selected"] if name is None else s["by_target"][name]["selected"]
+        title = "penalty choice, every rule (* = reported)" + (
+            "" if name is None else f" (target {name})")
+        t = Table(title=title, title_justify="left")
+        for col in ("rule", "lambda", "df", "fraction", "est. MSE", "SE", "from"):
+            t.add_column(col, justify="left" if col in ("rule", "from") else "right",
+                         no_wrap=True)
+        notes = []
+        for rule, sel in sel_all.items():
+            if rule == "test" or "fraction" not in sel:
+                continue
+            mark = "* " if rule == s.get("reported") else "  "
+            t.add_row(mark + rule, _fmt_or(sel["lambda"]), _fmt_or(sel["df"], "{:.2f}"),
+                      _fmt_or(sel["fraction"], "{:.3f}"), _fmt_or(sel["est_mse"]),
+                      _fmt_or(sel["est_se"]), sel.get("est_source") or "")
+            if sel.get("note"):
+                notes.append(f"  {rule}: {sel['note']}")
+        console.print(t)
+        for line in notes:
+            console.print(line, markup=False, soft_wrap=True)
+    nv = s.get("noise_variance")
+    if nv:
+        val = nv["value"]
+        shown = ", ".join(f"{v:.4g}" for v in val) if isinstance(val, list) else f"{val:.4g}"
+        console.print(f"noise variance {shown}  ({nv['formula']}; {nv['reference']})",
+                      markup=False)
 
 
 def _fmt(v) -> str:
@@ -62,6 +109,8 @@ def print_summary(run) -> None:
         for col in ("fit", "lambda", "df", "train MSE", "GCV", "LOO MSE", "test MSE"):
             c.add_column(col, justify="right" if col != "fit" else "left")
         for rule, sel in sel_all.items():
+            if rule not in ("gcv", "loo", "test"):
+                continue  # the other rules: print_rules
             i = sel["index"]
             row = [f"min {rule.upper()}", _fmt(sel["lambda"]), f"{sel['df']:.2f}"]
             for key in ("train_mse", "gcv", "loo_mse", "test_mse"):
@@ -101,8 +150,26 @@ def explore_cmd(
     solver: Solver = typer.Option(Solver.auto, "--solver", help="Factorization route."),
     out: Path = typer.Option(Path("paths-out"), "--out", "-o", help="Output folder."),
     force: bool = typer.Option(False, "--force", help="Write into a non-empty output folder."),
+    cv: int = typer.Option(None, "--cv", help="K-fold cross-validation with K folds (exact, "
+                           "from the one factorization)."),
+    repeats: int = typer.Option(1, "--repeats", help="Repeat the seeded K-fold partition R "
+                                "times (mean and standard error per penalty); seed --seed."),
+    groups: str = typer.Option(None, "--groups", help="Column of group labels (subjects, sites, "
+                               "batches): whole groups are held out together; not a feature."),
+    folds: Folds = typer.Option(Folds.shuffled, "--folds", help="Fold scheme: seeded shuffle, "
+                                "or contiguous blocks for ordered rows."),
+    cv_scaling: CVScaling = typer.Option(CVScaling.global_, "--cv-scaling", help="Column scales "
+                                         "learned on all rows (fast, slightly optimistic) or "
+                                         "inside each fold (exact, refits)."),
+    rule: str = typer.Option(None, "--rule", help="Reported choice: gcv, loo, cv, one-se, "
+                             "df=VALUE, fraction=VALUE, hkb, lw or isotropic (default: cv with "
+                             "--cv, else gcv)."),
 ):
     """Fit the whole ridge path of DATA and write path.csv, coefficients.csv, summary.json."""
+    group_labels = None
+    if groups is not None:
+        group_labels = read_groups(data, groups, sep=sep)
+        exclude = [*(exclude or []), groups]
     dataset, digest = load_data(
         data, target, sep=sep, features=features or None, exclude=exclude or None,
         id_column=id_column, encode=None if encode is Encode.none else encode.value,
@@ -114,5 +181,8 @@ def explore_cmd(
         digests[str(test)] = tdigest
     run = explore(dataset, out_dir=out, test=test_set, holdout=holdout, seed=seed,
                   n_lambdas=lambdas, standardize=standardize, solver=solver.value, force=force,
-                  input_sha256=digests, command_line=["paths", *sys.argv[1:]])
+                  input_sha256=digests, command_line=["paths", *sys.argv[1:]],
+                  cv=cv, repeats=repeats, groups=group_labels, folds=folds.value,
+                  cv_scaling=cv_scaling.value, rule=rule)
     print_summary(run)
+    print_rules(run)
