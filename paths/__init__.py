@@ -7,6 +7,9 @@ from ._validation import InputError
 from .factor import Factorization, factorize
 from .grid import default_grid, effective_df, lambda_for_df
 from .path import PENALTY_CONVENTION, MinNormFit, RidgePath, fit_path
+from .cv import CostModel, CVResult, cross_validate, make_folds
+from .select import NoiseEstimate, Selection, SelectionReport, noise_variance, select
+from .estimator import RidgePathRegressor
 
 __version__ = "0.1.0"
 
@@ -21,5 +24,15 @@ __all__ = [
     "MinNormFit",
     "RidgePath",
     "fit_path",
+    "CostModel",
+    "CVResult",
+    "cross_validate",
+    "make_folds",
+    "NoiseEstimate",
+    "Selection",
+    "SelectionReport",
+    "noise_variance",
+    "select",
+    "RidgePathRegressor",
     "__version__",
 ]
