@@ -8,7 +8,7 @@ from .factor import Factorization, factorize
 from .grid import default_grid, effective_df, lambda_for_df
 from .path import PENALTY_CONVENTION, MinNormFit, RidgePath, fit_path
 from .cv import CostModel, CVResult, cross_validate, make_folds
-from .select import NoiseEstimate, Selection, SelectionReport, noise_variance, select
+from .select import NoiseEstimate, Selection, SelectionReport, noise_variance, select_penalty
 from .estimator import RidgePathRegressor
 
 __version__ = "0.1.0"
@@ -32,7 +32,7 @@ __all__ = [
     "Selection",
     "SelectionReport",
     "noise_variance",
-    "select",
+    "select_penalty",
     "RidgePathRegressor",
     "__version__",
 ]

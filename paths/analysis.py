@@ -204,7 +204,7 @@ def _selection(result, X, y, *, cv, repeats, groups, folds, cv_scaling, seed, ru
     """K-fold CV (when asked) and every selection rule; ``(report, cv record, CVResult)``."""
     from ._validation import InputError
     from .cv import cross_validate
-    from .select import select
+    from .select import select_penalty
 
     cv_res = None
     if groups is not None:
@@ -219,7 +219,7 @@ def _selection(result, X, y, *, cv, repeats, groups, folds, cv_scaling, seed, ru
     if cv is not None:
         cv_res = cross_validate(X, y, path=result, n_folds=cv, scheme=folds, seed=seed,
                                 repeats=repeats, groups=groups, scaling=cv_scaling)
-    report = select(result, cv_res, reported=rule)
+    report = select_penalty(result, cv_res, reported=rule)
     record = None
     if cv_res is not None:
         def lst(a):

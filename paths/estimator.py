@@ -20,7 +20,7 @@ from sklearn.utils.validation import check_is_fitted, validate_data
 from ._validation import InputError
 from .cv import cross_validate
 from .path import fit_path
-from .select import parse_rule, select
+from .select import parse_rule, select_penalty
 
 __all__ = ["RidgePathRegressor"]
 
@@ -151,7 +151,7 @@ class RidgePathRegressor(RegressorMixin, BaseEstimator):
             self.cv_result_ = cross_validate(
                 X, y, n_folds=k, scheme=self.cv_scheme, seed=self.random_state,
                 repeats=self.cv_repeats, groups=groups, scaling=self.cv_scaling, path=path)
-        rep = select(path, self.cv_result_, reported=self.rule)
+        rep = select_penalty(path, self.cv_result_, reported=self.rule)
         lam = rep.chosen_lambdas()
         if not np.all(np.isfinite(lam)):
             raise InputError(

@@ -55,6 +55,7 @@ __all__ = [
     "hkb_lambda",
     "lw_lambda",
     "isotropic_lambda",
+    "select_penalty",
     "select",
 ]
 
@@ -571,7 +572,7 @@ def _df_at(path, lam):
     return float(path.fit_intercept + np.sum(d2 / (d2 + lam)))
 
 
-def select(path, cv=None, *, df_target: float | None = None,
+def select_penalty(path, cv=None, *, df_target: float | None = None,
            fraction_target: float | None = None, reported: str | None = None) -> SelectionReport:
     """Apply every selection rule to a fitted path (and optional CV errors).
 
@@ -615,7 +616,7 @@ def select(path, cv=None, *, df_target: float | None = None,
     >>> from paths import fit_path
     >>> rng = np.random.default_rng(0)
     >>> X = rng.standard_normal((60, 30)); y = X[:, 0] + rng.standard_normal(60)
-    >>> rep = select(fit_path(X, y))
+    >>> rep = select_penalty(fit_path(X, y))
     >>> rep.reported, rep.noise.method
     ('gcv', 'ols')
     """
@@ -749,3 +750,6 @@ def _one_se(path, cv, j, lam_min, mse_min, se_min):
     else:
         note += "; at the largest grid penalty"
     return _make(path, "one-se", chosen, j, cv=cv, index=idx, refined=refined, note=note)
+
+
+select = select_penalty  # short alias inside this module (the package exports select_penalty)
