@@ -287,7 +287,7 @@ def _loo(fac: Factorization, design: Design, uty: np.ndarray, out: np.ndarray,
     S = lam[None, :] / (d2[:, None] + lam[None, :])  # (r, k)
     full_row_rank = r == m
     zero = lam == 0
-    inv_d2 = 1.0 / d2
+    inv_d2 = d2[-1] / d2  # 1/d_j^2 up to a constant (cancels in a/b): no overflow
     sum_sq = np.zeros((lam.size, uty.shape[1]))
     lim_sq = np.zeros(uty.shape[1])
     base = 1.0 - 1.0 / n if design.fit_intercept else 1.0
@@ -373,7 +373,7 @@ def criteria(fac: Factorization, design: Design, uty: np.ndarray, lam) -> Criter
     if m > r:
         gcv0 = n * rss_out / (m - r) ** 2
     else:
-        inv_d2 = 1.0 / d2
+        inv_d2 = d2[-1] / d2  # 1/d_j^2 up to a constant (cancels): no overflow or 0/0
         gcv0 = n * (np.square(c).T @ np.square(inv_d2)) / inv_d2.sum() ** 2
     zero = resid_dof == 0
     gcv = n * rss / np.square(np.where(zero, 1.0, resid_dof))[:, None]
