@@ -232,7 +232,7 @@ def test_overwrite_gives_the_same_factors():
 # bug (paths/factor.py, _from_gram, line ~202): tol = max(rtol, sqrt(max(m, q) eps)) * dmax
 # is applied whenever the Gram route runs, also when "auto" chose it; factorize's
 # docstring says only a *forced* Gram route raises the tolerance, and the README /
-# fit_path document rank_tol = max(n - 1, p) eps d_max.  With auto -> Gram the
+# fit_path document rank_tol = max(n, p) eps d_max.  With auto -> Gram the
 # reported rank_tol is ~1e7 times the documented one (8.3e-7 vs 6.8e-14 here).
 # Ranks are not affected (auto only accepts Gram when every d_j is far above it).
 BUG_TOL = "bug: auto->Gram reports rank_tol = sqrt(max(m,q) eps) d_max, not the documented max(m,q) eps d_max"
@@ -242,13 +242,13 @@ BUG_TOL = "bug: auto->Gram reports rank_tol = sqrt(max(m,q) eps) d_max, not the 
     "svd", pytest.param("auto", marks=pytest.mark.xfail(strict=True, reason=BUG_TOL))])
 def test_fit_path_reports_route_and_tolerance(solver):
     """``fit_path`` exposes the factorization: rank tolerance
-    max(n - 1, p) eps d_max with an intercept (numpy ``matrix_rank`` convention
-    on the centered design, as the README documents), route and reason."""
+    max(n, p) eps d_max (numpy ``pinv`` / ``matrix_rank`` convention, as
+    ``fit_path`` documents), route and reason."""
     rng = np.random.default_rng(17)
     X = rng.standard_normal((30, 30))
     res = fit_path(X, rng.standard_normal(30), [1.0], standardize=False, solver=solver)
     d_all = np.linalg.svd(X - X.mean(axis=0), compute_uv=False)
-    assert_allclose(res.rank_tol, max(29, 30) * EPS * d_all[0], rtol=1e-12)
+    assert_allclose(res.rank_tol, max(30, 30) * EPS * d_all[0], rtol=1e-12)
     assert res.rank == 29  # centering removes one dimension
     assert res.solver == res.factorization.solver and res.solver_reason
 
