@@ -101,17 +101,25 @@ def test_multi_target_matches_sklearn_ridge_2d(make_problem, shape, standardize)
     each target's coefficients/intercepts equal scikit-learn ``Ridge`` fitted on
     the 2-D y (reference: scikit-learn), relative error <= 1e-8."""
     n, p = shape
-    X, Y = make_problem(n, p, seed=7, t=3)
+    X, Y = make_problem(n + 10, p, seed=7, t=3)
+    X, Xt, Y, Yt = X[:n], X[n:], Y[:n], Y[n:]
     lams = np.geomspace(1e3, 1e-3, 21)
-    res = fit_path(X, Y, lams, standardize=standardize)
+    res = fit_path(X, Y, lams, standardize=standardize, X_test=Xt, y_test=Yt,
+                   return_fitted=True)
     assert res.coef.shape == (21, p, 3) and res.intercept.shape == (21, 3)
     assert res.gcv.shape == res.loo_mse.shape == res.train_mse.shape == (21, 3)
+    assert res.test_mse.shape == (21, 3) and res.fitted.shape == (21, n, 3)
     for i, lam in enumerate(lams):
-        coef, icpt, _, _ = sk_reference(X, Y, lam, standardize=standardize)
+        coef, icpt, model, tr = sk_reference(X, Y, lam, standardize=standardize)
         for j in range(3):
             # 1e-8 norm-wise per target: the issue's bound (see above)
             assert rel_err(res.coef[i, :, j], coef[:, j]) <= 1e-8
         assert_allclose(res.intercept[i], icpt, rtol=1e-8, atol=1e-8 * abs(Y).max())
+        assert_allclose(res.fitted[i], model.predict(tr(X)), rtol=1e-8, atol=1e-8 * abs(Y).max())
+        assert_allclose(res.test_mse[i], np.mean((Yt - model.predict(tr(Xt))) ** 2, axis=0),
+                        rtol=1e-8)
+        assert_allclose(res.predict(Xt, lam), model.predict(tr(Xt)), rtol=1e-8,
+                        atol=1e-8 * abs(Y).max())
     # each target alone gives the same path as the joint fit (same factorization)
     single = fit_path(X, Y[:, 1], lams, standardize=standardize)
     # rtol 1e-12: identical arithmetic up to the order of BLAS reductions
@@ -195,7 +203,8 @@ def test_predict_and_coef_at_off_grid(make_problem, shape, standardize):
         assert_allclose(res.predict(Xnew, lam), ref, rtol=1e-8, atol=1e-8 * abs(y).max())
         assert_allclose(pred_seq[:, i], ref, rtol=1e-8, atol=1e-8 * abs(y).max())
     # a pandas DataFrame works as well and names the features
-    pd = pytest.importorskip("pandas")
+    import pandas as pd
+
     frame = pd.DataFrame(X, columns=[f"g{j}" for j in range(p)])
     named = fit_path(frame, y, off, standardize=standardize)
     assert named.feature_names == list(frame.columns)
@@ -702,6 +711,8 @@ BAD_INPUTS = {
     "inf lambda": lambda X, y: dict(X=X, y=y, lambdas=[np.inf]),
     "empty lambdas": lambda X, y: dict(X=X, y=y, lambdas=[]),
     "X_test columns": lambda X, y: dict(X=X, y=y, X_test=X[:, :2], y_test=y),
+    "NaN in X_test": lambda X, y: dict(X=X, y=y, X_test=np.where(X > 1, np.nan, X), y_test=y),
+    "y_test targets": lambda X, y: dict(X=X, y=y, X_test=X, y_test=np.column_stack([y, y])),
     "y_test without X_test": lambda X, y: dict(X=X, y=y, y_test=y),
     "X_test without y_test": lambda X, y: dict(X=X, y=y, X_test=X),
     "y_test rows": lambda X, y: dict(X=X, y=y, X_test=X, y_test=y[:-2]),
