@@ -761,7 +761,7 @@ def threshold_sweep(
             if n <= thr:
                 raise InputError(
                     f"the sample-wise sweep reaches n' = {lo}..{n} but the threshold is at "
-                    f"n' = p + 1 = {thr}; use fewer features (--features) or a smaller "
+                    f"n' = p + 1 = {thr}; use fewer feature columns or a smaller "
                     "--holdout so the training rows exceed the features")
             grid = sweep_sizes(lo, n, thr, n_points)
         else:
