@@ -371,6 +371,52 @@ def test_loo_with_a_leverage_one_sample(make_problem):
     assert_allclose(res.loo_mse[2], res.min_norm.loo_mse, rtol=1e-14)
 
 
+@pytest.mark.parametrize("far", [1e2, 1e4])
+def test_loo_with_a_high_leverage_sample(far):
+    """One sample far from the others (leverage 1 - O(1/far^2)): LOO against
+    brute-force scikit-learn ``Ridge`` refits at lam = 1e-6 and min-norm
+    (numpy ``lstsq``) refits at the lam -> 0+ limit.  Any closed form
+    e_i/(1 - H_ii) must resolve 1 - H_ii, which the rounding of the unit-sized
+    leverages perturbs by ~eps: relative error ~eps/min(1 - H_ii); we allow 100x
+    that (measured 3.5e-13 at far = 1e2, 8.5e-10 at 1e4; scikit-learn's RidgeCV
+    loses 1.5e-3 at 1e4 on the same data)."""
+    rng = np.random.default_rng(3)
+    n = 20
+    X = rng.standard_normal((n, 3))
+    y = rng.standard_normal(n)
+    X[0] = far * np.array([1.0, -0.5, 0.3])
+    y[0] = 0.1 * far
+    res = fit_path(X, y, [1e-6, 0.0], standardize=False, solver="svd")
+    h = np.diag(hat_matrix(X, 1e-6))
+    tol = 100 * EPS / np.min(1 - h)
+    assert_allclose(res.loo_mse[0], brute_force_loo(X, y, 1e-6, False), rtol=tol)
+    err = np.empty(n)
+    for i in range(n):
+        k = np.arange(n) != i
+        xm, ym = X[k].mean(axis=0), y[k].mean()
+        beta = np.linalg.lstsq(X[k] - xm, y[k] - ym, rcond=None)[0]
+        err[i] = y[i] - ym - (X[i] - xm) @ beta
+    assert_allclose(res.min_norm.loo_mse, np.mean(err**2), rtol=tol)
+
+
+@pytest.mark.parametrize("solver", ["svd", "gram", "auto"])
+@pytest.mark.parametrize("shape", [(60, 15), (25, 70)], ids=["p<n", "p>n"])
+def test_every_route_matches_sklearn_ridge(make_problem, shape, solver):
+    """Each factorization route gives scikit-learn ``Ridge`` coefficients and
+    LOO (``RidgeCV``) on well-conditioned designs (cond <= ~30, so even the Gram
+    route's cond^2 eps error is ~1e-13): relative error <= 1e-8."""
+    n, p = shape
+    X, y = make_problem(n, p, seed=33)
+    res = fit_path(X, y, n_lambdas=20, solver=solver)
+    Xs = standardized(X)
+    cv = RidgeCV(alphas=res.lambdas, store_cv_results=True).fit(Xs, y)
+    assert_allclose(res.loo_mse, cv.cv_results_.mean(axis=0), rtol=1e-8)
+    for i in (0, 7, 19):
+        coef, icpt, _, _ = sk_reference(X, y, res.lambdas[i])
+        assert rel_err(res.coef[i], coef) <= 1e-8
+        assert_allclose(res.intercept[i], icpt, rtol=1e-8)
+
+
 # -------------------------------------------------------- minimum-norm fit
 def pinv_fit(X, y, standardize, rcond=None):
     """Minimum-norm least squares with an intercept (numpy ``pinv`` on the
