@@ -4,23 +4,32 @@ from __future__ import annotations
 from pathlib import Path
 
 import typer
+from rich.table import Table
 
-from ..analysis import explore
-from ..datasets import make_calibration
-from ..io import select
+from ..cases import DEMO_CASE, find_case, list_cases
 from .app import command, console
-from .explore import print_summary
+from .run import FORMAT_HELP, WIDTH_HELP, run_and_print
 
 
 @command("demo")
 def demo_cmd(
     out: Path = typer.Option(Path("paths-demo"), "--out", "-o", help="Output folder."),
     force: bool = typer.Option(False, "--force", help="Write into a non-empty output folder."),
+    list_: bool = typer.Option(False, "--list", help="List the built-in cases and exit."),
+    case: str = typer.Option(DEMO_CASE, "--case", help="Which built-in case to run."),
+    format: str = typer.Option(None, "--format", help=FORMAT_HELP),
+    width: str = typer.Option(None, "--width", help=WIDTH_HELP),
 ):
-    """Run the built-in synthetic calibration case (60 samples x 300 channels) into ./paths-demo/."""
-    frame = make_calibration()
-    console.print(f"[bold]demo:[/] {frame.attrs['description']}")
-    data = select(frame, "analyte", source="built-in synthetic calibration (paths.datasets)")
-    run = explore(data, out_dir=out, holdout=0.25, seed=0, force=force,
-                  command_line=["paths", "demo"])
-    print_summary(run)
+    """Run the built-in synthetic calibration case into ./paths-demo/ (figures, report, tables)."""
+    if list_:
+        t = Table(title="built-in cases (all data synthetic)", title_justify="left")
+        t.add_column("name")
+        t.add_column("title")
+        t.add_column("file")
+        for name, title, path in list_cases():
+            t.add_row(name + (" (demo)" if name == DEMO_CASE else ""), title, str(path))
+        console.print(t)
+        console.print("run one with: paths run NAME  (or paths run path/to/case.toml)")
+        return
+    run_and_print(find_case(case), out, force=force, format=format, width=width,
+                  command_line=["paths", "demo"] + ([] if case == DEMO_CASE else ["--case", case]))

@@ -1,0 +1,1061 @@
+"""Matplotlib helpers for the ridge path, the spectrum and the interpolation threshold.
+
+Every helper has the signature ``plot_x(result, ax=None, **style) -> Artists``:
+it draws on ``ax`` (a new Agg-backed figure when ``None``; pyplot is never
+used), and returns an :class:`Artists` record holding the drawn artists by name
+and the exact data drawn (:class:`Trace` rows), so that a figure can be saved
+as the CSV of what it shows (:func:`paths.figures.save_figure`) and tests can
+read the lines back.
+
+The helpers take a :class:`paths.path.RidgePath` or plain mappings and arrays
+(a ``summary.json`` record, a ``threshold.csv`` table as a DataFrame or a dict
+of columns), and draw whatever is present, skipping what is absent.
+
+Penalty convention on every axis: minimize ``||y - b0 - X beta||^2 +
+lambda ||beta||^2`` with ``X`` centered (and standardized when so fitted); the
+x axes say so in short (:data:`CONVENTION_SHORT`).
+
+Colours are the colour-blind-safe palette of Okabe & Ito (2008), each paired
+with its own line style so that the curves stay distinct in greyscale.
+
+References
+----------
+Okabe, M. and Ito, K. (2008). Color Universal Design (CUD): how to make figures
+and presentations that are friendly to colorblind people. J*Fly, jfly.uni-koeln.de/color.
+
+Marchenko, V. A. and Pastur, L. A. (1967). Distribution of eigenvalues for some
+sets of random matrices. *Math. USSR-Sbornik* 1, 457–483.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any, Mapping
+
+import numpy as np
+
+from ._validation import InputError
+
+__all__ = [
+    "OKABE_ITO", "STYLES", "RULE_LABELS", "CONVENTION_SHORT", "Trace", "Artists",
+    "selections_of", "theory_of", "marchenko_pastur_density",
+    "plot_coef_path", "plot_errors", "plot_shrinkage", "plot_spectrum",
+    "plot_variance_share", "plot_threshold", "plot_training_law", "plot_bias_variance",
+]
+
+#: Okabe & Ito (2008) colour-blind-safe palette.
+OKABE_ITO = {
+    "black": "#000000", "orange": "#E69F00", "sky_blue": "#56B4E9",
+    "bluish_green": "#009E73", "yellow": "#F0E442", "blue": "#0072B2",
+    "vermillion": "#D55E00", "reddish_purple": "#CC79A7",
+}
+_C = OKABE_ITO
+
+#: One colour + line style + marker per quantity; distinct in greyscale by the dash pattern.
+STYLES = {
+    "train": dict(color=_C["black"], linestyle="-", marker="o"),
+    "gcv": dict(color=_C["orange"], linestyle="--", marker="s"),
+    "loo": dict(color=_C["blue"], linestyle="-.", marker="D"),
+    "cv": dict(color=_C["bluish_green"], linestyle=(0, (5, 1, 1, 1, 1, 1)), marker="^"),
+    "test": dict(color=_C["vermillion"], linestyle=":", marker="v"),
+    "one_se": dict(color=_C["reddish_purple"], linestyle=(0, (3, 1, 1, 1)), marker="P"),
+    "min_norm": dict(color=_C["vermillion"], linestyle="-", marker="o"),
+    "ridge_fixed": dict(color=_C["sky_blue"], linestyle="--", marker="s"),
+    "ridge_gcv": dict(color=_C["blue"], linestyle="-.", marker="D"),
+    "ridge_oracle": dict(color=_C["bluish_green"], linestyle=(0, (5, 1, 1, 1, 1, 1)), marker="^"),
+    "baseline_mean": dict(color="#777777", linestyle=(0, (1, 1)), marker=""),
+    "baseline_best_feature": dict(color="#777777", linestyle=(0, (6, 2)), marker=""),
+    "theory": dict(color=_C["black"], linestyle=(0, (2, 1)), marker=""),
+}
+_SEQUENCE = [(_C["blue"], "-"), (_C["vermillion"], "--"), (_C["bluish_green"], "-."),
+             (_C["orange"], ":"), (_C["reddish_purple"], (0, (5, 1, 1, 1, 1, 1))),
+             (_C["sky_blue"], (0, (3, 1, 1, 1))), (_C["black"], (0, (1, 1))),
+             (_C["yellow"], (0, (6, 2)))]
+
+#: Display names of the selection rules (keys as in ``summary.json["selected"]``).
+RULE_LABELS = {
+    "gcv": "GCV", "loo": "LOO", "cv": "K-fold CV", "one_se": "one-SE", "one-se": "one-SE",
+    "df": "target df", "fraction": "target fraction", "hkb": "HKB", "lw": "LW",
+    "isotropic": "isotropic plug-in", "test": "test (oracle)",
+}
+_RULE_STYLE = {"gcv": "gcv", "loo": "loo", "cv": "cv", "one_se": "one_se", "one-se": "one_se",
+               "test": "test"}
+_METHOD_LABELS = {
+    "min_norm": "min-norm / OLS", "ridge_fixed": "ridge, fixed λ", "ridge_gcv": "ridge, GCV λ",
+    "ridge_oracle": "ridge, oracle λ (test)", "baseline_mean": "baseline: training mean",
+    "baseline_best_feature": "baseline: best single feature",
+}
+
+#: The penalty convention, short enough for an axis label.
+CONVENTION_SHORT = r"loss $\|y-b_0-X\beta\|^2+\lambda\|\beta\|^2$"
+
+
+@dataclass(frozen=True)
+class Trace:
+    """One drawn series: what the CSV of a figure records.
+
+    Attributes
+    ----------
+    series : str
+        Its name (a feature, a criterion, a rule, a method).
+    kind : str
+        ``"line"``, ``"band"``, ``"marker"``, ``"reference"`` (horizontal or
+        vertical reference line), ``"bar"`` or ``"histogram"``.
+    x, y : ndarray
+    low, high : ndarray or None
+        Band limits (``kind == "band"``) or error bars.
+    """
+
+    series: str
+    kind: str
+    x: np.ndarray
+    y: np.ndarray
+    low: np.ndarray | None = None
+    high: np.ndarray | None = None
+
+
+@dataclass(frozen=True)
+class Artists:
+    """What a plot helper drew.
+
+    Attributes
+    ----------
+    ax : matplotlib.axes.Axes
+    lines : dict
+        Series name -> ``Line2D`` (or ``LineCollection`` for unlabelled features).
+    markers : dict
+        Rule name -> marker ``Line2D`` at the selected penalty.
+    refs : dict
+        Name -> reference line (``axvline``/``axhline``).
+    texts : list
+        Labels written on the axes.
+    bands : dict
+        Series name -> ``PolyCollection`` of a ±1 SE (or repeat) band.
+    traces : list of Trace
+        Exactly the data drawn.
+    x_quantity, y_quantity : str
+        The axis labels (quantity and convention).
+    notes : list of str
+        What was skipped and why.
+    """
+
+    ax: Any
+    lines: dict = field(default_factory=dict)
+    markers: dict = field(default_factory=dict)
+    refs: dict = field(default_factory=dict)
+    texts: list = field(default_factory=list)
+    bands: dict = field(default_factory=dict)
+    traces: list = field(default_factory=list)
+    x_quantity: str = ""
+    y_quantity: str = ""
+    notes: list = field(default_factory=list)
+
+
+# ---------------------------------------------------------------- accessors
+def _get(obj, name, default=None):
+    """``obj[name]`` for mappings, ``obj.name`` otherwise; ``default`` when absent."""
+    if obj is None:
+        return default
+    if isinstance(obj, Mapping):
+        return obj.get(name, default)
+    return getattr(obj, name, default)
+
+
+def _first(obj, *names, default=None):
+    for n in names:
+        v = _get(obj, n)
+        if v is not None:
+            return v
+    return default
+
+
+def _arr(a, target: int = 0):
+    """Float array with the target axis (last, when 2-D per-penalty) dropped."""
+    if a is None:
+        return None
+    a = np.asarray(a, dtype=np.float64)
+    if a.ndim == 2:
+        a = a[:, target]
+    return a
+
+
+def _new_axes(ax):
+    if ax is not None:
+        return ax
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(3.5, 2.6), layout="constrained")
+    FigureCanvasAgg(fig)
+    return fig.add_subplot()
+
+
+def _style(key, **override):
+    s = dict(STYLES.get(key, {}))
+    s.update({k: v for k, v in override.items() if v is not None})
+    return s
+
+
+def _line_kw(key, style):
+    s = _style(key)
+    s.pop("marker", None)
+    s.setdefault("linewidth", 1.2)
+    s.update(style)
+    return s
+
+
+def _penalty_label(standardize) -> str:
+    scale = "X standardized" if standardize else "X centered"
+    return rf"penalty $\log_{{10}}\lambda$" + "\n" + rf"({CONVENTION_SHORT}, {scale})"
+
+
+def _df_label() -> str:
+    return r"effective df $=\mathrm{tr}\,H_\lambda$ (incl. intercept)"
+
+
+def _x_of(result, x: str):
+    """The x values of a path and their axis label; ``x`` is ``"log_lambda"`` or ``"df"``."""
+    lam = _arr(_get(result, "lambdas"))
+    if lam is None:
+        raise InputError("the result has no 'lambdas'; pass a RidgePath or a mapping with "
+                         "'lambdas' (and 'df')")
+    if x in ("log_lambda", "lambda", "loglambda"):
+        with np.errstate(divide="ignore"):
+            xv = np.where(lam > 0, np.log10(np.where(lam > 0, lam, 1.0)), np.nan)
+        return xv, _penalty_label(_get(result, "standardize", True))
+    if x == "df":
+        df = _arr(_get(result, "df"))
+        if df is None:
+            raise InputError("x='df' needs the result's 'df'; pass a RidgePath or include 'df'")
+        return df, _df_label()
+    raise InputError(f"x must be 'log_lambda' or 'df'; got {x!r}")
+
+
+def _x_of_penalty(result, lam: float, df: float | None, x: str) -> float:
+    if x == "df":
+        if df is not None:
+            return float(df)
+        d = _arr(_get(result, "singular_values"))
+        if d is None:
+            return float("nan")
+        return float(_get(result, "fit_intercept", True)) + float(np.sum(d**2 / (d**2 + lam)))
+    return float(np.log10(lam)) if lam > 0 else float("nan")
+
+
+def selections_of(result, selected=None, *, target: int = 0) -> dict:
+    """The selected penalties to mark, as ``{rule: {"lambda", "df", "index"?}}``.
+
+    Parameters
+    ----------
+    result : RidgePath or mapping
+    selected : mapping, optional
+        ``{rule: {"lambda": ..., "df": ...}}`` (the ``summary.json`` form), or
+        ``{rule: float}``, or objects with ``lambda_``/``lam`` attributes.  Default:
+        ``result["selected"]`` for a mapping; for a path, the grid minima of GCV
+        and LOO (and of the test error, as an oracle, when a test set is present).
+    """
+    if selected is None:
+        selected = _get(result, "selected")
+    if selected is None and hasattr(result, "index_min"):
+        selected = {}
+        for rule in ("gcv", "loo") + (("test",) if _get(result, "test_mse") is not None else ()):
+            i = result.index_min(rule, target)
+            selected[rule] = {"lambda": float(result.lambdas[i]), "df": float(result.df[i]),
+                              "index": i}
+    out = {}
+    for rule, sel in (selected or {}).items():
+        if isinstance(sel, (int, float, np.floating, np.integer)):
+            lam, df, idx = float(sel), None, None
+        else:
+            lam = _first(sel, "lambda", "lambda_", "lam", "alpha")
+            if lam is None:
+                continue
+            lam = float(np.asarray(lam, dtype=float).ravel()[min(target, np.size(lam) - 1)])
+            df = _get(sel, "df")
+            df = None if df is None else float(np.asarray(df, dtype=float).ravel()[0])
+            idx = _get(sel, "index")
+        out[str(rule)] = {"lambda": lam, "df": df, "index": idx}
+    return out
+
+
+def _rule_label(rule: str) -> str:
+    return RULE_LABELS.get(rule, rule)
+
+
+def _rule_color(rule: str, k: int):
+    key = _RULE_STYLE.get(rule)
+    if key is not None:
+        return STYLES[key]["color"], STYLES[key]["marker"]
+    c, _ = _SEQUENCE[(k + 3) % len(_SEQUENCE)]
+    return c, "X"
+
+
+def _mark_rules(art: Artists, result, sels: dict, x: str, *, curves: dict | None = None,
+                label_top: bool = True):
+    """A vertical line per rule; a marker on the rule's own curve when it is drawn.
+
+    Rules whose lines fall within 4% of the axis width of each other share one
+    label ("GCV, LOO"), so the labels never overlap.
+    """
+    ax = art.ax
+    trans = ax.get_xaxis_transform()
+    placed = []
+    for k, (rule, sel) in enumerate(sels.items()):
+        xs = _x_of_penalty(result, sel["lambda"], sel["df"], x)
+        if not np.isfinite(xs):
+            art.notes.append(f"rule {rule}: lambda = 0 cannot be placed on a log axis")
+            continue
+        color, marker = _rule_color(rule, k)
+        placed.append((xs, rule, color))
+        ref = ax.axvline(xs, color=color, linestyle=(0, (1, 2)), linewidth=0.8, zorder=1)
+        art.refs[f"rule:{rule}"] = ref
+        art.traces.append(Trace(f"selected:{rule}", "reference", np.array([xs]),
+                                np.array([np.nan])))
+        curve = None if curves is None else curves.get(_RULE_STYLE.get(rule, rule))
+        if curve is not None:
+            cx, cy = curve
+            ok = np.isfinite(cx) & np.isfinite(cy)
+            order = np.argsort(cx[ok])
+            ys = float(np.interp(xs, cx[ok][order], cy[ok][order]))
+            (m,) = ax.plot([xs], [ys], linestyle="none", marker=marker, color=color,
+                           markersize=5, markeredgecolor="white", markeredgewidth=0.6,
+                           zorder=5, label="_nolegend_")
+            art.markers[rule] = m
+            art.traces.append(Trace(f"selected:{rule}", "marker", np.array([xs]),
+                                    np.array([ys])))
+    if not (label_top and placed):
+        return
+    lo, hi = ax.get_xlim()
+    tol = 0.04 * abs(hi - lo)
+    placed.sort()
+    groups = [[placed[0]]]
+    for item in placed[1:]:
+        if item[0] - groups[-1][-1][0] <= tol:
+            groups[-1].append(item)
+        else:
+            groups.append([item])
+    for g in groups:
+        color = g[0][2] if len(g) == 1 else "#333333"
+        label = ", ".join(_rule_label(r) for _, r, _ in g)
+        t = ax.text(g[-1][0], 0.99, label + " ", transform=trans, rotation=90, va="top",
+                    ha="right", fontsize="xx-small", color=color)
+        art.texts.append(t)
+
+
+# ---------------------------------------------------------------- the path
+def plot_coef_path(result, ax=None, *, x: str = "log_lambda", scale: str = "standardized",
+                   n_labels: int = 5, selected=None, target: int = 0, **style) -> Artists:
+    """Coefficient paths against :math:`\\log_{10}\\lambda` or effective df.
+
+    Parameters
+    ----------
+    result : RidgePath or mapping
+        Needs ``lambdas`` and ``coef`` (k × p); ``df`` for ``x="df"``.
+    ax : matplotlib Axes, optional
+    x : {"log_lambda", "df"}
+    scale : {"standardized", "original"}
+        Coefficients on the scale the penalty acts on (default; comparable
+        across features) or on the original feature scale.
+    n_labels : int
+        The features with the largest \\|β\\| (at the first marked penalty, else
+        at the least-penalized end) are coloured and labelled.
+    selected : mapping, optional
+        Penalties to mark (see :func:`selections_of`).
+    **style
+        Passed to the labelled lines (e.g. ``linewidth``).
+
+    Returns
+    -------
+    Artists
+        ``lines[name]`` per labelled feature, ``lines["_others"]`` (a
+        LineCollection) for the rest; ``refs["rule:<rule>"]`` per marked penalty.
+    """
+    from matplotlib.collections import LineCollection
+
+    ax = _new_axes(ax)
+    xv, xlabel = _x_of(result, x)
+    if scale == "standardized":
+        coef = _first(result, "coef_std", "coef")
+    elif scale == "original":
+        coef = _get(result, "coef")
+    else:
+        raise InputError(f"scale must be 'standardized' or 'original'; got {scale!r}")
+    if coef is None:
+        raise InputError("the result has no 'coef'; pass a RidgePath or a mapping with 'coef'")
+    coef = np.asarray(coef, dtype=np.float64)
+    if coef.ndim == 3:
+        coef = coef[:, :, target]
+    names = list(_get(result, "feature_names") or [f"x{j}" for j in range(coef.shape[1])])
+    sels = selections_of(result, selected, target=target)
+    art = Artists(ax=ax, x_quantity=xlabel,
+                  y_quantity="coefficient (standardized scale)" if scale == "standardized"
+                  and _get(result, "coef_std") is not None else "coefficient (original scale)")
+    # rank features by |beta| at the first selected penalty, else at the least-penalized end
+    ref_i = None
+    for sel in sels.values():
+        if sel.get("index") is not None:
+            ref_i = int(sel["index"])
+            break
+        lam = np.asarray(_get(result, "lambdas"), dtype=float)
+        ref_i = int(np.argmin(np.abs(np.log(lam + 1e-300) - np.log(sel["lambda"]))))
+        break
+    if ref_i is None:
+        ref_i = int(np.nanargmax(xv)) if x == "df" else int(np.nanargmin(xv))
+    top = np.argsort(-np.abs(coef[ref_i]))[:max(0, min(n_labels, coef.shape[1]))]
+    others = np.setdiff1d(np.arange(coef.shape[1]), top)
+    ok = np.isfinite(xv)
+    if others.size:
+        segs = np.stack([np.broadcast_to(xv[ok], (others.size, ok.sum())),
+                         coef[ok][:, others].T], axis=-1)
+        lc = LineCollection(list(segs), colors="#BBBBBB", linewidths=0.5, zorder=2)
+        ax.add_collection(lc)
+        art.lines["_others"] = lc
+        for j in others:
+            art.traces.append(Trace(names[j], "line", xv[ok], coef[ok, j]))
+    for k, j in enumerate(top):
+        c, ls = _SEQUENCE[k % len(_SEQUENCE)]
+        kw = dict(color=c, linestyle=ls, linewidth=1.2)
+        kw.update(style)
+        (ln,) = ax.plot(xv[ok], coef[ok, j], label=names[j], zorder=3, **kw)
+        art.lines[names[j]] = ln
+        art.traces.append(Trace(names[j], "line", xv[ok], coef[ok, j]))
+    ax.axhline(0.0, color="#555555", linewidth=0.5, zorder=1)
+    ax.autoscale_view()
+    _mark_rules(art, result, sels, x)
+    if top.size:
+        leg = ax.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize="x-small",
+                        frameon=False, title=f"largest |β|\n(of {coef.shape[1]})",
+                        title_fontsize="x-small", handlelength=1.6)
+        art.texts.append(leg)
+    ax.set_xlabel(xlabel)
+    ax.set_ylabel(art.y_quantity)
+    return art
+
+
+def plot_errors(result, ax=None, *, x: str = "log_lambda", cv=None, selected=None,
+                target: int = 0, yscale: str = "log", min_norm: bool = True,
+                **style) -> Artists:
+    """Error curves along the path: training MSE, GCV, LOO, K-fold CV (±1 SE), test MSE.
+
+    Parameters
+    ----------
+    result : RidgePath or mapping
+        ``lambdas`` plus any of ``train_mse``, ``gcv``, ``loo_mse``, ``test_mse``;
+        ``min_norm`` (with the same keys) for the λ → 0⁺ reference lines.
+    cv : mapping or object, optional
+        K-fold CV on the same grid: ``mean`` (or ``cv_mse``/``mse``) and ``se``
+        (or ``cv_se``); default ``result.cv`` / ``result["cv_mse"]`` when present.
+    selected : mapping, optional
+        Penalties to mark (see :func:`selections_of`); each rule's marker sits on
+        its own criterion curve when that is drawn.
+    yscale : {"log", "linear"}
+    min_norm : bool
+        Draw the min-norm fit's errors as horizontal reference lines.
+
+    Returns
+    -------
+    Artists
+        ``lines`` keyed ``train``, ``gcv``, ``loo``, ``cv``, ``test``;
+        ``bands["cv"]``; ``markers[rule]``; ``refs["min_norm:<criterion>"]``.
+    """
+    ax = _new_axes(ax)
+    xv, xlabel = _x_of(result, x)
+    art = Artists(ax=ax, x_quantity=xlabel, y_quantity="mean squared error"
+                  + (" (log scale)" if yscale == "log" else ""))
+    ax.set_yscale(yscale)
+    curves = {}
+    series = [("train", "training MSE", ("train_mse",)), ("gcv", "GCV", ("gcv",)),
+              ("loo", "LOO", ("loo_mse",)), ("test", "test MSE", ("test_mse",))]
+    ok = np.isfinite(xv)
+    for key, label, names in series:
+        y = _arr(_first(result, *names), target)
+        if y is None:
+            continue
+        (ln,) = ax.plot(xv[ok], y[ok], label=label, **_line_kw(key, style))
+        art.lines[key] = ln
+        curves[key] = (xv[ok], y[ok])
+        art.traces.append(Trace(key, "line", xv[ok], y[ok]))
+    if cv is None:
+        cv = _get(result, "cv")
+        if cv is None and _get(result, "cv_mse") is not None:
+            cv = {"mean": _get(result, "cv_mse"), "se": _get(result, "cv_se")}
+    if cv is not None:
+        mean = _arr(_first(cv, "mean", "cv_mse", "mse", "mean_mse"), target)
+        se = _arr(_first(cv, "se", "cv_se", "std_error", "se_mse"), target)
+        if mean is not None and mean.shape == xv.shape:
+            kfold = _first(cv, "n_folds", "k", "folds")
+            label = "K-fold CV" if kfold is None or not np.isscalar(kfold) else f"{kfold}-fold CV"
+            (ln,) = ax.plot(xv[ok], mean[ok], label=label + (" ± 1 SE" if se is not None else ""),
+                            **_line_kw("cv", style))
+            art.lines["cv"] = ln
+            curves["cv"] = (xv[ok], mean[ok])
+            art.traces.append(Trace("cv", "line", xv[ok], mean[ok]))
+            if se is not None:
+                lo, hi = mean - se, mean + se
+                if yscale == "log":
+                    lo = np.where(lo > 0, lo, mean * 1e-3)
+                band = ax.fill_between(xv[ok], lo[ok], hi[ok], color=STYLES["cv"]["color"],
+                                       alpha=0.2, linewidth=0, zorder=1)
+                art.bands["cv"] = band
+                art.traces.append(Trace("cv", "band", xv[ok], mean[ok], lo[ok], hi[ok]))
+        elif mean is not None:
+            art.notes.append("K-fold CV is on a different grid than the path; not drawn")
+    bottom = None
+    if yscale == "log" and curves:
+        pos = lambda a: a[np.isfinite(a) & (a > 0)]  # noqa: E731
+        crit = [pos(c[1]) for k, c in curves.items() if k != "train"]
+        crit = np.concatenate(crit) if crit else np.array([])
+        every = np.concatenate([pos(c[1]) for c in curves.values()])
+        if every.size:
+            bottom = float(every.min())
+            if crit.size and bottom < crit.min() / 100:
+                bottom = float(crit.min()) / 100
+                art.notes.append("training MSE runs below the axis near interpolation")
+            ax.set_ylim(bottom / 1.3, float(every.max()) * 1.3)
+    if min_norm:
+        mn = _get(result, "min_norm")
+        for key, names in (("train", ("train_mse",)), ("gcv", ("gcv",)), ("loo", ("loo_mse",)),
+                           ("test", ("test_mse",))):
+            if key not in art.lines:
+                continue
+            v = _first(mn, *names)
+            if v is None:
+                continue
+            v = float(np.asarray(v, dtype=float).ravel()[min(target, np.size(v) - 1)])
+            if yscale == "log" and not (v > 0 and (bottom is None or v >= bottom / 1.3)):
+                art.notes.append(f"min-norm {key} = {v:.3g} lies below the log axis; "
+                                 "no reference line")
+                continue
+            ref = ax.axhline(v, color=STYLES[key]["color"], linewidth=0.7,
+                             linestyle=(0, (8, 3)), alpha=0.8, zorder=1)
+            art.refs[f"min_norm:{key}"] = ref
+            art.traces.append(Trace(f"min_norm:{key}", "reference", np.array([np.nan]),
+                                    np.array([v])))
+        if art.refs:
+            ax.plot([], [], color="#555555", linewidth=0.7, linestyle=(0, (8, 3)),
+                    label=r"min-norm fit ($\lambda\to0^+$)")
+    sels = selections_of(result, selected, target=target)
+    _mark_rules(art, result, sels, x, curves=curves)
+    ax.set_xlabel(xlabel)
+    ax.set_ylabel(art.y_quantity)
+    leg = ax.legend(loc="lower left", bbox_to_anchor=(0.0, 1.01, 1.0, 0.1), mode="expand",
+                    ncol=2, fontsize="x-small", frameon=False, borderaxespad=0.0,
+                    handlelength=2.2)
+    art.texts.append(leg)
+    return art
+
+
+# ---------------------------------------------------------------- spectrum
+def _choice(result, lam, selected, target):
+    """(lambda, label) of the penalty to show: ``lam`` or the first selected rule."""
+    if lam is not None:
+        return float(lam), "given"
+    sels = selections_of(result, selected, target=target)
+    for rule in ("cv", "one_se", "gcv", "loo"):
+        if rule in sels:
+            return sels[rule]["lambda"], rule
+    if sels:
+        rule, sel = next(iter(sels.items()))
+        return sel["lambda"], rule
+    raise InputError("no penalty to show; pass lam= or selected=")
+
+
+def plot_shrinkage(result, ax=None, *, lam=None, selected=None, target: int = 0,
+                   **style) -> Artists:
+    """Shrinkage per principal component, :math:`d_j^2/(d_j^2+\\lambda)`, with the singular values.
+
+    Parameters
+    ----------
+    result : RidgePath or mapping
+        Needs ``singular_values``.
+    lam : float, optional
+        The penalty; default the first of the CV, one-SE, GCV, LOO choices present.
+
+    Returns
+    -------
+    Artists
+        ``lines["shrinkage"]`` (component index vs factor) and
+        ``lines["singular_values"]`` (on a twin log axis, ``texts[0]``'s axes).
+
+    Notes
+    -----
+    The factor :math:`f_j` multiplies the least-squares coefficient along the
+    j-th principal direction; :math:`\\sum_j f_j` is the effective df (Hastie,
+    Tibshirani & Friedman, *Elements of Statistical Learning*, 2nd ed., eq. 3.50).
+    """
+    ax = _new_axes(ax)
+    d = _arr(_get(result, "singular_values"))
+    if d is None:
+        raise InputError("the result has no 'singular_values'; pass a RidgePath or summary")
+    lam, rule = _choice(result, lam, selected, target)
+    j = np.arange(1, d.size + 1, dtype=float)
+    f = d**2 / (d**2 + lam)
+    who = _rule_label(rule) if rule != "given" else "given"
+    art = Artists(ax=ax, x_quantity="principal component j (by decreasing $d_j$)",
+                  y_quantity=r"shrinkage $d_j^2/(d_j^2+\lambda)$")
+    kw = dict(color=_C["blue"], linestyle="-", marker="o", markersize=2.5, linewidth=1.0)
+    kw.update(style)
+    (ln,) = ax.plot(j, f, label=rf"$f_j$ at $\lambda$ = {lam:.3g} ({who}); "
+                    rf"$\Sigma f_j$ = {f.sum():.3g}", **kw)
+    art.lines["shrinkage"] = ln
+    art.traces.append(Trace("shrinkage", "line", j, f))
+    ax.set_ylim(-0.03, 1.03)
+    ax.set_xlabel(art.x_quantity)
+    ax.set_ylabel(art.y_quantity, color=_C["blue"])
+    twin = ax.twinx()
+    (sv,) = twin.plot(j, d, color=_C["vermillion"], linestyle="--", linewidth=1.0,
+                      label=r"singular value $d_j$")
+    twin.set_yscale("log")
+    twin.spines["right"].set_visible(True)
+    twin.set_ylabel(r"singular value $d_j$ (log)", color=_C["vermillion"])
+    art.lines["singular_values"] = sv
+    art.traces.append(Trace("singular_values", "line", j, d))
+    ref = ax.axhline(0.5, color="#999999", linewidth=0.5, linestyle=":")
+    art.refs["half"] = ref
+    hs = [ln, sv]
+    leg = ax.legend(hs, [h.get_label() for h in hs], loc="upper right", fontsize="x-small",
+                    frameon=False)
+    art.texts.append(twin)
+    art.texts.append(leg)
+    return art
+
+
+def marchenko_pastur_density(x, gamma: float) -> np.ndarray:
+    """Continuous part of the Marchenko–Pastur density for aspect ratio ``gamma`` = p/n.
+
+    .. math:: \\rho(x) = \\frac{\\sqrt{(b-x)(x-a)}}{2\\pi\\gamma x},\\quad
+              a, b = (1 \\mp \\sqrt{\\gamma})^2,
+
+    zero outside :math:`[a, b]`; for :math:`\\gamma > 1` a point mass
+    :math:`1 - 1/\\gamma` at zero completes it (not included here).  It is the
+    limiting eigenvalue density of :math:`X^TX/n` for unit-variance entries
+    (Marchenko & Pastur 1967).
+    """
+    if not gamma > 0:
+        raise InputError(f"gamma must be positive; got {gamma}")
+    x = np.asarray(x, dtype=np.float64)
+    a, b = (1 - np.sqrt(gamma)) ** 2, (1 + np.sqrt(gamma)) ** 2
+    inside = (x > a) & (x < b) & (x > 0)
+    out = np.zeros_like(x)
+    xi = x[inside]
+    out[inside] = np.sqrt((b - xi) * (xi - a)) / (2 * np.pi * gamma * xi)
+    return out
+
+
+def _eigen_scaled(result):
+    """Eigenvalues of the design's Gram divided by its average, the ratio γ, and q."""
+    d = _arr(_get(result, "singular_values"))
+    if d is None:
+        raise InputError("the result has no 'singular_values'; pass a RidgePath or summary")
+    n = int(_get(result, "n_samples"))
+    design = _get(result, "design")
+    q = int(np.count_nonzero(design.active)) if design is not None else \
+        int(_get(result, "n_features")) - len(_get(result, "constant_features") or [])
+    m = n - int(bool(_get(result, "fit_intercept", True)))
+    eig = d**2 / (np.sum(d**2) / q)
+    return eig, q / m, q, m
+
+
+def plot_spectrum(result, ax=None, *, bins: int | None = None, **style) -> Artists:
+    """Sample eigenvalues of the (standardized) design against the Marchenko–Pastur density.
+
+    Drawn on a log eigenvalue axis, so that spikes from correlated features and
+    the near-zero eigenvalues of a design near p ≈ n show on one picture.
+
+    Parameters
+    ----------
+    result : RidgePath or mapping
+        Needs ``singular_values``, ``n_samples`` and ``n_features``.
+    bins : int, optional
+
+    Returns
+    -------
+    Artists
+        ``lines["marchenko_pastur"]``, ``bands["histogram"]`` (the bar container),
+        ``refs["edge_low"]``/``refs["edge_high"]`` at the support edges.
+
+    Notes
+    -----
+    The eigenvalues are those of :math:`Z^TZ` scaled to unit average over the
+    q active columns (exactly :math:`d_j^2/n` for standardized columns), against
+    the law for γ = q/m (m = n − 1 with an intercept).  On the axis
+    :math:`t = \log_{10} x` the density is :math:`\rho(x)\, x \ln 10`; the
+    histogram puts mass 1/q on each non-zero eigenvalue, so with q > m it
+    integrates to m/q, the continuous part of the law.  Isotropic features
+    follow the curve; spikes above the upper edge are structure (correlated
+    features); eigenvalues near zero — present whenever γ is near 1 — are what
+    makes the min-norm variance explode.
+    """
+    ax = _new_axes(ax)
+    eig, gamma, q, m = _eigen_scaled(result)
+    a, b = (1 - np.sqrt(gamma)) ** 2, (1 + np.sqrt(gamma)) ** 2
+    art = Artists(ax=ax,
+                  x_quantity=r"$\log_{10}$ eigenvalue of $Z^TZ/n$" + "\n"
+                  + r"(Z: centered, standardized design; mean eigenvalue 1)",
+                  y_quantity=r"density per unit $\log_{10}$")
+    t = np.log10(eig)
+    lo_edge = np.log10(a) if a > 1e-12 else t.min()
+    lo = min(t.min(), lo_edge) - 0.1
+    hi = max(t.max(), np.log10(b)) + 0.1
+    nb = bins or int(np.clip(2 * np.sqrt(eig.size), 12, 40))
+    edges = np.linspace(lo, hi, nb + 1)
+    counts, _ = np.histogram(t, bins=edges)
+    dens = counts / q / np.diff(edges)
+    bars = ax.bar(edges[:-1], dens, width=np.diff(edges), align="edge", color=_C["sky_blue"],
+                  edgecolor="white", linewidth=0.3, label=f"sample ({eig.size} non-zero)")
+    art.bands["histogram"] = bars
+    mid = 0.5 * (edges[:-1] + edges[1:])
+    art.traces.append(Trace("sample eigenvalues", "histogram", mid, dens,
+                            edges[:-1], edges[1:]))
+    xs = np.geomspace(max(a, 10.0 ** lo), b, 400)[1:-1]
+    rho = marchenko_pastur_density(xs, gamma) * xs * np.log(10.0)
+    kw = dict(color=_C["black"], linestyle="-", linewidth=1.2)
+    kw.update(style)
+    (ln,) = ax.plot(np.log10(xs), rho, label=rf"Marchenko–Pastur, $\gamma$ = {gamma:.3g}",
+                    **kw)
+    art.lines["marchenko_pastur"] = ln
+    art.traces.append(Trace("marchenko_pastur", "line", np.log10(xs), rho))
+    for name, v in (("edge_low", a), ("edge_high", b)):
+        if v > 0:
+            art.refs[name] = ax.axvline(np.log10(v), color="#777777", linestyle=":",
+                                        linewidth=0.7)
+    ymax = max(float(dens.max()), float(rho.max()) if rho.size else 0.0)
+    ax.set_ylim(0, 1.25 * ymax if ymax > 0 else 1)
+    if gamma > 1:
+        art.notes.append(f"point mass {1 - 1 / gamma:.3g} at zero not drawn")
+        ax.plot([], [], linestyle="none", label=f"(+ mass {1 - 1 / gamma:.2f} at 0, not drawn)")
+    ax.set_xlabel(art.x_quantity)
+    ax.set_ylabel(art.y_quantity)
+    art.texts.append(ax.legend(loc="upper right", fontsize="x-small", frameon=False))
+    return art
+
+
+def plot_variance_share(result, ax=None, **style) -> Artists:
+    """Each component's share of the min-norm coefficient variance, :math:`d_j^{-2}/\\sum_k d_k^{-2}`.
+
+    Under homoscedastic noise :math:`\\sigma^2` the min-norm coefficients have
+    total variance :math:`\\sigma^2 \\sum_j d_j^{-2}`, so the smallest singular
+    values dominate it: the spike of the test error near p ≈ n.
+
+    Returns
+    -------
+    Artists
+        ``lines["share"]`` (component index vs share, log y axis).
+    """
+    ax = _new_axes(ax)
+    d = _arr(_get(result, "singular_values"))
+    if d is None:
+        raise InputError("the result has no 'singular_values'; pass a RidgePath or summary")
+    inv = 1.0 / d**2
+    share = inv / inv.sum()
+    j = np.arange(1, d.size + 1, dtype=float)
+    art = Artists(ax=ax, x_quantity="principal component j (by decreasing $d_j$)",
+                  y_quantity=r"share of min-norm variance $\sigma^2/d_j^2$")
+    kw = dict(color=_C["vermillion"], linestyle="-", marker="o", markersize=2.5, linewidth=1.0)
+    kw.update(style)
+    (ln,) = ax.plot(j, share, label=r"$d_j^{-2}/\Sigma_k d_k^{-2}$", **kw)
+    art.lines["share"] = ln
+    art.traces.append(Trace("variance_share", "line", j, share))
+    ax.set_yscale("log")
+    t = ax.text(0.03, 0.95, f"last component: {100 * share[-1]:.2g}%",
+                transform=ax.transAxes, va="top", fontsize="x-small")
+    art.texts.append(t)
+    ax.set_xlabel(art.x_quantity)
+    ax.set_ylabel(art.y_quantity)
+    return art
+
+
+# ---------------------------------------------------------------- threshold
+def _columns(table) -> dict:
+    """A ``threshold.csv``-like table (DataFrame, dict of columns, object with .table) as arrays.
+
+    A :class:`paths.threshold.ThresholdResult` is read through
+    :func:`paths.threshold.threshold_table`, so the figure draws what the CSV holds.
+    """
+    if hasattr(table, "band_of") and hasattr(table, "methods"):
+        from .threshold import threshold_table
+
+        header, rows = threshold_table(table)
+        cols = {h: np.array([r[i] for r in rows], dtype=object) for i, h in enumerate(header)}
+        for h in header:
+            if h not in ("over", "method"):
+                cols[h] = np.array([np.nan if v is None else v for v in cols[h]], dtype=float)
+        return cols
+    for attr in ("table", "frame", "points"):
+        inner = _get(table, attr) if not isinstance(table, Mapping) else None
+        if inner is not None:
+            table = inner
+            break
+    if hasattr(table, "to_frame") and not hasattr(table, "columns"):
+        table = table.to_frame()
+    if hasattr(table, "columns") and hasattr(table, "to_numpy"):
+        return {str(c): table[c].to_numpy() for c in table.columns}
+    if isinstance(table, Mapping):
+        return {str(k): np.asarray(v) for k, v in table.items()}
+    raise InputError("the sweep must be a threshold table (DataFrame or dict of columns "
+                     "with 'ratio', 'method', 'test_mse')")
+
+
+def _aggregate(cols: dict, method: str, value: str):
+    """Per-ratio mean and standard error over repeats of ``value`` for ``method``."""
+    sel = cols["method"].astype(str) == method
+    if not sel.any() or value not in cols:
+        return None
+    ratio = np.asarray(cols["ratio"], dtype=float)[sel]
+    v = np.asarray(cols[value], dtype=float)[sel]
+    keep = np.isfinite(v)
+    ratio, v = ratio[keep], v[keep]
+    if ratio.size == 0:
+        return None
+    xs = np.unique(ratio)
+    mean = np.array([v[ratio == r].mean() for r in xs])
+    cnt = np.array([(ratio == r).sum() for r in xs])
+    se = np.array([v[ratio == r].std(ddof=1) / np.sqrt(c) if c > 1 else 0.0
+                   for r, c in zip(xs, cnt)])
+    return xs, mean, se, int(cnt.max())
+
+
+def _ratio_label(cols) -> str:
+    over = cols.get("over")
+    if over is not None and np.size(over) and str(np.asarray(over)[0]) == "samples":
+        return r"ratio $p/n'$ (features / training samples)"
+    return r"ratio $p'/n$ (features in the model / training samples)"
+
+
+def plot_threshold(sweep, ax=None, *, theory=None, methods=None, band: bool = True,
+                   **style) -> Artists:
+    """Test MSE against p′/n across the interpolation threshold (log error axis).
+
+    Parameters
+    ----------
+    sweep : DataFrame, mapping of columns, or an object with ``.table``
+        The ``threshold.csv`` table: ``ratio``, ``method``, ``repeat``,
+        ``test_mse`` (and ``n_train``, ``over``).
+    theory : mapping, optional
+        Theory curves: ``{"ratio": r, name: values, ...}`` (e.g. ``min_norm``,
+        ``ridge_optimal``); each drawn as a thin black line.
+    methods : list of str, optional
+        Which methods to draw (default all present).
+    band : bool
+        Shade ±1 standard error over the repeats.
+
+    Returns
+    -------
+    Artists
+        ``lines[method]``, ``bands[method]``, ``lines["theory:<name>"]``,
+        ``refs["threshold"]`` (the line at p′ = n, ratio 1).
+    """
+    ax = _new_axes(ax)
+    cols = _columns(sweep)
+    for need in ("ratio", "method", "test_mse"):
+        if need not in cols:
+            raise InputError(f"the sweep table has no {need!r} column; pass threshold.csv's table")
+    art = Artists(ax=ax, x_quantity=_ratio_label(cols), y_quantity="test MSE (log scale)")
+    present = list(dict.fromkeys(np.asarray(cols["method"]).astype(str)))
+    order = [m for m in _METHOD_LABELS if m in present] + \
+        [m for m in present if m not in _METHOD_LABELS]
+    for k, method in enumerate(methods or order):
+        agg = _aggregate(cols, method, "test_mse")
+        if agg is None:
+            continue
+        xs, mean, se, reps = agg
+        base = method.startswith("baseline")
+        kw = _line_kw(method, style) if method in STYLES else \
+            dict(color=_SEQUENCE[k % 8][0], linestyle=_SEQUENCE[k % 8][1], linewidth=1.2)
+        if base:
+            kw["linewidth"] = 0.9
+        label = _METHOD_LABELS.get(method, method)
+        (ln,) = ax.plot(xs, mean, label=label, **kw)
+        art.lines[method] = ln
+        art.traces.append(Trace(method, "line", xs, mean))
+        if band and reps > 1 and not base:
+            lo = np.where(mean - se > 0, mean - se, mean)
+            b = ax.fill_between(xs, lo, mean + se, color=kw["color"], alpha=0.18, linewidth=0)
+            art.bands[method] = b
+            art.traces.append(Trace(method, "band", xs, mean, lo, mean + se))
+    if not art.lines:
+        raise InputError("the sweep table has no rows with a finite test_mse to draw")
+    if theory is None and hasattr(sweep, "band_of"):
+        theory = sweep
+    if theory is not None:
+        _draw_theory(art, theory, keys_skip=("train", "train_mse", "training"))
+    art.refs["threshold"] = ax.axvline(1.0, color="#444444", linewidth=0.8, linestyle="-")
+    art.texts.append(ax.text(1.0, 0.02, " p′ = n", transform=ax.get_xaxis_transform(),
+                             fontsize="x-small", ha="left", va="bottom", color="#444444"))
+    reps = int(np.max(cols["repeat"])) + 1 if "repeat" in cols and np.size(cols["repeat"]) else 1
+    ax.set_yscale("log")
+    ax.set_xlabel(art.x_quantity)
+    ax.set_ylabel(art.y_quantity)
+    art.texts.append(ax.legend(loc="best", fontsize="x-small", frameon=False,
+                               title=f"band: ±1 SE over {reps} repeats" if reps > 1 and band
+                               else None, title_fontsize="x-small"))
+    return art
+
+
+def theory_of(theory) -> dict | None:
+    """Theory curves as ``{"ratio": r, name: values}`` from a mapping, a
+    :class:`paths.threshold.TheoryCurves`, a ThresholdResult (its ``.theory``) or the
+    ``theory`` record of ``threshold.json``.  The training-error law is under ``"train"``."""
+    if theory is None:
+        return None
+    if hasattr(theory, "band_of"):
+        theory = getattr(theory, "theory", None)
+        if theory is None:
+            return None
+    if not isinstance(theory, Mapping):
+        theory = {k: getattr(theory, k) for k in ("ratio", "min_norm_test_mse",
+                                                   "ridge_optimal_test_mse",
+                                                   "ridge_fixed_test_mse", "ls_train_mse")
+                  if getattr(theory, k, None) is not None}
+    names = {"min_norm_test_mse": "min-norm", "ridge_optimal_test_mse": "optimal ridge",
+             "ridge_fixed_test_mse": "ridge, fixed λ", "ls_train_mse": "train"}
+    out = {}
+    for k, v in theory.items():
+        if k in ("gamma", "noise_variance", "signal_variance", "source", "nesting", "applies",
+                 "note", "references"):
+            continue
+        if v is None or isinstance(v, (str, bool)):
+            continue
+        out[names.get(k, k)] = np.array([np.nan if e is None else e for e in np.ravel(v)],
+                                        dtype=float)
+    return out if "ratio" in out else None
+
+
+def _draw_theory(art: Artists, theory, keys_skip=(), keys_only=None):
+    ax = art.ax
+    tc = theory_of(theory)
+    if tc is None:
+        art.notes.append("no theory curves with a 'ratio'; not drawn")
+        return
+    ratio = np.asarray(tc["ratio"], dtype=float)
+    styles = [(0, (2, 1)), (0, (4, 1, 1, 1)), (0, (1, 1)), (0, (6, 1, 1, 1, 1, 1))]
+    k = 0
+    for name, v in tc.items():
+        if name == "ratio" or name in keys_skip or (keys_only and name not in keys_only):
+            continue
+        try:
+            v = np.asarray(v, dtype=float)
+        except (TypeError, ValueError):
+            continue
+        if v.shape != ratio.shape:
+            continue
+        ok = np.isfinite(v) & (v > 0)
+        (ln,) = ax.plot(ratio[ok], v[ok], color=_C["black"], linewidth=0.9,
+                        linestyle=styles[k % len(styles)],
+                        label=f"theory: {name.replace('_', ' ')}")
+        art.lines[f"theory:{name}"] = ln
+        art.traces.append(Trace(f"theory:{name}", "line", ratio[ok], v[ok]))
+        k += 1
+
+
+def plot_training_law(sweep, ax=None, *, noise_variance=None, theory=None,
+                      method: str = "min_norm", **style) -> Artists:
+    """Training MSE of least squares / min-norm against p′/n, over the law σ²(1 − p′/n).
+
+    Parameters
+    ----------
+    sweep : threshold table (see :func:`plot_threshold`)
+    noise_variance : float, optional
+        σ² for the law :math:`E[\\text{train MSE}] = \\sigma^2 (1 - p'/n)` (with an
+        intercept, :math:`\\sigma^2 (n - p' - 1)/n`), zero past the threshold
+        (common practice, no source: the projection argument).  Not needed when
+        ``theory`` carries a ``train`` curve (e.g. with the per-point
+        :math:`\\sigma^2_\\text{eff}(p')` of a feature-wise sweep).
+    theory : mapping, optional
+        ``{"ratio": r, "train": values}``.
+
+    Returns
+    -------
+    Artists
+        ``lines["measured"]``, ``bands["measured"]``, ``lines["law"]``.
+    """
+    ax = _new_axes(ax)
+    cols = _columns(sweep)
+    art = Artists(ax=ax, x_quantity=_ratio_label(cols), y_quantity="training MSE")
+    agg = _aggregate(cols, method, "train_mse")
+    if agg is None:
+        raise InputError(f"the sweep table has no train_mse rows for method {method!r}")
+    xs, mean, se, reps = agg
+    kw = _line_kw(method, style)
+    (ln,) = ax.plot(xs, mean, label=f"measured ({_METHOD_LABELS.get(method, method)})", **kw)
+    art.lines["measured"] = ln
+    art.traces.append(Trace("measured", "line", xs, mean))
+    if reps > 1:
+        b = ax.fill_between(xs, mean - se, mean + se, color=kw["color"], alpha=0.18, linewidth=0)
+        art.bands["measured"] = b
+        art.traces.append(Trace("measured", "band", xs, mean, mean - se, mean + se))
+    law = None
+    if theory is None and hasattr(sweep, "band_of"):
+        theory = sweep
+    if noise_variance is None and hasattr(sweep, "variances"):
+        noise_variance = getattr(sweep.variances, "noise_variance", None)
+    tc = theory_of(theory)
+    if tc is not None:
+        for key in ("train", "train_mse", "training"):
+            if tc.get(key) is not None:
+                law = (np.asarray(tc["ratio"], float), np.asarray(tc[key], float),
+                       "theory: " + r"$\sigma^2_\mathrm{eff}(1-p'/n)$")
+                break
+    if law is None and noise_variance is not None:
+        nt = cols.get("n_train")
+        n = float(np.asarray(nt, float)[0]) if nt is not None and np.size(nt) else np.inf
+        xs_f = np.linspace(0.0, max(1.0, float(xs.max())), 200)
+        v = float(noise_variance) * np.clip(1.0 - xs_f - 1.0 / n, 0.0, None)
+        law = (xs_f, v, r"law $\sigma^2(1-(p'+1)/n)$, $\sigma^2$ = " + f"{noise_variance:.3g}")
+    if law is not None:
+        (lw,) = ax.plot(law[0], law[1], color=_C["black"], linestyle=(0, (2, 1)), linewidth=0.9,
+                        label=law[2])
+        art.lines["law"] = lw
+        art.traces.append(Trace("law", "line", law[0], law[1]))
+    else:
+        art.notes.append("no noise variance or theory curve: the law is not drawn")
+    art.refs["threshold"] = ax.axvline(1.0, color="#444444", linewidth=0.8)
+    ax.set_ylim(bottom=0)
+    ax.set_xlabel(art.x_quantity)
+    ax.set_ylabel(art.y_quantity)
+    art.texts.append(ax.legend(loc="best", fontsize="x-small", frameon=False))
+    return art
+
+
+def plot_bias_variance(sim, ax=None, *, method: str = "min_norm", **style) -> Artists:
+    """Exact bias² and variance of an estimator against p′/n (simulation, truth known).
+
+    Parameters
+    ----------
+    sim : table with ``ratio``, ``method`` and ``bias2`` (or ``bias_sq``/``bias``)
+        and ``variance`` columns (one row per point × repeat × method).
+    method : str
+        Which estimator's decomposition to show.
+
+    Returns
+    -------
+    Artists
+        ``lines["bias2"]``, ``lines["variance"]``, ``lines["total"]`` (their sum).
+    """
+    ax = _new_axes(ax)
+    cols = _columns(sim)
+    bkey = next((k for k in ("bias2", "bias_sq", "bias_squared", "bias") if k in cols), None)
+    if bkey is None or "variance" not in cols:
+        raise InputError("bias/variance needs 'bias2' and 'variance' columns (simulation output)")
+    art = Artists(ax=ax, x_quantity=_ratio_label(cols), y_quantity="excess risk (log scale)")
+    b = _aggregate(cols, method, bkey)
+    v = _aggregate(cols, method, "variance")
+    if b is None or v is None:
+        raise InputError(f"no bias/variance rows for method {method!r}")
+    kw = dict(linewidth=1.2)
+    kw.update(style)
+    (lb,) = ax.plot(b[0], b[1], color=_C["blue"], linestyle="--", label="bias²", **kw)
+    (lv,) = ax.plot(v[0], v[1], color=_C["vermillion"], linestyle="-.", label="variance", **kw)
+    common, ib, iv = np.intersect1d(b[0], v[0], return_indices=True)
+    tot = b[1][ib] + v[1][iv]
+    (lt,) = ax.plot(common, tot, color=_C["black"], linestyle="-", label="bias² + variance", **kw)
+    art.lines.update(bias2=lb, variance=lv, total=lt)
+    art.traces += [Trace("bias2", "line", b[0], b[1]), Trace("variance", "line", v[0], v[1]),
+                   Trace("total", "line", common, tot)]
+    art.refs["threshold"] = ax.axvline(1.0, color="#444444", linewidth=0.8)
+    ax.set_yscale("log")
+    ax.set_xlabel(art.x_quantity)
+    ax.set_ylabel(art.y_quantity)
+    art.texts.append(ax.legend(loc="best", fontsize="x-small", frameon=False,
+                               title=_METHOD_LABELS.get(method, method),
+                               title_fontsize="x-small"))
+    return art

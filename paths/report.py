@@ -1,0 +1,660 @@
+"""The analysis report: ``report.md`` and a self-contained ``report.html``.
+
+Every number in the report is read from the run's ``summary.json`` record —
+the data summary, the diagnosis, the rules table, the methods paragraph and the
+reproducibility block — so the report can never disagree with the record.
+Quantities the text needs that the path record does not hold directly (the
+chosen rule, the grid range, the shrinkage fraction at the choice) are derived
+once by :func:`report_numbers` and stored in the record under ``"report"``
+before it is written.
+
+The HTML file inlines the figures as SVG and carries its own CSS: no network
+access, no scripts, one file to archive or e-mail.
+"""
+from __future__ import annotations
+
+import html
+import math
+import re
+from dataclasses import dataclass
+from pathlib import Path
+
+from .output import write_text
+
+__all__ = ["FigureRef", "report_numbers", "diagnosis", "methods_paragraph", "rules_table",
+           "cautions", "render_markdown", "render_html", "write_report", "fmt"]
+
+RULE_NAMES = {
+    "gcv": "minimum generalized cross-validation (GCV; Golub, Heath & Wahba 1979)",
+    "loo": "minimum exact leave-one-out error (LOO)",
+    "cv": "minimum K-fold cross-validation error",
+    "one_se": "the one-standard-error rule on K-fold cross-validation (Breiman et al. 1984)",
+    "one-se": "the one-standard-error rule on K-fold cross-validation (Breiman et al. 1984)",
+    "hkb": "the Hoerl–Kennard–Baldwin (1975) constant",
+    "lw": "the Lawless–Wang (1976) constant",
+    "isotropic": "the isotropic random-matrix plug-in (Dobriban & Wager 2018)",
+    "df": "a target effective degrees of freedom",
+    "fraction": "a target shrinkage fraction of the min-norm coefficient norm",
+    "test": "minimum test error (an oracle: it looks at the test rows)",
+}
+SHORT = {"gcv": "GCV", "loo": "LOO", "cv": "K-fold CV", "one_se": "one-SE", "one-se": "one-SE",
+         "hkb": "HKB", "lw": "LW", "isotropic": "isotropic", "df": "target df",
+         "fraction": "target fraction", "test": "test (oracle)"}
+_PREFERENCE = ("cv", "one_se", "one-se", "loo", "gcv")
+
+
+def fmt(v, digits: int = 4) -> str:
+    """The one number format of the report: ``digits`` significant digits (``n/a`` for None)."""
+    if v is None:
+        return "n/a"
+    if isinstance(v, bool):
+        return str(v)
+    if isinstance(v, int):
+        return str(v)
+    v = float(v)
+    if not math.isfinite(v):
+        return "n/a"
+    return f"{v:.{digits}g}"
+
+
+def _first(v):
+    """First target's value of a per-target list (or the value itself)."""
+    while isinstance(v, (list, tuple)):
+        if not v:
+            return None
+        v = v[0]
+    return v
+
+
+@dataclass(frozen=True)
+class FigureRef:
+    """A figure for the report: its name, caption, SVG text (inlined) and image file (markdown)."""
+
+    name: str
+    caption: str
+    svg: str
+    image: str
+
+
+# ------------------------------------------------------------------ numbers
+def _chosen_rule(summary: dict) -> str:
+    sel = {k: v for k, v in (summary.get("selected") or {}).items()
+           if isinstance(v, dict) and v.get("lambda") is not None}
+    rule = summary.get("reported") or summary.get("rule")
+    if isinstance(rule, dict):
+        rule = rule.get("name") or rule.get("rule")
+    if isinstance(rule, str):
+        key = rule.split("=")[0].replace("-", "_")
+        for cand in (rule, key, key.replace("_", "-")):
+            if cand in sel:
+                return cand
+    for rule in _PREFERENCE:
+        if rule in sel:
+            return rule
+    real = [r for r in sel if r != "test"]
+    if real:
+        return real[0]
+    raise ValueError("summary has no selected penalty")
+
+
+def report_numbers(summary: dict) -> dict:
+    """The derived quantities the report states, computed from the summary record itself.
+
+    Returns a JSON-serializable dict (stored as ``summary["report"]``): the
+    chosen ``rule``, its ``lambda``, ``df``, ``index``, ``fraction`` (norm of
+    the coefficients at the choice over the min-norm norm, standardized scale),
+    ``criterion`` and ``criterion_value``, ``est_mse``/``est_se`` (the rule's own
+    estimate when the selection record has one, else the criterion value with no
+    SE), ``test_mse`` at the choice, the grid's size and range (``n_lambdas``,
+    ``lambda_min``, ``lambda_max``, ``df_min``, ``df_max``), and ``cv`` (the
+    K-fold scheme, when cross-validation ran).
+    """
+    rule = _chosen_rule(summary)
+    sel = summary["selected"][rule]
+    lams = summary["lambdas"]
+    dfs = summary["df"]
+    idx = sel.get("index")
+    if idx is None:
+        idx = min(range(len(lams)), key=lambda i: abs(math.log(lams[i]) - math.log(sel["lambda"])))
+    norms = summary.get("coef_norm") or []
+    mn_norm = _first((summary.get("min_norm") or {}).get("coef_norm"))
+    fraction = _first(sel.get("fraction"))
+    if fraction is None and norms and mn_norm:
+        fraction = _first(norms[idx]) / mn_norm
+    crit_key = {"gcv": "gcv", "loo": "loo_mse", "test": "test_mse"}.get(rule)
+    crit_value = _first(sel.get("value"))
+    if crit_value is None and crit_key and summary.get(crit_key) is not None:
+        crit_value = _first(summary[crit_key][idx])
+    est_mse = _first(sel.get("est_mse"))
+    est_se = _first(sel.get("est_se"))
+    sources = {"cv": "K-fold cross-validation at the chosen penalty",
+               "loo": "exact leave-one-out at the chosen penalty",
+               "gcv": "generalized cross-validation at the chosen penalty"}
+    est_from = sources.get(sel.get("est_source"), "the selection rule's estimate") \
+        if est_mse is not None else None
+    if est_mse is None:
+        if summary.get("loo_mse") is not None:
+            est_mse, est_from = _first(summary["loo_mse"][idx]), "leave-one-out MSE at the choice"
+        elif crit_value is not None:
+            est_mse, est_from = crit_value, "the criterion at the choice"
+    test = summary.get("test_mse")
+    cv = summary.get("cv") if isinstance(summary.get("cv"), dict) else None
+    out = {
+        "rule": rule, "lambda": float(sel["lambda"]), "df": float(_first(sel["df"])),
+        "index": int(idx), "fraction": None if fraction is None else float(fraction),
+        "criterion": crit_key, "criterion_value": crit_value,
+        "est_mse": est_mse, "est_se": est_se, "est_from": est_from,
+        "test_mse": None if test is None else _first(test[idx]),
+        "n_lambdas": len(lams), "lambda_min": min(lams), "lambda_max": max(lams),
+        "df_min": min(dfs), "df_max": max(dfs),
+        "cv": None if cv is None else {k: cv.get(k) for k in
+                                       ("n_folds", "repeats", "scheme", "seed", "scaling")
+                                       if k in cv},
+    }
+    return out
+
+
+def _numbers(summary: dict) -> dict:
+    return summary.get("report") or report_numbers(summary)
+
+
+# ------------------------------------------------------------------ text
+def data_summary(summary: dict) -> list:
+    """(label, value) rows of the data summary."""
+    rows = [("samples n (training)", fmt(summary["n_samples"])),
+            ("features p", fmt(summary["n_features"])),
+            ("p/n", fmt(summary["p_over_n"])),
+            ("numerical rank", f"{fmt(summary['rank'])} (tolerance {fmt(summary.get('rank_tol'))})"),
+            ("condition number", fmt(summary["condition_number"]))]
+    if summary.get("n_test"):
+        rows.append(("test rows", fmt(summary["n_test"])))
+    const = summary.get("constant_features") or []
+    rows.append(("constant columns (left out)", ", ".join(const[:10]) + (" …" if len(const) > 10
+                                                                        else "") if const
+                 else "none"))
+    notes = summary.get("data_notes") or []
+    rows.append(("missing / dropped columns", "; ".join(map(str, notes)) if notes else "none reported"))
+    rows.append(("scaling", "centered and standardized (population SD)" if summary.get("standardize")
+                 else "centered only"))
+    rows.append(("solver", f"{summary.get('solver')} ({summary.get('solver_reason')})"))
+    if summary.get("source"):
+        rows.append(("source", str(summary["source"])))
+    return rows
+
+
+def diagnosis(summary: dict) -> list:
+    """Plain-words statements: threshold position, conditioning, what the min-norm fit does."""
+    n, p, g = summary["n_samples"], summary["n_features"], summary["p_over_n"]
+    rank, cond = summary["rank"], summary["condition_number"]
+    out = []
+    if g < 0.5:
+        where = (f"well below the interpolation threshold (p/n = {fmt(g)}): least squares is "
+                 "determined, and shrinkage mainly trades a little bias for less variance")
+    elif g < 0.9:
+        where = (f"approaching the interpolation threshold (p/n = {fmt(g)}): the smallest "
+                 "singular values are shrinking and the least-squares variance is growing")
+    elif g <= 1.1:
+        where = (f"at the interpolation threshold (p/n = {fmt(g)}): the smallest singular values "
+                 "are near zero, so the unpenalized fit's test error spikes; shrinkage is essential")
+    elif g < 3:
+        where = (f"past the interpolation threshold (p/n = {fmt(g)}): there are more features than "
+                 "samples, least squares is not unique, and the min-norm fit interpolates")
+    else:
+        where = (f"far past the interpolation threshold (p/n = {fmt(g)}): many more features than "
+                 "samples; only shrinkage (or the implicit shrinkage of the min-norm fit) makes "
+                 "the problem well posed")
+    out.append(f"The data sit {where}.")
+    if cond < 1e2:
+        c = "well conditioned"
+    elif cond < 1e6:
+        c = "moderately ill-conditioned"
+    elif cond < 1e10:
+        c = "ill-conditioned"
+    else:
+        c = "severely ill-conditioned"
+    out.append(f"The centered design is {c}: condition number {fmt(cond)} over its {fmt(rank)} "
+               "non-zero singular values (the spectrum figure shows how they spread).")
+    mn = summary.get("min_norm") or {}
+    tr0, te0, loo0 = (_first(mn.get(k)) for k in ("train_mse", "test_mse", "loo_mse"))
+    m = n - (1 if summary.get("fit_intercept", True) else 0)
+    if rank >= m:
+        what = (f"interpolates the training data (training MSE {fmt(tr0)}, zero up to rounding), "
+                "so its training error says nothing about its accuracy")
+    else:
+        what = (f"is the least-squares fit on the {fmt(rank)}-dimensional column span "
+                f"(training MSE {fmt(tr0)})")
+    r = _numbers(summary)
+    tail = f"; its leave-one-out MSE is {fmt(loo0)}"
+    if r.get("est_mse") is not None:
+        tail += f" against {fmt(r['est_mse'])} at the chosen penalty"
+    if te0 is not None and r.get("test_mse") is not None:
+        tail += f", and its test MSE {fmt(te0)} against {fmt(r['test_mse'])}"
+    out.append(f"The min-norm fit (lambda -> 0+) {what}{tail}.")
+    return out
+
+
+def rules_table(summary: dict):
+    """``(header, rows)`` of every selection rule in the record (formatted strings)."""
+    header = ["rule", "lambda", "df", "shrinkage fraction", "criterion / est. MSE", "SE",
+              "test MSE at choice"]
+    rows = []
+    test = summary.get("test_mse")
+    norms = summary.get("coef_norm") or []
+    mn_norm = _first((summary.get("min_norm") or {}).get("coef_norm"))
+    chosen = _numbers(summary)["rule"]
+    for rule, sel in (summary.get("selected") or {}).items():
+        idx = sel.get("index")
+        frac = _first(sel.get("fraction"))
+        if frac is None and idx is not None and norms and mn_norm:
+            frac = _first(norms[idx]) / mn_norm
+        est = _first(sel.get("est_mse"))
+        if est is None:
+            est = _first(sel.get("value"))
+        tm = _first(test[idx]) if test is not None and idx is not None else None
+        name = SHORT.get(rule, rule) + (" (reported)" if rule == chosen else "")
+        rows.append([name, fmt(sel.get("lambda")), fmt(_first(sel.get("df"))), fmt(frac), fmt(est),
+                     fmt(_first(sel.get("est_se"))), fmt(tm)])
+    mn = summary.get("min_norm") or {}
+    rows.append(["min-norm (lambda -> 0+)", "0", fmt(mn.get("df")), "1", fmt(_first(mn.get("loo_mse"))),
+                 "n/a", fmt(_first(mn.get("test_mse")))])
+    return header, rows
+
+
+def methods_paragraph(summary: dict) -> str:
+    """A ready methods paragraph, every number from the summary record."""
+    r = _numbers(summary)
+    rule = r["rule"]
+    std = ("centered and scaled to unit population standard deviation"
+           if summary.get("standardize") else "centered")
+    parts = [
+        f"We fitted ridge regression to n = {fmt(summary['n_samples'])} samples and "
+        f"p = {fmt(summary['n_features'])} features (p/n = {fmt(summary['p_over_n'])}), with the "
+        f"features {std} and an unpenalized intercept. Penalty convention: "
+        f"{summary['penalty_convention']}.",
+        f"The whole path was computed from one singular value decomposition of the centered "
+        f"design (numerical rank {fmt(summary['rank'])}, condition number "
+        f"{fmt(summary['condition_number'])}) over a grid of {fmt(r['n_lambdas'])} penalties, "
+        f"log-spaced from lambda = {fmt(r['lambda_min'])} to {fmt(r['lambda_max'])} "
+        f"(effective degrees of freedom {fmt(r['df_min'])} to {fmt(r['df_max'])}, intercept "
+        "included).",
+    ]
+    scheme = ""
+    cv = r.get("cv")
+    if cv and rule in ("cv", "one_se", "one-se"):
+        bits = []
+        if cv.get("n_folds") is not None:
+            bits.append(f"{fmt(cv['n_folds'])}-fold")
+        if cv.get("scheme"):
+            bits.append(str(cv["scheme"]))
+        if cv.get("repeats") is not None:
+            bits.append(f"{fmt(cv['repeats'])} repetition(s)")
+        if cv.get("seed") is not None:
+            bits.append(f"seed {fmt(cv['seed'])}")
+        scheme = " (cross-validation: " + ", ".join(bits) + ")"
+    parts.append(f"The penalty was chosen by {RULE_NAMES.get(rule, rule)}{scheme}: "
+                 f"lambda = {fmt(r['lambda'])}, with {fmt(r['df'])} effective degrees of freedom"
+                 + (f" and a coefficient norm {fmt(r['fraction'])} times that of the "
+                    "minimum-norm fit (standardized scale)" if r.get("fraction") is not None
+                    else "") + ".")
+    if r.get("est_mse") is not None:
+        se = (f" (standard error {fmt(r['est_se'])})" if r.get("est_se") is not None
+              else " (no standard error is available for this estimate)")
+        parts.append(f"The estimated prediction error at this penalty is {fmt(r['est_mse'])}"
+                     f"{se}, from {r['est_from']}; it is optimistic, because the penalty was "
+                     "chosen on the same data.")
+    if r.get("test_mse") is not None and summary.get("n_test"):
+        parts.append(f"On {fmt(summary['n_test'])} held-out test rows, not used for fitting or "
+                     f"selection, the mean squared error at the grid penalty nearest the choice "
+                     f"was {fmt(r['test_mse'])}.")
+    vers = summary.get("versions") or {}
+    if vers.get("paths"):
+        parts.append(f"Computations used paths {vers['paths']} with numpy {vers.get('numpy')} and "
+                     f"scipy {vers.get('scipy')}.")
+    return " ".join(parts)
+
+
+def cautions(summary: dict) -> list:
+    out = [
+        "A penalty chosen on the data makes the chosen model's in-sample criteria (GCV, "
+        "leave-one-out, K-fold CV at the minimum) optimistic; the minimum of a noisy curve is "
+        "biased low.",
+        "An honest error estimate needs a held-out test set that played no part in fitting or "
+        "selection, or nested cross-validation.",
+        "Results that feed decisions about people — clinical, credit, safety — need review by "
+        "domain experts, checks for bias across groups, and validation on data from the setting "
+        "where they will be used.",
+    ]
+    if not summary.get("n_test"):
+        out.insert(2, "This run had no test set: every error in this report is estimated from the "
+                   "training rows.")
+    if summary.get("synthetic"):
+        out.append("The data in this run are synthetic (generated by seeded code in paths).")
+    return out
+
+
+def reproducibility(summary: dict) -> list:
+    """(label, value) rows: command line, versions, input hashes, seeds."""
+    rows = [("command line", str(summary.get("command_line", "n/a")))]
+    for k, v in (summary.get("versions") or {}).items():
+        rows.append((f"version: {k}", str(v)))
+    sha = summary.get("input_sha256") or {}
+    if sha:
+        for k, v in sha.items():
+            rows.append((f"SHA-256 of {k}", str(v)))
+    else:
+        rows.append(("input", "generated in memory (no input file)"))
+    seeds = []
+    split = summary.get("split") or {}
+    if isinstance(split, dict) and split.get("seed") is not None:
+        seeds.append(f"holdout split: {split['seed']}")
+    cv = (_numbers(summary).get("cv") or {})
+    if cv.get("seed") is not None:
+        seeds.append(f"cross-validation folds: {cv['seed']}")
+    gen = summary.get("generator") or {}
+    if isinstance(gen, dict) and gen.get("seed") is not None:
+        seeds.append(f"data generator: {gen['seed']}")
+    rows.append(("seeds", "; ".join(seeds) if seeds else "none used"))
+    return rows
+
+
+# ------------------------------------------------------------------ rendering
+def _title(summary) -> str:
+    return summary.get("title") or f"Ridge path report: {summary.get('source') or 'data'}"
+
+
+def render_markdown(summary: dict, figures=()) -> str:
+    """The report as Markdown (figures linked as image files next to it)."""
+    L = [f"# {_title(summary)}", ""]
+    if summary.get("description"):
+        L += [str(summary["description"]), ""]
+    L += ["## Data", "", "| quantity | value |", "|---|---|"]
+    L += [f"| {a} | {_md(b)} |" for a, b in data_summary(summary)]
+    L += ["", "## Diagnosis", ""] + [f"- {s}" for s in diagnosis(summary)]
+    h, rows = rules_table(summary)
+    L += ["", "## Selection rules", "", "| " + " | ".join(h) + " |", "|" + "---|" * len(h)]
+    L += ["| " + " | ".join(map(_md, r)) + " |" for r in rows]
+    if figures:
+        L += ["", "## Figures", ""]
+        for f in figures:
+            L += [f"![{f.name}]({f.image})", "", f"*{f.caption}*", ""]
+    L += ["", "## Methods paragraph", "", methods_paragraph(summary), "",
+          "## Cautions", ""] + [f"- {c}" for c in cautions(summary)]
+    L += ["", "## Reproducibility", "", "| item | value |", "|---|---|"]
+    L += [f"| {a} | `{_md(b)}` |" for a, b in reproducibility(summary)]
+    return "\n".join(L) + "\n"
+
+
+def _md(s) -> str:
+    return str(s).replace("|", "\\|").replace("\n", " ")
+
+
+_CSS = """
+body{font-family:system-ui,-apple-system,'Segoe UI',Roboto,'DejaVu Sans',sans-serif;max-width:60rem;
+margin:2rem auto;padding:0 1rem;color:#111;line-height:1.45;background:#fff}
+h1{font-size:1.6rem}h2{font-size:1.2rem;border-bottom:1px solid #ddd;padding-bottom:.2rem;margin-top:2rem}
+table{border-collapse:collapse;margin:.5rem 0;font-size:.9rem}
+td,th{border:1px solid #ccc;padding:.25rem .5rem;text-align:left;vertical-align:top}
+th{background:#f3f3f3}td.num{text-align:right;font-variant-numeric:tabular-nums}
+figure{margin:1.5rem 0;padding:0}figure svg{max-width:100%;height:auto;display:block}
+figcaption{font-size:.9rem;color:#333;margin-top:.3rem}
+.methods{background:#f7f7f2;border-left:4px solid #0072B2;padding:.6rem 1rem}
+.caution{border-left:4px solid #D55E00;padding-left:1rem}
+code{font-size:.85rem;word-break:break-all}
+"""
+
+
+def _svg_inline(svg: str, name: str) -> str:
+    svg = re.sub(r"<\?xml[^>]*\?>", "", svg)
+    svg = re.sub(r"<!DOCTYPE[^>]*>", "", svg, flags=re.S)
+    svg = re.sub(r"<!--.*?-->", "", svg, count=1, flags=re.S)
+    return svg.replace("<svg ", f'<svg data-figure="{html.escape(name)}" role="img" '
+                       f'aria-label="{html.escape(name)}" ', 1).strip()
+
+
+def render_html(summary: dict, figures=()) -> str:
+    """The report as one self-contained HTML page (inline SVG figures, inline CSS, no scripts)."""
+    e = html.escape
+
+    def table(rows, header=None, cls=""):
+        out = ['<table%s>' % (f' class="{cls}"' if cls else "")]
+        if header:
+            out.append("<tr>" + "".join(f"<th>{e(h)}</th>" for h in header) + "</tr>")
+        for r in rows:
+            out.append("<tr>" + "".join(f"<td>{e(str(c))}</td>" for c in r) + "</tr>")
+        out.append("</table>")
+        return "\n".join(out)
+
+    B = ["<!DOCTYPE html>", '<html lang="en"><head><meta charset="utf-8">',
+         '<meta name="viewport" content="width=device-width, initial-scale=1">',
+         f"<title>{e(_title(summary))}</title>", f"<style>{_CSS}</style></head><body>",
+         f"<h1>{e(_title(summary))}</h1>"]
+    if summary.get("description"):
+        B.append(f"<p>{e(str(summary['description']))}</p>")
+    B += ["<h2>Data</h2>", table(data_summary(summary), ["quantity", "value"])]
+    B += ["<h2>Diagnosis</h2>", "<ul>"] + [f"<li>{e(s)}</li>" for s in diagnosis(summary)] + ["</ul>"]
+    h, rows = rules_table(summary)
+    B += ["<h2>Selection rules</h2>", table(rows, h)]
+    if figures:
+        B.append("<h2>Figures</h2>")
+        for f in figures:
+            B.append(f'<figure id="fig-{e(f.name)}">{_svg_inline(f.svg, f.name)}'
+                     f"<figcaption><b>{e(f.name)}.</b> {e(f.caption)}</figcaption></figure>")
+    B += ["<h2>Methods paragraph</h2>", f'<p class="methods">{e(methods_paragraph(summary))}</p>',
+          "<h2>Cautions</h2>", '<ul class="caution">']
+    B += [f"<li>{e(c)}</li>" for c in cautions(summary)] + ["</ul>"]
+    B += ["<h2>Reproducibility</h2>",
+          table([(a, b) for a, b in reproducibility(summary)], ["item", "value"])]
+    B.append("</body></html>")
+    return "\n".join(B) + "\n"
+
+
+def write_report(out_dir, summary: dict, figures=()) -> list:
+    """Write ``report.md`` and ``report.html`` into ``out_dir`` (atomically); returns the paths."""
+    out = Path(out_dir)
+    return [write_text(out / "report.md", render_markdown(summary, figures)),
+            write_text(out / "report.html", render_html(summary, figures))]
+
+
+# ------------------------------------------------------------------ threshold sweeps
+def _minmax(v):
+    vals = [x for x in (v or []) if x is not None]
+    return (min(vals), max(vals)) if vals else (None, None)
+
+
+def threshold_data_summary(summary: dict) -> list:
+    """(label, value) rows for a sweep's ``threshold.json`` record."""
+    lo, hi = _minmax(summary.get("ratio"))
+    plo, phi = _minmax(summary.get("n_features"))
+    rows = [("sweep over", str(summary.get("over"))), ("nesting order", str(summary.get("order"))),
+            ("training rows n", fmt(summary.get("n_train"))), ("test rows", fmt(summary.get("n_test"))),
+            ("features available", fmt(summary.get("n_features_total"))),
+            ("points x repeats", f"{fmt(summary.get('points'))} x {fmt(summary.get('repeats'))}"),
+            ("features in the model p'", f"{fmt(plo)} to {fmt(phi)}"),
+            ("ratio p'/n", f"{fmt(lo)} to {fmt(hi)}"),
+            ("noise variance", f"{fmt(summary.get('noise_variance'))} "
+                               f"({summary.get('noise_variance_estimator')})"),
+            ("signal variance", f"{fmt(summary.get('signal_variance'))} "
+                                f"({summary.get('signal_variance_estimator')})")]
+    if summary.get("source"):
+        rows.append(("source", str(summary["source"])))
+    return rows
+
+
+def threshold_diagnosis(summary: dict) -> list:
+    peak = summary.get("peak") or {}
+    best = summary.get("best_ridge") or {}
+    out = [f"The min-norm (least-squares) test error peaks at p'/n = {fmt(peak.get('ratio'))} "
+           f"({fmt(peak.get('n_features'))} features, {fmt(peak.get('n_train'))} training rows) "
+           f"with mean test MSE {fmt(peak.get('test_mse'))}: the interpolation threshold, where "
+           "the smallest singular value of the design collapses toward zero."]
+    if best:
+        out.append(f"The best usable ridge curve ({best.get('method')}) reaches a mean test MSE of "
+                   f"{fmt(summary.get('best_ridge_test_mse'))} (at p'/n = {fmt(best.get('ratio'))}); "
+                   "a tuned penalty removes the spike instead of dropping features.")
+    th = summary.get("theory") or {}
+    if th:
+        out.append(("The isotropic theory curves (Hastie et al. 2022; Dobriban & Wager 2018) use "
+                    f"sigma^2 and r^2 from {th.get('source')}" + (f"; {th.get('note')}"
+                                                                  if th.get("note") else "")
+                    + "." + ("" if th.get("applies", True) else
+                             " They are not expected to describe this sweep.")))
+    if summary.get("best_oracle_ridge_test_mse") is not None:
+        out.append(f"The oracle ridge (penalty chosen on the test rows, not a usable rule) "
+                   f"bounds what tuning can achieve: {fmt(summary['best_oracle_ridge_test_mse'])}.")
+    return out
+
+
+def threshold_methods(summary: dict) -> str:
+    plo, phi = _minmax(summary.get("n_features"))
+    lo, hi = _minmax(summary.get("ratio"))
+    over = summary.get("over")
+    grow = (f"the number of features p' from {fmt(plo)} to {fmt(phi)}" if over == "features"
+            else f"the number of training rows from {fmt(min(summary.get('n_train_points') or [0]))} "
+                 f"to {fmt(max(summary.get('n_train_points') or [0]))}")
+    parts = [
+        f"We swept {grow} (ratio p'/n from {fmt(lo)} to {fmt(hi)}, {fmt(summary.get('points'))} "
+        f"points, {summary.get('order')} order, {fmt(summary.get('repeats'))} repeat(s), seed "
+        f"{fmt(summary.get('seed'))}) with {fmt(summary.get('n_train'))} training and "
+        f"{fmt(summary.get('n_test'))} test rows.",
+        "At every point we fitted the minimum-norm least-squares solution, ridge at a fixed "
+        f"penalty ({summary.get('ridge_fixed_rule')}), ridge at the penalty minimizing GCV "
+        f"({summary.get('ridge_gcv_grid')}) and, as an oracle bound, ridge at the penalty best on "
+        "the test rows, each from one factorization of that point's design. Penalty convention: "
+        "minimize ||y - b0 - X beta||^2 + lambda ||beta||^2 on the centered"
+        + (", standardized" if summary.get("standardize", True) else "")
+        + " design, intercept unpenalized.",
+        f"Bands are the {summary.get('band')}.",
+    ]
+    th = summary.get("theory")
+    if th:
+        parts.append(f"Theory curves use noise variance {fmt(summary.get('noise_variance'))} and "
+                     f"signal variance {fmt(summary.get('signal_variance'))} "
+                     f"({summary.get('noise_variance_estimator')}).")
+    return " ".join(parts)
+
+
+def render_threshold_html(summary: dict, figures=()) -> str:
+    """Self-contained HTML report of a threshold sweep (every number from ``threshold.json``)."""
+    e = html.escape
+
+    def table(rows, header):
+        return "\n".join(["<table>", "<tr>" + "".join(f"<th>{e(h)}</th>" for h in header) + "</tr>"]
+                         + ["<tr>" + "".join(f"<td>{e(str(c))}</td>" for c in r) + "</tr>"
+                            for r in rows] + ["</table>"])
+
+    title = summary.get("title") or "Interpolation threshold report"
+    B = ["<!DOCTYPE html>", '<html lang="en"><head><meta charset="utf-8">',
+         '<meta name="viewport" content="width=device-width, initial-scale=1">',
+         f"<title>{e(title)}</title>", f"<style>{_CSS}</style></head><body>", f"<h1>{e(title)}</h1>"]
+    if summary.get("description"):
+        B.append(f"<p>{e(str(summary['description']))}</p>")
+    B += ["<h2>Sweep</h2>", table(threshold_data_summary(summary), ["quantity", "value"]),
+          "<h2>Diagnosis</h2>", "<ul>"] + [f"<li>{e(s)}</li>" for s in threshold_diagnosis(summary)]
+    B.append("</ul>")
+    if figures:
+        B.append("<h2>Figures</h2>")
+        for f in figures:
+            B.append(f'<figure id="fig-{e(f.name)}">{_svg_inline(f.svg, f.name)}'
+                     f"<figcaption><b>{e(f.name)}.</b> {e(f.caption)}</figcaption></figure>")
+    B += ["<h2>Methods paragraph</h2>", f'<p class="methods">{e(threshold_methods(summary))}</p>',
+          "<h2>Cautions</h2>", '<ul class="caution">']
+    B += [f"<li>{e(c)}</li>" for c in cautions({"n_test": summary.get("n_test"),
+                                                 "synthetic": summary.get("synthetic")})]
+    B += ["</ul>", "<h2>Reproducibility</h2>",
+          table(reproducibility(summary), ["item", "value"]), "</body></html>"]
+    return "\n".join(B) + "\n"
+
+
+def render_threshold_markdown(summary: dict, figures=()) -> str:
+    title = summary.get("title") or "Interpolation threshold report"
+    L = [f"# {title}", ""]
+    if summary.get("description"):
+        L += [str(summary["description"]), ""]
+    L += ["## Sweep", "", "| quantity | value |", "|---|---|"]
+    L += [f"| {a} | {_md(b)} |" for a, b in threshold_data_summary(summary)]
+    L += ["", "## Diagnosis", ""] + [f"- {s}" for s in threshold_diagnosis(summary)]
+    if figures:
+        L += ["", "## Figures", ""]
+        for f in figures:
+            L += [f"![{f.name}]({f.image})", "", f"*{f.caption}*", ""]
+    L += ["", "## Methods paragraph", "", threshold_methods(summary), "", "## Cautions", ""]
+    L += [f"- {c}" for c in cautions({"n_test": summary.get("n_test"),
+                                      "synthetic": summary.get("synthetic")})]
+    L += ["", "## Reproducibility", "", "| item | value |", "|---|---|"]
+    L += [f"| {a} | `{_md(b)}` |" for a, b in reproducibility(summary)]
+    return "\n".join(L) + "\n"
+
+
+def figure_refs(panels_files) -> list:
+    """``[(Panel, files), ...]`` from :func:`paths.figures.save_figure` -> FigureRefs (SVG read back)."""
+    refs = []
+    for panel, files in panels_files:
+        svg = next((f for f in files if f.suffix == ".svg"), None)
+        img = next((f for f in files if f.suffix in (".png", ".svg")), None)
+        text = svg.read_text(encoding="utf-8") if svg is not None else _svg_of(panel)
+        refs.append(FigureRef(name=panel.name, caption=panel.caption, svg=text,
+                              image=img.name if img is not None else ""))
+    return refs
+
+
+def _svg_of(panel) -> str:
+    import io as _io
+
+    import matplotlib as mpl
+
+    buf = _io.StringIO()
+    with mpl.rc_context(panel.rc):
+        panel.figure.savefig(buf, format="svg", metadata={"Date": None})
+    return buf.getvalue()
+
+
+def write_threshold_outputs(result, summary: dict, out_dir, *, formats=("png", "svg"),
+                            width: str = "single", report: bool = True) -> list:
+    """The threshold figure (+ CSV) and, with ``report``, ``report.md``/``report.html``."""
+    from .figures import save_figure, threshold_figure
+
+    out = Path(out_dir)
+    panel = threshold_figure(result, width=width)
+    files = save_figure(panel, out, formats=formats)
+    written = list(files)
+    if report:
+        refs = figure_refs([(panel, files)])
+        written += [write_text(out / "report.md", render_threshold_markdown(summary, refs)),
+                    write_text(out / "report.html", render_threshold_html(summary, refs))]
+    panel.figure.clear()
+    return written
+
+
+def write_explore_outputs(result, summary: dict, out_dir, *, cv=None, formats=("png", "svg"),
+                          width: str = "single", x: str = "log_lambda",
+                          report: bool = True) -> list:
+    """The path and spectrum figures (+ their CSVs) and, with ``report``, the report files.
+
+    ``summary`` must already hold ``summary["report"]`` (:func:`report_numbers`),
+    as written to ``summary.json``; the figures mark the rules of
+    ``summary["selected"]`` and draw K-fold CV (``cv``, a
+    :class:`paths.cv.CVResult`) when given.
+    """
+    from .figures import path_figure, save_figure, spectrum_figure
+
+    out = Path(out_dir)
+    selected = {k: v for k, v in (summary.get("selected") or {}).items()
+                if isinstance(v, dict) and v.get("lambda") is not None}
+    nums = summary.get("report") or report_numbers(summary)
+    chosen = {nums["rule"]: selected[nums["rule"]]} if nums["rule"] in selected else None
+    shown = {k: v for k, v in selected.items() if k in ("gcv", "loo", "cv", "one-se", "one_se",
+                                                         "test", nums["rule"])}
+    panels = [path_figure(result, selected=shown, cv=cv, x=x, width=width),
+              spectrum_figure(result, lam=None if chosen else nums["lambda"], selected=chosen,
+                              width=width)]
+    written, pairs = [], []
+    for panel in panels:
+        files = save_figure(panel, out, formats=formats)
+        written += files
+        pairs.append((panel, files))
+    if report:
+        refs = figure_refs(pairs)
+        written += write_report(out, summary, refs)
+    for panel in panels:
+        panel.figure.clear()
+    return written
