@@ -113,6 +113,11 @@ def explore(
     folds: str = "shuffled",
     cv_scaling: str = "global",
     rule: str | None = None,
+    formats=("png", "svg"),
+    width: str = "single",
+    x_axis: str = "log_lambda",
+    report: bool = True,
+    extra: dict | None = None,
 ) -> ExploreRun:
     """Fit the whole path on ``data`` and write ``path.csv``, ``coefficients.csv``, ``summary.json``.
 
@@ -136,8 +141,21 @@ def explore(
     rule : str, optional
         The reported selection rule (:func:`paths.select.select`); default
         ``"cv"`` with cross-validation, else ``"gcv"``.
+    formats, width, x_axis, report
+        Figures (:mod:`paths.figures`; ``formats`` empty or None: no figures) in these
+        formats and width against ``"log_lambda"`` or ``"df"``, and ``report.md`` /
+        ``report.html`` (:mod:`paths.report`) when ``report``.
+    extra : dict, optional
+        Keys added verbatim to ``summary.json`` (e.g. a case's name and description).
     """
     from ._validation import InputError
+    from .figures import parse_formats, parse_width
+    from .report import report_numbers, write_explore_outputs
+
+    formats = parse_formats(formats) if formats else ()
+    width = parse_width(width)
+    if x_axis not in ("log_lambda", "df"):
+        raise InputError(f"x_axis must be log_lambda or df; got {x_axis!r}")
 
     if test is not None and holdout is not None:
         raise InputError("pass either --test or --holdout, not both")
@@ -189,6 +207,8 @@ def explore(
                        for k in summary["min_norm"]}}
             for j, name in enumerate(data.target_names)
         }
+    summary.update(extra or {})
+    summary["report"] = report_numbers(summary)
     _guard_inputs(out, ("path.csv", "coefficients.csv", "summary.json"), (input_sha256 or {}))
     files = [
         write_csv(out / "path.csv", *_per_target(path_table, result, data.target_names)),
@@ -196,6 +216,9 @@ def explore(
                   *_per_target(coefficient_table, result, data.target_names)),
         write_json(out / "summary.json", summary),
     ]
+    if formats or report:
+        files += write_explore_outputs(result, summary, out, cv=cv_res, formats=formats or (),
+                                       width=width, x=x_axis, report=report)
     return ExploreRun(result=result, summary=summary, out_dir=out, files=files,
                       selection=selection, cv=cv_res)
 
