@@ -217,7 +217,7 @@ class RidgePath:
         lam_arr = as_lambdas(lam)
         gains = _gains(self.factorization.d, lam_arr)  # (r, k)
         proj = self.design.transform(X) @ self.factorization.vt.T  # (n_new, r)
-        pred = self.design.y_mean + np.einsum("ir,rk,rt->ikt", proj, gains, self.uty)
+        pred = self.design.y_mean + _project(proj, gains, self.uty)
         if not self.multi_target:
             pred = pred[..., 0]
         return pred[:, 0] if np.ndim(lam) == 0 else pred
@@ -228,22 +228,42 @@ def _gains(d: np.ndarray, lam: np.ndarray) -> np.ndarray:
     return d[:, None] / (np.square(d)[:, None] + lam[None, :])
 
 
+def _project(proj: np.ndarray, gains: np.ndarray, uty: np.ndarray) -> np.ndarray:
+    """:math:`\\sum_j P_{ij} g_{jk} c_{jt}`, shape (i, k, t), as one matrix product."""
+    r, k = gains.shape
+    t = uty.shape[1]
+    gc = (gains[:, :, None] * uty[:, None, :]).reshape(r, k * t)
+    return (proj @ gc).reshape(proj.shape[0], k, t)
+
+
 def _coefficients(fac: Factorization, uty: np.ndarray, lam: np.ndarray, design: Design):
     """Original-scale coefficients (k, p, t) at penalties ``lam``."""
     gains = _gains(fac.d, lam)
     k, t = lam.size, uty.shape[1]
     p = design.n_features
-    coef = np.zeros((k, p, t))
     act = design.active
     inv_scale = 1.0 / design.x_scale[act]
+    scaled = not np.all(inv_scale == 1.0)  # x * 1.0 == x: skip a pass over k x p
+    if t == 1 and act.all():  # one GEMM straight into the result, scaled in place
+        cj = (gains * uty).T @ fac.vt  # (k, p)
+        if scaled:
+            cj *= inv_scale
+        return cj[:, :, None]
+    coef = np.zeros((k, p, t))
     for j in range(t):
         cj = (gains * uty[:, j:j + 1]).T @ fac.vt  # (k, q)
-        coef[:, act, j] = cj * inv_scale
+        if scaled:
+            cj *= inv_scale
+        coef[:, act, j] = cj
     return coef
 
 
 def _row_blocks(u: np.ndarray, fit_intercept: bool, block: int = _BLOCK_ROWS):
-    """Yield ``(start, stop, rows)`` of the sample-space :math:`U` without forming it."""
+    """Yield ``(start, stop, rows)`` of the sample-space :math:`U` without forming it.
+
+    ``rows`` is a view of ``u`` (no intercept) or of one buffer reused for every
+    block (with an intercept): use it before asking for the next block.
+    """
     m = u.shape[0]
     if not fit_intercept:
         for s in range(0, m, block):
@@ -252,15 +272,23 @@ def _row_blocks(u: np.ndarray, fit_intercept: bool, block: int = _BLOCK_ROWS):
     n = m + 1
     rn = np.sqrt(n)
     colsum = u.sum(axis=0)
-    first = (-colsum / rn)[None, :]
     shift = colsum / (n + rn)
+    buf = np.empty((min(block, n),) + u.shape[1:])
     for s in range(0, n, block):
         e = min(s + block, n)
         lo, hi = max(s - 1, 0), e - 1  # reduced rows for sample rows s..e-1 (row 0 special)
-        rows = u[lo:hi] - shift
+        rows = buf[:e - s]
         if s == 0:
-            rows = np.vstack([first, rows])
+            rows[0] = -colsum / rn
+            np.subtract(u[lo:hi], shift, out=rows[1:])
+        else:
+            np.subtract(u[lo:hi], shift, out=rows)
         yield s, e, rows
+
+
+def _loo_block_rows(r: int, width: int) -> int:
+    """Rows per leave-one-out block: about 4 MiB per (rows x max(r, k t)) array."""
+    return int(min(_BLOCK_ROWS, max(256, (1 << 19) // max(r, width, 1))))
 
 
 def _loo(fac: Factorization, design: Design, uty: np.ndarray, out: np.ndarray,
@@ -284,35 +312,47 @@ def _loo(fac: Factorization, design: Design, uty: np.ndarray, out: np.ndarray,
     d2 = np.square(fac.d)
     n = design.n_samples
     m, r = fac.u.shape
+    k, t = lam.size, uty.shape[1]
     S = lam[None, :] / (d2[:, None] + lam[None, :])  # (r, k)
+    # S scaled by each target's U^T y, side by side: the residuals of every
+    # penalty and target are one matrix product per block, U_b @ SC
+    SC = (S[:, :, None] * uty[:, None, :]).reshape(r, k * t)
     full_row_rank = r == m
     zero = lam == 0
     inv_d2 = d2[-1] / d2  # 1/d_j^2 up to a constant (cancels in a/b): no overflow
-    sum_sq = np.zeros((lam.size, uty.shape[1]))
-    lim_sq = np.zeros(uty.shape[1])
+    sum_sq = np.zeros((k, t))
+    lim_sq = np.zeros(t)
     base = 1.0 - 1.0 / n if design.fit_intercept else 1.0
-    out_blocks = _row_blocks(out, design.fit_intercept)
-    for (s, e, ub), (_, _, ob) in zip(_row_blocks(fac.u, design.fit_intercept), out_blocks):
+    block = _loo_block_rows(r, k * t)
+    sq_buf = np.empty((min(block, n), r))
+    out_blocks = _row_blocks(out, design.fit_intercept, block)
+    for (s, e, ub), (_, _, ob) in zip(_row_blocks(fac.u, design.fit_intercept, block),
+                                      out_blocks):
         if full_row_rank:
             lev_out = np.zeros(e - s)
         else:
             lev_out = np.maximum(base - np.einsum("ir,ir->i", ub, ub), 0.0)
-        den = lev_out[:, None] + np.square(ub) @ S  # (b, k)
-        num = ob[:, None, :] + np.einsum("ir,rk,rt->ikt", ub, S, uty)  # (b, k, t)
+        ub2 = np.square(ub, out=sq_buf[:e - s])
+        den = ub2 @ S  # (b, k)
+        den += lev_out[:, None]
+        num = (ub @ SC).reshape(e - s, k, t)  # (b, k, t)
+        num += ob[:, None, :]
         # min-norm limit
         small = lev_out <= 100 * m * _EPS
-        lim = np.empty((e - s, uty.shape[1]))
+        lim = np.empty((e - s, t))
         with np.errstate(divide="ignore", invalid="ignore"):
             lim[~small] = ob[~small] / lev_out[~small, None]
         if small.any():
             a = ub[small] @ (uty * inv_d2[:, None])
-            b = np.square(ub[small]) @ inv_d2
+            b = ub2[small] @ inv_d2
             lim[small] = a / b[:, None]
         lim_sq += np.sum(np.square(lim), axis=0)
         if zero.any():
             den[:, zero] = 1.0
             num[:, zero, :] = lim[:, None, :]
-        sum_sq += np.sum(np.square(num / den[:, :, None]), axis=0)
+        num /= den[:, :, None]
+        np.square(num, out=num)
+        sum_sq += np.sum(num, axis=0)
     return sum_sq / n, lim_sq / n
 
 
@@ -538,7 +578,7 @@ def fit_path(
     d = fac.d
 
     coef = _coefficients(fac, c, lam, design)  # (k, p, t)
-    intercept = design.y_mean[None, :] - np.einsum("kpt,p->kt", coef, design.x_mean)
+    intercept = design.y_mean[None, :] - np.matmul(design.x_mean, coef)  # (k, t)
     beta0 = (c / d[:, None]).T @ fac.vt  # (t, q) standardized min-norm coefficients
     coef0 = np.zeros((p, Y.shape[1]))
     coef0[design.active] = (beta0 / design.x_scale[design.active]).T
@@ -550,7 +590,7 @@ def fit_path(
         n_test = X_test.shape[0]
         proj = design.transform(X_test) @ fac.vt.T  # (n_test, r), once per test set
         gains = _gains(d, lam)
-        resid = (Yt - design.y_mean)[:, None, :] - np.einsum("ir,rk,rt->ikt", proj, gains, c)
+        resid = (Yt - design.y_mean)[:, None, :] - _project(proj, gains, c)
         test_mse = np.mean(np.square(resid), axis=0)
         resid0 = Yt - design.y_mean - proj @ (c / d[:, None])
         test0 = np.mean(np.square(resid0), axis=0)
