@@ -1,0 +1,443 @@
+"""The ridge path with dask: the design as a ``dask.array``, on one machine or a cluster.
+
+The design and response form one array ``W = [X | Y]`` chunked by rows (one
+column chunk).  Pass 1 maps every row block to its moments
+(:func:`paths.stream.chunk_moments`: mean, centered cross products, extremes)
+and merges them pairwise in a tree (Chan, Golub & LeVeque), or, with
+``accurate=True``, computes the column means and extremes and then
+:func:`dask.array.linalg.tsqr` of the centered array (only its R factor is
+computed).  The p × p result is factored on the client exactly as the
+streaming engine does (:func:`paths.stream.factor_moments`).  Pass 2 maps every
+row block to its leave-one-out (and K-fold) sums with
+:func:`dask.array.map_blocks`, and test rows to their squared errors the same
+way; the blocks' small partial sums are added on the cluster.  Only p × p,
+k × p and k × t objects come back to the client.
+
+A scheduler that does not answer raises :class:`~paths._validation.InputError`
+after ``timeout`` seconds.  A worker lost mid-computation is the scheduler's
+business: its tasks are recomputed elsewhere from the same inputs, so the
+result is unchanged; if the scheduler gives up (every worker gone), the error
+is reported as one line.
+"""
+from __future__ import annotations
+
+import glob as _glob
+import time
+from contextlib import contextmanager
+from dataclasses import replace
+from pathlib import Path
+
+import numpy as np
+
+from ._validation import InputError, as_lambdas
+from .grid import default_grid
+from .stream import (HatPass, Moments, PassInfo, StreamPath, chunk_moments, factor_moments,
+                     merge_moments, path_from_moments)
+
+__all__ = ["dask_path", "connect", "as_dask_design"]
+
+DEFAULT_TIMEOUT = 10.0
+_PARQUET = (".parquet", ".pq", ".parq")
+
+
+@contextmanager
+def connect(scheduler: str | None, timeout: float = DEFAULT_TIMEOUT):
+    """A ``distributed.Client`` for ``scheduler`` (closed on exit), or None for the default.
+
+    Raises
+    ------
+    InputError
+        The scheduler does not answer within ``timeout`` seconds, or the
+        address is malformed.
+    """
+    if scheduler is None:
+        yield None
+        return
+    try:
+        from distributed import Client
+    except ImportError:  # pragma: no cover - optional dependency
+        raise InputError("--scheduler needs dask.distributed; pip install 'ridgepaths[dask]'") from None
+    try:
+        client = Client(scheduler, timeout=timeout, set_as_default=False)
+    except (OSError, TimeoutError) as exc:
+        raise InputError(
+            f"could not connect to the dask scheduler at {scheduler} within {timeout:g} s "
+            f"({type(exc).__name__}); check the address (e.g. tcp://10.0.0.5:8786) and that "
+            "the scheduler is running and reachable"
+        ) from None
+    except (ValueError, TypeError) as exc:
+        raise InputError(f"--scheduler {scheduler!r} is not a valid address ({exc}); "
+                         "use e.g. tcp://10.0.0.5:8786") from None
+    try:
+        yield client
+    finally:
+        client.close()
+
+
+def _npy_stack(files):
+    import dask
+    import dask.array as da
+
+    parts = []
+    for f in files:
+        head = np.load(f, mmap_mode="r")  # reads the header only
+        shape, dtype = head.shape, head.dtype
+        del head
+        if len(shape) != 2:
+            raise InputError(f"{f}: expected a 2-D array (rows, features + target); got shape {shape}")
+        parts.append(da.from_delayed(dask.delayed(np.load)(str(f)), shape=shape, dtype=dtype))
+    widths = {p.shape[1] for p in parts}
+    if len(widths) != 1:
+        raise InputError(f"the .npy stack has arrays of {len(widths)} different widths "
+                         f"({sorted(widths)}); give every file the same columns")
+    return da.concatenate(parts, axis=0)
+
+
+def as_dask_design(data, y=None, *, target=None, features=None, chunk_rows=None):
+    """``(W, feature_names, target_names)``: the design and response as one dask array.
+
+    Parameters
+    ----------
+    data : dask array, numpy array, path or list of ``.npy`` paths
+        A Parquet file or folder, a CSV file (both via :mod:`dask.dataframe`),
+        a ``.npy`` file, a glob or list of ``.npy`` files stacked by rows (the
+        last column is the target), or an array (with ``y``).
+    """
+    import dask.array as da
+
+    if isinstance(data, (list, tuple)) or (isinstance(data, str) and any(ch in data for ch in "*?[")):
+        files = sorted(_glob.glob(data)) if isinstance(data, str) else [str(f) for f in data]
+        if not files:
+            raise InputError(f"{data}: no .npy files match; check the pattern")
+        W = _npy_stack(files)
+        p = W.shape[1] - 1
+        names, tnames = [f"x{j}" for j in range(p)], ["y"]
+    elif isinstance(data, (str, Path)):
+        path = Path(data)
+        if not path.exists():
+            raise InputError(f"{path}: no such file or folder; check the path")
+        if path.suffix.lower() == ".npy":
+            W = _npy_stack([path])
+            p = W.shape[1] - 1
+            names, tnames = [f"x{j}" for j in range(p)], ["y"]
+        else:
+            W, names, tnames = _from_dataframe(path, target, features)
+    else:
+        if y is None:
+            raise InputError("pass the response y with an array design (or a file and --target)")
+        X = data if isinstance(data, da.Array) else da.from_array(
+            np.asarray(data, dtype=np.float64), chunks=(chunk_rows or 65_536, -1))
+        Y = y if isinstance(y, da.Array) else da.from_array(np.asarray(y, dtype=np.float64),
+                                                            chunks=(X.chunks[0],) + (
+                                                                (-1,) if np.ndim(y) == 2 else ()))
+        if X.ndim != 2:
+            raise InputError(f"X must be 2-D (n_samples, n_features); got shape {X.shape}")
+        if Y.ndim == 1:
+            Y = Y[:, None]
+        if Y.shape[0] != X.shape[0]:
+            raise InputError(f"y has {Y.shape[0]} rows but X has {X.shape[0]}; "
+                             "pass one response row per sample")
+        Y = Y.rechunk((X.chunks[0], -1))
+        W = da.concatenate([X.rechunk((X.chunks[0], -1)).astype(np.float64),
+                            Y.astype(np.float64)], axis=1)
+        p = X.shape[1]
+        names = [f"x{j}" for j in range(p)]
+        tnames = ["y"] if Y.shape[1] == 1 else [f"y{j}" for j in range(Y.shape[1])]
+    if chunk_rows is not None:
+        W = W.rechunk((int(chunk_rows), -1))
+    else:
+        W = W.rechunk((W.chunks[0], -1))
+    return W, names, tnames
+
+
+def _from_dataframe(path: Path, target, features):
+    import dask.dataframe as dd
+    import pandas as pd
+
+    from .chunks import _select_columns
+
+    try:
+        if path.is_dir() or path.suffix.lower() in _PARQUET:
+            from .chunks import ParquetRows
+
+            ParquetRows(path, target, features=features)  # schema checks, one line each
+            df = dd.read_parquet(str(path))
+        else:
+            sep = "\t" if path.suffix.lower() in (".tsv", ".tab") else ","
+            df = dd.read_csv(str(path), sep=sep)
+    except InputError:
+        raise
+    except Exception as exc:  # noqa: BLE001 - dask/pyarrow raise many types for bad files
+        raise InputError(f"{path}: could not be read by dask.dataframe "
+                         f"({type(exc).__name__}: {str(exc).splitlines()[0][:120]}); check the file") from None
+    feats, targets = _select_columns([str(c) for c in df.columns], target, features, f"{path}: ")
+    df = df[feats + targets]
+    nonnum = [c for c in feats + targets if not pd.api.types.is_numeric_dtype(df.dtypes[c])]
+    if nonnum:
+        raise InputError(f"{path}: non-numeric column(s): {', '.join(nonnum[:5])}; drop them "
+                         "(--features) or encode them as numbers")
+    W = df.to_dask_array(lengths=True).astype(np.float64)
+    return W, feats, targets
+
+
+def _offsets(chunks):
+    return np.concatenate([[0], np.cumsum(chunks)])[:-1]
+
+
+def _checked_moments(block, start, names, accurate):
+    bad = ~np.isfinite(block)
+    if bad.any():
+        j = int(np.flatnonzero(bad.any(axis=0))[0])
+        i = int(np.flatnonzero(bad[:, j])[0])
+        raise InputError(f"rows {start + 1}-{start + block.shape[0]}: column {names[j]!r} has "
+                         f"{int(bad[:, j].sum())} missing or infinite value(s) (first at data "
+                         f"row {start + i + 1}); remove or impute them")
+    return chunk_moments(np.asarray(block, dtype=np.float64), accurate=accurate)
+
+
+def _tree(items, fn):
+    import dask
+
+    merge = dask.delayed(fn, pure=True)
+    while len(items) > 1:
+        nxt = [merge(items[i], items[i + 1]) for i in range(0, len(items) - 1, 2)]
+        if len(items) % 2:
+            nxt.append(items[-1])
+        items = nxt
+    return items[0]
+
+
+def _moments(W, names, accurate, compute):
+    import dask
+    import dask.array as da
+
+    blocks = W.to_delayed().ravel()
+    starts = _offsets(W.chunks[0])
+    if not accurate:
+        parts = [dask.delayed(_checked_moments, pure=True)(b, int(s), names, False)
+                 for b, s in zip(blocks, starts)]
+        return compute(_tree(parts, merge_moments))[0]
+    # accurate: extremes and means first, then dask's TSQR of the centered array
+    parts = [dask.delayed(_checked_moments, pure=True)(b, int(s), names, False)
+             for b, s in zip(blocks, starts)]
+    summary = _tree(parts, merge_moments)
+    mom = compute(summary)[0]
+    c = W.shape[1]
+    Wc = W - mom.mean
+    rows_min = min(W.chunks[0])
+    if rows_min < c:  # tsqr wants blocks at least as tall as they are wide
+        Wc = Wc.rechunk((max(c, 2 * rows_min), -1))
+    _, R = da.linalg.tsqr(Wc)
+    R = compute(R)[0]
+    return Moments(n=mom.n, mean=mom.mean, m2=None, r=R, lo=mom.lo, hi=mom.hi, absmax=mom.absmax)
+
+
+def _hat_block(block, fit, lam, p, n_folds, fold_seed, block_info=None):
+    start = block_info[0]["array-location"][0][0] if block_info else 0
+    hp = HatPass(fit, lam, n_folds=n_folds, fold_seed=fold_seed)
+    hp.add(start, np.asarray(block, dtype=np.float64), p)
+    return _flatten(hp)[None, :]
+
+
+def _flatten(hp: HatPass) -> np.ndarray:
+    parts = [hp.sum_sq.ravel(), hp.lim_sq.ravel()]
+    if hp.n_folds:
+        parts += [hp.A.ravel(), hp.h.ravel(), hp.ss.ravel(), hp.count.astype(np.float64)]
+    return np.concatenate(parts)
+
+
+def _unflatten(hp: HatPass, vec: np.ndarray) -> None:
+    pos = 0
+
+    def take(a):
+        nonlocal pos
+        out = vec[pos:pos + a.size].reshape(a.shape)
+        pos += a.size
+        return out
+
+    hp.sum_sq = take(hp.sum_sq)
+    hp.lim_sq = take(hp.lim_sq)
+    if hp.n_folds:
+        hp.A, hp.h, hp.ss = take(hp.A), take(hp.h), take(hp.ss)
+        hp.count = np.rint(take(hp.count.astype(np.float64))).astype(np.int64)
+
+
+def _test_block(block, fit, lam, p):
+    from .path import _gains
+
+    des, fac = fit.design, fit.fac
+    t = fit.uty.shape[1]
+    k = lam.size
+    block = np.asarray(block, dtype=np.float64)
+    gains = _gains(fac.d, lam)
+    GC = (gains[:, :, None] * fit.uty[:, None, :]).reshape(fac.rank, -1)
+    proj = des.transform(block[:, :p]) @ fac.vt.T
+    yc = block[:, p:] - des.y_mean
+    res = yc[:, None, :] - (proj @ GC).reshape(-1, k, t)
+    res0 = yc - proj @ (fit.uty / fac.d[:, None])
+    out = np.concatenate([np.einsum("ikt,ikt->kt", res, res).ravel(),
+                          np.einsum("it,it->t", res0, res0), [block.shape[0]]])
+    return out[None, :]
+
+
+def dask_path(
+    data,
+    lambdas=None,
+    *,
+    y=None,
+    target=None,
+    features=None,
+    chunk_rows: int | None = None,
+    accurate: bool = False,
+    scheduler: str | None = None,
+    timeout: float = DEFAULT_TIMEOUT,
+    fit_intercept: bool = True,
+    standardize: bool = True,
+    test=None,
+    y_test=None,
+    n_lambdas: int = 100,
+    rtol: float | None = None,
+    loo: bool = True,
+    cv: int | None = None,
+    cv_seed: int | None = None,
+    progress=None,
+) -> StreamPath:
+    """The ridge path of a design held as a dask array (``engine="dask"``).
+
+    Parameters
+    ----------
+    data : dask array, array, path, or list/glob of ``.npy`` files
+        See :func:`as_dask_design`; with an array, pass ``y``.
+    lambdas : array_like, optional
+        Penalties; default from the spectrum as in :func:`paths.path.fit_path`.
+    chunk_rows : int, optional
+        Rechunk to this many rows per block (default: keep the input's chunks).
+    accurate : bool
+        :func:`dask.array.linalg.tsqr` of the centered design instead of the
+        Gram matrix.
+    scheduler : str, optional
+        Address of a running dask scheduler (``tcp://host:8786``); default: the
+        current client if one is set up, else dask's local threads.
+    timeout : float
+        Seconds to wait for the scheduler.
+    test, y_test : optional
+        Test rows, in any form ``data`` accepts.
+    loo, cv, cv_seed, fit_intercept, standardize, n_lambdas, rtol
+        As in :func:`paths.stream.stream_path`.
+    progress : callable, optional
+        ``progress(label, done, total)`` at the start and end of each pass.
+
+    Returns
+    -------
+    StreamPath
+        With ``engine="dask"``; equal to :func:`paths.stream.stream_path`.
+
+    Raises
+    ------
+    InputError
+        Unreachable scheduler (after ``timeout`` s), bad files or values (with
+        the row range), a computation the cluster could not finish.
+
+    Examples
+    --------
+    >>> import numpy as np, dask.array as da
+    >>> rng = np.random.default_rng(0)
+    >>> X = da.from_array(rng.standard_normal((4000, 5)), chunks=(1000, 5))
+    >>> y = X[:, 0] + 1.0
+    >>> dask_path(X, y=y, lambdas=[1.0, 0.1], loo=False).coef.shape
+    (2, 5)
+    """
+    if cv is not None and (int(cv) != cv or cv < 2):
+        raise InputError(f"cv must be an integer >= 2 (number of folds); got {cv!r}")
+    if chunk_rows is not None and (int(chunk_rows) != chunk_rows or chunk_rows < 1):
+        raise InputError(f"chunk_rows must be a positive integer; got {chunk_rows!r}")
+    if n_lambdas < 1:
+        raise InputError(f"n_lambdas must be at least 1; got {n_lambdas}")
+    lam_user = None if lambdas is None else as_lambdas(lambdas)
+    with connect(scheduler, timeout) as client:
+        def compute(*objs):
+            try:
+                if client is not None:
+                    return client.compute(list(objs), sync=True)
+                import dask
+
+                return dask.compute(*objs)
+            except InputError:
+                raise
+            except Exception as exc:  # noqa: BLE001 - the cluster's failure, reported as one line
+                from distributed import KilledWorker
+                if isinstance(exc, KilledWorker):
+                    raise InputError(f"the dask cluster lost the workers running this "
+                                     f"computation ({exc}); check the workers' memory limits "
+                                     "and logs, then retry") from None
+                raise
+
+        W, names, tnames = as_dask_design(data, y, target=target, features=features,
+                                          chunk_rows=chunk_rows)
+        p = len(names)
+        passes = []
+        label1 = "pass 1/2: moments on the cluster" if (loo or cv) else "pass 1/1: moments"
+        if progress:
+            progress(label1, 0, W.shape[0])
+        t0 = time.perf_counter()
+        mom = _moments(W, names + tnames, accurate, compute)
+        passes.append(PassInfo(label1 + (" (dask tsqr)" if accurate else ""), mom.n,
+                               time.perf_counter() - t0, mom.n * W.shape[1] * 8))
+        if progress:
+            progress(label1, mom.n, mom.n)
+        if fit_intercept and mom.n < 2:
+            raise InputError(f"the data have {mom.n} row; at least 2 samples are needed")
+        fit = factor_moments(mom, p, fit_intercept=fit_intercept, standardize=standardize,
+                             rtol=rtol)
+        fac = replace(fit.fac, solver=fit.fac.solver.replace("stream-", "dask-"))
+        fit = replace(fit, fac=fac)
+        lam = default_grid(fit.fac.d, n_lambdas) if lam_user is None else lam_user
+        loo_mse = loo0 = cvres = None
+        notes = [f"dask engine: {W.numblocks[0]} row blocks"
+                 + (f", scheduler {scheduler}" if scheduler else "")]
+        if loo or cv:
+            label2 = ("pass 2/2: hat diagonals for exact leave-one-out (map_blocks)"
+                      + (f" and {cv}-fold CV" if cv else ""))
+            if progress:
+                progress(label2, 0, mom.n)
+            hp = HatPass(fit, lam, n_folds=cv or 0, fold_seed=cv_seed)
+            width = _flatten(hp).size
+            t0 = time.perf_counter()
+            parts = W.map_blocks(_hat_block, fit, lam, p, cv or 0, cv_seed,
+                                 chunks=((1,) * W.numblocks[0], (width,)), dtype=np.float64,
+                                 meta=np.empty((0, 0)))
+            vec = compute(parts.sum(axis=0))[0]
+            _unflatten(hp, np.asarray(vec))
+            passes.append(PassInfo(label2, mom.n, time.perf_counter() - t0,
+                                   mom.n * W.shape[1] * 8))
+            if progress:
+                progress(label2, mom.n, mom.n)
+            loo_mse, loo0 = hp.loo()
+            if cv:
+                cvres = hp.kfold()
+                notes.append(f"{cv}-fold CV with preprocessing from all rows; "
+                             + (f"hashed shuffle, seed {cv_seed}" if cv_seed is not None
+                                else "contiguous blocks of rows"))
+        test_res = None
+        if test is not None:
+            Wt, tn, _ = as_dask_design(test, y_test, target=target if target is not None else tnames,
+                                       features=names if not hasattr(test, "shape") else None,
+                                       chunk_rows=chunk_rows)
+            if Wt.shape[1] != W.shape[1]:
+                raise InputError(f"the test data have {Wt.shape[1] - len(tnames)} feature "
+                                 f"columns but the training data {p}; pass the same features")
+            k, t = lam.size, fit.uty.shape[1]
+            t0 = time.perf_counter()
+            parts = Wt.map_blocks(_test_block, fit, lam, p,
+                                  chunks=((1,) * Wt.numblocks[0], (k * t + t + 1,)),
+                                  dtype=np.float64, meta=np.empty((0, 0)))
+            vec = np.asarray(compute(parts.sum(axis=0))[0])
+            n_test = int(round(vec[-1]))
+            if n_test == 0:
+                raise InputError("the test data have no rows; pass test rows")
+            test_res = (vec[:k * t].reshape(k, t) / n_test, vec[k * t:k * t + t] / n_test, n_test)
+            passes.append(PassInfo("test rows: test error (map_blocks)", n_test,
+                                   time.perf_counter() - t0, n_test * Wt.shape[1] * 8))
+    return path_from_moments(fit, lam, feature_names=names, loo=loo_mse, loo0=loo0,
+                             test=test_res, cv=cvres, n_folds=cv or 0, engine="dask",
+                             passes=passes, notes=notes)
