@@ -305,6 +305,27 @@ def test_min_norm_loo_against_brute_force_pinv_refits(make_problem):
     assert_allclose(res.min_norm.loo_mse, np.mean(err**2), rtol=1e-9)
 
 
+@pytest.mark.parametrize("shape", [(12, 30), (20, 5)], ids=["p>n", "p<n-rank-deficient"])
+def test_min_norm_loo_without_intercept_against_pinv_refits(shape):
+    """Without an intercept, the lam -> 0+ LOO limit equals the LOO error of
+    numpy ``pinv`` minimum-norm refits on each n - 1 subset (p > n, and p < n
+    with an exactly collinear column); rtol 1e-9 (cond ~ 10, both agree to
+    ~1e-15 measured)."""
+    n, p = shape
+    rng = np.random.default_rng(2)
+    X = rng.standard_normal((n, p))
+    if p < n:
+        X = np.column_stack([X, X[:, 0] + X[:, 1]])
+    y = rng.standard_normal(n)
+    res = fit_path(X, y, [0.0], fit_intercept=False, standardize=False)
+    err = np.empty(n)
+    for i in range(n):
+        k = np.arange(n) != i
+        err[i] = y[i] - X[i] @ (np.linalg.pinv(X[k]) @ y[k])
+    assert_allclose(res.min_norm.loo_mse, np.mean(err**2), rtol=1e-9)
+    assert_allclose(res.loo_mse[0], res.min_norm.loo_mse, rtol=1e-14)
+
+
 @pytest.mark.parametrize("standardize", [False, True], ids=["raw", "std"])
 @pytest.mark.parametrize("shape", [(40, 12), (30, 30), (25, 60)], ids=SHAPE_IDS)
 def test_loo_against_sklearn_ridgecv(make_problem, shape, standardize):
