@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["InputError", "as_design", "as_response", "as_lambdas"]
+__all__ = ["InputError", "as_design", "as_response", "as_lambdas", "check_rows_for_cv"]
 
 
 class InputError(ValueError):
@@ -111,3 +111,31 @@ def as_lambdas(lambdas) -> np.ndarray:
             f"got min {lam.min()!r}, max {lam.max()!r}"
         )
     return lam
+
+
+def check_rows_for_cv(n_rows: int, n_folds, source: str = "", *, fit_intercept: bool = True) -> None:
+    """Refuse K-fold cross-validation that the rows cannot support, naming the file.
+
+    K folds need at least K rows (one per held-out fold) and, with an intercept,
+    at least 2 training rows in every fold's complement: ``n_rows >= max(K, 3)``
+    and ``n_rows - ceil(n_rows / K) >= 2``.
+    """
+    if n_folds is None:
+        return
+    where = f"{source}: " if source else ""
+    K = int(n_folds)
+    if K < 2:
+        return  # not a question of rows: paths.cv reports the valid range
+    need = 2 if fit_intercept else 1
+
+    def ok(k):
+        return 2 <= k <= n_rows and n_rows - (-(-n_rows // k)) >= need
+
+    if not ok(K):
+        valid = [k for k in range(2, min(n_rows, 1000) + 1) if ok(k)]
+        fix = (f"choose --cv between {valid[0]} and {valid[-1]}" if valid
+               else "add rows or drop --cv")
+        raise InputError(
+            f"{where}{n_rows} row(s) are too few for {K}-fold cross-validation (every fold "
+            f"needs a held-out row and {need} training rows); {fix}"
+        )

@@ -127,6 +127,10 @@ class Dataset:
         Groups of design columns that are exact copies of each other (kept).
     drop_missing : {None, "rows", "columns"}
         How missing values were handled.
+    rows : ndarray of int or None
+        Positions (0-based) in the table of the rows kept, when some were dropped;
+        ``None`` when every row was kept.  Use it to align per-row side data
+        (e.g. group labels read from the same file).
     """
 
     X: np.ndarray
@@ -144,6 +148,7 @@ class Dataset:
     constant_columns: list = field(default_factory=list)
     duplicate_columns: list = field(default_factory=list)
     drop_missing: str | None = None
+    rows: np.ndarray | None = None
 
     def record(self) -> dict:
         """The preparation record written to ``summary.json`` (JSON-serializable)."""
@@ -888,6 +893,7 @@ def select(df, target, *, features=None, exclude=None, id_column=None, encode=No
         ids=ids, id_column=id_column, source_columns=list(feats), encoding=encoding,
         dropped_rows=dropped_rows, dropped_columns=dropped_cols, constant_columns=constant,
         duplicate_columns=duplicates, drop_missing=drop_missing,
+        rows=None if keep.all() else np.flatnonzero(keep),
     )
 
 

@@ -161,20 +161,13 @@ def test_bad_sep(tmp_path, good):
 
 
 def test_fewer_rows_than_the_requested_cv(tmp_path):
-    """K-fold CV with more folds than rows is refused at the boundary (issue 3's --cv when
-    the CLI has it; the library's fold maker otherwise)."""
+    """K-fold CV with more folds than the rows allow is refused at the boundary, naming the
+    file and the valid range of --cv."""
     X, y = _good_rows(4, 2)
     f = _csv(tmp_path / "small.csv", X, y)
-    help_text = runner.invoke(app, ["explore", "--help"]).output
-    if "--cv" in help_text:
-        _user_error(["explore", f, "-t", "y", "--cv", "10", "--out", tmp_path / "o"], ["fold"])
-    else:
-        from paths import InputError
-        from paths.cv import make_folds
-
-        with pytest.raises(InputError) as info:
-            make_folds(4, 10)
-        assert "\n" not in str(info.value) and "folds" in str(info.value)
+    _user_error(["explore", f, "-t", "y", "--cv", "10", "--out", tmp_path / "o"],
+                ["small.csv", "10-fold", "--cv between 2 and 4"])
+    assert not (tmp_path / "o").exists() or not any((tmp_path / "o").iterdir())
 
 
 # --------------------------------------------------------------- internal failures

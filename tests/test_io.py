@@ -337,3 +337,61 @@ def test_reader_never_modifies_input(tmp_path):
     load_dataset(f, "y")
     assert sha256_of(f) == before[1]
     assert (f.stat().st_mtime_ns, hashlib.sha256(f.read_bytes()).hexdigest()) == before
+
+
+# ------------------------------------------------------- end to end through the CLI
+
+
+def test_explore_data_options_end_to_end(tmp_path):
+    """`paths explore` with --sep, two --target, --features globs, --exclude, --id,
+    --encode onehot, --drop-missing rows and a reordered test file: the coefficients
+    written per target equal scikit-learn Ridge on the same standardized, one-hot design
+    (pandas.get_dummies); the notes land in summary.json; the inputs are unchanged."""
+    import csv as _csv
+    import json
+
+    from sklearn.linear_model import Ridge
+    from typer.testing import CliRunner
+
+    from paths.cli import app
+
+    rng = np.random.default_rng(12)
+    n = 30
+    frame = pd.DataFrame({
+        "id": [f"r{i}" for i in range(n)],
+        "g_1": rng.standard_normal(n), "g_2": rng.standard_normal(n),
+        "noise": rng.standard_normal(n),
+        "site": rng.choice(["north", "east", "south"], n),
+    })
+    frame["y1"] = frame.g_1 - 2 * frame.g_2 + 0.1 * rng.standard_normal(n)
+    frame["y2"] = frame.g_2 + (frame.site == "east") + 0.1 * rng.standard_normal(n)
+    frame.loc[4, "g_1"] = np.nan
+    train, test = tmp_path / "train.csv", tmp_path / "test.csv"
+    frame.iloc[:24].to_csv(train, sep=";", index=False)
+    frame.iloc[24:, ::-1].assign(extra=1.0).to_csv(test, sep=";", index=False)
+    stamp = {f: (f.stat().st_mtime_ns, sha256_of(f)) for f in (train, test)}
+    out = tmp_path / "out"
+    res = CliRunner().invoke(app, [
+        "explore", str(train), "--sep", ";", "--target", "y1", "--target", "y2",
+        "--features", "g_*,site,noise", "--exclude", "noise", "--id", "id",
+        "--encode", "onehot", "--drop-missing", "rows", "--test", str(test),
+        "--lambdas", "5", "--out", str(out)])
+    assert res.exit_code == 0, res.output
+    assert {f: (f.stat().st_mtime_ns, sha256_of(f)) for f in (train, test)} == stamp
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["targets"] == ["y1", "y2"] and set(summary["by_target"]) == {"y1", "y2"}
+    assert any("reference level 'east' dropped" in s for s in summary["data_notes"])
+    assert summary["data_preparation"]["dropped_rows"] == [6]  # header is line 1
+    with open(out / "coefficients.csv", newline="") as fh:
+        rows = list(_csv.reader(fh))
+    assert rows[0] == ["target", "lambda", "intercept", "g_1", "g_2", "site=north",
+                       "site=south"]
+    kept = frame.iloc[:24].drop(index=4)
+    design = pd.get_dummies(kept[["g_1", "g_2", "site"]], columns=["site"], drop_first=True,
+                            prefix_sep="=", dtype=float).to_numpy()
+    sd = design.std(axis=0)
+    for row in rows[1:]:
+        lam, coef = float(row[1]), np.array(row[3:], dtype=float)
+        sk = Ridge(alpha=lam).fit(design / sd, kept[row[0]].to_numpy())
+        np.testing.assert_allclose(coef, sk.coef_ / sd, rtol=1e-8, atol=1e-12)
+    assert sum(r[0] == "y2" for r in rows[1:]) == 5

@@ -75,3 +75,18 @@ def test_as_response_rejects(bad, n, needle):
 ])
 def test_as_lambdas_rejects(bad, needle):
     assert needle in _msg(as_lambdas, bad)
+
+
+@pytest.mark.parametrize("n,k,ok", [(4, 4, True), (5, 2, True), (3, 3, True), (4, 10, False),
+                                    (2, 2, False), (3, 2, False)])
+def test_check_rows_for_cv(n, k, ok):
+    """K folds need K rows and, with an intercept, 2 training rows outside the largest fold
+    (ceil(n/K) rows, as numpy.array_split makes them)."""
+    from paths._validation import check_rows_for_cv
+
+    largest = max(len(c) for c in np.array_split(np.arange(n), k)) if k <= n else n
+    assert ok == (k <= n and n - largest >= 2)
+    if ok:
+        check_rows_for_cv(n, k, "f.csv")
+    else:
+        assert "f.csv" in _msg(check_rows_for_cv, n, k, "f.csv")

@@ -9,6 +9,7 @@ import typer
 from rich.table import Table
 
 from ..analysis import explore, load_data, read_groups
+from .._validation import check_rows_for_cv
 from .app import command, console
 
 
@@ -174,6 +175,9 @@ def explore_cmd(
         data, target, sep=sep, features=features or None, exclude=exclude or None,
         id_column=id_column, encode=None if encode is Encode.none else encode.value,
         drop_missing=None if drop_missing is None else drop_missing.value)
+    check_rows_for_cv(dataset.X.shape[0], cv, str(data))
+    if group_labels is not None and dataset.rows is not None:  # rows dropped (--drop-missing)
+        group_labels = group_labels[dataset.rows]
     digests = {str(data): digest}
     test_set = None
     if test is not None:
