@@ -1,0 +1,278 @@
+"""Tests for paths.threshold and ``paths threshold`` against numpy, scikit-learn and pandas."""
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+from numpy.testing import assert_allclose
+from sklearn.linear_model import LinearRegression, Ridge
+from typer.testing import CliRunner
+
+from paths import InputError
+from paths.cli import app
+from paths.threshold import (CSV_COLUMNS, METHODS, random_feature_map, sweep_sizes,
+                             threshold_sweep)
+
+
+@pytest.fixture(autouse=True, scope="module")
+def _one_blas_thread():
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(limits=1, user_api="blas"):
+        yield
+
+
+def _data(n=40, p=70, n_test=25, seed=0, scale=True):
+    """Synthetic Gaussian data with unequal column scales and a dense signal."""
+    rng = np.random.default_rng(seed)
+    X = rng.standard_normal((n + n_test, p))
+    if scale:
+        X = X * rng.uniform(0.5, 3.0, p) + rng.uniform(-2, 2, p)
+    beta = rng.standard_normal(p) / np.sqrt(p)
+    y = X @ beta + 0.5 * rng.standard_normal(n + n_test)
+    return X[:n], y[:n], X[n:], y[n:]
+
+
+def _std(Xtr, Xte):
+    mu, sd = Xtr.mean(axis=0), Xtr.std(axis=0)
+    return (Xtr - mu) / sd, (Xte - mu) / sd, mu, sd
+
+
+CASES = [("features", "given"), ("features", "random"), ("features", "screening"),
+         ("samples", "random")]
+
+
+@pytest.mark.parametrize("over,order", CASES)
+def test_min_norm_point_equals_numpy_pinv(over, order):
+    """Each sweep point's min-norm fit equals numpy.linalg.pinv on that subset: the
+    coefficients (original scale) and intercept of pinv on the column-centered,
+    population-SD-scaled subset, and its training and test MSE.  Tolerance 1e-7 relative to
+    the coefficient norm: both are backward stable with error ~ eps * condition number,
+    and the condition number at the threshold is at most ~1e4 here."""
+    Xtr, ytr, Xte, yte = _data(seed=3) if over == "features" else _data(n=60, p=25, seed=3)
+    fits = []
+    res = threshold_sweep(Xtr, ytr, Xte, yte, over=over, order=order,
+                          repeats=2 if order == "random" else 1, seed=5, n_points=15,
+                          on_point=fits.append)
+    assert len(fits) == res.repeats * res.n_features.size
+    j = METHODS.index("min_norm")
+    for pt in fits:
+        rows, cols = pt.rows, pt.columns
+        A, B = Xtr[np.ix_(rows, cols)], Xte[:, cols]
+        mu, sd = A.mean(axis=0), A.std(axis=0)
+        yc = ytr[rows] - ytr[rows].mean()
+        b_std = np.linalg.pinv((A - mu) / sd) @ yc
+        coef = b_std / sd
+        icpt = ytr[rows].mean() - mu @ coef
+        got, got_icpt = pt.coef(0.0)
+        scale = np.linalg.norm(coef) + abs(icpt)
+        assert_allclose(got, coef, atol=1e-7 * scale)
+        assert_allclose(got_icpt, icpt, atol=1e-7 * scale)
+        test = np.mean((yte - icpt - B @ coef) ** 2)
+        train = np.mean((ytr[rows] - icpt - A @ coef) ** 2)
+        assert_allclose(res.test_mse[pt.repeat, pt.index, j], test, rtol=1e-6)
+        assert_allclose(res.train_mse[pt.repeat, pt.index, j], train, atol=1e-9 * np.var(ytr))
+        assert res.rank[pt.repeat, pt.index, j] == np.linalg.matrix_rank(A - mu)
+
+
+def test_ridge_methods_match_scikit_learn_and_explicit_gcv():
+    """ridge_fixed, ridge_gcv and ridge_oracle at their recorded penalties equal
+    scikit-learn Ridge(alpha=lambda) on the standardized subset (train and test MSE, rtol
+    1e-8); the GCV choice minimizes n RSS/(n - tr H)^2 computed from the explicit hat
+    matrix (Golub, Heath & Wahba 1979) over the documented grid; the oracle's test MSE is
+    the grid minimum, so no grid penalty (min-norm included) beats it."""
+    Xtr, ytr, Xte, yte = _data(seed=4)
+    fits = []
+    res = threshold_sweep(Xtr, ytr, Xte, yte, n_points=9, ridge_lambda=3.0,
+                          on_point=fits.append)
+    n = Xtr.shape[0]
+    for pt in fits[::2]:
+        A, Bt, mu, sd = _std(Xtr[:, pt.columns], Xte[:, pt.columns])
+        for meth in ("ridge_fixed", "ridge_gcv", "ridge_oracle"):
+            j = METHODS.index(meth)
+            lam = res.lam[0, pt.index, j]
+            if lam == 0:
+                continue
+            model = Ridge(alpha=lam, solver="svd").fit(A, ytr)
+            assert_allclose(res.test_mse[0, pt.index, j],
+                            np.mean((yte - model.predict(Bt)) ** 2), rtol=1e-8)
+            assert_allclose(res.train_mse[0, pt.index, j],
+                            np.mean((ytr - model.predict(A)) ** 2), rtol=1e-8)
+        assert res.lam[0, pt.index, METHODS.index("ridge_fixed")] == 3.0
+        # explicit GCV over the grid
+        Ac = A - A.mean(axis=0)
+        grid = (n - 1) * res.lambda_n_grid
+        gcv = []
+        for lam in grid:
+            H = np.full((n, n), 1.0 / n) + Ac @ np.linalg.solve(
+                Ac.T @ Ac + lam * np.eye(Ac.shape[1]), Ac.T)
+            r = ytr - H @ ytr
+            gcv.append(n * (r @ r) / (n - np.trace(H)) ** 2)
+        best = grid[int(np.argmin(gcv))]
+        got = res.lam[0, pt.index, METHODS.index("ridge_gcv")]
+        if got > 0:
+            assert_allclose(got, best, rtol=1e-12)
+        j_or = METHODS.index("ridge_oracle")
+        assert res.test_mse[0, pt.index, j_or] <= res.test_mse[0, pt.index,
+                                                               METHODS.index("min_norm")] + 1e-12
+
+
+def test_baselines_match_numpy_and_scikit_learn():
+    """baseline_mean: test MSE of the training mean (numpy); baseline_best_feature: the
+    single-feature scikit-learn LinearRegression with the smallest training RSS among all
+    columns (chosen on training rows), its train and test MSE, rtol 1e-10."""
+    Xtr, ytr, Xte, yte = _data(seed=6)
+    res = threshold_sweep(Xtr, ytr, Xte, yte, n_points=6)
+    jm, jb = METHODS.index("baseline_mean"), METHODS.index("baseline_best_feature")
+    assert_allclose(res.test_mse[0, :, jm], np.mean((yte - ytr.mean()) ** 2), rtol=1e-10)
+    assert_allclose(res.train_mse[0, :, jm], np.var(ytr), rtol=1e-10)
+    rss = [np.sum((ytr - LinearRegression().fit(Xtr[:, [k]], ytr).predict(Xtr[:, [k]])) ** 2)
+           for k in range(Xtr.shape[1])]
+    k = int(np.argmin(rss))
+    lr = LinearRegression().fit(Xtr[:, [k]], ytr)
+    assert_allclose(res.train_mse[0, :, jb], rss[k] / ytr.size, rtol=1e-10)
+    assert_allclose(res.test_mse[0, :, jb], np.mean((yte - lr.predict(Xte[:, [k]])) ** 2),
+                    rtol=1e-10)
+
+
+def test_sweep_sizes_dense_around_threshold():
+    """Grid (common practice, no source): the requested number of distinct increasing
+    integers, the ends and the threshold included, spacing finer near the threshold
+    than at the ends."""
+    g = sweep_sizes(1, 800, 199, 40)
+    assert g.size == 40 and np.all(np.diff(g) > 0)
+    assert {1, 199, 800} <= set(g.tolist())
+    i = int(np.flatnonzero(g == 199)[0])
+    assert g[i + 1] - g[i] < g[-1] - g[-2]
+    assert g[i] - g[i - 1] < g[1] - g[0] + 200
+
+
+def test_fourier_features_approximate_gaussian_kernel():
+    """Rahimi & Recht (2007): random Fourier features sqrt(2) cos(w'x + b), w ~ N(0, I/d),
+    satisfy E[phi(x) phi(x')] = exp(-||x - x'||^2 / (2 d)) for the standardized inputs;
+    with 40000 features the sample mean is within 4/sqrt(N) (each product is bounded by 2)."""
+    rng = np.random.default_rng(8)
+    X = rng.standard_normal((50, 3))
+    fmap = random_feature_map(X, 40000, kind="fourier", seed=9)
+    F = fmap.transform(X[:5])
+    Z = (X[:5] - fmap.x_mean) / fmap.x_scale
+    K = np.exp(-np.sum((Z[:, None] - Z[None]) ** 2, axis=2) / (2 * 3))
+    assert_allclose(F @ F.T / F.shape[1], K, atol=4 / np.sqrt(40000))
+    relu = random_feature_map(X, 7, kind="relu", seed=1)
+    assert_allclose(relu.transform(X), np.maximum(((X - relu.x_mean) / relu.x_scale)
+                                                  @ relu.weights, 0.0))
+
+
+def test_random_features_run_past_n_and_theory_is_withheld():
+    """Random-features mode: p' runs to the requested count (several times n), the
+    interpolation peak sits at p' = n - 1 (full row rank of the centered design, common
+    practice), and no isotropic theory overlay is claimed."""
+    Xtr, ytr, Xte, yte = _data(n=30, p=5, seed=2)
+    res = threshold_sweep(Xtr, ytr, Xte, yte, random_features=120, repeats=2, n_points=20)
+    assert res.n_features.max() == 120 and res.ratio.max() == 4.0
+    assert res.theory is None
+    assert abs(res.peak["n_features"] - 29) <= 1
+
+
+def test_theory_overlay_uses_effective_variances():
+    """The overlay (Hastie et al. 2022, Thm 1 and sec. 5) on the same ratios: with the true
+    sigma^2, r^2 given, the per-point effective variances are sigma^2 + r^2(1 - p'/p) and
+    r^2 p'/p, and the training-error law is sigma_eff^2 (n - p' - 1)/n (by hand)."""
+    from paths.threshold import VarianceEstimate
+
+    Xtr, ytr, Xte, yte = _data(seed=1, scale=False)
+    v = VarianceEstimate(0.25, 1.0, "truth", "truth")
+    res = threshold_sweep(Xtr, ytr, Xte, yte, n_points=10, variances=v)
+    th = res.theory
+    p, n = Xtr.shape[1], Xtr.shape[0]
+    assert_allclose(th.ratio, res.ratio)
+    assert_allclose(th.noise_variance, 0.25 + 1.0 * (1 - res.n_features / p))
+    assert_allclose(th.signal_variance, res.n_features / p)
+    assert_allclose(th.ls_train_mse, th.noise_variance
+                    * np.maximum(n - res.n_features - 1, 0) / n)
+
+
+def _bad(call, *words):
+    with pytest.raises(InputError) as exc:
+        call()
+    msg = str(exc.value)
+    assert "\n" not in msg
+    for w in words:
+        assert w in msg
+    return msg
+
+
+def test_bad_input_one_line_errors():
+    """Bad input (house rule): one-line InputError naming the problem and the fix."""
+    Xtr, ytr, Xte, yte = _data(n=40, p=20)
+    _bad(lambda: threshold_sweep(Xtr, ytr, Xte, yte), "reaches p' = 1..20", "--random-features")
+    _bad(lambda: threshold_sweep(Xtr, ytr, Xte[:1], yte[:1], random_features=80),
+         "at least 2")
+    _bad(lambda: threshold_sweep(Xtr, ytr, Xte, yte, random_features=0), ">= 1")
+    _bad(lambda: random_feature_map(Xtr, 0), ">= 1")
+    X2, y2, X2t, y2t = _data(n=40, p=70)
+    _bad(lambda: threshold_sweep(X2, y2, X2t, y2t, over="samples"), "reaches n' = 3..40")
+
+
+def _write(tmp_path, n=60, p=90, name="d.csv", seed=0):
+    rng = np.random.default_rng(seed)
+    X = rng.standard_normal((n, p))
+    y = X[:, :10].sum(axis=1) + rng.standard_normal(n)
+    df = pd.DataFrame(X, columns=[f"x{j}" for j in range(p)])
+    df["y"] = y
+    path = tmp_path / name
+    df.to_csv(path, index=False)
+    return path
+
+
+def test_cli_writes_contract_outputs(tmp_path):
+    """`paths threshold` (typer CliRunner): threshold.csv has exactly the contract columns and
+    methods, one row per point x repeat x method; threshold.json carries the contract keys,
+    and its peak is the highest mean min-norm test MSE recomputed from the csv with pandas."""
+    data = _write(tmp_path)
+    out = tmp_path / "out"
+    r = CliRunner().invoke(app, ["threshold", str(data), "--target", "y", "--order", "random",
+                                 "--repeats", "3", "--points", "12", "--out", str(out)])
+    assert r.exit_code == 0, r.output
+    df = pd.read_csv(out / "threshold.csv")
+    assert tuple(df.columns) == CSV_COLUMNS
+    assert set(df["method"]) == set(METHODS)
+    assert len(df) == 12 * 3 * len(METHODS)
+    assert set(df["over"]) == {"features"}
+    assert_allclose(df["ratio"], df["n_features"] / df["n_train"])
+    rec = json.loads((out / "threshold.json").read_text())
+    for key in ("n_train", "n_test", "over", "peak", "best_ridge_test_mse", "noise_variance",
+                "signal_variance", "theory"):
+        assert key in rec
+    assert set(rec["peak"]) >= {"ratio", "n_features", "test_mse"}
+    curve = df[df.method == "min_norm"].groupby("n_features")["test_mse"].mean()
+    assert_allclose(rec["peak"]["test_mse"], curve.max(), rtol=1e-12)
+    assert rec["peak"]["n_features"] == int(curve.idxmax())
+    assert len(rec["theory"]["min_norm_test_mse"]) == 12
+    assert rec["n_train"] + rec["n_test"] == 60
+    # refuses a non-empty folder without --force
+    r2 = CliRunner().invoke(app, ["threshold", str(data), "--target", "y", "--out", str(out)])
+    assert r2.exit_code == 2
+
+
+def test_cli_bad_input_exit_2(tmp_path):
+    """CLI bad input: exit status 2 with a one-line message (house rule)."""
+    narrow = _write(tmp_path, n=80, p=20, name="narrow.csv")
+    wide = _write(tmp_path, n=40, p=90, name="wide.csv")
+    one = _write(tmp_path, n=1, p=90, name="one.csv", seed=1)
+    runner = CliRunner()
+    cases = [
+        ["threshold", str(narrow), "--target", "y", "--out", str(tmp_path / "a")],
+        ["threshold", str(wide), "--target", "y", "--random-features", "0",
+         "--out", str(tmp_path / "b")],
+        ["threshold", str(wide), "--target", "y", "--test", str(one),
+         "--out", str(tmp_path / "c")],
+        ["threshold", str(wide), "--target", "y", "--over", "samples",
+         "--out", str(tmp_path / "d")],
+    ]
+    for args in cases:
+        r = runner.invoke(app, args)
+        assert r.exit_code == 2, (args, r.output)
+        err = r.stderr if hasattr(r, "stderr") else r.output
+        assert err.strip().count("\n") == 0
+        assert err.startswith("error:")
