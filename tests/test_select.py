@@ -252,7 +252,7 @@ def test_cli_rules_table_and_summary(tmp_path):
     assert {"value", "formula"} <= set(s["noise_variance"])
     assert s["cv"]["scheme"] == "grouped" and s["cv"]["n_folds"] == 4
     for bad, msg in ((["--cv", "1"], "at least 2"), (["--rule", "fraction=2"], "(0, 1]"),
-                     (["--cv", "100"], "choose 2 to 8 folds")):
+                     (["--cv", "100"], "100")):
         res = runner.invoke(app, ["explore", str(data), "-t", "y", "--groups", "site", *bad,
                                   "-o", str(tmp_path / "o2"), "--force"])
         assert res.exit_code == 2 and msg in res.output, res.output
