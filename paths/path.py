@@ -399,7 +399,12 @@ def criteria(fac: Factorization, design: Design, uty: np.ndarray, lam) -> Criter
     lam = np.atleast_1d(np.asarray(lam, dtype=np.float64))
     n = design.n_samples
     c = uty
-    resid_out = design.zy - fac.u @ c  # (m, t): response outside the column span
+    if fac.u.shape[1] == fac.u.shape[0]:
+        # U spans all of R^m: nothing lies outside the span; the computed difference
+        # would be rounding (~m eps |y|), which dominates residuals ~lam/d^2 near 0
+        resid_out = np.zeros_like(design.zy)
+    else:
+        resid_out = design.zy - fac.u @ c  # (m, t): response outside the column span
     rss_out = np.einsum("it,it->t", resid_out, resid_out)
     m, r = fac.u.shape
     d2 = np.square(fac.d)
@@ -568,6 +573,16 @@ def fit_path(
     del z
     if fac.rank == 0:
         raise InputError("the centered design is numerically zero; nothing to fit")
+    with np.errstate(over="ignore", under="ignore"):
+        out_of_range = (not np.isfinite(4.0 * np.sum(np.square(fac.d)))
+                        or np.square(fac.d[-1]) < 1e6 * np.finfo(np.float64).tiny)
+    if out_of_range:
+        # lambda lives on the scale of d^2, which would leave the float64 range
+        raise InputError(
+            f"the design's singular values span {fac.d[-1]:.1e} to {fac.d_max:.1e}, whose squares "
+            "(the scale of lambda) leave the float64 range; standardize the columns "
+            "(standardize=True) or rescale X"
+        )
     lam = default_grid(fac.d, n_lambdas) if lam_user is None else lam_user
     _freeze(lam)
 

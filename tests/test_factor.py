@@ -230,17 +230,7 @@ def test_overwrite_gives_the_same_factors():
     assert_allclose(np.abs(a.u), np.abs(b.u), rtol=0, atol=0)
 
 
-# bug (paths/factor.py, _from_gram, line ~202): tol = max(rtol, sqrt(max(m, q) eps)) * dmax
-# is applied whenever the Gram route runs, also when "auto" chose it; factorize's
-# docstring says only a *forced* Gram route raises the tolerance, and the README /
-# fit_path document rank_tol = max(n, p) eps d_max.  With auto -> Gram the
-# reported rank_tol is ~1e7 times the documented one (8.3e-7 vs 6.8e-14 here).
-# Ranks are not affected (auto only accepts Gram when every d_j is far above it).
-BUG_TOL = "bug: auto->Gram reports rank_tol = sqrt(max(m,q) eps) d_max, not the documented max(m,q) eps d_max"
-
-
-@pytest.mark.parametrize("solver", [
-    "svd", pytest.param("auto", marks=pytest.mark.xfail(strict=True, reason=BUG_TOL))])
+@pytest.mark.parametrize("solver", ["svd", "auto"])
 def test_fit_path_reports_route_and_tolerance(solver):
     """``fit_path`` exposes the factorization: rank tolerance
     max(n, p) eps d_max (numpy ``pinv`` / ``matrix_rank`` convention, as

@@ -199,21 +199,7 @@ def test_wampler1_2_exact_fits():
         assert s <= 1e-8 * np.abs(y).max()
 
 
-# Inaccuracy (paths/factor.py, factorize, the "auto" acceptance test): the Gram
-# route is accepted when the predicted relative error of every singular value is
-# <= gram_rtol = 1e-10, but the coefficients also depend on the singular vectors,
-# whose Gram-route error is ~eps (d_1/d_j)^2 per component; on Longley
-# (standardized, cond 110, predicted 2e-11) "auto" takes the Gram route and
-# reaches 11.4 digits against 13.3 for the SVD route (still above NIST's
-# acceptance of 10).  Issue 2 asks for "auto" to be as accurate as the SVD route
-# on the NIST sets.  Suggested fix: a backward-stable fast route (QR/LQ to the
-# small side, then the SVD of the triangular factor) or a much smaller gram_rtol.
-BUG_AUTO_DIGITS = "inaccuracy: auto takes the Gram route on Longley and loses ~1.9 digits vs svd"
-
-
-@pytest.mark.parametrize("name", [
-    pytest.param(n, marks=pytest.mark.xfail(strict=True, reason=BUG_AUTO_DIGITS))
-    if n == "Longley" else n for n in ORDER])
+@pytest.mark.parametrize("name", ORDER)
 def test_auto_route_reaches_the_svd_digits(name):
     """Per coefficient, ``solver="auto"`` reaches the same number of
     significant digits against the NIST certified values as the SVD route,

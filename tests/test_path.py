@@ -568,15 +568,6 @@ def _mp_criteria(X, y, lam, dps=50):
         return float(n * rss / (n - trH) ** 2), float(loo)
 
 
-# bug (paths/path.py, criteria() and _loo()): at full row rank (r == m) the part of
-# the response outside the column span, resid_out = zy - U (U^T zy), is 0 in exact
-# arithmetic but kept as rounding (~m eps |y|); added to residuals of size
-# ~lam/d^2 it costs LOO ~eps d_r^2/lam relative accuracy (6.6e-4 at
-# lam = 1e-10 d_r^2) and GCV ~(eps d_r^2/lam)^2.  Fix: resid_out = 0 when r == m.
-BUG_NEAR_INTERP = "bug: LOO/GCV at tiny lam and full row rank keep rounding-level resid_out"
-
-
-@pytest.mark.xfail(strict=True, reason=BUG_NEAR_INTERP)
 @pytest.mark.parametrize("k", [8, 10, 12])
 def test_loo_gcv_near_interpolation_against_mpmath(make_problem, k):
     """At full row rank (p >= n - 1) and tiny penalties lam = 10^-k d_r^2, LOO
@@ -713,16 +704,6 @@ def test_negligible_singular_values_never_give_inf_or_nan():
         assert np.isfinite(res.condition_number)
 
 
-# bug (paths/grid.py lines 29-30 and 44-46, paths/path.py criteria/_loo): with
-# standardize=False and a design of extreme magnitude, d^2 overflows (|X| ~ 1e200)
-# or underflows (|X| ~ 1e-200); the default grid then fails inside scipy's brentq
-# with "The function value at x=inf is NaN" (a bare ValueError, after overflow /
-# divide RuntimeWarnings), instead of a one-line InputError suggesting
-# standardize=True or rescaling.
-BUG_SCALE = "bug: extreme-magnitude X without standardization -> overflow warnings and brentq ValueError"
-
-
-@pytest.mark.xfail(strict=True, reason=BUG_SCALE)
 @pytest.mark.parametrize("scale", [1e200, 1e-200])
 def test_extreme_scale_without_standardization(make_problem, scale):
     """A design of magnitude 1e200 or 1e-200 (squares outside the float64 range,
