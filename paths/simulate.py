@@ -33,7 +33,7 @@ from .design import to_sample_space
 from .threshold import METHODS, PointFit, ThresholdResult, VarianceEstimate, threshold_sweep
 
 __all__ = ["COVARIANCES", "COEFFICIENTS", "Truth", "make_truth", "draw", "SimulationResult",
-           "simulate", "bias_variance_table"]
+           "simulate", "sweep_with_truth", "bias_variance_table"]
 
 COVARIANCES = ("isotropic", "ar1", "spiked")
 COEFFICIENTS = ("dense", "sparse", "aligned")
@@ -293,6 +293,40 @@ def _best_single(X: np.ndarray, y: np.ndarray, fit_intercept: bool) -> int:
     return int(np.argmax(score))
 
 
+def sweep_with_truth(truth: Truth, X, y, X_test, y_test, **sweep_options) -> SimulationResult:
+    """One sweep (:func:`paths.threshold.threshold_sweep`, ``repeats=1``) on rows drawn from
+    ``truth``, with the exact bias² and variance of every method at every point.
+
+    Parameters
+    ----------
+    truth : Truth
+    X, y, X_test, y_test : ndarray
+        Rows drawn from ``truth`` (e.g. by :func:`draw`); the exact parts are
+        conditional on ``X``.
+    **sweep_options
+        Passed to :func:`paths.threshold.threshold_sweep` (not ``variances``,
+        ``repeats``, ``on_point``).
+
+    Returns
+    -------
+    SimulationResult
+        With one repeat.
+    """
+    fit_intercept = sweep_options.get("fit_intercept", True)
+    over = sweep_options.get("over", "features")
+    var = VarianceEstimate(truth.noise_variance, truth.signal_variance,
+                           "truth (simulation)", "truth (simulation)")
+    exact = _Exact(truth, np.asarray(X, dtype=float), np.asarray(y, dtype=float), over,
+                   fit_intercept)
+    res = threshold_sweep(X, y, X_test, y_test, repeats=1, variances=var,
+                          variance_source="truth (simulation)", on_point=exact,
+                          **sweep_options)
+    b2, v = exact.arrays(res.n_features.size)
+    b2, v = b2[None], v[None]
+    return SimulationResult(truth=truth, sweep=res, bias2=b2, variance=v,
+                            exact_test_mse=truth.noise_variance + b2 + v)
+
+
 def simulate(
     n_train: int,
     truth: Truth,
@@ -348,8 +382,6 @@ def simulate(
     if int(n_train) != n_train or n_train < 3:
         raise InputError(f"the simulation needs at least 3 training rows; got {n_train}")
     rng = np.random.default_rng(seed)
-    var = VarianceEstimate(truth.noise_variance, truth.signal_variance,
-                           "truth (simulation)", "truth (simulation)")
     sweeps, b2s, vs = [], [], []
     for rep in range(int(repeats)):
         X, y = draw(truth, n_train, rng)
@@ -358,19 +390,16 @@ def simulate(
             sub_order, sub_seed = "random", int(rng.integers(2**31))
         else:
             sub_order, sub_seed = order, 0
-        exact = _Exact(truth, X, y, over, fit_intercept)
-
         def prog(done, total, _rep=rep):
             if progress is not None:
                 progress(_rep * total + done, total * int(repeats))
 
-        res = threshold_sweep(X, y, Xt, yt, over=over, order=sub_order, repeats=1,
-                              seed=sub_seed, n_points=n_points, sizes=sizes,
-                              ridge_lambda=ridge_lambda, ridge_df_fraction=ridge_df_fraction,
-                              band=band, fit_intercept=fit_intercept, standardize=standardize,
-                              variances=var, variance_source="truth (simulation)",
-                              progress=prog, on_point=exact)
-        b2, v = exact.arrays(res.n_features.size)
+        one = sweep_with_truth(truth, X, y, Xt, yt, over=over, order=sub_order,
+                               seed=sub_seed, n_points=n_points, sizes=sizes,
+                               ridge_lambda=ridge_lambda, ridge_df_fraction=ridge_df_fraction,
+                               band=band, fit_intercept=fit_intercept,
+                               standardize=standardize, progress=prog)
+        res, b2, v = one.sweep, one.bias2[0], one.variance[0]
         sweeps.append(res)
         b2s.append(b2)
         vs.append(v)
