@@ -612,8 +612,9 @@ def plot_shrinkage(result, ax=None, *, lam=None, selected=None, target: int = 0,
     ref = ax.axhline(0.5, color="#999999", linewidth=0.5, linestyle=":")
     art.refs["half"] = ref
     hs = [ln, sv]
-    leg = ax.legend(hs, [h.get_label() for h in hs], loc="upper right", fontsize="x-small",
-                    frameon=False)
+    leg = ax.legend(hs, [h.get_label() for h in hs], loc="lower left",
+                    bbox_to_anchor=(0.0, 1.01, 1.0, 0.1), mode="expand", ncol=1,
+                    fontsize="x-small", frameon=False, borderaxespad=0.0)
     art.texts.append(twin)
     art.texts.append(leg)
     return art
@@ -656,7 +657,7 @@ def _eigen_scaled(result):
 
 
 def plot_spectrum(result, ax=None, *, bins: int | None = None, **style) -> Artists:
-    """Sample eigenvalues of the (standardized) design against the Marchenko–Pastur density.
+    r"""Sample eigenvalues of the (standardized) design against the Marchenko–Pastur density.
 
     Drawn on a log eigenvalue axis, so that spikes from correlated features and
     the near-zero eigenvalues of a design near p ≈ n show on one picture.
@@ -1049,8 +1050,8 @@ def plot_bias_variance(sim, ax=None, *, method: str = "min_norm", **style) -> Ar
     tot = b[1][ib] + v[1][iv]
     (lt,) = ax.plot(common, tot, color=_C["black"], linestyle="-", label="bias² + variance", **kw)
     art.lines.update(bias2=lb, variance=lv, total=lt)
-    art.traces += [Trace("bias2", "line", b[0], b[1]), Trace("variance", "line", v[0], v[1]),
-                   Trace("total", "line", common, tot)]
+    art.traces.extend([Trace("bias2", "line", b[0], b[1]), Trace("variance", "line", v[0], v[1]),
+                       Trace("total", "line", common, tot)])
     art.refs["threshold"] = ax.axvline(1.0, color="#444444", linewidth=0.8)
     ax.set_yscale("log")
     ax.set_xlabel(art.x_quantity)

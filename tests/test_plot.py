@@ -1,0 +1,239 @@
+"""Plot helpers: the drawn artists read back against the result arrays (no pixel comparisons).
+
+References named beside each check: the result arrays of :func:`paths.fit_path`
+(themselves checked against scikit-learn in tests/test_path.py), numpy for the
+closed forms, scipy quadrature for the Marchenko–Pastur density (Marchenko &
+Pastur 1967: a probability density on [(1-√γ)², (1+√γ)²]).
+"""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.colors import to_hex
+from matplotlib.figure import Figure
+from numpy.testing import assert_allclose
+from scipy.integrate import quad
+
+from paths import fit_path
+from paths import plot
+from paths._validation import InputError
+
+# float64 arrays go into matplotlib unchanged; 0 tolerance would also pass, 1e-12 allows
+# for a log10 recomputation in the helper versus in the test.
+TOL = 1e-12
+
+
+def _axes():
+    fig = Figure(figsize=(4, 3))
+    FigureCanvasAgg(fig)
+    return fig.add_subplot()
+
+
+@pytest.fixture(scope="module")
+def path():
+    """Synthetic wide problem (seeded): 40 rows, 60 columns, with a held-out test set."""
+    rng = np.random.default_rng(3)
+    X = rng.standard_normal((55, 60))
+    beta = np.zeros(60)
+    beta[:5] = [3.0, -2.0, 1.5, 1.0, -0.5]
+    y = X @ beta + rng.standard_normal(55)
+    return fit_path(X[:40], y[:40], X_test=X[40:], y_test=y[40:], n_lambdas=40)
+
+
+@pytest.mark.parametrize("x", ["log_lambda", "df"])
+def test_coef_path_lines_equal_the_path(path, x):
+    """Each labelled line's data equal the path's standardized coefficients (RidgePath.coef_std)
+    against log10(lambdas) (numpy) or the effective df; the others sit in one LineCollection."""
+    art = plot.plot_coef_path(path, _axes(), x=x, n_labels=4)
+    xs = np.log10(path.lambdas) if x == "log_lambda" else path.df
+    labelled = [k for k in art.lines if k != "_others"]
+    assert len(labelled) == 4
+    for name in labelled:
+        j = path.feature_names.index(name)
+        line = art.lines[name]
+        assert_allclose(line.get_xdata(), xs, rtol=TOL)
+        assert_allclose(line.get_ydata(), path.coef_std[:, j], rtol=TOL, atol=0)
+    segs = art.lines["_others"].get_segments()
+    assert len(segs) == path.n_features - 4
+    # the labelled ones are the largest |beta| at the first marked choice (GCV)
+    i = path.index_min("gcv")
+    top = set(np.argsort(-np.abs(path.coef_std[i]))[:4])
+    assert {path.feature_names.index(n) for n in labelled} == top
+    assert art.ax.get_legend() is not None
+    assert art.ax.get_xlabel() and art.ax.get_ylabel()
+
+
+def test_coef_path_marks_each_rule_at_its_lambda(path):
+    """Vertical lines at log10 of each selected lambda, labelled by rule name."""
+    sel = {"gcv": {"lambda": float(path.lambdas[10]), "df": float(path.df[10])},
+           "hkb": {"lambda": 2.5, "df": None}}
+    art = plot.plot_coef_path(path, _axes(), selected=sel)
+    assert_allclose(art.refs["rule:gcv"].get_xdata()[0], np.log10(path.lambdas[10]), rtol=TOL)
+    assert_allclose(art.refs["rule:hkb"].get_xdata()[0], np.log10(2.5), rtol=TOL)
+    texts = " ".join(t.get_text() for t in art.texts if hasattr(t, "get_text"))
+    assert "GCV" in texts and "HKB" in texts
+
+
+def test_error_curves_equal_the_path_and_markers_sit_on_them(path):
+    """Train/GCV/LOO/test lines equal the path arrays; each rule's marker is at (log10 λ, the
+    criterion at λ); min-norm reference lines at the MinNormFit errors."""
+    art = plot.plot_errors(path, _axes())
+    lx = np.log10(path.lambdas)
+    for key, arr in (("train", path.train_mse), ("gcv", path.gcv), ("loo", path.loo_mse),
+                     ("test", path.test_mse)):
+        assert_allclose(art.lines[key].get_xdata(), lx, rtol=TOL)
+        assert_allclose(art.lines[key].get_ydata(), arr, rtol=TOL)
+    for rule, arr in (("gcv", path.gcv), ("loo", path.loo_mse), ("test", path.test_mse)):
+        i = path.index_min(rule)
+        m = art.markers[rule]
+        assert_allclose(m.get_xdata()[0], lx[i], rtol=TOL)
+        assert_allclose(m.get_ydata()[0], arr[i], rtol=1e-10)
+    for key, v in (("gcv", path.min_norm.gcv), ("loo", path.min_norm.loo_mse),
+                   ("test", path.min_norm.test_mse)):
+        assert_allclose(art.refs[f"min_norm:{key}"].get_ydata()[0], v, rtol=TOL)
+    assert art.ax.get_yscale() == "log"
+    labels = [t.get_text() for t in art.ax.get_legend().get_texts()]
+    assert {"training MSE", "GCV", "LOO", "test MSE"} <= set(labels)
+
+
+def test_error_curves_draw_cv_band_from_a_mapping():
+    """Plain arrays/dicts are accepted; the CV band spans mean ± se (numpy arithmetic)."""
+    lam = np.geomspace(100, 0.01, 20)
+    mean = 1 + (np.log10(lam) - 0.5) ** 2
+    se = np.full(20, 0.1)
+    res = {"lambdas": lam, "df": np.linspace(1, 10, 20), "gcv": mean * 1.1}
+    art = plot.plot_errors(res, _axes(), cv={"mse": mean, "se": se, "n_folds": 5},
+                           selected={"cv": {"lambda": lam[7], "df": None}})
+    assert set(art.lines) == {"gcv", "cv"}
+    assert_allclose(art.lines["cv"].get_ydata(), mean, rtol=TOL)
+    band = next(t for t in art.traces if t.kind == "band")
+    assert_allclose(band.low, mean - se, rtol=TOL)
+    assert_allclose(band.high, mean + se, rtol=TOL)
+    verts = art.bands["cv"].get_paths()[0].vertices
+    assert_allclose(verts[:, 1].max(), (mean + se).max(), rtol=TOL)
+    assert_allclose(art.markers["cv"].get_ydata()[0], mean[7], rtol=1e-10)
+    assert "5-fold CV ± 1 SE" in [t.get_text() for t in art.ax.get_legend().get_texts()]
+
+
+def test_shrinkage_factors_at_the_chosen_lambda(path):
+    """f_j = d_j²/(d_j² + λ) (the ridge shrinkage factor, ESL eq. 3.47) from the singular values."""
+    lam = 3.7
+    art = plot.plot_shrinkage(path, _axes(), lam=lam)
+    d = path.singular_values
+    assert_allclose(art.lines["shrinkage"].get_ydata(), d**2 / (d**2 + lam), rtol=TOL)
+    assert_allclose(art.lines["singular_values"].get_ydata(), d, rtol=TOL)
+    assert_allclose(art.lines["shrinkage"].get_xdata(), np.arange(1, d.size + 1))
+    # their sum is the penalized part of the effective df (ESL eq. 3.50)
+    assert_allclose(np.sum(art.lines["shrinkage"].get_ydata()) + 1,
+                    path.criteria_at([lam]).df[0], rtol=1e-12)
+
+
+@pytest.mark.parametrize("gamma", [0.3, 1.0, 2.5])
+def test_marchenko_pastur_density_integrates_to_its_continuous_mass(gamma):
+    """scipy quad: the continuous part integrates to min(1, 1/γ) (Marchenko & Pastur 1967)."""
+    a, b = (1 - np.sqrt(gamma)) ** 2, (1 + np.sqrt(gamma)) ** 2
+    val, _ = quad(lambda x: float(plot.marchenko_pastur_density(np.array([x]), gamma)[0]), a, b,
+                  limit=200)
+    assert_allclose(val, min(1.0, 1.0 / gamma), rtol=1e-6)
+
+
+def test_spectrum_histogram_and_curve(path):
+    """Histogram mass equals (number of non-zero eigenvalues)/q; the MP curve is the published
+    density times x·ln10 on the log10 axis; the support edges are (1 ∓ √γ)²."""
+    art = plot.plot_spectrum(path, _axes())
+    hist = next(t for t in art.traces if t.kind == "histogram")
+    widths = hist.high - hist.low
+    q = path.n_features
+    assert_allclose(np.sum(hist.y * widths), path.rank / q, rtol=1e-12)
+    gamma = q / (path.n_samples - 1)
+    t = art.lines["marchenko_pastur"].get_xdata()
+    x = 10.0 ** t
+    assert_allclose(art.lines["marchenko_pastur"].get_ydata(),
+                    plot.marchenko_pastur_density(x, gamma) * x * np.log(10), rtol=1e-12)
+    assert_allclose(10 ** art.refs["edge_high"].get_xdata()[0], (1 + np.sqrt(gamma)) ** 2,
+                    rtol=1e-12)
+    assert any("mass" in n for n in art.notes)  # gamma > 1: the point mass is stated
+
+
+def test_variance_share_sums_to_one(path):
+    """share_j = d_j^-2 / Σ d_k^-2 (the min-norm variance σ² Σ d_j^-2 split by component)."""
+    art = plot.plot_variance_share(path, _axes())
+    share = art.lines["share"].get_ydata()
+    d = path.singular_values
+    assert_allclose(share, d**-2.0 / np.sum(d**-2.0), rtol=1e-12)
+    assert_allclose(share.sum(), 1.0, rtol=1e-12)
+    assert art.ax.get_yscale() == "log"
+
+
+def _sweep_table():
+    """A threshold.csv-like table (contract columns), two repeats, invented values."""
+    ratio = np.array([0.5, 0.9, 1.0, 1.2, 2.0])
+    rows = {k: [] for k in ("over", "n_train", "n_features", "ratio", "repeat", "method",
+                            "train_mse", "test_mse")}
+    rng = np.random.default_rng(0)
+    for rep in range(2):
+        for r in ratio:
+            for meth, base in (("min_norm", 1 / abs(1 - r + 1e-1)), ("ridge_gcv", 1.2),
+                               ("baseline_mean", 2.0)):
+                rows["over"].append("features"); rows["n_train"].append(50)
+                rows["n_features"].append(int(50 * r)); rows["ratio"].append(r)
+                rows["repeat"].append(rep); rows["method"].append(meth)
+                rows["train_mse"].append(max(0.0, 1 - r) + 0.01 * rng.random())
+                rows["test_mse"].append(base * (1 + 0.1 * rng.random()))
+    return {k: np.array(v) for k, v in rows.items()}
+
+
+def test_threshold_lines_are_repeat_means_with_se_bands():
+    """Each method's line is the mean over repeats per ratio; the band ± SD(ddof=1)/√R (numpy)."""
+    tab = _sweep_table()
+    theory = {"ratio": np.array([0.5, 0.9, 1.2, 2.0]), "min_norm": np.array([2.0, 10, 6, 2.1])}
+    art = plot.plot_threshold(tab, _axes(), theory=theory)
+    for meth in ("min_norm", "ridge_gcv", "baseline_mean"):
+        sel = tab["method"] == meth
+        xs = np.unique(tab["ratio"][sel])
+        v = np.array([tab["test_mse"][sel][tab["ratio"][sel] == r] for r in xs])
+        assert_allclose(art.lines[meth].get_xdata(), xs)
+        assert_allclose(art.lines[meth].get_ydata(), v.mean(axis=1), rtol=1e-12)
+    band = next(t for t in art.traces if t.kind == "band" and t.series == "min_norm")
+    sel = tab["method"] == "min_norm"
+    v = np.array([tab["test_mse"][sel][tab["ratio"][sel] == r] for r in np.unique(tab["ratio"])])
+    assert_allclose(band.high - band.y, v.std(axis=1, ddof=1) / np.sqrt(2), rtol=1e-12)
+    assert_allclose(art.refs["threshold"].get_xdata()[0], 1.0)
+    assert_allclose(art.lines["theory:min_norm"].get_ydata(), theory["min_norm"])
+    assert art.ax.get_yscale() == "log"
+    assert to_hex(art.lines["min_norm"].get_color()) == plot.STYLES["min_norm"]["color"].lower()
+
+
+def test_training_law_is_sigma2_times_one_minus_ratio():
+    """E[train MSE] = σ²(1 − (p′+1)/n), zero past the threshold (projection argument;
+    common practice, no source)."""
+    tab = _sweep_table()
+    art = plot.plot_training_law(tab, _axes(), noise_variance=1.0)
+    xs = art.lines["law"].get_xdata()
+    assert_allclose(art.lines["law"].get_ydata(), np.clip(1 - xs - 1 / 50, 0, None), rtol=1e-12)
+
+
+def test_bias_variance_total_is_the_sum():
+    tab = {"ratio": np.array([0.5, 2.0]), "method": np.array(["min_norm"] * 2),
+           "bias2": np.array([0.0, 0.5]), "variance": np.array([1.0, 0.9])}
+    art = plot.plot_bias_variance(tab, _axes())
+    assert_allclose(art.lines["total"].get_ydata(), [1.0, 1.4])
+
+
+def test_missing_inputs_are_one_line_errors():
+    with pytest.raises(InputError, match="lambdas"):
+        plot.plot_errors({"gcv": [1, 2]}, _axes())
+    with pytest.raises(InputError, match="x must be"):
+        plot.plot_coef_path({"lambdas": [1.0], "coef": [[1.0]]}, _axes(), x="lambda_n")
+    with pytest.raises(InputError, match="test_mse"):
+        plot.plot_threshold({"ratio": [1.0], "method": ["min_norm"]}, _axes())
+
+
+def test_okabe_ito_palette_values():
+    """The eight Okabe & Ito (2008) colours (values as published on their CUD page; from memory)."""
+    assert set(plot.OKABE_ITO.values()) == {"#000000", "#E69F00", "#56B4E9", "#009E73",
+                                            "#F0E442", "#0072B2", "#D55E00", "#CC79A7"}
+    dashes = {str(s["linestyle"]) for k, s in plot.STYLES.items()
+              if k in ("train", "gcv", "loo", "cv", "test")}
+    assert len(dashes) == 5  # distinct line styles: curves survive greyscale
