@@ -239,14 +239,10 @@ def rules_table(summary: dict):
               "test MSE at choice"]
     rows = []
     test = summary.get("test_mse")
-    norms = summary.get("coef_norm") or []
-    mn_norm = _first((summary.get("min_norm") or {}).get("coef_norm"))
     chosen = _numbers(summary)["rule"]
     for rule, sel in (summary.get("selected") or {}).items():
         idx = sel.get("index")
         frac = _first(sel.get("fraction"))
-        if frac is None and idx is not None and norms and mn_norm:
-            frac = _first(norms[idx]) / mn_norm
         est = _first(sel.get("est_mse"))
         if est is None:
             est = _first(sel.get("value"))

@@ -1,0 +1,173 @@
+"""The report: every number in it is a number of summary.json (tested by parsing both).
+
+References: the JSON record written by the same run (parsed with the standard
+``json`` module) is the source of truth; the report text is parsed with ``re``
+and the HTML with the standard ``html.parser``; derived numbers are recomputed
+here from the record's raw arrays with plain Python (min, max, len, division).
+"""
+from __future__ import annotations
+
+import json
+import math
+import re
+from html.parser import HTMLParser
+
+import numpy as np
+import pytest
+
+from paths.analysis import explore
+from paths.datasets import make_calibration
+from paths.io import select
+from paths.report import RULE_NAMES, fmt, methods_paragraph
+
+NUM = re.compile(r"(?<![\w.])-?\d+(?:\.\d+)?(?:e[-+]?\d+)?(?![\w])")
+
+
+@pytest.fixture(scope="module")
+def run(tmp_path_factory):
+    """One explore run with K-fold CV and a holdout on synthetic calibration data (seeded)."""
+    frame = make_calibration(40, 120, seed=0)
+    data = select(frame, "analyte", source="synthetic calibration (paths.datasets)")
+    out = tmp_path_factory.mktemp("report") / "out"
+    r = explore(data, out_dir=out, holdout=0.25, seed=2, cv=5, n_lambdas=40, formats=("svg",),
+                command_line=["paths", "explore", "x.csv", "--target", "analyte"])
+    summary = json.loads((out / "summary.json").read_text())
+    return r, summary, out
+
+
+def _numbers_and_strings(obj, nums, strs):
+    if isinstance(obj, bool):
+        strs.add(str(obj))
+    elif isinstance(obj, (int, float)):
+        if math.isfinite(obj):
+            nums.add(fmt(obj))
+    elif isinstance(obj, str):
+        strs.add(obj)
+    elif isinstance(obj, dict):
+        for k, v in obj.items():
+            strs.add(str(k))
+            _numbers_and_strings(v, nums, strs)
+    elif isinstance(obj, list):
+        for v in obj:
+            _numbers_and_strings(v, nums, strs)
+    return nums, strs
+
+
+def _unaccounted(text, summary, fixed=()):
+    """Numeric tokens of ``text`` that are neither a summary number (as the report formats it)
+    nor part of a summary string (versions, command line, hashes, solver reason)."""
+    for phrase in (summary["penalty_convention"], *RULE_NAMES.values(), *fixed):
+        text = text.replace(phrase, " ")
+    nums, strs = _numbers_and_strings(summary, set(), set())
+    blob = "\n".join(strs)
+    return [t for t in NUM.findall(text) if t not in nums and t not in blob]
+
+
+def _section(md, title):
+    m = re.search(rf"^## {re.escape(title)}\n(.*?)(?=^## |\Z)", md, flags=re.S | re.M)
+    return m.group(1)
+
+
+def test_derived_numbers_match_the_raw_record(run):
+    """summary["report"] against the record's own arrays (plain Python)."""
+    _, s, _ = run
+    rep = s["report"]
+    assert rep["rule"] == s["reported"] == "cv"
+    sel = s["selected"][rep["rule"]]
+    assert rep["lambda"] == sel["lambda"] and rep["df"] == sel["df"]
+    assert rep["fraction"] == sel["fraction"]
+    assert rep["est_mse"] == sel["est_mse"] and rep["est_se"] == sel["est_se"]
+    assert rep["n_lambdas"] == len(s["lambdas"]) == 40
+    assert rep["lambda_min"] == min(s["lambdas"]) and rep["lambda_max"] == max(s["lambdas"])
+    assert rep["df_min"] == min(s["df"]) and rep["df_max"] == max(s["df"])
+    assert rep["test_mse"] == s["test_mse"][rep["index"]]
+    assert rep["cv"]["n_folds"] == s["cv"]["n_folds"] == 5
+
+
+def test_methods_paragraph_numbers_all_come_from_summary(run):
+    _, s, out = run
+    md = (out / "report.md").read_text()
+    para = _section(md, "Methods paragraph").strip()
+    assert para == methods_paragraph(s)
+    assert _unaccounted(para, s) == []
+    # and the key ones are there, formatted from the record
+    rep = s["report"]
+    for v in (s["n_samples"], s["n_features"], s["p_over_n"], s["rank"], s["condition_number"],
+              rep["n_lambdas"], rep["lambda_min"], rep["lambda_max"], rep["lambda"], rep["df"],
+              rep["fraction"], rep["est_mse"], rep["est_se"], s["n_test"], rep["test_mse"],
+              s["cv"]["n_folds"], s["cv"]["seed"]):
+        assert re.search(rf"(?<![\w.]){re.escape(fmt(v))}(?![\w])", para), (v, para)
+    assert s["penalty_convention"] in para
+    assert "5-fold" in para
+
+
+def test_every_number_in_the_markdown_report_comes_from_summary(run):
+    _, s, out = run
+    md = (out / "report.md").read_text()
+    body = re.sub(r"## Figures.*?(?=## Methods)", "", md, flags=re.S)  # captions: fixed text
+    bad = _unaccounted(body, s, fixed=("lambda -> 0+", "SHA-256", "| 0 |", "| 1 |"))
+    assert bad == []
+
+
+class _Text(HTMLParser):
+    def __init__(self):
+        super().__init__()
+        self.parts, self.tags, self.skip = [], [], 0
+
+    def handle_starttag(self, tag, attrs):
+        self.tags.append((tag, dict(attrs)))
+        if tag in ("svg", "style"):
+            self.skip += 1
+
+    def handle_endtag(self, tag):
+        if tag in ("svg", "style"):
+            self.skip -= 1
+
+    def handle_data(self, data):
+        if not self.skip:
+            self.parts.append(data)
+
+
+def test_html_report_is_self_contained_and_its_numbers_come_from_summary(run):
+    _, s, out = run
+    html = (out / "report.html").read_text()
+    p = _Text()
+    p.feed(html)
+    tags = [t for t, _ in p.tags]
+    assert "script" not in tags and "link" not in tags and "img" not in tags and "iframe" not in tags
+    assert tags.count("svg") >= 2  # both figures inlined
+    assert not re.search(r"(src|href)\s*=\s*[\"']https?:", html)
+    assert "url(http" not in html
+    text = " ".join(p.parts)
+    text = re.sub(r"Figures.*?Methods paragraph", " ", text, flags=re.S)
+    assert _unaccounted(text, s, fixed=("lambda -> 0+", "SHA-256")) == []
+
+
+def test_report_states_cautions_and_reproducibility(run):
+    _, s, out = run
+    md = (out / "report.md").read_text()
+    caut = _section(md, "Cautions")
+    assert "optimistic" in caut and "nested cross-validation" in caut
+    assert "clinical, credit, safety" in caut
+    rep = _section(md, "Reproducibility")
+    assert s["command_line"] in rep
+    for k, v in s["versions"].items():
+        assert v in rep
+    assert "holdout split: 2" in rep and f"cross-validation folds: {s['cv']['seed']}" in rep
+
+
+def test_diagnosis_places_the_data_past_the_threshold(run):
+    """p/n = 120/30 = 4 (> 3): 'far past'; the min-norm fit interpolates (rank = n - 1)."""
+    _, s, out = run
+    diag = _section((out / "report.md").read_text(), "Diagnosis")
+    assert s["p_over_n"] > 3 and "far past the interpolation threshold" in diag
+    assert s["rank"] == s["n_samples"] - 1 and "interpolates the training data" in diag
+
+
+def test_explore_writes_figures_and_their_csv(run):
+    r, _, out = run
+    names = {f.name for f in r.files}
+    assert {"fig-path.svg", "fig-path.csv", "fig-spectrum.svg", "fig-spectrum.csv", "report.md",
+            "report.html", "summary.json", "path.csv", "coefficients.csv"} <= names
+    assert not (out / "fig-path.png").exists()  # only the asked-for formats
+    np.testing.assert_array_less(0, [f.stat().st_size for f in r.files])
