@@ -18,7 +18,7 @@ from .output import prepare_out_dir, write_csv, write_json
 from .path import RidgePath, fit_path
 from .summary import coefficient_table, path_table, selections, summary_dict
 
-__all__ = ["ExploreRun", "explore", "load_data", "read_groups"]
+__all__ = ["ExploreRun", "explore", "load_data", "read_groups", "explore_engine", "ENGINES"]
 
 
 @dataclass(frozen=True)
@@ -254,3 +254,195 @@ def _selection(result, X, y, *, cv, repeats, groups, folds, cv_scaling, seed, ru
                   "se": lst(cv_res.se), "se_repeats": lst(cv_res.se_repeats)}
     return report, record, cv_res
 
+
+
+# ------------------------------------------------------------------ out-of-memory engines
+ENGINES = ("memory", "stream", "dask")
+_HASH_LIMIT = 2 << 30  # files above 2 GiB are recorded by size, not hashed (another full read)
+
+
+def _file_digests(path: Path) -> tuple[dict, list]:
+    files = sorted(f for f in path.rglob("*") if f.is_file()) if path.is_dir() else [path]
+    out, notes = {}, []
+    for f in files:
+        size = f.stat().st_size
+        if size <= _HASH_LIMIT:
+            out[str(f)] = sha256_of(f)
+        else:
+            out[str(f)] = None
+            notes.append(f"{f}: {size} bytes, not hashed (over 2 GiB; another full read)")
+    return out, notes
+
+
+def _columns_and_shape(path: Path, sep=None):
+    """Column names and (rows or None) of a data file, from metadata or the header only."""
+    from ._validation import InputError
+
+    suffix = path.suffix.lower()
+    if path.is_dir() or suffix in (".parquet", ".pq", ".parq"):
+        import pyarrow.parquet as pq
+
+        from .chunks import _parquet_files
+
+        files = _parquet_files(path)
+        try:
+            names = list(pq.read_schema(files[0]).names)
+            rows = sum(pq.read_metadata(f).num_rows for f in files)
+        except Exception as exc:  # noqa: BLE001 - pyarrow error types vary
+            raise InputError(f"{path}: not a readable Parquet file ({exc}); check the file") from None
+        return names, rows
+    if suffix == ".npy":
+        arr = np.load(path, mmap_mode="r")
+        return None, int(arr.shape[0])
+    import pandas as pd
+
+    if sep is None:
+        sep = "\t" if suffix in (".tsv", ".tab") else ","
+    try:
+        return [str(c) for c in pd.read_csv(path, sep=sep, nrows=0).columns], None
+    except Exception as exc:  # noqa: BLE001
+        raise InputError(f"{path} could not be read ({type(exc).__name__}); check the delimiter "
+                         "(--sep) and that it is UTF-8 text") from None
+
+
+def _resolve_features(names, targets, features, exclude):
+    from fnmatch import fnmatchcase
+
+    from ._validation import InputError
+
+    pool = [c for c in names if c not in targets]
+    if features:
+        pats = [x for f in features for x in str(f).split(",") if x]
+        chosen = [c for c in pool if any(fnmatchcase(c, pt) for pt in pats)]
+        if not chosen:
+            raise InputError(f"--features {', '.join(pats)} matches no column; check the names")
+        pool = chosen
+    if exclude:
+        pats = [x for f in exclude for x in str(f).split(",") if x]
+        pool = [c for c in pool if not any(fnmatchcase(c, pt) for pt in pats)]
+    if not pool:
+        raise InputError("no feature columns left after --features/--exclude; keep some")
+    return pool
+
+
+def explore_engine(
+    data,
+    target,
+    *,
+    engine: str,
+    out_dir,
+    test=None,
+    features=None,
+    exclude=None,
+    sep=None,
+    n_lambdas: int = 100,
+    standardize: bool = True,
+    force: bool = False,
+    chunk_rows: int | None = None,
+    accurate: bool = False,
+    rank: int | None = None,
+    scheduler: str | None = None,
+    timeout: float = 10.0,
+    cv: int | None = None,
+    cv_seed: int | None = None,
+    progress=None,
+    command_line: list[str] | None = None,
+) -> ExploreRun:
+    """:func:`explore` for data that need not fit in memory: ``engine`` "stream" or "dask".
+
+    Tall files (rows >= features) go to :func:`paths.stream.stream_path` (or
+    :func:`paths.dask_engine.dask_path`); wide Parquet files (more feature
+    columns than rows) to :func:`paths.wide.wide_path`, read a column group at a
+    time.  Writes ``path.csv``, ``coefficients.csv`` and ``summary.json`` (with
+    an ``engine`` record: passes, rows, throughput, notes).  Selections are the
+    grid minima of GCV, LOO, test error and (with ``cv``) K-fold CV.
+    """
+    from ._validation import InputError
+
+    if engine not in ("stream", "dask"):
+        raise InputError(f"engine must be one of {', '.join(ENGINES)}; got {engine!r}")
+    path = Path(data)
+    if not path.exists():
+        raise InputError(f"{path}: no such file or folder; check the path")
+    targets = [x for t in ([target] if isinstance(target, str) else list(target))
+               for x in str(t).split(",") if x]
+    out = prepare_out_dir(out_dir, force=force)
+    names, rows = _columns_and_shape(path, sep)
+    feats = None
+    if names is not None:
+        missing = [t for t in targets if t not in names]
+        if missing:
+            shown = ", ".join(names[:8]) + (" ..." if len(names) > 8 else "")
+            raise InputError(f"{path}: target column {missing[0]!r} not found; columns are: {shown}")
+        feats = _resolve_features(names, targets, features, exclude)
+    elif features or exclude:
+        raise InputError(f"{path}: --features/--exclude need named columns (CSV or Parquet)")
+    wide = rows is not None and feats is not None and len(feats) > rows
+    digests, hash_notes = _file_digests(path)
+    if test is not None:
+        tdig, tnotes = _file_digests(Path(test))
+        digests.update(tdig)
+        hash_notes += tnotes
+    if wide:
+        from .chunks import DEFAULT_BLOCK_COLUMNS
+        from .wide import wide_path
+
+        if engine == "dask":
+            raise InputError(f"{path} is wide ({rows} rows x {len(feats)} features): use "
+                             "--engine stream (column blocks); the dask engine splits rows")
+        if cv is not None:
+            raise InputError("--cv with wide data needs the in-memory engine (--engine memory)")
+        if path.is_dir():
+            raise InputError(f"{path}: wide data must be one Parquet file (columns are read "
+                             "selectively); combine the parts")
+        result = wide_path(path, target=targets if len(targets) > 1 else targets[0],
+                           features=feats, X_test=test, accurate=accurate, rank=rank,
+                           block_columns=chunk_rows or DEFAULT_BLOCK_COLUMNS,
+                           n_lambdas=n_lambdas, standardize=standardize, progress=progress)
+    elif engine == "stream":
+        from .chunks import DEFAULT_CHUNK_ROWS
+        from .stream import stream_path
+
+        result = stream_path(path, target=targets, features=feats, sep=sep,
+                             chunk_rows=chunk_rows or DEFAULT_CHUNK_ROWS, accurate=accurate,
+                             standardize=standardize, test=test, n_lambdas=n_lambdas, cv=cv,
+                             cv_seed=cv_seed, rank=rank, progress=progress)
+    else:
+        from .dask_engine import dask_path
+
+        result = dask_path(path, target=targets, features=feats, chunk_rows=chunk_rows,
+                           accurate=accurate, scheduler=scheduler, timeout=timeout,
+                           standardize=standardize, test=test, n_lambdas=n_lambdas, cv=cv,
+                           cv_seed=cv_seed, rank=rank, progress=progress)
+    cv_record = None
+    if result.cv_mse is not None:
+        cv_record = {"n_folds": result.n_folds, "repeats": 1,
+                     "scheme": "blocked" if cv_seed is None else "shuffled-hash",
+                     "seed": cv_seed, "scaling": "global", "method": "hat-diagonal blocks",
+                     "form": "woodbury", "mse": np.asarray(result.cv_mse).tolist(),
+                     "se": np.asarray(result.cv_se).tolist()}
+    summary = summary_dict(
+        result,
+        target=targets[0] if len(targets) == 1 else targets,
+        source=str(path),
+        input_sha256=digests,
+        split=None,
+        command_line=shlex.join(command_line if command_line is not None else sys.argv),
+        data_notes=list(result.notes) + hash_notes,
+        engine=result.engine_record(),
+        cv=cv_record,
+    )
+    if result.cv_mse is not None:
+        cvm = result.cv_mse if result.cv_mse.ndim == 1 else result.cv_mse[:, 0]
+        i = int(np.argmin(cvm))
+        summary["selected"]["cv"] = {"lambda": float(result.lambdas[i]),
+                                     "df": float(result.df[i]), "index": i,
+                                     "value": float(cvm[i])}
+    inputs = [k for k in digests]
+    _guard_inputs(out, ("path.csv", "coefficients.csv", "summary.json"), inputs)
+    files = [write_csv(out / "path.csv", *_per_target(path_table, result, targets))]
+    if result.coef is not None:
+        files.append(write_csv(out / "coefficients.csv",
+                               *_per_target(coefficient_table, result, targets)))
+    files.append(write_json(out / "summary.json", summary))
+    return ExploreRun(result=result, summary=summary, out_dir=out, files=files)

@@ -300,6 +300,7 @@ def dask_path(
     loo: bool = True,
     cv: int | None = None,
     cv_seed: int | None = None,
+    rank: int | None = None,
     progress=None,
 ) -> StreamPath:
     """The ridge path of a design held as a dask array (``engine="dask"``).
@@ -322,7 +323,7 @@ def dask_path(
         Seconds to wait for the scheduler.
     test, y_test : optional
         Test rows, in any form ``data`` accepts.
-    loo, cv, cv_seed, fit_intercept, standardize, n_lambdas, rtol
+    loo, cv, cv_seed, rank, fit_intercept, standardize, n_lambdas, rtol
         As in :func:`paths.stream.stream_path`.
     progress : callable, optional
         ``progress(label, done, total)`` at the start and end of each pass.
@@ -388,7 +389,7 @@ def dask_path(
         if fit_intercept and mom.n < 2:
             raise InputError(f"the data have {mom.n} row; at least 2 samples are needed")
         fit = factor_moments(mom, p, fit_intercept=fit_intercept, standardize=standardize,
-                             rtol=rtol)
+                             rtol=rtol, rank=rank)
         fac = replace(fit.fac, solver=fit.fac.solver.replace("stream-", "dask-"))
         fit = replace(fit, fac=fac)
         lam = default_grid(fit.fac.d, n_lambdas) if lam_user is None else lam_user

@@ -155,6 +155,8 @@ class _Fit:
     uty: np.ndarray  # (r, t)
     rss_out: np.ndarray  # (t,)
     raw_gram: bool
+    captured_share: float = 1.0
+    rank_limit: int | None = None
 
 
 def _preprocess(mom: Moments, p: int, fit_intercept: bool, standardize: bool):
@@ -198,7 +200,7 @@ def _preprocess(mom: Moments, p: int, fit_intercept: bool, standardize: bool):
 
 
 def factor_moments(mom: Moments, p: int, *, fit_intercept: bool = True, standardize: bool = True,
-                   rtol: float | None = None) -> _Fit:
+                   rtol: float | None = None, rank: int | None = None) -> _Fit:
     """Singular values, right singular vectors, :math:`U^T y` and the out-of-span RSS.
 
     Gram route: the eigendecomposition of the scaled p × p centered Gram
@@ -274,11 +276,28 @@ def factor_moments(mom: Moments, p: int, *, fit_intercept: bool = True, standard
             reason += "; accurate=True recommended"
     if r == 0:
         raise InputError("the centered design is numerically zero; nothing to fit")
+    share = 1.0
+    if rank is not None:
+        if int(rank) != rank or not 1 <= rank <= min(m, q):
+            raise InputError(f"--rank must be an integer in [1, {min(m, q)}] (min(n - 1, p) for "
+                             f"this {n} x {q} design); got {rank}")
+        total = float(np.sum(np.square(d_all)))
+        if rank < r:
+            # the discarded components' part of y moves outside the retained span
+            rss_out = rss_out + np.einsum("it,it->t", uty[rank:], uty[rank:])
+            r, d, vt, uty = rank, d[:rank], vt[:rank], uty[:rank]
+        share = float(np.sum(np.square(d)) / total) if total > 0 else 1.0
+        msg = (f"--rank {rank}: the fit is ridge on the top {r} principal components, capturing "
+               f"{100 * share:.2f}% of ||X||_F^2; the minimum-norm fit and the quantities near "
+               "the interpolation threshold need the full spectrum and are approximations")
+        warnings.warn(msg, UserWarning, stacklevel=3)
+        reason += f"; truncated to rank {r}"
     for a in (d, vt, uty):
         a.flags.writeable = False
     fac = Factorization(u=np.empty((0, r)), d=d, vt=vt, rank=r, tol=float(tol), d_max=dmax,
                         d_min=float(d_all[-1]), solver=solver, reason=reason)
-    return _Fit(design=design, fac=fac, uty=uty, rss_out=rss_out, raw_gram=mom.r is None)
+    return _Fit(design=design, fac=fac, uty=uty, rss_out=rss_out, raw_gram=mom.r is None,
+                captured_share=share, rank_limit=rank)
 
 
 # --------------------------------------------------------------------------- second pass
@@ -476,6 +495,12 @@ class StreamPath(RidgePath):
     n_folds : int
     notes : tuple of str
         What the engine did that a report should state.
+    captured_share : float
+        Share of :math:`\|Z\|_F^2` in the retained singular values (1 unless
+        the factorization was truncated with ``rank``).
+    approximate : bool
+        True when truncated (``rank``): the fit is ridge on the top principal
+        components and the min-norm quantities are approximations.
 
     ``factorization.u`` is empty (0 × r): the left singular vectors are never
     formed, so :meth:`criteria_at` (which needs them for leave-one-out) is not
@@ -488,6 +513,8 @@ class StreamPath(RidgePath):
     cv_se: np.ndarray | None = None
     n_folds: int = 0
     notes: tuple = ()
+    captured_share: float = 1.0
+    approximate: bool = False
 
     def criteria_at(self, lam):
         raise InputError("criteria at new penalties need another pass over the data with this "
@@ -496,7 +523,8 @@ class StreamPath(RidgePath):
     def engine_record(self) -> dict:
         """The engine's part of the summary record (passes, throughput, notes)."""
         return {"engine": self.engine, "passes": [p.as_dict() for p in self.passes],
-                "n_folds": self.n_folds, "notes": list(self.notes)}
+                "n_folds": self.n_folds, "notes": list(self.notes),
+                "captured_share": self.captured_share, "approximate": self.approximate}
 
 
 def _closed_forms(fit: _Fit, lam: np.ndarray):
@@ -588,7 +616,8 @@ def path_from_moments(fit: _Fit, lam, *, feature_names, loo, loo0, test=None, cv
         n_test=n_test, fit_intercept=des.fit_intercept, standardize=des.standardize,
         feature_names=list(feature_names), design=des, factorization=fac, uty=c,
         penalty_convention=PENALTY_CONVENTION, engine=engine, passes=tuple(passes),
-        n_folds=int(n_folds), notes=tuple(notes),
+        n_folds=int(n_folds), notes=tuple(notes), captured_share=fit.captured_share,
+        approximate=fit.rank_limit is not None,
         **out)
 
 
@@ -612,6 +641,7 @@ def stream_path(
     loo: bool = True,
     cv: int | None = None,
     cv_seed: int | None = None,
+    rank: int | None = None,
     progress=None,
 ) -> StreamPath:
     """The ridge path of tall data read in row chunks, without holding the design.
@@ -652,6 +682,11 @@ def stream_path(
         Also exact K-fold CV with ``cv`` folds in the second pass (fixed
         preprocessing): contiguous blocks of rows, or a seeded hashed shuffle
         with ``cv_seed``.
+    rank : int, optional
+        Keep only the top ``rank`` principal components (exact truncation of
+        the p × p factorization; a warning states the captured share of
+        :math:`\|Z\|_F^2` and that the min-norm quantities are then
+        approximations).  At most min(n - 1, p).
     progress : callable, optional
         ``progress(label, rows_done, rows_total_or_None)`` after each chunk.
 
@@ -722,7 +757,8 @@ def stream_path(
     if fit_intercept and mom.n < 2:
         raise InputError(f"the data have {mom.n} row; at least 2 samples are needed to fit an "
                          "intercept (or pass fit_intercept=False)")
-    fit = factor_moments(mom, p, fit_intercept=fit_intercept, standardize=standardize, rtol=rtol)
+    fit = factor_moments(mom, p, fit_intercept=fit_intercept, standardize=standardize, rtol=rtol,
+                         rank=rank)
     lam = default_grid(fit.fac.d, n_lambdas) if lam_user is None else lam_user
     loo_mse = loo0 = cvres = None
     notes = []
@@ -749,6 +785,10 @@ def stream_path(
                             else "contiguous blocks of rows"))
     else:
         notes.append("leave-one-out skipped (loo=False): no second pass")
+    if rank is not None:
+        notes.append(f"truncated to the top {fit.fac.rank} principal components (--rank), "
+                     f"capturing {100 * fit.captured_share:.2f}% of ||X||_F^2; min-norm "
+                     "quantities are approximations")
     test_res = None
     if test_src is not None:
         t0 = time.perf_counter()

@@ -60,9 +60,6 @@ class WidePath(StreamPath):
     :math:`\\|Z\\|_F^2` in the retained singular values (1 unless ``rank``).
     """
 
-    captured_share: float = 1.0
-    approximate: bool = False
-
     @property
     def multi_target(self) -> bool:
         return self.train_mse.ndim == 2
@@ -385,8 +382,8 @@ def wide_path(
             for s, e, z, *_ in sweep:
                 power(s, e, z, None, None, None, None)
                 if progress:
-                    progress(f"power iteration {it + 1}/{power_iters}", e, p)
-            passes.append(PassInfo(f"power iteration {it + 1}", p, time.perf_counter() - t0,
+                    progress(f"power iteration {it + 1}/{power_iters} over column blocks", e, p)
+            passes.append(PassInfo(f"power iteration {it + 1} over column blocks", p, time.perf_counter() - t0,
                                    n * p * 8))
             Qm = sla.qr(acc, mode="economic", check_finite=False)[0]
         B = np.zeros((kk, kk))
@@ -395,8 +392,8 @@ def wide_path(
             qz = Qm.T @ z
             B += qz @ qz.T
             if progress:
-                progress("final pass: projected Gram", e, p)
-        passes.append(PassInfo("final pass: projected Gram", p, time.perf_counter() - t0, n * p * 8))
+                progress("final pass: projected Gram over column blocks", e, p)
+        passes.append(PassInfo("final pass: projected Gram over column blocks", p, time.perf_counter() - t0, n * p * 8))
         wv, W = sla.eigh(B, check_finite=False)
         wv, W = np.maximum(wv[::-1], 0.0)[:rank], W[:, ::-1][:, :rank]
         d_all = np.sqrt(wv)
@@ -460,7 +457,7 @@ def wide_path(
             coef0[idx] = (z.T @ A0) / scale[act][:, None]
             if progress:
                 progress("coefficient pass over column blocks", e, p)
-        passes.append(PassInfo("coefficient pass", p, time.perf_counter() - t0, n * p * 8))
+        passes.append(PassInfo("coefficient pass over column blocks", p, time.perf_counter() - t0, n * p * 8))
 
     def sq(a):
         return a if (multi or a is None) else a[..., 0]

@@ -311,3 +311,82 @@ def test_constant_target_refused():
     X, _ = problem(n=100, p=3)
     with pytest.raises(InputError, match="constant"):
         stream_path(X, y=np.ones(100))
+
+
+# --------------------------------------------------------------------------- CLI
+def _parquet(path, X, y, **kw):
+    pq.write_table(pa.table({**{f"f{j}": X[:, j] for j in range(X.shape[1])}, "y": y}), path, **kw)
+
+
+def test_cli_stream_equals_memory_engine(tmp_path):
+    """``paths explore DATA --engine stream`` writes the numbers of the default
+    in-memory engine (path.csv / summary.json, 1e-10 relative), prints both
+    passes with their throughput, and records the engine in summary.json."""
+    X, y = problem(n=4000, p=4, seed=8)
+    Xt, yt = problem(n=300, p=4, seed=9)
+    _parquet(tmp_path / "d.parquet", X, y, row_group_size=1000)
+    _parquet(tmp_path / "t.parquet", Xt, yt)
+    runner = CliRunner()
+    base = ["explore", str(tmp_path / "d.parquet"), "--target", "y", "--test",
+            str(tmp_path / "t.parquet")]
+    r1 = runner.invoke(app, base + ["--out", str(tmp_path / "mem")])
+    r2 = runner.invoke(app, base + ["--engine", "stream", "--chunk-rows", "900",
+                                    "--out", str(tmp_path / "str")])
+    assert r1.exit_code == 0, r1.output
+    assert r2.exit_code == 0, r2.output
+    assert "hat diagonals" in r2.output and "rows/s" in r2.output
+    a = json.loads((tmp_path / "mem" / "summary.json").read_text())
+    b = json.loads((tmp_path / "str" / "summary.json").read_text())
+    for key in ("lambdas", "gcv", "loo_mse", "test_mse", "df", "coef_norm"):
+        assert relerr(b[key], a[key]) <= 1e-10, key
+    assert b["engine"]["engine"] == "stream" and len(b["engine"]["passes"]) == 3
+    ca = np.loadtxt(tmp_path / "mem" / "coefficients.csv", delimiter=",", skiprows=1)
+    cb = np.loadtxt(tmp_path / "str" / "coefficients.csv", delimiter=",", skiprows=1)
+    assert relerr(cb, ca) <= 1e-10
+
+
+def test_cli_wide_parquet_routes_to_column_blocks(tmp_path):
+    """A Parquet file with more feature columns than rows goes to the wide
+    engine under --engine stream; the GCV curve equals the in-memory engine's
+    (1e-9 relative)."""
+    rng = np.random.default_rng(10)
+    X = rng.standard_normal((30, 400))
+    y = X[:, 0] + rng.standard_normal(30)
+    _parquet(tmp_path / "w.parquet", X, y)
+    r = CliRunner().invoke(app, ["explore", str(tmp_path / "w.parquet"), "-t", "y", "--engine",
+                                 "stream", "--chunk-rows", "64", "--out", str(tmp_path / "o")])
+    assert r.exit_code == 0, r.output
+    s = json.loads((tmp_path / "o" / "summary.json").read_text())
+    assert s["engine"]["engine"] == "wide" and s["solver"] == "wide-gram"
+    assert relerr(s["gcv"], fit_path(X, y).gcv) <= 1e-9
+
+
+@pytest.mark.parametrize("case", ["non-numeric", "schema", "rank", "holdout"])
+def test_cli_bad_input_exit_2(tmp_path, case):
+    """Bad input through the CLI: one line on stderr naming the problem, exit
+    status 2, no traceback (issue 7 bad-input list)."""
+    args = ["explore"]
+    if case == "non-numeric":
+        f = tmp_path / "d.csv"
+        f.write_text("a,y\n" + "\n".join(f"{i},{i % 7}" for i in range(30)) + "\n7x,1\n")
+        args += [str(f), "-t", "y", "--engine", "stream", "--chunk-rows", "8"]
+        want = "rows 25-31: column 'a' has a non-numeric value '7x' at data row 31"
+    elif case == "schema":
+        pq.write_table(pa.table({"a": [1.0, 2.0, 3.0], "y": [1.0, 2.0, 4.0]}), tmp_path / "p0.parquet")
+        pq.write_table(pa.table({"a": [1, 2], "y": [1.0, 2.0]}), tmp_path / "p1.parquet")
+        args += [str(tmp_path), "-t", "y", "--engine", "stream"]
+        want = "schema differs"
+    elif case == "rank":
+        X, y = problem(n=50, p=5)
+        _parquet(tmp_path / "d.parquet", X, y)
+        args += [str(tmp_path / "d.parquet"), "-t", "y", "--engine", "stream", "--rank", "6"]
+        want = "--rank must be an integer in [1, 5]"
+    else:
+        X, y = problem(n=50, p=5)
+        _parquet(tmp_path / "d.parquet", X, y)
+        args += [str(tmp_path / "d.parquet"), "-t", "y", "--engine", "stream", "--holdout", "0.2"]
+        want = "--holdout is not available with --engine stream"
+    r = CliRunner().invoke(app, args + ["--out", str(tmp_path / "out")])
+    assert r.exit_code == 2, r.output
+    assert want in r.output
+    assert "Traceback" not in r.output

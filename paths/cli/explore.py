@@ -39,6 +39,12 @@ class CVScaling(str, Enum):
     per_fold = "per-fold"
 
 
+class Engine(str, Enum):
+    memory = "memory"
+    stream = "stream"
+    dask = "dask"
+
+
 def _fmt_or(v, fmt="{:.4g}") -> str:
     return "n/a" if v is None else fmt.format(float(v))
 
@@ -165,8 +171,37 @@ def explore_cmd(
     rule: str = typer.Option(None, "--rule", help="Reported choice: gcv, loo, cv, one-se, "
                              "df=VALUE, fraction=VALUE, hkb, lw or isotropic (default: cv with "
                              "--cv, else gcv)."),
+    engine: Engine = typer.Option(Engine.memory, "--engine", help="memory: read everything; "
+                                  "stream: row chunks (tall) or column blocks (wide Parquet) in "
+                                  "bounded memory; dask: a dask cluster (see docs/scaling.md)."),
+    scheduler: str = typer.Option(None, "--scheduler", help="Address of a running dask "
+                                  "scheduler, e.g. tcp://10.0.0.5:8786 (--engine dask)."),
+    scheduler_timeout: float = typer.Option(10.0, "--scheduler-timeout",
+                                            help="Seconds to wait for --scheduler to answer."),
+    chunk_rows: int = typer.Option(None, "--chunk-rows", help="Rows per chunk (stream/dask; "
+                                   "columns per block for wide data). Default 65536 / 4096."),
+    accurate: bool = typer.Option(False, "--accurate", help="Chunked TSQR instead of the Gram "
+                                  "matrix (stream/dask): backward stable, ~2x the arithmetic."),
+    rank: int = typer.Option(None, "--rank", help="Keep the top K principal components "
+                             "(randomized SVD for wide data): approximate, see the warning."),
 ):
     """Fit the whole ridge path of DATA and write path.csv, coefficients.csv, summary.json."""
+    if engine is not Engine.memory or rank is not None or scheduler is not None:
+        from ._engines import run_engine
+
+        run = run_engine(
+            engine="dask" if scheduler is not None and engine is Engine.memory else (
+                "stream" if engine is Engine.memory else engine.value),
+            options=dict(holdout=holdout, groups=groups, id_column=id_column, encode=encode,
+                         drop_missing=drop_missing, repeats=repeats, cv_scaling=cv_scaling,
+                         rule=rule, solver=solver, folds=folds, seed=seed),
+            data=data, target=target, out_dir=out, test=test, features=features or None,
+            exclude=exclude or None, sep=sep, n_lambdas=lambdas, standardize=standardize,
+            force=force, chunk_rows=chunk_rows, accurate=accurate, rank=rank,
+            scheduler=scheduler, timeout=scheduler_timeout, cv=cv,
+            command_line=["paths", *sys.argv[1:]])
+        print_summary(run)
+        return
     group_labels = None
     if groups is not None:
         group_labels = read_groups(data, groups, sep=sep)
