@@ -29,7 +29,11 @@ Two algebraically equal forms are used, both cancellation free:
     restricted to the complement of the ones vector (intercept unpenalized).
     It stays exact as :math:`\\lambda \\to 0`, where :math:`I - H_{ff}` itself
     becomes singular, and at :math:`\\lambda = 0` gives the limit of the
-    per-fold minimum-norm refits.
+    per-fold minimum-norm refits.  (In the primal form, :math:`\\lambda = 0` is
+    evaluated at :math:`10^{-10} d_r^2`: the block :math:`L_{ff}` is singular when a
+    fold's training rows lose rank, and the limit is then reached only from
+    :math:`\\lambda > 0`; the value agrees with the limit to about :math:`10^{-10}`
+    relative, or to the conditioning of the block.)
 
 For every fold, the :math:`b \\times b` blocks of all :math:`k` penalties come from
 ONE matrix product, :math:`(k \\times r) \\cdot (r \\times b^2)` (the rows of the
@@ -380,6 +384,8 @@ class _ExactEngine:
         t = self.c.shape[1]
         out = np.empty((lam.size, t))
         step = max(1, _CHUNK_ELEMS // max(b * b, r * b))
+        if not self.dual:  # lambda = 0: the lambda -> 0+ limit (see _solve_at_zero)
+            lam = np.where(lam == 0, 1e-10 * self.d2[-1], lam)
         for s in range(0, lam.size, step):
             lk = lam[s:s + step]
             denom = self.d2[None, :] + lk[:, None]  # (kc, r)
@@ -621,7 +627,18 @@ def loo_residuals(path, lam) -> np.ndarray:
         lev = 1.0 - np.einsum("ir,ir->i", un, un) - (1.0 / design.n_samples
                                                     if design.fit_intercept else 0.0)
         eperp = to_sample_space(design.zy - fac.u @ c, design.fit_intercept)
-        den = np.maximum(lev, 0.0)[:, None] + np.square(un) @ coefs
+        lev = np.maximum(lev, 0.0)
+        den = lev[:, None] + np.square(un) @ coefs
         num = eperp[:, None, :] + np.einsum("ir,rk,rt->ikt", un, coefs, c)
+        # lambda = 0 on a row with no leverage left outside the span (H_ii = 1): the limit
+        # sum_j U_ij c_j / d_j^2 / sum_j U_ij^2 / d_j^2, as in paths.path
+        small = lev <= 100 * m * np.finfo(float).eps
+        zero = lam == 0
+        if small.any() and zero.any():
+            lim = (un[small] @ (c / d2[:, None])) / (np.square(un[small]) @ (1.0 / d2))[:, None]
+            rows = np.flatnonzero(small)
+            for kk in np.flatnonzero(zero):
+                den[rows, kk] = 1.0
+                num[rows, kk, :] = lim
     res = num / den[:, :, None]
     return res if path.multi_target else res[..., 0]

@@ -170,3 +170,20 @@ def test_bad_input_one_line(make_problem, kwargs, match):
     with pytest.raises(InputError, match=match) as info:
         cross_validate(X, y, [1.0], **kwargs)
     assert "\n" not in str(info.value)
+
+
+def test_lambda_zero_limit_with_a_rank_losing_fold():
+    """lambda = 0 in the primal form when a fold's training rows lose rank (a column non-zero
+    in one row only): the value is the lambda -> 0+ limit, i.e. scikit-learn Ridge refits at
+    lambda = 1e-9 (min-norm per fold, up to O(lambda)); tolerance 1e-5 covers the O(1e-9)
+    distance to the limit times the block's conditioning."""
+    rng = np.random.default_rng(0)
+    n, p = 30, 10
+    X = rng.standard_normal((n, p))
+    X[:, 0] = 0.0
+    X[3, 0] = 1.0
+    y = X @ rng.standard_normal(p) + rng.standard_normal(n)
+    cv = cross_validate(X, y, [0.0], n_folds=5, method="exact")
+    assert cv.form == "primal"
+    ref = _brute_fold_mse(X, y, [1e-9], cv.labels[0])[..., 0]
+    assert_allclose(cv.fold_mse[0], ref, rtol=1e-5)
