@@ -10,6 +10,9 @@ from .path import PENALTY_CONVENTION, MinNormFit, RidgePath, fit_path
 from .cv import CostModel, CVResult, cross_validate, make_folds
 from .select import NoiseEstimate, Selection, SelectionReport, noise_variance, select_penalty
 from .estimator import RidgePathRegressor
+from .stream import StreamPath, stream_path
+from .wide import WidePath, wide_path
+from .dask_engine import dask_path
 
 __version__ = "0.1.0"
 
@@ -34,5 +37,10 @@ __all__ = [
     "noise_variance",
     "select_penalty",
     "RidgePathRegressor",
+    "StreamPath",
+    "stream_path",
+    "WidePath",
+    "wide_path",
+    "dask_path",
     "__version__",
 ]
