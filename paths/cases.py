@@ -9,6 +9,9 @@ A case file has these tables (every key optional unless marked)::
                  cv, repeats, folds, cv_scaling, rule, ...)
     [threshold]  options of paths.threshold.threshold_sweep (over, order, repeats,
                  n_points, ridge_lambda, ...), for analysis = "threshold"
+    [truth]      arguments of paths.simulate.make_truth (p, covariance, snr, seed, ...)
+                 and [simulate] those of paths.simulate.simulate (n_train, n_test,
+                 repeats, n_points, ...), for analysis = "simulate" (no [data] table)
     [figures]    formats, width, x ("log_lambda" | "df"), report (bool)
 
 Unknown tables or keys are refused with one line naming them and listing the
@@ -39,7 +42,7 @@ __all__ = ["Case", "CaseRun", "GENERATORS", "builtin_dir", "list_cases", "find_c
 
 #: The case ``paths demo`` runs.
 DEMO_CASE = "calibration"
-ANALYSES = ("explore", "threshold")
+ANALYSES = ("explore", "threshold", "simulate")
 
 
 def _generators() -> dict:
@@ -62,6 +65,7 @@ _FIT_OWNED = {"data", "out_dir", "test", "holdout", "seed", "force", "input_sha2
               "command_line", "groups", "formats", "width", "report", "x_axis", "figure_x",
               "extra"}
 _THRESHOLD_OWNED = {"X", "y", "X_test", "y_test", "progress", "on_point", "variances"}
+_SIMULATE_OWNED = {"truth", "progress"}
 
 
 def _keyword_names(func, owned) -> tuple:
@@ -81,6 +85,13 @@ def _valid_keys() -> dict:
         keys["threshold"] = _keyword_names(threshold_sweep, _THRESHOLD_OWNED)
     except ImportError:  # pragma: no cover - the threshold module is part of the package
         keys["threshold"] = ()
+    try:
+        from .simulate import make_truth, simulate
+
+        keys["truth"] = _keyword_names(make_truth, set())
+        keys["simulate"] = _keyword_names(simulate, _SIMULATE_OWNED)
+    except ImportError:  # pragma: no cover
+        keys["truth"] = keys["simulate"] = ()
     return keys
 
 
@@ -97,6 +108,8 @@ class Case:
     fit: dict
     threshold: dict
     figures: dict
+    truth: dict = field(default_factory=dict)
+    simulate: dict = field(default_factory=dict)
     source: Path | None = None
 
 
@@ -188,7 +201,14 @@ def parse_case(text: str, *, source=None) -> Case:
     if analysis not in ANALYSES:
         raise InputError(f"{where}: [case] analysis must be {' or '.join(ANALYSES)}; "
                          f"got {analysis!r}")
-    if ("generator" in data) == ("file" in data):
+    if analysis == "simulate":
+        if data:
+            raise InputError(f"{where}: analysis = \"simulate\" draws its data from [truth]; "
+                             "remove the [data] table")
+        if "p" not in doc.get("truth", {}) or "n_train" not in doc.get("simulate", {}):
+            raise InputError(f"{where}: analysis = \"simulate\" needs [truth] p = FEATURES and "
+                             "[simulate] n_train = ROWS")
+    elif ("generator" in data) == ("file" in data):
         raise InputError(f"{where}: [data] needs exactly one of generator = NAME "
                          f"({', '.join(GENERATORS)}) or file = PATH")
     if "generator" in data:
@@ -205,7 +225,7 @@ def parse_case(text: str, *, source=None) -> Case:
         if bad:
             raise InputError(f"{where}: unknown generator parameter(s) {', '.join(sorted(bad))} "
                              f"for {gen}; valid: {', '.join(allowed)}")
-    elif "target" not in data:
+    elif "file" in data and "target" not in data:
         raise InputError(f"{where}: [data] file needs target = COLUMN")
     figs = doc.get("figures", {})
     if "formats" in figs:
@@ -220,9 +240,11 @@ def parse_case(text: str, *, source=None) -> Case:
         raise InputError(f"{where}: [figures] x must be log_lambda or df; got {figs['x']!r}")
     return Case(name=str(meta.get("name", stem)), title=str(meta.get("title", stem)),
                 description=str(meta.get("description", "")),
-                synthetic=bool(meta.get("synthetic", "generator" in data)),
+                synthetic=bool(meta.get("synthetic", "generator" in data
+                                        or analysis == "simulate")),
                 analysis=analysis, data=dict(data), fit=dict(doc.get("fit", {})),
                 threshold=dict(doc.get("threshold", {})), figures=dict(figs),
+                truth=dict(doc.get("truth", {})), simulate=dict(doc.get("simulate", {})),
                 source=None if source is None else Path(source))
 
 
@@ -267,9 +289,13 @@ def run_case(case: Case, out_dir, *, force: bool = False, formats=None, width=No
     fmts = parse_formats(formats if formats is not None else figs.get("formats", ("png", "svg")))
     wid = parse_width(width if width is not None else figs.get("width", "single"))
     cmd = command_line if command_line is not None else ["paths", *sys.argv[1:]]
-    ds, test, digests, gen = _dataset(case)
     extra = {"case": case.name, "title": case.title, "description": case.description,
-             "synthetic": case.synthetic, "generator": gen}
+             "synthetic": case.synthetic}
+    if case.analysis == "simulate":
+        return _run_simulate(case, out_dir, force=force, formats=fmts, width=wid,
+                             command_line=cmd, extra=extra)
+    ds, test, digests, gen = _dataset(case)
+    extra["generator"] = gen
     if case.analysis == "threshold":
         return _run_threshold(case, ds, test, digests, out_dir, force=force, formats=fmts,
                               width=wid, command_line=cmd, extra=extra)
@@ -301,19 +327,7 @@ def _run_threshold(case, ds, test, digests, out_dir, *, force, formats, width, c
         tr, te = split_holdout(X.shape[0], frac, seed)
         X, y, X_test, y_test = X[tr], y[tr], X[te], y[te]
         split = {"holdout": frac, "seed": seed, "n_test": int(te.size)}
-    variances = None
-    source = None
-    truth = case.data.get("generator") == "isotropic"
-    if truth:
-        from .datasets import make_isotropic
-        from .threshold import VarianceEstimate
-
-        frame = make_isotropic(**case.data.get("params", {}))
-        variances = _truth_variances(VarianceEstimate, frame.attrs)
-        source = "truth (simulation)"
     kw = dict(case.threshold)
-    if variances is not None:
-        kw.update(variances=variances, variance_source=source)
     result = threshold_sweep(X, y, X_test, y_test, **kw)
     summary = threshold_summary(result, source=ds.source, input_sha256=digests, split=split,
                                 command_line=shlex.join(command_line), **extra)
@@ -323,21 +337,41 @@ def _run_threshold(case, ds, test, digests, out_dir, *, force, formats, width, c
     files = [write_csv(out / "threshold.csv", *threshold_table(result)),
              write_json(out / "threshold.json", summary)]
     report = None
-    if case.figures.get("report", True) or True:
-        from .report import write_threshold_outputs
+    from .report import write_threshold_outputs
 
-        more = write_threshold_outputs(result, summary, out, formats=formats, width=width,
-                                       report=case.figures.get("report", True))
-        files += more
-        report = out / "report.html" if (out / "report.html").exists() else None
+    files += write_threshold_outputs(result, summary, out, formats=formats, width=width,
+                                     report=case.figures.get("report", True))
+    report = out / "report.html" if (out / "report.html").exists() else None
     return CaseRun(case=case, out_dir=out, files=files, summary=summary, result=result,
                    report=report)
 
 
-def _truth_variances(cls, attrs):
-    """A VarianceEstimate from a simulation's known truth."""
-    fields = inspect.signature(cls).parameters
-    vals = {"noise_variance": float(attrs["noise_variance"]),
-            "signal_variance": float(attrs["signal_variance"]),
-            "noise_estimator": "truth (simulation)", "signal_estimator": "truth (simulation)"}
-    return cls(**{k: v for k, v in vals.items() if k in fields})
+def _run_simulate(case, out_dir, *, force, formats, width, command_line, extra) -> CaseRun:
+    """Simulation from a known truth: the threshold sweep with exact bias² and variance."""
+    from .output import prepare_out_dir, write_csv, write_json
+    from .report import write_threshold_outputs
+    from .simulate import bias_variance_table, make_truth, simulate
+    from .summary import versions
+    from .threshold import threshold_summary, threshold_table
+
+    out = prepare_out_dir(out_dir, force=force)
+    truth_kw = dict(case.truth)
+    truth = make_truth(truth_kw.pop("p"), **truth_kw)
+    sim_kw = dict(case.simulate)
+    sim = simulate(sim_kw.pop("n_train"), truth, **sim_kw)
+    extra = dict(extra, generator={"name": "paths.simulate.make_truth", "params": dict(case.truth),
+                                   "seed": case.truth.get("seed", 0)},
+                 truth={"noise_variance": truth.noise_variance,
+                        "signal_variance": truth.signal_variance,
+                        "description": truth.description})
+    summary = threshold_summary(sim.sweep, source=f"synthetic: {truth.description}",
+                                input_sha256={}, command_line=shlex.join(command_line), **extra)
+    summary["versions"] = versions()
+    files = [write_csv(out / "threshold.csv", *threshold_table(sim.sweep)),
+             write_csv(out / "bias_variance.csv", *bias_variance_table(sim)),
+             write_json(out / "threshold.json", summary)]
+    files += write_threshold_outputs(sim, summary, out, formats=formats, width=width,
+                                     report=case.figures.get("report", True))
+    report = out / "report.html" if (out / "report.html").exists() else None
+    return CaseRun(case=case, out_dir=out, files=files, summary=summary, result=sim,
+                   report=report)

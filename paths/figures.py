@@ -230,7 +230,16 @@ def spectrum_figure(result, *, lam=None, selected=None, width: str = "single",
 def threshold_figure(sweep, *, theory=None, noise_variance=None, bias_variance=None,
                      width: str = "single", name: str = "fig-threshold") -> Panel:
     """Test MSE across p′ = n (a), the training curve over its law (b), and — in
-    simulation — bias² and variance of the min-norm fit (c)."""
+    simulation — bias² and variance of the min-norm fit (c).
+
+    ``sweep`` may be a :class:`paths.threshold.ThresholdResult`, a
+    :class:`paths.simulate.SimulationResult` (then panel (c) is drawn from its exact
+    bias² and variance), or a ``threshold.csv``-like table.
+    """
+    if hasattr(sweep, "bias2") and hasattr(sweep, "sweep"):
+        if bias_variance is None:
+            bias_variance = sweep
+        sweep = sweep.sweep
     drawers = [lambda ax: plot_threshold(sweep, ax, theory=theory),
                lambda ax: plot_training_law(sweep, ax, noise_variance=noise_variance,
                                             theory=theory)]
@@ -243,7 +252,7 @@ def threshold_figure(sweep, *, theory=None, noise_variance=None, bias_variance=N
                + ("; (c) exact bias^2 and variance of the min-norm fit" if bias_variance
                   is not None else "") + ". Penalty convention: minimize ||y - b0 - X beta||^2 "
                "+ lambda ||beta||^2, intercept unpenalized.")
-    layout = {"single": lambda k: (k, 1, 2.6 * k + 0.2), "double": lambda k: (1, k, 2.7)}
+    layout = {"single": lambda k: (k, 1, 2.9 * k + 0.4), "double": lambda k: (1, k, 3.4)}
     return _compose(name, width, caption, layout, drawers)
 
 

@@ -772,6 +772,15 @@ def _columns(table) -> dict:
     A :class:`paths.threshold.ThresholdResult` is read through
     :func:`paths.threshold.threshold_table`, so the figure draws what the CSV holds.
     """
+    if hasattr(table, "bias2") and hasattr(table, "sweep"):  # paths.simulate.SimulationResult
+        from .simulate import bias_variance_table
+
+        header, rows = bias_variance_table(table)
+        cols = {h: np.array([r[i] for r in rows], dtype=object) for i, h in enumerate(header)}
+        for h in header:
+            if h not in ("over", "method"):
+                cols[h] = np.array([np.nan if v is None else v for v in cols[h]], dtype=float)
+        return cols
     if hasattr(table, "band_of") and hasattr(table, "methods"):
         from .threshold import threshold_table
 
@@ -818,8 +827,8 @@ def _aggregate(cols: dict, method: str, value: str):
 def _ratio_label(cols) -> str:
     over = cols.get("over")
     if over is not None and np.size(over) and str(np.asarray(over)[0]) == "samples":
-        return r"ratio $p/n'$ (features / training samples)"
-    return r"ratio $p'/n$ (features in the model / training samples)"
+        return "ratio $p/n'$\n(features / training rows)"
+    return "ratio $p'/n$\n(features in the model / training rows)"
 
 
 def plot_threshold(sweep, ax=None, *, theory=None, methods=None, band: bool = True,
@@ -886,9 +895,11 @@ def plot_threshold(sweep, ax=None, *, theory=None, methods=None, band: bool = Tr
     ax.set_yscale("log")
     ax.set_xlabel(art.x_quantity)
     ax.set_ylabel(art.y_quantity)
-    art.texts.append(ax.legend(loc="best", fontsize="x-small", frameon=False,
+    art.texts.append(ax.legend(loc="lower left", bbox_to_anchor=(0.0, 1.01, 1.0, 0.1),
+                               mode="expand", ncol=2, borderaxespad=0.0, fontsize="xx-small",
+                               frameon=False, handlelength=2.2,
                                title=f"band: ±1 SE over {reps} repeats" if reps > 1 and band
-                               else None, title_fontsize="x-small"))
+                               else None, title_fontsize="xx-small"))
     return art
 
 

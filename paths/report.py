@@ -343,9 +343,11 @@ def reproducibility(summary: dict) -> list:
     split = summary.get("split") or {}
     if isinstance(split, dict) and split.get("seed") is not None:
         seeds.append(f"holdout split: {split['seed']}")
-    cv = (_numbers(summary).get("cv") or {})
+    cv = summary.get("cv") if isinstance(summary.get("cv"), dict) else {}
     if cv.get("seed") is not None:
         seeds.append(f"cross-validation folds: {cv['seed']}")
+    if "peak" in summary and summary.get("seed") is not None:
+        seeds.append(f"sweep orders / draws: {summary['seed']}")
     gen = summary.get("generator") or {}
     if isinstance(gen, dict) and gen.get("seed") is not None:
         seeds.append(f"data generator: {gen['seed']}")
