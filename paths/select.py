@@ -733,10 +733,9 @@ def _one_se(path, cv, j, lam_min, mse_min, se_min):
     thresh = mse_min + se_min
     ok = (mse <= thresh) & (lam >= lam_min)
     note = f"largest lambda with CV error <= {mse_min:.4g} + {se_min:.4g} (min + 1 SE)"
-    if not ok.any():
-        lam_1se, idx = lam_min, int(np.argmin(np.abs(np.log(np.maximum(lam, 1e-300))
-                                                     - np.log(max(lam_min, 1e-300)))))
-        return _make(path, "one-se", lam_1se, j, cv=cv, index=idx, note=note)
+    if not ok.any():  # the CV minimum lies beyond the largest grid penalty
+        return _make(path, "one-se", lam_min, j, cv=cv,
+                     note=note + "; no grid penalty above the CV minimum: the minimum reported")
     cand = np.flatnonzero(ok)
     idx = int(cand[np.argmax(lam[cand])])
     above = lam > lam[idx]

@@ -26,15 +26,15 @@ from paths.select import (RULES, noise_variance, one_se_index, parse_rule, selec
                           shrinkage_fraction)
 
 
-@pytest.mark.parametrize("seed", [0, 1, 2])
+@pytest.mark.parametrize("seed", [0, 1])
 def test_gcv_choice_is_asymptotically_optimal(seed):
     """Golub, Heath & Wahba (1979, Technometrics 21, Thm 2): the GCV choice minimizes the
     expected in-sample prediction error T(lambda) = E||H y - E y||^2 / n asymptotically.
-    Known model, n = 2000, p = 300; T from a numpy SVD of the centered design:
+    Known model, n = 2000, p = 200; T from a numpy SVD of the centered design:
     T = (sum s_j^2 a_j^2 + sigma^2 (1 + sum f_j^2)) / n, a = U^T X_c beta.
-    Bound: T(GCV choice) / min T <= 1.05 (measured ratios were 1.0006-1.0064)."""
+    Bound: T(GCV choice) / min T <= 1.05 (measured ratios at p = 300: 1.0006-1.0064)."""
     rng = np.random.default_rng(seed)
-    n, p, sigma = 2000, 300, 1.0
+    n, p, sigma = 2000, 200, 1.0
     X = rng.standard_normal((n, p)) * np.geomspace(0.3, 3.0, p)
     beta = 0.1 * rng.standard_normal(p)
     y = X @ beta + sigma * rng.standard_normal(n)
@@ -67,13 +67,13 @@ def test_one_se_rule_hand_computed():
 
 @pytest.mark.parametrize("regime", ["n>p", "p>n"])
 def test_noise_variance_unbiased_by_simulation(regime):
-    """sigma^2 estimate within 3 standard errors of the known sigma^2 = 2.25 over 40 repeats.
+    """sigma^2 estimate within 3 standard errors of the known sigma^2 = 2.25 over 30 repeats.
     n > p: OLS RSS/(n - p - 1), unbiased (projection argument, common practice).
     p > n: ridge RSS/(n - tr(2H - HH^T)) (Hastie & Tibshirani 1990, sec. 3.5), nearly unbiased
     when the fit's bias is small: a 3-factor design with the signal in the factors."""
     sigma2 = 2.25
     vals = []
-    for s in range(40):
+    for s in range(30):
         rng = np.random.default_rng(100 + s)
         if regime == "n>p":
             n, p = 200, 50
