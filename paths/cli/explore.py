@@ -184,8 +184,23 @@ def explore_cmd(
                                   "matrix (stream/dask): backward stable, ~2x the arithmetic."),
     rank: int = typer.Option(None, "--rank", help="Keep the top K principal components "
                              "(randomized SVD for wide data): approximate, see the warning."),
+    fig_format: str = typer.Option("png,svg", "--format", help="Figure formats, comma-separated: "
+                                   "png (300 dpi), pdf (TrueType fonts), svg."),
+    fig_width: str = typer.Option("single", "--width", help="Figure width: single (3.5 in) or "
+                                  "double (7.2 in) journal column."),
+    fig_x: str = typer.Option("log_lambda", "--figure-x", help="Path figures against log_lambda "
+                              "or df (effective degrees of freedom)."),
+    report: bool = typer.Option(True, "--report/--no-report", help="Write report.md and a "
+                                "self-contained report.html."),
 ):
     """Fit the whole ridge path of DATA and write path.csv, coefficients.csv, summary.json."""
+    from ..figures import parse_formats, parse_width
+
+    fig_formats, fig_width = parse_formats(fig_format), parse_width(fig_width)
+    if fig_x not in ("log_lambda", "df"):
+        from .._validation import InputError
+
+        raise InputError(f"--figure-x must be log_lambda or df; got {fig_x!r}")
     if engine is not Engine.memory or rank is not None or scheduler is not None:
         from ._engines import run_engine
 
@@ -222,6 +237,9 @@ def explore_cmd(
                   n_lambdas=lambdas, standardize=standardize, solver=solver.value, force=force,
                   input_sha256=digests, command_line=["paths", *sys.argv[1:]],
                   cv=cv, repeats=repeats, groups=group_labels, folds=folds.value,
-                  cv_scaling=cv_scaling.value, rule=rule)
+                  cv_scaling=cv_scaling.value, rule=rule, formats=fig_formats,
+                  width=fig_width, x_axis=fig_x, report=report)
     print_summary(run)
     print_rules(run)
+    if (run.out_dir / "report.html").exists():
+        console.print(f"[bold]report:[/] {run.out_dir / 'report.html'}")
