@@ -82,8 +82,8 @@ def test_routes_agree_on_well_conditioned(shape):
 def test_auto_falls_back_to_svd_and_matches_it(case):
     """On ill-conditioned designs (monomial basis, cond >= 1e8) and square
     Gaussian designs (p = n, p = n - 1 after centering: smallest singular value
-    near 0 by Marchenko-Pastur, so the Gram route's predicted error is far above
-    1e-10), ``solver="auto"`` takes a backward-stable route; its reason says so;
+    near 0 by Marchenko-Pastur, cond ~ 1e3), ``solver="auto"`` takes a
+    backward-stable route; its reason says so;
     its smallest singular values and min-norm coefficients equal the SVD
     route's to ~cond * eps (we allow 100 cond eps)."""
     rng = np.random.default_rng(5)
