@@ -195,28 +195,44 @@ class ParquetRows(RowSource):
                          nbytes_per_row=8 * (len(features) + len(targets)))
 
     def __iter__(self):
+        import pyarrow as pa
         import pyarrow.parquet as pq
 
         start = 0
         cols = self.columns
+        pool = pa.default_memory_pool()
         for f in self._files:
-            pf = pq.ParquetFile(f)
-            for batch in pf.iter_batches(batch_size=self.chunk_rows, columns=cols):
-                rows = batch.num_rows
+            pf = pq.ParquetFile(f, pre_buffer=False)
+            # one row group at a time, a few columns at a time (iter_batches reads ahead and
+            # holds several whole groups); the pool's unused memory is released as we go
+            for g in range(pf.num_row_groups):
+                rows = pf.metadata.row_group(g).num_rows
                 block = np.empty((rows, len(cols)))
-                for j, name in enumerate(cols):
-                    col = batch.column(j)
-                    if col.null_count:
-                        i = _first_null(col)
-                        raise InputError(
-                            f"{f}: rows {start + 1}-{start + rows}: column {name!r} has "
-                            f"{col.null_count} null value(s) (first at data row {start + i + 1}); "
-                            "remove or impute them"
-                        )
-                    block[:, j] = col.to_numpy(zero_copy_only=False)
+                step = max(1, int((32 << 20) // max(8 * rows, 1)))
+                for c0 in range(0, len(cols), step):
+                    part = pf.read_row_group(g, columns=cols[c0:c0 + step])
+                    self._fill(block, c0, part, f, start)
+                    del part
+                    pool.release_unused()
                 _finite_or_raise(block, start, cols, f"{f}: ")
-                yield start, block
+                for off in range(0, rows, self.chunk_rows):
+                    yield start + off, block[off:off + self.chunk_rows]
                 start += rows
+                del block
+
+    def _fill(self, block, c0, table, f, start):
+        rows = table.num_rows
+        for j in range(table.num_columns):
+            col = table.column(j)
+            name = self.columns[c0 + j]
+            if col.null_count:
+                i = _first_null(col)
+                raise InputError(
+                    f"{f}: rows {start + 1}-{start + rows}: column {name!r} has "
+                    f"{col.null_count} null value(s) (first at data row {start + i + 1}); "
+                    "remove or impute them"
+                )
+            block[:, c0 + j] = col.to_numpy()
 
 
 def _first_null(col) -> int:

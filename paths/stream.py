@@ -368,8 +368,11 @@ class HatPass:
         return (x % np.uint64(self.n_folds)).astype(np.int64)
 
     def add(self, start: int, block: np.ndarray, p: int) -> None:
-        ub, yc = self.rows_u(block, p)
-        self.add_rows(start, ub, yc)
+        # sub-blocks keep the (rows x k) temporaries small whatever the chunk size
+        step = max(256, (4 << 20) // (8 * max(self.k * self.t, self.fit.fac.rank, 1)))
+        for off in range(0, block.shape[0], step):
+            ub, yc = self.rows_u(block[off:off + step], p)
+            self.add_rows(start + off, ub, yc)
 
     def add_rows(self, start: int, ub: np.ndarray, yc: np.ndarray) -> None:
         fit = self.fit
