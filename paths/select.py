@@ -354,25 +354,9 @@ def isotropic_lambda(path, sigma2, target: int = 0) -> float | None:
 
 # -------------------------------------------------------------------- refinement
 def _gcv_values(path, lam, j):
-    """GCV :math:`n\\,\\mathrm{RSS}/(n - \\mathrm{df})^2` at ``lam`` for target ``j``.
-
-    As :func:`paths.path.criteria`, except that at full row rank the part of
-    the response outside the column span is exactly zero and is not added (its
-    rounding-level value would dominate RSS for tiny penalties); at 0, the limit.
-    """
+    """GCV :math:`n\\,\\mathrm{RSS}/(n - \\mathrm{df})^2` at ``lam`` for target ``j``
+    (:meth:`paths.path.RidgePath.criteria_at`; at 0, the min-norm limit)."""
     lam = np.atleast_1d(np.asarray(lam, dtype=float))
-    fac, design = path.factorization, path.design
-    m, r = fac.u.shape
-    c2 = np.square(path.uty[:, j])
-    d2 = np.square(fac.d)
-    if r == m:
-        out = np.empty(lam.size)
-        pos = lam > 0
-        w = 1.0 / (d2[:, None] + lam[None, pos])  # S/lam, exact as lam -> 0
-        out[pos] = design.n_samples * (np.square(w).T @ c2) / np.square(w.sum(axis=0))
-        if (~pos).any():
-            out[~pos] = design.n_samples * np.sum(c2 / d2**2) / np.sum(1.0 / d2) ** 2
-        return out
     return _target_col(path.criteria_at(lam).gcv, j).reshape(lam.shape)
 
 
@@ -381,12 +365,9 @@ def _gcv_fun(path, j):
 
 
 def _loo_fun(path, j):
-    from .cv import loo_residuals
-
     def f(lam):
-        res = loo_residuals(path, lam)
-        res = res if res.ndim == 2 else res[:, :, j]
-        return np.mean(np.square(res), axis=0)
+        lam = np.atleast_1d(np.asarray(lam, dtype=float))
+        return _target_col(path.criteria_at(lam).loo_mse, j).reshape(lam.shape)
     return f
 
 
