@@ -286,11 +286,13 @@ def test_csv_non_numeric_value_reports_row_range(tmp_path):
 
 
 def test_parquet_null_reports_row_range(tmp_path):
-    """A null in a Parquet batch is reported with its row range (issue 7)."""
-    a = pa.array([1.0, 2.0, None, 4.0, 5.0, 6.0])
-    pq.write_table(pa.table({"a": a, "y": [1.0, 2.0, 3.0, 4.0, 5.0, 7.0]}), tmp_path / "n.parquet")
-    with pytest.raises(InputError, match=r"rows 1-4: column 'a' has 1 null .*data row 3"):
-        stream_path(tmp_path / "n.parquet", target="y", chunk_rows=4)
+    """A null in the second row group of a Parquet file is reported with the
+    row range read (that row group) and its data row (issue 7)."""
+    a = pa.array([1.0, 2.0, 3.0, 4.0, None, 6.0])
+    pq.write_table(pa.table({"a": a, "y": [1.0, 2.0, 3.0, 4.0, 5.0, 7.0]}), tmp_path / "n.parquet",
+                   row_group_size=3)
+    with pytest.raises(InputError, match=r"rows 4-6: column 'a' has 1 null .*data row 5"):
+        stream_path(tmp_path / "n.parquet", target="y", chunk_rows=2)
 
 
 @pytest.mark.parametrize("kw, msg", [
