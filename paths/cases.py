@@ -257,7 +257,7 @@ def _dataset(case: Case):
         frame = _generators()[data["generator"]](**data.get("params", {}))
         target = data.get("target") or [c for c in ("analyte", "demand", "y") if c in frame][0]
         desc = frame.attrs.get("description", data["generator"])
-        ds = select(frame, target, source=f"synthetic: {desc}")
+        ds = select(frame, target, source=desc if "synthetic" in desc else f"synthetic: {desc}")
         gen = {"name": data["generator"], "params": dict(data.get("params", {})),
                "seed": data.get("params", {}).get("seed", 0)}
         return ds, None, {}, gen

@@ -393,7 +393,7 @@ h1{font-size:1.6rem}h2{font-size:1.2rem;border-bottom:1px solid #ddd;padding-bot
 table{border-collapse:collapse;margin:.5rem 0;font-size:.9rem}
 td,th{border:1px solid #ccc;padding:.25rem .5rem;text-align:left;vertical-align:top}
 th{background:#f3f3f3}td.num{text-align:right;font-variant-numeric:tabular-nums}
-figure{margin:1.5rem 0;padding:0}figure svg{max-width:100%;height:auto;display:block}
+figure{margin:1.5rem 0;padding:0}figure svg{width:100%;max-width:40rem;height:auto;display:block}
 figcaption{font-size:.9rem;color:#333;margin-top:.3rem}
 .methods{background:#f7f7f2;border-left:4px solid #0072B2;padding:.6rem 1rem}
 .caution{border-left:4px solid #D55E00;padding-left:1rem}
