@@ -13,6 +13,9 @@ from .estimator import RidgePathRegressor
 from .stream import StreamPath, stream_path
 from .wide import WidePath, wide_path
 from .dask_engine import dask_path
+from .threshold import ThresholdResult, TheoryCurves, threshold_sweep
+from .simulate import SimulationResult, Truth, make_truth, sweep_with_truth
+from .plan import PlanResult
 
 __version__ = "0.1.0"
 
@@ -42,5 +45,13 @@ __all__ = [
     "WidePath",
     "wide_path",
     "dask_path",
+    "ThresholdResult",
+    "TheoryCurves",
+    "threshold_sweep",
+    "SimulationResult",
+    "Truth",
+    "make_truth",
+    "sweep_with_truth",
+    "PlanResult",
     "__version__",
 ]
