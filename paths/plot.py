@@ -209,7 +209,8 @@ def _penalty_label(standardize) -> str:
 
 
 def _df_label() -> str:
-    return r"effective df $=\mathrm{tr}\,H_\lambda$ (incl. intercept)"
+    return (r"effective df $=\mathrm{tr}\,H_\lambda$ (incl. intercept)" + "\n"
+            + rf"(ridge, {CONVENTION_SHORT})")
 
 
 def _x_of(result, x: str):
