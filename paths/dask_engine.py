@@ -176,7 +176,17 @@ def _from_dataframe(path: Path, target, features):
     if nonnum:
         raise InputError(f"{path}: non-numeric column(s): {', '.join(nonnum[:5])}; drop them "
                          "(--features) or encode them as numbers")
-    W = df.to_dask_array(lengths=True).astype(np.float64)
+    try:
+        W = df.to_dask_array(lengths=True).astype(np.float64)
+    except Exception as exc:  # noqa: BLE001 - a block that does not parse as numbers
+        if "Mismatched dtypes" in str(exc):
+            raise InputError(f"{path}: a later row block has non-numeric values in a column "
+                             "the first block showed as numeric (dask's dtype inference); "
+                             "--engine stream reports the column and row range") from None
+        msg = " ".join(str(exc).split())[:160]
+        raise InputError(f"{path}: a row block could not be read as numbers "
+                         f"({type(exc).__name__}: {msg}); --engine stream reports the row "
+                         "range") from None
     return W, feats, targets
 
 

@@ -206,3 +206,23 @@ def test_cli_dask_engine_through_cluster(cluster, tmp_path):
                             "--out", str(tmp_path / "out2")])
     assert r.exit_code == 2
     assert "could not connect" in r.output and names
+
+
+def test_csv_later_block_non_numeric_is_input_error(tmp_path, monkeypatch):
+    """dask.dataframe infers CSV dtypes from the first block; a text value in a
+    later block is reported as one-line InputError pointing to the stream
+    engine for the row range (issue 7), not an internal error."""
+    import dask.dataframe as dd
+
+    from paths.dask_engine import as_dask_design
+
+    f = tmp_path / "d.csv"
+    lines = ["a,y"] + [f"{i},{i % 7}" for i in range(20000)]
+    lines[15000] = "zz,1"
+    f.write_text("\n".join(lines) + "\n")
+    orig = dd.read_csv
+    monkeypatch.setattr(dd, "read_csv", lambda *a, **k: orig(*a, blocksize=50_000, **k))
+    assert dd.read_csv(str(f)).npartitions > 1  # several blocks
+    with pytest.raises(InputError, match="non-numeric") as ei:
+        as_dask_design(str(f), target="y")
+    assert "\n" not in str(ei.value)
