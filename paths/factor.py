@@ -32,6 +32,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import scipy.linalg as sla
+from scipy.linalg import lapack
 
 __all__ = ["Factorization", "factorize", "SOLVERS"]
 
@@ -92,15 +93,53 @@ def _svd(z: np.ndarray, overwrite: bool):
         return u, d, vt, "svd-gesvd"
 
 
-def _gram_eig(z: np.ndarray):
-    """Eigenvalues (descending, clipped at 0) and eigenvectors of the smaller Gram."""
+def _gram_eig(z: np.ndarray, screen: float | None = None):
+    """Eigenvalues (descending, clipped at 0) and eigenvectors of the smaller Gram.
+
+    Returns ``(w, vec, None)``; ``(None, None, None)`` when the Gram matrix is
+    not finite; ``(None, None, bound)`` when ``screen`` is given and
+    :func:`_cond_lower_bound` proves the condition number exceeds twice it
+    (the eigendecomposition, about 30 Cholesky factorizations' worth of work,
+    is then skipped: its only use would be to reject the route).
+    """
     m, q = z.shape
     with np.errstate(over="ignore", invalid="ignore"):
         g = z @ z.T if m < q else z.T @ z
     if not np.all(np.isfinite(g)):
-        return None, None
+        return None, None, None
+    if screen is not None:
+        bound = _cond_lower_bound(g)
+        if bound > 2.0 * screen:
+            return None, None, bound
     w, vec = sla.eigh(g, check_finite=False, overwrite_a=True)
-    return np.maximum(w[::-1], 0.0), vec[:, ::-1]
+    return np.maximum(w[::-1], 0.0), vec[:, ::-1], None
+
+
+def _cond_lower_bound(g: np.ndarray, steps: int = 3) -> float:
+    """A lower bound on :math:`\\kappa = \\sqrt{w_{\\max}/w_{\\min}}` of a Gram matrix.
+
+    Both ends are Rayleigh quotients, so the bound holds for any vectors:
+    :math:`w_{\\max} \\ge \\max_j g_{jj}` and
+    :math:`w_{\\min} \\le x^T g x / x^T x` with ``x`` from ``steps`` steps of
+    inverse iteration on the Cholesky factor (LAPACK ``potrf``/``potrs``,
+    :math:`O(m^3/3 + m^2)`).  A failed Cholesky factorization means ``g`` is
+    not numerically positive definite (:math:`w_{\\min} \\lesssim m\\,
+    \\varepsilon\\, w_{\\max}`): the bound is then infinite.
+    """
+    c, info = lapack.dpotrf(g, lower=0, clean=0, overwrite_a=0)
+    if info != 0:
+        return np.inf
+    x = np.random.default_rng(0).standard_normal((g.shape[0], 1))
+    for _ in range(steps):
+        x, info = lapack.dpotrs(c, x, lower=0)
+        if info != 0 or not np.all(np.isfinite(x)):
+            return np.inf
+        x /= np.max(np.abs(x))
+    wmin_up = float((x.T @ (g @ x))[0, 0] / (x.T @ x)[0, 0])
+    wmax_lo = float(np.max(np.diagonal(g)))
+    if wmin_up <= 0.0:
+        return np.inf
+    return float(np.sqrt(wmax_lo / wmin_up))
 
 
 def factorize(
@@ -159,8 +198,12 @@ def factorize(
         rtol = max(m, q) * _EPS
     reason = "requested"
     if solver in ("auto", "gram") and min(m, q) > 0:
-        w, vec = _gram_eig(z)
-        if w is None:
+        w, vec, bound = _gram_eig(z, screen=gram_max_cond if solver == "auto" else None)
+        if bound is not None:
+            reason = (f"SVD route: condition number >= {bound:.3g} > {gram_max_cond:g}, "
+                      "too large for the Gram route (bound from a Cholesky factor of the "
+                      "Gram matrix)")
+        elif w is None:
             if solver == "gram":
                 from ._validation import InputError
 
@@ -200,10 +243,12 @@ def _from_gram(z, w, vec, rtol, reason, forced):
     d = d_all[:r]
     if m < q:  # g = Z Z^T = U D^2 U^T ;  V^T = D^-1 U^T Z
         u = np.ascontiguousarray(vec[:, :r])
-        vt = (u.T @ z) / d[:, None]
+        vt = u.T @ z
+        vt /= d[:, None]  # in place: one design-sized array, not two
     else:  # g = Z^T Z = V D^2 V^T ;  U = Z V D^-1
         vt = np.ascontiguousarray(vec[:, :r].T)
-        u = (z @ vt.T) / d
+        u = z @ vt.T
+        u /= d
     return _finish(u, d, vt, r, tol, dmax, float(d_all[-1]), "gram", reason)
 
 
