@@ -16,6 +16,8 @@ from .dask_engine import dask_path
 from .threshold import ThresholdResult, TheoryCurves, threshold_sweep
 from .simulate import SimulationResult, Truth, make_truth, sweep_with_truth
 from .plan import PlanResult
+from .figures import Panel, path_figure, save_figure, spectrum_figure, threshold_figure
+from .cases import Case, load_case, run_case
 
 __version__ = "0.1.0"
 
@@ -53,5 +55,13 @@ __all__ = [
     "make_truth",
     "sweep_with_truth",
     "PlanResult",
+    "Panel",
+    "path_figure",
+    "spectrum_figure",
+    "threshold_figure",
+    "save_figure",
+    "Case",
+    "load_case",
+    "run_case",
     "__version__",
 ]
