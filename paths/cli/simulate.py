@@ -13,7 +13,7 @@ from ..simulate import bias_variance_table, make_truth, simulate
 from ..summary import versions
 from ..threshold import threshold_summary, threshold_table
 from .app import command, console
-from .threshold import Band, Order, Over, print_threshold, run_with_progress
+from .threshold import Band, Order, Over, print_threshold, run_with_progress, write_report
 
 
 class Covariance(str, Enum):
@@ -55,6 +55,8 @@ def simulate_cmd(
     seed: int = typer.Option(0, "--seed", help="Seed."),
     out: Path = typer.Option(Path("paths-simulate"), "--out", "-o", help="Output folder."),
     force: bool = typer.Option(False, "--force", help="Write into a non-empty output folder."),
+    report: bool = typer.Option(True, "--report/--no-report",
+                                help="Also write the threshold figure and report.html."),
 ):
     """Simulate synthetic data, run the sweep; write threshold.csv/.json and bias_variance.csv."""
     truth = make_truth(p, covariance=covariance.value, rho=rho, n_spikes=spikes,
@@ -85,4 +87,6 @@ def simulate_cmd(
     files = [write_csv(out_dir / "threshold.csv", *threshold_table(sim.sweep)),
              write_json(out_dir / "threshold.json", summary),
              write_csv(out_dir / "bias_variance.csv", *bias_variance_table(sim))]
+    if report:
+        files += write_report(sim, summary, out_dir)
     print_threshold(summary, files, out_dir)

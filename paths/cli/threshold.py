@@ -125,6 +125,8 @@ def threshold_cmd(
     solver: Solver = typer.Option(Solver.auto, "--solver", help="Factorization route."),
     out: Path = typer.Option(Path("paths-threshold"), "--out", "-o", help="Output folder."),
     force: bool = typer.Option(False, "--force", help="Write into a non-empty output folder."),
+    report: bool = typer.Option(True, "--report/--no-report",
+                                help="Also write the threshold figure and report.html."),
 ):
     """Sweep the model size across p = n on DATA; write threshold.csv and threshold.json."""
     from .._validation import InputError
@@ -162,4 +164,13 @@ def threshold_cmd(
         command_line=shlex.join(["paths", *sys.argv[1:]]), versions=versions())
     files = [write_csv(out_dir / "threshold.csv", *threshold_table(result)),
              write_json(out_dir / "threshold.json", summary)]
+    if report:
+        files += write_report(result, summary, out_dir)
     print_threshold(summary, files, out_dir)
+
+
+def write_report(result, summary: dict, out_dir) -> list:
+    """The figures and report.html of :mod:`paths.report` (the figures issue), same folder."""
+    from ..report import write_threshold_outputs
+
+    return list(write_threshold_outputs(result, summary, out_dir))
