@@ -162,3 +162,56 @@ def test_a_small_simulate_case_writes_threshold_outputs(tmp_path):
     assert crun.report == tmp_path / "iso" / "report.html"
     md = (tmp_path / "iso" / "report.md").read_text()
     assert "peaks at p'/n" in md and "Methods paragraph" in md
+
+
+def test_a_threshold_case_on_generated_data_and_its_report_numbers(tmp_path):
+    """analysis = "threshold" on a generator; every number of the report's methods paragraph
+    and diagnosis is a number (or part of a string) of threshold.json (parsed with json)."""
+    import re
+
+    from paths.report import fmt, threshold_diagnosis, threshold_methods
+
+    text = """
+[case]
+name = "panel-sweep"
+description = "Synthetic data. A small feature-wise sweep of the invented panel."
+analysis = "threshold"
+[data]
+generator = "panel"
+params = { n_samples = 60, n_features = 50, seed = 2 }
+holdout = 0.5
+[threshold]
+order = "random"
+repeats = 2
+n_points = 8
+[figures]
+formats = ["svg"]
+"""
+    crun = run_case(parse_case(text), tmp_path / "sweep")
+    s = json.loads((tmp_path / "sweep" / "threshold.json").read_text())
+    assert {"threshold.csv", "threshold.json", "fig-threshold.svg", "report.html"} <= \
+        {p.name for p in (tmp_path / "sweep").iterdir()}
+    nums, strs = set(), []
+
+    def walk(o):
+        if isinstance(o, bool):
+            return
+        if isinstance(o, (int, float)):
+            nums.add(fmt(o))
+        elif isinstance(o, str):
+            strs.append(o)
+        elif isinstance(o, dict):
+            for v in o.values():
+                walk(v)
+        elif isinstance(o, list):
+            for v in o:
+                walk(v)
+
+    walk(s)
+    blob = "\n".join(strs)
+    prose = threshold_methods(s) + " " + " ".join(threshold_diagnosis(s))
+    prose = prose.replace("||y - b0 - X beta||^2 + lambda ||beta||^2", " ")
+    prose = re.sub(r"\((Hastie[^)]*|Dobriban[^)]*)\)", " ", prose)  # citations: fixed text
+    tokens = re.findall(r"(?<![\w.])-?\d+(?:\.\d+)?(?:e[-+]?\d+)?(?![\w])", prose)
+    assert tokens and [t for t in tokens if t not in nums and t not in blob] == []
+    assert crun.report is not None and fmt(s["peak"]["test_mse"]) in crun.report.read_text()
