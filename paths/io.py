@@ -30,6 +30,7 @@ message naming the file, the column or line, and the fix.
 """
 from __future__ import annotations
 
+import contextlib
 import csv
 import difflib
 import fnmatch
@@ -37,6 +38,7 @@ import hashlib
 import io as _io
 import os
 import re
+import sys
 import zipfile
 from collections import defaultdict
 from dataclasses import dataclass, field
@@ -242,29 +244,48 @@ def _scan(text: str, sep: str):
     reader = csv.reader(_io.StringIO(text), delimiter=sep)
     last = 0
     try:
-        for row in reader:
-            start, last = last + 1, reader.line_num
-            if row:
-                lines.append(start)
-                counts.append(len(row))
-                if len(head) < 6:
-                    head.append(row)
+        with _wide_fields():
+            for row in reader:  # fields of one record at a time
+                start, last = last + 1, reader.line_num
+                if row:
+                    lines.append(start)
+                    counts.append(len(row))
+                    if len(head) < 6:
+                        head.append(row)
     except csv.Error as exc:
         raise InputError(_one_line(f"line {reader.line_num + 1}: {exc}")) from None
     return lines, counts, head
 
 
+@contextlib.contextmanager
+def _wide_fields():
+    """Let the csv module read fields of any length (its default limit is 131072 chars)."""
+    old = csv.field_size_limit()
+    csv.field_size_limit(min(sys.maxsize, 2**31 - 1))
+    try:
+        yield
+    finally:
+        csv.field_size_limit(old)
+
+
 def _sniff(text: str) -> str:
     """The delimiter that splits the first lines into the same number (> 1) of fields."""
     sample = []
-    for line in text.split("\n"):
+    for line in text.split("\n", 2000)[:2000]:
         if line.strip():
             sample.append(line)
             if len(sample) >= 50:
                 break
     best, best_score = ",", (0, 0)
     for cand in _DELIMITERS:
-        counts = [len(r) for r in csv.reader(sample, delimiter=cand)]
+        if '"' not in "".join(sample):
+            counts = [line.count(cand) + 1 for line in sample]
+        else:
+            try:
+                with _wide_fields():
+                    counts = [len(r) for r in csv.reader(sample, delimiter=cand)]
+            except csv.Error:
+                continue
         if not counts:
             continue
         modal = max(set(counts), key=counts.count)
@@ -310,9 +331,9 @@ def _read_text(p: Path, sep: str | None, header: bool | None) -> pd.DataFrame:
     with open(p, "rb") as fh:
         data = fh.read()
     text = _decode(data, p)
-    if not text.strip():
+    if not text or text.isspace():
         raise _fail("", f"{p} is empty; pass a file with a header row and data rows")
-    if _BLANK.search(text):
+    if (text[:1] in (" ", "\t") or "\n " in text or "\n\t" in text) and _BLANK.search(text):
         text = _BLANK.sub("", text)
     notes = []
     if sep is None:
@@ -364,7 +385,8 @@ def _read_text(p: Path, sep: str | None, header: bool | None) -> pd.DataFrame:
         raise _fail("", f"{p} has a header row but no data rows; add data rows")
     try:
         df = pd.read_csv(
-            _io.StringIO(text), sep=sep, header=None, skiprows=starts[1] - 1 if header else 0,
+            _io.BytesIO(text.encode("utf-8")), sep=sep, header=None, encoding="utf-8",
+            skiprows=starts[1] - 1 if header else 0,
             names=names, na_values=list(NA_TOKENS), keep_default_na=False,
             skipinitialspace=True, skip_blank_lines=True, engine="c", low_memory=False,
             quotechar='"', index_col=False, dtype=None,
@@ -387,10 +409,11 @@ def _numeric_text_columns(df: pd.DataFrame, p: Path, lines) -> pd.DataFrame:
     """Convert text columns that hold numbers; name the column when numbers are written
     with thousands separators or decimal commas."""
     out = {}
-    for col in df.columns:
+    text_cols = [c for c, dt in zip(df.columns, df.dtypes) if not pd.api.types.is_numeric_dtype(dt)]
+    for col in text_cols:
         s = df[col]
-        if pd.api.types.is_numeric_dtype(s) or s.isna().all():
-            out[col] = s if not s.isna().all() else s.astype(np.float64)
+        if s.isna().all():
+            out[col] = s.astype(np.float64)
             continue
         text = s.astype(object).where(s.notna(), None)
         stripped = pd.Series([None if v is None else str(v).strip() for v in text],
@@ -425,7 +448,11 @@ def _numeric_text_columns(df: pd.DataFrame, p: Path, lines) -> pd.DataFrame:
                                   f"{example!r} on {at}); re-export the file without thousands "
                                   "separators")
         out[col] = stripped.astype(object)
-    return pd.DataFrame(out, index=df.index, columns=df.columns)
+    if out:
+        df = df.copy()
+        for col, values in out.items():
+            df[col] = values
+    return df
 
 
 def _read_parquet(p: Path) -> pd.DataFrame:
@@ -634,6 +661,22 @@ def _first_non_number(s: pd.Series) -> int:
     return int(np.argmax(bad)) if bad.any() else int(np.argmax(s.notna().to_numpy()))
 
 
+def _is_numeric_dtype(dt) -> bool:
+    return (pd.api.types.is_numeric_dtype(dt) and not pd.api.types.is_complex_dtype(dt)) or \
+        pd.api.types.is_bool_dtype(dt)
+
+
+def _float_block(frame: pd.DataFrame, cols) -> np.ndarray:
+    """Numeric columns as one float64 array (n, len(cols)), missing as NaN."""
+    if not cols:
+        return np.zeros((frame.shape[0], 0))
+    block = frame[list(cols)]
+    if all(dt.kind in "fiu" and not pd.api.types.is_extension_array_dtype(dt)
+           for dt in block.dtypes):
+        return block.to_numpy(dtype=np.float64)
+    return np.column_stack([_float_column(block[c]) for c in cols])
+
+
 def _missing_mask(s: pd.Series) -> np.ndarray:
     return s.isna().to_numpy()
 
@@ -681,6 +724,9 @@ def select(df, target, *, features=None, exclude=None, id_column=None, encode=No
     """
     df = as_frame(df)
     attrs = dict(df.attrs)
+    if attrs:  # pandas deep-copies attrs on every column access: work on a bare view
+        df = df.copy(deep=False)
+        df.attrs = {}
     source = source or attrs.get("paths_source", "")
     where = f"{source}: " if source else ""
     lines = attrs.get("paths_lines")
@@ -746,9 +792,12 @@ def select(df, target, *, features=None, exclude=None, id_column=None, encode=No
                                f"on {_row_label(lines, i)}); choose a numeric target or "
                                "recode it as numbers")
     categorical, dates = [], []
+    dtypes = dict(zip(columns, df.dtypes))
     for c in feats:
+        if _is_numeric_dtype(dtypes[c]):
+            continue
         s = df[c]
-        if _is_numeric(s) or s.isna().all():
+        if s.isna().all():
             continue
         if pd.api.types.is_datetime64_any_dtype(s) or pd.api.types.is_timedelta64_dtype(s):
             dates.append(c)
@@ -767,7 +816,8 @@ def select(df, target, *, features=None, exclude=None, id_column=None, encode=No
     # ---- missing values
     n0 = df.shape[0]
     used = targets + feats
-    miss = {c: _missing_mask(df[c]) for c in used}
+    M = df[used].isna().to_numpy()
+    miss = {c: M[:, j] for j, c in enumerate(used)}
     all_missing = [c for c in used if miss[c].all()]
     dropped_cols = []
     for t in targets:
@@ -830,7 +880,14 @@ def select(df, target, *, features=None, exclude=None, id_column=None, encode=No
 
     # ---- build the design
     blocks, names, encoding = [], [], {}
+    numeric = [c for c in feats if c not in categorical]
+    num_block = _float_block(sub, numeric)
+    num_at = {c: j for j, c in enumerate(numeric)}
     for c in feats:
+        if c in num_at:
+            blocks.append(num_block[:, num_at[c]])
+            names.append(c)
+            continue
         s = sub[c]
         if c in categorical:
             vals = s.astype(str).to_numpy()
@@ -847,9 +904,6 @@ def select(df, target, *, features=None, exclude=None, id_column=None, encode=No
                          f"{levels[0]!r} dropped, columns " + ", ".join(
                              repr(f"{c}={lv}") for lv in levels[1:4])
                          + (" ..." if len(levels) > 4 else ""))
-        else:
-            blocks.append(_float_column(s))
-            names.append(c)
     if len(set(names)) != len(names):
         dup = next(nm for nm in names if names.count(nm) > 1)
         raise _fail(where, f"one-hot column {dup!r} clashes with an existing column name; "
@@ -857,9 +911,11 @@ def select(df, target, *, features=None, exclude=None, id_column=None, encode=No
     if not blocks:
         raise _fail(where, "no feature columns left (p = 0): every feature is a single-level "
                            "categorical; keep at least one varying feature")
-    X = np.column_stack(blocks) if len(blocks) > 1 else blocks[0][:, None]
-    X = np.ascontiguousarray(X, dtype=np.float64)
-    Y = np.column_stack([_float_column(sub[t]) for t in targets])
+    if not categorical:
+        X = np.ascontiguousarray(num_block)
+    else:
+        X = np.ascontiguousarray(np.column_stack(blocks), dtype=np.float64)
+    Y = _float_block(sub, targets)
     for arr, cols, kind in ((X, names, "feature"), (Y, targets, "target")):
         bad = ~np.isfinite(arr)
         if bad.any():
@@ -899,11 +955,11 @@ def select(df, target, *, features=None, exclude=None, id_column=None, encode=No
 
 def _duplicate_groups(X: np.ndarray, names, skip=()) -> list:
     groups = defaultdict(list)
+    XT = np.ascontiguousarray(X.T)  # one copy; rows of XT are the columns of X
     for j in range(X.shape[1]):
         if names[j] in skip:
             continue
-        groups[hashlib.blake2b(np.ascontiguousarray(X[:, j]).tobytes(), digest_size=16)
-               .digest()].append(j)
+        groups[hashlib.blake2b(XT[j].tobytes(), digest_size=16).digest()].append(j)
     out = []
     for idx in groups.values():
         if len(idx) > 1:
