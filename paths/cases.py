@@ -364,7 +364,9 @@ def _run_simulate(case, out_dir, *, force, formats, width, command_line, extra) 
                  truth={"noise_variance": truth.noise_variance,
                         "signal_variance": truth.signal_variance,
                         "description": truth.description})
-    summary = threshold_summary(sim.sweep, source=f"synthetic: {truth.description}",
+    desc = truth.description
+    summary = threshold_summary(sim.sweep, source=desc if "synthetic" in desc else
+                                f"synthetic: {desc}",
                                 input_sha256={}, command_line=shlex.join(command_line), **extra)
     summary["versions"] = versions()
     files = [write_csv(out / "threshold.csv", *threshold_table(sim.sweep)),

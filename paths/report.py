@@ -486,7 +486,10 @@ def threshold_diagnosis(summary: dict) -> list:
            f"with mean test MSE {fmt(peak.get('test_mse'))}: the interpolation threshold, where "
            "the smallest singular value of the design collapses toward zero."]
     if best:
-        out.append(f"The best usable ridge curve ({best.get('method')}) reaches a mean test MSE of "
+        label = {"ridge_gcv": "ridge at the GCV penalty",
+                 "ridge_fixed": "ridge at the fixed penalty"}.get(best.get("method"),
+                                                                  best.get("method"))
+        out.append(f"The best usable ridge curve ({label}) reaches a mean test MSE of "
                    f"{fmt(summary.get('best_ridge_test_mse'))} (at p'/n = {fmt(best.get('ratio'))}); "
                    "a tuned penalty removes the spike instead of dropping features.")
     th = summary.get("theory") or {}
