@@ -135,7 +135,8 @@ def prepare(X: np.ndarray, Y: np.ndarray, *, fit_intercept: bool,
     to its own magnitude, so the test is scale free).
     """
     n, p = X.shape
-    absmax = np.max(np.abs(X), axis=0)
+    x_max, x_min = X.max(axis=0), X.min(axis=0)
+    absmax = np.maximum(x_max, -x_min)  # = max |x_ij|, without an |X|-sized temporary
     if fit_intercept:
         x_mean = X.mean(axis=0)
         y_mean = Y.mean(axis=0)
@@ -144,7 +145,7 @@ def prepare(X: np.ndarray, Y: np.ndarray, *, fit_intercept: bool,
         # norms of the centered columns, overflow-safe
         sd = _colnorm(Z) / np.sqrt(n)
         active = sd > n * _EPS * absmax
-        active &= X.max(axis=0) > X.min(axis=0)
+        active &= x_max > x_min
     else:
         x_mean = np.zeros(p)
         y_mean = np.zeros(Y.shape[1])
@@ -176,7 +177,7 @@ def prepare(X: np.ndarray, Y: np.ndarray, *, fit_intercept: bool,
 
 def _colnorm(A: np.ndarray) -> np.ndarray:
     """Euclidean column norms, without overflow or underflow for extreme scales."""
-    big = np.max(np.abs(A), axis=0)
+    big = np.maximum(A.max(axis=0), -A.min(axis=0))  # max |a_ij|, no |A|-sized temporary
     if big.size and (big.max() > 1e150 or big[big > 0].min(initial=1.0) < 1e-150):
         safe = np.where(big > 0, big, 1.0)
         S = A / safe
