@@ -179,6 +179,10 @@ def data_summary(summary: dict) -> list:
     rows.append(("solver", f"{summary.get('solver')} ({summary.get('solver_reason')})"))
     if summary.get("source"):
         rows.append(("source", str(summary["source"])))
+    if summary.get("targets"):
+        rows.append(("targets", ", ".join(map(str, summary["targets"]))
+                     + " (this report and its figures show the first; every target's choices "
+                       "are in summary.json under by_target)"))
     return rows
 
 
