@@ -18,7 +18,9 @@ Cases (synthetic data generated here, seeded):
   (2000, 200 000) with ``--large``; throughput against NumPy's ``z @ z.T`` on
   one block.
 
-Memory is the child's peak RSS (``resource.getrusage``), which includes the
+Memory is the child's peak RSS (``VmHWM`` of ``/proc/self/status``; on Linux
+``getrusage``'s ``ru_maxrss`` carries the parent's resident size over fork and
+exec, so it is only the fallback), which includes the
 interpreter and imported libraries (~150 MB; reported separately as the
 ``baseline`` row of an idle child that imports the same modules).
 """
@@ -77,6 +79,16 @@ def _make_parquet(path: Path, n: int, p: int, *, seed: int = 0, group: int = 131
 
 _CHILD_CLI = r"""
 import json, resource, sys, time
+def _hwm_kb():
+    # peak RSS of this process image: /proc VmHWM (getrusage's ru_maxrss keeps the
+    # parent's resident size across fork + exec on Linux, which would inflate it)
+    try:
+        for line in open("/proc/self/status"):
+            if line.startswith("VmHWM:"):
+                return int(line.split()[1])
+    except OSError:
+        pass
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
 from paths.cli import app
 args, out = json.loads(sys.argv[1]), sys.argv[2]
 t0 = time.perf_counter()
@@ -86,20 +98,40 @@ try:
 except SystemExit as exc:
     code = exc.code or 0
 with open(out, "w") as fh:
-    json.dump({"maxrss_kb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss,
+    json.dump({"maxrss_kb": _hwm_kb(),
                "seconds": time.perf_counter() - t0, "code": code}, fh)
 """
 
 _CHILD_IDLE = r"""
 import json, resource, sys
+def _hwm_kb():
+    # peak RSS of this process image: /proc VmHWM (getrusage's ru_maxrss keeps the
+    # parent's resident size across fork + exec on Linux, which would inflate it)
+    try:
+        for line in open("/proc/self/status"):
+            if line.startswith("VmHWM:"):
+                return int(line.split()[1])
+    except OSError:
+        pass
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
 import numpy, scipy.linalg, pyarrow.parquet, pandas, rich
 import paths, paths.cli, paths.stream, paths.wide
 with open(sys.argv[1], "w") as fh:
-    json.dump({"maxrss_kb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss}, fh)
+    json.dump({"maxrss_kb": _hwm_kb()}, fh)
 """
 
 _CHILD_WIDE = r"""
 import json, resource, sys, time, warnings
+def _hwm_kb():
+    # peak RSS of this process image: /proc VmHWM (getrusage's ru_maxrss keeps the
+    # parent's resident size across fork + exec on Linux, which would inflate it)
+    try:
+        for line in open("/proc/self/status"):
+            if line.startswith("VmHWM:"):
+                return int(line.split()[1])
+    except OSError:
+        pass
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
 import numpy as np
 from paths.chunks import ColumnSource
 from paths.wide import wide_path
@@ -121,7 +153,7 @@ with warnings.catch_warnings():
     res = wide_path(src, y, rank=None if rank == "none" else int(rank))
 sec = time.perf_counter() - t0
 with open(out, "w") as fh:
-    json.dump({"maxrss_kb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss, "seconds": sec,
+    json.dump({"maxrss_kb": _hwm_kb(), "seconds": sec,
                "passes": [q.as_dict() for q in res.passes], "rank": res.rank,
                "captured_share": res.captured_share}, fh)
 """
