@@ -66,6 +66,8 @@ def write_bytes(path: str | os.PathLike, data: bytes) -> Path:
             fh.write(data)
             fh.flush()
             os.fsync(fh.fileno())
+            # mkstemp makes the file private (0600); give it the usual mode for new files
+            os.fchmod(fh.fileno(), 0o666 & ~_umask())
         os.replace(tmp, dest)
     except BaseException as exc:  # includes KeyboardInterrupt: never leave the temporary behind
         try:
@@ -98,3 +100,10 @@ def write_csv(path: str | os.PathLike, header, rows) -> Path:
         w.writerow(["" if v is None else (repr(float(v)) if isinstance(v, float) else v)
                     for v in row])
     return write_text(path, buf.getvalue())
+
+
+def _umask() -> int:
+    """The process umask (read by setting and restoring it)."""
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
