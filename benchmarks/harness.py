@@ -266,6 +266,8 @@ def _fmt(value: float, unit: str) -> str:
         return f"{value:.3f}" if value < 10 else f"{value:.1f}"
     if unit == "MB":
         return f"{value:.1f}"
+    if value != 0 and (abs(value) < 0.01 or abs(value) >= 1e6):
+        return f"{value:.3g}"
     if abs(value) >= 100:
         return f"{value:.0f}"
     if abs(value) >= 10:
