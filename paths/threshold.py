@@ -414,9 +414,10 @@ class ThresholdResult:
     def mean(self, field_name: str = "test_mse", method: str = "min_norm") -> np.ndarray:
         """Mean over repeats, shape (P,)."""
         v = self._values(field_name)[:, :, self.method_index(method)]
-        if np.all(np.isnan(v)):
-            return np.full(v.shape[1], np.nan)
-        return np.nanmean(v, axis=0) if np.isnan(v).any() else v.mean(axis=0)
+        ok = ~np.isnan(v)
+        count = ok.sum(axis=0)
+        total = np.where(ok, v, 0.0).sum(axis=0)
+        return np.where(count > 0, total / np.maximum(count, 1), np.nan)
 
     def band_of(self, field_name: str = "test_mse", method: str = "min_norm"):
         """``(lower, upper)`` band over repeats, each shape (P,).
@@ -891,8 +892,10 @@ def threshold_sweep(
         source = variance_source or "given"
     fields = {name: vals[..., j] for j, name in enumerate(
         ("lam", "df", "train_mse", "test_mse", "rank", "min_singular_value", "coef_norm"))}
-    lam_fixed_mean = np.nanmean(fields["lam"][:, :, 1], axis=0) if np.isfinite(
-        fields["lam"][:, :, 1]).any(axis=0).all() else np.full(P, np.nan)
+    lf = fields["lam"][:, :, 1]
+    ok = np.isfinite(lf)
+    lam_fixed_mean = np.where(ok.any(axis=0), np.where(ok, lf, 0.0).sum(axis=0)
+                              / np.maximum(ok.sum(axis=0), 1), np.nan)
     th = None
     if random_features is None:
         th = _theory_curves(over, order, n_feat, n_rows, p_total, intercept, variances, source,
