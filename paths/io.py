@@ -405,40 +405,49 @@ def _read_text(p: Path, sep: str | None, header: bool | None) -> pd.DataFrame:
     return df
 
 
+def _as_floats(values: list):
+    """``values`` (str or None) as float64 with NaN for None, or the index of the first
+    value that is not a number."""
+    try:
+        return np.array([np.nan if v is None else float(v) for v in values], dtype=np.float64)
+    except ValueError:
+        pass
+    for i, v in enumerate(values):
+        if v is not None:
+            try:
+                float(v)
+            except ValueError:
+                return i
+    return None  # pragma: no cover (the fast path would have succeeded)
+
+
 def _numeric_text_columns(df: pd.DataFrame, p: Path, lines) -> pd.DataFrame:
     """Convert text columns that hold numbers; name the column when numbers are written
     with thousands separators or decimal commas."""
     out = {}
     text_cols = [c for c, dt in zip(df.columns, df.dtypes) if not pd.api.types.is_numeric_dtype(dt)]
     for col in text_cols:
-        s = df[col]
-        if s.isna().all():
-            out[col] = s.astype(np.float64)
+        raw = df[col].to_numpy(dtype=object)
+        stripped = [None if (v is None or v is pd.NA or (isinstance(v, float) and v != v))
+                    else str(v).strip() for v in raw]
+        stripped = [None if v is None or v in _NA_SET else v for v in stripped]
+        conv = _as_floats(stripped)
+        if isinstance(conv, np.ndarray):
+            out[col] = conv
             continue
-        text = s.astype(object).where(s.notna(), None)
-        stripped = pd.Series([None if v is None else str(v).strip() for v in text],
-                             index=s.index, dtype=object)
-        stripped = stripped.where(~stripped.isin(_NA_SET), None)
-        num = pd.to_numeric(stripped, errors="coerce")
-        bad = num.isna() & stripped.notna()
-        if not bad.any():
-            out[col] = num.astype(np.float64)
-            continue
-        i = int(np.flatnonzero(bad.to_numpy())[0])
-        vals = stripped[bad]
+        i = conv
+        bad = [v for v in stripped if v is not None and not _is_number(v)][:200]
         at = f"line {lines[i]}" if lines is not None else f"row {i + 1}"
-        example = str(stripped.iloc[i])
+        example = stripped[i]
         kinds = []
-        for v in vals.iloc[:200]:
-            v = str(v)
+        for v in bad:
             if _THOUSANDS_COMMA.match(v) or _THOUSANDS_SPACE.match(v):
                 kinds.append("thousands")
             elif _DECIMAL_COMMA.match(v):
                 kinds.append("decimal")
             elif _THOUSANDS_DOT.match(v):
                 kinds.append("thousands")
-        share = len(kinds) / min(len(vals), 200)
-        if share >= 0.5:
+        if bad and len(kinds) / len(bad) >= 0.5:
             kind = max(set(kinds), key=kinds.count)
             if kind == "decimal":
                 raise _fail(f"{p}: ", f"column {col!r} has numbers with a decimal comma (e.g. "
@@ -447,11 +456,15 @@ def _numeric_text_columns(df: pd.DataFrame, p: Path, lines) -> pd.DataFrame:
             raise _fail(f"{p}: ", f"column {col!r} has numbers with thousands separators (e.g. "
                                   f"{example!r} on {at}); re-export the file without thousands "
                                   "separators")
-        out[col] = stripped.astype(object)
-    if out:
-        df = df.copy()
-        for col, values in out.items():
-            df[col] = values
+        out[col] = np.array(stripped, dtype=object)
+    if not out:
+        return df
+    if len(out) > 50:  # rebuild once rather than inserting column by column
+        return pd.DataFrame({c: out[c] if c in out else df[c].to_numpy() for c in df.columns},
+                            index=df.index)
+    df = df.copy()
+    for col, values in out.items():
+        df[col] = values
     return df
 
 
@@ -666,10 +679,25 @@ def _is_numeric_dtype(dt) -> bool:
         pd.api.types.is_bool_dtype(dt)
 
 
+def _plain_float_frame(frame: pd.DataFrame) -> bool:
+    return all(dt.kind in "fiu" and not pd.api.types.is_extension_array_dtype(dt)
+               for dt in frame.dtypes)
+
+
+def _missing_block(frame: pd.DataFrame, cols) -> np.ndarray:
+    """Missing-value mask (n, len(cols)); one array operation for an all-numeric table."""
+    if _plain_float_frame(frame):
+        pos = frame.columns.get_indexer(cols)
+        return np.isnan(frame.to_numpy(dtype=np.float64)[:, pos])
+    return frame[list(cols)].isna().to_numpy()
+
+
 def _float_block(frame: pd.DataFrame, cols) -> np.ndarray:
     """Numeric columns as one float64 array (n, len(cols)), missing as NaN."""
     if not cols:
         return np.zeros((frame.shape[0], 0))
+    if _plain_float_frame(frame):  # one conversion, then columns by position (no block takes)
+        return frame.to_numpy(dtype=np.float64)[:, frame.columns.get_indexer(cols)]
     block = frame[list(cols)]
     if all(dt.kind in "fiu" and not pd.api.types.is_extension_array_dtype(dt)
            for dt in block.dtypes):
@@ -816,12 +844,13 @@ def select(df, target, *, features=None, exclude=None, id_column=None, encode=No
     # ---- missing values
     n0 = df.shape[0]
     used = targets + feats
-    M = df[used].isna().to_numpy()
+    M = _missing_block(df, used)
     miss = {c: M[:, j] for j, c in enumerate(used)}
-    all_missing = [c for c in used if miss[c].all()]
+    n_miss = M.sum(axis=0)
+    all_missing = [c for c, k in zip(used, n_miss) if k == n0]
     dropped_cols = []
     for t in targets:
-        if miss[t].all():
+        if n_miss[used.index(t)] == n0:
             raise _fail(where, f"target column {t!r} is entirely missing; choose another target")
     if all_missing:
         if drop_missing == "columns":
@@ -829,7 +858,7 @@ def select(df, target, *, features=None, exclude=None, id_column=None, encode=No
         else:
             raise _fail(where, f"column(s) {_names(all_missing)} are entirely missing (all {n0} "
                                "values); --exclude them or pass --drop-missing columns")
-    counts = {c: int(m.sum()) for c, m in miss.items() if m.any()}
+    counts = {used[j]: int(n_miss[j]) for j in np.flatnonzero(n_miss)}
     keep = np.ones(n0, dtype=bool)
     dropped_rows = []
     if counts:
@@ -858,8 +887,7 @@ def select(df, target, *, features=None, exclude=None, id_column=None, encode=No
                                    "after --drop-missing columns; impute them or use "
                                    "--drop-missing rows")
         else:
-            for c in used:
-                keep &= ~miss[c]
+            keep = ~M.any(axis=1)
             gone = np.flatnonzero(~keep)
             dropped_rows = [int(lines[i]) if lines is not None else int(i + 1) for i in gone]
             word = "line" if lines is not None else "row"
