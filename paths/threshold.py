@@ -540,7 +540,7 @@ def _fit_point(fac: Factorization, zy: np.ndarray, n: int, fit_intercept: bool,
     pred = test_std @ gc  # (n_test, K), test projections once per point
     test = np.mean(np.square(yt_c[:, None] - pred), axis=0)
     K = lam.size
-    i_gcv = int(np.nanargmin(gcv[:K - 1]))
+    i_gcv = int(np.argmin(np.where(np.isnan(gcv[:K - 1]), np.inf, gcv[:K - 1])))
     i_or = int(np.argmin(test[:K - 1]))
     idx = [0, K - 1, i_gcv, i_or]
     out = np.empty((4, 7))
