@@ -294,7 +294,8 @@ class PointFit:
         Repeat and point number.
     columns : ndarray of int
         Columns of the sweep's feature matrix in the model, in order (indices
-        into ``X`` or into the random features).
+        into ``X`` after constant training columns are left out, or into the
+        random features).
     rows : ndarray of int
         Training rows used (indices into the training rows).
     design : Design
