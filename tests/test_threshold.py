@@ -276,3 +276,21 @@ def test_cli_bad_input_exit_2(tmp_path):
         err = r.stderr if hasattr(r, "stderr") else r.output
         assert err.strip().count("\n") == 0
         assert err.startswith("error:")
+
+
+def test_df_fraction_rule_gives_that_df():
+    """--ridge-df-fraction F: at every point the ridge_fixed penalty leaves effective df
+    sum d^2/(d^2 + lambda) = F x rank (Hastie, Tibshirani & Friedman 2009, eq. 3.50), with d
+    the singular values of the centered standardized subset from numpy.linalg.svd; 1e-8."""
+    Xtr, ytr, Xte, yte = _data(seed=9)
+    fits = []
+    res = threshold_sweep(Xtr, ytr, Xte, yte, n_points=8, ridge_df_fraction=0.4,
+                          on_point=fits.append)
+    j = METHODS.index("ridge_fixed")
+    for pt in fits:
+        A = Xtr[:, pt.columns]
+        d = np.linalg.svd((A - A.mean(axis=0)) / A.std(axis=0), compute_uv=False)
+        d = d[d > d[0] * 1e-10]
+        lam = res.lam[0, pt.index, j]
+        assert_allclose(np.sum(d ** 2 / (d ** 2 + lam)), 0.4 * d.size, rtol=1e-8)
+        assert_allclose(res.df[0, pt.index, j], 1 + 0.4 * d.size, rtol=1e-8)
