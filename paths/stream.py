@@ -499,7 +499,7 @@ class StreamPath(RidgePath):
     notes : tuple of str
         What the engine did that a report should state.
     captured_share : float
-        Share of :math:`\|Z\|_F^2` in the retained singular values (1 unless
+        Share of :math:`\\|Z\\|_F^2` in the retained singular values (1 unless
         the factorization was truncated with ``rank``).
     approximate : bool
         True when truncated (``rank``): the fit is ridge on the top principal
@@ -688,7 +688,7 @@ def stream_path(
     rank : int, optional
         Keep only the top ``rank`` principal components (exact truncation of
         the p × p factorization; a warning states the captured share of
-        :math:`\|Z\|_F^2` and that the min-norm quantities are then
+        :math:`\\|Z\\|_F^2` and that the min-norm quantities are then
         approximations).  At most min(n - 1, p).
     progress : callable, optional
         ``progress(label, rows_done, rows_total_or_None)`` after each chunk.
