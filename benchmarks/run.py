@@ -78,6 +78,9 @@ def main(argv=None) -> int:
                 raise ValueError(f"bench_{name}: row without {sorted(missing)}: {r}")
         rows.extend(out)
         print(f"  bench_{name}: {len(out)} rows in {seconds[name]:.1f} s", file=sys.stderr)
+        if len(names) > 1:  # this module's tables now, the whole record at the end
+            print(H.render_markdown({"rows": out, "quick": args.quick, "machine": {}}),
+                  file=sys.stderr, flush=True)
     record = {"rows": rows, "quick": args.quick, "machine": H.machine_info(),
               "created_utc": time.strftime("%Y-%m-%dT%H:%M:%S+00:00", time.gmtime())}
     print(H.render_markdown(record))
