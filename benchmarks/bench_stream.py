@@ -243,7 +243,6 @@ def _wide_case(n: int, p: int, block: int = 4096, rank=None) -> list[dict]:
     case = f"wide ({n}, {p}) column blocks" + (f", rank {rank}" if rank else "")
     zb0 = np.random.default_rng(0).standard_normal((n - 1, block))
     before = block / H.measure(lambda: zb0 @ zb0.T, repeats=3, warmup=1)["median"]
-    del zb0
     rec = _child(_CHILD_WIDE, n, p, block, rank or "none")
     rows = [H.row(BENCH, case, "peak RSS (generator source, whole run)",
                   rec["maxrss_kb"] * 1024 / 2**20, "MiB", kind="memory",

@@ -359,7 +359,6 @@ def wide_path(
     else:
         kk = rank + int(oversample)
         kk = min(kk, m)
-        ss = np.random.SeedSequence(seed)
         Ysk = np.zeros((m, kk))
 
         def omega(s, width):
@@ -404,7 +403,6 @@ def wide_path(
         solver = "wide-randomized"
         reason = (f"randomized truncated SVD, rank {rank} (oversample {oversample}, "
                   f"{power_iters} power iterations, seed {seed})")
-        del ss
     if not active.any():
         raise InputError(f"every one of the {p} columns of X is constant; nothing to fit")
     if r == 0:

@@ -20,7 +20,6 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
-from numpy.testing import assert_allclose
 from typer.testing import CliRunner
 
 distributed = pytest.importorskip("distributed")
