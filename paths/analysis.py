@@ -347,6 +347,10 @@ def explore_engine(
     cv_seed: int | None = None,
     progress=None,
     command_line: list[str] | None = None,
+    formats=(),
+    width: str = "single",
+    x_axis: str = "log_lambda",
+    report: bool = False,
 ) -> ExploreRun:
     """:func:`explore` for data that need not fit in memory: ``engine`` "stream" or "dask".
 
@@ -355,7 +359,9 @@ def explore_engine(
     columns than rows) to :func:`paths.wide.wide_path`, read a column group at a
     time.  Writes ``path.csv``, ``coefficients.csv`` and ``summary.json`` (with
     an ``engine`` record: passes, rows, throughput, notes).  Selections are the
-    grid minima of GCV, LOO, test error and (with ``cv``) K-fold CV.
+    grid minima of GCV, LOO, test error and (with ``cv``) K-fold CV.  With
+    ``formats`` and/or ``report``, the path and spectrum figures and the report
+    are written as by :func:`explore` (not for a wide fit without coefficients).
     """
     from ._validation import InputError
 
@@ -444,5 +450,13 @@ def explore_engine(
     if result.coef is not None:
         files.append(write_csv(out / "coefficients.csv",
                                *_per_target(coefficient_table, result, targets)))
+    drawable = result.coef is not None and (formats or report)
+    if drawable:
+        from .report import report_numbers, write_explore_outputs
+
+        summary["report"] = report_numbers(summary)
     files.append(write_json(out / "summary.json", summary))
+    if drawable:
+        files += write_explore_outputs(result, summary, out, formats=formats or (),
+                                       width=width, x=x_axis, report=report)
     return ExploreRun(result=result, summary=summary, out_dir=out, files=files)

@@ -132,13 +132,18 @@ def report_numbers(summary: dict) -> dict:
                "gcv": "generalized cross-validation at the chosen penalty"}
     est_from = sources.get(sel.get("est_source"), "the selection rule's estimate") \
         if est_mse is not None else None
+    cv = summary.get("cv") if isinstance(summary.get("cv"), dict) else None
+    if est_mse is None and crit_value is not None and rule in sources:
+        # a grid-minimum record (no rule estimate): the rule's own criterion at the choice
+        est_mse, est_from = crit_value, sources[rule]
+        if rule == "cv" and cv and cv.get("se") is not None:
+            est_se = _first(cv["se"][idx])
     if est_mse is None:
         if summary.get("loo_mse") is not None:
             est_mse, est_from = _first(summary["loo_mse"][idx]), "leave-one-out MSE at the choice"
         elif crit_value is not None:
             est_mse, est_from = crit_value, "the criterion at the choice"
     test = summary.get("test_mse")
-    cv = summary.get("cv") if isinstance(summary.get("cv"), dict) else None
     out = {
         "rule": rule, "lambda": float(sel["lambda"]), "df": float(_first(sel["df"])),
         "index": int(idx), "fraction": None if fraction is None else float(fraction),
@@ -173,7 +178,8 @@ def data_summary(summary: dict) -> list:
                                                                         else "") if const
                  else "none"))
     notes = summary.get("data_notes") or []
-    rows.append(("missing / dropped columns", "; ".join(map(str, notes)) if notes else "none reported"))
+    rows.append(("data notes (missing, dropped, encoded columns; engine)",
+                 "; ".join(map(str, notes)) if notes else "none reported"))
     rows.append(("scaling", "centered and standardized (population SD)" if summary.get("standardize")
                  else "centered only"))
     rows.append(("solver", f"{summary.get('solver')} ({summary.get('solver_reason')})"))

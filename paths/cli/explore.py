@@ -214,8 +214,11 @@ def explore_cmd(
             exclude=exclude or None, sep=sep, n_lambdas=lambdas, standardize=standardize,
             force=force, chunk_rows=chunk_rows, accurate=accurate, rank=rank,
             scheduler=scheduler, timeout=scheduler_timeout, cv=cv,
-            command_line=["paths", *sys.argv[1:]])
+            command_line=["paths", *sys.argv[1:]], formats=fig_formats, width=fig_width,
+            x_axis=fig_x, report=report)
         print_summary(run)
+        if (run.out_dir / "report.html").exists():
+            console.print(f"[bold]report:[/] {run.out_dir / 'report.html'}")
         return
     group_labels = None
     if groups is not None:
