@@ -16,6 +16,7 @@ from ..output import prepare_out_dir, write_csv, write_json
 from ..summary import versions
 from ..threshold import threshold_summary, threshold_sweep, threshold_table
 from .app import command, console
+from .explore import Solver
 
 
 class Over(str, Enum):
@@ -37,12 +38,6 @@ class FeatureMap(str, Enum):
 class Band(str, Enum):
     se = "se"
     quantile = "quantile"
-
-
-class Solver(str, Enum):
-    auto = "auto"
-    svd = "svd"
-    gram = "gram"
 
 
 def progress_bar(label: str) -> Progress:
