@@ -77,8 +77,9 @@ def _make_parquet(path: Path, n: int, p: int, *, seed: int = 0, group: int = 131
     return path
 
 
-_CHILD_CLI = r"""
-import json, resource, sys, time
+# shared by the child scripts: the peak-RSS probe
+_PRELUDE = r"""
+import json, resource, sys
 def _hwm_kb():
     # peak RSS of this process image: /proc VmHWM (getrusage's ru_maxrss keeps the
     # parent's resident size across fork + exec on Linux, which would inflate it)
@@ -89,6 +90,10 @@ def _hwm_kb():
     except OSError:
         pass
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+"""
+
+_CHILD_CLI = _PRELUDE + r"""
+import time
 from paths.cli import app
 args, out = json.loads(sys.argv[1]), sys.argv[2]
 t0 = time.perf_counter()
@@ -102,36 +107,15 @@ with open(out, "w") as fh:
                "seconds": time.perf_counter() - t0, "code": code}, fh)
 """
 
-_CHILD_IDLE = r"""
-import json, resource, sys
-def _hwm_kb():
-    # peak RSS of this process image: /proc VmHWM (getrusage's ru_maxrss keeps the
-    # parent's resident size across fork + exec on Linux, which would inflate it)
-    try:
-        for line in open("/proc/self/status"):
-            if line.startswith("VmHWM:"):
-                return int(line.split()[1])
-    except OSError:
-        pass
-    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+_CHILD_IDLE = _PRELUDE + r"""
 import numpy, scipy.linalg, pyarrow.parquet, pandas, rich
 import paths, paths.cli, paths.stream, paths.wide
 with open(sys.argv[1], "w") as fh:
     json.dump({"maxrss_kb": _hwm_kb()}, fh)
 """
 
-_CHILD_WIDE = r"""
-import json, resource, sys, time, warnings
-def _hwm_kb():
-    # peak RSS of this process image: /proc VmHWM (getrusage's ru_maxrss keeps the
-    # parent's resident size across fork + exec on Linux, which would inflate it)
-    try:
-        for line in open("/proc/self/status"):
-            if line.startswith("VmHWM:"):
-                return int(line.split()[1])
-    except OSError:
-        pass
-    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+_CHILD_WIDE = _PRELUDE + r"""
+import time, warnings
 import numpy as np
 from paths.chunks import ColumnSource
 from paths.wide import wide_path

@@ -619,6 +619,18 @@ def as_frame(data) -> pd.DataFrame:
 # --------------------------------------------------------------------------- selection
 
 
+
+def _refuse_infinite(where, sub_lines, *blocks):
+    """One-line error for the first infinite value in ``(array, column names, kind)`` blocks."""
+    for arr, cols, kind in blocks:
+        bad = ~np.isfinite(arr)
+        if bad.any():
+            j = int(np.flatnonzero(bad.any(axis=0))[0])
+            i = int(np.flatnonzero(bad[:, j])[0])
+            raise _fail(where, f"{kind} column {cols[j]!r} has {int(bad[:, j].sum())} infinite "
+                               f"value(s) (first on {_row_label(sub_lines, i)}); replace them "
+                               "with finite numbers or remove those rows")
+
 def _row_label(lines, i: int) -> str:
     return f"line {int(lines[i])}" if lines is not None else f"row {i + 1}"
 
@@ -944,14 +956,7 @@ def select(df, target, *, features=None, exclude=None, id_column=None, encode=No
     else:
         X = np.ascontiguousarray(np.column_stack(blocks), dtype=np.float64)
     Y = _float_block(sub, targets)
-    for arr, cols, kind in ((X, names, "feature"), (Y, targets, "target")):
-        bad = ~np.isfinite(arr)
-        if bad.any():
-            j = int(np.flatnonzero(bad.any(axis=0))[0])
-            i = int(np.flatnonzero(bad[:, j])[0])
-            raise _fail(where, f"{kind} column {cols[j]!r} has {int(bad[:, j].sum())} infinite "
-                               f"value(s) (first on {_row_label(sub_lines, i)}); replace them "
-                               "with finite numbers or remove those rows")
+    _refuse_infinite(where, sub_lines, (X, names, "feature"), (Y, targets, "target"))
     for j, t in enumerate(targets):
         if Y[:, j].max() == Y[:, j].min():
             raise _fail(where, f"target column {t!r} is constant (every value {Y[0, j]:g}); "
@@ -1070,14 +1075,8 @@ def select_like(df, like: Dataset, *, source: str = "") -> Dataset:
             blocks.append(_float_column(s))
     X = np.column_stack(blocks) if blocks else np.zeros((sub.shape[0], 0))
     Y = np.column_stack([_float_column(sub[t]) for t in like.target_names])
-    for arr, cols, kind in ((X, like.feature_names, "feature"), (Y, like.target_names, "target")):
-        bad = ~np.isfinite(arr)
-        if bad.any():
-            j = int(np.flatnonzero(bad.any(axis=0))[0])
-            i = int(np.flatnonzero(bad[:, j])[0])
-            raise _fail(where, f"{kind} column {cols[j]!r} has {int(bad[:, j].sum())} infinite "
-                               f"value(s) (first on {_row_label(sub_lines, i)}); replace them "
-                               "with finite numbers or remove those rows")
+    _refuse_infinite(where, sub_lines, (X, like.feature_names, "feature"),
+                     (Y, like.target_names, "target"))
     y = Y[:, 0] if len(like.target_names) == 1 else Y
     ids = sub[like.id_column].to_numpy() if like.id_column and like.id_column in columns else None
     return Dataset(X=np.ascontiguousarray(X), y=y, feature_names=list(like.feature_names),
