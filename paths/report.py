@@ -411,6 +411,16 @@ code{font-size:.85rem;word-break:break-all}
 """
 
 
+def _figures_html(figures, e) -> list:
+    """The report's "Figures" section: each SVG inlined with its caption (empty without figures)."""
+    if not figures:
+        return []
+    return ["<h2>Figures</h2>"] + [
+        f'<figure id="fig-{e(f.name)}">{_svg_inline(f.svg, f.name)}'
+        f"<figcaption><b>{e(f.name)}.</b> {e(f.caption)}</figcaption></figure>"
+        for f in figures]
+
+
 def _svg_inline(svg: str, name: str) -> str:
     svg = re.sub(r"<\?xml[^>]*\?>", "", svg)
     svg = re.sub(r"<!DOCTYPE[^>]*>", "", svg, flags=re.S)
@@ -442,11 +452,7 @@ def render_html(summary: dict, figures=()) -> str:
     B += ["<h2>Diagnosis</h2>", "<ul>"] + [f"<li>{e(s)}</li>" for s in diagnosis(summary)] + ["</ul>"]
     h, rows = rules_table(summary)
     B += ["<h2>Selection rules</h2>", table(rows, h)]
-    if figures:
-        B.append("<h2>Figures</h2>")
-        for f in figures:
-            B.append(f'<figure id="fig-{e(f.name)}">{_svg_inline(f.svg, f.name)}'
-                     f"<figcaption><b>{e(f.name)}.</b> {e(f.caption)}</figcaption></figure>")
+    B += _figures_html(figures, e)
     B += ["<h2>Methods paragraph</h2>", f'<p class="methods">{e(methods_paragraph(summary))}</p>',
           "<h2>Cautions</h2>", '<ul class="caution">']
     B += [f"<li>{e(c)}</li>" for c in cautions(summary)] + ["</ul>"]
@@ -562,11 +568,7 @@ def render_threshold_html(summary: dict, figures=()) -> str:
     B += ["<h2>Sweep</h2>", table(threshold_data_summary(summary), ["quantity", "value"]),
           "<h2>Diagnosis</h2>", "<ul>"] + [f"<li>{e(s)}</li>" for s in threshold_diagnosis(summary)]
     B.append("</ul>")
-    if figures:
-        B.append("<h2>Figures</h2>")
-        for f in figures:
-            B.append(f'<figure id="fig-{e(f.name)}">{_svg_inline(f.svg, f.name)}'
-                     f"<figcaption><b>{e(f.name)}.</b> {e(f.caption)}</figcaption></figure>")
+    B += _figures_html(figures, e)
     B += ["<h2>Methods paragraph</h2>", f'<p class="methods">{e(threshold_methods(summary))}</p>',
           "<h2>Cautions</h2>", '<ul class="caution">']
     B += [f"<li>{e(c)}</li>" for c in cautions({"n_test": summary.get("n_test"),
