@@ -15,7 +15,7 @@ same 10 shuffled folds:
 Ratios (per BLAS thread setting): ``CV / bare SVD`` (target ≤ 3) and
 ``sklearn loop / CV`` (target ≥ 20), both with the end-to-end CV time.
 Also recorded: the cost model's predicted route and a fresh
-:func:`paths.cv.measure_cost_model` (seconds per flop of both kernels).
+:func:`paths.selection.cv.measure_cost_model` (seconds per flop of both kernels).
 """
 from __future__ import annotations
 
@@ -48,7 +48,7 @@ def _bench(n: int, p: int, quick: bool) -> list[dict]:
     from sklearn.model_selection import KFold, cross_val_score
 
     from paths import fit_path
-    from paths.cv import cross_validate, make_folds, measure_cost_model
+    from paths.selection.cv import cross_validate, make_folds, measure_cost_model
 
     X, y = _data(n, p)
     case = f"{n}x{p}"

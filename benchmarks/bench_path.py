@@ -103,8 +103,8 @@ def _bench_shape(n: int, p: int, label: str, quick: bool) -> list[dict]:
     from sklearn.linear_model import Ridge, RidgeCV
 
     from paths import fit_path
-    from paths.design import prepare
-    from paths.factor import factorize
+    from paths.core.design import prepare
+    from paths.core.factor import factorize
 
     case = f"{label} {n}×{p}"
     repeats = 3 if quick else 5

@@ -12,7 +12,7 @@ Cases (synthetic data generated here, seeded):
 - **accuracy**: the streamed Gram and TSQR routes against ``fit_path`` in
   memory on (200 000, 100) rows (max relative error over coefficients, GCV,
   LOO).
-- **wide**: :func:`paths.wide.wide_path` over column blocks produced by a
+- **wide**: :func:`paths.engines.wide.wide_path` over column blocks produced by a
   seeded generator (so the figure is the algorithm's memory, not a file
   cache's), in a child process: (500, 20 000) quick, (1000, 50 000) default,
   (2000, 200 000) with ``--large``; throughput against NumPy's ``z @ z.T`` on
@@ -109,7 +109,7 @@ with open(out, "w") as fh:
 
 _CHILD_IDLE = _PRELUDE + r"""
 import numpy, scipy.linalg, pyarrow.parquet, pandas, rich
-import paths, paths.cli, paths.stream, paths.wide
+import paths, paths.cli, paths.engines.stream, paths.engines.wide
 with open(sys.argv[1], "w") as fh:
     json.dump({"maxrss_kb": _hwm_kb()}, fh)
 """
@@ -117,8 +117,8 @@ with open(sys.argv[1], "w") as fh:
 _CHILD_WIDE = _PRELUDE + r"""
 import time, warnings
 import numpy as np
-from paths.chunks import ColumnSource
-from paths.wide import wide_path
+from paths.data.chunks import ColumnSource
+from paths.engines.wide import wide_path
 n, p, block, rank, out = int(sys.argv[1]), int(sys.argv[2]), int(sys.argv[3]), sys.argv[4], sys.argv[5]
 
 class Gen(ColumnSource):
@@ -205,7 +205,7 @@ def _stream_case(n: int, p: int, quick: bool) -> list[dict]:
 
 def _accuracy_case(n: int, p: int) -> list[dict]:
     from paths import fit_path
-    from paths.stream import stream_path
+    from paths.engines.stream import stream_path
 
     case = f"({n}, {p}) accuracy vs in memory"
     rng = np.random.default_rng(3)

@@ -4,7 +4,7 @@ Case: seeded Gaussian data (synthetic), n_train = 200, 100 test rows, 800
 columns; ``threshold_sweep(order="random", repeats=5, n_points=40)`` — 40
 points with p' from 1 to 800, dense around p' = n, five random orders.
 
-- the floor: the sum, over the 5 × 40 points, of ``paths.factor.factorize``
+- the floor: the sum, over the 5 × 40 points, of ``paths.core.factor.factorize``
   (``solver="auto"``, the call the sweep makes) on the same reduced designs
   (centering and scaling done outside the timing, the same column orders);
 - the sweep: ``threshold_sweep`` end to end (validation, one column
@@ -36,9 +36,9 @@ def _data():
 
 
 def run(quick: bool) -> list[dict]:
-    from paths.design import prepare
-    from paths.factor import factorize
-    from paths.threshold import sweep_sizes, threshold_sweep
+    from paths.core.design import prepare
+    from paths.core.factor import factorize
+    from paths.threshold.sweep import sweep_sizes, threshold_sweep
 
     X, y, Xt, yt = _data()
     grid = sweep_sizes(1, P, N_TRAIN - 1, POINTS)

@@ -2,66 +2,73 @@
 
 Penalty convention: minimize ||y - b0 - X beta||^2 + lambda ||beta||^2 with X
 the column-centered (optionally standardized) design and b0 unpenalized.
+
+The public names below are imported on first use, so ``import paths`` loads
+numpy only; scikit-learn, pandas, pyarrow, matplotlib and dask are loaded by
+the functions that need them.
 """
-from ._validation import InputError
-from .factor import Factorization, factorize
-from .grid import default_grid, effective_df, lambda_for_df
-from .path import PENALTY_CONVENTION, MinNormFit, RidgePath, fit_path
-from .cv import CostModel, CVResult, cross_validate, make_folds
-from .select import NoiseEstimate, Selection, SelectionReport, noise_variance, select_penalty
-from .estimator import RidgePathRegressor
-from .stream import StreamPath, stream_path
-from .wide import WidePath, wide_path
-from .dask_engine import dask_path
-from .threshold import ThresholdResult, TheoryCurves, threshold_sweep
-from .simulate import SimulationResult, Truth, make_truth, sweep_with_truth
-from .plan import PlanResult
-from .figures import Panel, path_figure, save_figure, spectrum_figure, threshold_figure
-from .cases import Case, load_case, run_case
+from __future__ import annotations
+
+import importlib
 
 __version__ = "0.1.0"
 
-__all__ = [
-    "InputError",
-    "Factorization",
-    "factorize",
-    "default_grid",
-    "effective_df",
-    "lambda_for_df",
-    "PENALTY_CONVENTION",
-    "MinNormFit",
-    "RidgePath",
-    "fit_path",
-    "CostModel",
-    "CVResult",
-    "cross_validate",
-    "make_folds",
-    "NoiseEstimate",
-    "Selection",
-    "SelectionReport",
-    "noise_variance",
-    "select_penalty",
-    "RidgePathRegressor",
-    "StreamPath",
-    "stream_path",
-    "WidePath",
-    "wide_path",
-    "dask_path",
-    "ThresholdResult",
-    "TheoryCurves",
-    "threshold_sweep",
-    "SimulationResult",
-    "Truth",
-    "make_truth",
-    "sweep_with_truth",
-    "PlanResult",
-    "Panel",
-    "path_figure",
-    "spectrum_figure",
-    "threshold_figure",
-    "save_figure",
-    "Case",
-    "load_case",
-    "run_case",
-    "__version__",
-]
+_PUBLIC = {
+    "InputError": "paths.data.validation",
+    "Factorization": "paths.core.factor",
+    "factorize": "paths.core.factor",
+    "default_grid": "paths.core.grid",
+    "effective_df": "paths.core.grid",
+    "lambda_for_df": "paths.core.grid",
+    "PENALTY_CONVENTION": "paths.core.path",
+    "MinNormFit": "paths.core.path",
+    "RidgePath": "paths.core.path",
+    "fit_path": "paths.core.path",
+    "CostModel": "paths.selection.cv",
+    "CVResult": "paths.selection.cv",
+    "cross_validate": "paths.selection.cv",
+    "make_folds": "paths.selection.cv",
+    "NoiseEstimate": "paths.selection.rules",
+    "Selection": "paths.selection.rules",
+    "SelectionReport": "paths.selection.rules",
+    "noise_variance": "paths.selection.rules",
+    "select_penalty": "paths.selection.rules",
+    "RidgePathRegressor": "paths.selection.estimator",
+    "StreamPath": "paths.engines.stream",
+    "stream_path": "paths.engines.stream",
+    "WidePath": "paths.engines.wide",
+    "wide_path": "paths.engines.wide",
+    "dask_path": "paths.engines.dask_cluster",
+    "ThresholdResult": "paths.threshold.sweep",
+    "TheoryCurves": "paths.threshold.sweep",
+    "threshold_sweep": "paths.threshold.sweep",
+    "SimulationResult": "paths.threshold.simulate",
+    "Truth": "paths.threshold.simulate",
+    "make_truth": "paths.threshold.simulate",
+    "sweep_with_truth": "paths.threshold.simulate",
+    "PlanResult": "paths.threshold.plan",
+    "Panel": "paths.present.figures",
+    "path_figure": "paths.present.figures",
+    "spectrum_figure": "paths.present.figures",
+    "threshold_figure": "paths.present.figures",
+    "save_figure": "paths.present.figures",
+    "Case": "paths.workflows.cases",
+    "load_case": "paths.workflows.cases",
+    "run_case": "paths.workflows.cases",
+}
+
+__all__ = [*_PUBLIC, "__version__"]
+
+
+def __getattr__(name: str):
+    """Import a public name's module on first access (PEP 562)."""
+    module = _PUBLIC.get(name)
+    if module is None:
+        raise AttributeError(f"module 'paths' has no attribute {name!r}")
+    value = getattr(importlib.import_module(module), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__():
+    return sorted(__all__)

@@ -15,8 +15,8 @@ from pathlib import Path
 import pytest
 from typer.testing import CliRunner
 
-from paths._validation import InputError
-from paths.cases import builtin_dir, list_cases, load_case, parse_case, run_case
+from paths.data.validation import InputError
+from paths.workflows.cases import builtin_dir, list_cases, load_case, parse_case, run_case
 from paths.cli import app
 
 REPO = Path(__file__).resolve().parents[1]
@@ -129,7 +129,7 @@ def test_bad_format_or_width_is_refused_before_any_work(tmp_path, args, needle):
 
 def test_explore_figure_options(tmp_path):
     """explore --format/--width/--figure-x: bad values exit 2 in one line; good ones write."""
-    from paths.datasets import make_panel
+    from paths.data.synthetic import make_panel
 
     data = tmp_path / "panel.csv"
     make_panel(40, 30, seed=1).to_csv(data, index=False)
@@ -169,7 +169,7 @@ def test_a_threshold_case_on_generated_data_and_its_report_numbers(tmp_path):
     and diagnosis is a number (or part of a string) of threshold.json (parsed with json)."""
     import re
 
-    from paths.report import fmt, threshold_diagnosis, threshold_methods
+    from paths.present.report import fmt, threshold_diagnosis, threshold_methods
 
     text = """
 [case]

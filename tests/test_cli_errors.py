@@ -175,12 +175,12 @@ def test_fewer_rows_than_the_requested_cv(tmp_path):
 
 def test_internal_error_exit_1_with_hint(tmp_path, good, monkeypatch):
     """A bug (any non-InputError exception) exits 1 with one line asking for a report."""
-    import paths.analysis
+    import paths.workflows.analysis
 
     def broken(*a, **k):
         raise RuntimeError("synthetic failure")
 
-    monkeypatch.setattr(paths.analysis, "fit_path", broken)
+    monkeypatch.setattr(paths.workflows.analysis, "fit_path", broken)
     res = runner.invoke(app, ["explore", str(good), "-t", "y", "--out", str(tmp_path / "o")])
     assert res.exit_code == 1
     err = res.stderr.strip()
@@ -207,9 +207,9 @@ def test_debug_shows_traceback(tmp_path):
 def test_ctrl_c_during_write_leaves_no_partial_file(tmp_path, good, monkeypatch):
     """KeyboardInterrupt while a file is being written: exit 130, no file under a final name
     is half-written and no temporary is left behind."""
-    import paths.output
+    import paths.data.output
 
-    real = paths.output.os.replace
+    real = paths.data.output.os.replace
     calls = {"n": 0}
 
     def interrupted(src, dst):
@@ -218,7 +218,7 @@ def test_ctrl_c_during_write_leaves_no_partial_file(tmp_path, good, monkeypatch)
             raise KeyboardInterrupt
         return real(src, dst)
 
-    monkeypatch.setattr(paths.output.os, "replace", interrupted)
+    monkeypatch.setattr(paths.data.output.os, "replace", interrupted)
     out = tmp_path / "o"
     res = runner.invoke(app, ["explore", str(good), "-t", "y", "--out", str(out)])
     assert res.exit_code == 130

@@ -16,7 +16,7 @@ from sklearn.pipeline import make_pipeline
 from sklearn.preprocessing import StandardScaler
 
 from paths import InputError, fit_path
-from paths.cv import CostModel, cross_validate, loo_residuals, make_folds
+from paths.selection.cv import CostModel, cross_validate, loo_residuals, make_folds
 
 # Relative tolerance of the comparison: both sides are backward-stable solves on
 # well-conditioned folds (condition numbers below ~1e3), so they agree to ~1e-12;

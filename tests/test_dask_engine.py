@@ -29,8 +29,8 @@ import cloudpickle  # noqa: E402  (installed with distributed)
 
 from paths import InputError, fit_path  # noqa: E402
 from paths.cli import app  # noqa: E402
-from paths.dask_engine import dask_path  # noqa: E402
-from paths.stream import stream_path  # noqa: E402
+from paths.engines.dask_cluster import dask_path  # noqa: E402
+from paths.engines.stream import stream_path  # noqa: E402
 
 cloudpickle.register_pickle_by_value(sys.modules[__name__])  # workers need the helpers below
 
@@ -213,7 +213,7 @@ def test_csv_later_block_non_numeric_is_input_error(tmp_path, monkeypatch):
     engine for the row range (issue 7), not an internal error."""
     import dask.dataframe as dd
 
-    from paths.dask_engine import as_dask_design
+    from paths.engines.dask_cluster import as_dask_design
 
     f = tmp_path / "d.csv"
     lines = ["a,y"] + [f"{i},{i % 7}" for i in range(20000)]

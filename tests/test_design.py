@@ -1,4 +1,4 @@
-"""Reference checks for :mod:`paths.design` (centering by a Householder
+"""Reference checks for :mod:`paths.core.design` (centering by a Householder
 reflector, scaling, constant columns).
 
 References: numpy (column means, ``std`` with ddof=0, inner products of the
@@ -14,7 +14,7 @@ from hypothesis import given, settings, strategies as st
 from numpy.testing import assert_allclose
 
 from paths import fit_path
-from paths.design import prepare, to_sample_space
+from paths.core.design import prepare, to_sample_space
 
 EPS = np.finfo(np.float64).eps
 

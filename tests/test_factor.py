@@ -1,4 +1,4 @@
-"""Reference checks for :mod:`paths.factor` (the factorization routes).
+"""Reference checks for :mod:`paths.core.factor` (the factorization routes).
 
 References: numpy/LAPACK (``numpy.linalg.svd``, ``pinv``, ``matrix_rank``) and
 standard perturbation bounds for the symmetric eigenproblem and the SVD
@@ -13,9 +13,9 @@ from hypothesis import given, settings, strategies as st
 from numpy.testing import assert_allclose
 
 from paths import fit_path
-from paths._validation import InputError
-from paths.design import prepare
-from paths.factor import factorize
+from paths.data.validation import InputError
+from paths.core.design import prepare
+from paths.core.factor import factorize
 
 EPS = np.finfo(np.float64).eps
 

@@ -19,8 +19,8 @@ from numpy.testing import assert_allclose
 from PIL import Image
 
 from paths import fit_path
-from paths import figures
-from paths._validation import InputError
+from paths.present import figures
+from paths.data.validation import InputError
 
 
 @pytest.fixture(scope="module")

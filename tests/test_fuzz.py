@@ -3,8 +3,8 @@
 Three generators: arbitrary bytes; bytes over the alphabet that CSV parsers care
 about (delimiters, quotes, line ends, signs, exponents, NA tokens, invalid
 UTF-8, NUL); and byte-level mutations (insert, delete, replace) of a valid CSV.
-Each file goes through :func:`paths.io.read_table` and, when it loads,
-:func:`paths.io.select` with the last column as target (one-hot encoding and
+Each file goes through :func:`paths.data.tables.read_table` and, when it loads,
+:func:`paths.data.tables.select` with the last column as target (one-hot encoding and
 dropping missing rows on, to reach those paths).  The contract (house rules):
 the only exception is ``InputError`` with a one-line message; no
 RuntimeWarning escapes (pyproject.toml turns them into errors).  Seeds are
@@ -17,7 +17,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from paths import InputError
-from paths.io import read_table, select
+from paths.data.tables import read_table, select
 
 FUZZ = settings(max_examples=150, deadline=None, derandomize=True, database=None,
                 suppress_health_check=list(HealthCheck))

@@ -1,4 +1,4 @@
-"""Reference checks for :mod:`paths.grid` (effective df and the default grid).
+"""Reference checks for :mod:`paths.core.grid` (effective df and the default grid).
 
 References: effective degrees of freedom df(lam) = sum_j d_j^2/(d_j^2 + lam)
 (Hastie, Tibshirani & Friedman, *The Elements of Statistical Learning*, 2nd ed.,
@@ -14,7 +14,7 @@ from hypothesis import given, settings, strategies as st
 from numpy.testing import assert_allclose
 
 from paths import fit_path
-from paths.grid import default_grid, effective_df, lambda_for_df
+from paths.core.grid import default_grid, effective_df, lambda_for_df
 
 
 def test_effective_df_is_trace_of_penalized_hat_matrix():

@@ -19,7 +19,7 @@ import pytest
 from numpy.testing import assert_array_equal
 
 from paths import InputError
-from paths.io import as_frame, load_dataset, read_table, select, select_like, sha256_of
+from paths.data.tables import as_frame, load_dataset, read_table, select, select_like, sha256_of
 
 RNG = np.random.default_rng(20261202)
 ARR = RNG.standard_normal((7, 4)) * np.array([1e-8, 1.0, 1e5, 3.0])

@@ -13,7 +13,7 @@ import json
 import numpy as np
 import pytest
 
-from paths.output import (OutputError, prepare_out_dir, write_bytes, write_csv, write_json,
+from paths.data.output import (OutputError, prepare_out_dir, write_bytes, write_csv, write_json,
                           write_text)
 
 
@@ -66,7 +66,7 @@ def test_replace_keeps_old_file_until_done(tmp_path, monkeypatch):
     the final name and removes the temporary file."""
     dest = tmp_path / "r.txt"
     write_text(dest, "old\n")
-    import paths.output as po
+    import paths.data.output as po
 
     real_fsync = po.os.fsync
 
@@ -85,7 +85,7 @@ def test_write_error_is_one_line_output_error(tmp_path, monkeypatch):
     """A failing disk (ENOSPC) becomes a one-line OutputError, temp removed."""
     import errno
 
-    import paths.output as po
+    import paths.data.output as po
 
     def full(fd):
         raise OSError(errno.ENOSPC, "No space left on device")

@@ -1,4 +1,4 @@
-"""Reference checks for :mod:`paths.path` (the ridge path and its criteria).
+"""Reference checks for :mod:`paths.core.path` (the ridge path and its criteria).
 
 Every test names its outside reference in its docstring: scikit-learn
 (``Ridge``, ``RidgeCV``, ``StandardScaler``), numpy (explicit hat matrices,
@@ -15,7 +15,7 @@ from sklearn.linear_model import Ridge, RidgeCV
 from sklearn.preprocessing import StandardScaler
 
 from paths import fit_path
-from paths._validation import InputError
+from paths.data.validation import InputError
 
 EPS = np.finfo(np.float64).eps
 

@@ -1,4 +1,4 @@
-"""Tests for paths.plan and ``paths plan`` against the published formulas and Monte Carlo."""
+"""Tests for paths.threshold.plan and ``paths plan`` against the published formulas and Monte Carlo."""
 import json
 
 import numpy as np
@@ -9,9 +9,9 @@ from scipy.linalg import toeplitz
 from typer.testing import CliRunner
 
 from paths import InputError
-from paths import theory as T
+from paths.threshold import theory as T
 from paths.cli import app
-from paths.plan import PLAN_COLUMNS, plan
+from paths.threshold.plan import PLAN_COLUMNS, plan
 
 
 @pytest.fixture(autouse=True, scope="module")

@@ -16,8 +16,8 @@ from numpy.testing import assert_allclose
 from scipy.integrate import quad
 
 from paths import fit_path
-from paths import plot
-from paths._validation import InputError
+from paths.present import plot
+from paths.data.validation import InputError
 
 # float64 arrays go into matplotlib unchanged; 0 tolerance would also pass, 1e-12 allows
 # for a log10 recomputation in the helper versus in the test.

@@ -15,10 +15,10 @@ from html.parser import HTMLParser
 import numpy as np
 import pytest
 
-from paths.analysis import explore
-from paths.datasets import make_calibration
-from paths.io import select
-from paths.report import RULE_NAMES, fmt, methods_paragraph
+from paths.workflows.analysis import explore
+from paths.data.synthetic import make_calibration
+from paths.data.tables import select
+from paths.present.report import RULE_NAMES, fmt, methods_paragraph
 
 NUM = re.compile(r"(?<![\w.])-?\d+(?:\.\d+)?(?:e[-+]?\d+)?(?![\w])")
 
@@ -27,7 +27,7 @@ NUM = re.compile(r"(?<![\w.])-?\d+(?:\.\d+)?(?:e[-+]?\d+)?(?![\w])")
 def run(tmp_path_factory):
     """One explore run with K-fold CV and a holdout on synthetic calibration data (seeded)."""
     frame = make_calibration(40, 120, seed=0)
-    data = select(frame, "analyte", source="synthetic calibration (paths.datasets)")
+    data = select(frame, "analyte", source="synthetic calibration (paths.data.synthetic)")
     out = tmp_path_factory.mktemp("report") / "out"
     r = explore(data, out_dir=out, holdout=0.25, seed=2, cv=5, n_lambdas=40, formats=("svg",),
                 command_line=["paths", "explore", "x.csv", "--target", "analyte"])

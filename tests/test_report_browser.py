@@ -21,9 +21,9 @@ import numpy as np
 import pytest
 from PIL import Image
 
-from paths.analysis import explore
-from paths.datasets import make_calibration
-from paths.io import select
+from paths.workflows.analysis import explore
+from paths.data.synthetic import make_calibration
+from paths.data.tables import select
 
 BROWSER = shutil.which("chromium") or shutil.which("chromium-browser")
 pytestmark = pytest.mark.skipif(

@@ -21,8 +21,8 @@ from typer.testing import CliRunner
 
 from paths import InputError, fit_path
 from paths.cli import app
-from paths.cv import cross_validate
-from paths.select import (RULES, noise_variance, one_se_index, parse_rule, select_penalty,
+from paths.selection.cv import cross_validate
+from paths.selection.rules import (RULES, noise_variance, one_se_index, parse_rule, select_penalty,
                           shrinkage_fraction)
 
 

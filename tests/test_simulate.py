@@ -1,4 +1,4 @@
-"""Tests for paths.simulate: exact bias/variance against Monte Carlo refits (numpy, scikit-learn)."""
+"""Tests for paths.threshold.simulate: exact bias/variance against Monte Carlo refits (numpy, scikit-learn)."""
 import json
 
 import numpy as np
@@ -11,8 +11,8 @@ from typer.testing import CliRunner
 
 from paths import InputError
 from paths.cli import app
-from paths.simulate import draw, make_truth, simulate, sweep_with_truth
-from paths.threshold import METHODS
+from paths.threshold.simulate import draw, make_truth, simulate, sweep_with_truth
+from paths.threshold.sweep import METHODS
 
 
 @pytest.fixture(autouse=True, scope="module")

@@ -24,7 +24,7 @@ from typer.testing import CliRunner
 
 from paths import InputError, fit_path
 from paths.cli import app
-from paths.stream import (PairwiseMerger, chunk_moments, merge_moments, stream_path)
+from paths.engines.stream import (PairwiseMerger, chunk_moments, merge_moments, stream_path)
 
 NIST_DIR = Path(__file__).resolve().parent / "data" / "nist"
 FIELDS = ["lambdas", "coef", "intercept", "df", "train_mse", "gcv", "loo_mse", "test_mse",
@@ -143,8 +143,8 @@ def test_kfold_against_sklearn_refits(cv_seed):
     lams = np.array([100.0, 3.0, 0.0])
     res = stream_path(X, lams, y=y, chunk_rows=41, cv=5, cv_seed=cv_seed)
     hp_folds = None
-    from paths.stream import HatPass, factor_moments  # fold labels as the engine assigns them
-    from paths.stream import PairwiseMerger as PM
+    from paths.engines.stream import HatPass, factor_moments  # fold labels as the engine assigns them
+    from paths.engines.stream import PairwiseMerger as PM
     m = PM()
     m.add(chunk_moments(np.column_stack([X, y])))
     hp = HatPass(factor_moments(m.result(), 6), lams, n_folds=5, fold_seed=cv_seed)

@@ -1,4 +1,4 @@
-"""Tests for paths.theory against quadrature, Monte Carlo and the published formulas.
+"""Tests for paths.threshold.theory against quadrature, Monte Carlo and the published formulas.
 
 Every Monte Carlo check uses a fixed seed and compares within three standard
 errors of the Monte Carlo mean, plus a stated finite-n allowance where the
@@ -10,7 +10,7 @@ from numpy.testing import assert_allclose
 from scipy import integrate, stats
 
 from paths import InputError
-from paths import theory as T
+from paths.threshold import theory as T
 
 
 @pytest.fixture(autouse=True, scope="module")

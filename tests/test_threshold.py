@@ -1,4 +1,4 @@
-"""Tests for paths.threshold and ``paths threshold`` against numpy, scikit-learn and pandas."""
+"""Tests for paths.threshold.sweep and ``paths threshold`` against numpy, scikit-learn and pandas."""
 import json
 
 import numpy as np
@@ -10,7 +10,7 @@ from typer.testing import CliRunner
 
 from paths import InputError
 from paths.cli import app
-from paths.threshold import (CSV_COLUMNS, METHODS, random_feature_map, sweep_sizes,
+from paths.threshold.sweep import (CSV_COLUMNS, METHODS, random_feature_map, sweep_sizes,
                              threshold_sweep)
 
 
@@ -178,7 +178,7 @@ def test_theory_overlay_uses_effective_variances():
     """The overlay (Hastie et al. 2022, Thm 1 and sec. 5) on the same ratios: with the true
     sigma^2, r^2 given, the per-point effective variances are sigma^2 + r^2(1 - p'/p) and
     r^2 p'/p, and the training-error law is sigma_eff^2 (n - p' - 1)/n (by hand)."""
-    from paths.threshold import VarianceEstimate
+    from paths.threshold.sweep import VarianceEstimate
 
     Xtr, ytr, Xte, yte = _data(seed=1, scale=False)
     v = VarianceEstimate(0.25, 1.0, "truth", "truth")

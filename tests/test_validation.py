@@ -12,7 +12,7 @@ import pandas as pd
 import pytest
 from numpy.testing import assert_array_equal
 
-from paths._validation import InputError, as_design, as_lambdas, as_response, feature_names_of
+from paths.data.validation import InputError, as_design, as_lambdas, as_response, feature_names_of
 
 
 def _msg(fn, *args):
@@ -82,7 +82,7 @@ def test_as_lambdas_rejects(bad, needle):
 def test_check_rows_for_cv(n, k, ok):
     """K folds need K rows and, with an intercept, 2 training rows outside the largest fold
     (ceil(n/K) rows, as numpy.array_split makes them)."""
-    from paths._validation import check_rows_for_cv
+    from paths.data.validation import check_rows_for_cv
 
     largest = max(len(c) for c in np.array_split(np.arange(n), k)) if k <= n else n
     assert ok == (k <= n and n - largest >= 2)

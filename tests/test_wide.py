@@ -16,7 +16,7 @@ from numpy.testing import assert_allclose
 from sklearn.linear_model import Ridge
 
 from paths import InputError, fit_path
-from paths.wide import wide_path
+from paths.engines.wide import wide_path
 
 FIELDS = ["lambdas", "coef", "intercept", "df", "train_mse", "gcv", "loo_mse", "test_mse",
           "singular_values", "coef_norm"]

@@ -1,5 +1,5 @@
 """Command-line interface (typer): parses, calls the library, prints and writes."""
-from .app import _load_commands, app, main
+from paths.cli.app import _load_commands, app, main
 
 _load_commands()
 

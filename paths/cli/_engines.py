@@ -11,8 +11,8 @@ import warnings
 from rich.progress import (BarColumn, MofNCompleteColumn, Progress, TextColumn,
                            TimeElapsedColumn)
 
-from .._validation import InputError
-from .app import console, err_console
+from paths.data.validation import InputError
+from paths.cli.app import console, err_console
 
 # explore options the out-of-memory engines do not offer, with their defaults
 _UNSUPPORTED = {"holdout": None, "groups": None, "id_column": None, "encode": "none",
@@ -52,7 +52,7 @@ class _Bar:
 
 def run_engine(*, engine: str, options: dict, **kwargs):
     """Check the options, run the engine with a progress bar, print the throughput."""
-    from ..analysis import explore_engine
+    from paths.workflows.analysis import explore_engine
 
     for key, default in _UNSUPPORTED.items():
         value = options.get(key)

@@ -15,7 +15,7 @@ import pkgutil
 import typer
 from rich.console import Console
 
-from .._validation import InputError
+from paths.data.validation import InputError
 
 __all__ = ["app", "command", "console", "err_console", "main"]
 
@@ -75,7 +75,7 @@ def command(*args, **kwargs):
 
 def _load_commands() -> None:
     """Import every command module of this package (each registers itself)."""
-    from . import __path__ as here
+    from paths.cli import __path__ as here
 
     for mod in pkgutil.iter_modules(here):
         if mod.name != "app" and not mod.name.startswith("_"):

@@ -6,9 +6,9 @@ from pathlib import Path
 import typer
 from rich.table import Table
 
-from ..cases import DEMO_CASE, find_case, list_cases
-from .app import command, console
-from .run import FORMAT_HELP, WIDTH_HELP, run_and_print
+from paths.workflows.cases import DEMO_CASE, find_case, list_cases
+from paths.cli.app import command, console
+from paths.cli.run import FORMAT_HELP, WIDTH_HELP, run_and_print
 
 
 @command("demo")

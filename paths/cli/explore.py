@@ -8,9 +8,9 @@ from pathlib import Path
 import typer
 from rich.table import Table
 
-from ..analysis import explore, load_data, read_groups
-from .._validation import check_rows_for_cv
-from .app import command, console
+from paths.workflows.analysis import explore, load_data, read_groups
+from paths.data.validation import check_rows_for_cv
+from paths.cli.app import command, console
 
 
 class Solver(str, Enum):
@@ -194,15 +194,15 @@ def explore_cmd(
                                 "self-contained report.html."),
 ):
     """Fit the whole ridge path of DATA and write path.csv, coefficients.csv, summary.json."""
-    from ..figures import parse_formats, parse_width
+    from paths.present.figures import parse_formats, parse_width
 
     fig_formats, fig_width = parse_formats(fig_format), parse_width(fig_width)
     if fig_x not in ("log_lambda", "df"):
-        from .._validation import InputError
+        from paths.data.validation import InputError
 
         raise InputError(f"--figure-x must be log_lambda or df; got {fig_x!r}")
     if engine is not Engine.memory or rank is not None or scheduler is not None:
-        from ._engines import run_engine
+        from paths.cli._engines import run_engine
 
         run = run_engine(
             engine="dask" if scheduler is not None and engine is Engine.memory else (

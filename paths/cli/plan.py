@@ -9,14 +9,14 @@ import numpy as np
 import typer
 from rich.table import Table
 
-from ..output import prepare_out_dir, write_csv, write_json
-from ..plan import plan, plan_summary, plan_table
-from ..summary import versions
-from .app import command, console
+from paths.data.output import prepare_out_dir, write_csv, write_json
+from paths.threshold.plan import plan, plan_summary, plan_table
+from paths.present.summary import versions
+from paths.cli.app import command, console
 
 
 def _read_spectrum(path: Path) -> np.ndarray:
-    from .._validation import InputError
+    from paths.data.validation import InputError
 
     if not path.exists():
         raise InputError(f"{path}: no such file; check the --spectrum path")
@@ -45,13 +45,13 @@ def plan_cmd(
     force: bool = typer.Option(False, "--force", help="Write into a non-empty output folder."),
 ):
     """Predict test MSE against n; report the n at which least squares nears optimal ridge."""
-    from .._validation import InputError
+    from paths.data.validation import InputError
 
     source = None
     digests = {}
     if pilot is not None:
-        from ..analysis import load_data
-        from ..threshold import estimate_variances
+        from paths.workflows.analysis import load_data
+        from paths.threshold.sweep import estimate_variances
 
         if target is None:
             raise InputError("--pilot needs --target (the response column)")

@@ -6,8 +6,8 @@ from pathlib import Path
 
 import typer
 
-from ..cases import find_case, load_case, run_case
-from .app import command, console
+from paths.workflows.cases import find_case, load_case, run_case
+from paths.cli.app import command, console
 
 FORMAT_HELP = "Figure formats, comma-separated: png, pdf, svg (default: the case's)."
 WIDTH_HELP = "Figure width: single (3.5 in) or double (7.2 in) column (default: the case's)."
@@ -15,7 +15,7 @@ WIDTH_HELP = "Figure width: single (3.5 in) or double (7.2 in) column (default: 
 
 def print_case_run(crun) -> None:
     """Console summary of a case run: the choice (or the threshold peak) and where the report is."""
-    from . import explore
+    from paths.cli import explore
 
     if crun.run is not None:
         explore.print_summary(crun.run)

@@ -8,12 +8,12 @@ from pathlib import Path
 
 import typer
 
-from ..output import prepare_out_dir, write_csv, write_json
-from ..simulate import bias_variance_table, make_truth, simulate
-from ..summary import versions
-from ..threshold import threshold_summary, threshold_table
-from .app import command, console
-from .threshold import Band, Order, Over, print_threshold, run_with_progress, write_report
+from paths.data.output import prepare_out_dir, write_csv, write_json
+from paths.threshold.simulate import bias_variance_table, make_truth, simulate
+from paths.present.summary import versions
+from paths.threshold.sweep import threshold_summary, threshold_table
+from paths.cli.app import command, console
+from paths.cli.threshold import Band, Order, Over, print_threshold, run_with_progress, write_report
 
 
 class Covariance(str, Enum):

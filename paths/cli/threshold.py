@@ -10,13 +10,13 @@ import typer
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
 from rich.table import Table
 
-from ..analysis import load_data
-from ..datasets import split_holdout
-from ..output import prepare_out_dir, write_csv, write_json
-from ..summary import versions
-from ..threshold import threshold_summary, threshold_sweep, threshold_table
-from .app import command, console
-from .explore import Solver
+from paths.workflows.analysis import load_data
+from paths.data.synthetic import split_holdout
+from paths.data.output import prepare_out_dir, write_csv, write_json
+from paths.present.summary import versions
+from paths.threshold.sweep import threshold_summary, threshold_sweep, threshold_table
+from paths.cli.app import command, console
+from paths.cli.explore import Solver
 
 
 class Over(str, Enum):
@@ -124,7 +124,7 @@ def threshold_cmd(
                                 help="Also write the threshold figure and report.html."),
 ):
     """Sweep the model size across p = n on DATA; write threshold.csv and threshold.json."""
-    from .._validation import InputError
+    from paths.data.validation import InputError
 
     dataset, digest = load_data(data, target)
     digests = {str(data): digest}
@@ -166,6 +166,6 @@ def threshold_cmd(
 
 def write_report(result, summary: dict, out_dir) -> list:
     """The figures and report.html of :mod:`paths.report` (the figures issue), same folder."""
-    from ..report import write_threshold_outputs
+    from paths.present.report import write_threshold_outputs
 
     return list(write_threshold_outputs(result, summary, out_dir))

@@ -16,7 +16,7 @@ import platform
 
 import numpy as np
 
-from .path import RidgePath
+from paths.core.path import RidgePath
 
 __all__ = ["versions", "path_table", "coefficient_table", "summary_dict", "selections"]
 
@@ -27,7 +27,7 @@ def versions() -> dict:
     import scipy
     import sklearn
 
-    from . import __version__
+    from paths import __version__
 
     return {"paths": __version__, "python": platform.python_version(), "numpy": np.__version__,
             "scipy": scipy.__version__, "scikit-learn": sklearn.__version__,

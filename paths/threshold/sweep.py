@@ -39,11 +39,11 @@ from typing import Callable
 
 import numpy as np
 
-from ._validation import InputError, as_design, as_response
-from .design import Design, prepare, to_sample_space
-from .factor import Factorization, factorize
-from .grid import lambda_for_df
-from . import theory
+from paths.data.validation import InputError, as_design, as_response
+from paths.core.design import Design, prepare, to_sample_space
+from paths.core.factor import Factorization, factorize
+from paths.core.grid import lambda_for_df
+from paths.threshold import theory
 
 __all__ = [
     "METHODS",

@@ -57,7 +57,7 @@ __all__ = [
 def _gamma(gamma) -> np.ndarray:
     g = np.asarray(gamma, dtype=np.float64)
     if np.any(~np.isfinite(g)) or np.any(g <= 0):
-        from ._validation import InputError
+        from paths.data.validation import InputError
 
         raise InputError("the aspect ratio gamma = p/n must be finite and > 0")
     return g

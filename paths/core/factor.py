@@ -190,7 +190,7 @@ def factorize(
     (2, [1.0, 1.0])
     """
     if solver not in SOLVERS:
-        from ._validation import InputError
+        from paths.data.validation import InputError
 
         raise InputError(f"solver must be one of {', '.join(SOLVERS)}; got {solver!r}")
     m, q = z.shape
@@ -205,7 +205,7 @@ def factorize(
                       "Gram matrix)")
         elif w is None:
             if solver == "gram":
-                from ._validation import InputError
+                from paths.data.validation import InputError
 
                 raise InputError(
                     "the Gram matrix overflows for this design; use solver='svd' "

@@ -33,12 +33,12 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.linalg as sla
 
-from ._validation import InputError, as_lambdas
-from .chunks import DEFAULT_CHUNK_ROWS, RowSource, open_rows
-from .design import Design
-from .factor import Factorization
-from .grid import default_grid
-from .path import PENALTY_CONVENTION, MinNormFit, RidgePath, _coefficients, _gains
+from paths.data.validation import InputError, as_lambdas
+from paths.data.chunks import DEFAULT_CHUNK_ROWS, RowSource, open_rows
+from paths.core.design import Design
+from paths.core.factor import Factorization
+from paths.core.grid import default_grid
+from paths.core.path import PENALTY_CONVENTION, MinNormFit, RidgePath, _coefficients, _gains
 
 __all__ = ["Moments", "chunk_moments", "merge_moments", "PairwiseMerger", "StreamPath",
            "stream_path", "PassInfo", "path_from_moments", "HatPass"]

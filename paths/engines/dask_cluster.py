@@ -29,9 +29,9 @@ from pathlib import Path
 
 import numpy as np
 
-from ._validation import InputError, as_lambdas
-from .grid import default_grid
-from .stream import (HatPass, Moments, PassInfo, StreamPath, chunk_moments, factor_moments,
+from paths.data.validation import InputError, as_lambdas
+from paths.core.grid import default_grid
+from paths.engines.stream import (HatPass, Moments, PassInfo, StreamPath, chunk_moments, factor_moments,
                      merge_moments, path_from_moments)
 
 __all__ = ["dask_path", "connect", "as_dask_design"]
@@ -154,11 +154,11 @@ def _from_dataframe(path: Path, target, features):
     import dask.dataframe as dd
     import pandas as pd
 
-    from .chunks import _select_columns
+    from paths.data.chunks import _select_columns
 
     try:
         if path.is_dir() or path.suffix.lower() in _PARQUET:
-            from .chunks import ParquetRows
+            from paths.data.chunks import ParquetRows
 
             ParquetRows(path, target, features=features)  # schema checks, one line each
             df = dd.read_parquet(str(path))
@@ -273,7 +273,7 @@ def _unflatten(hp: HatPass, vec: np.ndarray) -> None:
 
 
 def _test_block(block, fit, lam, p):
-    from .path import _gains
+    from paths.core.path import _gains
 
     des, fac = fit.design, fit.fac
     t = fit.uty.shape[1]

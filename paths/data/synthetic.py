@@ -115,7 +115,7 @@ def make_panel(n_samples: int = 120, n_features: int = 100, *, n_factors: int = 
 
 def split_holdout(n: int, fraction: float, seed: int = 0) -> tuple[np.ndarray, np.ndarray]:
     """Random train/test row indices with ``round(fraction * n)`` test rows (at least 1 each)."""
-    from ._validation import InputError
+    from paths.data.validation import InputError
 
     if not 0.0 < fraction < 1.0:
         raise InputError(f"--holdout must lie strictly between 0 and 1; got {fraction}")

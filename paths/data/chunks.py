@@ -19,7 +19,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ._validation import InputError
+from paths.data.validation import InputError
 
 __all__ = ["RowSource", "ArrayRows", "ParquetRows", "CSVRows", "open_rows",
            "ColumnSource", "ArrayColumns", "ParquetColumns", "open_columns",

@@ -28,9 +28,9 @@ from typing import Callable
 import numpy as np
 from scipy.linalg import toeplitz
 
-from ._validation import InputError
-from .design import to_sample_space
-from .threshold import METHODS, PointFit, ThresholdResult, VarianceEstimate, threshold_sweep
+from paths.data.validation import InputError
+from paths.core.design import to_sample_space
+from paths.threshold.sweep import METHODS, PointFit, ThresholdResult, VarianceEstimate, threshold_sweep
 
 __all__ = ["COVARIANCES", "COEFFICIENTS", "Truth", "make_truth", "draw", "SimulationResult",
            "simulate", "sweep_with_truth", "bias_variance_table"]

@@ -17,10 +17,10 @@ import numpy as np
 from sklearn.base import BaseEstimator, RegressorMixin
 from sklearn.utils.validation import check_is_fitted, validate_data
 
-from ._validation import InputError
-from .cv import cross_validate
-from .path import fit_path
-from .select import parse_rule, select_penalty
+from paths.data.validation import InputError
+from paths.selection.cv import cross_validate
+from paths.core.path import fit_path
+from paths.selection.rules import parse_rule, select_penalty
 
 __all__ = ["RidgePathRegressor"]
 

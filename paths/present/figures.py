@@ -28,9 +28,9 @@ from pathlib import Path
 
 import numpy as np
 
-from ._validation import InputError
-from .output import write_bytes, write_csv
-from .plot import (OKABE_ITO, Artists, plot_bias_variance, plot_coef_path, plot_errors,
+from paths.data.validation import InputError
+from paths.data.output import write_bytes, write_csv
+from paths.present.plot import (OKABE_ITO, Artists, plot_bias_variance, plot_coef_path, plot_errors,
                    plot_shrinkage, plot_spectrum, plot_threshold, plot_training_law,
                    plot_variance_share)
 

@@ -39,8 +39,8 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy.optimize import brentq, minimize_scalar
 
-from ._validation import InputError
-from .grid import lambda_for_df
+from paths.data.validation import InputError
+from paths.core.grid import lambda_for_df
 
 __all__ = [
     "RULES",
@@ -536,7 +536,7 @@ class SelectionReport:
 # ------------------------------------------------------------------------ select
 def _estimate(path, cv, lam, j, loo_se_cache):
     """(est_mse, est_se, source) at ``lam``: CV when available, else exact LOO."""
-    from .cv import loo_residuals
+    from paths.selection.cv import loo_residuals
 
     if lam is None:
         return None, None, None

@@ -22,8 +22,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ._validation import InputError
-from . import theory
+from paths.data.validation import InputError
+from paths.threshold import theory
 
 __all__ = ["PlanResult", "plan", "PLAN_COLUMNS", "plan_table", "plan_summary"]
 

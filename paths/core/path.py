@@ -16,10 +16,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ._validation import InputError, as_design, as_lambdas, as_response, feature_names_of
-from .design import Design, prepare, to_sample_space
-from .factor import Factorization, factorize
-from .grid import default_grid
+from paths.data.validation import InputError, as_design, as_lambdas, as_response, feature_names_of
+from paths.core.design import Design, prepare, to_sample_space
+from paths.core.factor import Factorization, factorize
+from paths.core.grid import default_grid
 
 __all__ = ["PENALTY_CONVENTION", "RidgePath", "MinNormFit", "Criteria", "criteria", "fit_path"]
 

@@ -30,7 +30,7 @@ import sys
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from ._validation import InputError
+from paths.data.validation import InputError
 
 try:  # Python >= 3.11
     import tomllib
@@ -46,7 +46,7 @@ ANALYSES = ("explore", "threshold", "simulate")
 
 
 def _generators() -> dict:
-    from . import datasets
+    from paths.data import synthetic as datasets
 
     return {"calibration": datasets.make_calibration, "panel": datasets.make_panel,
             "isotropic": datasets.make_isotropic}
@@ -75,18 +75,18 @@ def _keyword_names(func, owned) -> tuple:
 
 
 def _valid_keys() -> dict:
-    from .analysis import explore
+    from paths.workflows.analysis import explore
 
     keys = dict(_SECTIONS)
     keys["fit"] = _keyword_names(explore, _FIT_OWNED)
     try:
-        from .threshold import threshold_sweep
+        from paths.threshold.sweep import threshold_sweep
 
         keys["threshold"] = _keyword_names(threshold_sweep, _THRESHOLD_OWNED)
     except ImportError:  # pragma: no cover - the threshold module is part of the package
         keys["threshold"] = ()
     try:
-        from .simulate import make_truth, simulate
+        from paths.threshold.simulate import make_truth, simulate
 
         keys["truth"] = _keyword_names(make_truth, set())
         keys["simulate"] = _keyword_names(simulate, _SIMULATE_OWNED)
@@ -129,11 +129,11 @@ class CaseRun:
 
 def builtin_dir() -> Path:
     """The folder of the built-in cases (inside the package; the repository's ``cases/``)."""
-    here = Path(__file__).resolve().parent
-    for cand in (here / "_cases", here.parent / "cases"):
+    package = Path(__file__).resolve().parent.parent
+    for cand in (package / "_cases", package.parent / "cases"):
         if cand.is_dir() and any(cand.glob("*.toml")):
             return cand
-    return here / "_cases"
+    return package / "_cases"
 
 
 def list_cases() -> list:
@@ -229,11 +229,11 @@ def parse_case(text: str, *, source=None) -> Case:
         raise InputError(f"{where}: [data] file needs target = COLUMN")
     figs = doc.get("figures", {})
     if "formats" in figs:
-        from .figures import parse_formats
+        from paths.present.figures import parse_formats
 
         parse_formats(figs["formats"])
     if "width" in figs:
-        from .figures import parse_width
+        from paths.present.figures import parse_width
 
         parse_width(figs["width"])
     if figs.get("x", "log_lambda") not in ("log_lambda", "df"):
@@ -250,7 +250,7 @@ def parse_case(text: str, *, source=None) -> Case:
 
 def _dataset(case: Case):
     """(Dataset, test Dataset or None, input digests, generator record)."""
-    from .io import select
+    from paths.data.tables import select
 
     data = case.data
     if "generator" in data:
@@ -261,7 +261,7 @@ def _dataset(case: Case):
         gen = {"name": data["generator"], "params": dict(data.get("params", {})),
                "seed": data.get("params", {}).get("seed", 0)}
         return ds, None, {}, gen
-    from .analysis import load_data
+    from paths.workflows.analysis import load_data
 
     base = case.source.parent if case.source is not None else Path(".")
     path = Path(data["file"])
@@ -283,7 +283,7 @@ def run_case(case: Case, out_dir, *, force: bool = False, formats=None, width=No
 
     ``formats``/``width`` override the case's ``[figures]`` settings.
     """
-    from .figures import parse_formats, parse_width
+    from paths.present.figures import parse_formats, parse_width
 
     figs = case.figures
     fmts = parse_formats(formats if formats is not None else figs.get("formats", ("png", "svg")))
@@ -299,7 +299,7 @@ def run_case(case: Case, out_dir, *, force: bool = False, formats=None, width=No
     if case.analysis == "threshold":
         return _run_threshold(case, ds, test, digests, out_dir, force=force, formats=fmts,
                               width=wid, command_line=cmd, extra=extra)
-    from .analysis import explore
+    from paths.workflows.analysis import explore
 
     run = explore(ds, out_dir=out_dir, test=test, holdout=case.data.get("holdout"),
                   seed=case.data.get("seed", 0), force=force, input_sha256=digests,
@@ -312,9 +312,9 @@ def run_case(case: Case, out_dir, *, force: bool = False, formats=None, width=No
 
 def _run_threshold(case, ds, test, digests, out_dir, *, force, formats, width, command_line,
                    extra) -> CaseRun:
-    from .datasets import split_holdout
-    from .output import prepare_out_dir, write_csv, write_json
-    from .threshold import threshold_summary, threshold_sweep, threshold_table
+    from paths.data.synthetic import split_holdout
+    from paths.data.output import prepare_out_dir, write_csv, write_json
+    from paths.threshold.sweep import threshold_summary, threshold_sweep, threshold_table
 
     out = prepare_out_dir(out_dir, force=force)
     X, y = ds.X, ds.y
@@ -331,13 +331,13 @@ def _run_threshold(case, ds, test, digests, out_dir, *, force, formats, width, c
     result = threshold_sweep(X, y, X_test, y_test, **kw)
     summary = threshold_summary(result, source=ds.source, input_sha256=digests, split=split,
                                 command_line=shlex.join(command_line), **extra)
-    from .summary import versions
+    from paths.present.summary import versions
 
     summary["versions"] = versions()
     files = [write_csv(out / "threshold.csv", *threshold_table(result)),
              write_json(out / "threshold.json", summary)]
     report = None
-    from .report import write_threshold_outputs
+    from paths.present.report import write_threshold_outputs
 
     files += write_threshold_outputs(result, summary, out, formats=formats, width=width,
                                      report=case.figures.get("report", True))
@@ -348,11 +348,11 @@ def _run_threshold(case, ds, test, digests, out_dir, *, force, formats, width, c
 
 def _run_simulate(case, out_dir, *, force, formats, width, command_line, extra) -> CaseRun:
     """Simulation from a known truth: the threshold sweep with exact bias² and variance."""
-    from .output import prepare_out_dir, write_csv, write_json
-    from .report import write_threshold_outputs
-    from .simulate import bias_variance_table, make_truth, simulate
-    from .summary import versions
-    from .threshold import threshold_summary, threshold_table
+    from paths.data.output import prepare_out_dir, write_csv, write_json
+    from paths.present.report import write_threshold_outputs
+    from paths.threshold.simulate import bias_variance_table, make_truth, simulate
+    from paths.present.summary import versions
+    from paths.threshold.sweep import threshold_summary, threshold_table
 
     out = prepare_out_dir(out_dir, force=force)
     truth_kw = dict(case.truth)

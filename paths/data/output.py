@@ -13,7 +13,7 @@ import os
 import tempfile
 from pathlib import Path
 
-from ._validation import InputError
+from paths.data.validation import InputError
 
 __all__ = ["OutputError", "prepare_out_dir", "write_text", "write_bytes", "write_json",
            "write_csv"]

@@ -33,7 +33,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from ._validation import InputError
+from paths.data.validation import InputError
 
 __all__ = [
     "OKABE_ITO", "STYLES", "RULE_LABELS", "CONVENTION_SHORT", "Trace", "Artists",
@@ -774,7 +774,7 @@ def _columns(table) -> dict:
     :func:`paths.threshold.threshold_table`, so the figure draws what the CSV holds.
     """
     if hasattr(table, "bias2") and hasattr(table, "sweep"):  # paths.simulate.SimulationResult
-        from .simulate import bias_variance_table
+        from paths.threshold.simulate import bias_variance_table
 
         header, rows = bias_variance_table(table)
         cols = {h: np.array([r[i] for r in rows], dtype=object) for i, h in enumerate(header)}
@@ -783,7 +783,7 @@ def _columns(table) -> dict:
                 cols[h] = np.array([np.nan if v is None else v for v in cols[h]], dtype=float)
         return cols
     if hasattr(table, "band_of") and hasattr(table, "methods"):
-        from .threshold import threshold_table
+        from paths.threshold.sweep import threshold_table
 
         header, rows = threshold_table(table)
         cols = {h: np.array([r[i] for r in rows], dtype=object) for i, h in enumerate(header)}

@@ -19,7 +19,7 @@ import re
 from dataclasses import dataclass
 from pathlib import Path
 
-from .output import write_text
+from paths.data.output import write_text
 
 __all__ = ["FigureRef", "report_numbers", "diagnosis", "methods_paragraph", "rules_table",
            "cautions", "render_markdown", "render_html", "write_report", "fmt"]
@@ -624,7 +624,7 @@ def _svg_of(panel) -> str:
 def write_threshold_outputs(result, summary: dict, out_dir, *, formats=("png", "svg"),
                             width: str = "single", report: bool = True) -> list:
     """The threshold figure (+ CSV) and, with ``report``, ``report.md``/``report.html``."""
-    from .figures import save_figure, threshold_figure
+    from paths.present.figures import save_figure, threshold_figure
 
     out = Path(out_dir)
     panel = threshold_figure(result, width=width)
@@ -648,7 +648,7 @@ def write_explore_outputs(result, summary: dict, out_dir, *, cv=None, formats=("
     ``summary["selected"]`` and draw K-fold CV (``cv``, a
     :class:`paths.cv.CVResult`) when given.
     """
-    from .figures import path_figure, save_figure, spectrum_figure
+    from paths.present.figures import path_figure, save_figure, spectrum_figure
 
     out = Path(out_dir)
     selected = {k: v for k, v in (summary.get("selected") or {}).items()

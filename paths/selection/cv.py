@@ -56,9 +56,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ._validation import InputError, as_design, as_lambdas, as_response
-from .design import prepare, to_sample_space
-from .factor import factorize
+from paths.data.validation import InputError, as_design, as_lambdas, as_response
+from paths.core.design import prepare, to_sample_space
+from paths.core.factor import factorize
 
 __all__ = [
     "SCHEMES",
@@ -534,7 +534,7 @@ def cross_validate(
     >>> cv.mse.shape, cv.method, cv.form
     ((3,), 'exact', 'dual')
     """
-    from .path import fit_path
+    from paths.core.path import fit_path
 
     if scaling not in SCALINGS:
         raise InputError(f"scaling must be one of {', '.join(SCALINGS)}; got {scaling!r}")

@@ -12,11 +12,11 @@ from pathlib import Path
 
 import numpy as np
 
-from .datasets import split_holdout
-from .io import Dataset, load_dataset, sha256_of
-from .output import prepare_out_dir, write_csv, write_json
-from .path import RidgePath, fit_path
-from .summary import coefficient_table, path_table, selections, summary_dict
+from paths.data.synthetic import split_holdout
+from paths.data.tables import Dataset, load_dataset, sha256_of
+from paths.data.output import prepare_out_dir, write_csv, write_json
+from paths.core.path import RidgePath, fit_path
+from paths.present.summary import coefficient_table, path_table, selections, summary_dict
 
 __all__ = ["ExploreRun", "explore", "load_data", "read_groups", "explore_engine", "ENGINES"]
 
@@ -52,8 +52,8 @@ def read_groups(path, column: str, *, sep=None) -> np.ndarray:
 
     The column must also be left out of the features (``exclude=[column]``).
     """
-    from ._validation import InputError
-    from .io import read_table
+    from paths.data.validation import InputError
+    from paths.data.tables import read_table
 
     frame = read_table(path, sep=sep)
     if column not in frame.columns:
@@ -80,7 +80,7 @@ def _per_target(table, result: RidgePath, targets) -> tuple[list, list]:
 
 def _guard_inputs(out: Path, names, inputs) -> None:
     """Refuse to write an output file over an input file (even with --force)."""
-    from ._validation import InputError
+    from paths.data.validation import InputError
 
     for name in names:
         dest = out / name
@@ -148,9 +148,9 @@ def explore(
     extra : dict, optional
         Keys added verbatim to ``summary.json`` (e.g. a case's name and description).
     """
-    from ._validation import InputError
-    from .figures import parse_formats, parse_width
-    from .report import report_numbers, write_explore_outputs
+    from paths.data.validation import InputError
+    from paths.present.figures import parse_formats, parse_width
+    from paths.present.report import report_numbers, write_explore_outputs
 
     formats = parse_formats(formats) if formats else ()
     width = parse_width(width)
@@ -225,9 +225,9 @@ def explore(
 
 def _selection(result, X, y, *, cv, repeats, groups, folds, cv_scaling, seed, rule):
     """K-fold CV (when asked) and every selection rule; ``(report, cv record, CVResult)``."""
-    from ._validation import InputError
-    from .cv import cross_validate
-    from .select import select_penalty
+    from paths.data.validation import InputError
+    from paths.selection.cv import cross_validate
+    from paths.selection.rules import select_penalty
 
     cv_res = None
     if groups is not None:
@@ -276,13 +276,13 @@ def _file_digests(path: Path) -> tuple[dict, list]:
 
 def _columns_and_shape(path: Path, sep=None):
     """Column names and (rows or None) of a data file, from metadata or the header only."""
-    from ._validation import InputError
+    from paths.data.validation import InputError
 
     suffix = path.suffix.lower()
     if path.is_dir() or suffix in (".parquet", ".pq", ".parq"):
         import pyarrow.parquet as pq
 
-        from .chunks import _parquet_files
+        from paths.data.chunks import _parquet_files
 
         files = _parquet_files(path)
         try:
@@ -308,7 +308,7 @@ def _columns_and_shape(path: Path, sep=None):
 def _resolve_features(names, targets, features, exclude):
     from fnmatch import fnmatchcase
 
-    from ._validation import InputError
+    from paths.data.validation import InputError
 
     pool = [c for c in names if c not in targets]
     if features:
@@ -363,7 +363,7 @@ def explore_engine(
     ``formats`` and/or ``report``, the path and spectrum figures and the report
     are written as by :func:`explore` (not for a wide fit without coefficients).
     """
-    from ._validation import InputError
+    from paths.data.validation import InputError
 
     if engine not in ("stream", "dask"):
         raise InputError(f"engine must be one of {', '.join(ENGINES)}; got {engine!r}")
@@ -390,8 +390,8 @@ def explore_engine(
         digests.update(tdig)
         hash_notes += tnotes
     if wide:
-        from .chunks import DEFAULT_BLOCK_COLUMNS
-        from .wide import wide_path
+        from paths.data.chunks import DEFAULT_BLOCK_COLUMNS
+        from paths.engines.wide import wide_path
 
         if engine == "dask":
             raise InputError(f"{path} is wide ({rows} rows x {len(feats)} features): use "
@@ -406,15 +406,15 @@ def explore_engine(
                            block_columns=chunk_rows or DEFAULT_BLOCK_COLUMNS,
                            n_lambdas=n_lambdas, standardize=standardize, progress=progress)
     elif engine == "stream":
-        from .chunks import DEFAULT_CHUNK_ROWS
-        from .stream import stream_path
+        from paths.data.chunks import DEFAULT_CHUNK_ROWS
+        from paths.engines.stream import stream_path
 
         result = stream_path(path, target=targets, features=feats, sep=sep,
                              chunk_rows=chunk_rows or DEFAULT_CHUNK_ROWS, accurate=accurate,
                              standardize=standardize, test=test, n_lambdas=n_lambdas, cv=cv,
                              cv_seed=cv_seed, rank=rank, progress=progress)
     else:
-        from .dask_engine import dask_path
+        from paths.engines.dask_cluster import dask_path
 
         result = dask_path(path, target=targets, features=feats, chunk_rows=chunk_rows,
                            accurate=accurate, scheduler=scheduler, timeout=timeout,
@@ -452,7 +452,7 @@ def explore_engine(
                                *_per_target(coefficient_table, result, targets)))
     drawable = result.coef is not None and (formats or report)
     if drawable:
-        from .report import report_numbers, write_explore_outputs
+        from paths.present.report import report_numbers, write_explore_outputs
 
         summary["report"] = report_numbers(summary)
     files.append(write_json(out / "summary.json", summary))

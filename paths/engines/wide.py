@@ -37,13 +37,13 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.linalg as sla
 
-from ._validation import InputError, as_lambdas, as_response
-from .chunks import DEFAULT_BLOCK_COLUMNS, ColumnSource, ParquetColumns, open_columns
-from .design import Design
-from .factor import Factorization
-from .grid import default_grid
-from .path import PENALTY_CONVENTION, MinNormFit, _gains, criteria
-from .stream import PassInfo, StreamPath
+from paths.data.validation import InputError, as_lambdas, as_response
+from paths.data.chunks import DEFAULT_BLOCK_COLUMNS, ColumnSource, ParquetColumns, open_columns
+from paths.core.design import Design
+from paths.core.factor import Factorization
+from paths.core.grid import default_grid
+from paths.core.path import PENALTY_CONVENTION, MinNormFit, _gains, criteria
+from paths.engines.stream import PassInfo, StreamPath
 
 __all__ = ["WidePath", "wide_path"]
 

@@ -47,7 +47,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from ._validation import InputError
+from paths.data.validation import InputError
 
 __all__ = [
     "Dataset",

@@ -1,0 +1,1 @@
+"""core layer of paths (see DEVELOPERS.md, architecture map)."""

@@ -1,0 +1,1 @@
+"""data layer of paths (see DEVELOPERS.md, architecture map)."""

@@ -1,0 +1,1 @@
+"""engines layer of paths (see DEVELOPERS.md, architecture map)."""

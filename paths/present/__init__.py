@@ -1,0 +1,1 @@
+"""present layer of paths (see DEVELOPERS.md, architecture map)."""

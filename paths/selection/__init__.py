@@ -1,0 +1,1 @@
+"""selection layer of paths (see DEVELOPERS.md, architecture map)."""

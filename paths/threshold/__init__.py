@@ -1,0 +1,1 @@
+"""threshold layer of paths (see DEVELOPERS.md, architecture map)."""

@@ -1,0 +1,1 @@
+"""workflows layer of paths (see DEVELOPERS.md, architecture map)."""
