@@ -102,7 +102,10 @@ class RidgePath:
         Singular values at or below this were treated as zero.
     singular_values : ndarray, shape (rank,)
     condition_number : float
-        ``singular_values[0] / singular_values[-1]``.
+        ``singular_values[0] / singular_values[-1]``: it covers the ``rank``
+        retained singular values only (those dropped as numerically zero, or as
+        too small for a forced Gram route to resolve, are not in it; a forced
+        Gram route that drops any says so with a ``RankCutWarning``).
     min_norm : MinNormFit
     solver, solver_reason : str
     n_samples, n_features, n_test : int
