@@ -392,3 +392,26 @@ def test_cli_bad_input_exit_2(tmp_path, case):
     assert r.exit_code == 2, r.output
     assert want in r.output
     assert "Traceback" not in r.output
+
+
+@pytest.mark.parametrize("case, match", [
+    ("subnormal feature", r"feature column 2 spans .*rescale it"),
+    ("y one ulp", r"y is constant up to rounding"),
+    ("y*1e170", r"y spans .*rescale it"),
+])
+def test_range_checks_as_in_memory(case, match):
+    """Issue 11 item 6: the streaming engine applies the in-memory range checks
+    (paths.data.validation) to its pass-1 bounds; a subnormal feature (IEEE 754: its
+    square underflows to 0 in the accumulated cross products) is refused in one line
+    rather than silently dropped as constant."""
+    X, y = problem(n=100, p=3)
+    if case == "subnormal feature":
+        X = X.copy()
+        X[:, 2] *= 1e-310
+    elif case == "y one ulp":
+        y = np.where(np.arange(100) % 2 == 0, 1.0, np.nextafter(1.0, 2.0))
+    else:
+        y = y * 1e170
+    with pytest.raises(InputError, match=match) as info:
+        stream_path(X, y=y)
+    assert "\n" not in str(info.value)

@@ -16,7 +16,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from paths.data.validation import InputError, as_design, as_lambdas, as_response, feature_names_of
+from paths.data.validation import (InputError, as_design, as_lambdas, as_response,
+                                   check_feature_range, check_response_range, feature_names_of)
 from paths.core.design import Design, prepare, to_sample_space
 from paths.core.factor import Factorization, factorize
 from paths.core.grid import default_grid
@@ -245,18 +246,18 @@ def _coefficients(fac: Factorization, uty: np.ndarray, lam: np.ndarray, design: 
     k, t = lam.size, uty.shape[1]
     p = design.n_features
     act = design.active
-    inv_scale = 1.0 / design.x_scale[act]
-    scaled = not np.all(inv_scale == 1.0)  # x * 1.0 == x: skip a pass over k x p
+    scale = design.x_scale[act]  # divided, not multiplied by 1/scale: a subnormal
+    scaled = not np.all(scale == 1.0)  # scale has no finite reciprocal; x / 1 == x: skip
     if t == 1 and act.all():  # one GEMM straight into the result, scaled in place
         cj = (gains * uty).T @ fac.vt  # (k, p)
         if scaled:
-            cj *= inv_scale
+            cj /= scale
         return cj[:, :, None]
     coef = np.zeros((k, p, t))
     for j in range(t):
         cj = (gains * uty[:, j:j + 1]).T @ fac.vt  # (k, q)
         if scaled:
-            cj *= inv_scale
+            cj /= scale
         coef[:, act, j] = cj
     return coef
 
@@ -531,14 +532,9 @@ def fit_path(
             f"X has {n} row; at least 2 samples are needed to fit an intercept "
             "(or pass fit_intercept=False)"
         )
-    spread = (Y.max(axis=0) > Y.min(axis=0)) if fit_intercept else np.any(Y != 0, axis=0)
-    if not spread.all():
-        j = int(np.flatnonzero(~spread)[0])
-        label = f"target column {j}" if multi else "y"
-        raise InputError(
-            f"{label} is constant (every value {Y[0, j]!r}); there is nothing to fit — "
-            "check the target column"
-        )
+    check_response_range(Y, fit_intercept=fit_intercept)
+    y_size = float(np.max(np.ptp(Y, axis=0) if fit_intercept else np.abs(Y).max(axis=0)))
+    check_feature_range(X, standardize=standardize, y_size=y_size, names=names)
     if n_lambdas < 1:
         raise InputError(f"n_lambdas must be at least 1; got {n_lambdas}")
     has_test = X_test is not None or y_test is not None

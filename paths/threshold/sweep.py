@@ -43,6 +43,7 @@ from paths.data.validation import InputError, as_design, as_response
 from paths.core.design import Design, prepare, to_sample_space
 from paths.core.factor import Factorization, factorize
 from paths.core.grid import lambda_for_df
+from paths.selection.rules import noise_variance_from_factors
 from paths.threshold import theory
 
 __all__ = [
@@ -189,16 +190,21 @@ def estimate_variances(X, y, *, fit_intercept: bool = True,
       (the OLS residual variance, unbiased for any design) and
       :math:`\\hat r^2 = \\max(s_y^2 - \\hat\\sigma^2, 0)` with :math:`s_y^2` the
       sample variance of the response;
-    - otherwise the moment estimator for isotropic Gaussian designs (Dicker
-      2014), from :math:`E\\|y\\|^2 = m(\\sigma^2 + r^2)` and
-      :math:`E\\|Z^Ty\\|^2 = m(m + 1 + q) r^2 + m q \\sigma^2` (second moment of a
-      Wishart matrix): :math:`\\hat r^2 = (\\|Z^Ty\\|^2 - q\\|y\\|^2)/(m(m+1))`,
-      :math:`\\hat\\sigma^2 = ((m+q+1)\\|y\\|^2 - \\|Z^Ty\\|^2)/(m(m+1))`, with the
-      standardized columns rescaled to unit mean square; both clipped to
-      :math:`[0, s_y^2]`.  It assumes roughly isotropic features.
+    - otherwise (p near or above n) the ridge residual variance
+      :math:`\\mathrm{RSS}(\\lambda)/\\operatorname{tr}(I - H_\\lambda)` at the GCV
+      penalty, raised if needed to leave max(1, n/10) residual degrees of freedom
+      (Wahba 1983; :func:`paths.selection.rules.noise_variance_from_factors`, the
+      estimator ``paths explore`` reports), positive unless y is fitted exactly,
+      and :math:`\\hat r^2 = \\max(s_y^2 - \\hat\\sigma^2, 0)`.  The moment estimator
+      for isotropic designs (Dicker 2014) is not used: on correlated designs
+      (gene-expression tables) it is biased towards 0 and was clipped to
+      exactly 0.
 
     References
     ----------
+    Wahba, G. (1983). Bayesian "confidence intervals" for the cross-validated
+    smoothing spline. *J. R. Statist. Soc. B* 45, 133–150.
+
     Dicker, L. H. (2014). Variance estimation in high-dimensional linear models.
     *Biometrika* 101, 269–284.
     """
@@ -207,12 +213,13 @@ def estimate_variances(X, y, *, fit_intercept: bool = True,
     if yv.ndim != 1:
         raise InputError("the threshold sweep takes one target; pass a single --target column")
     design, z = prepare(X, yv[:, None], fit_intercept=fit_intercept, standardize=standardize)
-    return _variances_from(z, design.zy[:, 0], factorize(z))
+    return _variances_from(design, factorize(z))
 
 
-def _variances_from(z: np.ndarray, zy: np.ndarray, fac: Factorization) -> VarianceEstimate:
-    """:func:`estimate_variances` on a reduced design and its factors."""
-    m, q = z.shape
+def _variances_from(design, fac: Factorization) -> VarianceEstimate:
+    """:func:`estimate_variances` on a prepared design (one target) and its factors."""
+    zy = design.zy[:, 0]
+    m, q = fac.u.shape[0], fac.vt.shape[1]
     s_y2 = float(zy @ zy) / max(m, 1)
     dof = m - fac.rank
     if dof >= max(5, m / 10):
@@ -224,17 +231,12 @@ def _variances_from(z: np.ndarray, zy: np.ndarray, fac: Factorization) -> Varian
             s2, max(s_y2 - s2, 0.0),
             f"OLS residual variance RSS/(n - rank - 1) on all {q} features ({dof} residual df)",
             "sample variance of the response minus the noise variance")
-    zs = z * np.sqrt(m / np.maximum(np.einsum("ij,ij->j", z, z), _EPS))
-    yy = float(zy @ zy)
-    zty = zs.T @ zy
-    g = float(zty @ zty)
-    r2 = (g - q * yy) / (m * (m + 1.0))
-    s2 = ((m + q + 1.0) * yy - g) / (m * (m + 1.0))
-    r2 = float(np.clip(r2, 0.0, s_y2))
-    s2 = float(np.clip(s2, 0.0, s_y2))
-    label = ("moment estimator for isotropic designs (Dicker 2014) on all "
-             f"{q} standardized features ({m} centered rows)")
-    return VarianceEstimate(s2, r2, label, label)
+    est = noise_variance_from_factors(fac, design, fac.u.T @ design.zy)
+    s2 = float(est.value)
+    label = (f"{est.formula} ({est.reference}), lambda = {float(est.lam):.4g}, on all {q} "
+             f"features ({m} centered rows)")
+    return VarianceEstimate(s2, max(s_y2 - s2, 0.0), label,
+                            "sample variance of the response minus the noise variance")
 
 
 # ----------------------------------------------------------------- results
@@ -825,7 +827,7 @@ def threshold_sweep(
                 if rep == 0 and k == zf.shape[1]:  # the full design: spectrum, sigma^2, r^2
                     spectrum, spec_gamma = _spectrum_of(fac, m), k / m
                     if random_features is None and variances is None:
-                        est = _variances_from(zk, zy, fac)
+                        est = _variances_from(design, fac)
                 if fac.rank == 0:
                     vals[rep, i, :4, :] = np.nan
                     lambdas = {}
@@ -862,7 +864,7 @@ def threshold_sweep(
                 if rep == 0 and k == n_rows[-1]:  # all training rows: spectrum, sigma^2, r^2
                     spectrum, spec_gamma = _spectrum_of(fac, m), z.shape[1] / m
                     if variances is None:
-                        est = _variances_from(z, zy, fac)
+                        est = _variances_from(design, fac)
                 if fac.rank == 0:
                     lambdas = {}
                 else:
