@@ -342,7 +342,7 @@ def explore_engine(
     command_line: list[str] | None = None,
     formats=(),
     width: str = "single",
-    x_axis: str = "log_lambda",
+    x_axis: str = "df",
     report: bool = False,
 ) -> ExploreRun:
     """:func:`explore` for data that need not fit in memory: ``engine`` "stream" or "dask".
