@@ -16,7 +16,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from paths.data.validation import InputError, as_design, as_lambdas, as_response, feature_names_of
+from paths.data.validation import (InputError, as_count, as_design, as_lambdas, as_response,
+                                   feature_names_of)
 from paths.core.design import Design, prepare, to_sample_space
 from paths.core.factor import Factorization, factorize
 from paths.core.grid import default_grid
@@ -536,8 +537,7 @@ def fit_path(
             f"{label} is constant (every value {Y[0, j]!r}); there is nothing to fit — "
             "check the target column"
         )
-    if n_lambdas < 1:
-        raise InputError(f"n_lambdas must be at least 1; got {n_lambdas}")
+    n_lambdas = as_count(n_lambdas, "n_lambdas")
     has_test = X_test is not None or y_test is not None
     if has_test:
         if X_test is None or y_test is None:

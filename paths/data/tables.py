@@ -53,6 +53,9 @@ __all__ = [
     "Dataset",
     "NA_TOKENS",
     "as_frame",
+    "is_number_text",
+    "number_problem",
+    "parse_number",
     "load_dataset",
     "read_table",
     "select",
@@ -77,6 +80,60 @@ _THOUSANDS_COMMA = re.compile(r"^[+-]?\d{1,3}(,\d{3})+(\.\d*)?$")
 _THOUSANDS_DOT = re.compile(r"^[+-]?\d{1,3}(\.\d{3})+(,\d*)?$")
 _THOUSANDS_SPACE = re.compile(r"^[+-]?\d{1,3}([ '\u00a0\u202f]\d{3})+([.,]\d*)?$")
 _DECIMAL_COMMA = re.compile(r"^[+-]?\d*,\d+([eE][+-]?\d+)?$")
+# the one number syntax of every reader: ASCII digits, '.', an exponent, inf/nan; Python's
+# float() also takes '1_000' (PEP 515 digit grouping), '1e5j'-free complex aside, and
+# non-ASCII digits, which a data file must not be read with
+_NUMBER = re.compile(r"^[+-]?(?:(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+)?"
+                     r"|inf|infinity|nan)$", re.IGNORECASE)
+_UNDERSCORE = re.compile(r"^[+-]?[0-9][0-9_]*_[0-9_]*(\.[0-9_]*)?([eE][+-]?[0-9_]+)?$")
+_COMPLEX = re.compile(r"^\(?[+-]?(?:[0-9.]+(?:[eE][+-]?[0-9]+)?[+-])?[0-9.]*(?:[eE][+-]?[0-9]+)?"
+                      r"[jJiI]\)?$")
+
+
+def is_number_text(s: str) -> bool:
+    """Whether the (stripped) text ``s`` is a number in the one syntax every reader accepts.
+
+    Examples
+    --------
+    >>> [is_number_text(t) for t in ("1.5", "-2e-3", ".5", "inf", "1_000", "1+2j", "١")]
+    [True, True, True, True, False, False, False]
+    """
+    return bool(_NUMBER.match(s))
+
+
+def parse_number(s: str) -> float:
+    """``float(s)`` for text that :func:`is_number_text` accepts; ``ValueError`` otherwise."""
+    if not _NUMBER.match(s):
+        raise ValueError(f"not a number: {s!r}")
+    return float(s)
+
+
+def number_problem(s: str) -> str | None:
+    """Why the text ``s`` looks like a number but is not read as one, or None.
+
+    One of ``"thousands"``, ``"decimal"``, ``"underscore"``, ``"complex"``.
+    """
+    if _THOUSANDS_COMMA.match(s) or _THOUSANDS_SPACE.match(s) or _THOUSANDS_DOT.match(s):
+        return "thousands"
+    if _DECIMAL_COMMA.match(s):
+        return "decimal"
+    if _UNDERSCORE.match(s):
+        return "underscore"
+    if _COMPLEX.match(s) and any(ch.isdigit() for ch in s):
+        return "complex"
+    return None
+
+
+_PROBLEM_FIX = {
+    "decimal": "numbers with a decimal comma (e.g. {ex} on {at}); re-export the file with '.' "
+               "as the decimal mark",
+    "thousands": "numbers with thousands separators (e.g. {ex} on {at}); re-export the file "
+                 "without thousands separators",
+    "underscore": "numbers with underscores (e.g. {ex} on {at}), which are not read as digit "
+                  "grouping; remove the underscores",
+    "complex": "complex numbers (e.g. {ex} on {at}); split them into real and imaginary "
+               "columns",
+}
 
 
 def _one_line(text: str) -> str:
@@ -302,11 +359,7 @@ def _is_number(s: str) -> bool:
     s = s.strip()
     if s in _NA_SET:
         return True
-    try:
-        float(s)
-    except ValueError:
-        return False
-    return True
+    return is_number_text(s)
 
 
 def _has_header(head) -> bool:
@@ -409,15 +462,13 @@ def _as_floats(values: list):
     """``values`` (str or None) as float64 with NaN for None, or the index of the first
     value that is not a number."""
     try:
-        return np.array([np.nan if v is None else float(v) for v in values], dtype=np.float64)
+        return np.array([np.nan if v is None else parse_number(v) for v in values],
+                        dtype=np.float64)
     except ValueError:
         pass
     for i, v in enumerate(values):
-        if v is not None:
-            try:
-                float(v)
-            except ValueError:
-                return i
+        if v is not None and not is_number_text(v):
+            return i
     return None  # pragma: no cover (the fast path would have succeeded)
 
 
@@ -437,25 +488,14 @@ def _numeric_text_columns(df: pd.DataFrame, p: Path, lines) -> pd.DataFrame:
             continue
         i = conv
         bad = [v for v in stripped if v is not None and not _is_number(v)][:200]
-        at = f"line {lines[i]}" if lines is not None else f"row {i + 1}"
-        example = stripped[i]
-        kinds = []
-        for v in bad:
-            if _THOUSANDS_COMMA.match(v) or _THOUSANDS_SPACE.match(v):
-                kinds.append("thousands")
-            elif _DECIMAL_COMMA.match(v):
-                kinds.append("decimal")
-            elif _THOUSANDS_DOT.match(v):
-                kinds.append("thousands")
+        kinds = [k for k in map(number_problem, bad) if k is not None]
         if bad and len(kinds) / len(bad) >= 0.5:
             kind = max(set(kinds), key=kinds.count)
-            if kind == "decimal":
-                raise _fail(f"{p}: ", f"column {col!r} has numbers with a decimal comma (e.g. "
-                                      f"{example!r} on {at}); re-export the file with '.' as the "
-                                      "decimal mark")
-            raise _fail(f"{p}: ", f"column {col!r} has numbers with thousands separators (e.g. "
-                                  f"{example!r} on {at}); re-export the file without thousands "
-                                  "separators")
+            j = next(k for k, v in enumerate(stripped)
+                     if v is not None and number_problem(v) == kind)
+            at = f"line {lines[j]}" if lines is not None else f"row {j + 1}"
+            raise _fail(f"{p}: ", f"column {col!r} has " + _PROBLEM_FIX[kind].format(
+                ex=repr(stripped[j]), at=at))
         out[col] = np.array(stripped, dtype=object)
     if not out:
         return df
