@@ -13,13 +13,46 @@ import importlib
 import pkgutil
 
 import typer
+import typer.core
 from rich.console import Console
 
 from paths.data.validation import InputError
+from paths.cli._checks import check_options
 
 __all__ = ["app", "command", "console", "err_console", "main"]
 
+class OneLineErrors(typer.core.TyperGroup):
+    """The command group: an option that does not parse prints one line (no box), exit 2."""
+
+    def main(self, args=None, prog_name=None, complete_var=None, standalone_mode=True,
+             **extra):
+        click = typer.core._click  # the click that typer vendors (its exceptions)
+
+        if not standalone_mode:
+            return super().main(args=args, prog_name=prog_name, complete_var=complete_var,
+                                standalone_mode=False, **extra)
+        try:
+            rv = super().main(args=args, prog_name=prog_name, complete_var=complete_var,
+                              standalone_mode=False, **extra)
+        except click.exceptions.NoArgsIsHelpError as exc:
+            typer.echo(exc.ctx.get_help() if exc.ctx is not None else str(exc))
+            raise SystemExit(exc.exit_code) from None
+        except click.exceptions.UsageError as exc:
+            cmd = exc.ctx.command_path if exc.ctx is not None else "paths"
+            text = " ".join(exc.format_message().split()).rstrip(".")
+            typer.echo(f"error: {text}; see {cmd} --help", err=True)
+            raise SystemExit(2) from None
+        except click.exceptions.ClickException as exc:
+            typer.echo(f"error: {' '.join(exc.format_message().split())}", err=True)
+            raise SystemExit(exc.exit_code) from None
+        except click.exceptions.Abort:
+            typer.echo("aborted", err=True)
+            raise SystemExit(1) from None
+        raise SystemExit(rv if isinstance(rv, int) else 0)
+
+
 app = typer.Typer(
+    cls=OneLineErrors,
     name="paths",
     help=(
         "The whole ridge regularization path from one factorization. Penalty convention: "
@@ -47,6 +80,7 @@ def command(*args, **kwargs):
         @functools.wraps(func)
         def wrapper(*a, **kw):
             try:
+                check_options(kw)
                 return func(*a, **kw)
             except (typer.Exit, typer.Abort):
                 raise

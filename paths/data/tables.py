@@ -47,7 +47,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from paths.data.validation import InputError
+from paths.data.validation import InputError, check_memory
 
 __all__ = [
     "Dataset",
@@ -242,10 +242,14 @@ def sha256_of(path: str | os.PathLike) -> str:
 def _check_path(p: Path) -> None:
     if p.is_dir():
         raise _fail("", f"{p} is a folder, not a data file; pass the file inside it")
+    if p.is_symlink() and not p.exists():
+        raise _fail("", f"{p} is a symbolic link to {os.readlink(p)}, which does not exist; "
+                        "fix the link or pass the file itself")
     if not p.exists():
         near = ""
         if p.parent.is_dir():
-            close = difflib.get_close_matches(p.name, [c.name for c in p.parent.iterdir()], n=1)
+            close = difflib.get_close_matches(
+                p.name, [c.name for c in p.parent.iterdir() if c.name != p.name], n=1)
             if close:
                 near = f" (did you mean {close[0]!r}?)"
         raise _fail("", f"{p}: no such file{near}; check the path")
@@ -407,6 +411,11 @@ def _read_text(p: Path, sep: str | None, header: bool | None) -> pd.DataFrame:
             notes.append("no header row detected: columns named x0, x1, ...")
     counts = np.asarray(counts)
     width = int(counts[0])
+    # pandas holds each column as an object (about 4 KiB each) plus the text and the floats
+    check_memory(width * 4096.0 + counts.size * width * 8.0 * 3,
+                 f"{p}: {counts.size} rows x {width} columns read in memory",
+                 "use --engine stream (row chunks; column blocks for wide Parquet) or keep "
+                 "fewer columns")
     ragged = np.flatnonzero(counts != width)
     if ragged.size:
         k = int(ragged[0])
@@ -557,6 +566,11 @@ def _frame_from_arrays(arrays: dict, p, default_prefix: str) -> pd.DataFrame:
                 cols[name] = sub
             n_rows = arr.shape[0] if arr.ndim else 1
         elif arr.ndim == 1:
+            if key is None:  # a lone .npy vector has no column to name or to take as target
+                raise _fail(f"{p}: ", f"the array is 1-D (shape {arr.shape}): one column without "
+                                      "a name; save the table as 2-D (rows x columns, target "
+                                      "included: columns x0, x1, ...) or as a .npz of named "
+                                      "columns")
             cols[key] = arr
             n_rows = arr.shape[0]
         elif arr.ndim == 2:
@@ -647,13 +661,27 @@ def as_frame(data) -> pd.DataFrame:
     """A DataFrame view of in-memory data: a DataFrame, a 2-D or structured NumPy array
     (columns ``x0, x1, ...`` or the field names), or a mapping of names to 1-D arrays."""
     if isinstance(data, pd.DataFrame):
-        return data
+        return _nullable_booleans(data)
     if isinstance(data, dict):
         return _frame_from_arrays(data, "data", "x")
     arr = np.asarray(data)
     if arr.ndim == 1 and not arr.dtype.names:
         raise InputError(f"data is 1-D with shape {arr.shape}; pass a 2-D array (rows x columns)")
     return _frame_from_arrays({None: arr}, "data", "x")
+
+
+def _nullable_booleans(df: pd.DataFrame) -> pd.DataFrame:
+    """Object columns of true/false with missing values (a Parquet boolean column with
+    nulls) as pandas' nullable boolean: read as 0/1 with missing values, not as text."""
+    cols = [c for c, dt in zip(df.columns, df.dtypes) if dt == object and df[c].isna().any()
+            and df[c].notna().any()
+            and df[c].dropna().map(type).isin([bool, np.bool_]).all()]
+    if not cols:
+        return df
+    df = df.copy()
+    for c in cols:
+        df[c] = df[c].astype("boolean")
+    return df
 
 
 # --------------------------------------------------------------------------- selection

@@ -7,9 +7,12 @@ the fix (the CLI prints it and exits with status 2).
 """
 from __future__ import annotations
 
+import os
+
 import numpy as np
 
-__all__ = ["InputError", "as_design", "as_response", "as_lambdas", "as_count", "check_rows_for_cv"]
+__all__ = ["InputError", "as_design", "as_response", "as_lambdas", "as_count", "check_rows_for_cv",
+           "available_memory", "check_memory"]
 
 
 class InputError(ValueError):
@@ -140,7 +143,7 @@ def as_lambdas(lambdas) -> np.ndarray:
     if not np.all(np.isfinite(lam)) or np.any(lam < 0):
         raise InputError(
             "lambdas must be finite and >= 0 (penalty on ||beta||^2); "
-            f"got min {lam.min()!r}, max {lam.max()!r}"
+            f"got min {float(lam.min())!r}, max {float(lam.max())!r}"
         )
     return lam
 
@@ -166,6 +169,68 @@ def as_count(value, name: str, *, minimum: int = 1, maximum: int | None = None) 
     if k < minimum or (maximum is not None and k > maximum):
         raise InputError(f"{name} must be a whole number {bound}; got {k}")
     return k
+
+
+def available_memory() -> int | None:
+    """Bytes of memory this process can still use: ``MemAvailable`` of ``/proc/meminfo``,
+    capped by a cgroup (container) limit; None where neither is known."""
+    avail = None
+    try:
+        with open("/proc/meminfo", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("MemAvailable:"):
+                    avail = int(line.split()[1]) * 1024
+                    break
+    except OSError:
+        pass
+    if avail is None:
+        try:
+            avail = os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE")
+        except (ValueError, OSError, AttributeError):
+            avail = None
+    for limit_file, usage_file in (("/sys/fs/cgroup/memory.max", "/sys/fs/cgroup/memory.current"),
+                                   ("/sys/fs/cgroup/memory/memory.limit_in_bytes",
+                                    "/sys/fs/cgroup/memory/memory.usage_in_bytes")):
+        try:
+            with open(limit_file, encoding="ascii") as fh:
+                text = fh.read().strip()
+            if text == "max":
+                continue
+            with open(usage_file, encoding="ascii") as fh:
+                left = int(text) - int(fh.read().strip())
+            avail = left if avail is None else min(avail, left)
+        except (OSError, ValueError):
+            continue
+    return avail
+
+
+def _bytes(n: float) -> str:
+    for unit in ("bytes", "KiB", "MiB", "GiB", "TiB", "PiB", "EiB"):
+        if n < 1024 or unit == "EiB":
+            return f"{n:.0f} {unit}" if unit == "bytes" else f"{n:.3g} {unit}"
+        n /= 1024
+    return f"{n:.3g} EiB"  # pragma: no cover
+
+
+def check_memory(nbytes: float, what: str, fix: str) -> None:
+    """Refuse, before allocating, a request estimated at ``nbytes`` above the available memory.
+
+    ``what`` says what would be allocated (with its shape), ``fix`` how to need less.
+    The estimate counts the largest arrays only (8 bytes per float64), so it is a lower
+    bound of the real use; nothing is refused when the available memory is unknown.
+
+    Examples
+    --------
+    >>> check_memory(8 * 10**20, "the coefficients (1e20 x 1)",
+    ...              "ask for fewer penalties")  # doctest: +ELLIPSIS
+    Traceback (most recent call last):
+    ...
+    paths.data.validation.InputError: the coefficients (1e20 x 1) need about 694 EiB ...
+    """
+    avail = available_memory()
+    if avail is not None and nbytes > avail:
+        raise InputError(f"{what} need about {_bytes(nbytes)} but {_bytes(avail)} of memory "
+                         f"are available; {fix}")
 
 
 def check_rows_for_cv(n_rows: int, n_folds, source: str = "", *, fit_intercept: bool = True) -> None:

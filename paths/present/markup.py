@@ -13,18 +13,18 @@ from __future__ import annotations
 __all__ = ["md_escape", "md_safe"]
 
 _MD = {"&": "&amp;", "<": "&lt;", ">": "&gt;", "`": "&#96;", "[": "\\[", "]": "\\]",
-       "|": "\\|", "\n": " ", "\r": " "}
+       "\n": " ", "\r": " "}  # pipes: escaped in table cells only (report._md)
 
 
 def md_escape(text) -> str:
-    """``text`` as inert Markdown: no HTML tags, no links, no code spans, no table breaks.
+    """``text`` as inert Markdown: no HTML tags, no links, no code spans, one line.
 
     Examples
     --------
     >>> md_escape("<img src=x onerror=alert(1)>")
     '&lt;img src=x onerror=alert(1)&gt;'
-    >>> md_escape("[a](javascript:x) | b")
-    '\\\\[a\\\\](javascript:x) \\\\| b'
+    >>> md_escape("[a](javascript:x)")
+    '\\\\[a\\\\](javascript:x)'
     """
     return "".join(_MD.get(ch, ch) for ch in str(text))
 

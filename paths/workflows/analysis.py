@@ -359,6 +359,9 @@ def explore_engine(
     path = Path(data)
     if not path.exists():
         raise InputError(f"{path}: no such file or folder; check the path")
+    if not (path.is_file() or path.is_dir()):  # a FIFO or device would block the reader
+        raise InputError(f"{path} is not a regular file (a pipe or a device); save the data "
+                         "to a file and pass that")
     targets = [x for t in ([target] if isinstance(target, str) else list(target))
                for x in str(t).split(",") if x]
     folder = OutputFolder(out_dir, force=force, inputs=[path, *([] if test is None else [test])])
