@@ -32,7 +32,7 @@ def check_options(kw: dict) -> None:
     for key, (flag, lo, hi) in _COUNTS.items():
         v = kw.get(key)
         if isinstance(v, int) and not isinstance(v, bool) and (v < lo or (hi is not None and v > hi)):
-            bound = f">= {lo}" if hi is None else f"between {lo} and {hi}"
+            bound = f"at least {lo}" if hi is None else f"between {lo} and {hi}"
             raise InputError(f"{flag} must be a whole number {bound}; got {v}")
     timeout = kw.get("scheduler_timeout")
     if timeout is not None and not (math.isfinite(timeout) and 0 < timeout <= _TIMEOUT_MAX):

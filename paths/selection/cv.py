@@ -127,7 +127,7 @@ def make_folds(n_samples: int, n_folds: int = 10, *, scheme: str = "shuffled", s
     K = int(n_folds)
     if groups is not None and len(groups) and np.unique(np.asarray(groups)).size < 2:
         one = np.asarray(groups).ravel()[0]
-        raise InputError(f"every row is in the one group {str(one)!r}; grouped cross-validation "
+        raise InputError(f"every row is in a single group ({str(one)!r}); grouped cross-validation "
                          "needs at least 2 groups: check the --groups column")
     if K < 2:
         raise InputError(f"the number of folds must be at least 2; got {K} (valid: 2 to {n_samples})")
