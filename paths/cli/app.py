@@ -73,6 +73,29 @@ def _root(debug: bool = typer.Option(False, "--debug", help="Show the traceback 
     _state["debug"] = debug
 
 
+def _with_warning_notes(func, args, kwargs):
+    """Run a command; numpy's RuntimeWarnings (overflow, invalid value near the limits of
+    floating point) become one ``note:`` line each on success, not warning blocks."""
+    import warnings
+
+    seen = []
+    show = warnings.showwarning
+
+    def collect(message, category, filename, lineno, file=None, line=None):
+        if issubclass(category, RuntimeWarning):
+            seen.append(" ".join(str(message).split()))
+        else:
+            show(message, category, filename, lineno, file, line)
+
+    with warnings.catch_warnings():
+        warnings.showwarning = collect
+        result = func(*args, **kwargs)
+    for text in dict.fromkeys(seen):
+        err_console.print(f"note: numerical warning: {text} (values near the limits of floating "
+                          "point; check the scale of the data)", soft_wrap=True, markup=False)
+    return result
+
+
 def command(*args, **kwargs):
     """``app.command`` with the error boundary: exit 2 for user errors, 1 for bugs."""
 
@@ -81,7 +104,7 @@ def command(*args, **kwargs):
         def wrapper(*a, **kw):
             try:
                 check_options(kw)
-                return func(*a, **kw)
+                return _with_warning_notes(func, a, kw)
             except (typer.Exit, typer.Abort):
                 raise
             except InputError as exc:

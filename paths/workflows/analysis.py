@@ -437,9 +437,14 @@ def explore_engine(
         else:
             from paths.engines.dask_cluster import dask_path
 
-            result = dask_path(path, target=targets, features=feats, chunk_rows=chunk_rows,
+            # a remote scheduler's workers do not share our working folder: absolute paths
+            remote = scheduler is not None
+            result = dask_path(path.resolve() if remote else path, target=targets,
+                               features=feats, chunk_rows=chunk_rows,
                                accurate=accurate, scheduler=scheduler, timeout=timeout,
-                               standardize=standardize, test=test, n_lambdas=n_lambdas, cv=cv,
+                               standardize=standardize,
+                               test=Path(test).resolve() if remote and test is not None else test,
+                               n_lambdas=n_lambdas, cv=cv,
                                cv_seed=cv_seed, rank=rank, progress=progress)
         cv_record = None
         if result.cv_mse is not None:
