@@ -265,6 +265,11 @@ CASES = {
     "E85": ("api", None, _fit(X12, Y12, lambdas=[1.0, -2.0])),
     "E86": ("api", None, _fit(X12[:, 0], Y12)),
     "E87": ("api", None, _fit(X12, Y12, n_lambdas=10**20)),
+    "E88": (CLI, _text("data.csv", "a,b,y\n\n"),
+            ["explore", "data.csv", "-t", "y", "--engine", "stream"]),
+    "E89": (CLI, _npy("o.npy", np.array([{"a": 1}, None], dtype=object), allow_pickle=True),
+            ["explore", "o.npy", "-t", "x1", "--engine", "stream"]),
+    "E90": (CLI, _truncated_npy, ["explore", "t.npy", "-t", "x2", "--engine", "stream"]),
 }
 
 
