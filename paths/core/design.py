@@ -20,7 +20,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["Design", "prepare", "to_sample_space"]
+__all__ = ["Design", "prepare", "to_sample_space", "column_norms"]
 
 _EPS = np.finfo(np.float64).eps
 
@@ -143,7 +143,7 @@ def prepare(X: np.ndarray, Y: np.ndarray, *, fit_intercept: bool,
         Z = X[1:] - _householder_shift(X, x_mean)
         zy = Y[1:] - _householder_shift(Y, y_mean)
         # norms of the centered columns, overflow-safe
-        sd = _colnorm(Z) / np.sqrt(n)
+        sd = column_norms(Z) / np.sqrt(n)
         active = sd > n * _EPS * absmax
         active &= x_max > x_min
     else:
@@ -175,7 +175,7 @@ def prepare(X: np.ndarray, Y: np.ndarray, *, fit_intercept: bool,
     return design, Z
 
 
-def _colnorm(A: np.ndarray) -> np.ndarray:
+def column_norms(A: np.ndarray) -> np.ndarray:
     """Euclidean column norms, without overflow or underflow for extreme scales."""
     big = np.maximum(A.max(axis=0), -A.min(axis=0))  # max |a_ij|, no |A|-sized temporary
     if big.size and (big.max() > 1e150 or big[big > 0].min(initial=1.0) < 1e-150):

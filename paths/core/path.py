@@ -20,8 +20,10 @@ from paths.data.validation import InputError, as_design, as_lambdas, as_response
 from paths.core.design import Design, prepare, to_sample_space
 from paths.core.factor import Factorization, factorize
 from paths.core.grid import default_grid
+from paths.core import algebra
+from paths.core.algebra import Criteria, FactorState
 
-__all__ = ["PENALTY_CONVENTION", "RidgePath", "MinNormFit", "Criteria", "criteria", "fit_path",
+__all__ = ["PENALTY_CONVENTION", "RidgePath", "MinNormFit", "Criteria", "fit_path",
            "path_from_factors"]
 
 PENALTY_CONVENTION = (
@@ -30,7 +32,6 @@ PENALTY_CONVENTION = (
     "lambda on the scale of squared singular values of X (scikit-learn Ridge alpha)"
 )
 _EPS = np.finfo(np.float64).eps
-_BLOCK_ROWS = 4096  # rows per block for the n x k leave-one-out arrays
 
 
 def _freeze(*arrays):
@@ -143,6 +144,7 @@ class RidgePath:
     factorization: Factorization = field(repr=False)
     uty: np.ndarray = field(repr=False)
     penalty_convention: str = PENALTY_CONVENTION
+    state: FactorState | None = field(default=None, repr=False, compare=False)
 
     # ------------------------------------------------------------------ helpers
     @property
@@ -178,7 +180,10 @@ class RidgePath:
 
         Shapes follow the path's: (k,) per criterion [or (k, t) for several targets].
         """
-        crit = criteria(self.factorization, self.design, self.uty, as_lambdas(lam))
+        if self.state is None or self.state.u is None:
+            raise InputError("criteria at new penalties need the left factor, which this "
+                             "engine does not keep; pass the penalties as lambdas=")
+        crit = algebra.criteria(self.state, as_lambdas(lam))
         if self.multi_target:
             return crit
         return Criteria(**{k: (v if k == "df" else v[..., 0]) for k, v in vars(crit).items()})
@@ -190,7 +195,7 @@ class RidgePath:
         (len(lam), p, t)] for a sequence.
         """
         lam_arr = as_lambdas(lam)
-        coef = _coefficients(self.factorization, self.uty, lam_arr, self.design)
+        coef = algebra.coefficients(self._state(), lam_arr, self.design)
         if not self.multi_target:
             coef = coef[..., 0]
         return coef[0] if np.ndim(lam) == 0 else coef
@@ -216,217 +221,19 @@ class RidgePath:
                 "pass the same features in the same order"
             )
         lam_arr = as_lambdas(lam)
-        gains = _gains(self.factorization.d, lam_arr)  # (r, k)
+        gains = algebra.gains(self.factorization.d, lam_arr)  # (r, k)
         proj = self.design.transform(X) @ self.factorization.vt.T  # (n_new, r)
-        pred = self.design.y_mean + _project(proj, gains, self.uty)
+        pred = self.design.y_mean + algebra.project(proj, gains, self.uty)
         if not self.multi_target:
             pred = pred[..., 0]
         return pred[:, 0] if np.ndim(lam) == 0 else pred
 
-
-def _gains(d: np.ndarray, lam: np.ndarray) -> np.ndarray:
-    """:math:`d_j/(d_j^2+\\lambda)`, shape (r, k); the min-norm :math:`1/d_j` at 0."""
-    return d[:, None] / (np.square(d)[:, None] + lam[None, :])
-
-
-def _project(proj: np.ndarray, gains: np.ndarray, uty: np.ndarray) -> np.ndarray:
-    """:math:`\\sum_j P_{ij} g_{jk} c_{jt}`, shape (i, k, t), as one matrix product."""
-    r, k = gains.shape
-    t = uty.shape[1]
-    gc = (gains[:, :, None] * uty[:, None, :]).reshape(r, k * t)
-    return (proj @ gc).reshape(proj.shape[0], k, t)
-
-
-def _coefficients(fac: Factorization, uty: np.ndarray, lam: np.ndarray, design: Design):
-    """Original-scale coefficients (k, p, t) at penalties ``lam``."""
-    gains = _gains(fac.d, lam)
-    k, t = lam.size, uty.shape[1]
-    p = design.n_features
-    act = design.active
-    inv_scale = 1.0 / design.x_scale[act]
-    scaled = not np.all(inv_scale == 1.0)  # x * 1.0 == x: skip a pass over k x p
-    if t == 1 and act.all():  # one GEMM straight into the result, scaled in place
-        cj = (gains * uty).T @ fac.vt  # (k, p)
-        if scaled:
-            cj *= inv_scale
-        return cj[:, :, None]
-    coef = np.zeros((k, p, t))
-    for j in range(t):
-        cj = (gains * uty[:, j:j + 1]).T @ fac.vt  # (k, q)
-        if scaled:
-            cj *= inv_scale
-        coef[:, act, j] = cj
-    return coef
-
-
-def _row_blocks(u: np.ndarray, fit_intercept: bool, block: int = _BLOCK_ROWS):
-    """Yield ``(start, stop, rows)`` of the sample-space :math:`U` without forming it.
-
-    ``rows`` is a view of ``u`` (no intercept) or of one buffer reused for every
-    block (with an intercept): use it before asking for the next block.
-    """
-    m = u.shape[0]
-    if not fit_intercept:
-        for s in range(0, m, block):
-            yield s, min(s + block, m), u[s:s + block]
-        return
-    n = m + 1
-    rn = np.sqrt(n)
-    colsum = u.sum(axis=0)
-    shift = colsum / (n + rn)
-    buf = np.empty((min(block, n),) + u.shape[1:])
-    for s in range(0, n, block):
-        e = min(s + block, n)
-        lo, hi = max(s - 1, 0), e - 1  # reduced rows for sample rows s..e-1 (row 0 special)
-        rows = buf[:e - s]
-        if s == 0:
-            rows[0] = -colsum / rn
-            np.subtract(u[lo:hi], shift, out=rows[1:])
-        else:
-            np.subtract(u[lo:hi], shift, out=rows)
-        yield s, e, rows
-
-
-def _loo_block_rows(r: int, width: int) -> int:
-    """Rows per leave-one-out block: about 4 MiB per (rows x max(r, k t)) array."""
-    return int(min(_BLOCK_ROWS, max(256, (1 << 19) // max(r, width, 1))))
-
-
-def _loo(fac: Factorization, design: Design, uty: np.ndarray, out: np.ndarray,
-         lam: np.ndarray):
-    """Exact leave-one-out MSE (k, t) on the grid and at the min-norm limit (t,).
-
-    The LOO residual is :math:`e_i(\\lambda) / (1 - H_{ii}(\\lambda))` with
-    :math:`H = 11^T/n + U \\operatorname{diag}(f) U^T`.  Both parts are built
-    from the shrinkage complements :math:`s_j = \\lambda/(d_j^2+\\lambda)`, never
-    as ``1 - f``, so they stay accurate as the fit approaches interpolation:
-
-    - :math:`e(\\lambda) = e_\\perp + U (s \\circ U^T y)`, with :math:`e_\\perp` the
-      part of the response outside the column span;
-    - :math:`1 - H_{ii} = \\ell_i + \\sum_j U_{ij}^2 s_j`, with :math:`\\ell_i`
-      the leverage left outside the span (zero at full row rank).
-
-    At :math:`\\lambda = 0` the ratio is its limit: :math:`e_{\\perp,i}/\\ell_i`,
-    or where :math:`\\ell_i = 0`,
-    :math:`\\sum_j U_{ij} c_j d_j^{-2} / \\sum_j U_{ij}^2 d_j^{-2}`.
-    """
-    d2 = np.square(fac.d)
-    n = design.n_samples
-    m, r = fac.u.shape
-    k, t = lam.size, uty.shape[1]
-    S = lam[None, :] / (d2[:, None] + lam[None, :])  # (r, k)
-    # S scaled by each target's U^T y, side by side: the residuals of every
-    # penalty and target are one matrix product per block, U_b @ SC
-    SC = (S[:, :, None] * uty[:, None, :]).reshape(r, k * t)
-    full_row_rank = r == m
-    zero = lam == 0
-    inv_d2 = d2[-1] / d2  # 1/d_j^2 up to a constant (cancels in a/b): no overflow
-    sum_sq = np.zeros((k, t))
-    lim_sq = np.zeros(t)
-    base = 1.0 - 1.0 / n if design.fit_intercept else 1.0
-    block = _loo_block_rows(r, k * t)
-    sq_buf = np.empty((min(block, n), r))
-    out_blocks = _row_blocks(out, design.fit_intercept, block)
-    for (s, e, ub), (_, _, ob) in zip(_row_blocks(fac.u, design.fit_intercept, block),
-                                      out_blocks):
-        if full_row_rank:
-            lev_out = np.zeros(e - s)
-        else:
-            lev_out = np.maximum(base - np.einsum("ir,ir->i", ub, ub), 0.0)
-        ub2 = np.square(ub, out=sq_buf[:e - s])
-        den = ub2 @ S  # (b, k)
-        den += lev_out[:, None]
-        num = (ub @ SC).reshape(e - s, k, t)  # (b, k, t)
-        num += ob[:, None, :]
-        # min-norm limit
-        small = lev_out <= 100 * m * _EPS
-        lim = np.empty((e - s, t))
-        with np.errstate(divide="ignore", invalid="ignore"):
-            lim[~small] = ob[~small] / lev_out[~small, None]
-        if small.any():
-            a = ub[small] @ (uty * inv_d2[:, None])
-            b = ub2[small] @ inv_d2
-            lim[small] = a / b[:, None]
-        lim_sq += np.sum(np.square(lim), axis=0)
-        if zero.any():
-            den[:, zero] = 1.0
-            num[:, zero, :] = lim[:, None, :]
-        num /= den[:, :, None]
-        np.square(num, out=num)
-        sum_sq += np.sum(num, axis=0)
-    return sum_sq / n, lim_sq / n
-
-
-@dataclass(frozen=True)
-class Criteria:
-    """Path criteria on a grid, with their :math:`\\lambda \\to 0^+` limits.
-
-    Arrays have shape (k,) for ``df`` and (k, t) otherwise; the ``*0`` fields
-    have shape (t,).
-    """
-
-    df: np.ndarray
-    train_mse: np.ndarray
-    gcv: np.ndarray
-    loo_mse: np.ndarray
-    train_mse0: np.ndarray
-    gcv0: np.ndarray
-    loo_mse0: np.ndarray
-
-
-def criteria(fac: Factorization, design: Design, uty: np.ndarray, lam) -> Criteria:
-    """Effective df, training MSE, GCV and exact leave-one-out MSE at penalties ``lam``.
-
-    Parameters
-    ----------
-    fac : Factorization
-        Factors of the reduced design.
-    design : Design
-        Its preprocessing (``design.zy`` is the reduced response).
-    uty : ndarray, shape (r, t)
-        ``fac.u.T @ design.zy``.
-    lam : array_like, shape (k,)
-        Non-negative penalties; 0 gives the min-norm limit.
-
-    Returns
-    -------
-    Criteria
-
-    Notes
-    -----
-    See :func:`fit_path`; every quantity is a closed form on the factors and the
-    cost is O((m + k) r t) plus O(n r k) for leave-one-out, with no refit.
-    """
-    lam = np.atleast_1d(np.asarray(lam, dtype=np.float64))
-    n = design.n_samples
-    c = uty
-    if fac.u.shape[1] == fac.u.shape[0]:
-        # U spans all of R^m: nothing lies outside the span; the computed difference
-        # would be rounding (~m eps |y|), which dominates residuals ~lam/d^2 near 0
-        resid_out = np.zeros_like(design.zy)
-    else:
-        resid_out = design.zy - fac.u @ c  # (m, t): response outside the column span
-    rss_out = np.einsum("it,it->t", resid_out, resid_out)
-    m, r = fac.u.shape
-    d2 = np.square(fac.d)
-    denom = d2[:, None] + lam[None, :]
-    F = d2[:, None] / denom
-    S = lam[None, :] / denom
-    df = design.fit_intercept + F.sum(axis=0)
-    rss = rss_out[None, :] + np.square(S).T @ np.square(c)  # (k, t)
-    resid_dof = (m - r) + S.sum(axis=0)  # n - df, without cancellation
-    # min-norm limit of GCV: finite even when the fit interpolates (m == r)
-    if m > r:
-        gcv0 = n * rss_out / (m - r) ** 2
-    else:
-        inv_d2 = d2[-1] / d2  # 1/d_j^2 up to a constant (cancels): no overflow or 0/0
-        gcv0 = n * (np.square(c).T @ np.square(inv_d2)) / inv_d2.sum() ** 2
-    zero = resid_dof == 0
-    gcv = n * rss / np.square(np.where(zero, 1.0, resid_dof))[:, None]
-    gcv[zero] = gcv0
-    loo_mse, loo0 = _loo(fac, design, c, resid_out, lam)
-    return Criteria(df=df, train_mse=rss / n, gcv=gcv, loo_mse=loo_mse,
-                    train_mse0=rss_out / n, gcv0=gcv0, loo_mse0=loo0)
+    def _state(self) -> FactorState:
+        if self.state is not None:
+            return self.state
+        fac = self.factorization
+        return FactorState(d=fac.d, vt=fac.vt, uty=self.uty, rss_out=np.zeros(self.uty.shape[1]),
+                           n_samples=self.n_samples, fit_intercept=self.fit_intercept)
 
 
 def fit_path(
@@ -496,7 +303,7 @@ def fit_path(
       column span, computed directly rather than as a difference of norms;
     - :math:`\\mathrm{GCV} = n\\,\\mathrm{RSS}/(n-\\operatorname{df})^2` (Golub,
       Heath & Wahba 1979) with :math:`n - \\operatorname{df} = (m - r) + \\sum_j s_j`;
-    - leave-one-out residuals :math:`e_i/(1-H_{ii})`, exact (see ``_loo``).
+    - leave-one-out residuals :math:`e_i/(1-H_{ii})`, exact (see :mod:`paths.core.algebra`).
 
     All penalties are handled by matrix products on the factors; nothing is
     refitted.
@@ -628,33 +435,28 @@ def path_from_factors(design: Design, fac: Factorization, lambdas, *, feature_na
     has_test = X_test is not None
     t_count = design.zy.shape[1]
 
-    c = fac.u.T @ design.zy  # (r, t)
-    crit = criteria(fac, design, c, lam)
+    state = algebra.factor_state(fac, design)
+    c = state.uty
+    crit = algebra.criteria(state, lam)
     df = crit.df
-    m, r = fac.u.shape
-    d = fac.d
+    r = fac.rank
 
-    coef = _coefficients(fac, c, lam, design)  # (k, p, t)
-    intercept = design.y_mean[None, :] - np.matmul(design.x_mean, coef)  # (k, t)
-    beta0 = (c / d[:, None]).T @ fac.vt  # (t, q) standardized min-norm coefficients
-    coef0 = np.zeros((p, t_count))
-    coef0[design.active] = (beta0 / design.x_scale[design.active]).T
-    intercept0 = design.y_mean - design.x_mean @ coef0
+    coef = algebra.coefficients(state, lam, design)  # (k, p, t)
+    intercept = algebra.intercepts(coef, design)  # (k, t)
+    coef0, beta0 = algebra.min_norm_coefficients(state, design)
+    intercept0 = algebra.intercepts(coef0, design)
 
     test_mse = test0 = None
     n_test = 0
     if has_test:
         n_test = X_test.shape[0]
         proj = design.transform(X_test) @ fac.vt.T  # (n_test, r), once per test set
-        gains = _gains(d, lam)
-        resid = (Yt - design.y_mean)[:, None, :] - _project(proj, gains, c)
-        test_mse = np.mean(np.square(resid), axis=0)
-        resid0 = Yt - design.y_mean - proj @ (c / d[:, None])
-        test0 = np.mean(np.square(resid0), axis=0)
+        sums, sums0 = algebra.test_sums(state, lam, proj, Yt - design.y_mean)
+        test_mse, test0 = sums / n_test, sums0 / n_test
 
     fitted = None
     if return_fitted:
-        F = np.square(d)[:, None] / (np.square(d)[:, None] + lam[None, :])
+        F = algebra.fractions(fac.d, lam)
         fitted_c = to_sample_space(fac.u @ (F[:, :, None] * c[:, None, :]).reshape(r, -1),
                                    fit_intercept)
         fitted = design.y_mean + fitted_c.reshape(n, lam.size, -1).transpose(1, 0, 2)
@@ -665,7 +467,7 @@ def path_from_factors(design: Design, fac: Factorization, lambdas, *, feature_na
     min_norm = MinNormFit(
         coef=sq(coef0), intercept=sq(intercept0), train_mse=sq(crit.train_mse0),
         gcv=sq(crit.gcv0), loo_mse=sq(crit.loo_mse0), test_mse=sq(test0), df=float(fit_intercept + r),
-        coef_norm=sq(np.sqrt(np.sum(np.square(beta0), axis=1))), rank=r,
+        coef_norm=sq(algebra.coef_norm(beta0)), rank=r,
     )
     out = dict(
         coef=sq(coef), intercept=sq(intercept), train_mse=sq(crit.train_mse), gcv=sq(crit.gcv),
@@ -677,5 +479,6 @@ def path_from_factors(design: Design, fac: Factorization, lambdas, *, feature_na
         condition_number=fac.condition_number, min_norm=min_norm, solver=fac.solver,
         solver_reason=fac.reason, n_samples=n, n_features=p, n_test=n_test,
         fit_intercept=fit_intercept, standardize=design.standardize,
-        feature_names=list(feature_names), design=design, factorization=fac, uty=c, **out,
+        feature_names=list(feature_names), design=design, factorization=fac, uty=c, state=state,
+        **out,
     )
