@@ -81,7 +81,7 @@ __all__ = [
     "FactorState", "factor_state", "Shrinkage", "shrinkage", "gains", "fractions",
     "complements", "penalized_df", "degrees_of_freedom", "residual_dof", "rss", "gcv",
     "gcv_limit", "Criteria", "criteria", "LeverageRows", "sample_space_blocks",
-    "leverage_rows", "refine_leverage", "unrefined_rows", "naive_ell", "ell_tolerance", "LEVERAGE_REFINE", "loo_sums", "loo_mse",
+    "leverage_rows", "state_blocks", "refine_leverage", "unrefined_rows", "naive_ell", "ell_tolerance", "LEVERAGE_REFINE", "loo_sums", "loo_mse",
     "loo_residuals", "project", "test_sums", "coefficients", "min_norm_coefficients",
     "intercepts", "coef_norm", "append_zero", "sample_weights", "path_coef_norm", "fold_factor", "kfold_fold_mse", "tsqr",
 ]
@@ -115,6 +115,12 @@ class FactorState:
         Left singular vectors in reduced coordinates (in-memory engines only).
     resid_out : ndarray, shape (m, t), or None
         :math:`y_\\perp` in reduced coordinates (in-memory engines only).
+    span : paths.core.design.FixedSpan or None
+        With row weights or unpenalized columns: the unpenalized span projected
+        out of the reduced coordinates (its columns take the place of the
+        intercept's :math:`1/\\sqrt n` everywhere below).  Every formula is then
+        that of the transformed problem :math:`W^{1/2}y, W^{1/2}X`: sums of
+        squares are weighted sums, and means divide by :math:`\\sum_i w_i`.
     """
 
     d: np.ndarray
@@ -125,11 +131,22 @@ class FactorState:
     fit_intercept: bool
     u: np.ndarray | None = None
     resid_out: np.ndarray | None = None
+    span: object = None
+
+    @property
+    def n_fixed(self) -> int:
+        """Unpenalized parameters: the intercept, and unpenalized columns with a span."""
+        return self.span.c if self.span is not None else int(self.fit_intercept)
+
+    @property
+    def total_weight(self) -> float:
+        """:math:`\\sum_i w_i` (n without weights), the denominator of every mean error."""
+        return self.span.total_weight if self.span is not None else float(self.n_samples)
 
     @property
     def m(self) -> int:
-        """Rows of the reduced design: n − 1 with an intercept, else n."""
-        return self.n_samples - int(self.fit_intercept)
+        """Rows of the reduced design: n minus the unpenalized parameters."""
+        return self.n_samples - self.n_fixed
 
     @property
     def rank(self) -> int:
@@ -165,7 +182,7 @@ def factor_state(fac, design) -> FactorState:
         a.flags.writeable = False
     return FactorState(d=fac.d, vt=fac.vt, uty=c, rss_out=rss_out,
                        n_samples=design.n_samples, fit_intercept=design.fit_intercept,
-                       u=u, resid_out=resid)
+                       u=u, resid_out=resid, span=getattr(design, "span", None))
 
 
 def _sumsq(a: np.ndarray) -> np.ndarray:
@@ -282,7 +299,7 @@ def penalized_df(d: np.ndarray, lam) -> np.ndarray:
 
 def degrees_of_freedom(state: FactorState, lam) -> np.ndarray:
     """:math:`\\operatorname{tr} H_\\lambda`, the intercept's 1 included, shape (k,)."""
-    return state.fit_intercept + shrinkage(state.d, lam).f.sum(axis=0)
+    return state.n_fixed + shrinkage(state.d, lam).f.sum(axis=0)
 
 
 def residual_dof(state: FactorState, sh: Shrinkage) -> np.ndarray:
@@ -332,6 +349,8 @@ def gcv(state: FactorState, lam, sh: Shrinkage | None = None) -> np.ndarray:
     """
     sh = shrinkage(state.d, lam) if sh is None else sh
     n = state.n_samples
+    if state.span is not None:  # weighted: (RSS_w / sum w) / (1 - df/n)^2
+        n = n * (n / state.total_weight)
     ch, cmax = _c_scaled(state.uty)
     A = np.square(sh.s_rel).T @ np.square(ch)  # (k, t)
     B = sh.s_rel.sum(axis=0)  # (k,)
@@ -394,6 +413,16 @@ def sample_space_blocks(u: np.ndarray, fit_intercept: bool, block: int = _BLOCK_
         yield s, e, rows
 
 
+def state_blocks(state: FactorState, a: np.ndarray, block: int = _BLOCK_ROWS):
+    """:func:`sample_space_blocks` of reduced rows ``a`` for ``state`` (its span, if any)."""
+    if state.span is None:
+        yield from sample_space_blocks(a, state.fit_intercept, block)
+        return
+    full = state.span.to_sample(a)
+    for s in range(0, full.shape[0], block):
+        yield s, min(s + block, full.shape[0]), full[s:s + block]
+
+
 def ell_tolerance(n: int, r: int) -> float:
     """Leverage outside the span below which a row counts as interpolated.
 
@@ -404,11 +433,17 @@ def ell_tolerance(n: int, r: int) -> float:
     return (10.0 * max(n, r) * _EPS) ** 2
 
 
-def naive_ell(state: FactorState, ub: np.ndarray) -> np.ndarray:
-    """:math:`1 - [1/n] - \\|u_i\\|^2` (accurate where it is not small; see refine)."""
+def naive_ell(state: FactorState, ub: np.ndarray, start: int = 0) -> np.ndarray:
+    """:math:`1 - [1/n] - \\|u_i\\|^2` (accurate where it is not small; see refine).
+
+    With a span, :math:`1 - \\|Q_{1,i}\\|^2 - \\|u_i\\|^2` for the rows from ``start``.
+    """
     if state.full_row_rank:
         return np.zeros(ub.shape[0])
-    base = 1.0 - 1.0 / state.n_samples if state.fit_intercept else 1.0
+    if state.span is not None:
+        base = 1.0 - state.span.leverage[start:start + ub.shape[0]]
+    else:
+        base = 1.0 - 1.0 / state.n_samples if state.fit_intercept else 1.0
     return np.maximum(base - np.einsum("ir,ir->i", ub, ub), 0.0)
 
 
@@ -426,8 +461,13 @@ def unrefined_rows(state: FactorState, ub: np.ndarray, e_perp: np.ndarray) -> Le
     return LeverageRows(u=ub, ell=ell, e_perp=ep)
 
 
-def _augment(state: FactorState, ub: np.ndarray) -> np.ndarray:
-    """Rows of :math:`\\tilde U = [1/\\sqrt n,\\ U]` (the intercept column first)."""
+def _augment(state: FactorState, ub: np.ndarray, start: int = 0) -> np.ndarray:
+    """Rows of :math:`\\tilde U = [1/\\sqrt n,\\ U]` (the intercept column first).
+
+    With a span, :math:`[Q_1,\\ U]` for the rows from ``start``.
+    """
+    if state.span is not None:
+        return np.hstack([state.span.q1[start:start + ub.shape[0]], ub])
     if not state.fit_intercept:
         return ub
     return np.hstack([np.full((ub.shape[0], 1), 1.0 / np.sqrt(state.n_samples)), ub])
@@ -483,7 +523,7 @@ def refine_leverage(state: FactorState, ua_s: np.ndarray, y_s: np.ndarray,
     cross[:kk] = sig[:, None] * (RQ.T @ w)
     ell = np.square(P) @ delta
     e_perp = P @ (delta[:, None] * (P.T @ y_s) - cross)
-    zero = ell <= ell_tolerance(state.n_samples, state.rank)
+    zero = ell <= ell_tolerance(state.n_samples, state.rank + state.n_fixed)
     ell[zero] = 0.0
     e_perp[zero] = 0.0
     return ell, e_perp
@@ -499,10 +539,9 @@ def leverage_rows(state: FactorState, block: int = _BLOCK_ROWS):
     if state.u is None:
         raise ValueError("leverage_rows needs the left factor (an in-memory FactorState)")
     fixes = _refined_rows(state, block)
-    e_blocks = sample_space_blocks(state.resid_out, state.fit_intercept, block)
-    for (s, e, ub), (_, _, eb) in zip(sample_space_blocks(state.u, state.fit_intercept, block),
-                                      e_blocks):
-        ell = naive_ell(state, ub)
+    e_blocks = state_blocks(state, state.resid_out, block)
+    for (s, e, ub), (_, _, eb) in zip(state_blocks(state, state.u, block), e_blocks):
+        ell = naive_ell(state, ub, s)
         ep = np.zeros(eb.shape) if state.full_row_rank else eb.copy()
         if fixes is not None:
             idx, ell_s, ep_s = fixes
@@ -518,24 +557,23 @@ def _refined_rows(state: FactorState, block: int):
     if state.full_row_rank:
         return None
     flagged = []
-    for s, e, ub in sample_space_blocks(state.u, state.fit_intercept, block):
-        flagged.append(s + np.flatnonzero(naive_ell(state, ub) < LEVERAGE_REFINE))
+    for s, e, ub in state_blocks(state, state.u, block):
+        flagged.append(s + np.flatnonzero(naive_ell(state, ub, s) < LEVERAGE_REFINE))
     idx = np.concatenate(flagged)
     if idx.size == 0:
         return None
     t = state.n_targets
-    ra = state.rank + int(state.fit_intercept)
+    ra = state.rank + state.n_fixed
     is_s = np.zeros(state.n_samples, dtype=bool)
     is_s[idx] = True
     ua_s = np.empty((idx.size, ra))
     y_s = np.empty((idx.size, t))
 
     def others():
-        yb_iter = sample_space_blocks(_centered_response(state), state.fit_intercept, block)
-        for (s, e, ub), (_, _, yb) in zip(sample_space_blocks(state.u, state.fit_intercept,
-                                                              block), yb_iter):
+        yb_iter = state_blocks(state, _centered_response(state), block)
+        for (s, e, ub), (_, _, yb) in zip(state_blocks(state, state.u, block), yb_iter):
             keep = ~is_s[s:e]
-            ua = _augment(state, ub)
+            ua = _augment(state, ub, s)
             sel = idx[(idx >= s) & (idx < e)]
             pos = np.searchsorted(idx, sel)
             ua_s[pos] = ua[sel - s]
@@ -603,16 +641,22 @@ def loo_mse(state: FactorState, lam) -> tuple[np.ndarray, np.ndarray]:
     blk = int(min(_BLOCK_ROWS, max(256, (1 << 19) // max(r, k * t, 1))))
     for _, _, rows in leverage_rows(state, blk):
         total += loo_sums(rows, sh, state.uty)
-    total /= state.n_samples
+    total /= state.total_weight
     return (total[:-1] if added else total), total[-1]
 
 
 def loo_residuals(state: FactorState, lam) -> np.ndarray:
-    """Exact leave-one-out residuals, shape (n, k, t) (in-memory state)."""
+    """Exact leave-one-out residuals :math:`y_i - \\hat y_{(-i)}`, shape (n, k, t) (in memory).
+
+    With row weights, those of the weighted refits without row i (the
+    transformed residual divided by :math:`\\sqrt{w_i}`).
+    """
     sh = shrinkage(state.d, lam)
     out = np.empty((state.n_samples, sh.lam.size, state.n_targets))
     for s, e, rows in leverage_rows(state):
         out[s:e] = _loo_res(rows, sh, state.uty)
+    if state.span is not None:
+        out /= state.span.sqrt_w[:, None, None]
     return out
 
 
@@ -641,12 +685,12 @@ def criteria(state: FactorState, lam, *, loo: bool = True) -> Criteria:
     Cost O(r k t), plus O(n r k t) for leave-one-out; no refit.
     """
     lam = _lam(lam)
-    n = state.n_samples
+    n = state.total_weight
     full, added = append_zero(lam)
     sh = shrinkage(state.d, full)
     g = gcv(state, full, sh)
     train = rss(state, full, sh) / n
-    df = state.fit_intercept + sh.f.sum(axis=0)
+    df = state.n_fixed + sh.f.sum(axis=0)
     looo = loo0 = None
     if loo and state.u is not None:
         looo, loo0 = loo_mse(state, lam)
@@ -687,6 +731,8 @@ def coefficients(state: FactorState, lam, design) -> np.ndarray:
     """
     lam = _lam(lam)
     g = gains(state.d, lam)
+    if state.span is not None:
+        return _span_coefficients(state, g, design)
     k, t = lam.size, state.n_targets
     act = design.active
     inv_scale = 1.0 / design.x_scale[act]
@@ -702,6 +748,24 @@ def coefficients(state: FactorState, lam, design) -> np.ndarray:
         if scaled:
             cj *= inv_scale
         coef[:, act, j] = cj
+    return coef
+
+
+def _span_coefficients(state: FactorState, g: np.ndarray, design) -> np.ndarray:
+    """Coefficients (k, p, t) with a span: penalized ones from the factors, the
+    unpenalized ones :math:`R^{-1}(Q_1^T \\tilde y - Q_1^T \\tilde X \\beta)`.
+
+    The span's intercept coefficient is zero up to rounding (the columns and
+    the response are weighted-centered first), so :func:`intercepts` applies.
+    """
+    k, t = g.shape[1], state.n_targets
+    beta = np.einsum("rq,rk,rt->qkt", state.vt, g, state.uty)  # (q, k, t)
+    fixed = state.span.fixed_coef(beta)[int(state.span.intercept):]  # (c', k, t)
+    coef = np.zeros((k, design.n_features, t))
+    act, unp = design.active, design.unpenalized
+    coef[:, act, :] = np.moveaxis(beta / design.x_scale[act][:, None, None], 0, 1)
+    if unp is not None and unp.any():
+        coef[:, unp, :] = np.moveaxis(fixed / design.x_scale[unp][:, None, None], 0, 1)
     return coef
 
 
@@ -723,6 +787,8 @@ def min_norm_coefficients(state: FactorState, design):
     is the min-norm coefficient norm); ``coef`` the same on the original scale.
     """
     beta0 = (state.uty / state.d[:, None]).T @ state.vt  # (t, q)
+    if state.span is not None:
+        return _span_coefficients(state, (1.0 / state.d)[:, None], design)[0], beta0
     coef0 = np.zeros((design.n_features, state.n_targets))
     coef0[design.active] = (beta0 / design.x_scale[design.active]).T
     return coef0, beta0
