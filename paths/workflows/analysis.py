@@ -16,7 +16,8 @@ from paths.data.synthetic import split_holdout
 from paths.data.tables import Dataset, load_dataset, sha256_of
 from paths.data.output import OutputFolder, write_csv, write_json
 from paths.core.path import RidgePath, fit_path
-from paths.present.summary import coefficient_table, path_table, selections, summary_dict
+from paths.present.summary import (add_choice_errors, coefficient_table, model_table, path_table,
+                                   reported_lambdas, selections, summary_dict)
 
 __all__ = ["ExploreRun", "explore", "load_data", "read_groups", "explore_engine", "ENGINES",
            "write_saved_fit"]
@@ -100,7 +101,7 @@ def explore(
     rule: str | None = None,
     formats=("png", "svg"),
     width: str = "single",
-    x_axis: str = "log_lambda",
+    x_axis: str = "df",
     report: bool = True,
     extra: dict | None = None,
     inputs=(),
@@ -199,11 +200,14 @@ def explore(
                 for j, name in enumerate(data.target_names)
             }
         summary.update(extra or {})
+        add_choice_errors(summary, result, X_train=X, X_test=X_test, y_test=y_test)
         summary["report"] = report_numbers(summary)
         files = [
             write_csv(out / "path.csv", *_per_target(path_table, result, data.target_names)),
             write_csv(out / "coefficients.csv",
                       *_per_target(coefficient_table, result, data.target_names)),
+            write_csv(out / "model.csv", *model_table(result, reported_lambdas(summary),
+                                                     data.target_names)),
             write_json(out / "summary.json", summary),
             write_saved_fit(out / "fit.npz", result, selection, data, input_sha256),
         ]
@@ -361,7 +365,7 @@ def explore_engine(
     command_line: list[str] | None = None,
     formats=(),
     width: str = "single",
-    x_axis: str = "log_lambda",
+    x_axis: str = "df",
     report: bool = False,
 ) -> ExploreRun:
     """:func:`explore` for data that need not fit in memory: ``engine`` "stream" or "dask".
