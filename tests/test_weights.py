@@ -243,3 +243,44 @@ def test_estimator_sample_weight_matches_sklearn():
     tol = 1e3 * 40 * kappa ** 2 * EPS * np.abs(ref.coef_).max()
     assert_allclose(est.coef_, ref.coef_, rtol=0, atol=tol)
     assert_allclose(est.predict(X), ref.predict(X), rtol=0, atol=10 * tol * np.abs(X).max())
+
+
+# ------------------------------------------------------------------ command line
+def test_cli_weights_unpenalized_and_refusals(tmp_path):
+    """explore --weights/--unpenalized/--relative-penalty: coefficients at the reported penalty
+    against the augmented least-squares solve on the weighted-standardized columns; engines and
+    bad specs refused in one line (exit 2)."""
+    import json
+
+    import pandas as pd
+    from typer.testing import CliRunner
+
+    from paths.cli import app
+    from paths.present.fitfile import load_fit
+
+    runner = CliRunner()
+    X, y, w = _data(40, 6, seed=13)
+    cols = ["age", "g1", "g2", "g3", "g4", "g5"]
+    pd.DataFrame(X, columns=cols).assign(y=y, w=w).to_csv(tmp_path / "d.csv", index=False)
+    out = tmp_path / "o"
+    r = runner.invoke(app, ["explore", str(tmp_path / "d.csv"), "-t", "y", "--weights", "w",
+                            "--unpenalized", "age", "--relative-penalty", "g2=3",
+                            "--no-report", "--format", "svg", "-o", str(out)])
+    assert r.exit_code == 0, r.output
+    s = json.loads((out / "summary.json").read_text())
+    assert s["unpenalized"] == ["age"] and s["weighted"] and s["relative_penalty"] == {"g2": 3.0}
+    fit = load_fit(out / "fit.npz")
+    lam = float(fit.reported_lambda[0])
+    mu = np.average(X, axis=0, weights=w)
+    sd = np.sqrt(np.average((X - mu) ** 2, axis=0, weights=w))
+    factor = np.array([1, 1, 3, 1, 1, 1.0])
+    b0, beta, kappa = _augmented(X / sd, y, w, lam, unpen=[0], factor=factor)
+    tol = 1e3 * 40 * kappa * EPS * np.abs(beta).max()
+    assert_allclose(fit.coef * sd, beta, rtol=0, atol=tol)
+    for args, pattern in [(["--engine", "stream"], "not available with --engine stream"),
+                          (["--relative-penalty", "g2=0"], "PATTERN=W"),
+                          (["--unpenalized", "zzz"], "matches no column")]:
+        r = runner.invoke(app, ["explore", str(tmp_path / "d.csv"), "-t", "y", "--weights", "w",
+                                "-o", str(tmp_path / "x"), *args])
+        assert r.exit_code == 2 and pattern in r.output
+        assert len(r.output.strip().splitlines()) == 1
