@@ -19,7 +19,8 @@ from paths.core.path import RidgePath, fit_path
 from paths.present.summary import (add_choice_errors, coefficient_table, model_table, path_table,
                                    reported_lambdas, selections, summary_dict)
 
-__all__ = ["ExploreRun", "explore", "load_data", "read_groups", "explore_engine", "ENGINES",
+__all__ = ["ExploreRun", "explore", "load_data", "read_groups", "read_weights",
+           "parse_relative_penalties", "explore_engine", "ENGINES",
            "write_saved_fit"]
 
 
@@ -68,6 +69,53 @@ def read_groups(path, column: str, *, sep=None) -> np.ndarray:
     return values.to_numpy()
 
 
+def read_weights(path, column: str, *, sep=None, required: bool = True):
+    """The row weights in column ``column`` of a data file (``--weights``), or None.
+
+    Refused in one line: a missing column (when ``required``), missing,
+    non-numeric, infinite, zero or negative values.  The column must also be
+    left out of the features (``exclude=[column]``).
+    """
+    from paths.data.validation import InputError, as_weights
+    from paths.data.tables import read_table
+
+    frame = read_table(path, sep=sep)
+    if column not in frame.columns:
+        if not required:
+            return None
+        raise InputError(f"{path}: --weights column {column!r} not found; columns are: "
+                         f"{', '.join(map(str, list(frame.columns)[:8]))}")
+    import pandas as pd
+
+    values = pd.to_numeric(frame[column], errors="coerce")
+    if values.isna().any():
+        i = int(np.flatnonzero(values.isna().to_numpy())[0])
+        raise InputError(f"{path}: --weights column {column!r} has a missing or non-numeric "
+                         f"value ({frame[column].iloc[i]!r}, data row {i + 1}); give every row "
+                         "a positive weight")
+    return as_weights(values.to_numpy(dtype=float), len(values), f"{path}: --weights {column!r}")
+
+
+def parse_relative_penalties(specs) -> dict | None:
+    """``["gene_*=2", "age=0.5"]`` → ``{"gene_*": 2.0, "age": 0.5}`` (``--relative-penalty``)."""
+    from paths.data.validation import InputError
+
+    if not specs:
+        return None
+    out = {}
+    for spec in specs:
+        pattern, eq, value = str(spec).rpartition("=")
+        try:
+            w = float(value)
+        except ValueError:
+            w = None
+        if not eq or not pattern or w is None or not (np.isfinite(w) and w > 0):
+            raise InputError(f"--relative-penalty takes PATTERN=W with W a number > 0 (e.g. "
+                             f"'gene_*=2'); got {spec!r}")
+        out[pattern] = w
+    return out
+
+
 def _per_target(table, result: RidgePath, targets) -> tuple[list, list]:
     """One table for one target; for several, the rows of each stacked under a ``target`` column."""
     if len(targets) == 1:
@@ -105,6 +153,10 @@ def explore(
     report: bool = True,
     extra: dict | None = None,
     inputs=(),
+    weights=None,
+    test_weights=None,
+    unpenalized=None,
+    relative_penalty=None,
 ) -> ExploreRun:
     """Fit the whole path on ``data`` and write ``path.csv``, ``coefficients.csv``, ``summary.json``.
 
@@ -137,6 +189,11 @@ def explore(
     inputs : iterable of paths, optional
         Files the run read besides those in ``input_sha256`` (e.g. a case file): no
         output may overwrite them (:class:`paths.data.output.OutputFolder`).
+    weights, test_weights : array_like, optional
+        Row weights of ``data`` (split with ``holdout``) and of ``test``
+        (:func:`paths.path.fit_path` ``sample_weight`` / ``test_weight``).
+    unpenalized, relative_penalty
+        Columns left unpenalized, relative penalties (:func:`paths.path.fit_path`).
     """
     from paths.data.validation import InputError
     from paths.present.figures import parse_formats, parse_width
@@ -166,16 +223,21 @@ def explore(
             train, held = split_holdout(X.shape[0], holdout, seed)
             X, y, X_test, y_test = X[train], y[train], X[held], y[held]
             split = {"holdout": holdout, "seed": seed, "n_test": int(held.size)}
+            if weights is not None:
+                weights, test_weights = np.asarray(weights)[train], np.asarray(weights)[held]
             if groups is not None and len(groups) == data.X.shape[0]:
                 groups = np.asarray(groups)[train]
         import pandas as pd
 
         frame = pd.DataFrame(X, columns=data.feature_names)
         result = fit_path(frame, y, n_lambdas=n_lambdas, standardize=standardize, solver=solver,
-                          X_test=X_test, y_test=y_test)
+                          X_test=X_test, y_test=y_test, sample_weight=weights,
+                          test_weight=test_weights if X_test is not None else None,
+                          unpenalized=unpenalized, relative_penalty=relative_penalty)
         selection, cv_record, cv_res = _selection(result, X, y, cv=cv, repeats=repeats, groups=groups,
                                                   folds=folds, cv_scaling=cv_scaling, seed=seed,
                                                   rule=rule)
+        summary_extra = _penalty_record(result, relative_penalty)
         summary = summary_dict(
             result,
             target=data.target_names[0] if len(data.target_names) == 1 else data.target_names,
@@ -190,6 +252,7 @@ def explore(
             cv=cv_record,
         )
         summary["selected"] = {**summary["selected"], **selection.as_dict(0)}
+        summary.update(summary_extra)
         if len(data.target_names) > 1:
             summary["targets"] = list(data.target_names)
             summary["by_target"] = {
@@ -216,6 +279,13 @@ def explore(
                                            width=width, x=x_axis, report=report)
     return ExploreRun(result=result, summary=summary, out_dir=folder.target,
                       files=folder.final_paths(files), selection=selection, cv=cv_res)
+
+
+def _penalty_record(result: RidgePath, relative_penalty) -> dict:
+    """summary.json keys for row weights, unpenalized columns and relative penalties."""
+    return {"weighted": bool(result.weighted), "unpenalized": list(result.unpenalized),
+            "relative_penalty": {str(k): float(v) for k, v in (
+                relative_penalty.items() if isinstance(relative_penalty, dict) else [])}}
 
 
 def write_saved_fit(dest: Path, result: RidgePath, selection, data: Dataset,
@@ -308,17 +378,30 @@ def _columns_and_shape(path: Path, sep=None):
             raise InputError(f"{path}: not a readable Parquet file ({exc}); check the file") from None
         return names, rows
     if suffix == ".npy":
-        arr = np.load(path, mmap_mode="r")
+        try:
+            arr = np.load(path, mmap_mode="r", allow_pickle=False)
+        except (ValueError, OSError, EOFError) as exc:  # object (pickled), truncated, not .npy
+            msg = " ".join(str(exc).split())[:160] or type(exc).__name__
+            raise InputError(f"{path} is not a readable NumPy file ({msg}); save it with "
+                             "numpy.save, without object arrays") from None
+        if arr.ndim != 2:
+            raise InputError(f"{path}: the array has shape {arr.shape}; the streaming engines "
+                             "read a 2-D array (rows x columns)")
         return None, int(arr.shape[0])
     import pandas as pd
 
     if sep is None:
         sep = "\t" if suffix in (".tsv", ".tab") else ","
     try:
-        return [str(c) for c in pd.read_csv(path, sep=sep, nrows=0).columns], None
+        names = [str(c) for c in pd.read_csv(path, sep=sep, nrows=0).columns]
     except Exception as exc:  # noqa: BLE001
         raise InputError(f"{path} could not be read ({type(exc).__name__}); check the delimiter "
                          "(--sep) and that it is UTF-8 text") from None
+    with open(path, "rb") as fh:  # a header without data rows: refused here, not mid-pass
+        fh.readline()
+        if not any(line.strip() for line in fh):
+            raise InputError(f"{path} has a header row but no data rows; add data rows")
+    return names, None
 
 
 def _resolve_features(names, targets, features, exclude):
@@ -386,6 +469,9 @@ def explore_engine(
     path = Path(data)
     if not path.exists():
         raise InputError(f"{path}: no such file or folder; check the path")
+    if not (path.is_file() or path.is_dir()):  # a FIFO or device would block the reader
+        raise InputError(f"{path} is not a regular file (a pipe or a device); save the data "
+                         "to a file and pass that")
     targets = [x for t in ([target] if isinstance(target, str) else list(target))
                for x in str(t).split(",") if x]
     folder = OutputFolder(out_dir, force=force, inputs=[path, *([] if test is None else [test])])
@@ -434,9 +520,14 @@ def explore_engine(
         else:
             from paths.engines.dask_cluster import dask_path
 
-            result = dask_path(path, target=targets, features=feats, chunk_rows=chunk_rows,
+            # a remote scheduler's workers do not share our working folder: absolute paths
+            remote = scheduler is not None
+            result = dask_path(path.resolve() if remote else path, target=targets,
+                               features=feats, chunk_rows=chunk_rows,
                                accurate=accurate, scheduler=scheduler, timeout=timeout,
-                               standardize=standardize, test=test, n_lambdas=n_lambdas, cv=cv,
+                               standardize=standardize,
+                               test=Path(test).resolve() if remote and test is not None else test,
+                               n_lambdas=n_lambdas, cv=cv,
                                cv_seed=cv_seed, rank=rank, progress=progress)
         cv_record = None
         if result.cv_mse is not None:
