@@ -17,6 +17,10 @@ from paths.data.validation import InputError
 from paths.core.design import prepare
 from paths.core.factor import factorize
 
+# numerical reference checks (mpmath, scikit-learn, numpy, published bounds): CI reruns
+# them under a forced OpenBLAS kernel (.ci/run)
+pytestmark = pytest.mark.reference
+
 EPS = np.finfo(np.float64).eps
 
 
