@@ -334,6 +334,9 @@ def check_response_bounds(lo, hi, n: int, *, fit_intercept: bool, names=None) ->
     for j in range(lo.size):
         label = (f"target {names[j]!r}" if names is not None
                  else ("y" if lo.size == 1 else f"target column {j}"))
+        if spread[j] == 0 and (fit_intercept or absmax[j] == 0):
+            raise InputError(f"{label} is constant (every value {float(lo[j]):g}); there is "
+                             "nothing to fit — check the target column")
         if (fit_intercept and spread[j] <= n * _EPS * absmax[j]) or absmax[j] == 0:
             raise InputError(
                 f"{label} is constant up to rounding (values within {spread[j]:.3g} of "
