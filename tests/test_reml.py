@@ -187,3 +187,25 @@ def test_rule_fields_and_targets(make_problem):
         rec = sel.as_dict()
         assert {"noise_variance", "signal_variance", "variance_explained",
                 "lambda_interval"} <= set(rec)
+
+
+def test_maximum_at_interpolation_limit():
+    """Nearly noise-free wide data: the likelihood can peak at lambda -> 0+ (full row
+    rank, finite limit).  The variances are then the limits of the formulas (noise
+    -> 0, signal finite), approached continuously from lambda > 0 (first order in
+    lambda / d_r^2), the interval starts at 0, and the record is valid JSON."""
+    import json
+
+    from paths.selection.reml import reml_variances
+
+    rng = np.random.default_rng(7)
+    X = rng.standard_normal((30, 45)) * rng.uniform(0.5, 3.0, 45)
+    y = X[:, :3] @ np.array([1.0, -0.5, 0.25]) + 1e-3 * rng.standard_normal(30)
+    path = fit_path(X, y)
+    sel = select_penalty(path).rules["reml"]
+    assert sel.lam == 0.0 and sel.noise_variance == 0.0
+    lam = 1e-9 * path.singular_values[-1] ** 2
+    noise, signal = reml_variances(path.factorization, path.design, path.uty, lam)
+    assert abs(signal - sel.signal_variance) <= 1e-8 * 30 * signal
+    assert sel.lam_interval[0] == 0.0 and sel.lam_interval[1] > 0
+    json.dumps(sel.as_dict(), allow_nan=False)

@@ -22,6 +22,7 @@ from pathlib import Path
 from paths.data.output import write_text
 
 __all__ = ["FigureRef", "report_numbers", "diagnosis", "methods_paragraph", "rules_table",
+           "intervals_section",
            "cautions", "render_markdown", "render_html", "write_report", "fmt"]
 
 RULE_NAMES = {
@@ -33,12 +34,14 @@ RULE_NAMES = {
     "hkb": "the Hoerl–Kennard–Baldwin (1975) constant",
     "lw": "the Lawless–Wang (1976) constant",
     "isotropic": "the isotropic random-matrix plug-in (Dobriban & Wager 2018)",
+    "reml": "restricted maximum likelihood of the random-effects model (REML; Patterson & "
+            "Thompson 1971, Harville 1977)",
     "df": "a target effective degrees of freedom",
     "fraction": "a target shrinkage fraction of the min-norm coefficient norm",
     "test": "minimum test error (an oracle: it looks at the test rows)",
 }
 SHORT = {"gcv": "GCV", "loo": "LOO", "cv": "K-fold CV", "one_se": "one-SE", "one-se": "one-SE",
-         "hkb": "HKB", "lw": "LW", "isotropic": "isotropic", "df": "target df",
+         "hkb": "HKB", "lw": "LW", "isotropic": "isotropic", "reml": "REML", "df": "target df",
          "fraction": "target fraction", "test": "test (oracle)"}
 _PREFERENCE = ("cv", "one_se", "one-se", "loo", "gcv")
 
@@ -115,7 +118,10 @@ def report_numbers(summary: dict) -> dict:
     dfs = summary["df"]
     idx = sel.get("index")
     if idx is None:
-        idx = min(range(len(lams)), key=lambda i: abs(math.log(lams[i]) - math.log(sel["lambda"])))
+        # nearest grid penalty on the log scale (lambda = 0, the min-norm limit: the smallest)
+        tiny = min([v for v in lams if v > 0], default=1.0) * 1e-300
+        idx = min(range(len(lams)), key=lambda i: abs(math.log(max(lams[i], tiny))
+                                                      - math.log(max(sel["lambda"], tiny))))
     norms = summary.get("coef_norm") or []
     mn_norm = _first((summary.get("min_norm") or {}).get("coef_norm"))
     fraction = _first(sel.get("fraction"))
@@ -319,6 +325,31 @@ def methods_paragraph(summary: dict) -> str:
     return " ".join(parts)
 
 
+def intervals_section(summary: dict) -> list:
+    """Sentences on the prediction intervals of the run (empty without ``--intervals``):
+    the method, its guarantee with its assumption, and what the test rows showed."""
+    rec = summary.get("intervals")
+    if not rec:
+        return []
+    names = {"jackknife+": "jackknife+ (Barber, Candès, Ramdas & Tibshirani 2021)",
+             "cv+": f"CV+ with {rec.get('n_folds')} folds (Barber et al. 2021)",
+             "split": f"split conformal with {rec.get('n_calibration')} calibration rows "
+                      "(Lei et al. 2018)"}
+    cov, wid, lam = rec["coverage"], rec["mean_width"], rec["lambda"]
+    many = isinstance(cov, list)
+    show = (lambda v: ", ".join(fmt(x) for x in v)) if many else fmt  # noqa: E731
+    return [
+        f"Prediction intervals at level {fmt(rec['level'])} by "
+        f"{names.get(rec['method'], rec['method'])}, at the reported penalty lambda = "
+        f"{show(lam)}, from the one factorization (no refits).",
+        f"Guarantee: {rec['guarantee']}; exchangeable means the new rows come from the same "
+        "population as the training rows, drawn the same way. It does not hold for rows from "
+        "another site, time or instrument.",
+        f"On the {fmt(rec['n_test'])} test rows, {show(cov)} of the responses fell inside their "
+        f"interval (mean width {show(wid)}); intervals.csv lists every row.",
+    ]
+
+
 def cautions(summary: dict) -> list:
     out = [
         "A penalty chosen on the data makes the chosen model's in-sample criteria (GCV, "
@@ -381,6 +412,8 @@ def render_markdown(summary: dict, figures=()) -> str:
     h, rows = rules_table(summary)
     L += ["", "## Selection rules", "", "| " + " | ".join(h) + " |", "|" + "---|" * len(h)]
     L += ["| " + " | ".join(map(_md, r)) + " |" for r in rows]
+    if summary.get("intervals"):
+        L += ["", "## Prediction intervals", ""] + [f"- {s}" for s in intervals_section(summary)]
     if figures:
         L += ["", "## Figures", ""]
         for f in figures:
@@ -452,6 +485,9 @@ def render_html(summary: dict, figures=()) -> str:
     B += ["<h2>Diagnosis</h2>", "<ul>"] + [f"<li>{e(s)}</li>" for s in diagnosis(summary)] + ["</ul>"]
     h, rows = rules_table(summary)
     B += ["<h2>Selection rules</h2>", table(rows, h)]
+    if summary.get("intervals"):
+        B += ["<h2>Prediction intervals</h2>", "<ul>"] + [
+            f"<li>{e(s)}</li>" for s in intervals_section(summary)] + ["</ul>"]
     B += _figures_html(figures, e)
     B += ["<h2>Methods paragraph</h2>", f'<p class="methods">{e(methods_paragraph(summary))}</p>',
           "<h2>Cautions</h2>", '<ul class="caution">']

@@ -153,16 +153,22 @@ def reml_loglik(path, lam=None) -> np.ndarray:
 
 
 def reml_variances(fac, design, uty, lam: float, target: int = 0) -> tuple[float, float]:
-    """``(noise variance, signal variance)`` at penalty ``lam`` > 0 for one target.
+    """``(noise variance, signal variance)`` at penalty ``lam`` for one target.
 
     :math:`\\hat\\sigma^2 = r^T H^{-1} r/m` and :math:`\\hat\\sigma^2 \\sum_j d_j^2/(\\lambda m)`;
-    at ``lam = inf`` the signal variance is 0.
+    at ``lam = inf`` the signal variance is 0; at ``lam = 0`` (full row rank) the
+    noise variance is 0 and the signal variance its limit
+    :math:`\\sum_j c_j^2 d_j^{-2} \\sum_j d_j^2 / m^2`.
     """
     m, c, outside = _dims(fac, design, uty, target)
     d2 = np.square(fac.d)
     cj = c[:, 0]
     if np.isinf(lam):
         return float((cj @ cj + outside[0]) / m), 0.0
+    if lam == 0:  # full row rank: sigma^2 -> 0 while sigma^2 / lambda -> sum c^2/d^2 / m
+        if outside[0] > 0 or d2.size < m:
+            return float(outside[0]) / max(m - d2.size, 1), 0.0
+        return 0.0, float(np.sum(np.square(cj) / d2) * np.sum(d2)) / m ** 2
     q = float(np.sum(np.square(cj) * (lam / (d2 + lam))) + outside[0])
     sigma2 = q / m
     return sigma2, sigma2 * float(np.sum(d2)) / (lam * m)
@@ -186,13 +192,13 @@ def reml_interval(fac, design, uty, lam_hat: float, target: int = 0, *,
     d2 = np.square(fac.d)
     ends = []
     for direction, limit in ((-1.0, 0.0), (1.0, np.inf)):
-        if not np.isfinite(lam_hat) or lam_hat == 0:
+        if lam_hat == limit:
             ends.append(lam_hat)
             continue
         if prof(limit) >= cut:
             ends.append(limit)
             continue
-        t0, t1 = np.log(lam_hat), np.log(lam_hat)
+        t0 = t1 = np.log(lam_hat if lam_hat > 0 else 1e-6 * d2[-1])
         span = np.log(d2[0] / d2[-1]) + 60.0  # far past the spectrum, where the profile is flat
         while prof(np.exp(t1)) >= cut and abs(t1 - t0) < span:
             t1 += direction * 2.0
@@ -284,9 +290,8 @@ def reml_estimate(path, target: int = 0, *, n_grid: int = 400) -> RemlEstimate:
                               bounds=(lo, hi), method="bounded", options={"xatol": 1e-8})
         lam, top = (float(np.exp(res.x)), -float(res.fun)) if -res.fun >= vals[i] else (
             float(grid[i]), float(vals[i]))
-    sigma2, signal = reml_variances(fac, design, c, lam, target) if lam > 0 else (
-        reml_variances(fac, design, c, 1e-300, target)[0], np.inf)
+    sigma2, signal = reml_variances(fac, design, c, lam, target)
     interval = reml_interval(fac, design, c, lam, target)
-    share = signal / (signal + sigma2) if np.isfinite(signal) else 1.0
+    share = signal / (signal + sigma2)
     return RemlEstimate(lam=lam, loglik=top, noise_variance=sigma2, signal_variance=signal,
                         variance_explained=float(share), lam_interval=interval, note=note)

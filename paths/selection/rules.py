@@ -755,9 +755,13 @@ def _select_one(path, cv, j, g, sigma2, noise, df_target, fraction_target):
 def _reml(path, j, cv) -> RemlSelection:
     """The REML maximum (:func:`paths.selection.reml.reml_estimate`) as a rule's choice."""
     est = reml_estimate(path, j)
+    lo, hi = est.lam_interval
+    summary = (f"noise variance {est.noise_variance:.4g}, signal variance "
+               f"{est.signal_variance:.4g} ({100 * est.variance_explained:.1f}% of the variance "
+               f"explained); approximate 95% likelihood-ratio interval for lambda "
+               f"[{lo:.3g}, {hi:.3g}]")
     note = "; ".join(x for x in ("Patterson & Thompson (1971), Harville (1977); random-effects "
-                                 "model, approximate 95% likelihood-ratio interval for lambda",
-                                 est.note) if x)
+                                 "model", summary, est.note) if x)
     sel = _make(path, "reml", est.lam, j, cv=cv, refined=True, note=note)
     return RemlSelection(**vars(sel), noise_variance=est.noise_variance,
                          signal_variance=est.signal_variance,

@@ -118,6 +118,8 @@ def explore(
     x_axis: str = "log_lambda",
     report: bool = True,
     extra: dict | None = None,
+    intervals: float | None = None,
+    interval_method: str = "jackknife+",
 ) -> ExploreRun:
     """Fit the whole path on ``data`` and write ``path.csv``, ``coefficients.csv``, ``summary.json``.
 
@@ -147,6 +149,13 @@ def explore(
         ``report.html`` (:mod:`paths.report`) when ``report``.
     extra : dict, optional
         Keys added verbatim to ``summary.json`` (e.g. a case's name and description).
+    intervals : float, optional
+        Prediction intervals at this level for the test rows
+        (:func:`paths.selection.intervals.prediction_intervals`, at the reported
+        rule's penalty): ``intervals.csv`` and ``summary.json["intervals"]``.
+        Needs ``test`` or ``holdout``.
+    interval_method : {"jackknife+", "cv+", "split"}
+        CV+ uses the K-fold partition of ``cv`` when given (else 10 seeded folds).
     """
     from paths.data.validation import InputError
     from paths.present.figures import parse_formats, parse_width
@@ -159,8 +168,11 @@ def explore(
 
     if test is not None and holdout is not None:
         raise InputError("pass either --test or --holdout, not both")
+    if intervals is not None and test is None and holdout is None:
+        raise InputError("--intervals needs test rows: pass --test FILE or --holdout FRACTION")
     out = prepare_out_dir(out_dir, force=force)
     X, y = data.X, data.y
+    test_rows = None
     X_test = y_test = None
     split = None
     if test is not None:
@@ -170,8 +182,10 @@ def explore(
                              f"{', '.join(missing[:5])}; give it the training columns")
         order = [test.feature_names.index(c) for c in data.feature_names]
         X_test, y_test = test.X[:, order], test.y
+        test_rows = test.rows if test.rows is not None else np.arange(test.X.shape[0])
     elif holdout is not None:
         train, held = split_holdout(X.shape[0], holdout, seed)
+        test_rows = held if data.rows is None else data.rows[held]
         X, y, X_test, y_test = X[train], y[train], X[held], y[held]
         split = {"holdout": holdout, "seed": seed, "n_test": int(held.size)}
         if groups is not None and len(groups) == data.X.shape[0]:
@@ -207,15 +221,29 @@ def explore(
                        for k in summary["min_norm"]}}
             for j, name in enumerate(data.target_names)
         }
+    interval_file = None
+    if intervals is not None:
+        from paths.present.summary import interval_record, interval_table
+        from paths.selection.intervals import prediction_intervals
+
+        pi = prediction_intervals(
+            result, X_test, selection.chosen_lambdas(), level=intervals, method=interval_method,
+            folds=cv_res.labels[0] if cv_res is not None and interval_method == "cv+" else None,
+            seed=seed)
+        summary["intervals"] = interval_record(pi, y_test)
+        interval_file = interval_table(pi, [int(r) for r in test_rows], data.target_names)
     summary.update(extra or {})
     summary["report"] = report_numbers(summary)
-    _guard_inputs(out, ("path.csv", "coefficients.csv", "summary.json"), (input_sha256 or {}))
+    _guard_inputs(out, ("path.csv", "coefficients.csv", "summary.json", "intervals.csv"),
+                  (input_sha256 or {}))
     files = [
         write_csv(out / "path.csv", *_per_target(path_table, result, data.target_names)),
         write_csv(out / "coefficients.csv",
                   *_per_target(coefficient_table, result, data.target_names)),
         write_json(out / "summary.json", summary),
     ]
+    if interval_file is not None:
+        files.append(write_csv(out / "intervals.csv", *interval_file))
     if formats or report:
         files += write_explore_outputs(result, summary, out, cv=cv_res, formats=formats or (),
                                        width=width, x=x_axis, report=report)
