@@ -9,7 +9,7 @@ import numpy as np
 import typer
 from rich.table import Table
 
-from paths.data.output import prepare_out_dir, write_csv, write_json
+from paths.data.output import OutputFolder, write_csv, write_json
 from paths.threshold.plan import plan, plan_summary, plan_table
 from paths.present.summary import versions
 from paths.cli.app import command, console
@@ -67,14 +67,18 @@ def plan_cmd(
     if features is None:
         raise InputError("give the number of features (--features P) or a --pilot file")
     spec = _read_spectrum(spectrum) if spectrum is not None else None
-    out_dir = prepare_out_dir(out, force=force)
-    res = plan(features, snr=snr, noise_variance=noise_variance,
-               signal_variance=signal_variance, spectrum=spec, tolerance=within / 100.0,
-               source=source)
-    summary = plan_summary(res, input_sha256=digests, versions=versions(),
-                           command_line=shlex.join(["paths", *sys.argv[1:]]))
-    files = [write_csv(out_dir / "plan.csv", *plan_table(res)),
-             write_json(out_dir / "plan.json", summary)]
+    inputs = [p for p in (pilot, spectrum) if p is not None]
+    folder = OutputFolder(out, force=force, inputs=inputs)
+    with folder:
+        out_dir = folder.stage
+        res = plan(features, snr=snr, noise_variance=noise_variance,
+                   signal_variance=signal_variance, spectrum=spec, tolerance=within / 100.0,
+                   source=source)
+        summary = plan_summary(res, input_sha256=digests, versions=versions(),
+                               command_line=shlex.join(["paths", *sys.argv[1:]]))
+        files = [write_csv(out_dir / "plan.csv", *plan_table(res)),
+                 write_json(out_dir / "plan.json", summary)]
+    files, out_dir = folder.final_paths(files), folder.target
     t = Table(title="sample-size plan (predicted from the risk formulas)", show_header=False,
               title_justify="left")
     t.add_column("quantity")

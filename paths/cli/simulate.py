@@ -8,7 +8,7 @@ from pathlib import Path
 
 import typer
 
-from paths.data.output import prepare_out_dir, write_csv, write_json
+from paths.data.output import OutputFolder, write_csv, write_json
 from paths.threshold.simulate import bias_variance_table, make_truth, simulate
 from paths.present.summary import versions
 from paths.threshold.sweep import threshold_summary, threshold_table
@@ -63,30 +63,32 @@ def simulate_cmd(
                        spike_strength=spike_strength, coefficients=coefficients.value,
                        sparsity=sparsity, snr=snr, noise_variance=noise_variance, seed=seed)
     console.print(f"[bold]simulate:[/] {truth.description}")
-    out_dir = prepare_out_dir(out, force=force)
-    sim = run_with_progress("simulate", lambda cb: simulate(
-        n, truth, n_test=n_test, over=over.value, order=order.value, repeats=repeats, seed=seed,
-        n_points=points, ridge_lambda=ridge_lambda, ridge_df_fraction=ridge_df_fraction,
-        band=band.value, progress=cb))
-    summary = threshold_summary(
-        sim.sweep, source=truth.description, synthetic=True,
-        truth={"covariance": truth.covariance_kind, "coefficients": truth.coefficient_kind,
-               "snr": truth.snr, "noise_variance": truth.noise_variance,
-               "signal_variance": truth.signal_variance, "p": truth.n_features},
-        exact={"methods": list(sim.sweep.methods),
-               "bias2_mean": [[None if v != v else float(v) for v in row]
-                              for row in sim.bias2.mean(axis=0).T],
-               "variance_mean": [[None if v != v else float(v) for v in row]
-                                 for row in sim.variance.mean(axis=0).T],
-               "exact_test_mse_mean": [[None if v != v else float(v) for v in row]
-                                       for row in sim.exact_test_mse.mean(axis=0).T],
-               "note": "exact bias^2 and variance conditional on each training design, over "
-                       "the noise and a new observation; rows follow methods, columns the "
-                       "points; GCV/oracle penalties held fixed"},
-        command_line=shlex.join(["paths", *sys.argv[1:]]), versions=versions())
-    files = [write_csv(out_dir / "threshold.csv", *threshold_table(sim.sweep)),
-             write_json(out_dir / "threshold.json", summary),
-             write_csv(out_dir / "bias_variance.csv", *bias_variance_table(sim))]
-    if report:
-        files += write_report(sim, summary, out_dir)
-    print_threshold(summary, files, out_dir)
+    folder = OutputFolder(out, force=force)
+    with folder:
+        out_dir = folder.stage
+        sim = run_with_progress("simulate", lambda cb: simulate(
+            n, truth, n_test=n_test, over=over.value, order=order.value, repeats=repeats, seed=seed,
+            n_points=points, ridge_lambda=ridge_lambda, ridge_df_fraction=ridge_df_fraction,
+            band=band.value, progress=cb))
+        summary = threshold_summary(
+            sim.sweep, source=truth.description, synthetic=True,
+            truth={"covariance": truth.covariance_kind, "coefficients": truth.coefficient_kind,
+                   "snr": truth.snr, "noise_variance": truth.noise_variance,
+                   "signal_variance": truth.signal_variance, "p": truth.n_features},
+            exact={"methods": list(sim.sweep.methods),
+                   "bias2_mean": [[None if v != v else float(v) for v in row]
+                                  for row in sim.bias2.mean(axis=0).T],
+                   "variance_mean": [[None if v != v else float(v) for v in row]
+                                     for row in sim.variance.mean(axis=0).T],
+                   "exact_test_mse_mean": [[None if v != v else float(v) for v in row]
+                                           for row in sim.exact_test_mse.mean(axis=0).T],
+                   "note": "exact bias^2 and variance conditional on each training design, over "
+                           "the noise and a new observation; rows follow methods, columns the "
+                           "points; GCV/oracle penalties held fixed"},
+            command_line=shlex.join(["paths", *sys.argv[1:]]), versions=versions())
+        files = [write_csv(out_dir / "threshold.csv", *threshold_table(sim.sweep)),
+                 write_json(out_dir / "threshold.json", summary),
+                 write_csv(out_dir / "bias_variance.csv", *bias_variance_table(sim))]
+        if report:
+            files += write_report(sim, summary, out_dir)
+    print_threshold(summary, folder.final_paths(files), folder.target)

@@ -12,7 +12,7 @@ from rich.table import Table
 
 from paths.workflows.analysis import load_data
 from paths.data.synthetic import split_holdout
-from paths.data.output import prepare_out_dir, write_csv, write_json
+from paths.data.output import OutputFolder, write_csv, write_json
 from paths.present.summary import versions
 from paths.threshold.sweep import threshold_summary, threshold_sweep, threshold_table
 from paths.cli.app import command, console
@@ -148,20 +148,22 @@ def threshold_cmd(
         train, held = split_holdout(X.shape[0], frac, seed)
         X, y, X_test, y_test = X[train], y[train], X[held], y[held]
         split = {"holdout": frac, "seed": seed, "n_test": int(held.size)}
-    out_dir = prepare_out_dir(out, force=force)
-    result = run_with_progress("sweep", lambda cb: threshold_sweep(
-        X, y, X_test, y_test, over=over.value, order=order.value, repeats=repeats, seed=seed,
-        n_points=points, random_features=random_features, feature_map=feature_map.value,
-        ridge_lambda=ridge_lambda, ridge_df_fraction=ridge_df_fraction, band=band.value,
-        standardize=standardize, solver=solver.value, progress=cb))
-    summary = threshold_summary(
-        result, target=target, source=str(data), split=split, input_sha256=digests,
-        command_line=shlex.join(["paths", *sys.argv[1:]]), versions=versions())
-    files = [write_csv(out_dir / "threshold.csv", *threshold_table(result)),
-             write_json(out_dir / "threshold.json", summary)]
-    if report:
-        files += write_report(result, summary, out_dir)
-    print_threshold(summary, files, out_dir)
+    folder = OutputFolder(out, force=force, inputs=list(digests))
+    with folder:
+        out_dir = folder.stage
+        result = run_with_progress("sweep", lambda cb: threshold_sweep(
+            X, y, X_test, y_test, over=over.value, order=order.value, repeats=repeats, seed=seed,
+            n_points=points, random_features=random_features, feature_map=feature_map.value,
+            ridge_lambda=ridge_lambda, ridge_df_fraction=ridge_df_fraction, band=band.value,
+            standardize=standardize, solver=solver.value, progress=cb))
+        summary = threshold_summary(
+            result, target=target, source=str(data), split=split, input_sha256=digests,
+            command_line=shlex.join(["paths", *sys.argv[1:]]), versions=versions())
+        files = [write_csv(out_dir / "threshold.csv", *threshold_table(result)),
+                 write_json(out_dir / "threshold.json", summary)]
+        if report:
+            files += write_report(result, summary, out_dir)
+    print_threshold(summary, folder.final_paths(files), folder.target)
 
 
 def write_report(result, summary: dict, out_dir) -> list:

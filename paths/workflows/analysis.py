@@ -14,7 +14,7 @@ import numpy as np
 
 from paths.data.synthetic import split_holdout
 from paths.data.tables import Dataset, load_dataset, sha256_of
-from paths.data.output import prepare_out_dir, write_csv, write_json
+from paths.data.output import OutputFolder, write_csv, write_json
 from paths.core.path import RidgePath, fit_path
 from paths.present.summary import coefficient_table, path_table, selections, summary_dict
 
@@ -78,22 +78,6 @@ def _per_target(table, result: RidgePath, targets) -> tuple[list, list]:
     return header, rows
 
 
-def _guard_inputs(out: Path, names, inputs) -> None:
-    """Refuse to write an output file over an input file (even with --force)."""
-    from paths.data.validation import InputError
-
-    for name in names:
-        dest = out / name
-        for src in inputs:
-            try:
-                same = dest.exists() and Path(src).exists() and dest.samefile(src)
-            except OSError:
-                same = False
-            if same:
-                raise InputError(f"--out {out} would overwrite the input file {src} ({name}); "
-                                 "choose another --out")
-
-
 def explore(
     data: Dataset,
     *,
@@ -118,6 +102,7 @@ def explore(
     x_axis: str = "log_lambda",
     report: bool = True,
     extra: dict | None = None,
+    inputs=(),
     intervals: float | None = None,
     interval_method: str = "jackknife+",
 ) -> ExploreRun:
@@ -149,6 +134,9 @@ def explore(
         ``report.html`` (:mod:`paths.report`) when ``report``.
     extra : dict, optional
         Keys added verbatim to ``summary.json`` (e.g. a case's name and description).
+    inputs : iterable of paths, optional
+        Files the run read besides those in ``input_sha256`` (e.g. a case file): no
+        output may overwrite them (:class:`paths.data.output.OutputFolder`).
     intervals : float, optional
         Prediction intervals at this level for the test rows
         (:func:`paths.selection.intervals.prediction_intervals`, at the reported
@@ -170,85 +158,91 @@ def explore(
         raise InputError("pass either --test or --holdout, not both")
     if intervals is not None and test is None and holdout is None:
         raise InputError("--intervals needs test rows: pass --test FILE or --holdout FRACTION")
-    out = prepare_out_dir(out_dir, force=force)
-    X, y = data.X, data.y
-    test_rows = None
-    X_test = y_test = None
-    split = None
-    if test is not None:
-        missing = [c for c in data.feature_names if c not in test.feature_names]
-        if missing:
-            raise InputError(f"{test.source}: test file lacks feature column(s) "
-                             f"{', '.join(missing[:5])}; give it the training columns")
-        order = [test.feature_names.index(c) for c in data.feature_names]
-        X_test, y_test = test.X[:, order], test.y
-        test_rows = test.rows if test.rows is not None else np.arange(test.X.shape[0])
-    elif holdout is not None:
-        train, held = split_holdout(X.shape[0], holdout, seed)
-        test_rows = held if data.rows is None else data.rows[held]
-        X, y, X_test, y_test = X[train], y[train], X[held], y[held]
-        split = {"holdout": holdout, "seed": seed, "n_test": int(held.size)}
-        if groups is not None and len(groups) == data.X.shape[0]:
-            groups = np.asarray(groups)[train]
-    import pandas as pd
+    folder = OutputFolder(out_dir, force=force, inputs=[*(input_sha256 or {}), *inputs])
+    with folder:
+        out = folder.stage
+        X, y = data.X, data.y
+        X_test = y_test = test_rows = None
+        split = None
+        if test is not None:
+            missing = [c for c in data.feature_names if c not in test.feature_names]
+            if missing:
+                raise InputError(f"{test.source}: test file lacks feature column(s) "
+                                 f"{', '.join(missing[:5])}; give it the training columns")
+            order = [test.feature_names.index(c) for c in data.feature_names]
+            X_test, y_test = test.X[:, order], test.y
+            test_rows = test.rows if test.rows is not None else np.arange(test.X.shape[0])
+        elif holdout is not None:
+            train, held = split_holdout(X.shape[0], holdout, seed)
+            test_rows = held if data.rows is None else data.rows[held]
+            X, y, X_test, y_test = X[train], y[train], X[held], y[held]
+            split = {"holdout": holdout, "seed": seed, "n_test": int(held.size)}
+            if groups is not None and len(groups) == data.X.shape[0]:
+                groups = np.asarray(groups)[train]
+        import pandas as pd
 
-    frame = pd.DataFrame(X, columns=data.feature_names)
-    result = fit_path(frame, y, n_lambdas=n_lambdas, standardize=standardize, solver=solver,
-                      X_test=X_test, y_test=y_test)
-    selection, cv_record, cv_res = _selection(result, X, y, cv=cv, repeats=repeats, groups=groups,
-                                              folds=folds, cv_scaling=cv_scaling, seed=seed,
-                                              rule=rule)
-    summary = summary_dict(
-        result,
-        target=data.target_names[0] if len(data.target_names) == 1 else data.target_names,
-        source=data.source,
-        input_sha256=input_sha256 or {},
-        split=split,
-        command_line=shlex.join(command_line if command_line is not None else sys.argv),
-        data_notes=list(data.notes) + [f"test data: {n}" for n in (test.notes if test else [])],
-        data_preparation=data.record(),
-        noise_variance=selection.noise.as_dict(None if result.multi_target else 0),
-        reported=selection.reported,
-        cv=cv_record,
-    )
-    summary["selected"] = {**summary["selected"], **selection.as_dict(0)}
-    if len(data.target_names) > 1:
-        summary["targets"] = list(data.target_names)
-        summary["by_target"] = {
-            name: {"selected": {**selections(result, j), **selection.as_dict(j)},
-                   "min_norm": {k: summary["min_norm"][k][j] if isinstance(
-                       summary["min_norm"][k], list) else summary["min_norm"][k]
-                       for k in summary["min_norm"]}}
-            for j, name in enumerate(data.target_names)
-        }
-    interval_file = None
-    if intervals is not None:
-        from paths.present.summary import interval_record, interval_table
-        from paths.selection.intervals import prediction_intervals
+        frame = pd.DataFrame(X, columns=data.feature_names)
+        result = fit_path(frame, y, n_lambdas=n_lambdas, standardize=standardize, solver=solver,
+                          X_test=X_test, y_test=y_test)
+        selection, cv_record, cv_res = _selection(result, X, y, cv=cv, repeats=repeats, groups=groups,
+                                                  folds=folds, cv_scaling=cv_scaling, seed=seed,
+                                                  rule=rule)
+        summary = summary_dict(
+            result,
+            target=data.target_names[0] if len(data.target_names) == 1 else data.target_names,
+            source=data.source,
+            input_sha256=input_sha256 or {},
+            split=split,
+            command_line=shlex.join(command_line if command_line is not None else sys.argv),
+            data_notes=list(data.notes) + [f"test data: {n}" for n in (test.notes if test else [])],
+            data_preparation=data.record(),
+            noise_variance=selection.noise.as_dict(None if result.multi_target else 0),
+            reported=selection.reported,
+            cv=cv_record,
+        )
+        summary["selected"] = {**summary["selected"], **selection.as_dict(0)}
+        if len(data.target_names) > 1:
+            summary["targets"] = list(data.target_names)
+            summary["by_target"] = {
+                name: {"selected": {**selections(result, j), **selection.as_dict(j)},
+                       "min_norm": {k: summary["min_norm"][k][j] if isinstance(
+                           summary["min_norm"][k], list) else summary["min_norm"][k]
+                           for k in summary["min_norm"]}}
+                for j, name in enumerate(data.target_names)
+            }
+        interval_file = None
+        if intervals is not None:
+            summary["intervals"], interval_file = _intervals(
+                result, selection, cv_res, X_test, y_test, test_rows, data.target_names,
+                level=intervals, method=interval_method, seed=seed)
+        summary.update(extra or {})
+        summary["report"] = report_numbers(summary)
+        files = [
+            write_csv(out / "path.csv", *_per_target(path_table, result, data.target_names)),
+            write_csv(out / "coefficients.csv",
+                      *_per_target(coefficient_table, result, data.target_names)),
+            write_json(out / "summary.json", summary),
+        ]
+        if interval_file is not None:
+            files.append(write_csv(out / "intervals.csv", *interval_file))
+        if formats or report:
+            files += write_explore_outputs(result, summary, out, cv=cv_res, formats=formats or (),
+                                           width=width, x=x_axis, report=report)
+    return ExploreRun(result=result, summary=summary, out_dir=folder.target,
+                      files=folder.final_paths(files), selection=selection, cv=cv_res)
 
-        pi = prediction_intervals(
-            result, X_test, selection.chosen_lambdas(), level=intervals, method=interval_method,
-            folds=cv_res.labels[0] if cv_res is not None and interval_method == "cv+" else None,
-            seed=seed)
-        summary["intervals"] = interval_record(pi, y_test)
-        interval_file = interval_table(pi, [int(r) for r in test_rows], data.target_names)
-    summary.update(extra or {})
-    summary["report"] = report_numbers(summary)
-    _guard_inputs(out, ("path.csv", "coefficients.csv", "summary.json", "intervals.csv"),
-                  (input_sha256 or {}))
-    files = [
-        write_csv(out / "path.csv", *_per_target(path_table, result, data.target_names)),
-        write_csv(out / "coefficients.csv",
-                  *_per_target(coefficient_table, result, data.target_names)),
-        write_json(out / "summary.json", summary),
-    ]
-    if interval_file is not None:
-        files.append(write_csv(out / "intervals.csv", *interval_file))
-    if formats or report:
-        files += write_explore_outputs(result, summary, out, cv=cv_res, formats=formats or (),
-                                       width=width, x=x_axis, report=report)
-    return ExploreRun(result=result, summary=summary, out_dir=out, files=files,
-                      selection=selection, cv=cv_res)
+
+def _intervals(result, selection, cv_res, X_test, y_test, test_rows, targets, *, level, method,
+               seed):
+    """Prediction intervals for the test rows at the reported penalty of each target:
+    ``(summary record, (header, rows) of intervals.csv)``."""
+    from paths.present.summary import interval_record, interval_table
+    from paths.selection.intervals import prediction_intervals
+
+    pi = prediction_intervals(
+        result, X_test, selection.chosen_lambdas(), level=level, method=method,
+        folds=cv_res.labels[0] if cv_res is not None and method == "cv+" else None, seed=seed)
+    return interval_record(pi, y_test), interval_table(pi, [int(r) for r in test_rows], targets)
 
 
 def _selection(result, X, y, *, cv, repeats, groups, folds, cv_scaling, seed, rule):
@@ -400,91 +394,92 @@ def explore_engine(
         raise InputError(f"{path}: no such file or folder; check the path")
     targets = [x for t in ([target] if isinstance(target, str) else list(target))
                for x in str(t).split(",") if x]
-    out = prepare_out_dir(out_dir, force=force)
-    names, rows = _columns_and_shape(path, sep)
-    feats = None
-    if names is not None:
-        missing = [t for t in targets if t not in names]
-        if missing:
-            shown = ", ".join(names[:8]) + (" ..." if len(names) > 8 else "")
-            raise InputError(f"{path}: target column {missing[0]!r} not found; columns are: {shown}")
-        feats = _resolve_features(names, targets, features, exclude)
-    elif features or exclude:
-        raise InputError(f"{path}: --features/--exclude need named columns (CSV or Parquet)")
-    wide = rows is not None and feats is not None and len(feats) > rows
-    digests, hash_notes = _file_digests(path)
-    if test is not None:
-        tdig, tnotes = _file_digests(Path(test))
-        digests.update(tdig)
-        hash_notes += tnotes
-    if wide:
-        from paths.data.chunks import DEFAULT_BLOCK_COLUMNS
-        from paths.engines.wide import wide_path
+    folder = OutputFolder(out_dir, force=force, inputs=[path, *([] if test is None else [test])])
+    with folder:
+        out = folder.stage
+        names, rows = _columns_and_shape(path, sep)
+        feats = None
+        if names is not None:
+            missing = [t for t in targets if t not in names]
+            if missing:
+                shown = ", ".join(names[:8]) + (" ..." if len(names) > 8 else "")
+                raise InputError(f"{path}: target column {missing[0]!r} not found; columns are: {shown}")
+            feats = _resolve_features(names, targets, features, exclude)
+        elif features or exclude:
+            raise InputError(f"{path}: --features/--exclude need named columns (CSV or Parquet)")
+        wide = rows is not None and feats is not None and len(feats) > rows
+        digests, hash_notes = _file_digests(path)
+        if test is not None:
+            tdig, tnotes = _file_digests(Path(test))
+            digests.update(tdig)
+            hash_notes += tnotes
+        if wide:
+            from paths.data.chunks import DEFAULT_BLOCK_COLUMNS
+            from paths.engines.wide import wide_path
 
-        if engine == "dask":
-            raise InputError(f"{path} is wide ({rows} rows x {len(feats)} features): use "
-                             "--engine stream (column blocks); the dask engine splits rows")
-        if cv is not None:
-            raise InputError("--cv with wide data needs the in-memory engine (--engine memory)")
-        if path.is_dir():
-            raise InputError(f"{path}: wide data must be one Parquet file (columns are read "
-                             "selectively); combine the parts")
-        result = wide_path(path, target=targets if len(targets) > 1 else targets[0],
-                           features=feats, X_test=test, accurate=accurate, rank=rank,
-                           block_columns=chunk_rows or DEFAULT_BLOCK_COLUMNS,
-                           n_lambdas=n_lambdas, standardize=standardize, progress=progress)
-    elif engine == "stream":
-        from paths.data.chunks import DEFAULT_CHUNK_ROWS
-        from paths.engines.stream import stream_path
+            if engine == "dask":
+                raise InputError(f"{path} is wide ({rows} rows x {len(feats)} features): use "
+                                 "--engine stream (column blocks); the dask engine splits rows")
+            if cv is not None:
+                raise InputError("--cv with wide data needs the in-memory engine (--engine memory)")
+            if path.is_dir():
+                raise InputError(f"{path}: wide data must be one Parquet file (columns are read "
+                                 "selectively); combine the parts")
+            result = wide_path(path, target=targets if len(targets) > 1 else targets[0],
+                               features=feats, X_test=test, accurate=accurate, rank=rank,
+                               block_columns=chunk_rows or DEFAULT_BLOCK_COLUMNS,
+                               n_lambdas=n_lambdas, standardize=standardize, progress=progress)
+        elif engine == "stream":
+            from paths.data.chunks import DEFAULT_CHUNK_ROWS
+            from paths.engines.stream import stream_path
 
-        result = stream_path(path, target=targets, features=feats, sep=sep,
-                             chunk_rows=chunk_rows or DEFAULT_CHUNK_ROWS, accurate=accurate,
-                             standardize=standardize, test=test, n_lambdas=n_lambdas, cv=cv,
-                             cv_seed=cv_seed, rank=rank, progress=progress)
-    else:
-        from paths.engines.dask_cluster import dask_path
+            result = stream_path(path, target=targets, features=feats, sep=sep,
+                                 chunk_rows=chunk_rows or DEFAULT_CHUNK_ROWS, accurate=accurate,
+                                 standardize=standardize, test=test, n_lambdas=n_lambdas, cv=cv,
+                                 cv_seed=cv_seed, rank=rank, progress=progress)
+        else:
+            from paths.engines.dask_cluster import dask_path
 
-        result = dask_path(path, target=targets, features=feats, chunk_rows=chunk_rows,
-                           accurate=accurate, scheduler=scheduler, timeout=timeout,
-                           standardize=standardize, test=test, n_lambdas=n_lambdas, cv=cv,
-                           cv_seed=cv_seed, rank=rank, progress=progress)
-    cv_record = None
-    if result.cv_mse is not None:
-        cv_record = {"n_folds": result.n_folds, "repeats": 1,
-                     "scheme": "blocked" if cv_seed is None else "shuffled-hash",
-                     "seed": cv_seed, "scaling": "global", "method": "hat-diagonal blocks",
-                     "form": "woodbury", "mse": np.asarray(result.cv_mse).tolist(),
-                     "se": np.asarray(result.cv_se).tolist()}
-    summary = summary_dict(
-        result,
-        target=targets[0] if len(targets) == 1 else targets,
-        source=str(path),
-        input_sha256=digests,
-        split=None,
-        command_line=shlex.join(command_line if command_line is not None else sys.argv),
-        data_notes=list(result.notes) + hash_notes,
-        engine=result.engine_record(),
-        cv=cv_record,
-    )
-    if result.cv_mse is not None:
-        cvm = result.cv_mse if result.cv_mse.ndim == 1 else result.cv_mse[:, 0]
-        i = int(np.argmin(cvm))
-        summary["selected"]["cv"] = {"lambda": float(result.lambdas[i]),
-                                     "df": float(result.df[i]), "index": i,
-                                     "value": float(cvm[i])}
-    inputs = [k for k in digests]
-    _guard_inputs(out, ("path.csv", "coefficients.csv", "summary.json"), inputs)
-    files = [write_csv(out / "path.csv", *_per_target(path_table, result, targets))]
-    if result.coef is not None:
-        files.append(write_csv(out / "coefficients.csv",
-                               *_per_target(coefficient_table, result, targets)))
-    drawable = result.coef is not None and (formats or report)
-    if drawable:
-        from paths.present.report import report_numbers, write_explore_outputs
+            result = dask_path(path, target=targets, features=feats, chunk_rows=chunk_rows,
+                               accurate=accurate, scheduler=scheduler, timeout=timeout,
+                               standardize=standardize, test=test, n_lambdas=n_lambdas, cv=cv,
+                               cv_seed=cv_seed, rank=rank, progress=progress)
+        cv_record = None
+        if result.cv_mse is not None:
+            cv_record = {"n_folds": result.n_folds, "repeats": 1,
+                         "scheme": "blocked" if cv_seed is None else "shuffled-hash",
+                         "seed": cv_seed, "scaling": "global", "method": "hat-diagonal blocks",
+                         "form": "woodbury", "mse": np.asarray(result.cv_mse).tolist(),
+                         "se": np.asarray(result.cv_se).tolist()}
+        summary = summary_dict(
+            result,
+            target=targets[0] if len(targets) == 1 else targets,
+            source=str(path),
+            input_sha256=digests,
+            split=None,
+            command_line=shlex.join(command_line if command_line is not None else sys.argv),
+            data_notes=list(result.notes) + hash_notes,
+            engine=result.engine_record(),
+            cv=cv_record,
+        )
+        if result.cv_mse is not None:
+            cvm = result.cv_mse if result.cv_mse.ndim == 1 else result.cv_mse[:, 0]
+            i = int(np.argmin(cvm))
+            summary["selected"]["cv"] = {"lambda": float(result.lambdas[i]),
+                                         "df": float(result.df[i]), "index": i,
+                                         "value": float(cvm[i])}
+        files = [write_csv(out / "path.csv", *_per_target(path_table, result, targets))]
+        if result.coef is not None:
+            files.append(write_csv(out / "coefficients.csv",
+                                   *_per_target(coefficient_table, result, targets)))
+        drawable = result.coef is not None and (formats or report)
+        if drawable:
+            from paths.present.report import report_numbers, write_explore_outputs
 
-        summary["report"] = report_numbers(summary)
-    files.append(write_json(out / "summary.json", summary))
-    if drawable:
-        files += write_explore_outputs(result, summary, out, formats=formats or (),
-                                       width=width, x=x_axis, report=report)
-    return ExploreRun(result=result, summary=summary, out_dir=out, files=files)
+            summary["report"] = report_numbers(summary)
+        files.append(write_json(out / "summary.json", summary))
+        if drawable:
+            files += write_explore_outputs(result, summary, out, formats=formats or (),
+                                           width=width, x=x_axis, report=report)
+    return ExploreRun(result=result, summary=summary, out_dir=folder.target,
+                      files=folder.final_paths(files))

@@ -25,6 +25,7 @@ code in :mod:`paths.datasets` and says that the data are synthetic.
 from __future__ import annotations
 
 import inspect
+import re
 import shlex
 import sys
 from dataclasses import dataclass, field
@@ -66,6 +67,10 @@ _FIT_OWNED = {"data", "out_dir", "test", "holdout", "seed", "force", "input_sha2
               "extra"}
 _THRESHOLD_OWNED = {"X", "y", "X_test", "y_test", "progress", "on_point", "variances"}
 _SIMULATE_OWNED = {"truth", "progress"}
+
+
+#: a case name becomes part of a path (the default output folder paths-NAME): no separators
+_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]{0,99}$")
 
 
 def _keyword_names(func, owned) -> tuple:
@@ -238,7 +243,11 @@ def parse_case(text: str, *, source=None) -> Case:
         parse_width(figs["width"])
     if figs.get("x", "log_lambda") not in ("log_lambda", "df"):
         raise InputError(f"{where}: [figures] x must be log_lambda or df; got {figs['x']!r}")
-    return Case(name=str(meta.get("name", stem)), title=str(meta.get("title", stem)),
+    name = meta.get("name", stem)
+    if not isinstance(name, str) or not _NAME.match(name):
+        raise InputError(f"{where}: [case] name {name!r} must be a plain name (letters, digits, "
+                         "'-', '_', '.'; it names the output folder paths-NAME); rename it")
+    return Case(name=name, title=str(meta.get("title", stem)),
                 description=str(meta.get("description", "")),
                 synthetic=bool(meta.get("synthetic", "generator" in data
                                         or analysis == "simulate")),
@@ -304,43 +313,52 @@ def run_case(case: Case, out_dir, *, force: bool = False, formats=None, width=No
     run = explore(ds, out_dir=out_dir, test=test, holdout=case.data.get("holdout"),
                   seed=case.data.get("seed", 0), force=force, input_sha256=digests,
                   command_line=cmd, formats=fmts, width=wid, x_axis=figs.get("x", "log_lambda"),
-                  report=figs.get("report", True), extra=extra, **case.fit)
+                  report=figs.get("report", True), extra=extra,
+                  inputs=_case_inputs(case, digests), **case.fit)
     rep = run.out_dir / "report.html"
     return CaseRun(case=case, out_dir=run.out_dir, files=list(run.files), summary=run.summary,
                    result=run.result, run=run, report=rep if rep.exists() else None)
 
 
+def _case_inputs(case: Case, digests) -> list:
+    """Every file a case run reads: the case file and its data files (never overwritten)."""
+    return [*([case.source] if case.source is not None else []), *digests]
+
+
 def _run_threshold(case, ds, test, digests, out_dir, *, force, formats, width, command_line,
                    extra) -> CaseRun:
     from paths.data.synthetic import split_holdout
-    from paths.data.output import prepare_out_dir, write_csv, write_json
+    from paths.data.output import OutputFolder, write_csv, write_json
     from paths.threshold.sweep import threshold_summary, threshold_sweep, threshold_table
 
-    out = prepare_out_dir(out_dir, force=force)
-    X, y = ds.X, ds.y
-    if test is not None:
-        X_test, y_test = test.X, test.y
-        split = None
-    else:
-        frac = case.data.get("holdout", 0.5)
-        seed = case.data.get("seed", 0)
-        tr, te = split_holdout(X.shape[0], frac, seed)
-        X, y, X_test, y_test = X[tr], y[tr], X[te], y[te]
-        split = {"holdout": frac, "seed": seed, "n_test": int(te.size)}
-    kw = dict(case.threshold)
-    result = threshold_sweep(X, y, X_test, y_test, **kw)
-    summary = threshold_summary(result, source=ds.source, input_sha256=digests, split=split,
-                                command_line=shlex.join(command_line), **extra)
-    from paths.present.summary import versions
+    folder = OutputFolder(out_dir, force=force, inputs=_case_inputs(case, digests))
+    with folder:
+        out = folder.stage
+        X, y = ds.X, ds.y
+        if test is not None:
+            X_test, y_test = test.X, test.y
+            split = None
+        else:
+            frac = case.data.get("holdout", 0.5)
+            seed = case.data.get("seed", 0)
+            tr, te = split_holdout(X.shape[0], frac, seed)
+            X, y, X_test, y_test = X[tr], y[tr], X[te], y[te]
+            split = {"holdout": frac, "seed": seed, "n_test": int(te.size)}
+        kw = dict(case.threshold)
+        result = threshold_sweep(X, y, X_test, y_test, **kw)
+        summary = threshold_summary(result, source=ds.source, input_sha256=digests, split=split,
+                                    command_line=shlex.join(command_line), **extra)
+        from paths.present.summary import versions
 
-    summary["versions"] = versions()
-    files = [write_csv(out / "threshold.csv", *threshold_table(result)),
-             write_json(out / "threshold.json", summary)]
-    report = None
-    from paths.present.report import write_threshold_outputs
+        summary["versions"] = versions()
+        files = [write_csv(out / "threshold.csv", *threshold_table(result)),
+                 write_json(out / "threshold.json", summary)]
+        report = None
+        from paths.present.report import write_threshold_outputs
 
-    files += write_threshold_outputs(result, summary, out, formats=formats, width=width,
-                                     report=case.figures.get("report", True))
+        files += write_threshold_outputs(result, summary, out, formats=formats, width=width,
+                                         report=case.figures.get("report", True))
+    out, files = folder.target, folder.final_paths(files)
     report = out / "report.html" if (out / "report.html").exists() else None
     return CaseRun(case=case, out_dir=out, files=files, summary=summary, result=result,
                    report=report)
@@ -348,32 +366,35 @@ def _run_threshold(case, ds, test, digests, out_dir, *, force, formats, width, c
 
 def _run_simulate(case, out_dir, *, force, formats, width, command_line, extra) -> CaseRun:
     """Simulation from a known truth: the threshold sweep with exact bias² and variance."""
-    from paths.data.output import prepare_out_dir, write_csv, write_json
+    from paths.data.output import OutputFolder, write_csv, write_json
     from paths.present.report import write_threshold_outputs
     from paths.threshold.simulate import bias_variance_table, make_truth, simulate
     from paths.present.summary import versions
     from paths.threshold.sweep import threshold_summary, threshold_table
 
-    out = prepare_out_dir(out_dir, force=force)
-    truth_kw = dict(case.truth)
-    truth = make_truth(truth_kw.pop("p"), **truth_kw)
-    sim_kw = dict(case.simulate)
-    sim = simulate(sim_kw.pop("n_train"), truth, **sim_kw)
-    extra = dict(extra, generator={"name": "paths.simulate.make_truth", "params": dict(case.truth),
-                                   "seed": case.truth.get("seed", 0)},
-                 truth={"noise_variance": truth.noise_variance,
-                        "signal_variance": truth.signal_variance,
-                        "description": truth.description})
-    desc = truth.description
-    summary = threshold_summary(sim.sweep, source=desc if "synthetic" in desc else
-                                f"synthetic: {desc}",
-                                input_sha256={}, command_line=shlex.join(command_line), **extra)
-    summary["versions"] = versions()
-    files = [write_csv(out / "threshold.csv", *threshold_table(sim.sweep)),
-             write_csv(out / "bias_variance.csv", *bias_variance_table(sim)),
-             write_json(out / "threshold.json", summary)]
-    files += write_threshold_outputs(sim, summary, out, formats=formats, width=width,
-                                     report=case.figures.get("report", True))
+    folder = OutputFolder(out_dir, force=force, inputs=_case_inputs(case, {}))
+    with folder:
+        out = folder.stage
+        truth_kw = dict(case.truth)
+        truth = make_truth(truth_kw.pop("p"), **truth_kw)
+        sim_kw = dict(case.simulate)
+        sim = simulate(sim_kw.pop("n_train"), truth, **sim_kw)
+        extra = dict(extra, generator={"name": "paths.simulate.make_truth", "params": dict(case.truth),
+                                       "seed": case.truth.get("seed", 0)},
+                     truth={"noise_variance": truth.noise_variance,
+                            "signal_variance": truth.signal_variance,
+                            "description": truth.description})
+        desc = truth.description
+        summary = threshold_summary(sim.sweep, source=desc if "synthetic" in desc else
+                                    f"synthetic: {desc}",
+                                    input_sha256={}, command_line=shlex.join(command_line), **extra)
+        summary["versions"] = versions()
+        files = [write_csv(out / "threshold.csv", *threshold_table(sim.sweep)),
+                 write_csv(out / "bias_variance.csv", *bias_variance_table(sim)),
+                 write_json(out / "threshold.json", summary)]
+        files += write_threshold_outputs(sim, summary, out, formats=formats, width=width,
+                                         report=case.figures.get("report", True))
+    out, files = folder.target, folder.final_paths(files)
     report = out / "report.html" if (out / "report.html").exists() else None
     return CaseRun(case=case, out_dir=out, files=files, summary=summary, result=sim,
                    report=report)
