@@ -209,3 +209,23 @@ def test_maximum_at_interpolation_limit():
     assert abs(signal - sel.signal_variance) <= 1e-8 * 30 * signal
     assert sel.lam_interval[0] == 0.0 and sel.lam_interval[1] > 0
     json.dumps(sel.as_dict(), allow_nan=False)
+
+
+def test_profile_figure_and_cut(make_problem):
+    """The REML figure draws l(lambda) - l(lambda_hat) (<= 0, 0 at the marked choice) and
+    the cut at -chi2_{1,0.95}/2 (scipy.stats.chi2.ppf); the cut constant is that quantile."""
+    from scipy.stats import chi2
+
+    from paths.present.figures import reml_figure
+    from paths.selection.reml import CHI2_1_95
+
+    assert_allclose(CHI2_1_95, chi2.ppf(0.95, 1), rtol=1e-14)
+    X, y = make_problem(40, 60, seed=9)
+    path = fit_path(X, y, n_lambdas=30)
+    art = reml_figure(path).artists["a"]
+    line = next(t for t in art.traces if t.kind == "line")
+    est = reml_estimate(path)
+    assert_allclose(line.y, reml_loglik(path) - est.loglik, rtol=0, atol=1e-12)
+    assert np.all(line.y <= 1e-9)  # the refined maximum is above every grid value
+    cut = next(t for t in art.traces if t.kind == "reference")
+    assert_allclose(cut.y, -chi2.ppf(0.95, 1) / 2, rtol=1e-14)

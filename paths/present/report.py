@@ -684,7 +684,7 @@ def write_explore_outputs(result, summary: dict, out_dir, *, cv=None, formats=("
     ``summary["selected"]`` and draw K-fold CV (``cv``, a
     :class:`paths.cv.CVResult`) when given.
     """
-    from paths.present.figures import path_figure, save_figure, spectrum_figure
+    from paths.present.figures import path_figure, reml_figure, save_figure, spectrum_figure
 
     out = Path(out_dir)
     selected = {k: v for k, v in (summary.get("selected") or {}).items()
@@ -696,6 +696,8 @@ def write_explore_outputs(result, summary: dict, out_dir, *, cv=None, formats=("
     panels = [path_figure(result, selected=shown, cv=cv, x=x, width=width),
               spectrum_figure(result, lam=None if chosen else nums["lambda"], selected=chosen,
                               width=width)]
+    if nums["rule"] == "reml" and result.factorization.u.shape[0] > 0:
+        panels.append(reml_figure(result, width=width))  # the profile behind the choice
     written, pairs = [], []
     for panel in panels:
         files = save_figure(panel, out, formats=formats)

@@ -191,6 +191,18 @@ def _blocks(m: int, n: int, budget: int):
         yield s, min(s + step, m)
 
 
+def _project(path, X_new: np.ndarray, budget: int) -> np.ndarray:
+    """New rows in the right singular basis, :math:`a(x) = V^T \\tilde x`, shape (m, r),
+    centered and scaled a row block at a time (no (m, p) copy beyond the budget)."""
+    vt = path.factorization.vt
+    m, p = X_new.shape
+    out = np.empty((m, vt.shape[0]))
+    step = max(1, budget // (8 * max(p, 1)))
+    for s in range(0, m, step):
+        np.matmul(path.design.transform(X_new[s:s + step]), vt.T, out=out[s:s + step])
+    return out
+
+
 def _quantiles(centers: np.ndarray, radius: np.ndarray, k_lo: int, k_hi: int):
     """Per row: the k_lo-th smallest of centers - radius, the k_hi-th smallest of centers + radius."""
     vals = centers - radius
@@ -365,7 +377,7 @@ def prediction_intervals(path, X_new, lam, *, level: float = 0.9, method: str = 
     labels = _labels(path, method, folds, n_folds, calibration, seed)
     n_cal = int(np.sum(labels == 0)) if method == "split" else None
     k_lo, k_hi = conformal_ranks(n_cal if method == "split" else n, level)
-    proj = path.design.transform(X_new) @ path.factorization.vt.T  # (m, r)
+    proj = _project(path, X_new, int(max_block_bytes))  # (m, r)
     out = [_one_target(path, proj, float(lam_arr[j]), j, method, k_lo, k_hi, labels,
                        int(max_block_bytes)) for j in range(t)]
     pred, lower, upper = (np.stack([o[i] for o in out], axis=1) for i in range(3))
