@@ -16,7 +16,8 @@ from paths.data.synthetic import split_holdout
 from paths.data.tables import Dataset, load_dataset, sha256_of
 from paths.data.output import OutputFolder, write_csv, write_json
 from paths.core.path import RidgePath, fit_path
-from paths.present.summary import coefficient_table, path_table, selections, summary_dict
+from paths.present.summary import (add_choice_errors, coefficient_table, model_table, path_table,
+                                   reported_lambdas, selections, summary_dict)
 
 __all__ = ["ExploreRun", "explore", "load_data", "read_groups", "explore_engine", "ENGINES"]
 
@@ -99,7 +100,7 @@ def explore(
     rule: str | None = None,
     formats=("png", "svg"),
     width: str = "single",
-    x_axis: str = "log_lambda",
+    x_axis: str = "df",
     report: bool = True,
     extra: dict | None = None,
     inputs=(),
@@ -216,11 +217,14 @@ def explore(
                 result, selection, cv_res, X_test, y_test, test_rows, data.target_names,
                 level=intervals, method=interval_method, seed=seed)
         summary.update(extra or {})
+        add_choice_errors(summary, result, X_train=X, X_test=X_test, y_test=y_test)
         summary["report"] = report_numbers(summary)
         files = [
             write_csv(out / "path.csv", *_per_target(path_table, result, data.target_names)),
             write_csv(out / "coefficients.csv",
                       *_per_target(coefficient_table, result, data.target_names)),
+            write_csv(out / "model.csv", *model_table(result, reported_lambdas(summary),
+                                                     data.target_names)),
             write_json(out / "summary.json", summary),
         ]
         if interval_file is not None:
@@ -371,7 +375,7 @@ def explore_engine(
     command_line: list[str] | None = None,
     formats=(),
     width: str = "single",
-    x_axis: str = "log_lambda",
+    x_axis: str = "df",
     report: bool = False,
 ) -> ExploreRun:
     """:func:`explore` for data that need not fit in memory: ``engine`` "stream" or "dask".
