@@ -1173,7 +1173,7 @@ def plot_reml_profile(result, ax=None, **style) -> Artists:
     ax.set_ylim(max(low, 12 * cut), 0.5)
     ax.set_xlabel(art.x_quantity)
     ax.set_ylabel(art.y_quantity)
-    ax.legend(fontsize="x-small", loc="lower center")
+    art.texts.append(ax.legend(fontsize=NOTE_PT, loc="lower center", frameon=True, framealpha=0.85))
     return art
 
 
