@@ -174,6 +174,12 @@ def test_explore_intervals_contract(wide_csv):
     assert rec["mean_width"] == pytest.approx(np.mean(table[:, 3] - table[:, 2]), rel=1e-12)
     path_header, _ = _read_csv(out / "path.csv")
     assert path_header[-1] == "reml_loglik"
+    # the saved fit carries what the intervals need: the same endpoints from fit.npz
+    from paths import load_fit, prediction_intervals
+
+    again = prediction_intervals(load_fit(out / "fit.npz").path, Xte, lam, level=0.8)
+    assert_allclose(again.lower, table[:, 2], rtol=0, atol=1e-8 * width.min())
+    assert_allclose(again.upper, table[:, 3], rtol=0, atol=1e-8 * width.min())
 
 
 def test_explore_intervals_need_test_rows(wide_csv):
