@@ -363,6 +363,10 @@ def prediction_intervals(path, X_new, lam, *, level: float = 0.9, method: str = 
     """
     if method not in METHODS:
         raise InputError(f"method must be one of {', '.join(METHODS)}; got {method!r}")
+    if getattr(path.design, "span", None) is not None:
+        raise InputError("prediction intervals need a path fitted without row weights or "
+                         "unpenalized columns (the leave-out fits assume exchangeable, equally "
+                         "weighted rows); refit without sample_weight= / unpenalized=")
     X_new = as_design(X_new, "X_new")
     if X_new.shape[1] != path.n_features:
         raise InputError(f"X_new has {X_new.shape[1]} columns but the path was fitted on "
