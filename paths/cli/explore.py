@@ -292,14 +292,10 @@ def explore_cmd(
                   input_sha256=digests, command_line=["paths", *sys.argv[1:]],
                   cv=cv, repeats=repeats, groups=group_labels, folds=folds.value,
                   cv_scaling=cv_scaling.value, rule=rule, formats=fig_formats,
-<<<<<<< HEAD
-                  width=fig_width, x_axis=fig_x, report=report, intervals=intervals,
-                  interval_method=interval_method.value)
-=======
                   width=fig_width, x_axis=fig_x, report=report, weights=row_weights,
                   test_weights=test_weights, unpenalized=unpenalized or None,
-                  relative_penalty=penalties)
->>>>>>> main
+                  relative_penalty=penalties, intervals=intervals,
+                  interval_method=interval_method.value)
     print_summary(run)
     print_rules(run)
     print_intervals(run)
