@@ -196,7 +196,7 @@ def test_maximum_at_interpolation_limit():
     lambda / d_r^2), the interval starts at 0, and the record is valid JSON."""
     import json
 
-    from paths.selection.reml import reml_variances
+    from paths.core import algebra
 
     rng = np.random.default_rng(7)
     X = rng.standard_normal((30, 45)) * rng.uniform(0.5, 3.0, 45)
@@ -205,7 +205,7 @@ def test_maximum_at_interpolation_limit():
     sel = select_penalty(path).rules["reml"]
     assert sel.lam == 0.0 and sel.noise_variance == 0.0
     lam = 1e-9 * path.singular_values[-1] ** 2
-    noise, signal = reml_variances(path.factorization, path.design, path.uty, lam)
+    noise, signal = algebra.reml_variances(path.state, lam)
     assert abs(signal - sel.signal_variance) <= 1e-8 * 30 * signal
     assert sel.lam_interval[0] == 0.0 and sel.lam_interval[1] > 0
     json.dumps(sel.as_dict(), allow_nan=False)

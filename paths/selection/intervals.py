@@ -21,10 +21,11 @@ from dataclasses import dataclass
 import numpy as np
 
 from paths.data.validation import InputError, as_design, as_lambdas
+from paths.core import algebra
 from paths.core.design import to_sample_space
 
 __all__ = ["METHODS", "PredictionIntervals", "prediction_intervals", "conformal_ranks",
-           "cross_hat", "leave_out_shift", "guarantee"]
+           "guarantee"]
 
 METHODS = ("jackknife+", "cv+", "split")
 _BLOCK_BYTES = 1 << 25  # 32 MiB: the largest (rows x n) array held at once
@@ -128,61 +129,6 @@ def guarantee(method: str, level: float, *, n: int | None = None,
             f"exchangeable rows (Barber et al. 2021, Thm 4, K = {K})")
 
 
-# ------------------------------------------------------------------- closed forms
-def cross_hat(path, proj: np.ndarray, lam: float, *, un: np.ndarray | None = None) -> np.ndarray:
-    """Cross-hat rows :math:`h(x)` of new rows at penalty ``lam``, shape (b, n).
-
-    ``proj`` holds the new rows in the right singular basis,
-    :math:`a(x) = V^T \\tilde x` with :math:`\\tilde x` centered and scaled like the
-    training rows.  Then :math:`h_i(x) = 1/n + \\sum_j a_j(x)\\, d_j/(d_j^2+\\lambda)\\,
-    U_{ij}` (the intercept's :math:`1/n` included), and the full-data prediction
-    is :math:`\\hat\\mu(x) = h(x)^T y`.  ``un``: the sample-space left factor
-    ``to_sample_space(U)``, when the caller already holds it.
-    """
-    fac = path.factorization
-    g = fac.d / (np.square(fac.d) + lam)
-    if un is None:
-        un = to_sample_space(fac.u, path.fit_intercept)  # (n, r)
-    h = (proj * g) @ un.T
-    if path.fit_intercept:
-        h += 1.0 / path.n_samples
-    return h
-
-
-def leave_out_shift(path, proj: np.ndarray, lam: float, resid: np.ndarray,
-                    labels: np.ndarray) -> np.ndarray:
-    """:math:`\\hat\\mu(x) - \\hat\\mu_{(-f)}(x)` for every fold ``f``, shape (b, K).
-
-    For a linear smoother fitted by penalized least squares, leaving out the
-    rows of fold :math:`f` changes the fit at :math:`x` by
-    :math:`h_f(x)^T (I - H_{ff})^{-1} e_f = h_f(x)^T e_{(-f)}`, with
-    :math:`e_{(-f)}` the held-out residuals of the fold (Woodbury identity; for a
-    single row, the Sherman–Morrison leave-one-out update).  The sum over the
-    fold is taken on the factors: :math:`\\sum_{i \\in f} h_i(x) e_{(-f),i} =
-    \\bar e_f + a(x)^T \\operatorname{diag}(d/(d^2+\\lambda))\\, U_f^T e_{(-f)}`,
-    O(b r K) without an (b, n) cross-hat block.
-
-    Parameters
-    ----------
-    proj : ndarray, shape (b, r)
-        New rows in the right singular basis (see :func:`cross_hat`).
-    resid : ndarray, shape (n,)
-        Held-out residuals :math:`y_i - \\hat\\mu_{(-f(i))}(x_i)`.
-    labels : ndarray of int, shape (n,)
-        Fold of each row, ``0 .. K-1``.
-    """
-    fac = path.factorization
-    K = int(labels.max()) + 1
-    un = to_sample_space(fac.u, path.fit_intercept)  # (n, r)
-    E = np.zeros((path.n_samples, K))
-    E[np.arange(path.n_samples), labels] = resid
-    g = fac.d / (np.square(fac.d) + lam)
-    shift = (proj * g) @ (un.T @ E)
-    if path.fit_intercept:
-        shift += E.sum(axis=0) / path.n_samples
-    return shift
-
-
 # ------------------------------------------------------------------ orchestration
 def _blocks(m: int, n: int, budget: int):
     """Row blocks of new rows so that three (rows x n) float64 arrays fit in ``budget`` bytes."""
@@ -212,22 +158,19 @@ def _quantiles(centers: np.ndarray, radius: np.ndarray, k_lo: int, k_hi: int):
     return lower, upper
 
 
-def _one_target(path, proj, lam, j, method, k_lo, k_hi, labels, budget):
+def _one_target(path, state, proj, lam, j, method, k_lo, k_hi, labels, budget):
     """(prediction, lower, upper) of target ``j`` for all new rows."""
-    from paths.selection.cv import heldout_residuals, loo_residuals
+    from paths.selection.cv import heldout_residuals
 
-    fac = path.factorization
-    g = fac.d / (np.square(fac.d) + lam)
-    pred = path.design.y_mean[j] + proj @ (g * path.uty[:, j])
+    pred = path.design.y_mean[j] + proj @ (algebra.gains(state.d, lam)[:, 0] * state.uty[:, j])
     m, n = proj.shape[0], path.n_samples
     lower, upper = np.empty(m), np.empty(m)
+    un = to_sample_space(path.factorization.u, path.fit_intercept)  # (n, r)
     if method == "jackknife+":
-        e = np.asarray(loo_residuals(path, np.array([lam])))[:, 0]
-        e = e if e.ndim == 1 else e[:, j]
+        e = algebra.loo_residuals(state, np.array([lam]))[:, 0, j]
         radius = np.abs(e)
-        un = to_sample_space(fac.u, path.fit_intercept)
         for s, t in _blocks(m, n, budget):
-            shift = cross_hat(path, proj[s:t], lam, un=un)
+            shift = algebra.cross_hat(state, proj[s:t], lam, un)
             shift *= e  # mu(x) - mu_{-i}(x) = h_i(x) e_(i)
             centers = np.subtract(pred[s:t, None], shift, out=shift)
             lower[s:t], upper[s:t] = _quantiles(centers, radius, k_lo, k_hi)
@@ -236,13 +179,14 @@ def _one_target(path, proj, lam, j, method, k_lo, k_hi, labels, budget):
     e = e if e.ndim == 1 else e[:, j]
     if method == "split":  # the proper training fit and the calibration quantile
         cal = labels == 0
-        shift = leave_out_shift(path, proj, lam, np.where(cal, e, 0.0), cal.astype(np.intp))
+        shift = algebra.leave_out_shift(state, proj, lam, un, np.where(cal, e, 0.0),
+                                        cal.astype(np.intp))
         center = pred - shift[:, 1]
         q = np.sort(np.abs(e[cal]))[k_hi - 1]
         return center, center - q, center + q
     radius = np.abs(e)
     for s, t in _blocks(m, n, budget):
-        shift = leave_out_shift(path, proj[s:t], lam, e, labels)  # (b, K)
+        shift = algebra.leave_out_shift(state, proj[s:t], lam, un, e, labels)  # (b, K)
         centers = pred[s:t, None] - shift[:, labels]
         lower[s:t], upper[s:t] = _quantiles(centers, radius, k_lo, k_hi)
     return pred, lower, upper
@@ -337,7 +281,8 @@ def prediction_intervals(path, X_new, lam, *, level: float = 0.9, method: str = 
     (coverage at least :math:`1 - \\alpha`; Lei et al. 2018, Thm 2.2).
 
     Every leave-out fit is the full-data fit minus :math:`h_f(x)^T e_{(-f)}`
-    (:func:`leave_out_shift`; :func:`cross_hat` for single rows), with the
+    (:func:`paths.core.algebra.leave_out_shift`; :func:`paths.core.algebra.cross_hat`
+    for single rows), with the
     held-out residuals from :mod:`paths.selection.cv`.  Cost: O(m p r) to place
     the new rows in the singular basis (the same as :meth:`RidgePath.predict`),
     plus O(m n r) for jackknife+ or O(m r K + m n) for CV+.
@@ -382,7 +327,10 @@ def prediction_intervals(path, X_new, lam, *, level: float = 0.9, method: str = 
     n_cal = int(np.sum(labels == 0)) if method == "split" else None
     k_lo, k_hi = conformal_ranks(n_cal if method == "split" else n, level)
     proj = _project(path, X_new, int(max_block_bytes))  # (m, r)
-    out = [_one_target(path, proj, float(lam_arr[j]), j, method, k_lo, k_hi, labels,
+    from paths.selection.reml import path_state
+
+    state = path_state(path)
+    out = [_one_target(path, state, proj, float(lam_arr[j]), j, method, k_lo, k_hi, labels,
                        int(max_block_bytes)) for j in range(t)]
     pred, lower, upper = (np.stack([o[i] for o in out], axis=1) for i in range(3))
     if not path.multi_target:

@@ -19,7 +19,8 @@ norm of the response outside the column span,
 .. math:: \\log\\det H = \\sum_j L_j, \\quad L_j = \\log(1 + d_j^2/\\lambda), \\qquad
           r^T H^{-1} r = \\sum_j c_j^2 e^{-L_j} + B,
 
-so the whole profile costs O(k r) for k penalties; the :math:`m - r` zero
+so the whole profile costs O(k r) for k penalties (the closed forms are
+:func:`paths.core.algebra.reml_profile` and :func:`paths.core.algebra.reml_variances`); the :math:`m - r` zero
 singular values contribute :math:`L = 0` and their part of the response is
 :math:`B`.  :math:`L_j` is evaluated as ``log1p(d²/λ)`` for
 :math:`\\lambda \\ge d_j^2` and as :math:`\\log(d_j^2+\\lambda) - \\log\\lambda`
@@ -41,98 +42,24 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy.optimize import brentq, minimize_scalar
-from scipy.special import logsumexp
 
-__all__ = ["RemlEstimate", "reml_estimate", "reml_profile", "reml_loglik", "reml_variances",
-           "reml_interval", "CHI2_1_95"]
+from paths.core import algebra
+
+__all__ = ["RemlEstimate", "reml_estimate", "reml_loglik", "reml_interval", "path_state",
+           "CHI2_1_95"]
 
 CHI2_1_95 = 3.841458820694124  # 0.95 quantile of chi-square with 1 df (scipy.stats.chi2.ppf)
 
 
-def _dims(fac, design, uty, target=None):
-    """``m``, ``c`` (r, t) and ``B`` (t,): rows, projections, and the part outside the span.
-
-    ``target``: keep that one target only (t = 1).
-    """
-    m, r = fac.u.shape
-    zy = design.zy
-    if target is not None:
-        uty, zy = uty[:, target:target + 1], zy[:, target:target + 1]
-    if r == m:
-        outside = np.zeros(uty.shape[1])
-    else:
-        resid = zy - fac.u @ uty
-        outside = np.einsum("it,it->t", resid, resid)
-    return m, uty, outside
-
-
-def _log1p_ratio(d2: np.ndarray, lam: np.ndarray) -> np.ndarray:
-    """:math:`L_{jk} = \\log(1 + d_j^2/\\lambda_k)`, shape (r, k), for λ > 0, no overflow."""
-    d2c, lamr = d2[:, None], lam[None, :]
-    big = lamr >= d2c
-    with np.errstate(divide="ignore", over="ignore"):
-        return np.where(big, np.log1p(np.where(big, d2c / lamr, 0.0)),
-                        np.log(d2c + lamr) - np.log(lamr))
-
-
-def reml_profile(fac, design, uty, lam, *, target: int | None = None) -> np.ndarray:
-    """Restricted log-likelihood :math:`\\ell(\\lambda)` (σ² profiled out), shape (k, t).
-
-    Parameters
-    ----------
-    fac : Factorization
-    design : Design
-    uty : ndarray, shape (r, t)
-        ``fac.u.T @ design.zy``.
-    lam : array_like, shape (k,)
-        Penalties >= 0, or ``inf`` (the intercept-only limit).
-    target : int, optional
-        Only this target (then t = 1).
-
-    Returns
-    -------
-    ndarray, shape (k, t)
-        Up to an additive constant; ``-inf`` at λ = 0 when the response has a
-        part outside the column span.
-    """
-    lam = np.atleast_1d(np.asarray(lam, dtype=float))
-    m, c, outside = _dims(fac, design, uty, target)
-    d2 = np.square(fac.d)
-    out = np.empty((lam.size, c.shape[1]))
-    big = (lam >= d2[-1]) & np.isfinite(lam)
-    if big.any():
-        L = _log1p_ratio(d2, lam[big])  # (r, kb)
-        a = np.concatenate([-L, np.zeros((1, L.shape[1]))])[:, :, None]  # (r+1, kb, 1)
-        b = np.concatenate([np.square(c), outside[None, :]])[:, None, :]  # (r+1, 1, t)
-        logq = logsumexp(a, b=b, axis=0)  # (kb, t)
-        out[big] = -0.5 * (m * (logq - np.log(m)) + L.sum(axis=0)[:, None])
-    small = (lam > 0) & (lam < d2[-1])
-    if small.any():  # q = lam w: m log q + sum L = (m - r) log lam + m log w + sum log(d^2 + lam)
-        ls = lam[small]
-        logden = np.log(d2[:, None] + ls[None, :])  # (r, ks)
-        with np.errstate(divide="ignore"):
-            a = np.concatenate([-logden, -np.log(ls)[None, :]])[:, :, None]
-        b = np.concatenate([np.square(c), outside[None, :]])[:, None, :]
-        logw = logsumexp(a, b=b, axis=0)  # (ks, t)
-        r = d2.size
-        out[small] = -0.5 * (m * (logw - np.log(m)) + ((m - r) * np.log(ls)
-                                                        + logden.sum(axis=0))[:, None])
-    inf = np.isinf(lam)
-    if inf.any():
-        total = np.sum(np.square(c), axis=0) + outside
-        out[inf] = -0.5 * m * np.log(total / m)
-    zero = lam == 0
-    if zero.any():
-        if outside.any() or c.shape[0] < m:
-            out[zero] = -np.inf
-        else:
-            s = np.sum(np.square(c) * (d2[-1] / d2)[:, None], axis=0)  # scaled by d_r^2
-            out[zero] = -0.5 * (m * (np.log(s / m) - np.log(d2[-1])) + np.sum(np.log(d2)))
-    return out
+def path_state(path) -> algebra.FactorState:
+    """The path's factor state (:class:`paths.core.algebra.FactorState`)."""
+    state = getattr(path, "state", None)
+    return state if state is not None else algebra.factor_state(path.factorization, path.design)
 
 
 def reml_loglik(path, lam=None) -> np.ndarray:
-    """:func:`reml_profile` of a :class:`~paths.core.path.RidgePath`; default its grid.
+    """:func:`paths.core.algebra.reml_profile` of a :class:`~paths.core.path.RidgePath`
+    (default: on its grid).
 
     Shape (k,), or (k, t) with several targets.
 
@@ -148,33 +75,11 @@ def reml_loglik(path, lam=None) -> np.ndarray:
     ((100,), True)
     """
     lam = path.lambdas if lam is None else lam
-    out = reml_profile(path.factorization, path.design, path.uty, lam)
+    out = algebra.reml_profile(path_state(path), lam)
     return out if path.multi_target else out[:, 0]
 
 
-def reml_variances(fac, design, uty, lam: float, target: int = 0) -> tuple[float, float]:
-    """``(noise variance, signal variance)`` at penalty ``lam`` for one target.
-
-    :math:`\\hat\\sigma^2 = r^T H^{-1} r/m` and :math:`\\hat\\sigma^2 \\sum_j d_j^2/(\\lambda m)`;
-    at ``lam = inf`` the signal variance is 0; at ``lam = 0`` (full row rank) the
-    noise variance is 0 and the signal variance its limit
-    :math:`\\sum_j c_j^2 d_j^{-2} \\sum_j d_j^2 / m^2`.
-    """
-    m, c, outside = _dims(fac, design, uty, target)
-    d2 = np.square(fac.d)
-    cj = c[:, 0]
-    if np.isinf(lam):
-        return float((cj @ cj + outside[0]) / m), 0.0
-    if lam == 0:  # full row rank: sigma^2 -> 0 while sigma^2 / lambda -> sum c^2/d^2 / m
-        if outside[0] > 0 or d2.size < m:
-            return float(outside[0]) / max(m - d2.size, 1), 0.0
-        return 0.0, float(np.sum(np.square(cj) / d2) * np.sum(d2)) / m ** 2
-    q = float(np.sum(np.square(cj) * (lam / (d2 + lam))) + outside[0])
-    sigma2 = q / m
-    return sigma2, sigma2 * float(np.sum(d2)) / (lam * m)
-
-
-def reml_interval(fac, design, uty, lam_hat: float, target: int = 0, *,
+def reml_interval(state, lam_hat: float, target: int = 0, *,
                   threshold: float = CHI2_1_95) -> tuple[float, float]:
     """Likelihood-ratio interval for λ: :math:`\\{\\lambda : 2[\\ell(\\hat\\lambda) - \\ell(\\lambda)] \\le \\chi^2_{1}\\}`.
 
@@ -185,11 +90,11 @@ def reml_interval(fac, design, uty, lam_hat: float, target: int = 0, *,
     profile at λ → 0 (or ∞) stays within the threshold.
     """
     def prof(lam):
-        return float(reml_profile(fac, design, uty, np.array([lam]), target=target)[0, 0])
+        return float(algebra.reml_profile(state, np.array([lam]), target=target)[0, 0])
 
     top = prof(lam_hat)
     cut = top - 0.5 * threshold
-    d2 = np.square(fac.d)
+    d2 = np.square(state.d)
     ends = []
     for direction, limit in ((-1.0, 0.0), (1.0, np.inf)):
         if lam_hat == limit:
@@ -267,12 +172,12 @@ def reml_estimate(path, target: int = 0, *, n_grid: int = 400) -> RemlEstimate:
     >>> est.lam_interval[0] < est.lam < est.lam_interval[1]
     True
     """
-    fac, design, c = path.factorization, path.design, path.uty
-    d2 = np.square(fac.d)
+    state = path_state(path)
+    d2 = np.square(state.d)
     grid = np.geomspace(1e-6 * d2[-1], 1e6 * d2[0], n_grid)
 
     def prof(lam):
-        return reml_profile(fac, design, c, lam, target=target)[:, 0]
+        return algebra.reml_profile(state, lam, target=target)[:, 0]
 
     vals = prof(grid)
     i = int(np.argmax(vals))
@@ -290,8 +195,8 @@ def reml_estimate(path, target: int = 0, *, n_grid: int = 400) -> RemlEstimate:
                               bounds=(lo, hi), method="bounded", options={"xatol": 1e-8})
         lam, top = (float(np.exp(res.x)), -float(res.fun)) if -res.fun >= vals[i] else (
             float(grid[i]), float(vals[i]))
-    sigma2, signal = reml_variances(fac, design, c, lam, target)
-    interval = reml_interval(fac, design, c, lam, target)
+    sigma2, signal = algebra.reml_variances(state, lam, target)
+    interval = reml_interval(state, lam, target)
     share = signal / (signal + sigma2)
     return RemlEstimate(lam=lam, loglik=top, noise_variance=sigma2, signal_variance=signal,
                         variance_explained=float(share), lam_interval=interval, note=note)
