@@ -342,6 +342,27 @@ def write_saved_fit(dest: Path, result: RidgePath, selection, data: Dataset,
                     input_sha256=input_sha256, **header_kw)
 
 
+def write_engine_fit(dest: Path, result, targets, source: str, input_sha256=None) -> Path:
+    """A predict-only ``fit.npz`` of an out-of-memory engine's path (its grid minima as rules;
+    the reported one: K-fold CV when computed, else GCV)."""
+    from paths.present.fitfile import save_fit
+
+    def grid_min(values):
+        if values is None:
+            return None
+        v = np.asarray(values, dtype=float).reshape(result.lambdas.size, -1)
+        return [float(result.lambdas[int(np.argmin(v[:, j]))]) for j in range(v.shape[1])]
+
+    rules = {"gcv": grid_min(result.gcv), "loo": grid_min(result.loo_mse),
+             "cv": grid_min(result.cv_mse)}
+    rule = "cv" if rules["cv"] is not None else "gcv"
+    prep = {"source_columns": list(result.feature_names), "encoding": {}, "id_column": None,
+            "drop_missing": None, "target_names": list(targets), "source": source}
+    return save_fit(dest, result, reported=np.array(rules[rule]),
+                    reported_rule=f"{rule} (grid minimum)", rules=rules, preparation=prep,
+                    input_sha256=input_sha256)
+
+
 def _selection(result, X, y, *, cv, repeats, groups, folds, cv_scaling, seed, rule):
     """K-fold CV (when asked) and every selection rule; ``(report, cv record, CVResult)``."""
     from paths.data.validation import InputError
@@ -596,6 +617,8 @@ def explore_engine(
 
             summary["report"] = report_numbers(summary)
         files.append(write_json(out / "summary.json", summary))
+        if result.coef is not None and result.engine != "wide":  # wide: no right factors kept
+            files.append(write_engine_fit(out / "fit.npz", result, targets, str(path), digests))
         if drawable:
             files += write_explore_outputs(result, summary, out, formats=formats or (),
                                            width=width, x=x_axis, report=report)
