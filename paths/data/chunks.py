@@ -109,7 +109,7 @@ class ArrayRows(RowSource):
             yield s, block
 
 
-def _parquet_files(path: Path) -> list[Path]:
+def parquet_files(path: Path) -> list[Path]:
     if path.is_dir():
         files = sorted(f for f in path.rglob("*") if f.is_file()
                        and f.suffix.lower() in _PARQUET_SUFFIXES)
@@ -166,7 +166,7 @@ class ParquetRows(RowSource):
         path = Path(path)
         if not path.exists():
             raise InputError(f"{path}: no such file or folder; check the path")
-        self._files = _parquet_files(path)
+        self._files = parquet_files(path)
         where = f"{path}: "
         try:
             schemas = [pq.read_schema(f) for f in self._files]

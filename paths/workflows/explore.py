@@ -1,0 +1,240 @@
+"""The explore workflow: read → prepare → factor → path → select → record → draw → report.
+
+:func:`run_explore` is what ``paths explore`` and an ``analysis = "explore"``
+case file call; both hand over the same options
+(:mod:`paths.workflows.options`), so the same options give the same numbers and
+the same files.  The steps are functions of their own: :func:`fit_and_select`
+(factor, path, K-fold CV, selection rules), :func:`explore_record` (the
+``summary.json`` record) and :func:`write_explore` (tables, figures, report).
+"""
+from __future__ import annotations
+
+import shlex
+import sys
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from paths.data.validation import InputError
+from paths.workflows.options import (DataOptions, EngineOptions, FigureOptions, FitOptions,
+                                     OutputOptions)
+from paths.workflows.prepare import Prepared, TrainTest, prepare, train_test
+
+__all__ = ["ExploreRun", "Fitted", "run_explore", "explore_prepared", "fit_and_select",
+           "explore_record", "write_explore", "per_target", "refuse_inputs_as_outputs",
+           "command_text", "check_figures"]
+
+
+@dataclass(frozen=True)
+class ExploreRun:
+    """What an explore run produced: the path, the summary record and the files written."""
+
+    result: object  # RidgePath (or an engine's path)
+    summary: dict
+    out_dir: Path
+    files: list = field(default_factory=list)
+    selection: object = None  # SelectionReport: every rule side by side
+    cv: object = None  # CVResult, when K-fold CV was asked for
+
+
+@dataclass(frozen=True)
+class Fitted:
+    """The fitted path, every selection rule, and K-fold CV (record and result) when asked."""
+
+    result: object
+    selection: object
+    cv_record: dict | None
+    cv: object
+    data: TrainTest
+
+
+def command_text(output: OutputOptions) -> str:
+    """The command line recorded in the outputs (this process's, when none was given)."""
+    return shlex.join(output.command_line or ["paths", *sys.argv[1:]])
+
+
+def check_figures(figures: FigureOptions) -> tuple:
+    """Validate the figure options before any work; returns ``(formats, width)``."""
+    from paths.present.figures import parse_formats, parse_width
+
+    formats = parse_formats(figures.formats) if figures.formats else ()
+    width = parse_width(figures.width)
+    if figures.x not in ("log_lambda", "df"):
+        raise InputError(f"x (the figure axis) must be log_lambda or df; got {figures.x!r}")
+    return formats, width
+
+
+def run_explore(data: DataOptions, fit: FitOptions = FitOptions(),
+                figures: FigureOptions = FigureOptions(),
+                output: OutputOptions = OutputOptions(), *,
+                engine: EngineOptions = EngineOptions(), base_dir=None, extra: dict | None = None,
+                progress=None) -> ExploreRun:
+    """The whole explore workflow from options: prepare the data, fit, select, write.
+
+    ``engine`` other than in-memory runs :func:`paths.workflows.engines.explore_engine`
+    (the file is not read into memory); ``base_dir`` is the folder relative
+    data paths are read from; ``extra`` keys are added to ``summary.json``;
+    ``progress(stage, done, total)`` reports the out-of-memory passes.
+    """
+    check_figures(figures)
+    if engine.name != "memory":
+        from paths.workflows.engines import explore_engine
+
+        return explore_engine(data, fit, figures, output, engine=engine, progress=progress)
+    prepared = prepare(data, base_dir=base_dir)
+    return explore_prepared(prepared, fit, figures, output, holdout=data.holdout, extra=extra)
+
+
+def explore_prepared(prepared: Prepared, fit: FitOptions = FitOptions(),
+                     figures: FigureOptions = FigureOptions(),
+                     output: OutputOptions = OutputOptions(), *, holdout: float | None = None,
+                     extra: dict | None = None) -> ExploreRun:
+    """Fit, select, record and write on prepared data (the steps after :func:`prepare`)."""
+    from paths.data.output import prepare_out_dir
+    from paths.data.validation import check_rows_for_cv
+
+    check_figures(figures)
+    check_rows_for_cv(prepared.train.X.shape[0], fit.n_folds, prepared.train.source)
+    out = prepare_out_dir(output.out_dir, force=output.force)
+    fitted = fit_and_select(prepared, fit, holdout=holdout)
+    summary = explore_record(prepared, fitted, command_line=command_text(output),
+                             extra=extra)
+    files = write_explore(fitted, summary, out, prepared.train.target_names, figures,
+                          inputs=prepared.digests)
+    return ExploreRun(result=fitted.result, summary=summary, out_dir=out, files=files,
+                      selection=fitted.selection, cv=fitted.cv)
+
+
+def fit_and_select(prepared: Prepared, fit: FitOptions, *, holdout=None) -> Fitted:
+    """Factor and fit the whole path, run K-fold CV when asked, apply every selection rule."""
+    import pandas as pd
+
+    from paths.core.path import fit_path
+
+    data = train_test(prepared, holdout=holdout, seed=fit.seed)
+    frame = pd.DataFrame(data.X, columns=prepared.train.feature_names)
+    result = fit_path(frame, data.y, n_lambdas=fit.n_lambdas, standardize=fit.standardize,
+                      solver=fit.solver, X_test=data.X_test, y_test=data.y_test)
+    selection, record, cv_res = select_rules(result, data, fit)
+    return Fitted(result=result, selection=selection, cv_record=record, cv=cv_res, data=data)
+
+
+def _folds_for(groups, n_rows: int, fit: FitOptions):
+    """The number of folds: the option, or min(10, number of groups) with groups only."""
+    if groups is not None:
+        if groups.shape[0] != n_rows:
+            raise InputError(f"the group column has {groups.shape[0]} values for {n_rows} "
+                             "rows (rows were dropped?); give every row a group")
+        return fit.n_folds if fit.n_folds is not None else min(10, np.unique(groups).size)
+    if fit.n_folds is None and fit.repeats != 1:
+        raise InputError("repeats needs n_folds (K-fold cross-validation)")
+    return fit.n_folds
+
+
+def cv_record(cv_res) -> dict:
+    """The ``cv`` record of ``summary.json`` from a :class:`~paths.selection.cv.CVResult`."""
+    def lst(a):
+        return None if a is None else np.asarray(a, dtype=float).tolist()
+
+    return {"n_folds": cv_res.n_folds, "repeats": cv_res.repeats, "scheme": cv_res.scheme,
+            "seed": cv_res.seed, "scaling": cv_res.scaling, "method": cv_res.method,
+            "form": cv_res.form, "method_reason": cv_res.method_reason,
+            "fold_sizes": cv_res.fold_sizes.tolist(), "mse": lst(cv_res.mse),
+            "se": lst(cv_res.se), "se_repeats": lst(cv_res.se_repeats)}
+
+
+def select_rules(result, data: TrainTest, fit: FitOptions):
+    """K-fold CV (when asked) and every selection rule; ``(report, cv record, CVResult)``."""
+    from paths.selection.cv import cross_validate
+    from paths.selection.rules import select_penalty
+
+    groups = None if data.groups is None else np.asarray(data.groups)
+    n_folds = _folds_for(groups, data.X.shape[0], fit)
+    cv_res = None
+    if n_folds is not None:
+        cv_res = cross_validate(data.X, data.y, path=result, n_folds=n_folds,
+                                scheme=fit.fold_scheme, seed=fit.seed, repeats=fit.repeats,
+                                groups=groups, scaling=fit.cv_scaling)
+    report = select_penalty(result, cv_res, reported=fit.rule)
+    return report, None if cv_res is None else cv_record(cv_res), cv_res
+
+
+def _by_target(summary: dict, result, selection, targets) -> dict:
+    from paths.present.summary import selections
+
+    mn = summary["min_norm"]
+    return {name: {"selected": {**selections(result, j), **selection.as_dict(j)},
+                   "min_norm": {k: mn[k][j] if isinstance(mn[k], list) else mn[k] for k in mn}}
+            for j, name in enumerate(targets)}
+
+
+def explore_record(prepared: Prepared, fitted: Fitted, *, command_line: str,
+                   extra: dict | None = None) -> dict:
+    """The ``summary.json`` record of an in-memory explore run."""
+    from paths.present.report import report_numbers
+    from paths.present.summary import summary_dict
+
+    train, result, selection = prepared.train, fitted.result, fitted.selection
+    targets = list(train.target_names)
+    summary = summary_dict(
+        result, target=targets[0] if len(targets) == 1 else targets, source=train.source,
+        input_sha256=dict(prepared.digests), split=fitted.data.split,
+        command_line=command_line, data_notes=prepared.notes,
+        data_preparation=train.record(),
+        noise_variance=selection.noise.as_dict(None if result.multi_target else 0),
+        reported=selection.reported, cv=fitted.cv_record)
+    summary["selected"] = {**summary["selected"], **selection.as_dict(0)}
+    if len(targets) > 1:
+        summary["targets"] = targets
+        summary["by_target"] = _by_target(summary, result, selection, targets)
+    if prepared.generator is not None:
+        summary["generator"] = prepared.generator
+    summary.update(extra or {})
+    summary["report"] = report_numbers(summary)
+    return summary
+
+
+def per_target(table, result, targets) -> tuple[list, list]:
+    """One table for one target; for several, each target's rows under a ``target`` column."""
+    if len(targets) == 1:
+        return table(result)
+    header, rows = None, []
+    for j, name in enumerate(targets):
+        h, r = table(result, j)
+        header = ["target", *h]
+        rows.extend([name, *row] for row in r)
+    return header, rows
+
+
+def refuse_inputs_as_outputs(out: Path, names, inputs) -> None:
+    """Refuse to write an output file over an input file (even with ``force``)."""
+    for name in names:
+        dest = out / name
+        for src in inputs:
+            try:
+                same = dest.exists() and Path(src).exists() and dest.samefile(src)
+            except OSError:
+                same = False
+            if same:
+                raise InputError(f"out_dir {out} would overwrite the input file {src} ({name}); "
+                                 "choose another output folder")
+
+
+def write_explore(fitted, summary: dict, out: Path, targets, figures: FigureOptions, *,
+                  inputs=()) -> list:
+    """path.csv, coefficients.csv, summary.json, then the figures and the report."""
+    from paths.data.output import write_csv, write_json
+    from paths.present.report import write_explore_outputs
+    from paths.present.summary import coefficient_table, path_table
+
+    formats, width = check_figures(figures)
+    result = fitted.result
+    refuse_inputs_as_outputs(out, ("path.csv", "coefficients.csv", "summary.json"), inputs)
+    files = [write_csv(out / "path.csv", *per_target(path_table, result, targets)),
+             write_csv(out / "coefficients.csv", *per_target(coefficient_table, result, targets)),
+             write_json(out / "summary.json", summary)]
+    if formats or figures.report:
+        files += write_explore_outputs(result, summary, out, cv=fitted.cv, formats=formats,
+                                       width=width, x=figures.x, report=figures.report)
+    return files
