@@ -94,8 +94,9 @@ def flags_of(func) -> dict:
 
 
 # a parameter name is turned into its flag when it cannot be prose: it has an underscore,
-# it starts the message, or it follows "either", "or", "and", "with", "needs"
-_CONTEXT = r"(?:^|(?<=\beither )|(?<=\bor )|(?<=\band )|(?<=\bwith )|(?<=\bneeds ))"
+# it starts the message, or it follows "either", "or", "and", "with", "needs", "use"
+_CONTEXT = (r"(?:^|(?<=\beither )|(?<=\bor )|(?<=\band )|(?<=\bwith )|(?<=\bneeds )"
+            r"|(?<=\buse ))")
 
 
 def as_flags(message: str, flags: dict) -> str:

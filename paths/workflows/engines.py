@@ -192,7 +192,7 @@ def explore_engine(data: DataOptions, fit: FitOptions = FitOptions(),
         raise InputError(f"engine must be one of {', '.join(ENGINES)}; got {engine.engine!r}")
     bad = unsupported_options(data, fit)
     if bad:
-        raise InputError(f"{bad[0]} is not available with the {engine.name} engine; drop it "
+        raise InputError(f"{bad[0]} is not available with engine {engine.name}; drop it "
                          "or use engine memory")
     formats, width = check_figures(figures)
     if data.file is None:
