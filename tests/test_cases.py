@@ -99,7 +99,7 @@ def test_demo_writes_every_promised_file_and_says_where_the_report_is(tmp_path):
     out = tmp_path / "paths-demo"
     res = runner.invoke(app, ["demo", "--out", str(out)])
     assert res.exit_code == 0, res.output
-    assert sorted(p.name for p in out.iterdir()) == sorted(DEMO_FILES)
+    assert sorted(p.name for p in out.iterdir() if not p.name.startswith(".")) == sorted(DEMO_FILES)
     assert f"report: {out / 'report.html'}" in res.output.replace("\n", "")
     s = json.loads((out / "summary.json").read_text())
     assert s["synthetic"] is True and s["case"] == "calibration"
@@ -154,7 +154,7 @@ def test_a_small_simulate_case_writes_threshold_outputs(tmp_path):
         .replace("n_points = 30", "n_points = 8").replace("n_test = 200", "n_test = 40") \
         .replace("repeats = 3", "repeats = 2")
     crun = run_case(parse_case(text), tmp_path / "iso", formats="svg", width="single")
-    names = {p.name for p in (tmp_path / "iso").iterdir()}
+    names = {p.name for p in (tmp_path / "iso").iterdir() if not p.name.startswith(".")}
     assert {"threshold.csv", "threshold.json", "bias_variance.csv", "fig-threshold.svg",
             "fig-threshold.csv", "report.md", "report.html"} <= names
     s = json.loads((tmp_path / "iso" / "threshold.json").read_text())
@@ -190,7 +190,8 @@ formats = ["svg"]
     crun = run_case(parse_case(text), tmp_path / "sweep")
     s = json.loads((tmp_path / "sweep" / "threshold.json").read_text())
     assert {"threshold.csv", "threshold.json", "fig-threshold.svg", "report.html"} <= \
-        {p.name for p in (tmp_path / "sweep").iterdir()}
+        {p.name for p in (tmp_path / "sweep").iterdir()
+         if not p.name.startswith(".")}
     nums, strs = set(), []
 
     def walk(o):

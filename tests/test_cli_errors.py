@@ -205,8 +205,9 @@ def test_debug_shows_traceback(tmp_path):
 
 
 def test_ctrl_c_during_write_leaves_no_partial_file(tmp_path, good, monkeypatch):
-    """KeyboardInterrupt while a file is being written: exit 130, no file under a final name
-    is half-written and no temporary is left behind."""
+    """KeyboardInterrupt while a file is being written: exit 130; the outputs were staged,
+    so nothing lands under a final name, no temporary is left and the folder this run
+    created is removed again (issue 12 item 7: a folder holds one run's complete set)."""
     import paths.data.output
 
     real = paths.data.output.os.replace
@@ -214,7 +215,7 @@ def test_ctrl_c_during_write_leaves_no_partial_file(tmp_path, good, monkeypatch)
 
     def interrupted(src, dst):
         calls["n"] += 1
-        if calls["n"] == 2:  # path.csv renamed in place, then Ctrl-C before coefficients.csv
+        if calls["n"] == 2:  # path.csv staged, then Ctrl-C before coefficients.csv
             raise KeyboardInterrupt
         return real(src, dst)
 
@@ -222,6 +223,5 @@ def test_ctrl_c_during_write_leaves_no_partial_file(tmp_path, good, monkeypatch)
     out = tmp_path / "o"
     res = runner.invoke(app, ["explore", str(good), "-t", "y", "--out", str(out)])
     assert res.exit_code == 130
-    assert sorted(p.name for p in out.iterdir()) == ["path.csv"]
-    text = (out / "path.csv").read_text()
-    assert text.endswith("\n") and len(text.splitlines()) == 101  # header + 100 penalties
+    assert not out.exists()
+    assert not [p.name for p in tmp_path.iterdir() if p.name.startswith(".")]

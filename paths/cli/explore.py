@@ -101,7 +101,7 @@ def print_summary(run) -> None:
 
 @command("explore")
 def explore_cmd(
-    file: Path = typer.Argument(..., metavar="DATA", help=f.DATA_HELP),
+    data: Path = typer.Argument(..., help=f.DATA_HELP),
     target: list[str] = f.TARGET,
     sep: str = f.SEP,
     features: list[str] = f.FEATURES,
@@ -154,7 +154,8 @@ def explore_cmd(
 
     given = locals()
     engine_options = f.build(o.EngineOptions, given)
-    options = dict(data=f.build(o.DataOptions, given), fit=f.build(o.FitOptions, given),
+    options = dict(data=f.build(o.DataOptions, given, file=data),
+                   fit=f.build(o.FitOptions, given),
                    figures=f.build(o.FigureOptions, given),
                    output=f.build(o.OutputOptions, given, command_line=["paths", *sys.argv[1:]]),
                    engine=engine_options)

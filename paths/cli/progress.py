@@ -9,7 +9,7 @@ __all__ = ["ProgressBar"]
 
 
 class ProgressBar:
-    """A rich progress display on stderr, one line per stage; use as a context manager."""
+    """A rich progress display on stderr, one line per stage, cleared when done; a context manager."""
 
     def __init__(self, *, rates: bool = False):
         from rich.progress import (BarColumn, MofNCompleteColumn, Progress, TextColumn,
@@ -20,7 +20,7 @@ class ProgressBar:
         self.rates = rates
         self.progress = Progress(TextColumn("{task.description}"), BarColumn(),
                                  MofNCompleteColumn(), TextColumn("{task.fields[rate]}"),
-                                 TimeElapsedColumn(), console=err_console, transient=False)
+                                 TimeElapsedColumn(), console=err_console, transient=True)
         self.tasks = {}
         self.started = False
 

@@ -45,7 +45,7 @@ def print_threshold(summary: dict, files, out_dir) -> None:
 
 @command("threshold")
 def threshold_cmd(
-    file: Path = typer.Argument(..., metavar="DATA", help=f.DATA_HELP),
+    data: Path = typer.Argument(..., help=f.DATA_HELP),
     target: list[str] = f.TARGET,
     sep: str = f.SEP,
     features: list[str] = f.FEATURES,
@@ -84,7 +84,7 @@ def threshold_cmd(
     given = locals()
     with ProgressBar() as bar:
         run = run_threshold(
-            f.build(o.DataOptions, given), f.build(o.ThresholdOptions, given),
+            f.build(o.DataOptions, given, file=data), f.build(o.ThresholdOptions, given),
             f.build(o.FigureOptions, given),
             f.build(o.OutputOptions, given, command_line=["paths", *sys.argv[1:]]),
             progress=bar)

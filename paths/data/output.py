@@ -1,8 +1,34 @@
-"""Writing results without losing anything: refuse to clobber, write atomically.
+"""Writing results without losing anything: one output folder per run, claimed, staged, swapped.
+
+An output folder is used through :class:`OutputFolder` (every command does):
+
+1. **Claim** (``__enter__``): the folder is created if needed and locked
+   (``.paths-lock``, an advisory ``flock``); a second run into the same folder is
+   refused in one line.  Leftovers of killed runs (hidden ``.paths-staging-*``
+   folders, ``.NAME.XXXXXXXX.tmp`` files, a half-finished swap) are recognised and
+   cleaned; a half-finished swap is completed first.  A folder holding anything
+   else is refused unless ``force``.
+2. **Stage**: every output is written into a fresh hidden folder
+   ``.paths-staging-XXXX`` inside the target (same file system, so the swap is a
+   rename); :meth:`OutputFolder.path` confines every name to it (no absolute
+   names, no ``..``).
+3. **Swap** (``__exit__`` without an exception): every staged file is checked
+   against the inputs of the run (resolved path and inode identity) before
+   anything is moved; a journal ``.paths-commit`` is written, the previous run's
+   outputs (from its manifest ``.paths-manifest.json``) are removed, the new files
+   are renamed into place and the manifest is rewritten.  An interrupted swap
+   leaves the journal, which marks the folder as a mix and is finished by the
+   next run.  On an exception, the staging folder is removed and a folder this
+   run created is removed again: nothing is left behind.
 
 Every file is written to a temporary file in its destination folder and renamed
 into place (``os.replace`` is atomic on POSIX and Windows), so an interrupted
 run never leaves a half-written file under a final name.
+
+CSV files are spreadsheet-safe: a text cell a spreadsheet would evaluate as a
+formula (starting with ``=``, ``+``, ``-``, ``@``, a tab or a carriage return) gets
+a leading apostrophe (the usual practice, OWASP "CSV Injection"); numbers are
+written as numbers.
 """
 from __future__ import annotations
 
@@ -10,21 +36,298 @@ import csv
 import io
 import json
 import os
+import re
+import shutil
 import tempfile
+import time
 from pathlib import Path
 
 from paths.data.validation import InputError
 
-__all__ = ["OutputError", "prepare_out_dir", "write_text", "write_bytes", "write_json",
-           "write_csv"]
+__all__ = ["OutputError", "OutputFolder", "prepare_out_dir", "write_text", "write_bytes",
+           "write_json", "write_csv", "safe_cell", "confined_name"]
+
+LOCK = ".paths-lock"
+MANIFEST = ".paths-manifest.json"
+JOURNAL = ".paths-commit"
+STAGING_PREFIX = ".paths-staging-"
+#: hidden names a killed run may leave: staging folders, write probes, atomic-write temporaries
+_LEFTOVER = re.compile(r"^(\.paths-staging-.+|\.paths-probe\..+|\..+\.[A-Za-z0-9_]{8}\.tmp)$")
+_OWN = {LOCK, MANIFEST, JOURNAL}
 
 
 class OutputError(InputError):
-    """The output location cannot be used (exists, not writable, not a folder)."""
+    """The output location cannot be used (exists, not writable, not a folder, an input)."""
+
+
+def confined_name(name: str, what: str = "output name") -> str:
+    """Return ``name`` as a relative path that stays inside its folder, or refuse it.
+
+    Refused: empty names, absolute paths, drive letters, ``..`` components,
+    NUL bytes and backslashes (a separator on Windows).
+    """
+    text = str(name)
+    parts = text.split("/")
+    if (not text or "\x00" in text or "\\" in text or text.startswith("/")
+            or re.match(r"^[A-Za-z]:", text) or any(p in ("", ".", "..") for p in parts)):
+        raise OutputError(f"{what} {text!r} is not a plain name inside the output folder "
+                          "(no '/', '..', '\\' or absolute paths); use letters, digits, '-', '_', '.'")
+    return text
+
+
+def _is_input(dest: Path, inputs) -> Path | None:
+    """The input ``dest`` would overwrite (same resolved path or same inode), else None."""
+    rdest = dest.resolve()
+    for src in inputs:
+        s = Path(src)
+        try:
+            if s.resolve() == rdest:
+                return s
+            if dest.exists() and s.exists() and os.path.samefile(dest, s):
+                return s
+        except OSError:
+            continue
+    return None
+
+
+class OutputFolder:
+    """The output folder of one run: claimed (locked), staged, checked against inputs, swapped.
+
+    Use as a context manager; write into :attr:`stage` (or :meth:`path`)::
+
+        with OutputFolder("runs/a", force=False, inputs=["data.csv"]) as folder:
+            write_csv(folder.path("path.csv"), header, rows)
+        folder.final_paths(files)  # where they are now
+
+    Parameters
+    ----------
+    path : path
+        The output folder (created with its parents if missing).
+    force : bool
+        Replace the outputs of a previous run; without it a non-empty folder is refused.
+    inputs : iterable of paths
+        Every file the run reads; no output may land on one, even with ``force``.
+    """
+
+    def __init__(self, path, *, force: bool = False, inputs=()):
+        self.target = Path(path)
+        self.force = force
+        self.inputs = [Path(p) for p in inputs if p is not None]
+        self.stage: Path | None = None
+        self.committed: list[Path] = []
+        self._lock_fd = None
+        self._created = False
+
+    # -------------------------------------------------------------- claim
+    def __enter__(self) -> "OutputFolder":
+        out = self.target
+        if out.exists() and not out.is_dir():
+            which = _is_input(out, self.inputs)
+            extra = " (it is an input of this run)" if which is not None else ""
+            raise OutputError(f"--out {out} exists and is not a folder{extra}; choose another --out")
+        for src in self.inputs:  # the folder itself must not be an input (a Parquet folder)
+            if src.is_dir() and _is_input(out, [src]) is not None:
+                raise OutputError(f"--out {out} is the input folder {src}; choose another --out")
+        self._created = not out.exists()
+        try:
+            out.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            raise OutputError(f"cannot create output folder {out} ({exc.strerror}); "
+                              "choose a writable --out") from None
+        try:
+            self._lock()
+            recover(out)
+            self._check_empty()
+            try:
+                self.stage = Path(tempfile.mkdtemp(prefix=STAGING_PREFIX, dir=out))
+            except OSError as exc:
+                raise OutputError(f"output folder {out} is not writable ({exc.strerror}); "
+                                  "choose a writable --out") from None
+        except BaseException:
+            self._release(remove_created=True)
+            raise
+        return self
+
+    def _lock(self) -> None:
+        out = self.target
+        for _ in range(5):
+            try:
+                fd = os.open(out / LOCK, os.O_RDWR | os.O_CREAT, 0o644)
+            except OSError as exc:
+                raise OutputError(f"output folder {out} is not writable ({exc.strerror}); "
+                                  "choose a writable --out") from None
+            if not _try_flock(fd):
+                holder = _read_small(fd)
+                os.close(fd)
+                raise OutputError(f"output folder {out} is in use by another paths run "
+                                  f"({holder or 'unknown process'}); wait for it to finish or "
+                                  "choose another --out")
+            try:  # the file may have been unlinked by the previous holder between open and lock
+                same = os.fstat(fd).st_ino == os.stat(out / LOCK).st_ino
+            except FileNotFoundError:
+                same = False
+            if same:
+                os.ftruncate(fd, 0)
+                os.write(fd, f"pid {os.getpid()} since {time.strftime('%H:%M:%S')}".encode())
+                self._lock_fd = fd
+                return
+            os.close(fd)
+        raise OutputError(f"could not lock output folder {out}; try again or choose another --out")
+
+    def _check_empty(self) -> None:
+        out = self.target
+        present = [e.name for e in out.iterdir() if e.name not in _OWN]
+        if present and not self.force:
+            shown = ", ".join(sorted(present)[:3]) + (" ..." if len(present) > 3 else "")
+            raise OutputError(
+                f"output folder {out} exists and is not empty ({shown}); choose another --out "
+                "or pass --force to replace the outputs of the previous run")
+
+    # -------------------------------------------------------------- stage
+    def path(self, name: str) -> Path:
+        """Where to write the output ``name`` (a relative name, confined to the folder)."""
+        if self.stage is None:
+            raise RuntimeError("OutputFolder.path() outside its with-block")
+        dest = self.stage / confined_name(name)
+        dest.parent.mkdir(parents=True, exist_ok=True)
+        return dest
+
+    def final(self, staged) -> Path:
+        """The final location of a file written under :attr:`stage`."""
+        p = Path(staged)
+        try:
+            return self.target / p.relative_to(self.stage)
+        except ValueError:
+            return p
+
+    def final_paths(self, staged) -> list[Path]:
+        """:meth:`final` of each path in ``staged``."""
+        return [self.final(p) for p in staged]
+
+    # -------------------------------------------------------------- swap
+    def __exit__(self, kind, exc, tb) -> None:
+        try:
+            if kind is None:
+                self.committed = self._commit()
+        finally:
+            self._release(remove_created=kind is not None)
+
+    def _commit(self) -> list[Path]:
+        out, stage = self.target, self.stage
+        names = sorted(str(f.relative_to(stage)) for f in stage.rglob("*")
+                       if f.is_file() and not _LEFTOVER.match(f.name))
+        for rel in names:  # every check before anything is moved
+            confined_name(rel)
+            dest = out / rel
+            src = _is_input(dest, self.inputs)
+            if src is not None:
+                raise OutputError(f"--out {out} would overwrite the input file {src} ({rel}); "
+                                  "choose another --out")
+            if dest.is_dir():
+                raise OutputError(f"{dest} is a folder; cannot write a file over it: remove it "
+                                  "or choose another --out")
+        old = [r for r in _manifest(out) if r not in names
+               and _is_input(out / r, self.inputs) is None]
+        write_json(out / JOURNAL, {"staging": stage.name, "files": names, "remove": old})
+        finish_swap(out)
+        return [out / r for r in names]
+
+    def _release(self, *, remove_created: bool) -> None:
+        out = self.target
+        swapping = (out / JOURNAL).exists()  # killed mid-swap: the next claim finishes it
+        if self.stage is not None and self.stage.exists() and not swapping:
+            shutil.rmtree(self.stage, ignore_errors=True)
+        if self._lock_fd is not None:
+            try:
+                os.unlink(out / LOCK)
+            except OSError:
+                pass
+            os.close(self._lock_fd)  # closing releases the flock
+            self._lock_fd = None
+        if remove_created and self._created:
+            try:
+                out.rmdir()  # only if empty: never removes anything but our own empty folder
+            except OSError:
+                pass
+
+
+def finish_swap(out: Path) -> None:
+    """Carry out the journal ``out/.paths-commit`` (idempotent: safe to rerun after a kill)."""
+    journal = out / JOURNAL
+    rec = json.loads(journal.read_text(encoding="utf-8"))
+    stage = out / confined_name(rec["staging"])
+    for rel in rec["remove"]:
+        try:
+            (out / confined_name(rel)).unlink()
+        except (FileNotFoundError, IsADirectoryError):
+            pass
+    for rel in rec["files"]:
+        src, dest = stage / confined_name(rel), out / rel
+        if src.exists():
+            dest.parent.mkdir(parents=True, exist_ok=True)
+            os.replace(src, dest)
+    write_json(out / MANIFEST, {"files": rec["files"],
+                                "written": time.strftime("%Y-%m-%dT%H:%M:%S%z")})
+    journal.unlink()
+    shutil.rmtree(stage, ignore_errors=True)
+
+
+def recover(out: Path) -> list[str]:
+    """Finish a half-done swap and remove leftovers of killed runs; the names cleaned.
+
+    Call only while holding the folder's lock (no live run owns these names).
+    """
+    cleaned = []
+    if (out / JOURNAL).exists():
+        try:
+            finish_swap(out)
+            cleaned.append(JOURNAL)
+        except (OSError, ValueError, KeyError, TypeError):
+            (out / JOURNAL).unlink()  # unreadable journal: the staged set is incomplete
+            cleaned.append(JOURNAL)
+    for entry in out.iterdir():
+        if _LEFTOVER.match(entry.name):
+            if entry.is_dir() and not entry.is_symlink():
+                shutil.rmtree(entry, ignore_errors=True)
+            else:
+                entry.unlink()
+            cleaned.append(entry.name)
+    return cleaned
+
+
+def _manifest(out: Path) -> list[str]:
+    try:
+        files = json.loads((out / MANIFEST).read_text(encoding="utf-8"))["files"]
+        return [confined_name(f) for f in files]
+    except (OSError, ValueError, KeyError, TypeError):
+        return []
+
+
+def _try_flock(fd: int) -> bool:
+    try:
+        import fcntl
+    except ImportError:  # pragma: no cover - Windows: the O_CREAT file alone
+        return True
+    try:
+        fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        return True
+    except OSError:
+        return False
+
+
+def _read_small(fd: int) -> str:
+    try:
+        return os.pread(fd, 200, 0).decode("utf-8", "replace").strip()
+    except OSError:
+        return ""
 
 
 def prepare_out_dir(path: str | os.PathLike, *, force: bool = False) -> Path:
-    """Create ``path`` (and parents) for output, refusing a non-empty folder without ``force``."""
+    """Create ``path`` (and parents) for output, refusing a non-empty folder without ``force``.
+
+    A direct write into the folder, without staging, lock or input check: kept for
+    callers outside the commands; the commands use :class:`OutputFolder`.
+    """
     out = Path(path)
     if out.exists() and not out.is_dir():
         raise OutputError(f"--out {out} exists and is not a folder; choose another --out")
@@ -91,14 +394,40 @@ def write_json(path: str | os.PathLike, obj) -> Path:
     return write_text(path, json.dumps(obj, indent=2, allow_nan=False) + "\n")
 
 
+_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+
+
+def safe_cell(value):
+    """A CSV cell a spreadsheet will not evaluate: text starting with ``= + - @``, tab or CR
+    gets a leading apostrophe; numbers (and text that is a number, like ``-1.5``) are kept.
+
+    Examples
+    --------
+    >>> safe_cell("=SUM(1)"), safe_cell("-2+3"), safe_cell("-1.5"), safe_cell(-2.0)
+    ("'=SUM(1)", "'-2+3", '-1.5', -2.0)
+    """
+    if isinstance(value, str) and value.startswith(_FORMULA_START):
+        try:
+            float(value)
+            if "_" not in value and value.strip() == value:
+                return value
+        except ValueError:
+            pass
+        return "'" + value
+    return value
+
+
 def write_csv(path: str | os.PathLike, header, rows) -> Path:
-    """Write a CSV (header row, then ``rows``) atomically; floats at full precision (repr)."""
+    """Write a CSV (header row, then ``rows``) atomically; floats at full precision (repr).
+
+    Text cells that a spreadsheet would evaluate are neutralised (:func:`safe_cell`).
+    """
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
-    w.writerow(header)
+    w.writerow([safe_cell(str(h)) for h in header])
     for row in rows:
-        w.writerow(["" if v is None else (repr(float(v)) if isinstance(v, float) else v)
-                    for v in row])
+        w.writerow(["" if v is None else (repr(float(v)) if isinstance(v, float)
+                                          else safe_cell(v)) for v in row])
     return write_text(path, buf.getvalue())
 
 

@@ -22,16 +22,24 @@ __all__ = ["versions", "path_table", "coefficient_table", "summary_dict", "selec
 
 
 def versions() -> dict:
-    """Versions of Python and the numerical stack, for the reproducibility record."""
-    import matplotlib
-    import scipy
-    import sklearn
+    """Versions of Python and the numerical stack, for the reproducibility record.
+
+    Read from the installed distributions' metadata, so that recording them
+    imports nothing (scikit-learn and matplotlib take about a second to import).
+    """
+    from importlib.metadata import PackageNotFoundError, version
 
     from paths import __version__
 
+    def installed(dist):
+        try:
+            return version(dist)
+        except PackageNotFoundError:
+            return None
+
     return {"paths": __version__, "python": platform.python_version(), "numpy": np.__version__,
-            "scipy": scipy.__version__, "scikit-learn": sklearn.__version__,
-            "matplotlib": matplotlib.__version__}
+            "scipy": installed("scipy"), "scikit-learn": installed("scikit-learn"),
+            "matplotlib": installed("matplotlib")}
 
 
 def _list(a):

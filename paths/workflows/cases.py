@@ -31,6 +31,7 @@ code in :mod:`paths.data.synthetic` and says that the data are synthetic.
 """
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
@@ -50,6 +51,8 @@ __all__ = ["Case", "CaseRun", "GENERATORS", "builtin_dir", "list_cases", "find_c
 
 ANALYSES = ("explore", "threshold", "simulate")
 _META = ("name", "title", "description", "synthetic", "analysis")
+#: a case name becomes part of a path (the default output folder paths-NAME): no separators
+_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]{0,99}$")
 #: case-file table -> the options dataclass it fills
 TABLES = {"data": DataOptions, "fit": FitOptions, "engine": EngineOptions,
           "threshold": ThresholdOptions, "truth": TruthOptions, "simulate": DrawOptions,
@@ -228,7 +231,11 @@ def parse_case(text: str, *, source=None) -> Case:
     except InputError as exc:
         raise InputError(f"{where}: [figures] {exc}") from None
     stem = Path(source).stem if source is not None else "case"
-    return Case(name=str(meta.get("name", stem)), title=str(meta.get("title", stem)),
+    name = meta.get("name", stem)
+    if not isinstance(name, str) or not _NAME.match(name):
+        raise InputError(f"{where}: [case] name {name!r} must be a plain name (letters, digits, "
+                         "'-', '_', '.'; it names the output folder paths-NAME); rename it")
+    return Case(name=name, title=str(meta.get("title", stem)),
                 description=str(meta.get("description", "")),
                 synthetic=bool(meta.get("synthetic", "generator" in data
                                         or analysis == "simulate")),
@@ -249,7 +256,8 @@ def run_case(case: Case, out_dir, *, force: bool = False, formats=None, width=No
         figures = replace(figures, formats=formats)
     if width is not None:
         figures = replace(figures, width=width)
-    output = OutputOptions(out_dir=out_dir, force=force, command_line=command_line or ())
+    output = OutputOptions(out_dir=out_dir, force=force, command_line=command_line or (),
+                           inputs=(case.source,))  # the case file is never overwritten
     if case.analysis == "simulate":
         run = run_simulate(case.truth, case.simulate, case.threshold, figures, output,
                            extra=case.extra, progress=progress)

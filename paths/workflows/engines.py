@@ -15,8 +15,7 @@ from pathlib import Path
 import numpy as np
 
 from paths.data.validation import InputError
-from paths.workflows.explore import (ExploreRun, check_figures, command_text, per_target,
-                                     refuse_inputs_as_outputs)
+from paths.workflows.explore import ExploreRun, check_figures, command_text, per_target
 from paths.workflows.options import (DataOptions, EngineOptions, FigureOptions, FitOptions,
                                      OutputOptions)
 
@@ -185,25 +184,32 @@ def explore_engine(data: DataOptions, fit: FitOptions = FitOptions(),
     Selections are the grid minima of GCV, LOO, test error and (with
     ``n_folds``) K-fold CV.  ``progress(stage, done, total)`` reports each pass.
     """
-    from paths.data.output import prepare_out_dir, write_csv, write_json
-    from paths.present.summary import coefficient_table, path_table, summary_dict
-
     if engine.name not in ("stream", "dask"):
         raise InputError(f"engine must be one of {', '.join(ENGINES)}; got {engine.engine!r}")
     bad = unsupported_options(data, fit)
     if bad:
         raise InputError(f"{bad[0]} is not available with engine {engine.name}; drop it "
                          "or use engine memory")
-    formats, width = check_figures(figures)
+    check_figures(figures)
     if data.file is None:
         raise InputError(f"the {engine.name} engine reads a data file; give one")
-    out = prepare_out_dir(output.out_dir, force=output.force)
-    result = _fit(data, fit, engine, progress)
-    digests, hash_notes = _file_digests(Path(data.file))
-    if data.test_file is not None:
-        tdig, tnotes = _file_digests(Path(data.test_file))
-        digests.update(tdig)
-        hash_notes += tnotes
+    inputs = [Path(data.file), *([] if data.test_file is None else [Path(data.test_file)])]
+    with output.folder(inputs) as folder:
+        result = _fit(data, fit, engine, progress)
+        digests, hash_notes = {}, []
+        for f in inputs:
+            dig, notes = _file_digests(f)
+            digests.update(dig)
+            hash_notes += notes
+        summary = _engine_summary(result, data, fit, output, digests, hash_notes)
+        files = _write_engine(result, summary, folder.stage, list(data.target), figures)
+    return ExploreRun(result=result, summary=summary, out_dir=folder.target,
+                      files=folder.final_paths(files))
+
+
+def _engine_summary(result, data, fit, output, digests, hash_notes) -> dict:
+    from paths.present.summary import summary_dict
+
     targets = list(data.target)
     cv_seed = fit.seed if fit.fold_scheme == "shuffled" else None
     record, cv_sel = _engine_record(result, cv_seed)
@@ -213,7 +219,15 @@ def explore_engine(data: DataOptions, fit: FitOptions = FitOptions(),
         data_notes=list(result.notes) + hash_notes, engine=result.engine_record(), cv=record)
     if cv_sel is not None:
         summary["selected"]["cv"] = cv_sel
-    refuse_inputs_as_outputs(out, ("path.csv", "coefficients.csv", "summary.json"), digests)
+    return summary
+
+
+def _write_engine(result, summary: dict, out: Path, targets, figures: FigureOptions) -> list:
+    """path.csv, coefficients.csv (when the engine kept them), summary.json, figures, report."""
+    from paths.data.output import write_csv, write_json
+    from paths.present.summary import coefficient_table, path_table
+
+    formats, width = check_figures(figures)
     files = [write_csv(out / "path.csv", *per_target(path_table, result, targets))]
     if result.coef is not None:
         files.append(write_csv(out / "coefficients.csv",
@@ -227,5 +241,5 @@ def explore_engine(data: DataOptions, fit: FitOptions = FitOptions(),
     if drawable:
         files += write_explore_outputs(result, summary, out, formats=formats, width=width,
                                        x=figures.x, report=figures.report)
-    return ExploreRun(result=result, summary=summary, out_dir=out, files=files)
+    return files
 

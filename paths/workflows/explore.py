@@ -22,8 +22,8 @@ from paths.workflows.options import (DataOptions, EngineOptions, FigureOptions, 
 from paths.workflows.prepare import Prepared, TrainTest, prepare, train_test
 
 __all__ = ["ExploreRun", "Fitted", "run_explore", "explore_prepared", "fit_and_select",
-           "explore_record", "write_explore", "per_target", "refuse_inputs_as_outputs",
-           "command_text", "check_figures"]
+           "explore_record", "write_explore", "per_target", "command_text",
+           "check_figures"]
 
 
 @dataclass(frozen=True)
@@ -91,19 +91,18 @@ def explore_prepared(prepared: Prepared, fit: FitOptions = FitOptions(),
                      output: OutputOptions = OutputOptions(), *, holdout: float | None = None,
                      extra: dict | None = None) -> ExploreRun:
     """Fit, select, record and write on prepared data (the steps after :func:`prepare`)."""
-    from paths.data.output import prepare_out_dir
     from paths.data.validation import check_rows_for_cv
 
     check_figures(figures)
     check_rows_for_cv(prepared.train.X.shape[0], fit.n_folds, prepared.train.source)
-    out = prepare_out_dir(output.out_dir, force=output.force)
-    fitted = fit_and_select(prepared, fit, holdout=holdout)
-    summary = explore_record(prepared, fitted, command_line=command_text(output),
-                             extra=extra)
-    files = write_explore(fitted, summary, out, prepared.train.target_names, figures,
-                          inputs=prepared.digests)
-    return ExploreRun(result=fitted.result, summary=summary, out_dir=out, files=files,
-                      selection=fitted.selection, cv=fitted.cv)
+    with output.folder(prepared.digests) as folder:
+        fitted = fit_and_select(prepared, fit, holdout=holdout)
+        summary = explore_record(prepared, fitted, command_line=command_text(output),
+                                 extra=extra)
+        files = write_explore(fitted, summary, folder.stage, prepared.train.target_names,
+                              figures)
+    return ExploreRun(result=fitted.result, summary=summary, out_dir=folder.target,
+                      files=folder.final_paths(files), selection=fitted.selection, cv=fitted.cv)
 
 
 def fit_and_select(prepared: Prepared, fit: FitOptions, *, holdout=None) -> Fitted:
@@ -207,22 +206,7 @@ def per_target(table, result, targets) -> tuple[list, list]:
     return header, rows
 
 
-def refuse_inputs_as_outputs(out: Path, names, inputs) -> None:
-    """Refuse to write an output file over an input file (even with ``force``)."""
-    for name in names:
-        dest = out / name
-        for src in inputs:
-            try:
-                same = dest.exists() and Path(src).exists() and dest.samefile(src)
-            except OSError:
-                same = False
-            if same:
-                raise InputError(f"out_dir {out} would overwrite the input file {src} ({name}); "
-                                 "choose another output folder")
-
-
-def write_explore(fitted, summary: dict, out: Path, targets, figures: FigureOptions, *,
-                  inputs=()) -> list:
+def write_explore(fitted, summary: dict, out: Path, targets, figures: FigureOptions) -> list:
     """path.csv, coefficients.csv, summary.json, then the figures and the report."""
     from paths.data.output import write_csv, write_json
     from paths.present.report import write_explore_outputs
@@ -230,7 +214,6 @@ def write_explore(fitted, summary: dict, out: Path, targets, figures: FigureOpti
 
     formats, width = check_figures(figures)
     result = fitted.result
-    refuse_inputs_as_outputs(out, ("path.csv", "coefficients.csv", "summary.json"), inputs)
     files = [write_csv(out / "path.csv", *per_target(path_table, result, targets)),
              write_csv(out / "coefficients.csv", *per_target(coefficient_table, result, targets)),
              write_json(out / "summary.json", summary)]

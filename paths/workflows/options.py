@@ -216,15 +216,27 @@ class PlanOptions:
 
 @dataclass(frozen=True)
 class OutputOptions:
-    """Where the files go: the folder, ``force`` to write into a non-empty one, the command line."""
+    """Where the files go: the folder, ``force`` to replace a previous run's files, the command line.
+
+    ``inputs`` lists files the run reads besides its data (e.g. a case file):
+    no output may land on them (:class:`paths.data.output.OutputFolder`).
+    """
 
     out_dir: Path = Path("paths-out")
     force: bool = False
     command_line: tuple = ()
+    inputs: tuple = ()
 
     def __post_init__(self):
         _set(self, "out_dir", Path(self.out_dir))
         _set(self, "command_line", tuple(self.command_line or ()))
+        _set(self, "inputs", tuple(Path(p) for p in self.inputs or () if p is not None))
+
+    def folder(self, inputs=()):
+        """The :class:`~paths.data.output.OutputFolder` of a run that reads ``inputs``."""
+        from paths.data.output import OutputFolder
+
+        return OutputFolder(self.out_dir, force=self.force, inputs=[*self.inputs, *inputs])
 
 
 def option_names(cls) -> tuple:

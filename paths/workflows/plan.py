@@ -65,7 +65,7 @@ def _from_pilot(options: PlanOptions, pilot: DataOptions) -> tuple:
 def run_plan(options: PlanOptions = PlanOptions(), output: OutputOptions = OutputOptions(), *,
              pilot: DataOptions | None = None) -> PlanRun:
     """Predict test MSE against n and write plan.csv and plan.json."""
-    from paths.data.output import prepare_out_dir, write_csv, write_json
+    from paths.data.output import write_csv, write_json
     from paths.present.summary import versions
     from paths.threshold.plan import plan, plan_summary, plan_table
 
@@ -75,12 +75,14 @@ def run_plan(options: PlanOptions = PlanOptions(), output: OutputOptions = Outpu
     if options.n_features is None:
         raise InputError("give the number of features (n_features) or a pilot data file")
     spectrum = read_spectrum(options.spectrum) if options.spectrum is not None else None
-    out = prepare_out_dir(output.out_dir, force=output.force)
-    res = plan(options.n_features, snr=options.snr, noise_variance=options.noise_variance,
-               signal_variance=options.signal_variance, spectrum=spectrum,
-               tolerance=options.tolerance, source=source)
-    summary = plan_summary(res, input_sha256=digests, versions=versions(),
-                           command_line=command_text(output))
-    files = [write_csv(out / "plan.csv", *plan_table(res)),
-             write_json(out / "plan.json", summary)]
-    return PlanRun(result=res, summary=summary, out_dir=out, files=files)
+    inputs = [*digests, *([] if options.spectrum is None else [options.spectrum])]
+    with output.folder(inputs) as folder:
+        res = plan(options.n_features, snr=options.snr, noise_variance=options.noise_variance,
+                   signal_variance=options.signal_variance, spectrum=spectrum,
+                   tolerance=options.tolerance, source=source)
+        summary = plan_summary(res, input_sha256=digests, versions=versions(),
+                               command_line=command_text(output))
+        files = [write_csv(folder.stage / "plan.csv", *plan_table(res)),
+                 write_json(folder.stage / "plan.json", summary)]
+    return PlanRun(result=res, summary=summary, out_dir=folder.target,
+                   files=folder.final_paths(files))

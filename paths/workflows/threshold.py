@@ -56,7 +56,6 @@ def run_threshold(data: DataOptions, threshold: ThresholdOptions = ThresholdOpti
     name) or a seeded holdout (``data.holdout``, default
     ``DEFAULT_THRESHOLD_HOLDOUT``).  ``progress(stage, done, total)``.
     """
-    from paths.data.output import prepare_out_dir
     from paths.threshold.sweep import threshold_sweep
 
     check_figures(figures)
@@ -67,15 +66,18 @@ def run_threshold(data: DataOptions, threshold: ThresholdOptions = ThresholdOpti
     if prepared.test is None and holdout is None:
         holdout = DEFAULT_THRESHOLD_HOLDOUT
     tt = train_test(prepared, holdout=holdout, seed=threshold.seed)
-    out = prepare_out_dir(output.out_dir, force=output.force)
-    result = threshold_sweep(tt.X, tt.y, tt.X_test, tt.y_test, **threshold.sweep_keywords(),
-                             progress=_stage(progress, "sweep"))
     record = {"target": prepared.train.target_names[0], "source": prepared.train.source,
               "split": tt.split, "input_sha256": dict(prepared.digests),
               "data_notes": prepared.notes, "data_preparation": prepared.train.record()}
     if prepared.generator is not None:
         record["generator"] = prepared.generator
-    return write_threshold(result, out, figures, output, {**record, **(extra or {})})
+    with output.folder(prepared.digests) as folder:
+        result = threshold_sweep(tt.X, tt.y, tt.X_test, tt.y_test, **threshold.sweep_keywords(),
+                                 progress=_stage(progress, "sweep"))
+        summary, files = write_threshold(result, folder.stage, figures, output,
+                                         {**record, **(extra or {})})
+    return ThresholdRun(result=result, summary=summary, out_dir=folder.target,
+                        files=folder.final_paths(files))
 
 
 def simulate_truth(truth: TruthOptions):
@@ -105,7 +107,6 @@ def run_simulate(truth: TruthOptions = TruthOptions(), draws: DrawOptions = Draw
                  output: OutputOptions = OutputOptions(), *, extra: dict | None = None,
                  progress=None) -> ThresholdRun:
     """The threshold sweep on ``threshold.repeats`` draws from a known truth, with exact bias²."""
-    from paths.data.output import prepare_out_dir
     from paths.threshold.simulate import simulate
 
     check_figures(figures)
@@ -114,14 +115,23 @@ def run_simulate(truth: TruthOptions = TruthOptions(), draws: DrawOptions = Draw
             raise InputError(f"{name} is not available in simulations (the truth's features "
                              "are used as drawn); drop it")
     the_truth = simulate_truth(truth)
-    out = prepare_out_dir(output.out_dir, force=output.force)
     kw = threshold.sweep_keywords()
     for name in ("random_features", "feature_map", "solver"):
         kw.pop(name)
-    sim = simulate(draws.n_train, the_truth, n_test=draws.n_test, **kw,
-                   progress=_stage(progress, "simulate"))
+    with output.folder() as folder:
+        sim = simulate(draws.n_train, the_truth, n_test=draws.n_test, **kw,
+                       progress=_stage(progress, "simulate"))
+        summary, files = write_threshold(sim, folder.stage, figures, output,
+                                         {**_truth_record(truth, the_truth, sim),
+                                          **(extra or {})})
+    return ThresholdRun(result=sim, summary=summary, out_dir=folder.target,
+                        files=folder.final_paths(files))
+
+
+def _truth_record(truth: TruthOptions, the_truth, sim) -> dict:
+    """The simulation's keys of threshold.json: the truth, its generator, the exact bias²."""
     desc = the_truth.description
-    record = {
+    return {
         "source": desc if "synthetic" in desc else f"synthetic: {desc}", "synthetic": True,
         "generator": {"name": "paths.threshold.simulate.make_truth",
                       "params": {**vars(truth)}, "seed": truth.seed},
@@ -131,12 +141,14 @@ def run_simulate(truth: TruthOptions = TruthOptions(), draws: DrawOptions = Draw
                   "signal_variance": the_truth.signal_variance,
                   "n_features": the_truth.n_features, "description": desc},
         "exact": _exact_record(sim), "input_sha256": {}}
-    return write_threshold(sim, out, figures, output, {**record, **(extra or {})})
 
 
 def write_threshold(result, out: Path, figures: FigureOptions, output: OutputOptions,
-                    record: dict) -> ThresholdRun:
-    """threshold.csv, threshold.json (and bias_variance.csv), the figure and the report."""
+                    record: dict) -> tuple[dict, list]:
+    """threshold.csv, threshold.json (and bias_variance.csv), the figure and the report.
+
+    Returns the ``threshold.json`` record and the files written.
+    """
     from paths.data.output import write_csv, write_json
     from paths.present.report import write_threshold_outputs
     from paths.present.summary import versions
@@ -154,4 +166,4 @@ def write_threshold(result, out: Path, figures: FigureOptions, output: OutputOpt
     if formats or figures.report:
         files += write_threshold_outputs(result, summary, out, formats=formats, width=width,
                                          report=figures.report)
-    return ThresholdRun(result=result, summary=summary, out_dir=out, files=files)
+    return summary, files
