@@ -139,7 +139,7 @@ FORMATS = typer.Option("png,svg", "--format", help="Figure formats, comma-separa
                        "(300 dpi), pdf (TrueType fonts), svg.")
 WIDTH = typer.Option("single", "--width", help="Figure width: single (3.5 in) or double "
                      "(7.2 in) journal column.")
-FIGURE_X = typer.Option("log_lambda", "--figure-x", help="Path figures against log_lambda or df "
+FIGURE_X = typer.Option("df", "--figure-x", help="Path figures against log_lambda or df "
                         "(effective degrees of freedom).")
 REPORT = typer.Option(True, "--report/--no-report", help="Write report.md and a self-contained "
                       "report.html (with the figures).")

@@ -172,7 +172,7 @@ def explore_record(prepared: Prepared, fitted: Fitted, *, command_line: str,
                    extra: dict | None = None) -> dict:
     """The ``summary.json`` record of an in-memory explore run."""
     from paths.present.report import report_numbers
-    from paths.present.summary import summary_dict
+    from paths.present.summary import add_choice_errors, summary_dict
 
     train, result, selection = prepared.train, fitted.result, fitted.selection
     targets = list(train.target_names)
@@ -190,6 +190,8 @@ def explore_record(prepared: Prepared, fitted: Fitted, *, command_line: str,
     if prepared.generator is not None:
         summary["generator"] = prepared.generator
     summary.update(extra or {})
+    data = fitted.data
+    add_choice_errors(summary, result, X_train=data.X, X_test=data.X_test, y_test=data.y_test)
     summary["report"] = report_numbers(summary)
     return summary
 
@@ -207,15 +209,16 @@ def per_target(table, result, targets) -> tuple[list, list]:
 
 
 def write_explore(fitted, summary: dict, out: Path, targets, figures: FigureOptions) -> list:
-    """path.csv, coefficients.csv, summary.json, then the figures and the report."""
+    """path.csv, coefficients.csv, model.csv, summary.json, then the figures and the report."""
     from paths.data.output import write_csv, write_json
     from paths.present.report import write_explore_outputs
-    from paths.present.summary import coefficient_table, path_table
+    from paths.present.summary import coefficient_table, model_table, path_table, reported_lambdas
 
     formats, width = check_figures(figures)
     result = fitted.result
     files = [write_csv(out / "path.csv", *per_target(path_table, result, targets)),
              write_csv(out / "coefficients.csv", *per_target(coefficient_table, result, targets)),
+             write_csv(out / "model.csv", *model_table(result, reported_lambdas(summary), targets)),
              write_json(out / "summary.json", summary)]
     if formats or figures.report:
         files += write_explore_outputs(result, summary, out, cv=fitted.cv, formats=formats,

@@ -192,7 +192,7 @@ class FigureOptions:
 
     formats: tuple = ("png", "svg")
     width: str = "single"
-    x: str = "log_lambda"
+    x: str = "df"
     report: bool = True
 
     def __post_init__(self):
