@@ -22,7 +22,7 @@ from paths.workflows.options import (DataOptions, EngineOptions, FigureOptions, 
 from paths.workflows.prepare import Prepared, TrainTest, prepare, train_test
 
 __all__ = ["ExploreRun", "Fitted", "run_explore", "explore_prepared", "fit_and_select",
-           "explore_record", "write_explore", "per_target", "command_text",
+           "explore_record", "write_explore", "write_saved_fit", "per_target", "command_text",
            "check_figures"]
 
 
@@ -101,6 +101,8 @@ def explore_prepared(prepared: Prepared, fit: FitOptions = FitOptions(),
                                  extra=extra)
         files = write_explore(fitted, summary, folder.stage, prepared.train.target_names,
                               figures)
+        files.append(write_saved_fit(folder.stage / "fit.npz", fitted.result, fitted.selection,
+                                     prepared.train, prepared.digests))
     return ExploreRun(result=fitted.result, summary=summary, out_dir=folder.target,
                       files=folder.final_paths(files), selection=fitted.selection, cv=fitted.cv)
 
@@ -194,6 +196,26 @@ def explore_record(prepared: Prepared, fitted: Fitted, *, command_line: str,
     add_choice_errors(summary, result, X_train=data.X, X_test=data.X_test, y_test=data.y_test)
     summary["report"] = report_numbers(summary)
     return summary
+
+
+def write_saved_fit(dest: Path, result, selection, data, input_sha256: dict | None = None,
+                    **header_kw) -> Path:
+    """Write ``fit.npz`` (:mod:`paths.present.fitfile`) at the reported rule's penalties."""
+    from paths.present.fitfile import save_fit
+
+    rules = {}
+    for rule in selection.per_target[0]:
+        lams = [sel[rule].lam for sel in selection.per_target]
+        rules[rule] = None if any(v is None for v in lams) else [float(v) for v in lams]
+    prep = {"source_columns": list(data.source_columns or data.feature_names),
+            "encoding": {k: list(v) for k, v in data.encoding.items()},
+            "id_column": data.id_column, "drop_missing": data.drop_missing,
+            "target_names": list(data.target_names), "source": str(data.source)}
+    reported, rule = selection.chosen_lambdas(), selection.reported
+    if not np.all(np.isfinite(reported)):  # the reported rule gave no penalty: GCV's instead
+        reported, rule = np.array(rules["gcv"], dtype=float), f"gcv (rule {rule} gave none)"
+    return save_fit(dest, result, reported=reported, reported_rule=rule, rules=rules,
+                    preparation=prep, input_sha256=input_sha256, **header_kw)
 
 
 def per_target(table, result, targets) -> tuple[list, list]:
