@@ -209,3 +209,27 @@ def test_one_text_column_can_be_excluded_or_encoded(tmp_path, command):
         out = tmp_path / f"{command}-{opts[0][2:]}"
         _invoke([command, path, "-t", "y", *opts, "--no-report", "--format", "",
                  "--out", out, *extra])
+
+
+def test_progress_has_one_signature(tmp_path):
+    """Every workflow reports progress(stage, done, total): stages are names, done <= total."""
+    from paths.workflows.options import DrawOptions, FigureOptions, OutputOptions, \
+        ThresholdOptions, TruthOptions
+    from paths.workflows.threshold import run_simulate, run_threshold
+
+    train, test, _ = _tables(tmp_path, n=20, p=30)
+    calls = []
+
+    def progress(stage, done, total):
+        calls.append((stage, done, total))
+
+    none = FigureOptions(formats=(), report=False)
+    run_threshold(DataOptions(file=train, target="y", test_file=test),
+                  ThresholdOptions(n_points=4), none, OutputOptions(out_dir=tmp_path / "t"),
+                  progress=progress)
+    run_simulate(TruthOptions(n_features=12), DrawOptions(n_train=10, n_test=10),
+                 ThresholdOptions(n_points=4, repeats=2), none,
+                 OutputOptions(out_dir=tmp_path / "s"), progress=progress)
+    assert {c[0] for c in calls} == {"sweep", "simulate"}
+    assert all(0 <= done <= total for _, done, total in calls)
+    assert calls[-1][1] == calls[-1][2]  # the last call says the simulation is done

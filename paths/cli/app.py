@@ -16,7 +16,6 @@ import re
 import typer
 from rich.console import Console
 
-from paths.data.validation import InputError
 
 __all__ = ["app", "command", "console", "err_console", "main", "load_commands", "as_flags", "flags_of"]
 
@@ -56,18 +55,19 @@ def command(*args, **kwargs):
                 return func(*a, **kw)
             except (typer.Exit, typer.Abort):
                 raise
-            except InputError as exc:
-                if _state["debug"]:
-                    raise
-                err_console.print(f"error: {as_flags(str(exc), flags)}", soft_wrap=True,
-                                  markup=False)
-                raise typer.Exit(2) from None
             except KeyboardInterrupt:
                 err_console.print("interrupted; no partial file was left under a final name")
                 raise typer.Exit(130) from None
             except Exception as exc:
+                # imported here: the data layer loads numpy, which `paths --help` does not need
+                from paths.data.validation import InputError
+
                 if _state["debug"]:
                     raise
+                if isinstance(exc, InputError):
+                    err_console.print(f"error: {as_flags(str(exc), flags)}", soft_wrap=True,
+                                      markup=False)
+                    raise typer.Exit(2) from None
                 err_console.print(
                     f"internal error: {type(exc).__name__}: {exc} -- this is a bug in paths; "
                     "please report it with the command line (add --debug for the traceback)",

@@ -343,7 +343,7 @@ def simulate(
     band: str = "se",
     fit_intercept: bool = True,
     standardize: bool = True,
-    progress: Callable[[int, int], None] | None = None,
+    progress: Callable[[str, int, int], None] | None = None,
 ) -> SimulationResult:
     """Run the threshold sweep on ``repeats`` independent draws from ``truth``.
 
@@ -360,7 +360,7 @@ def simulate(
     repeats : int
         Independent draws (each with its own order when ``order="random"``).
     seed : int
-    progress : callable ``(done, total)``, optional
+    progress : callable ``(stage, done, total)``, optional
 
     Returns
     -------
@@ -390,9 +390,9 @@ def simulate(
             sub_order, sub_seed = "random", int(rng.integers(2**31))
         else:
             sub_order, sub_seed = order, 0
-        def prog(done, total, _rep=rep):
+        def prog(stage, done, total, _rep=rep):
             if progress is not None:
-                progress(_rep * total + done, total * int(repeats))
+                progress("simulate", _rep * total + done, total * int(repeats))
 
         one = sweep_with_truth(truth, X, y, Xt, yt, over=over, order=sub_order,
                                seed=sub_seed, n_points=n_points, sizes=sizes,

@@ -601,7 +601,7 @@ def threshold_sweep(
     solver: str = "auto",
     variances: VarianceEstimate | None = None,
     variance_source: str | None = None,
-    progress: Callable[[int, int], None] | None = None,
+    progress: Callable[[str, int, int], None] | None = None,
     on_point: Callable[[PointFit], None] | None = None,
 ) -> ThresholdResult:
     """Sweep the model size across the interpolation threshold and record every method's errors.
@@ -644,7 +644,7 @@ def threshold_sweep(
         :func:`estimate_variances` on the training rows.
     variance_source : str, optional
         Label of ``variances`` (e.g. "truth (simulation)").
-    progress : callable ``(done, total)``, optional
+    progress : callable ``(stage, done, total)``, optional
     on_point : callable ``(PointFit)``, optional
         Called with each fitted point (used by :mod:`paths.simulate`).
 
@@ -697,7 +697,7 @@ def threshold_sweep(
         raise InputError(f"repeats must be an integer >= 1; got {repeats}")
     repeats = int(repeats)
     if n_points < 3:
-        raise InputError(f"the sweep needs at least 3 points; got {n_points} (pass --points 40)")
+        raise InputError(f"the sweep needs at least 3 points; got {n_points} (pass n_points=40)")
     if ridge_lambda is not None and ridge_df_fraction is not None:
         raise InputError("give either a fixed ridge penalty or a df fraction, not both")
     if ridge_lambda is not None and not (np.isfinite(ridge_lambda) and ridge_lambda > 0):
@@ -839,7 +839,7 @@ def threshold_sweep(
                                       _sub_design(design, k), fac, lambdas))
                 done += 1
                 if progress is not None:
-                    progress(done, total)
+                    progress("sweep", done, total)
         else:
             rows = rng.permutation(n) if order == "random" else np.arange(n)
             for i, k in enumerate(n_rows):
@@ -848,7 +848,7 @@ def threshold_sweep(
                 if np.ptp(yv[sel]) == 0:
                     done += 1
                     if progress is not None:
-                        progress(done, total)
+                        progress("sweep", done, total)
                     continue
                 design, z = prepare(Fk, yv[sel, None], fit_intercept=fit_intercept,
                                     standardize=standardize)
@@ -875,7 +875,7 @@ def threshold_sweep(
                                       lambdas))
                 done += 1
                 if progress is not None:
-                    progress(done, total)
+                    progress("sweep", done, total)
 
     ratio = n_feat / n_rows
     if ridge_lambda is not None:

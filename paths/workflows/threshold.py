@@ -39,13 +39,6 @@ class ThresholdRun:
         return rep if rep.exists() else None
 
 
-def _stage(progress, stage: str):
-    """Adapt ``progress(stage, done, total)`` to the sweeps' ``(done, total)`` callback."""
-    if progress is None:
-        return None
-    return lambda done, total: progress(stage, done, total)
-
-
 def run_threshold(data: DataOptions, threshold: ThresholdOptions = ThresholdOptions(),
                   figures: FigureOptions = FigureOptions(),
                   output: OutputOptions = OutputOptions(), *, base_dir=None,
@@ -73,7 +66,7 @@ def run_threshold(data: DataOptions, threshold: ThresholdOptions = ThresholdOpti
         record["generator"] = prepared.generator
     with output.folder(prepared.digests) as folder:
         result = threshold_sweep(tt.X, tt.y, tt.X_test, tt.y_test, **threshold.sweep_keywords(),
-                                 progress=_stage(progress, "sweep"))
+                                 progress=progress)
         summary, files = write_threshold(result, folder.stage, figures, output,
                                          {**record, **(extra or {})})
     return ThresholdRun(result=result, summary=summary, out_dir=folder.target,
@@ -120,7 +113,7 @@ def run_simulate(truth: TruthOptions = TruthOptions(), draws: DrawOptions = Draw
         kw.pop(name)
     with output.folder() as folder:
         sim = simulate(draws.n_train, the_truth, n_test=draws.n_test, **kw,
-                       progress=_stage(progress, "simulate"))
+                       progress=progress)
         summary, files = write_threshold(sim, folder.stage, figures, output,
                                          {**_truth_record(truth, the_truth, sim),
                                           **(extra or {})})
