@@ -112,6 +112,15 @@ def explore_cmd(
     test_file: Path = f.TEST_FILE,
     holdout: float = f.HOLDOUT,
     groups: str = f.GROUPS,
+    weights: str = typer.Option(None, "--weights", help="Column of positive row weights "
+                                "(survey weights, counts, precisions); not a feature. Every "
+                                "error is then weighted."),
+    unpenalized: list[str] = typer.Option(None, "--unpenalized", help="Columns (names or glob "
+                                          "patterns, repeatable) fitted without penalty, like "
+                                          "the intercept (e.g. age, sex, batch)."),
+    relative_penalty: list[str] = typer.Option(None, "--relative-penalty", help="PATTERN=W: "
+                                               "penalize those columns by W x lambda (W > 0; "
+                                               "repeatable)."),
     seed: int = f.SEED,
     n_lambdas: int = f.N_LAMBDAS,
     standardize: bool = f.STANDARDIZE,

@@ -34,7 +34,9 @@ from __future__ import annotations
 import io
 import json
 import platform
+import struct
 import zipfile
+import zlib
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -63,7 +65,19 @@ def _arrays_of(path: RidgePath, reported: np.ndarray) -> dict:
         c = path.coef_at(float(lam))
         coefs[:, j] = c[:, j] if c.ndim == 2 else c
     icpt[:] = design.y_mean - design.x_mean @ coefs
-    return {
+    extra = {}
+    if design.span is not None:
+        sp = design.span
+        extra = {"span_reflectors": sp.reflectors, "span_tau": sp.tau, "span_r": sp.r,
+                 "span_q1": sp.q1, "span_sqrt_w": sp.sqrt_w, "span_qty": sp.qty,
+                 "span_qtx": sp.qtx, "design_unpenalized": (
+                     design.unpenalized if design.unpenalized is not None
+                     else np.zeros(design.n_features, dtype=bool)),
+                 "design_penalty_factor": (design.penalty_factor if design.penalty_factor
+                                           is not None else np.ones(design.n_features)),
+                 "design_sample_weight": (design.sample_weight if design.sample_weight
+                                          is not None else np.ones(design.n_samples))}
+    return {**extra,
         "design_x_mean": design.x_mean, "design_x_scale": design.x_scale,
         "design_active": design.active, "design_y_mean": design.y_mean,
         "design_zy": design.zy, "fac_u": fac.u, "fac_d": fac.d, "fac_vt": fac.vt,
@@ -81,7 +95,21 @@ def _expected_shapes(h: dict) -> dict:
         "design_y_mean": ((t,), f), "design_zy": ((m, t), f), "fac_u": ((m, r), f),
         "fac_d": ((r,), f), "fac_vt": ((r, q), f), "lambdas": ((k,), f),
         "reported_lambda": ((t,), f), "coef": ((p, t), f), "intercept": ((t,), f),
+        **_span_shapes(h),
     }
+
+
+def _span_shapes(h: dict) -> dict:
+    """Arrays of the unpenalized span (row weights, unpenalized columns), when there is one."""
+    span = h.get("span")
+    if span is None:
+        return {}
+    n, p, t, q, c = h["n_samples"], h["n_features"], h["n_targets"], h["n_active"], span["c"]
+    f = "float64"
+    return {"span_reflectors": ((n, c), f), "span_tau": ((c,), f), "span_r": ((c, c), f),
+            "span_q1": ((n, c), f), "span_sqrt_w": ((n,), f), "span_qty": ((c, t), f),
+            "span_qtx": ((c, q), f), "design_unpenalized": ((p,), "bool"),
+            "design_penalty_factor": ((p,), f), "design_sample_weight": ((n,), f)}
 
 
 def fit_header(path: RidgePath, *, reported_rule: str, reported: np.ndarray, rules=None,
@@ -110,8 +138,13 @@ def fit_header(path: RidgePath, *, reported_rule: str, reported: np.ndarray, rul
                     else "centered only") if path.fit_intercept else (
                     "scaled to unit population SD (ddof=0), not centered" if path.standardize
                     else "neither centered nor scaled"),
-        "weights": weights, "unpenalized": list(unpenalized),
+        "weights": weights if weights is not None else (
+            "row weights" if path.design.sample_weight is not None else None),
+        "unpenalized": list(unpenalized) or list(getattr(path, "unpenalized", [])),
         "relative_penalty": dict(relative_penalty or {}),
+        "span": None if path.design.span is None else {
+            "c": int(path.design.span.c), "intercept": bool(path.design.span.intercept),
+            "total_weight": float(path.design.span.total_weight)},
         "solver": fac.solver, "solver_reason": fac.reason, "rank_tol": float(fac.tol),
         "d_max": float(fac.d_max), "d_min": float(fac.d_min),
         "reported": {"rule": reported_rule, "lambda": [float(v) for v in reported]},
@@ -161,12 +194,21 @@ def _read_header(zf: zipfile.ZipFile, src) -> dict:
         raise _refuse(src, "the fit header is implausibly large; the file is damaged or not a "
                            "paths fit")
     with zf.open("header.npy") as fh:
-        raw = np.lib.format.read_array(fh, allow_pickle=False)
-    if raw.dtype != np.uint8 or raw.ndim != 1:
-        raise _refuse(src, "the fit header is not UTF-8 JSON bytes; the file is not a paths fit")
+        fmt = np.lib.format
+        try:
+            version = fmt.read_magic(fh)
+            reader = fmt.read_array_header_1_0 if version == (1, 0) else fmt.read_array_header_2_0
+            shape, _, dtype = reader(fh)
+        except (ValueError, TypeError, SyntaxError):
+            raise _refuse(src, "the fit header is not a valid .npy member; the file is "
+                               "damaged") from None
+        if dtype != np.uint8 or len(shape) != 1 or shape[0] > _HEADER_LIMIT:
+            raise _refuse(src, "the fit header is not UTF-8 JSON bytes; the file is not a "
+                               "paths fit")
+        raw = np.frombuffer(fh.read(shape[0]), dtype=np.uint8)
     try:
         header = json.loads(raw.tobytes().decode("utf-8"))
-    except (UnicodeDecodeError, json.JSONDecodeError):
+    except (UnicodeDecodeError, json.JSONDecodeError, RecursionError):
         raise _refuse(src, "the fit header is not valid JSON; the file is damaged") from None
     if not isinstance(header, dict) or header.get("format") != FORMAT:
         raise _refuse(src, "not a saved paths fit (format is not 'paths-fit'); pass the fit.npz "
@@ -207,11 +249,55 @@ def _check_header(h: dict, src) -> None:
         raise _refuse(src, "header 'target_names' does not list n_targets names; the file is "
                            "damaged")
     n, m, r, q = h["n_samples"], h["m"], h["rank"], h["n_active"]
-    if m != n - int(h["fit_intercept"]) or r > min(m, q) or q > h["n_features"] or r < 1:
+    span = h.get("span")
+    if span is not None:
+        c = span.get("c") if isinstance(span, dict) else None
+        if (not isinstance(c, int) or isinstance(c, bool) or not 0 <= c < n
+                or not isinstance(span.get("intercept"), bool)
+                or not isinstance(span.get("total_weight"), (int, float))
+                or not span["total_weight"] > 0):
+            raise _refuse(src, "header 'span' is malformed; the file is damaged")
+    fixed = span["c"] if span is not None else int(h["fit_intercept"])
+    if m != n - fixed or r > min(m, q) or q > h["n_features"] or r < 1:
         raise _refuse(src, f"inconsistent dimensions (n={n}, m={m}, rank={r}, active={q}); the "
                            "file is damaged")
     if not (h["n_targets"] >= 1 and (h["multi_target"] or h["n_targets"] == 1)):
         raise _refuse(src, "inconsistent number of targets; the file is damaged")
+    _check_records(h, src)
+
+
+def _check_records(h: dict, src) -> None:
+    """The header's records (reported rule, rules, preparation, solver) have their types."""
+    def bad(key):
+        return _refuse(src, f"header field {key!r} is malformed; the file is damaged")
+
+    rep = h.get("reported")
+    if not isinstance(rep, dict) or not isinstance(rep.get("rule"), str):
+        raise bad("reported")
+    rules = h.get("rules", {})
+    if not isinstance(rules, dict) or not all(
+            v is None or (isinstance(v, list) and all(
+                isinstance(x, (int, float)) and not isinstance(x, bool) for x in v))
+            for v in rules.values()):
+        raise bad("rules")
+    prep = h.get("preparation", {})
+    if not isinstance(prep, dict):
+        raise bad("preparation")
+    enc = prep.get("encoding") or {}
+    cols = prep.get("source_columns") or []
+    if (not isinstance(enc, dict) or not all(isinstance(v, list) and all(
+            isinstance(x, str) for x in v) for v in enc.values())
+            or not isinstance(cols, list) or not all(isinstance(c, str) for c in cols)
+            or not isinstance(prep.get("id_column") or "", str)
+            or prep.get("drop_missing") not in (None, "rows", "columns")):
+        raise bad("preparation")
+    for key in ("rank_tol", "d_max", "d_min"):
+        v = h.get(key, 0.0)
+        if not isinstance(v, (int, float)) or isinstance(v, bool):
+            raise bad(key)
+    for key in ("solver", "solver_reason"):
+        if not isinstance(h.get(key, ""), str):
+            raise bad(key)
 
 
 def _read_arrays(zf: zipfile.ZipFile, h: dict, src) -> dict:
@@ -231,22 +317,39 @@ def _read_arrays(zf: zipfile.ZipFile, h: dict, src) -> dict:
         if zf.getinfo(key + ".npy").file_size > nbytes + _NPY_OVERHEAD:
             raise _refuse(src, f"array {key} is larger than its header says {tuple(shape)}; "
                                "the file is damaged")
-        try:
-            with zf.open(key + ".npy") as fh:
-                a = np.lib.format.read_array(fh, allow_pickle=False)
-        except ValueError as exc:
-            why = "holds Python objects (refused: never unpickled)" if "allow_pickle" in str(
-                exc) else "cannot be read"
-            raise _refuse(src, f"array {key} {why}; the file is damaged or not a paths fit") \
-                from None
-        if a.dtype != np.dtype(dtype) or a.shape != tuple(shape):
-            raise _refuse(src, f"array {key} has {a.dtype} shape {a.shape}, expected {dtype} "
-                               f"shape {tuple(shape)}; the file is damaged")
+        with zf.open(key + ".npy") as fh:
+            a = _read_npy(fh, tuple(shape), np.dtype(dtype), key, src)
         if a.dtype.kind == "f" and not np.all(np.isfinite(a)):
             raise _refuse(src, f"array {key} has non-finite values; the file is damaged")
         a.flags.writeable = False
         out[key] = a
     return out
+
+
+def _read_npy(fh, shape: tuple, dtype: np.dtype, key: str, src) -> np.ndarray:
+    """One ``.npy`` member: its own header checked against ``shape``/``dtype`` before any
+    data is read or memory allocated (a crafted header cannot ask for a huge array, and
+    object dtypes are refused before anything could be unpickled)."""
+    fmt = np.lib.format
+    try:
+        version = fmt.read_magic(fh)
+        reader = fmt.read_array_header_1_0 if version == (1, 0) else fmt.read_array_header_2_0
+        got_shape, fortran, got_dtype = reader(fh)
+    except (ValueError, TypeError, SyntaxError) as exc:
+        raise _refuse(src, f"array {key} has no valid .npy header ({type(exc).__name__}); the "
+                           "file is damaged") from None
+    if got_dtype.hasobject:
+        raise _refuse(src, f"array {key} holds Python objects (refused: never unpickled); the "
+                           "file is damaged or not a paths fit")
+    if got_dtype != dtype or tuple(got_shape) != shape:
+        raise _refuse(src, f"array {key} has {got_dtype} shape {tuple(got_shape)}, expected "
+                           f"{dtype} shape {shape}; the file is damaged")
+    nbytes = int(np.prod(shape, dtype=np.int64)) * dtype.itemsize
+    data = fh.read(nbytes)
+    if len(data) != nbytes:
+        raise _refuse(src, f"array {key} is truncated; the file is damaged")
+    return np.frombuffer(data, dtype=dtype).reshape(shape, order="F" if fortran else "C").copy(
+        order="F" if fortran else "C")
 
 
 def _check_values(a: dict, h: dict, src) -> None:
@@ -255,6 +358,10 @@ def _check_values(a: dict, h: dict, src) -> None:
         raise _refuse(src, "singular values are not positive and descending; the file is damaged")
     if np.any(a["design_x_scale"] <= 0):
         raise _refuse(src, "column scales are not positive; the file is damaged")
+    if "span_sqrt_w" in a and (np.any(a["span_sqrt_w"] <= 0)
+                               or np.any(a["design_penalty_factor"] <= 0)):
+        raise _refuse(src, "row weights or relative penalties are not positive; the file is "
+                           "damaged")
     if int(np.count_nonzero(a["design_active"])) != h["n_active"]:
         raise _refuse(src, "active-column mask disagrees with the header; the file is damaged")
     if np.any(a["lambdas"] < 0) or np.any(a["reported_lambda"] < 0):
@@ -311,7 +418,7 @@ class SavedFit:
         if name == "df":
             from paths.core.grid import lambda_for_df
 
-            lo = float(self.path.fit_intercept)
+            lo = float(self.path.design.n_fixed)
             hi = lo + self.path.rank
             if not lo < value <= hi:
                 raise InputError(f"df target {value:g} is outside ({lo:g}, {hi:g}] for this fit")
@@ -426,7 +533,8 @@ def load_fit(path) -> SavedFit:
             raise InputError(f"{p}: no such file; pass the fit.npz written by paths explore")
     try:
         zf = zipfile.ZipFile(path)
-    except (zipfile.BadZipFile, OSError, ValueError):
+    except (zipfile.BadZipFile, zipfile.LargeZipFile, OSError, ValueError, EOFError,
+            NotImplementedError, struct.error, UnicodeDecodeError):
         raise _refuse(src, "not a saved paths fit (not a NumPy .npz archive); pass the fit.npz "
                            "written by paths explore") from None
     with zf:
@@ -434,18 +542,46 @@ def load_fit(path) -> SavedFit:
             header = _read_header(zf, src)
             _check_header(header, src)
             arrays = _read_arrays(zf, header, src)
-        except (zipfile.BadZipFile, EOFError, OSError, KeyError, TypeError) as exc:
+        except InputError:
+            raise
+        except (zipfile.BadZipFile, zipfile.LargeZipFile, EOFError, OSError, KeyError,
+                TypeError, ValueError, NotImplementedError, zlib.error, struct.error,
+                UnicodeDecodeError) as exc:
+            # damaged zip structure (CRC, sizes, compression method): never a traceback
             raise _refuse(src, f"the archive is damaged ({type(exc).__name__}); write the fit "
                                "again with paths explore") from None
     _check_values(arrays, header, src)
-    return _rebuild(header, arrays, src)
+    try:
+        with np.errstate(over="raise", invalid="raise", divide="raise"):
+            return _rebuild(header, arrays, src)
+    except (FloatingPointError, np.linalg.LinAlgError):
+        raise _refuse(src, "the saved factors leave the float64 range when the path is rebuilt; "
+                           "the file is damaged") from None
+
+
+def _rebuild_span(h: dict, a: dict) -> dict:
+    """The span-related :class:`Design` fields, or {} for a plain fit."""
+    if h.get("span") is None:
+        return {}
+    from paths.core.design import FixedSpan
+
+    sp = FixedSpan(reflectors=np.asfortranarray(a["span_reflectors"]), tau=a["span_tau"],
+                   r=a["span_r"], q1=a["span_q1"], sqrt_w=a["span_sqrt_w"], qty=a["span_qty"],
+                   qtx=a["span_qtx"], intercept=h["span"]["intercept"],
+                   total_weight=float(h["span"]["total_weight"]))
+    unp = a["design_unpenalized"]
+    pf = a["design_penalty_factor"]
+    w = a["design_sample_weight"]
+    return {"span": sp, "unpenalized": unp,
+            "penalty_factor": None if np.all(pf == 1.0) else pf,
+            "sample_weight": None if h.get("weights") is None else w}
 
 
 def _rebuild(h: dict, a: dict, src) -> SavedFit:
     design = Design(zy=a["design_zy"], x_mean=a["design_x_mean"], x_scale=a["design_x_scale"],
                     y_mean=a["design_y_mean"], active=a["design_active"],
                     n_samples=h["n_samples"], fit_intercept=h["fit_intercept"],
-                    standardize=h["standardize"])
+                    standardize=h["standardize"], **_rebuild_span(h, a))
     d = a["fac_d"]
     fac = Factorization(u=a["fac_u"], d=d, vt=a["fac_vt"], rank=int(d.size),
                         tol=float(h.get("rank_tol", 0.0)), d_max=float(h.get("d_max", d[0])),

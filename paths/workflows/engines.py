@@ -24,8 +24,11 @@ __all__ = ["explore_engine", "unsupported_options", "ENGINES"]
 ENGINES = ("memory", "stream", "dask")
 _HASH_LIMIT = 2 << 30  # files above 2 GiB are recorded by size, not hashed (another full read)
 # options the out-of-memory engines do not offer yet (they keep their defaults)
-_DATA_ONLY_IN_MEMORY = ("holdout", "groups", "id_column", "encode", "drop_missing")
-_FIT_ONLY_IN_MEMORY = ("repeats", "cv_scaling", "rule", "solver")
+_DATA_ONLY_IN_MEMORY = ("holdout", "groups", "id_column", "encode", "drop_missing", "weights")
+_FIT_ONLY_IN_MEMORY = ("repeats", "cv_scaling", "rule", "solver", "unpenalized",
+                       "relative_penalty")
+_WHY = {name: " (its one-pass moments are unweighted and penalize every column)"
+        for name in ("weights", "unpenalized", "relative_penalty")}
 
 
 def unsupported_options(data: DataOptions, fit: FitOptions) -> list:
@@ -188,8 +191,8 @@ def explore_engine(data: DataOptions, fit: FitOptions = FitOptions(),
         raise InputError(f"engine must be one of {', '.join(ENGINES)}; got {engine.engine!r}")
     bad = unsupported_options(data, fit)
     if bad:
-        raise InputError(f"{bad[0]} is not available with engine {engine.name}; drop it "
-                         "or use engine memory")
+        raise InputError(f"{bad[0]} is not available with engine {engine.name}"
+                         f"{_WHY.get(bad[0], '')}; drop it or use engine memory")
     check_figures(figures)
     if data.file is None:
         raise InputError(f"the {engine.name} engine reads a data file; give one")

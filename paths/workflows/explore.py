@@ -97,7 +97,7 @@ def explore_prepared(prepared: Prepared, fit: FitOptions = FitOptions(),
     check_rows_for_cv(prepared.train.X.shape[0], fit.n_folds, prepared.train.source)
     with output.folder(prepared.digests) as folder:
         fitted = fit_and_select(prepared, fit, holdout=holdout)
-        summary = explore_record(prepared, fitted, command_line=command_text(output),
+        summary = explore_record(prepared, fitted, fit, command_line=command_text(output),
                                  extra=extra)
         files = write_explore(fitted, summary, folder.stage, prepared.train.target_names,
                               figures)
@@ -116,7 +116,10 @@ def fit_and_select(prepared: Prepared, fit: FitOptions, *, holdout=None) -> Fitt
     data = train_test(prepared, holdout=holdout, seed=fit.seed)
     frame = pd.DataFrame(data.X, columns=prepared.train.feature_names)
     result = fit_path(frame, data.y, n_lambdas=fit.n_lambdas, standardize=fit.standardize,
-                      solver=fit.solver, X_test=data.X_test, y_test=data.y_test)
+                      solver=fit.solver, X_test=data.X_test, y_test=data.y_test,
+                      sample_weight=data.weights,
+                      test_weight=data.test_weights if data.X_test is not None else None,
+                      unpenalized=fit.unpenalized, relative_penalty=fit.relative_penalty)
     selection, record, cv_res = select_rules(result, data, fit)
     return Fitted(result=result, selection=selection, cv_record=record, cv=cv_res, data=data)
 
@@ -170,7 +173,13 @@ def _by_target(summary: dict, result, selection, targets) -> dict:
             for j, name in enumerate(targets)}
 
 
-def explore_record(prepared: Prepared, fitted: Fitted, *, command_line: str,
+def penalty_record(result, relative_penalty) -> dict:
+    """summary.json keys for row weights, unpenalized columns and relative penalties."""
+    return {"weighted": bool(result.weighted), "unpenalized": list(result.unpenalized),
+            "relative_penalty": {str(k): float(v) for k, v in (relative_penalty or {}).items()}}
+
+
+def explore_record(prepared: Prepared, fitted: Fitted, fit: FitOptions, *, command_line: str,
                    extra: dict | None = None) -> dict:
     """The ``summary.json`` record of an in-memory explore run."""
     from paths.present.report import report_numbers
@@ -186,6 +195,7 @@ def explore_record(prepared: Prepared, fitted: Fitted, *, command_line: str,
         noise_variance=selection.noise.as_dict(None if result.multi_target else 0),
         reported=selection.reported, cv=fitted.cv_record)
     summary["selected"] = {**summary["selected"], **selection.as_dict(0)}
+    summary.update(penalty_record(result, fit.relative_penalty))
     if len(targets) > 1:
         summary["targets"] = targets
         summary["by_target"] = _by_target(summary, result, selection, targets)

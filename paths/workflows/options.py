@@ -31,6 +31,7 @@ from pathlib import Path
 
 __all__ = ["DataOptions", "FitOptions", "EngineOptions", "ThresholdOptions", "TruthOptions",
            "DrawOptions", "FigureOptions", "OutputOptions", "PlanOptions", "option_names",
+           "parse_relative_penalties",
            "DEFAULT_THRESHOLD_HOLDOUT", "DEMO_CASE"]
 
 #: The built-in case ``paths demo`` runs.
@@ -62,9 +63,11 @@ class DataOptions:
     given.  ``features``/``exclude`` are column names or glob patterns;
     ``encode`` is ``None`` (text columns refused) or ``"onehot"``;
     ``drop_missing`` is ``None`` (missing values refused), ``"rows"`` or
-    ``"columns"``; ``groups`` names a column of group labels (kept out of the
-    features); ``test_file`` is a second table with the same columns in any
-    order, aligned by name; ``holdout`` a fraction of rows held out instead.
+    ``"columns"``; ``groups`` names a column of group labels and ``weights`` a
+    column of positive row weights (both kept out of the features; a test file
+    with the weights column is weighted too); ``test_file`` is a second table
+    with the same columns in any order, aligned by name; ``holdout`` a fraction
+    of rows held out instead.
     """
 
     file: Path | None = None
@@ -76,6 +79,7 @@ class DataOptions:
     encode: str | None = None
     drop_missing: str | None = None
     groups: str | None = None
+    weights: str | None = None
     test_file: Path | None = None
     holdout: float | None = None
     generator: str | None = None
@@ -100,7 +104,10 @@ class FitOptions:
     ``n_folds`` (K-fold cross-validation, exact from the one factorization),
     ``repeats`` seeded repetitions of the partition, ``fold_scheme``
     ``"shuffled"`` or ``"blocked"``, ``cv_scaling`` ``"global"`` or
-    ``"per-fold"``; ``seed`` seeds the holdout and the folds.
+    ``"per-fold"``; ``seed`` seeds the holdout and the folds.  ``unpenalized``
+    names columns (or glob patterns) fitted without penalty; ``relative_penalty``
+    maps patterns to penalty factors (``{"gene_*": 2.0}``, or ``"PATTERN=W"``
+    strings as on the command line).
     """
 
     n_lambdas: int = 100
@@ -112,6 +119,15 @@ class FitOptions:
     cv_scaling: str = "global"
     rule: str | None = None
     seed: int = 0
+    unpenalized: tuple | None = None
+    relative_penalty: dict | None = None
+
+    def __post_init__(self):
+        _set(self, "unpenalized", _names(self.unpenalized))
+        if self.relative_penalty is not None and not isinstance(self.relative_penalty, dict):
+            _set(self, "relative_penalty", parse_relative_penalties(self.relative_penalty))
+        if not self.relative_penalty:
+            _set(self, "relative_penalty", None)
 
 
 @dataclass(frozen=True)
@@ -237,6 +253,32 @@ class OutputOptions:
         from paths.data.output import OutputFolder
 
         return OutputFolder(self.out_dir, force=self.force, inputs=[*self.inputs, *inputs])
+
+
+def parse_relative_penalties(specs) -> dict | None:
+    """``["gene_*=2", "age=0.5"]`` → ``{"gene_*": 2.0, "age": 0.5}``.
+
+    >>> parse_relative_penalties(["gene_*=2", "age=0.5"])
+    {'gene_*': 2.0, 'age': 0.5}
+    """
+    import math
+
+    if not specs:
+        return None
+    out = {}
+    for spec in [specs] if isinstance(specs, str) else specs:
+        pattern, eq, value = str(spec).rpartition("=")
+        try:
+            w = float(value)
+        except ValueError:
+            w = None
+        if not eq or not pattern or w is None or not (math.isfinite(w) and w > 0):
+            from paths.data.validation import InputError
+
+            raise InputError(f"relative_penalty takes PATTERN=W with W a number > 0 (e.g. "
+                             f"'gene_*=2'); got {spec!r}")
+        out[pattern] = w
+    return out
 
 
 def option_names(cls) -> tuple:

@@ -31,8 +31,9 @@ class Prepared:
     """Prepared data: the training :class:`~paths.data.tables.Dataset`, the aligned test set.
 
     ``digests`` maps each input file to its SHA-256; ``groups`` holds one group
-    label per training row (``None`` without a group column); ``generator``
-    records a synthetic generator's name and arguments.
+    label per training row (``None`` without a group column); ``weights`` and
+    ``test_weights`` the row weights (``None`` without a weights column);
+    ``generator`` records a synthetic generator's name and arguments.
     """
 
     train: object
@@ -40,6 +41,8 @@ class Prepared:
     digests: dict = field(default_factory=dict)
     groups: np.ndarray | None = None
     generator: dict | None = None
+    weights: np.ndarray | None = None
+    test_weights: np.ndarray | None = None
 
     @property
     def notes(self) -> list:
@@ -58,6 +61,8 @@ class TrainTest:
     y_test: np.ndarray | None
     groups: np.ndarray | None
     split: dict | None
+    weights: np.ndarray | None = None
+    test_weights: np.ndarray | None = None
 
 
 def _generator(name: str):
@@ -109,6 +114,26 @@ def _group_labels(frame, column: str, source: str) -> np.ndarray:
     return values.to_numpy()
 
 
+def _row_weights(frame, column: str, source: str, *, required: bool = True):
+    """The positive row weights in ``column`` (``None`` if absent and not ``required``)."""
+    import pandas as pd
+
+    from paths.data.validation import as_weights
+
+    if column not in frame.columns:
+        if not required:
+            return None
+        raise InputError(f"{source}: weights column {column!r} not found; columns are: "
+                         f"{', '.join(map(str, list(frame.columns)[:8]))}")
+    values = pd.to_numeric(frame[column], errors="coerce")
+    if values.isna().any():
+        i = int(np.flatnonzero(values.isna().to_numpy())[0])
+        raise InputError(f"{source}: weights column {column!r} has a missing or non-numeric "
+                         f"value ({frame[column].iloc[i]!r}, data row {i + 1}); give every row "
+                         "a positive weight")
+    return as_weights(values.to_numpy(dtype=float), len(values), f"{source}: weights {column!r}")
+
+
 def _default_target(frame) -> tuple:
     found = [c for c in _GENERATOR_TARGETS if c in frame.columns]
     if not found:
@@ -130,7 +155,7 @@ def prepare(options: DataOptions, *, base_dir=None) -> Prepared:
     -------
     Prepared
     """
-    from paths.data.tables import load_dataset, select, sha256_of
+    from paths.data.tables import select, sha256_of
 
     if options.test_file is not None and options.holdout is not None:
         raise InputError("pass either test_file or holdout, not both")
@@ -139,35 +164,49 @@ def prepare(options: DataOptions, *, base_dir=None) -> Prepared:
     if not target:
         raise InputError("no target: name the response column (target)")
     exclude = options.exclude
-    groups = None
+    groups = weights = test_weights = None
     if options.groups is not None:
         groups = _group_labels(frame, options.groups, source)
         exclude = (*(exclude or ()), options.groups)
+    if options.weights is not None:
+        weights = _row_weights(frame, options.weights, source)
+        exclude = (*(exclude or ()), options.weights)
     train = select(frame, list(target), features=options.features, exclude=exclude,
                    id_column=options.id_column, encode=options.encode,
                    drop_missing=options.drop_missing, source=source)
-    if groups is not None and train.rows is not None:  # rows dropped (drop_missing="rows")
-        groups = groups[train.rows]
+    if train.rows is not None:  # rows dropped (drop_missing="rows"): align the side columns
+        groups = None if groups is None else groups[train.rows]
+        weights = None if weights is None else weights[train.rows]
     test = None
     if options.test_file is not None:
+        from paths.data.tables import read_table, select_like
+
         tpath = _resolve(options.test_file, base_dir)
-        test = load_dataset(tpath, list(target), sep=options.sep, like=train)
+        tframe = read_table(tpath, sep=options.sep)
+        test = select_like(tframe, train, source=str(tpath))
         digests[str(tpath)] = sha256_of(tpath)
-    return Prepared(train=train, test=test, digests=digests, groups=groups, generator=gen)
+        if options.weights is not None:  # the test file's own weights, if it has the column
+            test_weights = _row_weights(tframe, options.weights, str(tpath), required=False)
+            if test_weights is not None and test.rows is not None:
+                test_weights = test_weights[test.rows]
+    return Prepared(train=train, test=test, digests=digests, groups=groups, generator=gen,
+                    weights=weights, test_weights=test_weights)
 
 
 def train_test(prepared: Prepared, *, holdout: float | None = None, seed: int = 0) -> TrainTest:
     """Training and test arrays: the test file's rows, or a seeded holdout of the training rows."""
     from paths.data.synthetic import split_holdout
 
-    X, y, groups = prepared.train.X, prepared.train.y, prepared.groups
+    X, y, groups, w = prepared.train.X, prepared.train.y, prepared.groups, prepared.weights
     if prepared.test is not None:
         if holdout is not None:
             raise InputError("pass either test_file or holdout, not both")
-        return TrainTest(X, y, prepared.test.X, prepared.test.y, groups, None)
+        return TrainTest(X, y, prepared.test.X, prepared.test.y, groups, None, w,
+                         prepared.test_weights)
     if holdout is None:
-        return TrainTest(X, y, None, None, groups, None)
+        return TrainTest(X, y, None, None, groups, None, w)
     train, held = split_holdout(X.shape[0], holdout, seed)
     split = {"holdout": holdout, "seed": seed, "n_test": int(held.size)}
     return TrainTest(X[train], y[train], X[held], y[held],
-                     None if groups is None else groups[train], split)
+                     None if groups is None else groups[train], split,
+                     None if w is None else w[train], None if w is None else w[held])
