@@ -55,10 +55,6 @@ def _layer(module: str):
 
 
 MODULES = dict(_modules())
-# private helpers of core/path.py still shared with the engines; they move into one algebra
-# module (issue 10 item 1, being done in parallel) -- delete these entries when it lands
-PENDING = {("paths.engines.dask_cluster", "_gains"), ("paths.engines.stream", "_gains"),
-           ("paths.engines.stream", "_coefficients"), ("paths.engines.wide", "_gains")}
 
 
 def test_every_module_sits_in_a_layer():
@@ -94,8 +90,7 @@ def test_no_private_name_is_imported_from_another_module():
     bad = []
     for name, path, line, mod, names in _edges():
         private_module = [p for p in mod.split(".") if p.startswith("_") and p != "__init__"]
-        private_names = [n for n in names if n.startswith("_") and not n.endswith("__")
-                         and (name, n) not in PENDING]
+        private_names = [n for n in names if n.startswith("_") and not n.endswith("__")]
         if (private_module or private_names) and mod != name:
             bad.append(f"{path.relative_to(ROOT.parent)}:{line}: {name} imports "
                        f"{', '.join(private_names) or mod} from {mod}")
