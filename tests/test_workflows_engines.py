@@ -1,4 +1,5 @@
-"""The explore workflows of ``paths/analysis.py``: the streaming engine writes the same report.
+"""The explore workflow on the out-of-memory engines (``paths/workflows/engines.py``): the
+streaming engine writes the same report.
 
 Reference: scikit-learn ``Ridge`` on ``StandardScaler``-scaled features (the
 same objective as the README's penalty convention) for the written
