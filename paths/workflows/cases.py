@@ -36,7 +36,8 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 from paths.data.validation import InputError
-from paths.workflows.options import (DEMO_CASE, DataOptions, DrawOptions, EngineOptions, FigureOptions,
+from paths.workflows.options import (DEMO_CASE, DataOptions, DrawOptions, EngineOptions,
+                                     FigureOptions,
                                      FitOptions, OutputOptions, ThresholdOptions, TruthOptions,
                                      option_names)
 from paths.workflows.prepare import GENERATORS, generator_parameters
@@ -167,6 +168,53 @@ def load_case(path) -> Case:
     return parse_case(text, source=p)
 
 
+_TYPE_WORDS = {bool: "true or false", int: "a whole number", float: "a number", str: "a string",
+               dict: "a table"}
+
+
+def _expected_type(default, annotation: str):
+    """The TOML type an option takes, from its default, else from its annotation
+    (``int | None`` -> int; ``Path`` -> a string); None when several would do."""
+    if isinstance(default, bool):
+        return bool
+    if isinstance(default, (int, float, str)) and not isinstance(default, Path):
+        return type(default)
+    words = set(re.findall(r"[A-Za-z_]+", annotation))
+    if words & {"list", "tuple", "Sequence", "dict", "object", "Any", "ndarray", "Callable"}:
+        return None
+    for t, names in ((bool, {"bool"}), (float, {"float"}), (int, {"int"}), (str, {"str", "Path"})):
+        if names & words:
+            return t
+    return None
+
+
+def _check_type(where: str, table: str, key: str, value, want) -> None:
+    if want is None:
+        return
+    ok = (isinstance(value, bool) if want is bool else
+          isinstance(value, int) and not isinstance(value, bool) if want is int else
+          isinstance(value, (int, float)) and not isinstance(value, bool) if want is float
+          else isinstance(value, want))
+    if not ok:
+        raise InputError(f"{where}: [{table}] {key} must be {_TYPE_WORDS[want]}; got "
+                         f"{value!r} ({type(value).__name__})")
+
+
+def _check_types(doc: dict, where: str) -> None:
+    """Every value of the case file has the type its option takes (one line otherwise)."""
+    import dataclasses
+
+    meta = {"name": str, "title": str, "description": str, "synthetic": bool, "analysis": str}
+    for table, body in doc.items():
+        if table == "case":
+            want = meta
+        else:
+            want = {f.name: _expected_type(f.default, str(f.type))
+                    for f in dataclasses.fields(TABLES[table])}
+        for key, value in body.items():
+            _check_type(where, table, key, value, want.get(key))
+
+
 def _check_keys(doc: dict, where: str) -> None:
     valid = {"case": _META, **{t: option_names(c) for t, c in TABLES.items()}}
     unknown_tables = [k for k in doc if k not in valid]
@@ -205,6 +253,10 @@ def _check_data(data: dict, analysis: str, where: str) -> None:
         if bad:
             raise InputError(f"{where}: unknown generator parameter(s) {', '.join(sorted(bad))} "
                              f"for {gen}; valid: {', '.join(allowed)}")
+        sig = allowed
+        for key, value in params.items():
+            _check_type(where, "data.params", key, value,
+                        _expected_type(sig[key].default, str(sig[key].annotation)))
     elif "target" not in data:
         raise InputError(f"{where}: [data] file needs target = COLUMN")
 
@@ -219,6 +271,7 @@ def parse_case(text: str, *, source=None) -> Case:
     except tomllib.TOMLDecodeError as exc:
         raise InputError(f"{where}: not valid TOML ({exc}); fix the syntax") from None
     _check_keys(doc, where)
+    _check_types(doc, where)
     meta, data = doc.get("case", {}), doc.get("data", {})
     analysis = meta.get("analysis", "explore")
     if analysis not in ANALYSES:

@@ -72,17 +72,30 @@ def _columns_and_shape(path: Path, sep=None):
             raise InputError(f"{path}: not a readable Parquet file ({exc}); check the file") from None
         return names, rows
     if suffix == ".npy":
-        arr = np.load(path, mmap_mode="r")
+        try:
+            arr = np.load(path, mmap_mode="r", allow_pickle=False)
+        except (ValueError, OSError, EOFError) as exc:  # object (pickled), truncated, not .npy
+            msg = " ".join(str(exc).split())[:160] or type(exc).__name__
+            raise InputError(f"{path} is not a readable NumPy file ({msg}); save it with "
+                             "numpy.save, without object arrays") from None
+        if arr.ndim != 2:
+            raise InputError(f"{path}: the array has shape {arr.shape}; the streaming engines "
+                             "read a 2-D array (rows x columns)")
         return None, int(arr.shape[0])
     import pandas as pd
 
     if sep is None:
         sep = "\t" if suffix in (".tsv", ".tab") else ","
     try:
-        return [str(c) for c in pd.read_csv(path, sep=sep, nrows=0).columns], None
+        names = [str(c) for c in pd.read_csv(path, sep=sep, nrows=0).columns]
     except Exception as exc:  # noqa: BLE001
         raise InputError(f"{path} could not be read ({type(exc).__name__}); check the delimiter "
                          "(sep) and that it is UTF-8 text") from None
+    with open(path, "rb") as fh:  # a header without data rows: refused here, not mid-pass
+        fh.readline()
+        if not any(line.strip() for line in fh):
+            raise InputError(f"{path} has a header row but no data rows; add data rows")
+    return names, None
 
 
 def _resolve_features(names, targets, features, exclude):
@@ -106,6 +119,9 @@ def _plan(data: DataOptions):
     path = Path(data.file)
     if not path.exists():
         raise InputError(f"{path}: no such file or folder; check the path")
+    if not (path.is_file() or path.is_dir()):  # a FIFO or device would block the reader
+        raise InputError(f"{path} is not a regular file (a pipe or a device); save the data "
+                         "to a file and pass that")
     targets = list(data.target)
     names, rows = _columns_and_shape(path, data.sep)
     feats = None
@@ -154,6 +170,9 @@ def _fit(data: DataOptions, fit: FitOptions, engine: EngineOptions, progress):
                            rank=engine.rank, progress=progress)
     from paths.engines.dask_cluster import dask_path
 
+    if engine.scheduler is not None:  # a remote scheduler's workers do not share our folder
+        path = path.resolve()
+        test = None if test is None else Path(test).resolve()
     return dask_path(path, target=targets, features=feats, chunk_rows=engine.chunk_rows,
                      accurate=engine.accurate, scheduler=engine.scheduler,
                      timeout=engine.scheduler_timeout, standardize=fit.standardize, test=test,

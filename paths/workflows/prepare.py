@@ -72,11 +72,11 @@ def _generator(name: str):
             "isotropic": synthetic.make_isotropic}[name]
 
 
-def generator_parameters(name: str) -> tuple:
-    """The keyword arguments the generator ``name`` accepts."""
+def generator_parameters(name: str):
+    """The parameters (name → :class:`inspect.Parameter`) the generator ``name`` accepts."""
     import inspect
 
-    return tuple(inspect.signature(_generator(name)).parameters)
+    return inspect.signature(_generator(name)).parameters
 
 
 def _resolve(path: Path, base_dir) -> Path:
