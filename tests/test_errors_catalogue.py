@@ -252,7 +252,7 @@ CASES = {
     "E74": (CLI, None, ["simulate", "--n-features", "10000000"]),
     "E75": (CLI, None, ["simulate", "--n-train", "100000000000", "--n-features", "50"]),
     "E76": (CLI, None, ["simulate", "--seed", "-5"]),
-    "E77": (CLI, None, ["plan", "--features", "10", "--snr", "nan"]),
+    "E77": (CLI, None, ["plan", "--n-features", "10", "--snr", "nan"]),
     "E78": (CLI, None, ["plan", "--snr", "1"]),
     "E79": ("api", None, _fit(X12 + 1j, Y12)),
     "E80": ("api", None, _fit(X12, Y12, n_lambdas=2.5)),

@@ -61,7 +61,7 @@ def check_figures(figures: FigureOptions) -> tuple:
     formats = parse_formats(figures.formats) if figures.formats else ()
     width = parse_width(figures.width)
     if figures.x not in ("log_lambda", "df"):
-        raise InputError(f"x (the figure axis) must be log_lambda or df; got {figures.x!r}")
+        raise InputError(f"x must be log_lambda or df (the axis of the path figures); got {figures.x!r}")
     return formats, width
 
 
