@@ -46,15 +46,15 @@ def simulate_cmd(
     """Simulate synthetic data, run the sweep; write threshold.csv/.json and bias_variance.csv."""
     from paths.cli.progress import ProgressBar
     from paths.workflows import options as o
-    from paths.workflows.threshold import run_simulate, simulate_truth
+    from paths.workflows.threshold import run_simulate
 
     given = locals()
-    truth = f.build(o.TruthOptions, given)
-    console.print(f"[bold]simulate:[/] {simulate_truth(truth).description}")
     with ProgressBar() as bar:
         run = run_simulate(
-            truth, f.build(o.DrawOptions, given), f.build(o.ThresholdOptions, given),
+            f.build(o.TruthOptions, given), f.build(o.DrawOptions, given),
+            f.build(o.ThresholdOptions, given),
             f.build(o.FigureOptions, given),
             f.build(o.OutputOptions, given, command_line=["paths", *sys.argv[1:]]),
             progress=bar)
+    console.print(f"[bold]simulate:[/] {run.summary['truth']['description']}")
     print_threshold(run.summary, run.files, run.out_dir)

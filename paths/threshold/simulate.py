@@ -417,7 +417,7 @@ def simulate(
     if th is not None and truth.covariance_kind != "isotropic":
         th = dataclasses.replace(th, applies=False, note=(
             f"{truth.covariance_kind} covariance: the isotropic formulas are for reference only"))
-    spectrum_note = [f"repeats are {int(repeats)} independent draws from the truth"]
+    spectrum_note = [f"{int(repeats)} independent draw(s) from the truth, one per repeat"]
     sweep = dataclasses.replace(first, repeats=int(repeats), theory=th, seed=seed,
                                 order=order, notes=list(first.notes) + spectrum_note,
                                 **stacked)
