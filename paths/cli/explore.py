@@ -48,6 +48,19 @@ def print_rules(run) -> None:
                       markup=False)
 
 
+def print_intervals(run) -> None:
+    """One line per target: the prediction intervals' level, method, coverage and width."""
+    rec = run.summary.get("intervals")
+    if not rec:
+        return
+    cov, wid = rec["coverage"], rec["mean_width"]
+    cov, wid = (cov, wid) if isinstance(cov, list) else ([cov], [wid])
+    for j, name in enumerate(run.summary.get("targets") or [None]):
+        console.print(f"prediction intervals{'' if name is None else f' ({name})'}: level "
+                      f"{rec['level']:g}, {rec['method']}, coverage on {rec['n_test']} test rows "
+                      f"{cov[j]:.3f}, mean width {wid[j]:.4g}; {rec['guarantee']}", markup=False)
+
+
 def _fmt(v) -> str:
     return "n/a" if v is None else f"{float(v):.4g}"
 
@@ -121,6 +134,12 @@ def explore_cmd(
     relative_penalty: list[str] = typer.Option(None, "--relative-penalty", help="PATTERN=W: "
                                                "penalize those columns by W x lambda (W > 0; "
                                                "repeatable)."),
+    intervals: float = typer.Option(None, "--intervals", help="Prediction intervals at this "
+                                    "level (e.g. 0.9) for the test rows (--test or --holdout), "
+                                    "at the reported penalty: intervals.csv."),
+    interval_method: f.IntervalMethod = typer.Option(
+        f.IntervalMethod.jackknife_plus, "--interval-method", help="jackknife+ (coverage >= "
+        "1 - 2 alpha), cv+ (the --n-folds folds) or split (half the training rows calibrate)."),
     seed: int = f.SEED,
     n_lambdas: int = f.N_LAMBDAS,
     standardize: bool = f.STANDARDIZE,
@@ -175,6 +194,7 @@ def explore_cmd(
     print_summary(run)
     if run.selection is not None:
         print_rules(run)
+    print_intervals(run)
     if (run.out_dir / "report.html").exists():
         console.print(f"[bold]report:[/] {run.out_dir / 'report.html'}")
 

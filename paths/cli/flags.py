@@ -15,7 +15,7 @@ from pathlib import Path
 
 import typer
 
-__all__ = ["build", "Solver", "Encode", "DropMissing", "FoldScheme", "CVScaling", "Engine",
+__all__ = ["build", "Solver", "Encode", "DropMissing", "FoldScheme", "CVScaling", "Engine", "IntervalMethod",
            "Over", "Order", "FeatureMap", "Band", "Covariance", "Coefficients"]
 
 
@@ -43,6 +43,12 @@ class FoldScheme(str, Enum):
 class CVScaling(str, Enum):
     global_ = "global"
     per_fold = "per-fold"
+
+
+class IntervalMethod(str, Enum):
+    jackknife_plus = "jackknife+"
+    cv_plus = "cv+"
+    split = "split"
 
 
 class Engine(str, Enum):

@@ -19,16 +19,17 @@ from paths.workflows.explore import ExploreRun, check_figures, command_text, per
 from paths.workflows.options import (DataOptions, EngineOptions, FigureOptions, FitOptions,
                                      OutputOptions)
 
-__all__ = ["explore_engine", "unsupported_options", "ENGINES"]
+__all__ = ["explore_engine", "unsupported_options", "write_engine_fit", "ENGINES"]
 
 ENGINES = ("memory", "stream", "dask")
 _HASH_LIMIT = 2 << 30  # files above 2 GiB are recorded by size, not hashed (another full read)
 # options the out-of-memory engines do not offer yet (they keep their defaults)
 _DATA_ONLY_IN_MEMORY = ("holdout", "groups", "id_column", "encode", "drop_missing", "weights")
 _FIT_ONLY_IN_MEMORY = ("repeats", "cv_scaling", "rule", "solver", "unpenalized",
-                       "relative_penalty")
-_WHY = {name: " (its one-pass moments are unweighted and penalize every column)"
-        for name in ("weights", "unpenalized", "relative_penalty")}
+                       "relative_penalty", "intervals")
+_WHY = {**{name: " (its one-pass moments are unweighted and penalize every column)"
+           for name in ("weights", "unpenalized", "relative_penalty")},
+        "intervals": " (the leave-out fits use the left singular vectors)"}
 
 
 def unsupported_options(data: DataOptions, fit: FitOptions) -> list:
@@ -224,7 +225,8 @@ def explore_engine(data: DataOptions, fit: FitOptions = FitOptions(),
             digests.update(dig)
             hash_notes += notes
         summary = _engine_summary(result, data, fit, output, digests, hash_notes)
-        files = _write_engine(result, summary, folder.stage, list(data.target), figures)
+        files = _write_engine(result, summary, folder.stage, list(data.target), figures,
+                              source=str(data.file), digests=digests)
     return ExploreRun(result=result, summary=summary, out_dir=folder.target,
                       files=folder.final_paths(files))
 
@@ -244,8 +246,31 @@ def _engine_summary(result, data, fit, output, digests, hash_notes) -> dict:
     return summary
 
 
-def _write_engine(result, summary: dict, out: Path, targets, figures: FigureOptions) -> list:
-    """path.csv, coefficients.csv (when the engine kept them), summary.json, figures, report."""
+def write_engine_fit(dest: Path, result, targets, source: str, input_sha256=None) -> Path:
+    """A predict-only ``fit.npz`` of an out-of-memory engine's path (its grid minima as rules;
+    the reported one: K-fold CV when computed, else GCV)."""
+    from paths.present.fitfile import save_fit
+
+    def grid_min(values):
+        if values is None:
+            return None
+        v = np.asarray(values, dtype=float).reshape(result.lambdas.size, -1)
+        return [float(result.lambdas[int(np.argmin(v[:, j]))]) for j in range(v.shape[1])]
+
+    rules = {"gcv": grid_min(result.gcv), "loo": grid_min(result.loo_mse),
+             "cv": grid_min(result.cv_mse)}
+    rule = "cv" if rules["cv"] is not None else "gcv"
+    prep = {"source_columns": list(result.feature_names), "encoding": {}, "id_column": None,
+            "drop_missing": None, "target_names": list(targets), "source": source}
+    return save_fit(dest, result, reported=np.array(rules[rule]),
+                    reported_rule=f"{rule} (grid minimum)", rules=rules, preparation=prep,
+                    input_sha256=input_sha256)
+
+
+def _write_engine(result, summary: dict, out: Path, targets, figures: FigureOptions, *,
+                  source: str, digests: dict) -> list:
+    """path.csv, coefficients.csv and fit.npz (when the engine kept coefficients),
+    summary.json, figures, report."""
     from paths.data.output import write_csv, write_json
     from paths.present.summary import coefficient_table, path_table
 
@@ -260,6 +285,8 @@ def _write_engine(result, summary: dict, out: Path, targets, figures: FigureOpti
 
         summary["report"] = report_numbers(summary)
     files.append(write_json(out / "summary.json", summary))
+    if result.coef is not None and result.engine != "wide":  # wide: no right factors kept
+        files.append(write_engine_fit(out / "fit.npz", result, targets, source, digests))
     if drawable:
         files += write_explore_outputs(result, summary, out, formats=formats, width=width,
                                        x=figures.x, report=figures.report)

@@ -22,7 +22,8 @@ from paths.workflows.options import (DataOptions, EngineOptions, FigureOptions, 
 from paths.workflows.prepare import Prepared, TrainTest, prepare, train_test
 
 __all__ = ["ExploreRun", "Fitted", "run_explore", "explore_prepared", "fit_and_select",
-           "explore_record", "write_explore", "write_saved_fit", "per_target", "command_text",
+           "explore_record", "write_explore", "write_saved_fit", "prediction_intervals_step",
+           "per_target", "command_text",
            "check_figures"]
 
 
@@ -95,12 +96,19 @@ def explore_prepared(prepared: Prepared, fit: FitOptions = FitOptions(),
 
     check_figures(figures)
     check_rows_for_cv(prepared.train.X.shape[0], fit.n_folds, prepared.train.source)
+    if fit.intervals is not None and prepared.test is None and holdout is None:
+        raise InputError("intervals needs test rows: pass test_file FILE or holdout FRACTION")
+    targets = prepared.train.target_names
     with output.folder(prepared.digests) as folder:
         fitted = fit_and_select(prepared, fit, holdout=holdout)
+        record, table = prediction_intervals_step(fitted, fit, targets)
         summary = explore_record(prepared, fitted, fit, command_line=command_text(output),
-                                 extra=extra)
-        files = write_explore(fitted, summary, folder.stage, prepared.train.target_names,
-                              figures)
+                                 extra=extra, intervals=record)
+        files = write_explore(fitted, summary, folder.stage, targets, figures)
+        if table is not None:
+            from paths.data.output import write_csv
+
+            files.append(write_csv(folder.stage / "intervals.csv", *table))
         files.append(write_saved_fit(folder.stage / "fit.npz", fitted.result, fitted.selection,
                                      prepared.train, prepared.digests))
     return ExploreRun(result=fitted.result, summary=summary, out_dir=folder.target,
@@ -134,6 +142,23 @@ def _folds_for(groups, n_rows: int, fit: FitOptions):
     if fit.n_folds is None and fit.repeats != 1:
         raise InputError("repeats needs n_folds (K-fold cross-validation)")
     return fit.n_folds
+
+
+def prediction_intervals_step(fitted: Fitted, fit: FitOptions, targets) -> tuple:
+    """Prediction intervals for the test rows at the reported penalty of each target:
+    ``(summary record, (header, rows) of intervals.csv)``, or ``(None, None)``."""
+    if fit.intervals is None:
+        return None, None
+    from paths.present.summary import interval_record, interval_table
+    from paths.selection.intervals import prediction_intervals
+
+    data, cv_res = fitted.data, fitted.cv
+    folds = cv_res.labels[0] if cv_res is not None and fit.interval_method == "cv+" else None
+    pi = prediction_intervals(fitted.result, data.X_test, fitted.selection.chosen_lambdas(),
+                              level=fit.intervals, method=fit.interval_method, folds=folds,
+                              seed=fit.seed)
+    return (interval_record(pi, data.y_test),
+            interval_table(pi, [int(r) for r in data.test_rows], targets))
 
 
 def cv_record(cv_res) -> dict:
@@ -180,7 +205,7 @@ def penalty_record(result, relative_penalty) -> dict:
 
 
 def explore_record(prepared: Prepared, fitted: Fitted, fit: FitOptions, *, command_line: str,
-                   extra: dict | None = None) -> dict:
+                   extra: dict | None = None, intervals: dict | None = None) -> dict:
     """The ``summary.json`` record of an in-memory explore run."""
     from paths.present.report import report_numbers
     from paths.present.summary import add_choice_errors, summary_dict
@@ -201,6 +226,8 @@ def explore_record(prepared: Prepared, fitted: Fitted, fit: FitOptions, *, comma
         summary["by_target"] = _by_target(summary, result, selection, targets)
     if prepared.generator is not None:
         summary["generator"] = prepared.generator
+    if intervals is not None:
+        summary["intervals"] = intervals
     summary.update(extra or {})
     data = fitted.data
     add_choice_errors(summary, result, X_train=data.X, X_test=data.X_test, y_test=data.y_test)

@@ -107,7 +107,9 @@ class FitOptions:
     ``"per-fold"``; ``seed`` seeds the holdout and the folds.  ``unpenalized``
     names columns (or glob patterns) fitted without penalty; ``relative_penalty``
     maps patterns to penalty factors (``{"gene_*": 2.0}``, or ``"PATTERN=W"``
-    strings as on the command line).
+    strings as on the command line).  ``intervals`` asks for prediction intervals
+    at that level for the test rows (``interval_method`` ``"jackknife+"``,
+    ``"cv+"`` or ``"split"``; :mod:`paths.selection.intervals`).
     """
 
     n_lambdas: int = 100
@@ -121,6 +123,8 @@ class FitOptions:
     seed: int = 0
     unpenalized: tuple | None = None
     relative_penalty: dict | None = None
+    intervals: float | None = None
+    interval_method: str = "jackknife+"
 
     def __post_init__(self):
         _set(self, "unpenalized", _names(self.unpenalized))

@@ -43,6 +43,7 @@ class Prepared:
     generator: dict | None = None
     weights: np.ndarray | None = None
     test_weights: np.ndarray | None = None
+    test_rows: np.ndarray | None = None  # 0-based rows of the test rows in their table
 
     @property
     def notes(self) -> list:
@@ -63,6 +64,7 @@ class TrainTest:
     split: dict | None
     weights: np.ndarray | None = None
     test_weights: np.ndarray | None = None
+    test_rows: np.ndarray | None = None  # 0-based rows of the test rows in their table
 
 
 def _generator(name: str):
@@ -201,12 +203,14 @@ def train_test(prepared: Prepared, *, holdout: float | None = None, seed: int = 
     if prepared.test is not None:
         if holdout is not None:
             raise InputError("pass either test_file or holdout, not both")
-        return TrainTest(X, y, prepared.test.X, prepared.test.y, groups, None, w,
-                         prepared.test_weights)
+        test = prepared.test
+        rows = test.rows if test.rows is not None else np.arange(test.X.shape[0])
+        return TrainTest(X, y, test.X, test.y, groups, None, w, prepared.test_weights, rows)
     if holdout is None:
         return TrainTest(X, y, None, None, groups, None, w)
     train, held = split_holdout(X.shape[0], holdout, seed)
     split = {"holdout": holdout, "seed": seed, "n_test": int(held.size)}
+    rows = held if prepared.train.rows is None else prepared.train.rows[held]
     return TrainTest(X[train], y[train], X[held], y[held],
                      None if groups is None else groups[train], split,
-                     None if w is None else w[train], None if w is None else w[held])
+                     None if w is None else w[train], None if w is None else w[held], rows)
