@@ -125,50 +125,26 @@ def explore_cmd(
     test_file: Path = f.TEST_FILE,
     holdout: float = f.HOLDOUT,
     groups: str = f.GROUPS,
-    weights: str = typer.Option(None, "--weights", help="Column of positive row weights "
-                                "(survey weights, counts, precisions); not a feature. Every "
-                                "error is then weighted."),
-    unpenalized: list[str] = typer.Option(None, "--unpenalized", help="Columns (names or glob "
-                                          "patterns, repeatable) fitted without penalty, like "
-                                          "the intercept (e.g. age, sex, batch)."),
-    relative_penalty: list[str] = typer.Option(None, "--relative-penalty", help="PATTERN=W: "
-                                               "penalize those columns by W x lambda (W > 0; "
-                                               "repeatable)."),
-    intervals: float = typer.Option(None, "--intervals", help="Prediction intervals at this "
-                                    "level (e.g. 0.9) for the test rows (--test or --holdout), "
-                                    "at the reported penalty: intervals.csv."),
-    interval_method: f.IntervalMethod = typer.Option(
-        f.IntervalMethod.jackknife_plus, "--interval-method", help="jackknife+ (coverage >= "
-        "1 - 2 alpha), cv+ (the --n-folds folds) or split (half the training rows calibrate)."),
+    weights: str = f.WEIGHTS,
+    unpenalized: list[str] = f.UNPENALIZED,
+    relative_penalty: list[str] = f.RELATIVE_PENALTY,
+    intervals: float = f.INTERVALS,
+    interval_method: f.IntervalMethod = f.INTERVAL_METHOD,
     seed: int = f.SEED,
     n_lambdas: int = f.N_LAMBDAS,
     standardize: bool = f.STANDARDIZE,
     solver: f.Solver = f.SOLVER,
-    n_folds: int = typer.Option(None, "--n-folds", help="K-fold cross-validation with K folds "
-                                "(exact, from the one factorization)."),
+    n_folds: int = f.N_FOLDS,
     repeats: int = f.REPEATS,
-    fold_scheme: f.FoldScheme = typer.Option(f.FoldScheme.shuffled, "--fold-scheme",
-                                             help="Seeded shuffle, or contiguous blocks for "
-                                                  "ordered rows."),
-    cv_scaling: f.CVScaling = typer.Option(f.CVScaling.global_, "--cv-scaling", help="Column "
-                                           "scales learned on all rows (fast, slightly "
-                                           "optimistic) or inside each fold (exact, refits)."),
-    rule: str = typer.Option(None, "--rule", help="Reported choice: gcv, loo, cv, one-se, "
-                             "df=VALUE, fraction=VALUE, hkb, lw or isotropic (default: cv with "
-                             "--n-folds, else gcv)."),
-    engine: f.Engine = typer.Option(f.Engine.memory, "--engine", help="memory: read everything; "
-                                    "stream: row chunks (tall) or column blocks (wide Parquet) "
-                                    "in bounded memory; dask: a dask cluster (docs/scaling.md)."),
-    scheduler: str = typer.Option(None, "--scheduler", help="Address of a running dask "
-                                  "scheduler, e.g. tcp://10.0.0.5:8786 (--engine dask)."),
-    scheduler_timeout: float = typer.Option(10.0, "--scheduler-timeout",
-                                            help="Seconds to wait for --scheduler to answer."),
-    chunk_rows: int = typer.Option(None, "--chunk-rows", help="Rows per chunk (stream/dask; "
-                                   "columns per block for wide data). Default 65536 / 4096."),
-    accurate: bool = typer.Option(False, "--accurate", help="Chunked TSQR instead of the Gram "
-                                  "matrix (stream/dask): backward stable, ~2x the arithmetic."),
-    rank: int = typer.Option(None, "--rank", help="Keep the top K principal components "
-                             "(randomized SVD for wide data): approximate, see the warning."),
+    fold_scheme: f.FoldScheme = f.FOLD_SCHEME,
+    cv_scaling: f.CVScaling = f.CV_SCALING,
+    rule: str = f.RULE,
+    engine: f.Engine = f.ENGINE,
+    scheduler: str = f.SCHEDULER,
+    scheduler_timeout: float = f.SCHEDULER_TIMEOUT,
+    chunk_rows: int = f.CHUNK_ROWS,
+    accurate: bool = f.ACCURATE,
+    rank: int = f.RANK,
     formats: str = f.FORMATS,
     width: str = f.WIDTH,
     x: str = f.FIGURE_X,

@@ -15,8 +15,8 @@ from pathlib import Path
 
 import typer
 
-__all__ = ["build", "Solver", "Encode", "DropMissing", "FoldScheme", "CVScaling", "Engine", "IntervalMethod",
-           "Over", "Order", "FeatureMap", "Band", "Covariance", "Coefficients"]
+__all__ = ["build", "Solver", "Encode", "DropMissing", "FoldScheme", "CVScaling", "Engine",
+           "IntervalMethod", "Over", "Order", "FeatureMap", "Band", "Covariance", "Coefficients"]
 
 
 class Solver(str, Enum):
@@ -156,6 +156,47 @@ def out_dir(default: str):
     """The ``--out`` option with a command's default folder."""
     return typer.Option(Path(default), "--out", "-o", help="Output folder.")
 
+
+# ------------------------------------------------------------------ explore: fit, CV, engines
+WEIGHTS = typer.Option(None, "--weights", help="Column of positive row weights "
+                       "(survey weights, counts, precisions); not a feature. Every "
+                       "error is then weighted.")
+UNPENALIZED = typer.Option(None, "--unpenalized", help="Columns (names or glob "
+                           "patterns, repeatable) fitted without penalty, like "
+                           "the intercept (e.g. age, sex, batch).")
+RELATIVE_PENALTY = typer.Option(None, "--relative-penalty", help="PATTERN=W: "
+                                "penalize those columns by W x lambda (W > 0; "
+                                "repeatable).")
+INTERVALS = typer.Option(None, "--intervals", help="Prediction intervals at this "
+                         "level (e.g. 0.9) for the test rows (--test or --holdout), "
+                         "at the reported penalty: intervals.csv.")
+INTERVAL_METHOD = typer.Option(IntervalMethod.jackknife_plus, "--interval-method",
+                               help="jackknife+ (coverage >= 1 - 2 alpha), cv+ (the --n-folds "
+                               "folds) or split (half the training rows calibrate).")
+N_FOLDS = typer.Option(None, "--n-folds", help="K-fold cross-validation with K folds "
+                       "(exact, from the one factorization).")
+FOLD_SCHEME = typer.Option(FoldScheme.shuffled, "--fold-scheme",
+                           help="Seeded shuffle, or contiguous blocks for "
+                           "ordered rows.")
+CV_SCALING = typer.Option(CVScaling.global_, "--cv-scaling", help="Column "
+                          "scales learned on all rows (fast, slightly "
+                          "optimistic) or inside each fold (exact, refits).")
+RULE = typer.Option(None, "--rule", help="Reported choice: gcv, loo, cv, one-se, "
+                    "df=VALUE, fraction=VALUE, hkb, lw or isotropic (default: cv with "
+                    "--n-folds, else gcv).")
+ENGINE = typer.Option(Engine.memory, "--engine", help="memory: read everything; "
+                      "stream: row chunks (tall) or column blocks (wide Parquet) "
+                      "in bounded memory; dask: a dask cluster (docs/scaling.md).")
+SCHEDULER = typer.Option(None, "--scheduler", help="Address of a running dask "
+                         "scheduler, e.g. tcp://10.0.0.5:8786 (--engine dask).")
+SCHEDULER_TIMEOUT = typer.Option(10.0, "--scheduler-timeout",
+                                 help="Seconds to wait for --scheduler to answer.")
+CHUNK_ROWS = typer.Option(None, "--chunk-rows", help="Rows per chunk (stream/dask; "
+                          "columns per block for wide data). Default 65536 / 4096.")
+ACCURATE = typer.Option(False, "--accurate", help="Chunked TSQR instead of the Gram "
+                        "matrix (stream/dask): backward stable, ~2x the arithmetic.")
+RANK = typer.Option(None, "--rank", help="Keep the top K principal components "
+                    "(randomized SVD for wide data): approximate, see the warning.")
 
 # ------------------------------------------------------------------ threshold sweeps
 OVER = typer.Option(Over.features, "--over", help="Grow the features or the samples.")
