@@ -47,7 +47,7 @@ class OneLineErrors(typer.core.TyperGroup):
         except click.exceptions.ClickException as exc:
             typer.echo(f"error: {' '.join(exc.format_message().split())}", err=True)
             raise SystemExit(exc.exit_code) from None
-        except click.exceptions.Abort:
+        except typer.Abort:
             typer.echo("aborted", err=True)
             raise SystemExit(1) from None
         raise SystemExit(rv if isinstance(rv, int) else 0)
