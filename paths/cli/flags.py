@@ -182,7 +182,7 @@ CV_SCALING = typer.Option(CVScaling.global_, "--cv-scaling", help="Column "
                           "scales learned on all rows (fast, slightly "
                           "optimistic) or inside each fold (exact, refits).")
 RULE = typer.Option(None, "--rule", help="Reported choice: gcv, loo, cv, one-se, "
-                    "df=VALUE, fraction=VALUE, hkb, lw or isotropic (default: cv with "
+                    "df=VALUE, fraction=VALUE, hkb, lw, isotropic or reml (default: cv with "
                     "--n-folds, else gcv).")
 ENGINE = typer.Option(Engine.memory, "--engine", help="memory: read everything; "
                       "stream: row chunks (tall) or column blocks (wide Parquet) "
