@@ -78,10 +78,11 @@ import numpy as np
 import scipy.linalg as sla
 
 __all__ = [
-    "FactorState", "factor_state", "Shrinkage", "shrinkage", "gains", "fractions",
+    "FactorState", "factor_state", "state_from_response", "Shrinkage", "shrinkage", "gains", "fractions",
     "complements", "penalized_df", "degrees_of_freedom", "residual_dof", "rss", "gcv",
     "gcv_limit", "Criteria", "criteria", "LeverageRows", "sample_space_blocks",
-    "leverage_rows", "refine_leverage", "unrefined_rows", "naive_ell", "ell_tolerance", "LEVERAGE_REFINE", "loo_sums", "loo_mse",
+    "leverage_rows", "refine_leverage", "naive_ell", "ell_tolerance",
+    "augment_rows", "LEVERAGE_REFINE", "loo_sums", "loo_mse",
     "loo_residuals", "project", "test_sums", "coefficients", "min_norm_coefficients",
     "intercepts", "coef_norm", "append_zero", "sample_weights", "path_coef_norm", "fold_factor", "kfold_fold_mse", "tsqr",
 ]
@@ -150,11 +151,20 @@ def factor_state(fac, design) -> FactorState:
 
     ``fac`` is a :class:`paths.core.factor.Factorization` (``u``, ``d``, ``vt``),
     ``design`` a :class:`paths.core.design.Design` (``zy``, ``n_samples``,
-    ``fit_intercept``).  The out-of-span residual :math:`y - Uc` is formed once;
-    at full row rank it is exactly zero (the computed difference would be
-    rounding, of order :math:`m\\varepsilon\\|y\\|`).
+    ``fit_intercept``); see :func:`state_from_response`.
     """
-    u, zy = fac.u, design.zy
+    return state_from_response(fac, design.zy, design.n_samples, design.fit_intercept)
+
+
+def state_from_response(fac, zy: np.ndarray, n_samples: int,
+                        fit_intercept: bool) -> FactorState:
+    """The in-memory :class:`FactorState` of factors ``fac`` and a reduced response ``zy`` (m, t).
+
+    The out-of-span residual :math:`y - Uc` is formed once; at full row rank it
+    is exactly zero (the computed difference would be rounding, of order
+    :math:`m\\varepsilon\\|y\\|`).
+    """
+    u = fac.u
     c = u.T @ zy
     if u.shape[1] == u.shape[0]:
         resid = np.zeros_like(zy)
@@ -163,9 +173,8 @@ def factor_state(fac, design) -> FactorState:
     rss_out = _sumsq(resid)
     for a in (c, resid, rss_out):
         a.flags.writeable = False
-    return FactorState(d=fac.d, vt=fac.vt, uty=c, rss_out=rss_out,
-                       n_samples=design.n_samples, fit_intercept=design.fit_intercept,
-                       u=u, resid_out=resid)
+    return FactorState(d=fac.d, vt=fac.vt, uty=c, rss_out=rss_out, n_samples=n_samples,
+                       fit_intercept=fit_intercept, u=u, resid_out=resid)
 
 
 def _sumsq(a: np.ndarray) -> np.ndarray:
@@ -412,21 +421,7 @@ def naive_ell(state: FactorState, ub: np.ndarray) -> np.ndarray:
     return np.maximum(base - np.einsum("ir,ir->i", ub, ub), 0.0)
 
 
-def unrefined_rows(state: FactorState, ub: np.ndarray, e_perp: np.ndarray) -> LeverageRows:
-    """:class:`LeverageRows` from the subtraction formulas alone (no complement at hand).
-
-    A leverage outside the span at or below :math:`100\\,m\\,\\varepsilon` (the
-    rounding level of :math:`1 - \\|u_i\\|^2`) counts as 0; above it the relative
-    error is about :math:`m\\varepsilon/\\ell_i`.  Prefer :func:`refine_leverage`.
-    """
-    ell = naive_ell(state, ub)
-    zero = ell <= 100 * state.m * _EPS
-    ell[zero] = 0.0
-    ep = np.where(zero[:, None], 0.0, e_perp)
-    return LeverageRows(u=ub, ell=ell, e_perp=ep)
-
-
-def _augment(state: FactorState, ub: np.ndarray) -> np.ndarray:
+def augment_rows(state: FactorState, ub: np.ndarray) -> np.ndarray:
     """Rows of :math:`\\tilde U = [1/\\sqrt n,\\ U]` (the intercept column first)."""
     if not state.fit_intercept:
         return ub
@@ -531,11 +526,11 @@ def _refined_rows(state: FactorState, block: int):
     y_s = np.empty((idx.size, t))
 
     def others():
-        yb_iter = sample_space_blocks(_centered_response(state), state.fit_intercept, block)
+        yb_iter = sample_space_blocks(reduced_response(state), state.fit_intercept, block)
         for (s, e, ub), (_, _, yb) in zip(sample_space_blocks(state.u, state.fit_intercept,
                                                               block), yb_iter):
             keep = ~is_s[s:e]
-            ua = _augment(state, ub)
+            ua = augment_rows(state, ub)
             sel = idx[(idx >= s) & (idx < e)]
             pos = np.searchsorted(idx, sel)
             ua_s[pos] = ua[sel - s]
@@ -545,11 +540,6 @@ def _refined_rows(state: FactorState, block: int):
     R = tsqr(others(), ra + t)
     ell, ep = refine_leverage(state, ua_s, y_s, R)
     return idx, ell, ep
-
-
-def _centered_response(state: FactorState) -> np.ndarray:
-    """The reduced response :math:`Uc + y_\\perp` (sample space via the blocks)."""
-    return state.u @ state.uty + state.resid_out
 
 
 def loo_sums(rows: LeverageRows, sh: Shrinkage, c: np.ndarray) -> np.ndarray:
@@ -745,6 +735,68 @@ def coef_norm(beta_std: np.ndarray) -> np.ndarray:
 
 
 # ------------------------------------------------------------------------ K-fold
+def reduced_response(state: FactorState) -> np.ndarray:
+    """The reduced response :math:`Uc + y_\\perp`, shape (m, t) (in-memory state)."""
+    return state.u @ state.uty + state.resid_out
+
+
+def sample_rows(state: FactorState, idx: np.ndarray, zy: np.ndarray | None = None):
+    """Sample rows ``idx`` of :math:`\\tilde U = [1/\\sqrt n,\\ Q[0; U]]` and of the centered response.
+
+    Returns ``(ua (b, ra), yc (b, t))``; the intercept column only with an
+    intercept.  ``zy`` is :func:`reduced_response` (computed when not given).
+    """
+    zy = reduced_response(state) if zy is None else zy
+    idx = np.asarray(idx)
+    ub = _rows_of(state.u, idx, state.fit_intercept)
+    yb = _rows_of(zy, idx, state.fit_intercept)
+    return augment_rows(state, ub), yb
+
+
+def _rows_of(a: np.ndarray, idx: np.ndarray, fit_intercept: bool) -> np.ndarray:
+    """Rows ``idx`` of :math:`Q[0; a]` (see :func:`sample_space_blocks`) without forming it."""
+    if not fit_intercept:
+        return a[idx]
+    n = a.shape[0] + 1
+    rn = np.sqrt(n)
+    colsum = a.sum(axis=0)
+    out = np.empty((idx.size,) + a.shape[1:])
+    first = idx == 0
+    rest = ~first
+    out[rest] = a[idx[rest] - 1] - colsum / (n + rn)
+    out[first] = -colsum / rn
+    return out
+
+
+def kfold_dual_mse(state: FactorState, idx: np.ndarray, lam, *,
+                   chunk_elems: int = 1 << 22) -> np.ndarray:
+    """Held-out MSE (k, t) of one fold at full row rank (the dual form).
+
+    At full row rank :math:`I - H = \\tilde U S \\tilde U^T` (sample-space
+    :math:`\\tilde U` without the ones column) and :math:`e = \\tilde U S c`, so
+    with the scaled complements :math:`\\hat s` (module notes) the common
+    factor :math:`s_r` cancels:
+    :math:`e_{(-f)} = [U_f \\hat S U_f^T]^{-1} U_f \\hat S c` — no subtraction,
+    finite at every :math:`\\lambda \\ge 0`, and at 0 the limit of the per-fold
+    minimum-norm refits.  The :math:`b \\times b` blocks of all penalties come
+    from one product :math:`(k \\times r)(r \\times b^2)` and a batched solve.
+    """
+    sh = shrinkage(state.d, lam)
+    uf = _rows_of(state.u, np.asarray(idx), state.fit_intercept)  # (b, r)
+    b, r = uf.shape
+    P = (uf[:, None, :] * uf[None, :, :]).reshape(b * b, r).T  # (r, b*b)
+    k, t = sh.lam.size, state.n_targets
+    out = np.empty((k, t))
+    step = max(1, chunk_elems // max(b * b, r * b))
+    for s in range(0, k, step):
+        w = sh.s_rel[:, s:s + step].T  # (kc, r)
+        A = (w @ P).reshape(w.shape[0], b, b)
+        rhs = np.einsum("ir,kr,rt->kit", uf, w, state.uty)
+        res = np.linalg.solve(A, rhs)
+        out[s:s + step] = np.mean(np.square(res), axis=1)
+    return out
+
+
 def fold_factor(ua: np.ndarray, yc: np.ndarray) -> np.ndarray:
     """Triangular factor of one fold's rows :math:`[\\tilde U_f,\\ y_f]` (square, ra + t)."""
     return tsqr([np.hstack([ua, yc])], ua.shape[1] + yc.shape[1])
