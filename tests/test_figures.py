@@ -88,24 +88,27 @@ def test_csv_holds_exactly_what_is_drawn(path, saved):
     with open(files[3], newline="") as fh:
         rows = list(csv.DictReader(fh))
     assert list(rows[0]) == figures.CSV_HEADER
-    gcv = [r for r in rows if r["panel"] == "b" and r["series"] == "gcv" and r["kind"] == "line"]
-    line = panel.artists["b"].lines["gcv"]
+    gcv = [r for r in rows if r["panel"] == "a" and r["series"] == "gcv" and r["kind"] == "line"]
+    line = panel.artists["a"].lines["gcv"]
     # repr() of floats round-trips exactly (Python float repr)
     assert_allclose([float(r["x"]) for r in gcv], line.get_xdata(), rtol=0)
     assert_allclose([float(r["y"]) for r in gcv], path.gcv, rtol=0)
-    assert "λ" in gcv[0]["x_quantity"] and "$" not in gcv[0]["x_quantity"]
-    coef_series = {r["series"] for r in rows if r["panel"] == "a" and r["kind"] == "line"}
-    assert coef_series == set(path.feature_names)
+    assert "df" in gcv[0]["x_quantity"] and "$" not in gcv[0]["x_quantity"]
+    # bounded: the named coefficient lines and one envelope, not a line per feature
+    coef_series = {r["series"] for r in rows if r["panel"] == "c" and r["kind"] == "line"}
+    assert coef_series == set(panel.artists["c"].lines) and len(coef_series) == 5
+    assert len(rows) < 15 * len(path.lambdas) + 50
 
 
 def test_axes_are_labelled_with_quantity_and_convention(path):
     panel = figures.path_figure(path, x="log_lambda")
-    for art in panel.artists.values():
-        assert art.ax.get_xlabel() and art.ax.get_ylabel()
-    assert "lambda" in panel.artists["a"].ax.get_xlabel() or "\\lambda" in \
-        panel.artists["a"].ax.get_xlabel()
-    assert "beta" in panel.artists["a"].ax.get_xlabel()  # the loss, written out
-    assert "minimize ||y - b0 - X beta||^2 + lambda ||beta||^2" in panel.caption
+    for key in ("b", "c"):
+        assert panel.artists[key].ax.get_xlabel()
+    for key in ("a", "c"):
+        assert panel.artists[key].ax.get_ylabel()
+    assert "λ" in panel.artists["c"].ax.get_xlabel()
+    assert "β" in panel.artists["c"].ax.get_xlabel()  # the loss, written out
+    assert "minimize ‖y − b0 − Xβ‖² + λ‖β‖²" in panel.caption
 
 
 def test_rc_settings_are_publication_settings():

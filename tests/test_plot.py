@@ -43,42 +43,50 @@ def path():
 
 @pytest.mark.parametrize("x", ["log_lambda", "df"])
 def test_coef_path_lines_equal_the_path(path, x):
-    """Each labelled line's data equal the path's standardized coefficients (RidgePath.coef_std)
-    against log10(lambdas) (numpy) or the effective df; the others sit in one LineCollection."""
+    """Each named line's data equal the path's standardized coefficients (RidgePath.coef_std)
+    against log10(lambdas) (numpy) or the effective df; the other features are one envelope
+    whose limits are their smallest and largest coefficient at each penalty (numpy min/max)."""
     art = plot.plot_coef_path(path, _axes(), x=x, n_labels=4)
     xs = np.log10(path.lambdas) if x == "log_lambda" else path.df
-    labelled = [k for k in art.lines if k != "_others"]
+    labelled = list(art.lines)
     assert len(labelled) == 4
     for name in labelled:
         j = path.feature_names.index(name)
         line = art.lines[name]
         assert_allclose(line.get_xdata(), xs, rtol=TOL)
         assert_allclose(line.get_ydata(), path.coef_std[:, j], rtol=TOL, atol=0)
-    segs = art.lines["_others"].get_segments()
-    assert len(segs) == path.n_features - 4
-    # the labelled ones are the largest |beta| at the first marked choice (GCV)
-    i = path.index_min("gcv")
+    rest = [j for j in range(path.n_features) if path.feature_names[j] not in labelled]
+    band = next(t for t in art.traces if t.kind == "band")
+    assert_allclose(band.low, path.coef_std[:, rest].min(axis=1), rtol=TOL)
+    assert_allclose(band.high, path.coef_std[:, rest].max(axis=1), rtol=TOL)
+    # the named ones are the largest |beta| at the least-penalized end without a choice
+    i = int(np.argmin(path.lambdas))
     top = set(np.argsort(-np.abs(path.coef_std[i]))[:4])
     assert {path.feature_names.index(n) for n in labelled} == top
-    assert art.ax.get_legend() is not None
+    names = {t.get_text() for t in art.texts if hasattr(t, "get_text")}
+    assert set(labelled) <= names  # named at the line ends
     assert art.ax.get_xlabel() and art.ax.get_ylabel()
 
 
-def test_coef_path_marks_each_rule_at_its_lambda(path):
-    """Vertical lines at log10 of each selected lambda, labelled by rule name."""
-    sel = {"gcv": {"lambda": float(path.lambdas[10]), "df": float(path.df[10])},
+def test_coef_path_dots_the_reported_model(path):
+    """The reported rule's coefficients are dots on the named lines at its df (closed form
+    1 + sum d^2/(d^2 + lambda), ESL eq. 3.50), and a wedge on the axis."""
+    sel = {"gcv": {"lambda": float(path.lambdas[10]), "df": float(path.df[10]), "index": 10},
            "hkb": {"lambda": 2.5, "df": None}}
-    art = plot.plot_coef_path(path, _axes(), selected=sel)
-    assert_allclose(art.refs["rule:gcv"].get_xdata()[0], np.log10(path.lambdas[10]), rtol=TOL)
-    assert_allclose(art.refs["rule:hkb"].get_xdata()[0], np.log10(2.5), rtol=TOL)
+    art = plot.plot_coef_path(path, _axes(), selected=sel, reported="hkb", x="df")
+    d = path.singular_values
+    df = 1 + np.sum(d**2 / (d**2 + 2.5))
+    assert_allclose(art.markers["reported"].get_xdata()[0], df, rtol=1e-12)
+    dots = art.markers["reported_coefficients"]
+    assert_allclose(dots.get_xdata(), df, rtol=1e-12)
     texts = " ".join(t.get_text() for t in art.texts if hasattr(t, "get_text"))
-    assert "GCV" in texts and "HKB" in texts
+    assert "reported (HKB)" in texts
 
 
 def test_error_curves_equal_the_path_and_markers_sit_on_them(path):
     """Train/GCV/LOO/test lines equal the path arrays; each rule's marker is at (log10 λ, the
-    criterion at λ); min-norm reference lines at the MinNormFit errors."""
-    art = plot.plot_errors(path, _axes())
+    criterion at λ); min-norm markers at the MinNormFit errors, at the axis edge."""
+    art = plot.plot_errors(path, _axes(), x="log_lambda")
     lx = np.log10(path.lambdas)
     for key, arr in (("train", path.train_mse), ("gcv", path.gcv), ("loo", path.loo_mse),
                      ("test", path.test_mse)):
@@ -91,29 +99,54 @@ def test_error_curves_equal_the_path_and_markers_sit_on_them(path):
         assert_allclose(m.get_ydata()[0], arr[i], rtol=1e-10)
     for key, v in (("gcv", path.min_norm.gcv), ("loo", path.min_norm.loo_mse),
                    ("test", path.min_norm.test_mse)):
-        assert_allclose(art.refs[f"min_norm:{key}"].get_ydata()[0], v, rtol=TOL)
+        m = art.markers[f"min_norm:{key}"]
+        assert_allclose(m.get_ydata()[0], v, rtol=TOL)
+        assert m.get_xdata()[0] < lx.min()  # left of the grid: lambda = 0 after the break
     assert art.ax.get_yscale() == "log"
     labels = [t.get_text() for t in art.ax.get_legend().get_texts()]
-    assert {"training MSE", "GCV", "LOO", "test MSE"} <= set(labels)
+    assert {"training MSE", "GCV", "leave-one-out", "test MSE"} <= set(labels)
+    assert not art.refs.get("rule:gcv")  # no full-height vertical lines
 
 
-def test_error_curves_draw_cv_band_from_a_mapping():
-    """Plain arrays/dicts are accepted; the CV band spans mean ± se (numpy arithmetic)."""
+def test_error_curves_min_norm_at_its_df_on_a_df_axis(path):
+    """On the df axis the lambda -> 0 markers sit at df = rank + 1 (MinNormFit.df), and the
+    top axis labels that position 0."""
+    art = plot.plot_errors(path, _axes(), x="df")
+    assert_allclose(art.markers["min_norm:gcv"].get_xdata()[0], path.rank + 1)
+    axis = next(t for t in art.traces if t.series == "lambda_axis")
+    assert 0.0 in axis.y and path.rank + 1 in axis.x
+
+
+def test_error_curves_draw_cv_and_its_se_at_the_choice():
+    """Plain arrays/dicts are accepted; the CV curve is the mean and the chosen penalty carries
+    a ±1 SE whisker (numpy arithmetic), not a band."""
     lam = np.geomspace(100, 0.01, 20)
     mean = 1 + (np.log10(lam) - 0.5) ** 2
     se = np.full(20, 0.1)
     res = {"lambdas": lam, "df": np.linspace(1, 10, 20), "gcv": mean * 1.1}
     art = plot.plot_errors(res, _axes(), cv={"mse": mean, "se": se, "n_folds": 5},
-                           selected={"cv": {"lambda": lam[7], "df": None}})
+                           selected={"cv": {"lambda": lam[7], "df": None}}, x="log_lambda")
     assert set(art.lines) == {"gcv", "cv"}
     assert_allclose(art.lines["cv"].get_ydata(), mean, rtol=TOL)
-    band = next(t for t in art.traces if t.kind == "band")
-    assert_allclose(band.low, mean - se, rtol=TOL)
-    assert_allclose(band.high, mean + se, rtol=TOL)
-    verts = art.bands["cv"].get_paths()[0].vertices
-    assert_allclose(verts[:, 1].max(), (mean + se).max(), rtol=TOL)
+    bar = next(t for t in art.traces if t.kind == "error bar")
+    assert_allclose([bar.low[0], bar.high[0]], [mean[7] - 0.1, mean[7] + 0.1], rtol=1e-10)
     assert_allclose(art.markers["cv"].get_ydata()[0], mean[7], rtol=1e-10)
-    assert "5-fold CV ± 1 SE" in [t.get_text() for t in art.ax.get_legend().get_texts()]
+    assert "5-fold CV" in [t.get_text() for t in art.ax.get_legend().get_texts()]
+
+
+def test_rule_strip_groups_rules_by_family(path):
+    """A row per rule under its family heading; markers at each rule's df (closed form)."""
+    sel = {"gcv": {"lambda": 1.0, "df": None}, "hkb": {"lambda": 2.5, "df": None},
+           "df": {"lambda": None, "df": None}, "cv": {"lambda": 0.5, "df": None}}
+    art = plot.plot_rule_strip(path, _axes(), selected=sel, x="df")
+    d = path.singular_values
+    for rule, lam in (("gcv", 1.0), ("hkb", 2.5), ("cv", 0.5)):
+        assert_allclose(art.markers[rule].get_xdata()[0], 1 + np.sum(d**2 / (d**2 + lam)))
+    heads = [t.get_text() for t in art.texts]
+    assert heads == ["prediction-error estimates", "plug-in constants"]
+    assert "df" not in art.markers  # a target that was not given: no penalty, not drawn
+    ticks = [t.get_text() for t in art.ax.get_yticklabels()]
+    assert ticks == ["GCV", "K-fold CV", "HKB"]
 
 
 def test_shrinkage_factors_at_the_chosen_lambda(path):

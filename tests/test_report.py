@@ -18,7 +18,8 @@ import pytest
 from paths.workflows.analysis import explore
 from paths.data.synthetic import make_calibration
 from paths.data.tables import select
-from paths.present.report import RULE_NAMES, fmt, methods_paragraph
+from paths.present.report import (REFERENCES, RULE_NAMES, convention_formula, fmt,
+                                  methods_paragraph)
 
 NUM = re.compile(r"(?<![\w.])-?\d+(?:\.\d+)?(?:e[-+]?\d+)?(?![\w])")
 
@@ -56,7 +57,11 @@ def _numbers_and_strings(obj, nums, strs):
 def _unaccounted(text, summary, fixed=()):
     """Numeric tokens of ``text`` that are neither a summary number (as the report formats it)
     nor part of a summary string (versions, command line, hashes, solver reason)."""
-    for phrase in (summary["penalty_convention"], *RULE_NAMES.values(), *fixed):
+    # fixed text: rule names with their citations, the reference list, the formula
+    fixed = (*fixed, "Hoerl & Kennard 1970", "Hastie et al. 2022", "λ → 0", "lambda -> 0",
+             *(convention_formula(summary, f) for f in ("latex", "html", "text")))
+    for phrase in (summary["penalty_convention"], *RULE_NAMES.values(), *REFERENCES.values(),
+                   *fixed):
         text = text.replace(phrase, " ")
     nums, strs = _numbers_and_strings(summary, set(), set())
     blob = "\n".join(strs)
@@ -80,7 +85,9 @@ def test_derived_numbers_match_the_raw_record(run):
     assert rep["n_lambdas"] == len(s["lambdas"]) == 40
     assert rep["lambda_min"] == min(s["lambdas"]) and rep["lambda_max"] == max(s["lambdas"])
     assert rep["df_min"] == min(s["df"]) and rep["df_max"] == max(s["df"])
-    assert rep["test_mse"] == s["test_mse"][rep["index"]]
+    # the test error at the chosen penalty itself (not the nearest grid point)
+    assert rep["test_at"] == "choice" and rep["test_kind"] == "held-out"
+    assert rep["test_mse"] == sel["at_choice"]["test_mse"]
     assert rep["cv"]["n_folds"] == s["cv"]["n_folds"] == 5
 
 
@@ -88,7 +95,7 @@ def test_methods_paragraph_numbers_all_come_from_summary(run):
     _, s, out = run
     md = (out / "report.md").read_text()
     para = _section(md, "Methods paragraph").strip()
-    assert para == methods_paragraph(s)
+    assert para == methods_paragraph(s, "latex")
     assert _unaccounted(para, s) == []
     # and the key ones are there, formatted from the record
     rep = s["report"]
@@ -97,7 +104,7 @@ def test_methods_paragraph_numbers_all_come_from_summary(run):
               rep["fraction"], rep["est_mse"], rep["est_se"], s["n_test"], rep["test_mse"],
               s["cv"]["n_folds"], s["cv"]["seed"]):
         assert re.search(rf"(?<![\w.]){re.escape(fmt(v))}(?![\w])", para), (v, para)
-    assert s["penalty_convention"] in para
+    assert convention_formula(s, "latex") in para and r"\lambda\lVert\beta\rVert_2^2" in para
     assert "5-fold" in para
 
 

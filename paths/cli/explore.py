@@ -188,7 +188,7 @@ def explore_cmd(
                                    "png (300 dpi), pdf (TrueType fonts), svg."),
     fig_width: str = typer.Option("single", "--width", help="Figure width: single (3.5 in) or "
                                   "double (7.2 in) journal column."),
-    fig_x: str = typer.Option("log_lambda", "--figure-x", help="Path figures against log_lambda "
+    fig_x: str = typer.Option("df", "--figure-x", help="Path figures against log_lambda "
                               "or df (effective degrees of freedom)."),
     report: bool = typer.Option(True, "--report/--no-report", help="Write report.md and a "
                                 "self-contained report.html."),

@@ -30,9 +30,11 @@ import numpy as np
 
 from paths.data.validation import InputError
 from paths.data.output import write_bytes, write_csv
-from paths.present.plot import (OKABE_ITO, Artists, plot_bias_variance, plot_coef_path, plot_errors,
-                   plot_shrinkage, plot_spectrum, plot_threshold, plot_training_law,
-                   plot_variance_share)
+from paths.present.plot import (LABEL_PT, NOTE_PT, OKABE_ITO, TICK_PT, Artists,
+                                plot_bias_variance, plot_coef_path, plot_errors,
+                                plot_rule_strip, plot_shrinkage, plot_spectrum, plot_threshold,
+                                plot_training_law, plot_variance_share,
+                                unicode_log_ticks)
 
 __all__ = ["FORMATS", "WIDTHS", "Panel", "parse_formats", "parse_width", "publication_style",
            "path_figure", "spectrum_figure", "threshold_figure", "figure_table", "save_figure"]
@@ -81,15 +83,15 @@ def parse_width(spec) -> str:
 def _rc(width: str, name: str) -> dict:
     from cycler import cycler
 
-    base = 7.0 if width == "single" else 7.5
+    base = LABEL_PT
     colors = [OKABE_ITO[k] for k in ("blue", "vermillion", "bluish_green", "orange",
                                      "reddish_purple", "sky_blue", "black", "yellow")]
     styles = ["-", "--", "-.", ":", (0, (5, 1, 1, 1, 1, 1)), (0, (3, 1, 1, 1)), (0, (1, 1)),
               (0, (6, 2))]
     return {
         "font.family": "DejaVu Sans", "font.size": base, "axes.titlesize": base,
-        "axes.labelsize": base, "xtick.labelsize": base - 0.5, "ytick.labelsize": base - 0.5,
-        "legend.fontsize": base - 1, "axes.linewidth": 0.6, "lines.linewidth": 1.0,
+        "axes.labelsize": base, "xtick.labelsize": TICK_PT, "ytick.labelsize": TICK_PT,
+        "legend.fontsize": NOTE_PT, "legend.title_fontsize": NOTE_PT, "axes.linewidth": 0.6, "lines.linewidth": 1.0,
         "xtick.major.width": 0.6, "ytick.major.width": 0.6, "xtick.major.size": 2.5,
         "ytick.major.size": 2.5, "axes.prop_cycle": cycler(color=colors) + cycler(linestyle=styles),
         "pdf.fonttype": 42, "ps.fonttype": 42, "svg.fonttype": "path",
@@ -144,8 +146,7 @@ def _new_figure(width: str, height: float, rows: int, cols: int, name: str):
 
 
 def _letter(art: Artists, letter: str):
-    art.ax.text(-0.02, 1.02, f"({letter})", transform=art.ax.transAxes, ha="right",
-                va="bottom", fontweight="bold")
+    art.ax.set_title(f"({letter})", loc="left", fontweight="bold", fontsize=LABEL_PT, pad=3)
 
 
 def _compose(name, width, caption, layout, drawers):
@@ -167,6 +168,7 @@ def _compose(name, width, caption, layout, drawers):
             arts[letter] = art
         for ax in axes[k:]:
             ax.set_visible(False)
+        unicode_log_ticks(fig)
     return Panel(figure=fig, artists=arts, name=name, caption=caption, width=width, rc=rc)
 
 
@@ -179,36 +181,89 @@ def _convention(result) -> str:
     std = getattr(result, "standardize", None)
     if std is None and isinstance(result, dict):
         std = result.get("standardize", True)
-    return ("penalty convention: minimize ||y - b0 - X beta||^2 + lambda ||beta||^2, X centered"
+    return ("Penalty convention: minimize ‖y − b0 − Xβ‖² + λ‖β‖², X centered"
             + (" and standardized (population SD)" if std in (None, True) else "")
             + ", intercept unpenalized")
 
 
-def path_figure(result, *, selected=None, cv=None, x: str = "log_lambda",
-                width: str = "single", n_labels: int = 5, name: str = "fig-path") -> Panel:
-    """Coefficient paths (a) and error curves (b) against log λ or effective df.
+def _families(selected) -> int:
+    from paths.present.plot import rule_family, selections_of
+
+    try:
+        sels = selections_of({"lambdas": [1.0]}, selected)
+    except InputError:
+        return 1
+    drawn = [r for r, v in sels.items() if v["lambda"] is not None]
+    return max(1, len(drawn) + len({rule_family(r) for r in drawn}))
+
+
+def path_figure(result, *, selected=None, cv=None, x: str = "df", width: str = "single",
+                n_labels: int = 5, reported: str | None = None, target: int = 0,
+                name: str = "fig-path") -> Panel:
+    """Error curves with each rule's choice (a), the rules by family (b), coefficients (c).
+
+    The x axis of every panel is the effective degrees of freedom (λ on a top
+    axis) by default, so the λ → 0 (min-norm) end is drawn at its own df;
+    ``x="log_lambda"`` puts it at the left edge after an axis break.
 
     Parameters
     ----------
     result : RidgePath or mapping
-    selected, cv : optional
-        Passed to :func:`paths.plot.plot_coef_path` / :func:`paths.plot.plot_errors`.
-    x : {"log_lambda", "df"}
+    selected : mapping, optional
+        Every rule's choice (see :func:`paths.present.plot.selections_of`).
+    reported : str, optional
+        The reported rule (its model is dotted in panel c); default the first selected.
+    cv : optional
+        K-fold CV on the path's grid (:func:`paths.present.plot.plot_errors`).
+    x : {"df", "log_lambda"}
     width : {"single", "double"}
+    target : int
+        Which target of a multi-target path.
 
     Returns
     -------
     Panel
     """
-    drawers = [lambda ax: plot_coef_path(result, ax, x=x, selected=selected, n_labels=n_labels),
-               lambda ax: plot_errors(result, ax, x=x, cv=cv, selected=selected)]
-    caption = ("(a) Ridge coefficient paths (standardized scale; the largest |β| labelled); "
-               "(b) training MSE, GCV, leave-one-out" + (", K-fold CV ± 1 SE" if cv is not None
-                                                         else "")
-               + " and test MSE where present, with each rule's choice marked and the "
-               "min-norm fit's errors as dashed reference lines. " + _convention(result) + ".")
-    layout = {"single": lambda k: (2, 1, 5.0), "double": lambda k: (1, 2, 2.9)}
-    return _compose(name, width, caption, layout, drawers)
+    import matplotlib as mpl
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    width = parse_width(width)
+    rc = _rc(width, name)
+    rows = _families(selected) if selected is not None else 3
+    strip_h = 0.45 + 0.125 * rows
+    with mpl.rc_context(rc):
+        if width == "single":
+            fig = Figure(figsize=(WIDTHS[width], 2.5 + strip_h + 2.3 + 0.3), layout="constrained")
+            gs = fig.add_gridspec(3, 1, height_ratios=[2.5, strip_h, 2.3])
+            ax_e, ax_s, ax_c = (fig.add_subplot(gs[i, 0]) for i in range(3))
+        else:
+            fig = Figure(figsize=(WIDTHS[width], 2.7 + strip_h + 0.4), layout="constrained")
+            gs = fig.add_gridspec(2, 2, height_ratios=[2.7, strip_h])
+            ax_e, ax_s = fig.add_subplot(gs[0, 0]), fig.add_subplot(gs[1, 0])
+            ax_c = fig.add_subplot(gs[:, 1])
+        FigureCanvasAgg(fig)
+        ax_s.sharex(ax_e)
+        arts = {"a": plot_errors(result, ax_e, x=x, cv=cv, selected=selected, target=target),
+                "b": plot_rule_strip(result, ax_s, x=x, selected=selected, target=target),
+                "c": plot_coef_path(result, ax_c, x=x, selected=selected, n_labels=n_labels,
+                                    reported=reported, target=target)}
+        ax_e.set_xlabel("")
+        for letter, art in arts.items():
+            _letter(art, letter)
+        unicode_log_ticks(fig)
+    axis = ("effective degrees of freedom tr(H) (penalty lambda on the top axis)" if x == "df"
+            else "log10 lambda")
+    caption = ("(a) Training error, GCV, exact leave-one-out"
+               + (", K-fold cross-validation" if cv is not None else "")
+               + " and test error (where a test set was given) against " + axis
+               + "; each rule's choice is a marker on the curve it minimises, the hollow markers "
+               "are the minimum-norm fit (lambda -> 0), a whisker is ±1 cross-validation SE. "
+               "(b) Every rule's choice by family. (c) The coefficients of the features largest "
+               "at the reported penalty (standardized scale, named at the lambda -> 0 end; dots: "
+               "the reported model), the other features as a grey range. "
+               + _convention(result) + ".")
+    return Panel(figure=fig, artists=arts, name=name, caption=caption, width=width, rc=rc)
 
 
 def spectrum_figure(result, *, lam=None, selected=None, width: str = "single",
@@ -250,8 +305,8 @@ def threshold_figure(sweep, *, theory=None, noise_variance=None, bias_variance=N
                "theory curves (log error axis; vertical line at p' = n); (b) training MSE of "
                "least squares over the law sigma^2 (1 - p'/n)"
                + ("; (c) exact bias^2 and variance of the min-norm fit" if bias_variance
-                  is not None else "") + ". Penalty convention: minimize ||y - b0 - X beta||^2 "
-               "+ lambda ||beta||^2, intercept unpenalized.")
+                  is not None else "") + ". Penalty convention: minimize ‖y − b0 − Xβ‖² "
+               "+ λ‖β‖², intercept unpenalized.")
     layout = {"single": lambda k: (k, 1, 2.9 * k + 0.4), "double": lambda k: (1, k, 3.4)}
     return _compose(name, width, caption, layout, drawers)
 

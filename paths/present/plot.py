@@ -38,8 +38,8 @@ from paths.data.validation import InputError
 
 __all__ = [
     "OKABE_ITO", "STYLES", "RULE_LABELS", "CONVENTION_SHORT", "Trace", "Artists",
-    "selections_of", "theory_of", "marchenko_pastur_density",
-    "plot_coef_path", "plot_errors", "plot_shrinkage", "plot_spectrum",
+    "RULE_FAMILIES", "rule_family", "selections_of", "theory_of", "marchenko_pastur_density",
+    "plot_coef_path", "plot_errors", "plot_rule_strip", "power_of_ten", "unicode_log_ticks", "plot_shrinkage", "plot_spectrum",
     "plot_variance_share", "plot_threshold", "plot_training_law", "plot_bias_variance",
 ]
 
@@ -76,8 +76,27 @@ _SEQUENCE = [(_C["blue"], "-"), (_C["vermillion"], "--"), (_C["bluish_green"], "
 RULE_LABELS = {
     "gcv": "GCV", "loo": "LOO", "cv": "K-fold CV", "one_se": "one-SE", "one-se": "one-SE",
     "df": "target df", "fraction": "target fraction", "hkb": "HKB", "lw": "LW",
-    "isotropic": "isotropic plug-in", "test": "test (oracle)",
+    "isotropic": "isotropic plug-in", "test": "test rows (oracle)", "reml": "REML",
+    "ml": "ML",
 }
+
+#: Rule families, the headings of the rule strip and of the report's rules table.
+RULE_FAMILIES = (
+    ("prediction-error estimates", ("gcv", "loo", "cv", "one_se", "one-se")),
+    ("plug-in constants", ("hkb", "lw", "isotropic")),
+    ("targets", ("df", "fraction")),
+    ("likelihood", ("reml", "ml")),
+    ("oracle (test rows)", ("test",)),
+)
+#: The curve each prediction-error rule minimises (its marker sits on it).
+_RULE_CURVE = {"gcv": "gcv", "loo": "loo", "cv": "cv", "one_se": "cv", "one-se": "cv",
+               "test": "test"}
+_EXTRA_MARKERS = ("X", "p", "h", "*", "d", "<", ">")
+
+#: Text sizes in points at the saved width (print: nothing below 7 pt).
+LABEL_PT = 8.0
+TICK_PT = 7.0
+NOTE_PT = 7.0
 _RULE_STYLE = {"gcv": "gcv", "loo": "loo", "cv": "cv", "one_se": "one_se", "one-se": "one_se",
                "test": "test"}
 _METHOD_LABELS = {
@@ -87,7 +106,7 @@ _METHOD_LABELS = {
 }
 
 #: The penalty convention, short enough for an axis label.
-CONVENTION_SHORT = r"loss $\|y-b_0-X\beta\|^2+\lambda\|\beta\|^2$"
+CONVENTION_SHORT = "loss ‖y − b₀ − Xβ‖² + λ‖β‖²"
 
 
 @dataclass(frozen=True)
@@ -206,11 +225,11 @@ def _line_kw(key, style):
 
 def _penalty_label(standardize) -> str:
     scale = "X standardized" if standardize else "X centered"
-    return rf"penalty $\log_{{10}}\lambda$" + "\n" + rf"({CONVENTION_SHORT}, {scale})"
+    return f"penalty log₁₀ λ, {scale}" + "\n" + f"({CONVENTION_SHORT})"
 
 
 def _df_label() -> str:
-    return (r"effective df $=\mathrm{tr}\,H_\lambda$ (incl. intercept)" + "\n"
+    return ("effective df = tr H(λ) (incl. intercept)" + "\n"
             + rf"(ridge, {CONVENTION_SHORT})")
 
 
@@ -283,96 +302,211 @@ def _rule_label(rule: str) -> str:
     return RULE_LABELS.get(rule, rule)
 
 
+def rule_family(rule: str) -> str:
+    """The family heading a rule is listed under (:data:`RULE_FAMILIES`); ``"other"`` if none."""
+    for family, rules in RULE_FAMILIES:
+        if rule in rules:
+            return family
+    return "other"
+
+
 def _rule_color(rule: str, k: int):
     key = _RULE_STYLE.get(rule)
     if key is not None:
         return STYLES[key]["color"], STYLES[key]["marker"]
     c, _ = _SEQUENCE[(k + 3) % len(_SEQUENCE)]
-    return c, "X"
+    return c, _EXTRA_MARKERS[k % len(_EXTRA_MARKERS)]
 
 
-def _mark_rules(art: Artists, result, sels: dict, x: str, *, curves: dict | None = None,
-                label_top: bool = True):
-    """A vertical line per rule; a marker on the rule's own curve when it is drawn.
+_SUPERSCRIPT = str.maketrans("0123456789-", "⁰¹²³⁴⁵⁶⁷⁸⁹⁻")
 
-    Rules whose lines fall within 4% of the axis width of each other share one
-    label ("GCV, LOO"), so the labels never overlap.
-    """
-    ax = art.ax
-    trans = ax.get_xaxis_transform()
-    placed = []
-    for k, (rule, sel) in enumerate(sels.items()):
-        xs = _x_of_penalty(result, sel["lambda"], sel["df"], x)
-        if not np.isfinite(xs):
-            art.notes.append(f"rule {rule}: lambda = 0 cannot be placed on a log axis")
-            continue
-        color, marker = _rule_color(rule, k)
-        placed.append((xs, rule, color))
-        ref = ax.axvline(xs, color=color, linestyle=(0, (1, 2)), linewidth=0.8, zorder=1)
-        art.refs[f"rule:{rule}"] = ref
-        art.traces.append(Trace(f"selected:{rule}", "reference", np.array([xs]),
-                                np.array([np.nan])))
-        curve = None if curves is None else curves.get(_RULE_STYLE.get(rule, rule))
-        if curve is not None:
-            cx, cy = curve
-            ok = np.isfinite(cx) & np.isfinite(cy)
-            order = np.argsort(cx[ok])
-            ys = float(np.interp(xs, cx[ok][order], cy[ok][order]))
-            (m,) = ax.plot([xs], [ys], linestyle="none", marker=marker, color=color,
-                           markersize=5, markeredgecolor="white", markeredgewidth=0.6,
-                           zorder=5, label="_nolegend_")
-            art.markers[rule] = m
-            art.traces.append(Trace(f"selected:{rule}", "marker", np.array([xs]),
-                                    np.array([ys])))
-    if not (label_top and placed):
+
+def power_of_ten(k) -> str:
+    """``10ᵏ`` in plain Unicode (superscript glyphs of the text font: no math-text scripts
+    below the label size)."""
+    return "10" + str(int(k)).translate(_SUPERSCRIPT)
+
+
+def unicode_log_ticks(fig) -> None:
+    """Label every log axis of ``fig`` at its decades as ``10ᵏ`` (:func:`power_of_ten`)."""
+    from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
+
+    def label(v, _pos=None):
+        if v <= 0:
+            return ""
+        k = np.log10(v)
+        return power_of_ten(round(k)) if abs(k - round(k)) < 1e-9 else ""
+
+    for ax in fig.get_axes():
+        for axis, scale in ((ax.xaxis, ax.get_xscale()), (ax.yaxis, ax.get_yscale())):
+            if scale == "log" and not isinstance(axis.get_major_formatter(),
+                                                 _scalar_formatter_type()):
+                axis.set_major_locator(LogLocator(base=10))
+                axis.set_major_formatter(FuncFormatter(label))
+                axis.set_minor_formatter(NullFormatter())
+
+
+def _scalar_formatter_type():
+    from matplotlib.ticker import ScalarFormatter
+
+    return ScalarFormatter
+
+
+def _log_df(xv) -> bool:
+    """A log df axis when df spans more than a factor 6 (the choice then sits in the left
+    sixth of a linear axis); common practice for ranges over an order of magnitude, no source."""
+    v = np.asarray(xv, dtype=float)
+    v = v[np.isfinite(v) & (v > 0)]
+    return v.size > 1 and v.max() / v.min() > 6.0
+
+
+def _set_x_scale(ax, xv, x):
+    """Log df axis for a wide df range; a log-λ axis runs from large to small λ, so on both
+    axes the model grows to the right and λ → 0 is the right end."""
+    if x != "df":
+        if not ax.xaxis_inverted():
+            ax.invert_xaxis()
         return
-    lo, hi = ax.get_xlim()
-    tol = 0.04 * abs(hi - lo)
-    placed.sort()
-    groups = [[placed[0]]]
-    for item in placed[1:]:
-        if item[0] - groups[-1][-1][0] <= tol:
-            groups[-1].append(item)
-        else:
-            groups.append([item])
-    for g in groups:
-        color = g[0][2] if len(g) == 1 else "#333333"
-        label = ", ".join(_rule_label(r) for _, r, _ in g)
-        t = ax.text(g[-1][0], 0.99, label + " ", transform=trans, rotation=90, va="top",
-                    ha="right", fontsize="xx-small", color=color)
-        art.texts.append(t)
+    if _log_df(xv):
+        ax.set_xscale("log")
+        from matplotlib.ticker import LogLocator, NullFormatter, ScalarFormatter
+
+        ax.xaxis.set_major_locator(LogLocator(base=10, subs=(1.0, 2.0, 5.0)))
+        ax.xaxis.set_major_formatter(ScalarFormatter())
+        ax.xaxis.set_minor_formatter(NullFormatter())
+
+
+def _xfrac(ax, xs) -> np.ndarray:
+    """Axis-fraction positions of data x values (respecting a log scale)."""
+    xs = np.atleast_1d(np.asarray(xs, dtype=float))
+    pts = np.column_stack([xs, np.ones_like(xs)])
+    return ax.transLimits.transform(ax.transScale.transform(pts))[:, 0]
+
+
+def _lambda_of_x(result, xs, x):
+    """The penalty at axis position(s) ``xs`` (log10 λ, or df by the closed form on d)."""
+    if x != "df":
+        return 10.0 ** np.asarray(xs, dtype=float)
+    lam = _arr(_get(result, "lambdas"))
+    df = _arr(_get(result, "df"))
+    order = np.argsort(df)
+    with np.errstate(divide="ignore"):
+        return 10.0 ** np.interp(xs, df[order], np.log10(lam[order]))
+
+
+def _min_norm_x(result, xv, x) -> float:
+    """Where λ → 0 is drawn: at its df (rank + intercept) on a df axis, at the left edge of
+    a log-λ axis (where it cannot be placed; an axis-break note says so)."""
+    if x == "df":
+        mn = _get(result, "min_norm")
+        df0 = _get(mn, "df")
+        if df0 is None:
+            d = _arr(_get(result, "singular_values"))
+            if d is None:
+                return float(np.nanmax(xv))
+            df0 = float(_get(result, "fit_intercept", True)) + float(np.sum(d > 0))
+        return float(df0)
+    lo, hi = float(np.nanmin(xv)), float(np.nanmax(xv))
+    return lo - 0.07 * (hi - lo)
+
+
+def _lambda_axis(art: Artists, result, x: str, x0=None):
+    """A secondary axis on top giving λ at decades (and 0 at the min-norm end ``x0``), when
+    the main x axis is effective df.  Ticks closer than 9% of the axis width to a kept one
+    are dropped, so labels never touch."""
+    if x != "df":
+        return None
+    ax = art.ax
+    lam = _arr(_get(result, "lambdas"))
+    df = _arr(_get(result, "df"))
+    good = lam > 0
+    if good.sum() < 2:
+        return None
+    ll, dd = np.log10(lam[good]), df[good]
+    order = np.argsort(ll)
+    ll, dd = ll[order], dd[order]
+    decades = np.arange(np.ceil(ll.min()), np.floor(ll.max()) + 1)
+    xs = np.interp(decades, ll, dd)
+    cand = [(float(xp), power_of_ten(k), 10.0 ** k) for xp, k in zip(xs, decades)]
+    kept = []
+    if x0 is not None:
+        kept.append((float(x0), "0", 0.0))
+    for item in sorted(cand, key=lambda c: -c[0]):
+        f = _xfrac(ax, item[0])[0]
+        if all(abs(f - _xfrac(ax, k[0])[0]) >= 0.09 for k in kept) and 0 <= f <= 1:
+            kept.append(item)
+    kept.sort()
+    sec = ax.secondary_xaxis("top")
+    sec.set_xticks([k[0] for k in kept], [k[1] for k in kept])
+    sec.xaxis.set_minor_locator(_null_locator())
+    sec.tick_params(labelsize=TICK_PT, length=2.5, width=0.6, pad=1.5)
+    sec.set_xlabel("penalty λ (0: min-norm fit)" if x0 is not None
+                   else "penalty λ", fontsize=LABEL_PT, labelpad=2)
+    art.texts.append(sec)
+    art.traces.append(Trace("lambda_axis", "axis", np.asarray([k[0] for k in kept]),
+                            np.asarray([k[2] for k in kept])))
+    return sec
+
+
+def _place_labels(ys, lo, hi, min_gap):
+    """Spread label positions (data units, sorted) so neighbours are ``min_gap`` apart, inside
+    [lo, hi]; returns the positions in the input order."""
+    ys = np.asarray(ys, dtype=float)
+    order = np.argsort(ys)
+    pos = ys[order].copy()
+    for i in range(1, pos.size):
+        pos[i] = max(pos[i], pos[i - 1] + min_gap)
+    if pos.size and pos[-1] > hi:
+        pos -= pos[-1] - hi
+        for i in range(pos.size - 2, -1, -1):
+            pos[i] = min(pos[i], pos[i + 1] - min_gap)
+    pos = np.maximum(pos, lo) if pos.size and pos[0] < lo else pos
+    out = np.empty_like(pos)
+    out[order] = pos
+    return out
+
+
+def _axes_height_pt(ax) -> float:
+    fig = ax.figure
+    return max(ax.get_position().height * fig.get_figheight() * 72.0, 20.0)
 
 
 # ---------------------------------------------------------------- the path
-def plot_coef_path(result, ax=None, *, x: str = "log_lambda", scale: str = "standardized",
-                   n_labels: int = 5, selected=None, target: int = 0, **style) -> Artists:
-    """Coefficient paths against :math:`\\log_{10}\\lambda` or effective df.
+def plot_coef_path(result, ax=None, *, x: str = "df", scale: str = "standardized",
+                   n_labels: int = 5, selected=None, reported: str | None = None,
+                   target: int = 0, **style) -> Artists:
+    """Coefficient paths against effective df (λ on a top axis) or :math:`\\log_{10}\\lambda`.
+
+    The ``n_labels`` features with the largest \\|β\\| at the reported penalty are
+    drawn and named at the line ends; the other features are summarised by
+    their range (a grey envelope: the smallest and largest coefficient at each
+    penalty), so the figure and its CSV stay small for any number of features.
+    The reported penalty is a dot on each named line and a wedge on the x axis.
 
     Parameters
     ----------
     result : RidgePath or mapping
         Needs ``lambdas`` and ``coef`` (k × p); ``df`` for ``x="df"``.
     ax : matplotlib Axes, optional
-    x : {"log_lambda", "df"}
+    x : {"df", "log_lambda"}
     scale : {"standardized", "original"}
         Coefficients on the scale the penalty acts on (default; comparable
         across features) or on the original feature scale.
     n_labels : int
-        The features with the largest \\|β\\| (at the first marked penalty, else
-        at the least-penalized end) are coloured and labelled.
+        How many features to draw and name.
     selected : mapping, optional
-        Penalties to mark (see :func:`selections_of`).
+        Penalties (see :func:`selections_of`).
+    reported : str, optional
+        The rule whose penalty is the reported model (default: the first selected).
     **style
-        Passed to the labelled lines (e.g. ``linewidth``).
+        Passed to the named lines (e.g. ``linewidth``).
 
     Returns
     -------
     Artists
-        ``lines[name]`` per labelled feature, ``lines["_others"]`` (a
-        LineCollection) for the rest; ``refs["rule:<rule>"]`` per marked penalty.
+        ``lines[name]`` per named feature, ``bands["others"]`` (the envelope),
+        ``markers["reported"]`` (the wedge), ``texts`` (the end labels).
     """
-    from matplotlib.collections import LineCollection
-
     ax = _new_axes(ax)
     xv, xlabel = _x_of(result, x)
     if scale == "standardized":
@@ -391,14 +525,14 @@ def plot_coef_path(result, ax=None, *, x: str = "log_lambda", scale: str = "stan
     art = Artists(ax=ax, x_quantity=xlabel,
                   y_quantity="coefficient (standardized scale)" if scale == "standardized"
                   and _get(result, "coef_std") is not None else "coefficient (original scale)")
-    # rank features by |beta| at the first selected penalty, else at the least-penalized end
-    ref_i = None
-    for sel in sels.values():
-        if sel.get("index") is not None:
-            ref_i = int(sel["index"])
-            break
-        lam = np.asarray(_get(result, "lambdas"), dtype=float)
-        ref_i = int(np.argmin(np.abs(np.log(lam + 1e-300) - np.log(sel["lambda"]))))
+    lam = np.asarray(_get(result, "lambdas"), dtype=float)
+    ref_i, ref_rule = None, None
+    for rule, sel in sorted(sels.items(), key=lambda kv: kv[0] != reported):
+        if sel["lambda"] is None:
+            continue
+        ref_rule = rule
+        ref_i = sel["index"] if sel.get("index") is not None else \
+            int(np.argmin(np.abs(np.log(lam + 1e-300) - np.log(max(sel["lambda"], 1e-300)))))
         break
     if ref_i is None:
         ref_i = int(np.nanargmax(xv)) if x == "df" else int(np.nanargmin(xv))
@@ -406,13 +540,12 @@ def plot_coef_path(result, ax=None, *, x: str = "log_lambda", scale: str = "stan
     others = np.setdiff1d(np.arange(coef.shape[1]), top)
     ok = np.isfinite(xv)
     if others.size:
-        segs = np.stack([np.broadcast_to(xv[ok], (others.size, ok.sum())),
-                         coef[ok][:, others].T], axis=-1)
-        lc = LineCollection(list(segs), colors="#BBBBBB", linewidths=0.5, zorder=2)
-        ax.add_collection(lc)
-        art.lines["_others"] = lc
-        for j in others:
-            art.traces.append(Trace(names[j], "line", xv[ok], coef[ok, j]))
+        lo, hi = coef[ok][:, others].min(axis=1), coef[ok][:, others].max(axis=1)
+        band = ax.fill_between(xv[ok], lo, hi, color="#D9D9D9", linewidth=0, zorder=1,
+                               label=f"range of the other {others.size}")
+        art.bands["others"] = band
+        art.traces.append(Trace(f"range of the other {others.size} features", "band",
+                                xv[ok], 0.5 * (lo + hi), lo, hi))
     for k, j in enumerate(top):
         c, ls = _SEQUENCE[k % len(_SEQUENCE)]
         kw = dict(color=c, linestyle=ls, linewidth=1.2)
@@ -421,43 +554,114 @@ def plot_coef_path(result, ax=None, *, x: str = "log_lambda", scale: str = "stan
         art.lines[names[j]] = ln
         art.traces.append(Trace(names[j], "line", xv[ok], coef[ok, j]))
     ax.axhline(0.0, color="#555555", linewidth=0.5, zorder=1)
+    _set_x_scale(ax, xv, x)
     ax.autoscale_view()
-    _mark_rules(art, result, sels, x)
-    if top.size:
-        leg = ax.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize="x-small",
-                        frameon=False, title=f"largest |β|\n(of {coef.shape[1]})",
-                        title_fontsize="x-small", handlelength=1.6)
-        art.texts.append(leg)
+    _end_labels(art, xv[ok], coef[ok][:, top], [names[j] for j in top], x)
+    if ref_rule is not None and top.size:
+        xs = _x_of_penalty(result, sels[ref_rule]["lambda"], sels[ref_rule]["df"], x)
+        if np.isfinite(xs):
+            ys = [float(np.interp(xs, *_sorted_xy(xv[ok], coef[ok, j]))) for j in top]
+            (dots,) = ax.plot([xs] * len(ys), ys, linestyle="none", marker="o", markersize=3,
+                              color="black", zorder=6, label="_nolegend_")
+            art.markers["reported_coefficients"] = dots
+            art.traces.append(Trace(f"at reported ({_rule_label(ref_rule)})", "marker",
+                                    np.full(len(ys), xs), np.asarray(ys)))
+            (wedge,) = ax.plot([xs], [0.0], transform=ax.get_xaxis_transform(), marker="^",
+                               markersize=6, color="black", clip_on=False, zorder=6,
+                               linestyle="none", label="_nolegend_")
+            art.markers["reported"] = wedge
+            art.texts.append(ax.annotate(f"reported ({_rule_label(ref_rule)})", (xs, 0.0),
+                                         xycoords=ax.get_xaxis_transform(),
+                                         xytext=(4, 3), textcoords="offset points",
+                                         fontsize=NOTE_PT, ha="left", va="bottom"))
+    if others.size:
+        art.texts.append(ax.legend(handles=[art.bands["others"]], loc="upper left",
+                                   fontsize=NOTE_PT, frameon=False, handlelength=1.4,
+                                   borderaxespad=0.2))
     ax.set_xlabel(xlabel)
     ax.set_ylabel(art.y_quantity)
+    _lambda_axis(art, result, x)
     return art
 
 
-def plot_errors(result, ax=None, *, x: str = "log_lambda", cv=None, selected=None,
+def _sorted_xy(xs, ys):
+    order = np.argsort(xs)
+    return xs[order], ys[order]
+
+
+def _end_labels(art: Artists, xs, ys, names, x):
+    """Name each line at its least-penalized end, spread vertically so names never touch."""
+    if not names:
+        return
+    ax = art.ax
+    end = int(np.argmax(xs)) if x == "df" else int(np.argmin(xs))
+    yend = ys[end]
+    lo, hi = ax.get_ylim()
+    gap = (hi - lo) * (NOTE_PT * 1.25) / _axes_height_pt(ax)
+    pos = _place_labels(yend, lo + 0.5 * gap, hi - 0.5 * gap, gap)
+    side, ha = 1.0, "left"  # the least-penalized end is on the right on both axes
+    trans = ax.get_yaxis_transform()
+    for name, y0, yp, ln in zip(names, yend, pos, [art.lines[n] for n in names]):
+        t = ax.annotate(str(name), xy=(side, y0), xycoords=trans, xytext=(side, yp),
+                        textcoords=trans, fontsize=NOTE_PT, color=ln.get_color(), ha=ha,
+                        va="center", annotation_clip=False)
+        t.set_in_layout(True)
+        art.texts.append(t)
+
+
+def _cv_of(result, cv, xv, target, art):
+    """(mean, se, label) of K-fold CV on the path's grid, or None."""
+    if cv is None:
+        cv = _get(result, "cv")
+        if cv is None and _get(result, "cv_mse") is not None:
+            cv = {"mean": _get(result, "cv_mse"), "se": _get(result, "cv_se")}
+    if cv is None:
+        return None
+    mean = _arr(_first(cv, "mean", "cv_mse", "mse", "mean_mse"), target)
+    se = _arr(_first(cv, "se", "cv_se", "std_error", "se_mse"), target)
+    if mean is None:
+        return None
+    if mean.shape != xv.shape:
+        art.notes.append("K-fold CV is on a different grid than the path; not drawn")
+        return None
+    kfold = _first(cv, "n_folds", "k", "folds")
+    label = "K-fold CV" if kfold is None or not np.isscalar(kfold) else f"{kfold}-fold CV"
+    return mean, se, label
+
+
+def plot_errors(result, ax=None, *, x: str = "df", cv=None, selected=None,
                 target: int = 0, yscale: str = "log", min_norm: bool = True,
                 **style) -> Artists:
-    """Error curves along the path: training MSE, GCV, LOO, K-fold CV (±1 SE), test MSE.
+    """Error curves along the path, each rule's choice a named marker on the curve it minimises.
+
+    Training MSE, GCV, exact leave-one-out, K-fold CV and test MSE against
+    effective df (λ on a top axis) or :math:`\\log_{10}\\lambda`.  A rule that
+    minimises a drawn curve is a marker on that curve, named beside it; the
+    one-SE choice sits on the CV curve with its ±1 SE whisker.  The λ → 0⁺
+    (min-norm) fit's errors are hollow markers at the λ → 0 end: at its df on a
+    df axis, at the left edge (after a break) on a log-λ axis.  Rules that
+    minimise no drawn curve are listed by :func:`plot_rule_strip`.
 
     Parameters
     ----------
     result : RidgePath or mapping
         ``lambdas`` plus any of ``train_mse``, ``gcv``, ``loo_mse``, ``test_mse``;
-        ``min_norm`` (with the same keys) for the λ → 0⁺ reference lines.
+        ``min_norm`` (with the same keys) for the λ → 0⁺ markers.
     cv : mapping or object, optional
-        K-fold CV on the same grid: ``mean`` (or ``cv_mse``/``mse``) and ``se``
-        (or ``cv_se``); default ``result.cv`` / ``result["cv_mse"]`` when present.
+        K-fold CV on the same grid: ``mean`` (or ``mse``) and ``se``.
     selected : mapping, optional
-        Penalties to mark (see :func:`selections_of`); each rule's marker sits on
-        its own criterion curve when that is drawn.
+        Penalties to mark (see :func:`selections_of`).
+    x : {"df", "log_lambda"}
     yscale : {"log", "linear"}
     min_norm : bool
-        Draw the min-norm fit's errors as horizontal reference lines.
+        Draw the min-norm fit's errors at the λ → 0 end.
 
     Returns
     -------
     Artists
         ``lines`` keyed ``train``, ``gcv``, ``loo``, ``cv``, ``test``;
-        ``bands["cv"]``; ``markers[rule]``; ``refs["min_norm:<criterion>"]``.
+        ``markers[rule]``; ``markers["min_norm:<criterion>"]``;
+        ``bands["cv:<rule>"]`` (the SE whisker at a CV-based choice).
     """
     ax = _new_axes(ax)
     xv, xlabel = _x_of(result, x)
@@ -466,7 +670,7 @@ def plot_errors(result, ax=None, *, x: str = "log_lambda", cv=None, selected=Non
     ax.set_yscale(yscale)
     curves = {}
     series = [("train", "training MSE", ("train_mse",)), ("gcv", "GCV", ("gcv",)),
-              ("loo", "LOO", ("loo_mse",)), ("test", "test MSE", ("test_mse",))]
+              ("loo", "leave-one-out", ("loo_mse",)), ("test", "test MSE", ("test_mse",))]
     ok = np.isfinite(xv)
     for key, label, names in series:
         y = _arr(_first(result, *names), target)
@@ -476,77 +680,224 @@ def plot_errors(result, ax=None, *, x: str = "log_lambda", cv=None, selected=Non
         art.lines[key] = ln
         curves[key] = (xv[ok], y[ok])
         art.traces.append(Trace(key, "line", xv[ok], y[ok]))
-    if cv is None:
-        cv = _get(result, "cv")
-        if cv is None and _get(result, "cv_mse") is not None:
-            cv = {"mean": _get(result, "cv_mse"), "se": _get(result, "cv_se")}
-    if cv is not None:
-        mean = _arr(_first(cv, "mean", "cv_mse", "mse", "mean_mse"), target)
-        se = _arr(_first(cv, "se", "cv_se", "std_error", "se_mse"), target)
-        if mean is not None and mean.shape == xv.shape:
-            kfold = _first(cv, "n_folds", "k", "folds")
-            label = "K-fold CV" if kfold is None or not np.isscalar(kfold) else f"{kfold}-fold CV"
-            (ln,) = ax.plot(xv[ok], mean[ok], label=label + (" ± 1 SE" if se is not None else ""),
-                            **_line_kw("cv", style))
-            art.lines["cv"] = ln
-            curves["cv"] = (xv[ok], mean[ok])
-            art.traces.append(Trace("cv", "line", xv[ok], mean[ok]))
-            if se is not None:
-                lo, hi = mean - se, mean + se
-                if yscale == "log":
-                    lo = np.where(lo > 0, lo, mean * 1e-3)
-                band = ax.fill_between(xv[ok], lo[ok], hi[ok], color=STYLES["cv"]["color"],
-                                       alpha=0.2, linewidth=0, zorder=1)
-                art.bands["cv"] = band
-                art.traces.append(Trace("cv", "band", xv[ok], mean[ok], lo[ok], hi[ok]))
-        elif mean is not None:
-            art.notes.append("K-fold CV is on a different grid than the path; not drawn")
-    bottom = None
-    if yscale == "log" and curves:
-        pos = lambda a: a[np.isfinite(a) & (a > 0)]  # noqa: E731
-        crit = [pos(c[1]) for k, c in curves.items() if k != "train"]
-        crit = np.concatenate(crit) if crit else np.array([])
-        every = np.concatenate([pos(c[1]) for c in curves.values()])
-        if every.size:
-            bottom = float(every.min())
-            if crit.size and bottom < crit.min() / 100:
-                bottom = float(crit.min()) / 100
-                art.notes.append("training MSE runs below the axis near interpolation")
-            ax.set_ylim(bottom / 1.3, float(every.max()) * 1.3)
-    if min_norm:
-        mn = _get(result, "min_norm")
-        for key, names in (("train", ("train_mse",)), ("gcv", ("gcv",)), ("loo", ("loo_mse",)),
-                           ("test", ("test_mse",))):
-            if key not in art.lines:
-                continue
-            v = _first(mn, *names)
-            if v is None:
-                continue
-            v = float(np.asarray(v, dtype=float).ravel()[min(target, np.size(v) - 1)])
-            if yscale == "log" and not (v > 0 and (bottom is None or v >= bottom / 1.3)):
-                art.notes.append(f"min-norm {key} = {v:.3g} lies below the log axis; "
-                                 "no reference line")
-                continue
-            ref = ax.axhline(v, color=STYLES[key]["color"], linewidth=0.7,
-                             linestyle=(0, (8, 3)), alpha=0.8, zorder=1)
-            art.refs[f"min_norm:{key}"] = ref
-            art.traces.append(Trace(f"min_norm:{key}", "reference", np.array([np.nan]),
-                                    np.array([v])))
-        if art.refs:
-            ax.plot([], [], color="#555555", linewidth=0.7, linestyle=(0, (8, 3)),
-                    label=r"min-norm fit ($\lambda\to0^+$)")
+    cvd = _cv_of(result, cv, xv, target, art)
+    se_curve = None
+    if cvd is not None:
+        mean, se, label = cvd
+        (ln,) = ax.plot(xv[ok], mean[ok], label=label, **_line_kw("cv", style))
+        art.lines["cv"] = ln
+        curves["cv"] = (xv[ok], mean[ok])
+        art.traces.append(Trace("cv", "line", xv[ok], mean[ok]))
+        se_curve = None if se is None else (xv[ok], se[ok])
+    if not curves:
+        raise InputError("the result has none of train_mse, gcv, loo_mse, test_mse or CV; "
+                         "pass a RidgePath or a mapping with those keys")
+    _set_x_scale(ax, xv, x)
+    bottom = _error_limits(art, curves, yscale)
+    x0 = _min_norm_markers(art, result, xv, x, target, yscale, bottom) if min_norm else None
+    ax.autoscale_view()
     sels = selections_of(result, selected, target=target)
-    _mark_rules(art, result, sels, x, curves=curves)
+    _mark_on_curves(art, result, sels, x, curves, se_curve)
     ax.set_xlabel(xlabel)
     ax.set_ylabel(art.y_quantity)
-    leg = ax.legend(loc="lower left", bbox_to_anchor=(0.0, 1.01, 1.0, 0.1), mode="expand",
-                    ncol=2, fontsize="x-small", frameon=False, borderaxespad=0.0,
-                    handlelength=2.2)
-    art.texts.append(leg)
+    art.texts.append(ax.legend(loc="best", fontsize=NOTE_PT, frameon=True, framealpha=0.85,
+                               edgecolor="none", handlelength=2.4, borderaxespad=0.3,
+                               labelspacing=0.3))
+    _lambda_axis(art, result, x, x0)
     return art
 
 
-# ---------------------------------------------------------------- spectrum
+def _error_limits(art, curves, yscale):
+    """Log-axis limits from the criteria; training MSE may run below them (noted)."""
+    if yscale != "log":
+        return None
+    pos = lambda a: a[np.isfinite(a) & (a > 0)]  # noqa: E731
+    crit = [pos(c[1]) for k, c in curves.items() if k != "train"]
+    crit = np.concatenate(crit) if crit else np.array([])
+    every = np.concatenate([pos(c[1]) for c in curves.values()])
+    if not every.size:
+        return None
+    bottom = float(every.min())
+    if crit.size and bottom < crit.min() / 100:
+        bottom = float(crit.min()) / 100
+        art.notes.append("training MSE runs below the axis near interpolation")
+    art.ax.set_ylim(bottom / 1.3, float(every.max()) * 1.6)
+    return bottom
+
+
+def _min_norm_markers(art, result, xv, x, target, yscale, bottom):
+    """Hollow markers for the min-norm fit's errors at the λ → 0 end of the axis; returns
+    the x position used (or None)."""
+    ax = art.ax
+    mn = _get(result, "min_norm")
+    if mn is None:
+        return None
+    x0 = _min_norm_x(result, xv, x)
+    drawn = []
+    for key, names in (("train", ("train_mse",)), ("gcv", ("gcv",)), ("loo", ("loo_mse",)),
+                       ("test", ("test_mse",))):
+        v = _first(mn, *names)
+        if key not in art.lines or v is None:
+            continue
+        v = float(np.asarray(v, dtype=float).ravel()[min(target, np.size(v) - 1)])
+        if yscale == "log" and not (v > 0 and (bottom is None or v >= bottom / 1.3)):
+            art.notes.append(f"min-norm {key} = {v:.3g} lies below the log axis; not drawn")
+            continue
+        s = STYLES[key]
+        (m,) = ax.plot([x0], [v], linestyle="none", marker=s["marker"], markersize=5,
+                       markerfacecolor="white", markeredgecolor=s["color"], markeredgewidth=1.1,
+                       zorder=6, clip_on=False, label="_nolegend_")
+        art.markers[f"min_norm:{key}"] = m
+        art.traces.append(Trace(f"min_norm:{key}", "marker", np.array([x0]), np.array([v])))
+        drawn.append(v)
+    if not drawn:
+        return None
+    if x != "df":
+        lo, hi = sorted(ax.get_xlim())
+        ax.set_xlim(hi, min(lo, x0 - 0.03 * (hi - lo)))  # decreasing: λ → 0 on the right
+        brk = x0 + 0.035 * (hi - lo)
+        art.refs["axis_break"] = ax.plot([brk, brk], [0, 0.04], transform=ax.get_xaxis_transform(),
+                                         color="black", linewidth=0.8, clip_on=False)[0]
+    return x0
+
+
+def _mark_on_curves(art, result, sels, x, curves, se_curve):
+    """Each rule minimising a drawn curve: a filled marker on it, named next to it."""
+    ax = art.ax
+    placed = []
+    for k, (rule, sel) in enumerate(sels.items()):
+        curve_key = _RULE_CURVE.get(rule)
+        if curve_key not in curves:
+            continue
+        xs = _x_of_penalty(result, sel["lambda"], sel["df"], x)
+        if not np.isfinite(xs):
+            art.notes.append(f"rule {rule}: lambda = 0 is the min-norm end (marked there)")
+            continue
+        color, marker = _rule_color(rule, k)
+        cx, cy = _sorted_xy(*curves[curve_key])
+        good = np.isfinite(cx) & np.isfinite(cy)
+        ys = float(np.interp(xs, cx[good], cy[good]))
+        (m,) = ax.plot([xs], [ys], linestyle="none", marker=marker, color=color,
+                       markersize=6, markeredgecolor="black", markeredgewidth=0.6, zorder=7,
+                       label="_nolegend_")
+        art.markers[rule] = m
+        art.traces.append(Trace(f"selected:{rule}", "marker", np.array([xs]), np.array([ys])))
+        if curve_key == "cv" and se_curve is not None and rule in ("cv", "one_se", "one-se"):
+            sx, sy = _sorted_xy(*se_curve)
+            s = float(np.interp(xs, sx, sy))
+            eb = ax.errorbar([xs], [ys], yerr=[[min(s, 0.9 * ys)], [s]], fmt="none",
+                             ecolor=color, elinewidth=0.9, capsize=2.0, zorder=6)
+            art.bands[f"cv:{rule}"] = eb
+            art.traces.append(Trace(f"selected:{rule}", "error bar", np.array([xs]),
+                                    np.array([ys]), np.array([ys - s]), np.array([ys + s])))
+        placed.append((xs, ys, rule))
+    _name_markers(art, placed)
+
+
+def _name_markers(art, placed):
+    """One name block per cluster of markers, above the cluster with a leader line; the names
+    in the cluster's left-to-right order.  Clusters whose blocks would touch (width estimated
+    at 0.6 em per character) are merged, so blocks never overlap."""
+    ax = art.ax
+    if not placed:
+        return
+    placed.sort(key=lambda p: float(_xfrac(ax, p[0])[0]))
+    fr = _xfrac(ax, [p[0] for p in placed])
+    width_pt = max(ax.get_position().width * ax.figure.get_figwidth() * 72.0, 20.0)
+
+    def text_of(g):
+        names = [_rule_label(placed[i][2]) for i in g]
+        return "\n".join(", ".join(names[k:k + 2]) for k in range(0, len(names), 2))
+
+    def half(g):
+        longest = max(len(line) for line in text_of(g).split("\n"))
+        return 0.5 * (longest * 0.6 * NOTE_PT + 6) / width_pt
+
+    groups = [[i] for i in range(len(placed))]
+    merged = True
+    while merged and len(groups) > 1:
+        merged = False
+        for k in range(len(groups) - 1):
+            a, b = groups[k], groups[k + 1]
+            ca, cb = np.mean(fr[a]), np.mean(fr[b])
+            if cb - ca < half(a) + half(b):
+                groups[k:k + 2] = [a + b]
+                merged = True
+                break
+    for g in groups:
+        f = float(np.mean(fr[g]))
+        xs = float(ax.transScale.inverted().transform(
+            ax.transLimits.inverted().transform((f, 0.5)))[0])
+        ytop = max(placed[i][1] for i in g)
+        ha = "left" if f < 0.25 else ("right" if f > 0.75 else "center")
+        t = ax.annotate(text_of(g), (xs, ytop), xytext=(0, 14), textcoords="offset points",
+                        fontsize=NOTE_PT, ha=ha, va="bottom", linespacing=1.0,
+                        arrowprops=dict(arrowstyle="-", linewidth=0.5, color="#444444",
+                                        shrinkA=0, shrinkB=4),
+                        bbox=dict(boxstyle="square,pad=0.1", facecolor="white",
+                                  edgecolor="none", alpha=0.85))
+        art.texts.append(t)
+
+
+def plot_rule_strip(result, ax=None, *, selected=None, x: str = "df", target: int = 0,
+                    **style) -> Artists:
+    """Every rule's choice on a compact strip: a row per rule, grouped by family.
+
+    Families: prediction-error estimates, plug-in constants, targets,
+    likelihood and the test-row oracle (:data:`RULE_FAMILIES`); each family's
+    name heads its rows.  Each rule is a marker at its penalty on the same x
+    axis as the error curves (effective df or :math:`\\log_{10}\\lambda`); a
+    choice at λ → 0 sits at the min-norm end.  Rules with no penalty (e.g. a
+    target that was not given) are left out (noted).
+
+    Returns
+    -------
+    Artists
+        ``markers[rule]``; ``texts`` (the family headings); ``notes``.
+    """
+    ax = _new_axes(ax)
+    xv, xlabel = _x_of(result, x)
+    sels = selections_of(result, selected, target=target)
+    art = Artists(ax=ax, x_quantity=xlabel, y_quantity="rule")
+    fams = [f for f, _ in RULE_FAMILIES] + ["other"]
+    rows = {}
+    for rule, sel in sels.items():
+        if sel["lambda"] is None or not np.isfinite(sel["lambda"]):
+            art.notes.append(f"rule {rule}: no penalty; not drawn")
+            continue
+        rows.setdefault(rule_family(rule), []).append(rule)
+    x0 = _min_norm_x(result, xv, x)
+    _set_x_scale(ax, xv, x)
+    labels, k, y = [], 0, 0.0
+    heads = []
+    for fam in [f for f in fams if f in rows]:
+        heads.append((y, fam))
+        y += 1.0
+        for rule in rows[fam]:
+            sel = sels[rule]
+            xs = x0 if sel["lambda"] == 0 else _x_of_penalty(result, sel["lambda"], sel["df"], x)
+            color, marker = _rule_color(rule, k)
+            k += 1
+            ax.axhline(y, color="#E5E5E5", linewidth=0.6, zorder=0)
+            (m,) = ax.plot([xs], [y], linestyle="none", marker=marker, color=color,
+                           markersize=5, markeredgecolor="black", markeredgewidth=0.5,
+                           zorder=3, clip_on=False)
+            art.markers[rule] = m
+            art.traces.append(Trace(f"rule:{rule}", "marker", np.array([xs]), np.array([y])))
+            labels.append((y, _rule_label(rule)))
+            y += 1.0
+    ax.set_ylim(y - 0.4, -0.6)
+    ax.set_yticks([a for a, _ in labels], [b for _, b in labels], fontsize=NOTE_PT)
+    ax.tick_params(axis="y", length=0, pad=2)
+    ax.spines["left"].set_visible(False)
+    for yh, fam in heads:
+        art.texts.append(ax.text(0.0, yh, fam, transform=ax.get_yaxis_transform(),
+                                 fontsize=NOTE_PT, fontstyle="italic", ha="left",
+                                 va="center", color="#333333"))
+    ax.set_xlabel(xlabel)
+    return art
+
+
 def _choice(result, lam, selected, target):
     """(lambda, label) of the penalty to show: ``lam`` or the first selected rule."""
     if lam is not None:
@@ -592,12 +943,12 @@ def plot_shrinkage(result, ax=None, *, lam=None, selected=None, target: int = 0,
     j = np.arange(1, d.size + 1, dtype=float)
     f = fractions(d, [lam])[:, 0]
     who = _rule_label(rule) if rule != "given" else "given"
-    art = Artists(ax=ax, x_quantity="principal component j (by decreasing $d_j$)",
-                  y_quantity=r"shrinkage $d_j^2/(d_j^2+\lambda)$")
+    art = Artists(ax=ax, x_quantity="component j, by decreasing dⱼ",
+                  y_quantity="shrinkage dⱼ²/(dⱼ² + λ)")
     kw = dict(color=_C["blue"], linestyle="-", marker="o", markersize=2.5, linewidth=1.0)
     kw.update(style)
-    (ln,) = ax.plot(j, f, label=rf"$f_j$ at $\lambda$ = {lam:.3g} ({who}); "
-                    rf"$\Sigma f_j$ = {f.sum():.3g}", **kw)
+    (ln,) = ax.plot(j, f, label=f"fⱼ at λ = {lam:.3g} ({who}); "
+                    f"Σ fⱼ = {f.sum():.3g}", **kw)
     art.lines["shrinkage"] = ln
     art.traces.append(Trace("shrinkage", "line", j, f))
     ax.set_ylim(-0.03, 1.03)
@@ -605,10 +956,10 @@ def plot_shrinkage(result, ax=None, *, lam=None, selected=None, target: int = 0,
     ax.set_ylabel(art.y_quantity, color=_C["blue"])
     twin = ax.twinx()
     (sv,) = twin.plot(j, d, color=_C["vermillion"], linestyle="--", linewidth=1.0,
-                      label=r"singular value $d_j$")
+                      label="singular value dⱼ")
     twin.set_yscale("log")
     twin.spines["right"].set_visible(True)
-    twin.set_ylabel(r"singular value $d_j$ (log)", color=_C["vermillion"])
+    twin.set_ylabel("singular value dⱼ (log)", color=_C["vermillion"])
     art.lines["singular_values"] = sv
     art.traces.append(Trace("singular_values", "line", j, d))
     ref = ax.axhline(0.5, color="#999999", linewidth=0.5, linestyle=":")
@@ -616,7 +967,7 @@ def plot_shrinkage(result, ax=None, *, lam=None, selected=None, target: int = 0,
     hs = [ln, sv]
     leg = ax.legend(hs, [h.get_label() for h in hs], loc="lower left",
                     bbox_to_anchor=(0.0, 1.01, 1.0, 0.1), mode="expand", ncol=1,
-                    fontsize="x-small", frameon=False, borderaxespad=0.0)
+                    fontsize=NOTE_PT, frameon=False, borderaxespad=0.0)
     art.texts.append(twin)
     art.texts.append(leg)
     return art
@@ -692,9 +1043,9 @@ def plot_spectrum(result, ax=None, *, bins: int | None = None, **style) -> Artis
     eig, gamma, q, m = _eigen_scaled(result)
     a, b = (1 - np.sqrt(gamma)) ** 2, (1 + np.sqrt(gamma)) ** 2
     art = Artists(ax=ax,
-                  x_quantity=r"$\log_{10}$ eigenvalue of $Z^TZ/n$" + "\n"
+                  x_quantity="log₁₀ eigenvalue of ZᵀZ/n" + "\n"
                   + r"(Z: centered, standardized design; mean eigenvalue 1)",
-                  y_quantity=r"density per unit $\log_{10}$")
+                  y_quantity="density per unit log₁₀")
     t = np.log10(eig)
     lo_edge = np.log10(a) if a > 1e-12 else t.min()
     lo = min(t.min(), lo_edge) - 0.1
@@ -713,7 +1064,7 @@ def plot_spectrum(result, ax=None, *, bins: int | None = None, **style) -> Artis
     rho = marchenko_pastur_density(xs, gamma) * xs * np.log(10.0)
     kw = dict(color=_C["black"], linestyle="-", linewidth=1.2)
     kw.update(style)
-    (ln,) = ax.plot(np.log10(xs), rho, label=rf"Marchenko–Pastur, $\gamma$ = {gamma:.3g}",
+    (ln,) = ax.plot(np.log10(xs), rho, label=f"Marchenko–Pastur, γ = {gamma:.3g}",
                     **kw)
     art.lines["marchenko_pastur"] = ln
     art.traces.append(Trace("marchenko_pastur", "line", np.log10(xs), rho))
@@ -728,7 +1079,7 @@ def plot_spectrum(result, ax=None, *, bins: int | None = None, **style) -> Artis
         ax.plot([], [], linestyle="none", label=f"(+ mass {1 - 1 / gamma:.2f} at 0, not drawn)")
     ax.set_xlabel(art.x_quantity)
     ax.set_ylabel(art.y_quantity)
-    art.texts.append(ax.legend(loc="upper right", fontsize="x-small", frameon=False))
+    art.texts.append(ax.legend(loc="upper right", fontsize=NOTE_PT, frameon=False))
     return art
 
 
@@ -751,16 +1102,16 @@ def plot_variance_share(result, ax=None, **style) -> Artists:
     inv = 1.0 / d**2
     share = inv / inv.sum()
     j = np.arange(1, d.size + 1, dtype=float)
-    art = Artists(ax=ax, x_quantity="principal component j (by decreasing $d_j$)",
-                  y_quantity=r"share of min-norm variance $\sigma^2/d_j^2$")
+    art = Artists(ax=ax, x_quantity="component j, by decreasing dⱼ",
+                  y_quantity="share of min-norm variance σ²/dⱼ²")
     kw = dict(color=_C["vermillion"], linestyle="-", marker="o", markersize=2.5, linewidth=1.0)
     kw.update(style)
-    (ln,) = ax.plot(j, share, label=r"$d_j^{-2}/\Sigma_k d_k^{-2}$", **kw)
+    (ln,) = ax.plot(j, share, label="dⱼ⁻²/Σ dₖ⁻²", **kw)
     art.lines["share"] = ln
     art.traces.append(Trace("variance_share", "line", j, share))
     ax.set_yscale("log")
     t = ax.text(0.03, 0.95, f"last component: {100 * share[-1]:.2g}%",
-                transform=ax.transAxes, va="top", fontsize="x-small")
+                transform=ax.transAxes, va="top", fontsize=NOTE_PT)
     art.texts.append(t)
     ax.set_xlabel(art.x_quantity)
     ax.set_ylabel(art.y_quantity)
@@ -829,8 +1180,8 @@ def _aggregate(cols: dict, method: str, value: str):
 def _ratio_label(cols) -> str:
     over = cols.get("over")
     if over is not None and np.size(over) and str(np.asarray(over)[0]) == "samples":
-        return "ratio $p/n'$\n(features / training rows)"
-    return "ratio $p'/n$\n(features in the model / training rows)"
+        return "ratio p/n′\n(features / training rows)"
+    return "ratio p′/n\n(features in the model / training rows)"
 
 
 def plot_threshold(sweep, ax=None, *, theory=None, methods=None, band: bool = True,
@@ -892,16 +1243,16 @@ def plot_threshold(sweep, ax=None, *, theory=None, methods=None, band: bool = Tr
         _draw_theory(art, theory, keys_skip=("train", "train_mse", "training"))
     art.refs["threshold"] = ax.axvline(1.0, color="#444444", linewidth=0.8, linestyle="-")
     art.texts.append(ax.text(1.0, 0.02, " p′ = n", transform=ax.get_xaxis_transform(),
-                             fontsize="x-small", ha="left", va="bottom", color="#444444"))
+                             fontsize=NOTE_PT, ha="left", va="bottom", color="#444444"))
     reps = int(np.max(cols["repeat"])) + 1 if "repeat" in cols and np.size(cols["repeat"]) else 1
     ax.set_yscale("log")
     ax.set_xlabel(art.x_quantity)
     ax.set_ylabel(art.y_quantity)
     art.texts.append(ax.legend(loc="lower left", bbox_to_anchor=(0.0, 1.01, 1.0, 0.1),
-                               mode="expand", ncol=2, borderaxespad=0.0, fontsize="xx-small",
+                               mode="expand", ncol=2, borderaxespad=0.0, fontsize=NOTE_PT,
                                frameon=False, handlelength=2.2,
                                title=f"band: ±1 SE over {reps} repeats" if reps > 1 and band
-                               else None, title_fontsize="xx-small"))
+                               else None, title_fontsize=NOTE_PT))
     return art
 
 
@@ -1007,14 +1358,14 @@ def plot_training_law(sweep, ax=None, *, noise_variance=None, theory=None,
         for key in ("train", "train_mse", "training"):
             if tc.get(key) is not None:
                 law = (np.asarray(tc["ratio"], float), np.asarray(tc[key], float),
-                       "theory: " + r"$\sigma^2_\mathrm{eff}(1-p'/n)$")
+                       "theory: σ²_eff (1 − p′/n)")
                 break
     if law is None and noise_variance is not None:
         nt = cols.get("n_train")
         n = float(np.asarray(nt, float)[0]) if nt is not None and np.size(nt) else np.inf
         xs_f = np.linspace(0.0, max(1.0, float(xs.max())), 200)
         v = float(noise_variance) * np.clip(1.0 - xs_f - 1.0 / n, 0.0, None)
-        law = (xs_f, v, r"law $\sigma^2(1-(p'+1)/n)$, $\sigma^2$ = " + f"{noise_variance:.3g}")
+        law = (xs_f, v, "law σ²(1 − (p′+1)/n), σ² = " + f"{noise_variance:.3g}")
     if law is not None:
         (lw,) = ax.plot(law[0], law[1], color=_C["black"], linestyle=(0, (2, 1)), linewidth=0.9,
                         label=law[2])
@@ -1026,7 +1377,7 @@ def plot_training_law(sweep, ax=None, *, noise_variance=None, theory=None,
     ax.set_ylim(bottom=0)
     ax.set_xlabel(art.x_quantity)
     ax.set_ylabel(art.y_quantity)
-    art.texts.append(ax.legend(loc="best", fontsize="x-small", frameon=False))
+    art.texts.append(ax.legend(loc="best", fontsize=NOTE_PT, frameon=False))
     return art
 
 
@@ -1069,7 +1420,13 @@ def plot_bias_variance(sim, ax=None, *, method: str = "min_norm", **style) -> Ar
     ax.set_yscale("log")
     ax.set_xlabel(art.x_quantity)
     ax.set_ylabel(art.y_quantity)
-    art.texts.append(ax.legend(loc="best", fontsize="x-small", frameon=False,
+    art.texts.append(ax.legend(loc="best", fontsize=NOTE_PT, frameon=False,
                                title=_METHOD_LABELS.get(method, method),
-                               title_fontsize="x-small"))
+                               title_fontsize=NOTE_PT))
     return art
+
+
+def _null_locator():
+    from matplotlib.ticker import NullLocator
+
+    return NullLocator()

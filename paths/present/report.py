@@ -16,7 +16,7 @@ from __future__ import annotations
 import html
 import math
 import re
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 from paths.data.output import write_text
@@ -26,8 +26,8 @@ __all__ = ["FigureRef", "report_numbers", "diagnosis", "methods_paragraph", "rul
 
 RULE_NAMES = {
     "gcv": "minimum generalized cross-validation (GCV; Golub, Heath & Wahba 1979)",
-    "loo": "minimum exact leave-one-out error (LOO)",
-    "cv": "minimum K-fold cross-validation error",
+    "loo": "minimum exact leave-one-out error (LOO; Allen 1974)",
+    "cv": "minimum K-fold cross-validation error (Stone 1974)",
     "one_se": "the one-standard-error rule on K-fold cross-validation (Breiman et al. 1984)",
     "one-se": "the one-standard-error rule on K-fold cross-validation (Breiman et al. 1984)",
     "hkb": "the Hoerl–Kennard–Baldwin (1975) constant",
@@ -35,12 +35,39 @@ RULE_NAMES = {
     "isotropic": "the isotropic random-matrix plug-in (Dobriban & Wager 2018)",
     "df": "a target effective degrees of freedom",
     "fraction": "a target shrinkage fraction of the min-norm coefficient norm",
+    "reml": "maximum restricted likelihood (REML; Patterson & Thompson 1971)",
     "test": "minimum test error (an oracle: it looks at the test rows)",
 }
 SHORT = {"gcv": "GCV", "loo": "LOO", "cv": "K-fold CV", "one_se": "one-SE", "one-se": "one-SE",
          "hkb": "HKB", "lw": "LW", "isotropic": "isotropic", "df": "target df",
-         "fraction": "target fraction", "test": "test (oracle)"}
+         "fraction": "target fraction", "reml": "REML", "test": "test rows (oracle)"}
 _PREFERENCE = ("cv", "one_se", "one-se", "loo", "gcv")
+
+#: The works the report cites, by key (a References section lists those cited).
+REFERENCES = {
+    "gcv": "Golub, G. H., Heath, M. and Wahba, G. (1979). Generalized cross-validation as a "
+           "method for choosing a good ridge parameter. Technometrics 21, 215–223.",
+    "loo": "Allen, D. M. (1974). The relationship between variable selection and data "
+           "augmentation and a method for prediction. Technometrics 16, 125–127.",
+    "cv": "Stone, M. (1974). Cross-validatory choice and assessment of statistical predictions. "
+          "J. R. Statist. Soc. B 36, 111–147.",
+    "one_se": "Breiman, L., Friedman, J. H., Olshen, R. A. and Stone, C. J. (1984). "
+              "Classification and Regression Trees. Wadsworth.",
+    "hkb": "Hoerl, A. E., Kennard, R. W. and Baldwin, K. F. (1975). Ridge regression: some "
+           "simulations. Communications in Statistics 4, 105–123.",
+    "lw": "Lawless, J. F. and Wang, P. (1976). A simulation study of ridge and other regression "
+          "estimators. Communications in Statistics A 5, 307–323.",
+    "isotropic": "Dobriban, E. and Wager, S. (2018). High-dimensional asymptotics of prediction: "
+                 "ridge regression and classification. Annals of Statistics 46, 247–279.",
+    "reml": "Patterson, H. D. and Thompson, R. (1971). Recovery of inter-block information when "
+            "block sizes are unequal. Biometrika 58, 545–554.",
+    "min_norm": "Hastie, T., Montanari, A., Rosset, S. and Tibshirani, R. J. (2022). Surprises in "
+                "high-dimensional ridgeless least squares interpolation. Annals of Statistics "
+                "50, 949–986.",
+    "ridge": "Hoerl, A. E. and Kennard, R. W. (1970). Ridge regression: biased estimation for "
+             "nonorthogonal problems. Technometrics 12, 55–67.",
+}
+_REF_KEY = {"one-se": "one_se"}
 
 
 def fmt(v, digits: int = 4) -> str:
@@ -74,6 +101,7 @@ class FigureRef:
     caption: str
     svg: str
     image: str
+    target: str | None = None
 
 
 # ------------------------------------------------------------------ numbers
@@ -103,9 +131,13 @@ def report_numbers(summary: dict) -> dict:
     Returns a JSON-serializable dict (stored as ``summary["report"]``): the
     chosen ``rule``, its ``lambda``, ``df``, ``index``, ``fraction`` (norm of
     the coefficients at the choice over the min-norm norm, standardized scale),
+    ``min_norm_choice`` (the rule chose λ → 0, the minimum-norm fit),
     ``criterion`` and ``criterion_value``, ``est_mse``/``est_se`` (the rule's own
     estimate when the selection record has one, else the criterion value with no
-    SE), ``test_mse`` at the choice, the grid's size and range (``n_lambdas``,
+    SE), ``test_mse`` at the chosen penalty itself (``test_at``: ``"choice"``, or
+    ``"grid"`` for the nearest grid penalty when the record has no error at the
+    choice), ``test_kind`` (``"held-out"``, ``"reused"`` or ``"overlapping"``:
+    test rows that are training rows), the grid's size and range (``n_lambdas``,
     ``lambda_min``, ``lambda_max``, ``df_min``, ``df_max``), and ``cv`` (the
     K-fold scheme, when cross-validation ran).
     """
@@ -115,7 +147,8 @@ def report_numbers(summary: dict) -> dict:
     dfs = summary["df"]
     idx = sel.get("index")
     if idx is None:
-        idx = min(range(len(lams)), key=lambda i: abs(math.log(lams[i]) - math.log(sel["lambda"])))
+        idx = min(range(len(lams)), key=lambda i: abs(math.log(lams[i])
+                                                       - math.log(max(sel["lambda"], 1e-300))))
     norms = summary.get("coef_norm") or []
     mn_norm = _first((summary.get("min_norm") or {}).get("coef_norm"))
     fraction = _first(sel.get("fraction"))
@@ -134,33 +167,89 @@ def report_numbers(summary: dict) -> dict:
         if est_mse is not None else None
     cv = summary.get("cv") if isinstance(summary.get("cv"), dict) else None
     if est_mse is None and crit_value is not None and rule in sources:
-        # a grid-minimum record (no rule estimate): the rule's own criterion at the choice
         est_mse, est_from = crit_value, sources[rule]
         if rule == "cv" and cv and cv.get("se") is not None:
             est_se = _first(cv["se"][idx])
+    at = sel.get("at_choice") or {}
     if est_mse is None:
-        if summary.get("loo_mse") is not None:
-            est_mse, est_from = _first(summary["loo_mse"][idx]), "leave-one-out MSE at the choice"
-        elif crit_value is not None:
-            est_mse, est_from = crit_value, "the criterion at the choice"
+        if at.get("loo_mse") is not None:
+            est_mse, est_from = at["loo_mse"], "exact leave-one-out at the chosen penalty"
+        elif summary.get("loo_mse") is not None:
+            est_mse, est_from = (_first(summary["loo_mse"][idx]),
+                                 "leave-one-out at the grid penalty nearest the choice")
     test = summary.get("test_mse")
-    out = {
+    if at.get("test_mse") is not None:
+        test_mse, test_at = at["test_mse"], "choice"
+    elif test is not None:
+        test_mse, test_at = _first(test[idx]), "grid"
+    else:
+        test_mse, test_at = None, None
+    return {
         "rule": rule, "lambda": float(sel["lambda"]), "df": float(_first(sel["df"])),
         "index": int(idx), "fraction": None if fraction is None else float(fraction),
+        "min_norm_choice": float(sel["lambda"]) == 0.0,
         "criterion": crit_key, "criterion_value": crit_value,
         "est_mse": est_mse, "est_se": est_se, "est_from": est_from,
-        "test_mse": None if test is None else _first(test[idx]),
+        "test_mse": test_mse, "test_at": test_at, "test_kind": _test_kind(summary),
         "n_lambdas": len(lams), "lambda_min": min(lams), "lambda_max": max(lams),
         "df_min": min(dfs), "df_max": max(dfs),
         "cv": None if cv is None else {k: cv.get(k) for k in
                                        ("n_folds", "repeats", "scheme", "seed", "scaling")
                                        if k in cv},
     }
-    return out
 
 
 def _numbers(summary: dict) -> dict:
     return summary.get("report") or report_numbers(summary)
+
+
+def _test_kind(summary: dict):
+    """``None`` without a test set; ``"reused"`` when every test row is a training row,
+    ``"overlapping"`` when some are, else ``"held-out"``."""
+    n_test = summary.get("n_test") or 0
+    if not n_test:
+        return None
+    shared = summary.get("test_shared_rows") or 0
+    if shared >= n_test:
+        return "reused"
+    return "overlapping" if shared else "held-out"
+
+
+def _test_phrase(summary: dict) -> str:
+    """How the report names the test rows: never "held out" unless they are."""
+    kind = _test_kind(summary)
+    n = fmt(summary.get("n_test"))
+    if kind == "reused":
+        return (f"the {n} rows of the test file, which are all training rows (the training file "
+                "given again): these are training errors, NOT held-out errors")
+    if kind == "overlapping":
+        return (f"{n} test rows, of which {fmt(summary.get('test_shared_rows'))} are also "
+                "training rows: not a held-out estimate")
+    return f"{n} held-out test rows, not used for fitting or selection"
+
+
+# ------------------------------------------------------------------ formulas
+def convention_formula(summary: dict, form: str = "latex") -> str:
+    """The penalty convention as a formula: ``form`` "latex" (Markdown, ``$…$``),
+    "html" (MathML, rendered by browsers without scripts or fonts) or "text"."""
+    std = bool(summary.get("standardize", True))
+    scale = ("X column-centered and scaled to unit population SD" if std
+             else "X column-centered")
+    if form == "latex":
+        return (r"$\min_{b_0,\beta}\ \lVert y - b_0\mathbf{1} - X\beta\rVert_2^2 + "
+                r"\lambda\lVert\beta\rVert_2^2$ (" + scale + "; intercept $b_0$ unpenalized; "
+                r"$\lambda$ = scikit-learn's `Ridge(alpha)`)")
+    if form == "html":
+        mrow = ("<math display=\"inline\"><mrow><munder><mo>min</mo><mrow><msub><mi>b</mi><mn>0</mn>"
+                "</msub><mo>,</mo><mi>&#946;</mi></mrow></munder><msubsup><mrow><mo>&#8214;</mo>"
+                "<mi>y</mi><mo>&#8722;</mo><msub><mi>b</mi><mn>0</mn></msub><mo>&#8722;</mo>"
+                "<mi>X</mi><mi>&#946;</mi><mo>&#8214;</mo></mrow><mn>2</mn><mn>2</mn></msubsup>"
+                "<mo>+</mo><mi>&#955;</mi><msubsup><mrow><mo>&#8214;</mo><mi>&#946;</mi>"
+                "<mo>&#8214;</mo></mrow><mn>2</mn><mn>2</mn></msubsup></mrow></math>")
+        return (f"{mrow} ({html.escape(scale)}; intercept b<sub>0</sub> unpenalized; "
+                "&#955; = scikit-learn's <code>Ridge(alpha)</code>)")
+    return ("minimize ||y - b0 - X beta||^2 + lambda ||beta||^2 (" + scale
+            + "; intercept b0 unpenalized; lambda = scikit-learn's Ridge(alpha))")
 
 
 # ------------------------------------------------------------------ text
@@ -171,12 +260,16 @@ def data_summary(summary: dict) -> list:
             ("p/n", fmt(summary["p_over_n"])),
             ("numerical rank", f"{fmt(summary['rank'])} (tolerance {fmt(summary.get('rank_tol'))})"),
             ("condition number", fmt(summary["condition_number"]))]
-    if summary.get("n_test"):
-        rows.append(("test rows", fmt(summary["n_test"])))
+    kind = _test_kind(summary)
+    if kind == "held-out":
+        rows.append(("held-out test rows", fmt(summary["n_test"])))
+    elif kind is not None:
+        rows.append(("test rows (NOT held out)",
+                     f"{fmt(summary['n_test'])}, of which {fmt(summary.get('test_shared_rows'))} "
+                     "are training rows"))
     const = summary.get("constant_features") or []
-    rows.append(("constant columns (left out)", ", ".join(const[:10]) + (" …" if len(const) > 10
-                                                                        else "") if const
-                 else "none"))
+    rows.append(("constant columns (left out)", ", ".join(map(_md, const[:10]))
+                 + (" …" if len(const) > 10 else "") if const else "none"))
     notes = summary.get("data_notes") or []
     rows.append(("data notes (missing, dropped, encoded columns; engine)",
                  "; ".join(map(str, notes)) if notes else "none reported"))
@@ -187,41 +280,36 @@ def data_summary(summary: dict) -> list:
         rows.append(("source", str(summary["source"])))
     if summary.get("targets"):
         rows.append(("targets", ", ".join(map(str, summary["targets"]))
-                     + " (this report and its figures show the first; every target's choices "
-                       "are in summary.json under by_target)"))
+                     + " (each has its own section, rules table and figure below)"))
+    elif summary.get("target"):
+        rows.append(("target", str(summary["target"])))
     return rows
 
 
-def diagnosis(summary: dict) -> list:
-    """Plain-words statements: threshold position, conditioning, what the min-norm fit does."""
-    n, p, g = summary["n_samples"], summary["n_features"], summary["p_over_n"]
-    rank, cond = summary["rank"], summary["condition_number"]
-    out = []
+def _where(g: float) -> str:
     if g < 0.5:
-        where = (f"well below the interpolation threshold (p/n = {fmt(g)}): least squares is "
-                 "determined, and shrinkage mainly trades a little bias for less variance")
-    elif g < 0.9:
-        where = (f"approaching the interpolation threshold (p/n = {fmt(g)}): the smallest "
-                 "singular values are shrinking and the least-squares variance is growing")
-    elif g <= 1.1:
-        where = (f"at the interpolation threshold (p/n = {fmt(g)}): the smallest singular values "
-                 "are near zero, so the unpenalized fit's test error spikes; shrinkage is essential")
-    elif g < 3:
-        where = (f"past the interpolation threshold (p/n = {fmt(g)}): there are more features than "
-                 "samples, least squares is not unique, and the min-norm fit interpolates")
-    else:
-        where = (f"far past the interpolation threshold (p/n = {fmt(g)}): many more features than "
-                 "samples; only shrinkage (or the implicit shrinkage of the min-norm fit) makes "
-                 "the problem well posed")
-    out.append(f"The data sit {where}.")
-    if cond < 1e2:
-        c = "well conditioned"
-    elif cond < 1e6:
-        c = "moderately ill-conditioned"
-    elif cond < 1e10:
-        c = "ill-conditioned"
-    else:
-        c = "severely ill-conditioned"
+        return (f"well below the interpolation threshold (p/n = {fmt(g)}): least squares is "
+                "determined, and shrinkage mainly trades a little bias for less variance")
+    if g < 0.9:
+        return (f"approaching the interpolation threshold (p/n = {fmt(g)}): the smallest "
+                "singular values are shrinking and the least-squares variance is growing")
+    if g <= 1.1:
+        return (f"at the interpolation threshold (p/n = {fmt(g)}): the smallest singular values "
+                "are near zero, so the unpenalized fit's error is at its most unstable")
+    if g < 3:
+        return (f"past the interpolation threshold (p/n = {fmt(g)}): there are more features "
+                "than samples, least squares is not unique, and the min-norm fit interpolates")
+    return (f"far past the interpolation threshold (p/n = {fmt(g)}): many more features than "
+            "samples; the least-squares problem has infinitely many exact fits")
+
+
+def diagnosis(summary: dict) -> list:
+    """Plain-words statements, each generated from the numbers it quotes."""
+    n, g = summary["n_samples"], summary["p_over_n"]
+    rank, cond = summary["rank"], summary["condition_number"]
+    out = [f"The data sit {_where(g)}."]
+    c = ("well conditioned" if cond < 1e2 else "moderately ill-conditioned" if cond < 1e6
+         else "ill-conditioned" if cond < 1e10 else "severely ill-conditioned")
     out.append(f"The centered design is {c}: condition number {fmt(cond)} over its {fmt(rank)} "
                "non-zero singular values (the spectrum figure shows how they spread).")
     mn = summary.get("min_norm") or {}
@@ -233,75 +321,111 @@ def diagnosis(summary: dict) -> list:
     else:
         what = (f"is the least-squares fit on the {fmt(rank)}-dimensional column span "
                 f"(training MSE {fmt(tr0)})")
+    out.append(f"The minimum-norm fit (λ → 0) {what}.")
     r = _numbers(summary)
-    tail = f"; its leave-one-out MSE is {fmt(loo0)}"
-    if r.get("est_mse") is not None:
-        tail += f" against {fmt(r['est_mse'])} at the chosen penalty"
+    if r.get("min_norm_choice"):
+        out.append("The reported rule chose λ → 0 itself: the reported model IS the "
+                   "minimum-norm fit, with no shrinkage.")
+    elif r.get("est_mse") is not None and loo0 is not None:
+        better = r["est_mse"] < loo0
+        out.append(f"Shrinkage {'lowers' if better else 'does not lower'} the estimated error: "
+                   f"{fmt(r['est_mse'])} at the chosen penalty ({r['est_from']}) against a "
+                   f"leave-one-out MSE of {fmt(loo0)} for the minimum-norm fit.")
     if te0 is not None and r.get("test_mse") is not None:
-        tail += f", and its test MSE {fmt(te0)} against {fmt(r['test_mse'])}"
-    out.append(f"The min-norm fit (lambda -> 0+) {what}{tail}.")
+        kind = r.get("test_kind")
+        label = "test MSE" if kind == "held-out" else "error on the reused training rows"
+        better = r["test_mse"] < te0
+        out.append(f"On the test rows the chosen penalty is {'better' if better else 'not better'}"
+                   f" than the minimum-norm fit: {label} {fmt(r['test_mse'])} against {fmt(te0)}"
+                   + ("" if kind == "held-out" else " (the test rows are training rows: not a "
+                      "held-out comparison)") + ".")
     return out
 
 
 def rules_table(summary: dict):
-    """``(header, rows)`` of every selection rule in the record (formatted strings)."""
-    header = ["rule", "lambda", "df", "shrinkage fraction", "criterion / est. MSE", "SE",
-              "test MSE at choice"]
-    rows = []
-    test = summary.get("test_mse")
+    """``(header, groups)``: every rule in the record, grouped by family.
+
+    ``groups`` is a list of ``(family heading, rows)`` in the order of
+    :data:`paths.present.plot.RULE_FAMILIES`, then the λ → 0 limit; each row
+    holds formatted strings.  The test column is the error at the rule's own
+    penalty, labelled as training rows when the test rows are not held out.
+    """
+    from paths.present.plot import RULE_FAMILIES
+
+    kind = _test_kind(summary)
+    test_col = {"held-out": "test MSE at λ", "reused": "MSE on the reused training rows at λ",
+                "overlapping": "MSE on the (partly training) test rows at λ"}.get(kind,
+                                                                                  "test MSE at λ")
+    header = ["rule", "λ", "df", "‖β_λ‖ / ‖β_0‖", "its error estimate", "± SE", test_col]
     chosen = _numbers(summary)["rule"]
+    by_family = {}
     for rule, sel in (summary.get("selected") or {}).items():
-        idx = sel.get("index")
-        frac = _first(sel.get("fraction"))
-        est = _first(sel.get("est_mse"))
-        if est is None:
-            est = _first(sel.get("value"))
-        tm = _first(test[idx]) if test is not None and idx is not None else None
+        if not isinstance(sel, dict):
+            continue
         name = SHORT.get(rule, rule) + (" (reported)" if rule == chosen else "")
-        rows.append([name, fmt(sel.get("lambda")), fmt(_first(sel.get("df"))), fmt(frac), fmt(est),
-                     fmt(_first(sel.get("est_se"))), fmt(tm)])
+        if sel.get("lambda") is None:
+            row = [name, "not run", "", "", "", "", ""]
+        else:
+            at = sel.get("at_choice") or {}
+            est = _first(sel.get("est_mse"))
+            if est is None:
+                est = _first(sel.get("value"))
+            lam = "0 (min-norm)" if sel["lambda"] == 0 else fmt(sel.get("lambda"))
+            row = [name, lam, fmt(_first(sel.get("df"))), fmt(_first(sel.get("fraction"))),
+                   fmt(est), fmt(_first(sel.get("est_se"))), fmt(at.get("test_mse"))]
+        by_family.setdefault(_family_of(rule), []).append(row)
+    order = [f for f, _ in RULE_FAMILIES] + ["other"]
+    groups = [(f, by_family[f]) for f in order if f in by_family]
     mn = summary.get("min_norm") or {}
-    rows.append(["min-norm (lambda -> 0+)", "0", fmt(mn.get("df")), "1", fmt(_first(mn.get("loo_mse"))),
-                 "n/a", fmt(_first(mn.get("test_mse")))])
-    return header, rows
+    groups.append(("limit λ → 0", [["minimum-norm fit", "0", fmt(mn.get("df")), "1",
+                                    fmt(_first(mn.get("loo_mse"))) + " (LOO)", "",
+                                    fmt(_first(mn.get("test_mse")))]]))
+    return header, groups
 
 
-def methods_paragraph(summary: dict) -> str:
-    """A ready methods paragraph, every number from the summary record."""
+def methods_paragraph(summary: dict, form: str = "text") -> str:
+    """A ready methods paragraph, every number from the summary record.
+
+    ``form``: ``"latex"`` (Markdown, the penalty as a LaTeX formula), ``"html"``
+    (escaped HTML with the formula in MathML) or ``"text"``.
+    """
+    if form == "html":
+        token = "\x00FORMULA\x00"
+        text = _methods_text(summary, token)
+        return html.escape(text).replace(html.escape(token), convention_formula(summary, "html"))
+    return _methods_text(summary, convention_formula(summary, form))
+
+
+def _methods_text(summary: dict, formula: str) -> str:
     r = _numbers(summary)
     rule = r["rule"]
     std = ("centered and scaled to unit population standard deviation"
            if summary.get("standardize") else "centered")
     parts = [
-        f"We fitted ridge regression to n = {fmt(summary['n_samples'])} samples and "
-        f"p = {fmt(summary['n_features'])} features (p/n = {fmt(summary['p_over_n'])}), with the "
-        f"features {std} and an unpenalized intercept. Penalty convention: "
-        f"{summary['penalty_convention']}.",
+        f"We fitted ridge regression (Hoerl & Kennard 1970) to n = {fmt(summary['n_samples'])} "
+        f"samples and p = {fmt(summary['n_features'])} features (p/n = "
+        f"{fmt(summary['p_over_n'])}), with the features {std} and an unpenalized intercept: "
+        f"{formula}.",
         f"The whole path was computed from one singular value decomposition of the centered "
         f"design (numerical rank {fmt(summary['rank'])}, condition number "
         f"{fmt(summary['condition_number'])}) over a grid of {fmt(r['n_lambdas'])} penalties, "
-        f"log-spaced from lambda = {fmt(r['lambda_min'])} to {fmt(r['lambda_max'])} "
+        f"log-spaced from λ = {fmt(r['lambda_min'])} to {fmt(r['lambda_max'])} "
         f"(effective degrees of freedom {fmt(r['df_min'])} to {fmt(r['df_max'])}, intercept "
-        "included).",
+        "included), with the λ → 0 limit (the minimum-norm least-squares fit; Hastie et al. "
+        "2022) computed exactly from the same factors.",
     ]
-    scheme = ""
     cv = r.get("cv")
-    if cv and rule in ("cv", "one_se", "one-se"):
-        bits = []
-        if cv.get("n_folds") is not None:
-            bits.append(f"{fmt(cv['n_folds'])}-fold")
-        if cv.get("scheme"):
-            bits.append(str(cv["scheme"]))
-        if cv.get("repeats") is not None:
-            bits.append(f"{fmt(cv['repeats'])} repetition(s)")
-        if cv.get("seed") is not None:
-            bits.append(f"seed {fmt(cv['seed'])}")
-        scheme = " (cross-validation: " + ", ".join(bits) + ")"
-    parts.append(f"The penalty was chosen by {RULE_NAMES.get(rule, rule)}{scheme}: "
-                 f"lambda = {fmt(r['lambda'])}, with {fmt(r['df'])} effective degrees of freedom"
-                 + (f" and a coefficient norm {fmt(r['fraction'])} times that of the "
-                    "minimum-norm fit (standardized scale)" if r.get("fraction") is not None
-                    else "") + ".")
+    scheme = f", with {_cv_sentence(cv)}," if cv and rule in ("cv", "one_se", "one-se") else ""
+    if r.get("min_norm_choice"):
+        parts.append(f"The penalty was chosen by {RULE_NAMES.get(rule, rule)}{scheme}, which chose "
+                     "λ → 0: the reported model is the minimum-norm least-squares fit "
+                     f"({fmt(r['df'])} effective degrees of freedom), not a shrunken ridge fit.")
+    else:
+        parts.append(f"The penalty was chosen by {RULE_NAMES.get(rule, rule)}{scheme}: "
+                     f"λ = {fmt(r['lambda'])}, with {fmt(r['df'])} effective degrees of freedom"
+                     + (f" and a coefficient norm {fmt(r['fraction'])} times that of the "
+                        "minimum-norm fit (standardized scale)" if r.get("fraction") is not None
+                        else "") + ".")
     if r.get("est_mse") is not None:
         se = (f" (standard error {fmt(r['est_se'])})" if r.get("est_se") is not None
               else " (no standard error is available for this estimate)")
@@ -309,9 +433,10 @@ def methods_paragraph(summary: dict) -> str:
                      f"{se}, from {r['est_from']}; it is optimistic, because the penalty was "
                      "chosen on the same data.")
     if r.get("test_mse") is not None and summary.get("n_test"):
-        parts.append(f"On {fmt(summary['n_test'])} held-out test rows, not used for fitting or "
-                     f"selection, the mean squared error at the grid penalty nearest the choice "
-                     f"was {fmt(r['test_mse'])}.")
+        where = ("at the chosen penalty itself" if r.get("test_at") == "choice"
+                 else "at the grid penalty nearest the choice")
+        parts.append(f"On {_test_phrase(summary)}, the mean squared error {where} was "
+                     f"{fmt(r['test_mse'])}.")
     vers = summary.get("versions") or {}
     if vers.get("paths"):
         parts.append(f"Computations used paths {vers['paths']} with numpy {vers.get('numpy')} and "
@@ -330,6 +455,10 @@ def cautions(summary: dict) -> list:
         "domain experts, checks for bias across groups, and validation on data from the setting "
         "where they will be used.",
     ]
+    kind = _test_kind(summary)
+    if kind in ("reused", "overlapping"):
+        out.insert(0, f"WARNING: the test rows are not held out — {_test_phrase(summary)}. "
+                      "Every 'test' error in this report measures fit to training rows.")
     if not summary.get("n_test"):
         out.insert(2, "This run had no test set: every error in this report is estimated from the "
                    "training rows.")
@@ -371,22 +500,28 @@ def _title(summary) -> str:
 
 
 def render_markdown(summary: dict, figures=()) -> str:
-    """The report as Markdown (figures linked as image files next to it)."""
-    L = [f"# {_title(summary)}", ""]
+    """The report as Markdown (figures linked as image files next to it; formulas in LaTeX)."""
+    L = [f"# {_md(_title(summary))}", ""]
     if summary.get("description"):
         L += [str(summary["description"]), ""]
     L += ["## Data", "", "| quantity | value |", "|---|---|"]
     L += [f"| {a} | {_md(b)} |" for a, b in data_summary(summary)]
-    L += ["", "## Diagnosis", ""] + [f"- {s}" for s in diagnosis(summary)]
-    h, rows = rules_table(summary)
-    L += ["", "## Selection rules", "", "| " + " | ".join(h) + " |", "|" + "---|" * len(h)]
-    L += ["| " + " | ".join(map(_md, r)) + " |" for r in rows]
-    if figures:
-        L += ["", "## Figures", ""]
-        for f in figures:
-            L += [f"![{f.name}]({f.image})", "", f"*{f.caption}*", ""]
-    L += ["", "## Methods paragraph", "", methods_paragraph(summary), "",
-          "## Cautions", ""] + [f"- {c}" for c in cautions(summary)]
+    multi = len(_blocks(summary)) > 1
+    for name, view in _blocks(summary):
+        h2 = "###" if multi else "##"
+        if multi:
+            L += ["", f"## Target: {_md(name)}"]
+        L += ["", f"{h2} Diagnosis", ""] + [f"- {s}" for s in diagnosis(view)]
+        L += ["", f"{h2} Selection rules", ""] + _md_rules(view)
+        own = [f for f in figures if getattr(f, "target", None) == name and multi]
+        if own:
+            L += ["", f"{h2} Figures", ""] + _md_figures(own)
+        L += ["", f"{h2} Methods paragraph", "", methods_paragraph(view, "latex")]
+    shared = [f for f in figures if not multi or getattr(f, "target", None) is None]
+    if shared:
+        L += ["", "## Figures", ""] + _md_figures(shared)
+    L += ["", "## Cautions", ""] + [f"- {c}" for c in cautions(summary)]
+    L += ["", "## References", ""] + [f"- {ref}" for ref in references(summary)]
     L += ["", "## Reproducibility", "", "| item | value |", "|---|---|"]
     L += [f"| {a} | `{_md(b)}` |" for a, b in reproducibility(summary)]
     return "\n".join(L) + "\n"
@@ -407,15 +542,17 @@ figure{margin:1.5rem 0;padding:0}figure svg{width:100%;max-width:40rem;height:au
 figcaption{font-size:.9rem;color:#333;margin-top:.3rem}
 .methods{background:#f7f7f2;border-left:4px solid #0072B2;padding:.6rem 1rem}
 .caution{border-left:4px solid #D55E00;padding-left:1rem}
+tr.family th{background:#fff;border:none;border-bottom:1px solid #999;font-style:italic;
+padding-top:.6rem}h2.target{border-bottom:3px solid #0072B2}math{font-size:1.05em}
 code{font-size:.85rem;word-break:break-all}
 """
 
 
-def _figures_html(figures, e) -> list:
+def _figures_html(figures, e, heading: str = "<h2>Figures</h2>") -> list:
     """The report's "Figures" section: each SVG inlined with its caption (empty without figures)."""
     if not figures:
         return []
-    return ["<h2>Figures</h2>"] + [
+    return [heading] + [
         f'<figure id="fig-{e(f.name)}">{_svg_inline(f.svg, f.name)}'
         f"<figcaption><b>{e(f.name)}.</b> {e(f.caption)}</figcaption></figure>"
         for f in figures]
@@ -429,8 +566,9 @@ def _svg_inline(svg: str, name: str) -> str:
                        f'aria-label="{html.escape(name)}" ', 1).strip()
 
 
-def render_html(summary: dict, figures=()) -> str:
-    """The report as one self-contained HTML page (inline SVG figures, inline CSS, no scripts)."""
+def render_html(summary: dict, figures=(), *, interactive: str = "") -> str:
+    """The report as one self-contained HTML page (inline SVG figures, inline CSS, MathML
+    formulas; ``interactive``: an optional self-contained explorer section)."""
     e = html.escape
 
     def table(rows, header=None, cls=""):
@@ -449,13 +587,25 @@ def render_html(summary: dict, figures=()) -> str:
     if summary.get("description"):
         B.append(f"<p>{e(str(summary['description']))}</p>")
     B += ["<h2>Data</h2>", table(data_summary(summary), ["quantity", "value"])]
-    B += ["<h2>Diagnosis</h2>", "<ul>"] + [f"<li>{e(s)}</li>" for s in diagnosis(summary)] + ["</ul>"]
-    h, rows = rules_table(summary)
-    B += ["<h2>Selection rules</h2>", table(rows, h)]
-    B += _figures_html(figures, e)
-    B += ["<h2>Methods paragraph</h2>", f'<p class="methods">{e(methods_paragraph(summary))}</p>',
-          "<h2>Cautions</h2>", '<ul class="caution">']
+    multi = len(_blocks(summary)) > 1
+    for name, view in _blocks(summary):
+        h = "h3" if multi else "h2"
+        if multi:
+            B.append(f'<h2 class="target">Target: {e(str(name))}</h2>')
+        B += [f"<{h}>Diagnosis</{h}>", "<ul>"] + [f"<li>{e(s)}</li>" for s in diagnosis(view)]
+        B += ["</ul>", f"<{h}>Selection rules</{h}>", _html_rules(view, e)]
+        own = [f for f in figures if getattr(f, "target", None) == name and multi]
+        if own:
+            B += _figures_html(own, e, heading=f"<{h}>Figures</{h}>")
+        B += [f"<{h}>Methods paragraph</{h}>",
+              f'<p class="methods">{methods_paragraph(view, "html")}</p>']
+    if interactive:
+        B.append(interactive)
+    B += _figures_html([f for f in figures if not multi or getattr(f, "target", None) is None], e)
+    B += ["<h2>Cautions</h2>", '<ul class="caution">']
     B += [f"<li>{e(c)}</li>" for c in cautions(summary)] + ["</ul>"]
+    B += ["<h2>References</h2>", '<ol class="refs">']
+    B += [f"<li>{e(r)}</li>" for r in references(summary)] + ["</ol>"]
     B += ["<h2>Reproducibility</h2>",
           table([(a, b) for a, b in reproducibility(summary)], ["item", "value"])]
     B.append("</body></html>")
@@ -598,15 +748,17 @@ def render_threshold_markdown(summary: dict, figures=()) -> str:
     return "\n".join(L) + "\n"
 
 
-def figure_refs(panels_files) -> list:
-    """``[(Panel, files), ...]`` from :func:`paths.figures.save_figure` -> FigureRefs (SVG read back)."""
+def figure_refs(panels_files, targets=None) -> list:
+    """``[(Panel, files), ...]`` from :func:`paths.figures.save_figure` -> FigureRefs (SVG read
+    back); ``targets`` names the target each panel belongs to (None: shared)."""
     refs = []
-    for panel, files in panels_files:
+    for k, (panel, files) in enumerate(panels_files):
         svg = next((f for f in files if f.suffix == ".svg"), None)
         img = next((f for f in files if f.suffix in (".png", ".svg")), None)
         text = svg.read_text(encoding="utf-8") if svg is not None else _svg_of(panel)
         refs.append(FigureRef(name=panel.name, caption=panel.caption, svg=text,
-                              image=img.name if img is not None else ""))
+                              image=img.name if img is not None else "",
+                              target=None if targets is None else targets[k]))
     return refs
 
 
@@ -639,35 +791,150 @@ def write_threshold_outputs(result, summary: dict, out_dir, *, formats=("png", "
 
 
 def write_explore_outputs(result, summary: dict, out_dir, *, cv=None, formats=("png", "svg"),
-                          width: str = "single", x: str = "log_lambda",
+                          width: str = "single", x: str = "df",
                           report: bool = True) -> list:
-    """The path and spectrum figures (+ their CSVs) and, with ``report``, the report files.
+    """The path figure of each target and the spectrum figure (+ their CSVs) and, with
+    ``report``, the report files.
 
     ``summary`` must already hold ``summary["report"]`` (:func:`report_numbers`),
-    as written to ``summary.json``; the figures mark the rules of
-    ``summary["selected"]`` and draw K-fold CV (``cv``, a
-    :class:`paths.cv.CVResult`) when given.
+    as written to ``summary.json``; the figures mark every rule of
+    ``summary["selected"]`` (of ``summary["by_target"]`` per target) and draw
+    K-fold CV (``cv``, a :class:`paths.cv.CVResult`) when given.  With several
+    targets the path figures are ``fig-path-1``, ``fig-path-2``, … in target order.
     """
     from paths.present.figures import path_figure, save_figure, spectrum_figure
 
     out = Path(out_dir)
-    selected = {k: v for k, v in (summary.get("selected") or {}).items()
-                if isinstance(v, dict) and v.get("lambda") is not None}
     nums = summary.get("report") or report_numbers(summary)
-    chosen = {nums["rule"]: selected[nums["rule"]]} if nums["rule"] in selected else None
-    shown = {k: v for k, v in selected.items() if k in ("gcv", "loo", "cv", "one-se", "one_se",
-                                                         "test", nums["rule"])}
-    panels = [path_figure(result, selected=shown, cv=cv, x=x, width=width),
-              spectrum_figure(result, lam=None if chosen else nums["lambda"], selected=chosen,
-                              width=width)]
+    names = summary.get("targets") or [None]
+    panels, owners = [], []
+    for j, name in enumerate(names):
+        view = summary if name is None else target_view(summary, j)
+        selected = {k: v for k, v in (view.get("selected") or {}).items()
+                    if isinstance(v, dict) and v.get("lambda") is not None}
+        panel = path_figure(result, selected=selected, cv=cv, x=x, width=width,
+                            reported=nums["rule"], target=j,
+                            name="fig-path" if name is None else f"fig-path-{j + 1}")
+        if name is not None:
+            panel = replace(panel, caption=f"Target {name}. " + panel.caption)
+            panel.artists["a"].ax.set_title(f"target: {name}", loc="right", fontsize=7)
+        panels.append(panel)
+        owners.append(name)
+    chosen = {nums["rule"]: summary["selected"][nums["rule"]]}
+    panels.append(spectrum_figure(result, selected=chosen, width=width))
+    owners.append(None)
     written, pairs = [], []
     for panel in panels:
         files = save_figure(panel, out, formats=formats)
         written += files
         pairs.append((panel, files))
     if report:
-        refs = figure_refs(pairs)
+        refs = figure_refs(pairs, owners)
         written += write_report(out, summary, refs)
     for panel in panels:
         panel.figure.clear()
     return written
+
+
+def target_view(summary: dict, j: int) -> dict:
+    """The record as seen for target ``j`` of a multi-target run: per-penalty arrays cut to
+    that target's column, its own selections and min-norm errors, its own ``report``."""
+    names = summary.get("targets") or []
+    if not names:
+        return summary
+    name = names[j]
+    view = {k: v for k, v in summary.items() if k not in ("targets", "by_target", "report")}
+    for key in ("train_mse", "gcv", "loo_mse", "test_mse", "coef_norm"):
+        v = summary.get(key)
+        if isinstance(v, list) and v and isinstance(v[0], list):
+            view[key] = [row[j] for row in v]
+    own = (summary.get("by_target") or {}).get(name) or {}
+    view["selected"] = own.get("selected") or summary.get("selected")
+    view["min_norm"] = own.get("min_norm") or summary.get("min_norm")
+    view["target"] = name
+    view["report"] = report_numbers(view)
+    return view
+
+
+def _family_of(rule: str) -> str:
+    from paths.present.plot import rule_family
+
+    return rule_family(rule)
+
+
+def _repetitions(k) -> str:
+    return "one repetition" if k in (None, 1) else f"{fmt(k)} repetitions"
+
+
+def _cv_sentence(cv: dict) -> str:
+    bits = []
+    if cv.get("n_folds") is not None:
+        bits.append(f"{fmt(cv['n_folds'])}-fold cross-validation")
+    scheme = cv.get("scheme")
+    if scheme:
+        bits.append({"shuffled": "folds drawn at random", "blocked": "contiguous blocks of rows",
+                     "grouped": "folds by group"}.get(scheme, f"{scheme} folds"))
+    bits.append(_repetitions(cv.get("repeats")))
+    if cv.get("seed") is not None:
+        bits.append(f"seed {fmt(cv['seed'])}")
+    scaling = cv.get("scaling")
+    if scaling == "per-fold":
+        bits.append("each training fold centered and standardized on its own rows")
+    elif scaling:
+        bits.append("features centered and standardized once on all training rows before the "
+                    "split, so each held-out fold's scale enters the scaling")
+    return ", ".join(bits)
+
+
+def _cited(summary: dict) -> list:
+    """Reference keys the report cites: the ridge convention, the rules present, the limit."""
+    keys = ["ridge"]
+    for rule, sel in (summary.get("selected") or {}).items():
+        k = _REF_KEY.get(rule, rule)
+        if isinstance(sel, dict) and sel.get("lambda") is not None and k in REFERENCES:
+            keys.append(k)
+    if summary.get("cv"):
+        keys.append("cv")
+    keys.append("min_norm")
+    return list(dict.fromkeys(keys))
+
+
+def references(summary: dict) -> list:
+    """The full references the report cites (see :data:`REFERENCES`)."""
+    return [REFERENCES[k] for k in _cited(summary)]
+
+
+def _blocks(summary: dict) -> list:
+    """``[(target name or None, view)]``: one per target (one, unnamed, for a single target)."""
+    names = summary.get("targets") or []
+    if not names:
+        return [(None, summary)]
+    return [(name, target_view(summary, j)) for j, name in enumerate(names)]
+
+
+def _md_rules(summary: dict) -> list:
+    h, groups = rules_table(summary)
+    L = ["| " + " | ".join(h) + " |", "|" + "---|" * len(h)]
+    for family, rows in groups:
+        L.append(f"| ***{_md(family)}*** |" + " |" * (len(h) - 1))
+        L += ["| " + " | ".join(map(_md, r)) + " |" for r in rows]
+    return L
+
+
+def _md_figures(figures) -> list:
+    L = []
+    for f in figures:
+        L += [f"![{_md(f.name)}]({f.image})", "", f"*{_md(f.caption)}*", ""]
+    return L
+
+
+def _html_rules(summary: dict, e) -> str:
+    h, groups = rules_table(summary)
+    out = ['<table class="rules">', "<tr>" + "".join(f"<th>{e(c)}</th>" for c in h) + "</tr>"]
+    for family, rows in groups:
+        out.append(f'<tr class="family"><th colspan="{len(h)}">{e(family)}</th></tr>')
+        for r in rows:
+            out.append("<tr>" + "".join(f'<td{" class=num" if i else ""}>{e(str(c))}</td>'
+                                        for i, c in enumerate(r)) + "</tr>")
+    out.append("</table>")
+    return "\n".join(out)

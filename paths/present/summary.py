@@ -18,7 +18,8 @@ import numpy as np
 
 from paths.core.path import RidgePath
 
-__all__ = ["versions", "path_table", "coefficient_table", "summary_dict", "selections"]
+__all__ = ["versions", "path_table", "coefficient_table", "summary_dict", "selections",
+           "model_table", "choice_errors", "shared_rows", "add_choice_errors", "reported_lambdas"]
 
 
 def versions() -> dict:
@@ -123,4 +124,131 @@ def summary_dict(result: RidgePath, **extra) -> dict:
         "versions": versions(),
     }
     out.update(extra)
+    return out
+
+
+def _target_names(result: RidgePath, targets) -> list:
+    if targets is None:
+        return ["y"] if not result.multi_target else [f"y{j}" for j in range(result.uty.shape[1])]
+    return [str(t) for t in ([targets] if isinstance(targets, str) else targets)]
+
+
+def model_table(result: RidgePath, lambdas, targets=None):
+    """``model.csv``: the final model, intercept first, on the original feature scale.
+
+    Two columns per target: the coefficients at the reported penalty
+    ``lambdas[j]`` (any non-negative value, on the grid or refined off it,
+    computed from the factors) and at the λ → 0⁺ limit (the minimum-norm fit).
+
+    Parameters
+    ----------
+    result : RidgePath
+    lambdas : float or sequence of float
+        The reported penalty of each target.
+    targets : str or list of str, optional
+        Target names (column headings).
+
+    Returns
+    -------
+    (header, rows)
+        ``header = ["term", "<target> at lambda=<value>", "<target> min-norm", ...]``;
+        the first row is the intercept.
+    """
+    names = _target_names(result, targets)
+    lams = np.atleast_1d(np.asarray(lambdas, dtype=float))
+    if lams.size == 1 and len(names) > 1:
+        lams = np.repeat(lams, len(names))
+    header, cols = ["term"], []
+    mn_coef = np.asarray(result.min_norm.coef, dtype=float).reshape(result.n_features, -1)
+    mn_icpt = np.atleast_1d(np.asarray(result.min_norm.intercept, dtype=float))
+    for j, name in enumerate(names):
+        lam = float(lams[j])
+        coef = np.asarray(result.coef_at(lam), dtype=float).reshape(result.n_features, -1)[:, j]
+        icpt = float(result.design.y_mean.ravel()[j]
+                     - result.design.x_mean @ coef) if result.fit_intercept else 0.0
+        header += [f"{name} at lambda={lam:.6g}", f"{name} min-norm (lambda -> 0)"]
+        cols += [np.concatenate([[icpt], coef]),
+                 np.concatenate([[mn_icpt[min(j, mn_icpt.size - 1)]], mn_coef[:, j]])]
+    terms = ["(intercept)", *map(str, result.feature_names)]
+    rows = [[t, *(float(c[i]) for c in cols)] for i, t in enumerate(terms)]
+    return header, rows
+
+
+def choice_errors(result: RidgePath, lam: float, target: int = 0, *, X_test=None,
+                  y_test=None) -> dict:
+    """Training MSE, GCV, leave-one-out MSE (and test MSE) at the penalty ``lam`` itself.
+
+    Closed forms on the path's factors (:meth:`RidgePath.criteria_at`), so a
+    penalty refined off the grid gets its own errors, not the nearest grid
+    point's; the test MSE is that of :meth:`RidgePath.predict` at ``lam``.
+    """
+    crit = result.criteria_at(float(lam))
+
+    def pick(v):
+        v = np.asarray(v, dtype=float)
+        return float(v.reshape(v.shape[0], -1)[0, min(target, v.reshape(v.shape[0], -1).shape[1]
+                                                       - 1)])
+
+    out = {"train_mse": pick(crit.train_mse), "gcv": pick(crit.gcv), "loo_mse": pick(crit.loo_mse)}
+    if X_test is not None and y_test is not None:
+        pred = np.asarray(result.predict(X_test, float(lam)), dtype=float)
+        yt = np.asarray(y_test, dtype=float)
+        if pred.ndim == 2:
+            pred, yt = pred[:, target], yt.reshape(yt.shape[0], -1)[:, target]
+        out["test_mse"] = float(np.mean((yt.ravel() - pred.ravel()) ** 2))
+    return out
+
+
+def shared_rows(X_train, X_test) -> int:
+    """How many test rows also occur (exactly, feature for feature) among the training rows.
+
+    A test set that shares rows with the training set is not held out; the
+    report says so wherever it names a test error.
+    """
+    if X_test is None:
+        return 0
+    a = np.ascontiguousarray(np.asarray(X_train, dtype=np.float64))
+    b = np.ascontiguousarray(np.asarray(X_test, dtype=np.float64))
+    if a.ndim != 2 or b.ndim != 2 or a.shape[1] != b.shape[1]:
+        return 0
+    seen = {row.tobytes() for row in a}
+    return int(sum(row.tobytes() in seen for row in b))
+
+
+def add_choice_errors(summary: dict, result: RidgePath, *, X_train=None, X_test=None,
+                      y_test=None) -> dict:
+    """Add each rule's errors at its own penalty (``at_choice``) and the test-set overlap.
+
+    For every rule with a penalty in ``summary["selected"]`` (and per target in
+    ``summary["by_target"]``), ``at_choice`` holds :func:`choice_errors`;
+    ``summary["test_shared_rows"]`` counts the test rows that are also training
+    rows (:func:`shared_rows`).  Returns the same dict, updated.
+    """
+    def fill(selected, j):
+        for sel in (selected or {}).values():
+            if isinstance(sel, dict) and sel.get("lambda") is not None:
+                sel["at_choice"] = choice_errors(result, sel["lambda"], j, X_test=X_test,
+                                                 y_test=y_test)
+
+    fill(summary.get("selected"), 0)
+    for j, name in enumerate(summary.get("targets") or []):
+        fill(((summary.get("by_target") or {}).get(name) or {}).get("selected"), j)
+    if X_train is not None and X_test is not None:
+        summary["test_shared_rows"] = shared_rows(X_train, X_test)
+    return summary
+
+
+def reported_lambdas(summary: dict) -> list:
+    """The reported penalty of each target (``summary["report"]``, per target under
+    ``by_target``), for :func:`model_table`."""
+    rep = summary.get("report") or {}
+    targets = summary.get("targets")
+    if not targets:
+        return [float(rep["lambda"])]
+    rule = rep.get("rule")
+    out = []
+    for name in targets:
+        sel = (((summary.get("by_target") or {}).get(name) or {}).get("selected") or {}).get(rule)
+        out.append(float(sel["lambda"]) if sel and sel.get("lambda") is not None
+                   else float(rep["lambda"]))
     return out

@@ -241,7 +241,7 @@ def parse_case(text: str, *, source=None) -> Case:
         from paths.present.figures import parse_width
 
         parse_width(figs["width"])
-    if figs.get("x", "log_lambda") not in ("log_lambda", "df"):
+    if figs.get("x", "df") not in ("log_lambda", "df"):
         raise InputError(f"{where}: [figures] x must be log_lambda or df; got {figs['x']!r}")
     name = meta.get("name", stem)
     if not isinstance(name, str) or not _NAME.match(name):
@@ -312,7 +312,7 @@ def run_case(case: Case, out_dir, *, force: bool = False, formats=None, width=No
 
     run = explore(ds, out_dir=out_dir, test=test, holdout=case.data.get("holdout"),
                   seed=case.data.get("seed", 0), force=force, input_sha256=digests,
-                  command_line=cmd, formats=fmts, width=wid, x_axis=figs.get("x", "log_lambda"),
+                  command_line=cmd, formats=fmts, width=wid, x_axis=figs.get("x", "df"),
                   report=figs.get("report", True), extra=extra,
                   inputs=_case_inputs(case, digests), **case.fit)
     rep = run.out_dir / "report.html"
