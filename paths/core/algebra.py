@@ -72,7 +72,7 @@ Golub, G. H. and Van Loan, C. F. (2013). *Matrix Computations*, 4th ed.,
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 import scipy.linalg as sla
@@ -116,6 +116,10 @@ class FactorState:
         Left singular vectors in reduced coordinates (in-memory engines only).
     resid_out : ndarray, shape (m, t), or None
         :math:`y_\\perp` in reduced coordinates (in-memory engines only).
+    high_leverage : tuple or None
+        ``(rows, ell, e_perp)`` of the rows whose leverage outside the span was
+        recomputed from the complement (:func:`refine_leverage`), computed once
+        by :func:`state_from_response`; None when not computed.
     """
 
     d: np.ndarray
@@ -126,6 +130,7 @@ class FactorState:
     fit_intercept: bool
     u: np.ndarray | None = None
     resid_out: np.ndarray | None = None
+    high_leverage: tuple | None = None
 
     @property
     def m(self) -> int:
@@ -173,8 +178,10 @@ def state_from_response(fac, zy: np.ndarray, n_samples: int,
     rss_out = _sumsq(resid)
     for a in (c, resid, rss_out):
         a.flags.writeable = False
-    return FactorState(d=fac.d, vt=fac.vt, uty=c, rss_out=rss_out, n_samples=n_samples,
-                       fit_intercept=fit_intercept, u=u, resid_out=resid)
+    state = FactorState(d=fac.d, vt=fac.vt, uty=c, rss_out=rss_out, n_samples=n_samples,
+                        fit_intercept=fit_intercept, u=u, resid_out=resid)
+    fixes = _refined_rows(state, _BLOCK_ROWS)
+    return replace(state, high_leverage=() if fixes is None else fixes)
 
 
 def _sumsq(a: np.ndarray) -> np.ndarray:
@@ -493,7 +500,8 @@ def leverage_rows(state: FactorState, block: int = _BLOCK_ROWS):
     """
     if state.u is None:
         raise ValueError("leverage_rows needs the left factor (an in-memory FactorState)")
-    fixes = _refined_rows(state, block)
+    fixes = _refined_rows(state, block) if state.high_leverage is None else state.high_leverage
+    fixes = fixes or None
     e_blocks = sample_space_blocks(state.resid_out, state.fit_intercept, block)
     for (s, e, ub), (_, _, eb) in zip(sample_space_blocks(state.u, state.fit_intercept, block),
                                       e_blocks):
@@ -562,12 +570,14 @@ def _loo_res(rows: LeverageRows, sh: Shrinkage, c: np.ndarray) -> np.ndarray:
     num = (ub @ SC).reshape(b, k, t)
     den = np.square(ub) @ sh.s_rel  # (b, k)
     out = rows.ell > 0
-    if out.any():
-        with np.errstate(under="ignore"):
-            num[out] *= sh.s_max[None, :, None]
-            den[out] *= sh.s_max[None, :]
-        num[out] += rows.e_perp[out][:, None, :]
-        den[out] += rows.ell[out][:, None]
+    if out.all():  # in place, no gathered copies (the usual case below full row rank)
+        num *= sh.s_max[None, :, None]
+        num += rows.e_perp[:, None, :]
+        den *= sh.s_max[None, :]
+        den += rows.ell[:, None]
+    elif out.any():
+        num[out] = rows.e_perp[out][:, None, :] + sh.s_max[None, :, None] * num[out]
+        den[out] = rows.ell[out][:, None] + sh.s_max[None, :] * den[out]
     num /= den[:, :, None]
     return num
 

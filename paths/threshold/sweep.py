@@ -511,10 +511,8 @@ def _fit_point(fac: Factorization, zy: np.ndarray, n: int, fit_intercept: bool,
     Returns an (M_ridge=4, 7) array of FIELDS for min_norm, ridge_fixed,
     ridge_gcv, ridge_oracle, and the dict of penalties.
     """
-    u, d, r = fac.u, fac.d, fac.rank
-    m = u.shape[0]
+    d, r = fac.d, fac.rank
     state = algebra.state_from_response(fac, zy[:, None], n, fit_intercept)
-    c = state.uty[:, 0]
     if lam_fixed is None:
         target = df_fraction * r
         lam_f = lambda_for_df(d, target) if 0 < target < r else 0.0
@@ -530,11 +528,9 @@ def _fit_point(fac: Factorization, zy: np.ndarray, n: int, fit_intercept: bool,
         # dominated by the smallest singular direction and says nothing about the test
         # error, so the search keeps lambda > 0 there
         gcv[0] = np.inf
-    G = sh.gain
-    gc = G * c[:, None]  # (r, K): standardized coefficients
-    coef_norm = np.sqrt(np.sum(np.square(gc), axis=0))
-    pred = test_std @ gc  # (n_test, K), test projections once per point
-    test = np.mean(np.square(yt_c[:, None] - pred), axis=0)
+    coef_norm = algebra.path_coef_norm(state, lam)[:, 0]  # standardized coefficients' norm
+    # test projections once per point
+    test = algebra.test_sums(state, lam, test_std, yt_c[:, None])[0][:, 0] / yt_c.size
     K = lam.size
     i_gcv = int(np.argmin(np.where(np.isnan(gcv[:K - 1]), np.inf, gcv[:K - 1])))
     i_or = int(np.argmin(test[:K - 1]))
