@@ -72,7 +72,7 @@ Golub, G. H. and Van Loan, C. F. (2013). *Matrix Computations*, 4th ed.,
 """
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field
 
 import numpy as np
 import scipy.linalg as sla
@@ -116,10 +116,9 @@ class FactorState:
         Left singular vectors in reduced coordinates (in-memory engines only).
     resid_out : ndarray, shape (m, t), or None
         :math:`y_\\perp` in reduced coordinates (in-memory engines only).
-    high_leverage : tuple or None
-        ``(rows, ell, e_perp)`` of the rows whose leverage outside the span was
-        recomputed from the complement (:func:`refine_leverage`), computed once
-        by :func:`state_from_response`; None when not computed.
+    cache : dict
+        Quantities computed once on first use (the refined high-leverage rows of
+        :func:`leverage_rows`); not part of the state's identity.
     """
 
     d: np.ndarray
@@ -130,7 +129,7 @@ class FactorState:
     fit_intercept: bool
     u: np.ndarray | None = None
     resid_out: np.ndarray | None = None
-    high_leverage: tuple | None = None
+    cache: dict = field(default_factory=dict, repr=False, compare=False)
 
     @property
     def m(self) -> int:
@@ -178,10 +177,8 @@ def state_from_response(fac, zy: np.ndarray, n_samples: int,
     rss_out = _sumsq(resid)
     for a in (c, resid, rss_out):
         a.flags.writeable = False
-    state = FactorState(d=fac.d, vt=fac.vt, uty=c, rss_out=rss_out, n_samples=n_samples,
-                        fit_intercept=fit_intercept, u=u, resid_out=resid)
-    fixes = _refined_rows(state, _BLOCK_ROWS)
-    return replace(state, high_leverage=() if fixes is None else fixes)
+    return FactorState(d=fac.d, vt=fac.vt, uty=c, rss_out=rss_out, n_samples=n_samples,
+                       fit_intercept=fit_intercept, u=u, resid_out=resid)
 
 
 def _sumsq(a: np.ndarray) -> np.ndarray:
@@ -500,8 +497,9 @@ def leverage_rows(state: FactorState, block: int = _BLOCK_ROWS):
     """
     if state.u is None:
         raise ValueError("leverage_rows needs the left factor (an in-memory FactorState)")
-    fixes = _refined_rows(state, block) if state.high_leverage is None else state.high_leverage
-    fixes = fixes or None
+    if "high_leverage" not in state.cache:  # once per state: an extra pass and maybe a QR
+        state.cache["high_leverage"] = _refined_rows(state, block)
+    fixes = state.cache["high_leverage"]
     e_blocks = sample_space_blocks(state.resid_out, state.fit_intercept, block)
     for (s, e, ub), (_, _, eb) in zip(sample_space_blocks(state.u, state.fit_intercept, block),
                                       e_blocks):
