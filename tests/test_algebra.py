@@ -273,3 +273,25 @@ def test_min_norm_near_p_equals_n_as_accurate_as_pinv(seed):
         return np.linalg.norm(b - ref) / np.linalg.norm(ref)
 
     assert err(res.min_norm.coef) <= 10 * err(pinv)
+
+
+def test_dask_leverage_one_equals_stream():
+    """The dask engine (local threads, blocks of 7 rows, accurate route) on the
+    leverage-one design gives the streaming engine's LOO and 5-fold CV: the same
+    algebra on row blocks merged in another order (QR merges are backward
+    stable: rtol 100 kappa^2 n eps, as for the refits)."""
+    pytest.importorskip("dask")
+    import dask.array as da
+
+    from paths.engines.dask_cluster import dask_path
+    from paths.engines.stream import stream_path
+
+    X, y = _one_hot_design()
+    n = X.shape[0]
+    lams = [1.0, 1e-12, 0.0]
+    a = dask_path(da.from_array(X, chunks=(7, X.shape[1])), lams, y=y, accurate=True,
+                  standardize=False, cv=5)
+    b = stream_path(X, lams, y=y, chunk_rows=7, accurate=True, standardize=False, cv=5)
+    tol = 100 * _kappa(X) ** 2 * n * EPS
+    assert_allclose(a.loo_mse, b.loo_mse, rtol=tol)
+    assert_allclose(a.cv_mse, b.cv_mse, rtol=tol)

@@ -249,6 +249,19 @@ def _hat_part(block, start, fit, lam, p, n_folds, fold_seed):
     return hp
 
 
+def _others_part(block, start, fit, lam, p):
+    """Third pass of one row block: the triangular factor of its ordinary rows."""
+    hp = HatPass(fit, lam)
+    hp.add_others(int(start), np.asarray(block, dtype=np.float64), p)
+    return hp.r_other
+
+
+def _merge_r(a, b):
+    from paths.core import algebra
+
+    return algebra.tsqr([a, b], a.shape[1])
+
+
 def _merge_hat(a: HatPass, b: HatPass) -> HatPass:
     a.merge(b)
     return a
@@ -394,6 +407,10 @@ def dask_path(
             parts = [dask.delayed(_hat_part, pure=True)(b, int(s0), fit, lam, p, cv or 0, cv_seed)
                      for b, s0 in zip(W.to_delayed().ravel(), starts)]
             hp = compute(_tree(parts, _merge_hat))[0]
+            if hp.needs_others:  # rows of leverage near 1: the complement of the others
+                parts = [dask.delayed(_others_part, pure=True)(b, int(s0), fit, lam, p)
+                         for b, s0 in zip(W.to_delayed().ravel(), starts)]
+                hp.r_other = compute(_tree(parts, _merge_r))[0]
             passes.append(PassInfo(label2, mom.n, time.perf_counter() - t0,
                                    mom.n * W.shape[1] * 8))
             if progress:

@@ -323,8 +323,9 @@ class HatPass:
       :data:`paths.core.algebra.LEVERAGE_REFINE` are summed at once; the few
       others are kept and recomputed at the end from the complement
       (:func:`paths.core.algebra.refine_leverage`, with the triangular factor of
-      :math:`[1/\\sqrt n,\\ u_i,\\ y_i]` over the other rows), so nothing is
-      formed as :math:`1 -` (something close to 1);
+      :math:`[1/\\sqrt n,\\ u_i,\\ y_i]` over the other rows, from a third pass
+      :meth:`add_others` made only when such rows exist), so nothing is formed as
+      :math:`1 -` (something close to 1);
     - K-fold (fold f held out, fixed preprocessing): the triangular factor of
       every fold's rows :math:`[1/\\sqrt n,\\ u_i,\\ y_i]`
       (:func:`paths.core.algebra.kfold_fold_mse`).
@@ -397,8 +398,6 @@ class HatPass:
                                                 if self.state.full_row_rank else
                                                 yc[keep] - ub[keep] @ fit.uty))
             self.sums += algebra.loo_sums(rows, self.shrink, fit.uty)
-            if not self.state.full_row_rank:
-                self.r_other = algebra.tsqr([self.r_other, ua_y[keep]], width)
         if not keep.all():
             self.kept = np.vstack([self.kept, ua_y[~keep]])
         if self.n_folds:
@@ -407,6 +406,25 @@ class HatPass:
                 sel = labels == f
                 self.fold_r[f] = algebra.tsqr([self.fold_r[f], ua_y[sel]], width)
                 self.count[f] += int(sel.sum())
+
+    @property
+    def needs_others(self) -> bool:
+        """True when high-leverage rows were kept: :meth:`add_others` must see every row once."""
+        return self.kept.shape[0] > 0
+
+    def add_others(self, start: int, block: np.ndarray, p: int) -> None:
+        """Third pass (only when rows were kept): the triangular factor of all other rows.
+
+        The kept rows are recognised by the same test as in :meth:`add_rows`.
+        """
+        width = self.ra + self.t
+        step = max(256, (4 << 20) // (8 * max(width, 1)))
+        for off in range(0, block.shape[0], step):
+            ub, yc = self.rows_u(block[off:off + step], p)
+            keep = algebra.naive_ell(self.state, ub) >= algebra.LEVERAGE_REFINE
+            if keep.any():
+                ua_y = np.hstack([algebra.augment_rows(self.state, ub[keep]), yc[keep]])
+                self.r_other = algebra.tsqr([self.r_other, ua_y], width)
 
     def merge(self, other: "HatPass") -> None:
         width = self.ra + self.t
@@ -744,6 +762,15 @@ def stream_path(
             raise InputError(f"{src.source}: the data changed between passes ({mom.n} rows, then "
                              f"{rows2}); do not modify the input while it is read")
         passes.append(PassInfo(label2, rows2, time.perf_counter() - t0, rows2 * src.nbytes_per_row))
+        if hp.needs_others:
+            label3 = "pass 3/3: complement of the rows of leverage near 1"
+            t0 = time.perf_counter()
+            for start, block in src:
+                hp.add_others(start, block, p)
+                if progress:
+                    progress(label3, start + block.shape[0], mom.n)
+            passes.append(PassInfo(label3, rows2, time.perf_counter() - t0,
+                                   rows2 * src.nbytes_per_row))
         loo_mse, loo0 = hp.loo()
         if cv:
             cvres = hp.kfold()
