@@ -81,7 +81,7 @@ __all__ = [
     "FactorState", "factor_state", "state_from_response", "Shrinkage", "shrinkage", "gains", "fractions",
     "complements", "penalized_df", "degrees_of_freedom", "residual_dof", "rss", "gcv",
     "gcv_limit", "Criteria", "criteria", "LeverageRows", "sample_space_blocks",
-    "leverage_rows", "refine_leverage", "naive_ell", "ell_tolerance",
+    "leverage_rows", "state_blocks", "refine_leverage", "naive_ell", "ell_tolerance",
     "augment_rows", "LEVERAGE_REFINE", "loo_sums", "loo_mse",
     "loo_residuals", "project", "test_sums", "coefficients", "min_norm_coefficients",
     "intercepts", "coef_norm", "append_zero", "sample_weights", "path_coef_norm", "fold_factor", "kfold_fold_mse", "tsqr",
@@ -116,6 +116,12 @@ class FactorState:
         Left singular vectors in reduced coordinates (in-memory engines only).
     resid_out : ndarray, shape (m, t), or None
         :math:`y_\\perp` in reduced coordinates (in-memory engines only).
+    span : paths.core.design.FixedSpan or None
+        With row weights or unpenalized columns: the unpenalized span projected
+        out of the reduced coordinates (its columns take the place of the
+        intercept's :math:`1/\\sqrt n` everywhere below).  Every formula is then
+        that of the transformed problem :math:`W^{1/2}y, W^{1/2}X`: sums of
+        squares are weighted sums, and means divide by :math:`\\sum_i w_i`.
     cache : dict
         Quantities computed once on first use (the refined high-leverage rows of
         :func:`leverage_rows`); not part of the state's identity.
@@ -129,12 +135,23 @@ class FactorState:
     fit_intercept: bool
     u: np.ndarray | None = None
     resid_out: np.ndarray | None = None
+    span: object = None
     cache: dict = field(default_factory=dict, repr=False, compare=False)
 
     @property
+    def n_fixed(self) -> int:
+        """Unpenalized parameters: the intercept, and unpenalized columns with a span."""
+        return self.span.c if self.span is not None else int(self.fit_intercept)
+
+    @property
+    def total_weight(self) -> float:
+        """:math:`\\sum_i w_i` (n without weights), the denominator of every mean error."""
+        return self.span.total_weight if self.span is not None else float(self.n_samples)
+
+    @property
     def m(self) -> int:
-        """Rows of the reduced design: n − 1 with an intercept, else n."""
-        return self.n_samples - int(self.fit_intercept)
+        """Rows of the reduced design: n minus the unpenalized parameters."""
+        return self.n_samples - self.n_fixed
 
     @property
     def rank(self) -> int:
@@ -157,12 +174,15 @@ def factor_state(fac, design) -> FactorState:
     ``design`` a :class:`paths.core.design.Design` (``zy``, ``n_samples``,
     ``fit_intercept``); see :func:`state_from_response`.
     """
-    return state_from_response(fac, design.zy, design.n_samples, design.fit_intercept)
+    return state_from_response(fac, design.zy, design.n_samples, design.fit_intercept,
+                               span=getattr(design, "span", None))
 
 
-def state_from_response(fac, zy: np.ndarray, n_samples: int,
-                        fit_intercept: bool) -> FactorState:
+def state_from_response(fac, zy: np.ndarray, n_samples: int, fit_intercept: bool, *,
+                        span=None) -> FactorState:
     """The in-memory :class:`FactorState` of factors ``fac`` and a reduced response ``zy`` (m, t).
+
+    ``span`` is the design's unpenalized span (row weights, unpenalized columns), if any.
 
     The out-of-span residual :math:`y - Uc` is formed once; at full row rank it
     is exactly zero (the computed difference would be rounding, of order
@@ -178,7 +198,7 @@ def state_from_response(fac, zy: np.ndarray, n_samples: int,
     for a in (c, resid, rss_out):
         a.flags.writeable = False
     return FactorState(d=fac.d, vt=fac.vt, uty=c, rss_out=rss_out, n_samples=n_samples,
-                       fit_intercept=fit_intercept, u=u, resid_out=resid)
+                       fit_intercept=fit_intercept, u=u, resid_out=resid, span=span)
 
 
 def _sumsq(a: np.ndarray) -> np.ndarray:
@@ -295,7 +315,7 @@ def penalized_df(d: np.ndarray, lam) -> np.ndarray:
 
 def degrees_of_freedom(state: FactorState, lam) -> np.ndarray:
     """:math:`\\operatorname{tr} H_\\lambda`, the intercept's 1 included, shape (k,)."""
-    return state.fit_intercept + shrinkage(state.d, lam).f.sum(axis=0)
+    return state.n_fixed + shrinkage(state.d, lam).f.sum(axis=0)
 
 
 def residual_dof(state: FactorState, sh: Shrinkage) -> np.ndarray:
@@ -345,6 +365,8 @@ def gcv(state: FactorState, lam, sh: Shrinkage | None = None) -> np.ndarray:
     """
     sh = shrinkage(state.d, lam) if sh is None else sh
     n = state.n_samples
+    if state.span is not None:  # weighted: (RSS_w / sum w) / (1 - df/n)^2
+        n = n * (n / state.total_weight)
     ch, cmax = _c_scaled(state.uty)
     A = np.square(sh.s_rel).T @ np.square(ch)  # (k, t)
     B = sh.s_rel.sum(axis=0)  # (k,)
@@ -407,6 +429,16 @@ def sample_space_blocks(u: np.ndarray, fit_intercept: bool, block: int = _BLOCK_
         yield s, e, rows
 
 
+def state_blocks(state: FactorState, a: np.ndarray, block: int = _BLOCK_ROWS):
+    """:func:`sample_space_blocks` of reduced rows ``a`` for ``state`` (its span, if any)."""
+    if state.span is None:
+        yield from sample_space_blocks(a, state.fit_intercept, block)
+        return
+    full = state.span.to_sample(a)
+    for s in range(0, full.shape[0], block):
+        yield s, min(s + block, full.shape[0]), full[s:s + block]
+
+
 def ell_tolerance(n: int, r: int) -> float:
     """Leverage outside the span below which a row counts as interpolated.
 
@@ -417,16 +449,27 @@ def ell_tolerance(n: int, r: int) -> float:
     return (10.0 * max(n, r) * _EPS) ** 2
 
 
-def naive_ell(state: FactorState, ub: np.ndarray) -> np.ndarray:
-    """:math:`1 - [1/n] - \\|u_i\\|^2` (accurate where it is not small; see refine)."""
+def naive_ell(state: FactorState, ub: np.ndarray, start: int = 0) -> np.ndarray:
+    """:math:`1 - [1/n] - \\|u_i\\|^2` (accurate where it is not small; see refine).
+
+    With a span, :math:`1 - \\|Q_{1,i}\\|^2 - \\|u_i\\|^2` for the rows from ``start``.
+    """
     if state.full_row_rank:
         return np.zeros(ub.shape[0])
-    base = 1.0 - 1.0 / state.n_samples if state.fit_intercept else 1.0
+    if state.span is not None:
+        base = 1.0 - state.span.leverage[start:start + ub.shape[0]]
+    else:
+        base = 1.0 - 1.0 / state.n_samples if state.fit_intercept else 1.0
     return np.maximum(base - np.einsum("ir,ir->i", ub, ub), 0.0)
 
 
-def augment_rows(state: FactorState, ub: np.ndarray) -> np.ndarray:
-    """Rows of :math:`\\tilde U = [1/\\sqrt n,\\ U]` (the intercept column first)."""
+def augment_rows(state: FactorState, ub: np.ndarray, start: int = 0) -> np.ndarray:
+    """Rows of :math:`\\tilde U = [1/\\sqrt n,\\ U]` (the intercept column first).
+
+    With a span, :math:`[Q_1,\\ U]` for the rows from ``start``.
+    """
+    if state.span is not None:
+        return np.hstack([state.span.q1[start:start + ub.shape[0]], ub])
     if not state.fit_intercept:
         return ub
     return np.hstack([np.full((ub.shape[0], 1), 1.0 / np.sqrt(state.n_samples)), ub])
@@ -482,7 +525,7 @@ def refine_leverage(state: FactorState, ua_s: np.ndarray, y_s: np.ndarray,
     cross[:kk] = sig[:, None] * (RQ.T @ w)
     ell = np.square(P) @ delta
     e_perp = P @ (delta[:, None] * (P.T @ y_s) - cross)
-    zero = ell <= ell_tolerance(state.n_samples, state.rank)
+    zero = ell <= ell_tolerance(state.n_samples, state.rank + state.n_fixed)
     ell[zero] = 0.0
     e_perp[zero] = 0.0
     return ell, e_perp
@@ -500,10 +543,9 @@ def leverage_rows(state: FactorState, block: int = _BLOCK_ROWS):
     if "high_leverage" not in state.cache:  # once per state: an extra pass and maybe a QR
         state.cache["high_leverage"] = _refined_rows(state, block)
     fixes = state.cache["high_leverage"]
-    e_blocks = sample_space_blocks(state.resid_out, state.fit_intercept, block)
-    for (s, e, ub), (_, _, eb) in zip(sample_space_blocks(state.u, state.fit_intercept, block),
-                                      e_blocks):
-        ell = naive_ell(state, ub)
+    e_blocks = state_blocks(state, state.resid_out, block)
+    for (s, e, ub), (_, _, eb) in zip(state_blocks(state, state.u, block), e_blocks):
+        ell = naive_ell(state, ub, s)
         ep = np.zeros(eb.shape) if state.full_row_rank else eb.copy()
         if fixes is not None:
             idx, ell_s, ep_s = fixes
@@ -519,24 +561,23 @@ def _refined_rows(state: FactorState, block: int):
     if state.full_row_rank:
         return None
     flagged = []
-    for s, e, ub in sample_space_blocks(state.u, state.fit_intercept, block):
-        flagged.append(s + np.flatnonzero(naive_ell(state, ub) < LEVERAGE_REFINE))
+    for s, e, ub in state_blocks(state, state.u, block):
+        flagged.append(s + np.flatnonzero(naive_ell(state, ub, s) < LEVERAGE_REFINE))
     idx = np.concatenate(flagged)
     if idx.size == 0:
         return None
     t = state.n_targets
-    ra = state.rank + int(state.fit_intercept)
+    ra = state.rank + state.n_fixed
     is_s = np.zeros(state.n_samples, dtype=bool)
     is_s[idx] = True
     ua_s = np.empty((idx.size, ra))
     y_s = np.empty((idx.size, t))
 
     def others():
-        yb_iter = sample_space_blocks(reduced_response(state), state.fit_intercept, block)
-        for (s, e, ub), (_, _, yb) in zip(sample_space_blocks(state.u, state.fit_intercept,
-                                                              block), yb_iter):
+        yb_iter = state_blocks(state, reduced_response(state), block)
+        for (s, e, ub), (_, _, yb) in zip(state_blocks(state, state.u, block), yb_iter):
             keep = ~is_s[s:e]
-            ua = augment_rows(state, ub)
+            ua = augment_rows(state, ub, s)
             sel = idx[(idx >= s) & (idx < e)]
             pos = np.searchsorted(idx, sel)
             ua_s[pos] = ua[sel - s]
@@ -601,16 +642,22 @@ def loo_mse(state: FactorState, lam) -> tuple[np.ndarray, np.ndarray]:
     blk = int(min(_BLOCK_ROWS, max(256, (1 << 19) // max(r, k * t, 1))))
     for _, _, rows in leverage_rows(state, blk):
         total += loo_sums(rows, sh, state.uty)
-    total /= state.n_samples
+    total /= state.total_weight
     return (total[:-1] if added else total), total[-1]
 
 
 def loo_residuals(state: FactorState, lam) -> np.ndarray:
-    """Exact leave-one-out residuals, shape (n, k, t) (in-memory state)."""
+    """Exact leave-one-out residuals :math:`y_i - \\hat y_{(-i)}`, shape (n, k, t) (in memory).
+
+    With row weights, those of the weighted refits without row i (the
+    transformed residual divided by :math:`\\sqrt{w_i}`).
+    """
     sh = shrinkage(state.d, lam)
     out = np.empty((state.n_samples, sh.lam.size, state.n_targets))
     for s, e, rows in leverage_rows(state):
         out[s:e] = _loo_res(rows, sh, state.uty)
+    if state.span is not None:
+        out /= state.span.sqrt_w[:, None, None]
     return out
 
 
@@ -639,12 +686,12 @@ def criteria(state: FactorState, lam, *, loo: bool = True) -> Criteria:
     Cost O(r k t), plus O(n r k t) for leave-one-out; no refit.
     """
     lam = _lam(lam)
-    n = state.n_samples
+    n = state.total_weight
     full, added = append_zero(lam)
     sh = shrinkage(state.d, full)
     g = gcv(state, full, sh)
     train = rss(state, full, sh) / n
-    df = state.fit_intercept + sh.f.sum(axis=0)
+    df = state.n_fixed + sh.f.sum(axis=0)
     looo = loo0 = None
     if loo and state.u is not None:
         looo, loo0 = loo_mse(state, lam)
@@ -685,6 +732,8 @@ def coefficients(state: FactorState, lam, design) -> np.ndarray:
     """
     lam = _lam(lam)
     g = gains(state.d, lam)
+    if state.span is not None:
+        return _span_coefficients(state, g, design)
     k, t = lam.size, state.n_targets
     act = design.active
     inv_scale = 1.0 / design.x_scale[act]
@@ -700,6 +749,24 @@ def coefficients(state: FactorState, lam, design) -> np.ndarray:
         if scaled:
             cj *= inv_scale
         coef[:, act, j] = cj
+    return coef
+
+
+def _span_coefficients(state: FactorState, g: np.ndarray, design) -> np.ndarray:
+    """Coefficients (k, p, t) with a span: penalized ones from the factors, the
+    unpenalized ones :math:`R^{-1}(Q_1^T \\tilde y - Q_1^T \\tilde X \\beta)`.
+
+    The span's intercept coefficient is zero up to rounding (the columns and
+    the response are weighted-centered first), so :func:`intercepts` applies.
+    """
+    k, t = g.shape[1], state.n_targets
+    beta = np.einsum("rq,rk,rt->qkt", state.vt, g, state.uty)  # (q, k, t)
+    fixed = state.span.fixed_coef(beta)[int(state.span.intercept):]  # (c', k, t)
+    coef = np.zeros((k, design.n_features, t))
+    act, unp = design.active, design.unpenalized
+    coef[:, act, :] = np.moveaxis(beta / design.x_scale[act][:, None, None], 0, 1)
+    if unp is not None and unp.any():
+        coef[:, unp, :] = np.moveaxis(fixed / design.x_scale[unp][:, None, None], 0, 1)
     return coef
 
 
@@ -721,6 +788,8 @@ def min_norm_coefficients(state: FactorState, design):
     is the min-norm coefficient norm); ``coef`` the same on the original scale.
     """
     beta0 = (state.uty / state.d[:, None]).T @ state.vt  # (t, q)
+    if state.span is not None:
+        return _span_coefficients(state, (1.0 / state.d)[:, None], design)[0], beta0
     coef0 = np.zeros((design.n_features, state.n_targets))
     coef0[design.active] = (beta0 / design.x_scale[design.active]).T
     return coef0, beta0
@@ -756,6 +825,10 @@ def sample_rows(state: FactorState, idx: np.ndarray, zy: np.ndarray | None = Non
     """
     zy = reduced_response(state) if zy is None else zy
     idx = np.asarray(idx)
+    if state.span is not None:
+        ub = state.span.to_sample(state.u)[idx]
+        yb = state.span.to_sample(zy)[idx]
+        return np.hstack([state.span.q1[idx], ub]), yb
     ub = _rows_of(state.u, idx, state.fit_intercept)
     yb = _rows_of(zy, idx, state.fit_intercept)
     return augment_rows(state, ub), yb
@@ -776,7 +849,7 @@ def _rows_of(a: np.ndarray, idx: np.ndarray, fit_intercept: bool) -> np.ndarray:
     return out
 
 
-def kfold_dual_mse(state: FactorState, idx: np.ndarray, lam, *,
+def kfold_dual_mse(state: FactorState, idx: np.ndarray, lam, *, weight: float | None = None,
                    chunk_elems: int = 1 << 22) -> np.ndarray:
     """Held-out MSE (k, t) of one fold at full row rank (the dual form).
 
@@ -788,9 +861,15 @@ def kfold_dual_mse(state: FactorState, idx: np.ndarray, lam, *,
     finite at every :math:`\\lambda \\ge 0`, and at 0 the limit of the per-fold
     minimum-norm refits.  The :math:`b \\times b` blocks of all penalties come
     from one product :math:`(k \\times r)(r \\times b^2)` and a batched solve.
+    The mean is over ``weight`` (the fold's :math:`\\sum_i w_i`; its size by default).
     """
     sh = shrinkage(state.d, lam)
-    uf = _rows_of(state.u, np.asarray(idx), state.fit_intercept)  # (b, r)
+    idx = np.asarray(idx)
+    if state.span is not None:
+        uf = state.span.to_sample(state.u)[idx]
+    else:
+        uf = _rows_of(state.u, idx, state.fit_intercept)  # (b, r)
+    weight = float(idx.size) if weight is None else float(weight)
     b, r = uf.shape
     P = (uf[:, None, :] * uf[None, :, :]).reshape(b * b, r).T  # (r, b*b)
     k, t = sh.lam.size, state.n_targets
@@ -801,7 +880,7 @@ def kfold_dual_mse(state: FactorState, idx: np.ndarray, lam, *,
         A = (w @ P).reshape(w.shape[0], b, b)
         rhs = np.einsum("ir,kr,rt->kit", uf, w, state.uty)
         res = np.linalg.solve(A, rhs)
-        out[s:s + step] = np.mean(np.square(res), axis=1)
+        out[s:s + step] = np.sum(np.square(res), axis=1) / weight
     return out
 
 
@@ -811,19 +890,21 @@ def fold_factor(ua: np.ndarray, yc: np.ndarray) -> np.ndarray:
 
 
 def kfold_fold_mse(d: np.ndarray, fold_r: np.ndarray, counts: np.ndarray, lam, *,
-                   fit_intercept: bool, rtol: float | None = None) -> np.ndarray:
+                   n_fixed: int, rtol: float | None = None) -> np.ndarray:
     """Exact K-fold held-out MSE per fold, shape (K, k, t), from per-fold triangular factors.
 
     Parameters
     ----------
     d : ndarray, shape (r,)
     fold_r : ndarray, shape (K, ra + t, ra + t)
-        :func:`fold_factor` of every fold (``ra = r + fit_intercept``; the
-        intercept column :math:`1/\\sqrt n` first).
+        :func:`fold_factor` of every fold (``ra = r + n_fixed``; the unpenalized
+        columns first: the intercept's :math:`1/\\sqrt n`, or the span's basis).
     counts : ndarray, shape (K,)
-        Rows per fold.
+        Rows per fold (with row weights, the fold's :math:`\\sum_i w_i`): the
+        denominator of its mean error.
     lam : array_like, shape (k,)
-    fit_intercept : bool
+    n_fixed : int
+        Unpenalized columns (:attr:`FactorState.n_fixed`).
     rtol : float, optional
         Relative tolerance below which a direction of the training folds counts
         as absent (default ``max(sum(counts), r)·eps``).
@@ -846,7 +927,7 @@ def kfold_fold_mse(d: np.ndarray, fold_r: np.ndarray, counts: np.ndarray, lam, *
     lam = _lam(lam)
     K, w_all, _ = fold_r.shape
     r = d.size
-    ra = r + int(fit_intercept)
+    ra = r + int(n_fixed)
     t = w_all - ra
     if rtol is None:
         rtol = max(int(np.sum(counts)), r) * _EPS
@@ -861,7 +942,7 @@ def kfold_fold_mse(d: np.ndarray, fold_r: np.ndarray, counts: np.ndarray, lam, *
         Ro = _qr_r(np.vstack([prefix[f], suffix[f]]), w_all)
         if Ro.shape[0] < w_all:
             Ro = np.vstack([Ro, np.zeros((w_all - Ro.shape[0], w_all))])
-        X = _refit_coords(Ro, d, lam, ra, fit_intercept, rtol)  # (ra, k, t)
+        X = _refit_coords(Ro, d, lam, ra, int(n_fixed), rtol)  # (ra, k, t)
         Rf = fold_r[f]
         fit = np.einsum("ij,jkt->ikt", Rf[:ra, :ra], X)
         res = Rf[:ra, None, ra:] - fit
@@ -870,10 +951,13 @@ def kfold_fold_mse(d: np.ndarray, fold_r: np.ndarray, counts: np.ndarray, lam, *
     return out
 
 
-def _refit_coords(Ro, d, lam, ra, fit_intercept, rtol):
-    """Coefficients (ra, k, t) on :math:`\\tilde U` of the ridge refit with factor ``Ro``."""
+def _refit_coords(Ro, d, lam, ra, o, rtol):
+    """Coefficients (ra, k, t) on :math:`\\tilde U` of the ridge refit with factor ``Ro``.
+
+    The first ``o`` columns are unpenalized: eliminated by back substitution on
+    their triangular block after the penalized part is solved.
+    """
     t = Ro.shape[1] - ra
-    o = int(fit_intercept)
     Rg, wg = Ro[o:ra, o:ra], Ro[o:ra, ra:]
     M = Rg * d[None, :]
     P, sig, Wt = np.linalg.svd(M)
@@ -886,7 +970,7 @@ def _refit_coords(Ro, d, lam, ra, fit_intercept, rtol):
     xg = d[:, None, None] * b
     X = np.empty((ra, lam.size, t))
     X[o:] = xg
-    if fit_intercept:
-        rho = Ro[0, 0]
-        X[0] = (Ro[0, ra:][None, :] - np.einsum("j,jkt->kt", Ro[0, 1:ra], xg)) / rho
+    if o:
+        rhs = Ro[:o, ra:][:, None, :] - np.einsum("ij,jkt->ikt", Ro[:o, o:ra], xg)
+        X[:o] = sla.solve_triangular(Ro[:o, :o], rhs.reshape(o, -1)).reshape(o, lam.size, t)
     return X

@@ -16,8 +16,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from paths.data.validation import InputError, as_design, as_lambdas, as_response, feature_names_of
-from paths.core.design import Design, prepare, to_sample_space
+from paths.data.validation import (InputError, as_design, as_lambdas, as_response, as_weights,
+                                   feature_names_of)
+from paths.core.design import Design, prepare, prepare_weighted, to_sample_space
 from paths.core.factor import Factorization, factorize
 from paths.core.grid import default_grid
 from paths.core import algebra
@@ -116,6 +117,10 @@ class RidgePath:
     uty : ndarray, shape (rank, t)
         :math:`U^T y` on the reduced response.
     penalty_convention : str
+    unpenalized : list of str
+        Columns left out of the penalty (``unpenalized=``).
+    weighted : bool
+        Fitted with row weights (``sample_weight=``): every error is weighted.
     """
 
     lambdas: np.ndarray
@@ -145,6 +150,8 @@ class RidgePath:
     uty: np.ndarray = field(repr=False)
     penalty_convention: str = PENALTY_CONVENTION
     state: FactorState | None = field(default=None, repr=False, compare=False)
+    unpenalized: list = field(default_factory=list)
+    weighted: bool = False
 
     # ------------------------------------------------------------------ helpers
     @property
@@ -159,8 +166,14 @@ class RidgePath:
 
     @property
     def coef_norm(self) -> np.ndarray:
-        """:math:`\\|\\beta_\\lambda\\|_2` on the scale the penalty acts on, shape (k,) or (k, t)."""
-        return np.sqrt(np.sum(np.square(self.coef_std), axis=1))
+        """:math:`\\|\\beta_\\lambda\\|_2` on the scale the penalty acts on, shape (k,) or (k, t).
+
+        Unpenalized columns are left out (the penalty does not act on them).
+        """
+        cs = self.coef_std
+        if self.design.unpenalized is not None:
+            cs = cs[:, ~self.design.unpenalized]
+        return np.sqrt(np.sum(np.square(cs), axis=1))
 
     def index_min(self, criterion: str = "gcv", target: int = 0) -> int:
         """Grid index minimizing ``"gcv"``, ``"loo"``/``"loo_mse"``, ``"train"`` or ``"test"``."""
@@ -221,9 +234,13 @@ class RidgePath:
                 "pass the same features in the same order"
             )
         lam_arr = as_lambdas(lam)
-        gains = algebra.gains(self.factorization.d, lam_arr)  # (r, k)
-        proj = self.design.transform(X) @ self.factorization.vt.T  # (n_new, r)
-        pred = self.design.y_mean + algebra.project(proj, gains, self.uty)
+        if self.design.span is not None:  # unpenalized part: through the coefficients
+            coef = algebra.coefficients(self._state(), lam_arr, self.design)  # (k, p, t)
+            pred = np.einsum("np,kpt->nkt", X, coef) + algebra.intercepts(coef, self.design)
+        else:
+            gains = algebra.gains(self.factorization.d, lam_arr)  # (r, k)
+            proj = self.design.transform(X) @ self.factorization.vt.T  # (n_new, r)
+            pred = self.design.y_mean + algebra.project(proj, gains, self.uty)
         if not self.multi_target:
             pred = pred[..., 0]
         return pred[:, 0] if np.ndim(lam) == 0 else pred
@@ -249,6 +266,10 @@ def fit_path(
     n_lambdas: int = 100,
     rtol: float | None = None,
     return_fitted: bool = False,
+    sample_weight=None,
+    unpenalized=None,
+    relative_penalty=None,
+    test_weight=None,
 ) -> RidgePath:
     """The ridge regularization path, with its criteria, from one factorization.
 
@@ -278,6 +299,23 @@ def fit_path(
         count as zero.  Default ``max(n, p) * eps`` (numpy's ``pinv`` default).
     return_fitted : bool
         Also return the training-set fitted values (k × n).
+    sample_weight : array_like, shape (n,), optional
+        Positive row weights: minimize
+        :math:`\\sum_i w_i (y_i - b_0 - x_i\\beta)^2 + \\lambda\\|\\beta\\|^2` with
+        weighted centering and weighted population scaling (scikit-learn's
+        ``Ridge(alpha).fit(X, y, sample_weight=w)``).  Every criterion is then
+        weighted: training and test error, GCV, leave-one-out and K-fold errors
+        are :math:`\\sum_i w_i e_i^2 / \\sum_i w_i` (leave-one-out and K-fold from
+        the weighted refits without the rows left out).
+    unpenalized : sequence of str or int, or bool mask, optional
+        Columns left out of the penalty (names, glob patterns or indices), like
+        the intercept; df counts them.
+    relative_penalty : mapping or array_like, optional
+        ``{pattern: W}`` (or one factor per column): column j is penalized by
+        :math:`W_j \\lambda`, :math:`W_j > 0`.
+    test_weight : array_like, shape (n_test,), optional
+        Weights of the test rows (default 1): test error
+        :math:`\\sum_i w_i e_i^2/\\sum_i w_i`.
 
     Returns
     -------
@@ -364,8 +402,21 @@ def fit_path(
             )
         Yt = Yt if multi else Yt[:, None]
     lam_user = None if lambdas is None else as_lambdas(lambdas)
+    names = names if names is not None else [f"x{j}" for j in range(p)]
+    general = _penalty_spec(names, n, sample_weight, unpenalized, relative_penalty)
+    Wt = None
+    if test_weight is not None:
+        if not has_test:
+            raise InputError("test_weight needs X_test and y_test")
+        Wt = as_weights(test_weight, X_test.shape[0], "test_weight")
 
-    design, z = prepare(X, Y, fit_intercept=fit_intercept, standardize=standardize)
+    def prep():
+        if general is None:
+            return prepare(X, Y, fit_intercept=fit_intercept, standardize=standardize)
+        return prepare_weighted(X, Y, fit_intercept=fit_intercept, standardize=standardize,
+                                names=names, **general)
+
+    design, z = prep()
     if not design.active.any():
         raise InputError(
             f"every one of the {p} columns of X is constant; nothing to fit — "
@@ -376,7 +427,7 @@ def fit_path(
     try:
         fac = factorize(z, solver=solver, rtol=rtol, overwrite=True)
     except np.linalg.LinAlgError:  # gesdd failed after overwriting z: rebuild, use gesvd
-        design, z = prepare(X, Y, fit_intercept=fit_intercept, standardize=standardize)
+        design, z = prep()
         fac = factorize(z, solver="svd", rtol=rtol, overwrite=False)
     del z
     if fac.rank == 0:
@@ -393,14 +444,26 @@ def fit_path(
         )
     lam = default_grid(fac.d, n_lambdas) if lam_user is None else lam_user
     return path_from_factors(
-        design, fac, lam, feature_names=names if names is not None else [f"x{j}" for j in range(p)],
-        multi_target=multi, X_test=X_test if has_test else None, Y_test=Yt if has_test else None,
-        return_fitted=return_fitted)
+        design, fac, lam, feature_names=names, multi_target=multi,
+        X_test=X_test if has_test else None, Y_test=Yt if has_test else None, test_weight=Wt,
+        X_train=X if return_fitted else None, return_fitted=return_fitted)
+
+
+def _penalty_spec(names, n, sample_weight, unpenalized, relative_penalty) -> dict | None:
+    """Keyword arguments of :func:`paths.core.design.prepare_weighted`, or None (plain ridge)."""
+    from paths.core.penalties import penalty_factors, unpenalized_mask
+
+    w = None if sample_weight is None else as_weights(sample_weight, n)
+    unp = unpenalized_mask(unpenalized, names)
+    pf = penalty_factors(relative_penalty, names)
+    if w is None and unp is None and pf is None:
+        return None
+    return {"sample_weight": w, "unpenalized": unp, "penalty_factor": pf}
 
 
 def path_from_factors(design: Design, fac: Factorization, lambdas, *, feature_names,
-                      multi_target: bool = False, X_test=None, Y_test=None,
-                      return_fitted: bool = False) -> RidgePath:
+                      multi_target: bool = False, X_test=None, Y_test=None, test_weight=None,
+                      X_train=None, return_fitted: bool = False) -> RidgePath:
     """Assemble a :class:`RidgePath` from a prepared design and its factorization.
 
     The step of :func:`fit_path` after the factorization; also used to rebuild a
@@ -420,6 +483,10 @@ def path_from_factors(design: Design, fac: Factorization, lambdas, *, feature_na
     X_test : ndarray, shape (n_test, p), optional
     Y_test : ndarray, shape (n_test, t), optional
         Validated held-out rows and responses (two-dimensional).
+    test_weight : ndarray, shape (n_test,), optional
+    X_train : ndarray, shape (n, p), optional
+        The training design, needed for ``return_fitted`` with a span (weights
+        or unpenalized columns).
     return_fitted : bool
 
     Returns
@@ -449,12 +516,18 @@ def path_from_factors(design: Design, fac: Factorization, lambdas, *, feature_na
     n_test = 0
     if has_test:
         n_test = X_test.shape[0]
-        proj = design.transform(X_test) @ fac.vt.T  # (n_test, r), once per test set
-        sums, sums0 = algebra.test_sums(state, lam, proj, Yt - design.y_mean)
-        test_mse, test0 = sums / n_test, sums0 / n_test
+        if design.span is None and test_weight is None:
+            proj = design.transform(X_test) @ fac.vt.T  # (n_test, r), once per test set
+            sums, sums0 = algebra.test_sums(state, lam, proj, Yt - design.y_mean)
+            test_mse, test0 = sums / n_test, sums0 / n_test
+        else:
+            test_mse, test0 = _weighted_test_error(X_test, Yt, test_weight, coef, intercept,
+                                                   coef0, intercept0)
 
     fitted = None
-    if return_fitted:
+    if return_fitted and design.span is not None:
+        fitted = np.einsum("np,kpt->knt", X_train, coef) + intercept[:, None, :]
+    elif return_fitted:
         F = algebra.fractions(fac.d, lam)
         fitted_c = to_sample_space(fac.u @ (F[:, :, None] * c[:, None, :]).reshape(r, -1),
                                    fit_intercept)
@@ -465,7 +538,8 @@ def path_from_factors(design: Design, fac: Factorization, lambdas, *, feature_na
 
     min_norm = MinNormFit(
         coef=sq(coef0), intercept=sq(intercept0), train_mse=sq(crit.train_mse0),
-        gcv=sq(crit.gcv0), loo_mse=sq(crit.loo_mse0), test_mse=sq(test0), df=float(fit_intercept + r),
+        gcv=sq(crit.gcv0), loo_mse=sq(crit.loo_mse0), test_mse=sq(test0),
+        df=float(design.n_fixed + r),
         coef_norm=sq(algebra.coef_norm(beta0)), rank=r,
     )
     out = dict(
@@ -473,11 +547,24 @@ def path_from_factors(design: Design, fac: Factorization, lambdas, *, feature_na
         loo_mse=sq(crit.loo_mse), test_mse=sq(test_mse), fitted=sq(fitted),
     )
     _freeze(*out.values(), df, c, *(v for v in vars(min_norm).values()))
+    unpen = design.unpenalized
     return RidgePath(
+        unpenalized=[] if unpen is None else [feature_names[j] for j in np.flatnonzero(unpen)],
+        weighted=design.sample_weight is not None,
         lambdas=lam, df=df, rank=r, rank_tol=fac.tol, singular_values=fac.d,
         condition_number=fac.condition_number, min_norm=min_norm, solver=fac.solver,
         solver_reason=fac.reason, n_samples=n, n_features=p, n_test=n_test,
         fit_intercept=fit_intercept, standardize=design.standardize,
-        feature_names=list(feature_names), design=design, factorization=fac, uty=c,
-        state=state, **out,
+        feature_names=list(feature_names), design=design, factorization=fac, uty=c, state=state,
+        **out,
     )
+
+
+def _weighted_test_error(X_test, Yt, w, coef, intercept, coef0, intercept0):
+    """Test error :math:`\\sum_i w_i e_i^2 / \\sum_i w_i` on the grid (k, t) and at 0 (t,)."""
+    w = np.ones(X_test.shape[0]) if w is None else w
+    pred = np.einsum("np,kpt->knt", X_test, coef) + intercept[:, None, :]
+    res = Yt[None, :, :] - pred
+    mse = np.einsum("n,knt->kt", w, np.square(res)) / w.sum()
+    res0 = Yt - (X_test @ coef0 + intercept0)
+    return mse, (w @ np.square(res0)) / w.sum()

@@ -461,7 +461,7 @@ class HatPass:
         width = self.ra + self.t
         fold_r = np.stack([algebra.tsqr([R], width) for R in self.fold_r])
         fold_mse = algebra.kfold_fold_mse(self.fit.fac.d, fold_r, self.count, self.lam,
-                                          fit_intercept=self.fit.design.fit_intercept)
+                                          n_fixed=self.state.n_fixed)
         w = self.count / self.fit.design.n_samples
         mse = np.einsum("f,fkt->kt", w, fold_mse)
         se = fold_mse.std(axis=0, ddof=1) / np.sqrt(self.n_folds)

@@ -315,6 +315,7 @@ class CVResult:
     method_reason: str
     multi_target: bool = False
     _engine: object = field(default=None, repr=False, compare=False)
+    fold_weights: np.ndarray | None = None
 
     def at(self, lam):
         """``(mse, se)`` at any penalties (arrays shaped like ``mse``), same folds, no refit.
@@ -324,7 +325,8 @@ class CVResult:
         """
         lam = as_lambdas(lam)
         fold = self._engine.fold_mse(lam)  # (R, K, k, t)
-        mse, se, _ = _summarize(fold, self.fold_sizes)
+        mse, se, _ = _summarize(fold, self.fold_sizes if self.fold_weights is None
+                                else self.fold_weights)
         if not self.multi_target:
             mse, se = mse[..., 0], se[..., 0]
         return mse, se
@@ -354,6 +356,10 @@ class _ExactEngine:
         self.dual = state.full_row_rank
         self.folds = [[np.flatnonzero(lab == f) for f in range(int(lab.max()) + 1)]
                       for lab in labels_list]
+        # with row weights, a fold's mean error is sum_i w_i e_i^2 / sum_i w_i
+        w = None if state.span is None else np.square(state.span.sqrt_w)
+        self.weights = [np.array([idx.size if w is None else w[idx].sum() for idx in folds])
+                        for folds in self.folds]
         self.fold_r = []
         if not self.dual:
             zy = algebra.reduced_response(state)
@@ -367,13 +373,12 @@ class _ExactEngine:
 
     def fold_mse(self, lam):
         if self.dual:
-            return np.stack([np.stack([algebra.kfold_dual_mse(self.state, idx, lam,
-                                                              chunk_elems=_CHUNK_ELEMS)
-                                       for idx in folds]) for folds in self.folds])
+            return np.stack([np.stack([
+                algebra.kfold_dual_mse(self.state, idx, lam, weight=wf, chunk_elems=_CHUNK_ELEMS)
+                for idx, wf in zip(folds, wts)]) for folds, wts in zip(self.folds, self.weights)])
         return np.stack([
-            algebra.kfold_fold_mse(self.state.d, R, np.array([i.size for i in folds]), lam,
-                                   fit_intercept=self.state.fit_intercept)
-            for R, folds in zip(self.fold_r, self.folds)])
+            algebra.kfold_fold_mse(self.state.d, R, wts, lam, n_fixed=self.state.n_fixed)
+            for R, wts in zip(self.fold_r, self.weights)])
 
 
 class _RefitEngine:
@@ -436,6 +441,9 @@ def cross_validate(
     solver: str = "auto",
     n_lambdas: int = 100,
     cost_model: CostModel | None = None,
+    sample_weight=None,
+    unpenalized=None,
+    relative_penalty=None,
 ) -> CVResult:
     """K-fold cross-validation errors for every penalty, without refitting per penalty.
 
@@ -470,6 +478,11 @@ def cross_validate(
     fit_intercept, standardize, solver, n_lambdas
         As in :func:`paths.path.fit_path` (ignored when ``path`` is given).
     cost_model : CostModel, optional
+    sample_weight, unpenalized, relative_penalty
+        As in :func:`paths.path.fit_path` (taken from ``path`` when given).
+        With row weights the error is :math:`\\sum_i w_i e_{(-f),i}^2 / \\sum_i w_i`
+        from the weighted refits without each fold; weights and unpenalized
+        columns need ``scaling="global"`` and are always exact (no refit route).
 
     Returns
     -------
@@ -526,12 +539,18 @@ def cross_validate(
     Y = Ya if multi else Ya[:, None]
     if path is None:
         path = fit_path(X, y, lambdas, fit_intercept=fit_intercept, standardize=standardize,
-                        solver=solver, n_lambdas=n_lambdas)
+                        solver=solver, n_lambdas=n_lambdas, sample_weight=sample_weight,
+                        unpenalized=unpenalized, relative_penalty=relative_penalty)
     elif path.n_samples != n or path.n_features != Xa.shape[1]:
         raise InputError(
             f"path was fitted on {path.n_samples} x {path.n_features} data but X is "
             f"{n} x {Xa.shape[1]}; pass the same data"
         )
+    elif sample_weight is not None and (path.design.sample_weight is None or not np.array_equal(
+            np.asarray(sample_weight, dtype=float), path.design.sample_weight)):
+        raise InputError("sample_weight differs from the weights the path was fitted with; "
+                         "pass the same weights (or none: the path's are used)")
+    span = path.design.span
     lam = path.lambdas if lambdas is None else as_lambdas(lambdas)
     labels = np.stack([
         make_folds(n, n_folds, scheme=scheme, seed=seed, groups=groups, repeat=i,
@@ -540,8 +559,18 @@ def cross_validate(
     ])
     K = int(labels.max()) + 1
     sizes = np.stack([np.bincount(lab, minlength=K) for lab in labels])
+    fold_w = None
+    if span is not None:
+        w = np.square(span.sqrt_w)
+        fold_w = np.stack([np.bincount(lab, weights=w, minlength=K) for lab in labels])
     fac = path.factorization
-    if scaling == "per-fold":
+    if span is not None:
+        if scaling == "per-fold" or method == "refit":
+            raise InputError("with row weights, unpenalized columns or relative penalties, "
+                             "K-fold CV is exact from the full-data factors only; use "
+                             "scaling='global' and method='exact' (CLI: --cv-scaling global)")
+        route, reason = "exact", "exact: row weights / unpenalized columns (no refit route)"
+    elif scaling == "per-fold":
         route, reason = "refit", "refit: per-fold scaling cannot be read off the full-data factors"
     elif method != "auto":
         route, reason = method, "requested"
@@ -555,6 +584,10 @@ def cross_validate(
         try:
             fold = engine.fold_mse(lam)
         except np.linalg.LinAlgError:
+            if span is not None:
+                raise InputError("a fold's block I - H_ff is singular (its rows carry "
+                                 "parameters no other fold sees); use fewer, larger folds") \
+                    from None
             route, engine = "refit", None
             reason = "refit: a fold block I - H_ff was singular at some penalty"
     if engine is None:
@@ -562,7 +595,7 @@ def cross_validate(
                               standardize=path.standardize, scaling=scaling, solver=path.solver
                               if path.solver in ("svd", "gram") else "auto", design=path.design)
         fold = engine.fold_mse(lam)
-    mse, se, se_rep = _summarize(fold, sizes)
+    mse, se, se_rep = _summarize(fold, sizes if fold_w is None else fold_w)
     if not multi:
         mse, se, fold = mse[..., 0], se[..., 0], fold[..., 0]
         se_rep = None if se_rep is None else se_rep[..., 0]
@@ -572,7 +605,8 @@ def cross_validate(
     return CVResult(lambdas=lam, mse=mse, se=se, se_repeats=se_rep, fold_mse=fold,
                     fold_sizes=sizes, labels=labels, n_folds=K, repeats=repeats, seed=seed,
                     scheme=scheme, scaling=scaling, method=route, form=engine.form,
-                    method_reason=reason, multi_target=multi, _engine=engine)
+                    method_reason=reason, multi_target=multi, _engine=engine,
+                    fold_weights=fold_w)
 
 
 def loo_residuals(path, lam) -> np.ndarray:
