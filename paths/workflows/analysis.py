@@ -309,6 +309,27 @@ def write_saved_fit(dest: Path, result: RidgePath, selection, data: Dataset,
                     input_sha256=input_sha256, **header_kw)
 
 
+def write_engine_fit(dest: Path, result, targets, source: str, input_sha256=None) -> Path:
+    """A predict-only ``fit.npz`` of an out-of-memory engine's path (its grid minima as rules;
+    the reported one: K-fold CV when computed, else GCV)."""
+    from paths.present.fitfile import save_fit
+
+    def grid_min(values):
+        if values is None:
+            return None
+        v = np.asarray(values, dtype=float).reshape(result.lambdas.size, -1)
+        return [float(result.lambdas[int(np.argmin(v[:, j]))]) for j in range(v.shape[1])]
+
+    rules = {"gcv": grid_min(result.gcv), "loo": grid_min(result.loo_mse),
+             "cv": grid_min(result.cv_mse)}
+    rule = "cv" if rules["cv"] is not None else "gcv"
+    prep = {"source_columns": list(result.feature_names), "encoding": {}, "id_column": None,
+            "drop_missing": None, "target_names": list(targets), "source": source}
+    return save_fit(dest, result, reported=np.array(rules[rule]),
+                    reported_rule=f"{rule} (grid minimum)", rules=rules, preparation=prep,
+                    input_sha256=input_sha256)
+
+
 def _selection(result, X, y, *, cv, repeats, groups, folds, cv_scaling, seed, rule):
     """K-fold CV (when asked) and every selection rule; ``(report, cv record, CVResult)``."""
     from paths.data.validation import InputError
@@ -378,17 +399,30 @@ def _columns_and_shape(path: Path, sep=None):
             raise InputError(f"{path}: not a readable Parquet file ({exc}); check the file") from None
         return names, rows
     if suffix == ".npy":
-        arr = np.load(path, mmap_mode="r")
+        try:
+            arr = np.load(path, mmap_mode="r", allow_pickle=False)
+        except (ValueError, OSError, EOFError) as exc:  # object (pickled), truncated, not .npy
+            msg = " ".join(str(exc).split())[:160] or type(exc).__name__
+            raise InputError(f"{path} is not a readable NumPy file ({msg}); save it with "
+                             "numpy.save, without object arrays") from None
+        if arr.ndim != 2:
+            raise InputError(f"{path}: the array has shape {arr.shape}; the streaming engines "
+                             "read a 2-D array (rows x columns)")
         return None, int(arr.shape[0])
     import pandas as pd
 
     if sep is None:
         sep = "\t" if suffix in (".tsv", ".tab") else ","
     try:
-        return [str(c) for c in pd.read_csv(path, sep=sep, nrows=0).columns], None
+        names = [str(c) for c in pd.read_csv(path, sep=sep, nrows=0).columns]
     except Exception as exc:  # noqa: BLE001
         raise InputError(f"{path} could not be read ({type(exc).__name__}); check the delimiter "
                          "(--sep) and that it is UTF-8 text") from None
+    with open(path, "rb") as fh:  # a header without data rows: refused here, not mid-pass
+        fh.readline()
+        if not any(line.strip() for line in fh):
+            raise InputError(f"{path} has a header row but no data rows; add data rows")
+    return names, None
 
 
 def _resolve_features(names, targets, features, exclude):
@@ -456,6 +490,9 @@ def explore_engine(
     path = Path(data)
     if not path.exists():
         raise InputError(f"{path}: no such file or folder; check the path")
+    if not (path.is_file() or path.is_dir()):  # a FIFO or device would block the reader
+        raise InputError(f"{path} is not a regular file (a pipe or a device); save the data "
+                         "to a file and pass that")
     targets = [x for t in ([target] if isinstance(target, str) else list(target))
                for x in str(t).split(",") if x]
     folder = OutputFolder(out_dir, force=force, inputs=[path, *([] if test is None else [test])])
@@ -504,9 +541,14 @@ def explore_engine(
         else:
             from paths.engines.dask_cluster import dask_path
 
-            result = dask_path(path, target=targets, features=feats, chunk_rows=chunk_rows,
+            # a remote scheduler's workers do not share our working folder: absolute paths
+            remote = scheduler is not None
+            result = dask_path(path.resolve() if remote else path, target=targets,
+                               features=feats, chunk_rows=chunk_rows,
                                accurate=accurate, scheduler=scheduler, timeout=timeout,
-                               standardize=standardize, test=test, n_lambdas=n_lambdas, cv=cv,
+                               standardize=standardize,
+                               test=Path(test).resolve() if remote and test is not None else test,
+                               n_lambdas=n_lambdas, cv=cv,
                                cv_seed=cv_seed, rank=rank, progress=progress)
         cv_record = None
         if result.cv_mse is not None:
@@ -542,6 +584,8 @@ def explore_engine(
 
             summary["report"] = report_numbers(summary)
         files.append(write_json(out / "summary.json", summary))
+        if result.coef is not None and result.engine != "wide":  # wide: no right factors kept
+            files.append(write_engine_fit(out / "fit.npz", result, targets, str(path), digests))
         if drawable:
             files += write_explore_outputs(result, summary, out, formats=formats or (),
                                            width=width, x=x_axis, report=report)

@@ -59,17 +59,13 @@ def _choose(saved: SavedFit, lam, rule) -> tuple[np.ndarray, str]:
 
 
 def _check_out(out: Path, inputs, force: bool) -> None:
-    from paths.data.output import OutputError
+    from paths.data.output import OutputError, input_at
 
     if out.is_dir():
         raise OutputError(f"--out {out} is a folder; give a file name such as predictions.csv")
-    for src in inputs:
-        try:
-            same = out.exists() and Path(src).exists() and out.samefile(src)
-        except OSError:
-            same = False
-        if same:
-            raise OutputError(f"--out {out} is the input file {src}; choose another --out")
+    src = input_at(out, inputs)  # resolved path or inode: the one check of every command
+    if src is not None:
+        raise OutputError(f"--out {out} is the input file {src}; choose another --out")
     if out.exists() and not force:
         raise OutputError(f"{out} exists; choose another --out or pass --force to overwrite it")
     if not out.parent.is_dir():
@@ -100,6 +96,14 @@ def prediction_columns(saved: SavedFit, id_name: str, intervals: bool) -> list:
 
 
 def _intervals(saved: SavedFit, X, lams, level):
+    if saved.path is None:
+        raise InputError("--intervals needs the full fit; this fit.npz is predict-only (written "
+                         "by an out-of-memory engine, which keeps no left factors): refit with "
+                         "--engine memory or predict without --intervals")
+    if saved.path.design.span is not None:
+        raise InputError("--intervals is not available for a fit with row weights, unpenalized "
+                         "columns or relative penalties (the conformal intervals assume the "
+                         "plain intercept); predict without --intervals")
     import paths
 
     try:
