@@ -76,6 +76,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import scipy.linalg as sla
+from scipy.special import logsumexp
 
 __all__ = [
     "FactorState", "factor_state", "state_from_response", "Shrinkage", "shrinkage", "gains", "fractions",
@@ -853,6 +854,19 @@ def kfold_dual_mse(state: FactorState, idx: np.ndarray, lam, *, weight: float | 
                    chunk_elems: int = 1 << 22) -> np.ndarray:
     """Held-out MSE (k, t) of one fold at full row rank (the dual form).
 
+    The mean is over ``weight`` (the fold's :math:`\\sum_i w_i`; its size by
+    default); see :func:`kfold_dual_residuals`.
+    """
+    idx = np.asarray(idx)
+    weight = float(idx.size) if weight is None else float(weight)
+    res = kfold_dual_residuals(state, idx, lam, chunk_elems=chunk_elems)
+    return np.sum(np.square(res), axis=0) / weight
+
+
+def kfold_dual_residuals(state: FactorState, idx: np.ndarray, lam, *,
+                         chunk_elems: int = 1 << 22) -> np.ndarray:
+    """Held-out residuals (b, k, t) of one fold at full row rank (the dual form).
+
     At full row rank :math:`I - H = \\tilde U S \\tilde U^T` (sample-space
     :math:`\\tilde U` without the ones column) and :math:`e = \\tilde U S c`, so
     with the scaled complements :math:`\\hat s` (module notes) the common
@@ -860,8 +874,8 @@ def kfold_dual_mse(state: FactorState, idx: np.ndarray, lam, *, weight: float | 
     :math:`e_{(-f)} = [U_f \\hat S U_f^T]^{-1} U_f \\hat S c` — no subtraction,
     finite at every :math:`\\lambda \\ge 0`, and at 0 the limit of the per-fold
     minimum-norm refits.  The :math:`b \\times b` blocks of all penalties come
-    from one product :math:`(k \\times r)(r \\times b^2)` and a batched solve.
-    The mean is over ``weight`` (the fold's :math:`\\sum_i w_i`; its size by default).
+    from one product :math:`(k \\times r)(r \\times b^2)` (per penalty when that
+    factor would be too large) and a batched solve.
     """
     sh = shrinkage(state.d, lam)
     idx = np.asarray(idx)
@@ -869,18 +883,20 @@ def kfold_dual_mse(state: FactorState, idx: np.ndarray, lam, *, weight: float | 
         uf = state.span.to_sample(state.u)[idx]
     else:
         uf = _rows_of(state.u, idx, state.fit_intercept)  # (b, r)
-    weight = float(idx.size) if weight is None else float(weight)
     b, r = uf.shape
-    P = (uf[:, None, :] * uf[None, :, :]).reshape(b * b, r).T  # (r, b*b)
+    P = (uf[:, None, :] * uf[None, :, :]).reshape(b * b, r).T if r * b * b <= chunk_elems \
+        else None
     k, t = sh.lam.size, state.n_targets
-    out = np.empty((k, t))
+    out = np.empty((b, k, t))
     step = max(1, chunk_elems // max(b * b, r * b))
     for s in range(0, k, step):
         w = sh.s_rel[:, s:s + step].T  # (kc, r)
-        A = (w @ P).reshape(w.shape[0], b, b)
+        if P is not None:
+            A = (w @ P).reshape(w.shape[0], b, b)
+        else:
+            A = np.stack([(uf * wk) @ uf.T for wk in w])
         rhs = np.einsum("ir,kr,rt->kit", uf, w, state.uty)
-        res = np.linalg.solve(A, rhs)
-        out[s:s + step] = np.sum(np.square(res), axis=1) / weight
+        out[:, s:s + step] = np.moveaxis(np.linalg.solve(A, rhs), 0, 1)
     return out
 
 
@@ -931,23 +947,53 @@ def kfold_fold_mse(d: np.ndarray, fold_r: np.ndarray, counts: np.ndarray, lam, *
     t = w_all - ra
     if rtol is None:
         rtol = max(int(np.sum(counts)), r) * _EPS
-    prefix = [np.zeros((0, w_all))]
-    for f in range(K - 1):
-        prefix.append(_qr_r(np.vstack([prefix[-1], fold_r[f]]), w_all))
-    suffix = [np.zeros((0, w_all))] * K
-    for f in range(K - 1, 0, -1):
-        suffix[f - 1] = _qr_r(np.vstack([fold_r[f], suffix[f]]), w_all)
     out = np.empty((K, lam.size, t))
-    for f in range(K):
-        Ro = _qr_r(np.vstack([prefix[f], suffix[f]]), w_all)
-        if Ro.shape[0] < w_all:
-            Ro = np.vstack([Ro, np.zeros((w_all - Ro.shape[0], w_all))])
+    for f, Ro in enumerate(_other_factors(fold_r)):
         X = _refit_coords(Ro, d, lam, ra, int(n_fixed), rtol)  # (ra, k, t)
         Rf = fold_r[f]
         fit = np.einsum("ij,jkt->ikt", Rf[:ra, :ra], X)
         res = Rf[:ra, None, ra:] - fit
         rest = np.einsum("it,it->t", Rf[ra:, ra:], Rf[ra:, ra:])
         out[f] = (np.einsum("ikt,ikt->kt", res, res) + rest[None, :]) / counts[f]
+    return out
+
+
+def _other_factors(fold_r: np.ndarray):
+    """Yield the triangular factor of all folds but ``f``, for f = 0 .. K-1 (prefix and
+    suffix QR merges: O(K) merges in all)."""
+    K, w_all, _ = fold_r.shape
+    prefix = [np.zeros((0, w_all))]
+    for f in range(K - 1):
+        prefix.append(_qr_r(np.vstack([prefix[-1], fold_r[f]]), w_all))
+    suffix = [np.zeros((0, w_all))] * K
+    for f in range(K - 1, 0, -1):
+        suffix[f - 1] = _qr_r(np.vstack([fold_r[f], suffix[f]]), w_all)
+    for f in range(K):
+        Ro = _qr_r(np.vstack([prefix[f], suffix[f]]), w_all)
+        if Ro.shape[0] < w_all:
+            Ro = np.vstack([Ro, np.zeros((w_all - Ro.shape[0], w_all))])
+        yield Ro
+
+
+def kfold_residuals(state: FactorState, fold_r: np.ndarray, folds, lam, *,
+                    only=None) -> np.ndarray:
+    """Held-out residuals (n, k, t) of the refits of :func:`kfold_fold_mse` (in memory).
+
+    ``folds`` lists the row indices of every fold (the order of ``fold_r``);
+    rows of folds not in ``only`` get 0.  With row weights, residuals of
+    :math:`W^{1/2} y`.
+    """
+    lam = _lam(lam)
+    zy = reduced_response(state)
+    ra = state.rank + state.n_fixed
+    rtol = max(state.n_samples, state.rank) * _EPS
+    out = np.zeros((state.n_samples, lam.size, state.n_targets))
+    for f, Ro in enumerate(_other_factors(fold_r)):
+        if only is not None and f not in only:
+            continue
+        X = _refit_coords(Ro, state.d, lam, ra, state.n_fixed, rtol)
+        ua, yc = sample_rows(state, folds[f], zy)
+        out[folds[f]] = yc[:, None, :] - np.einsum("ij,jkt->ikt", ua, X)
     return out
 
 
@@ -974,3 +1020,129 @@ def _refit_coords(Ro, d, lam, ra, o, rtol):
         rhs = Ro[:o, ra:][:, None, :] - np.einsum("ij,jkt->ikt", Ro[:o, o:ra], xg)
         X[:o] = sla.solve_triangular(Ro[:o, :o], rhs.reshape(o, -1)).reshape(o, lam.size, t)
     return X
+
+
+# ------------------------------------------------------- leave-out fits at new rows
+def cross_hat(state: FactorState, proj: np.ndarray, lam: float, un: np.ndarray) -> np.ndarray:
+    """Cross-hat rows :math:`h(x)` of new rows at penalty ``lam``, shape (b, n).
+
+    ``proj`` holds the new rows in the right singular basis, :math:`a(x) = V^T
+    \\tilde x` (centered and scaled like the training rows), ``un`` the
+    sample-space left factor.  :math:`h_i(x) = [1/n] + \\sum_j a_j(x)\\,
+    d_j/(d_j^2+\\lambda)\\, U_{ij}`, and the full-data prediction is
+    :math:`\\hat\\mu(x) = h(x)^T y`.
+    """
+    h = (proj * gains(state.d, lam)[:, 0]) @ un.T
+    if state.fit_intercept:
+        h += 1.0 / state.n_samples
+    return h
+
+
+def leave_out_shift(state: FactorState, proj: np.ndarray, lam: float, un: np.ndarray,
+                    resid: np.ndarray, labels: np.ndarray) -> np.ndarray:
+    """:math:`\\hat\\mu(x) - \\hat\\mu_{(-f)}(x)` for every fold ``f``, shape (b, K).
+
+    Leaving out the rows of fold :math:`f` changes a penalized least-squares fit
+    at :math:`x` by :math:`h_f(x)^T (I - H_{ff})^{-1} e_f = h_f(x)^T e_{(-f)}`,
+    :math:`e_{(-f)}` the held-out residuals (Woodbury; Sherman–Morrison for one
+    row).  The sum over the fold is taken on the factors,
+    :math:`\\bar e_f + a(x)^T \\operatorname{diag}(g)\\, U_f^T e_{(-f)}`: O(b r K),
+    no (b, n) block.  ``resid`` (n,) holds :math:`y_i - \\hat\\mu_{(-f(i))}(x_i)`,
+    ``labels`` (n,) the folds ``0 .. K-1``.
+    """
+    n = state.n_samples
+    E = np.zeros((n, int(labels.max()) + 1))
+    E[np.arange(n), labels] = resid
+    shift = (proj * gains(state.d, lam)[:, 0]) @ (un.T @ E)
+    if state.fit_intercept:
+        shift += E.sum(axis=0) / n
+    return shift
+
+
+# ------------------------------------------------------------------------- REML
+def _reml_parts(state: FactorState, target):
+    """``m`` (contrasts), ``c`` (r, t) and ``B`` (t,), for every target or one."""
+    m = state.n_samples - state.n_fixed
+    c, out = state.uty, np.asarray(state.rss_out, dtype=float)
+    if target is not None:
+        c, out = c[:, target:target + 1], out[target:target + 1]
+    return m, c, out
+
+
+def _log1p_ratio(d2: np.ndarray, lam: np.ndarray) -> np.ndarray:
+    """:math:`\\log(1 + d_j^2/\\lambda_k)`, shape (r, k), for λ > 0 without overflow."""
+    d2c, lamr = d2[:, None], lam[None, :]
+    big = lamr >= d2c
+    with np.errstate(divide="ignore", over="ignore"):
+        return np.where(big, np.log1p(np.where(big, d2c / lamr, 0.0)),
+                        np.log(d2c + lamr) - np.log(lamr))
+
+
+def reml_profile(state: FactorState, lam, *, target: int | None = None) -> np.ndarray:
+    """Restricted log-likelihood :math:`\\ell(\\lambda)`, σ² profiled out, shape (k, t).
+
+    :math:`\\ell = -\\tfrac12[m \\log(q/m) + \\sum_j L_j]` with
+    :math:`L_j = \\log(1 + d_j^2/\\lambda)` (:math:`\\log\\det H`, :math:`H = I +
+    ZZ^T/\\lambda`), :math:`q = r^T H^{-1} r = \\sum_j c_j^2 e^{-L_j} + B`,
+    :math:`m` the number of contrasts (n minus the unpenalized parameters), up to
+    a constant (Patterson & Thompson 1971; Harville 1977).  For
+    :math:`\\lambda \\ge d_r^2` the terms are ``log1p`` and a log-sum-exp; below,
+    :math:`q = \\lambda w` is factored out, :math:`m \\log q + \\sum L =
+    (m - r)\\log\\lambda + m \\log w + \\sum_j \\log(d_j^2+\\lambda)`, so nothing
+    overflows or cancels from :math:`10^{-300}` to :math:`10^{300}`.  ``inf``
+    gives the intercept-only limit :math:`-\\tfrac12 m\\log(\\|r\\|^2/m)`; 0 gives
+    :math:`-\\infty` when :math:`B > 0` or :math:`r < m`, else the finite limit.
+    ``target``: only that target (t = 1).
+    """
+    lam = np.atleast_1d(np.asarray(lam, dtype=float))
+    m, c, outside = _reml_parts(state, target)
+    d2 = np.square(state.d)
+    r = d2.size
+    out = np.empty((lam.size, c.shape[1]))
+    b = np.concatenate([np.square(c), outside[None, :]])[:, None, :]  # (r+1, 1, t)
+    big = (lam >= d2[-1]) & np.isfinite(lam)
+    if big.any():
+        L = _log1p_ratio(d2, lam[big])  # (r, kb)
+        a = np.concatenate([-L, np.zeros((1, L.shape[1]))])[:, :, None]
+        logq = logsumexp(a, b=b, axis=0)  # (kb, t)
+        out[big] = -0.5 * (m * (logq - np.log(m)) + L.sum(axis=0)[:, None])
+    small = (lam > 0) & (lam < d2[-1])
+    if small.any():
+        ls = lam[small]
+        logden = np.log(d2[:, None] + ls[None, :])  # (r, ks)
+        a = np.concatenate([-logden, -np.log(ls)[None, :]])[:, :, None]
+        logw = logsumexp(a, b=b, axis=0)
+        out[small] = -0.5 * (m * (logw - np.log(m))
+                             + ((m - r) * np.log(ls) + logden.sum(axis=0))[:, None])
+    inf = np.isinf(lam)
+    if inf.any():
+        out[inf] = -0.5 * m * np.log((np.sum(np.square(c), axis=0) + outside) / m)
+    zero = lam == 0
+    if zero.any():
+        if outside.any() or r < m:
+            out[zero] = -np.inf
+        else:
+            s = np.sum(np.square(c) * (d2[-1] / d2)[:, None], axis=0)  # scaled by d_r^2
+            out[zero] = -0.5 * (m * (np.log(s / m) - np.log(d2[-1])) + np.sum(np.log(d2)))
+    return out
+
+
+def reml_variances(state: FactorState, lam: float, target: int = 0) -> tuple[float, float]:
+    """``(noise variance, signal variance)`` of the random-effects model at ``lam``.
+
+    :math:`\\hat\\sigma^2 = r^T H^{-1} r/m` and :math:`\\hat\\sigma^2 \\sum_j
+    d_j^2/(\\lambda m)`; at ``inf`` the signal variance is 0; at 0 (full row
+    rank) the noise variance is 0 and the signal variance its limit
+    :math:`\\sum_j c_j^2 d_j^{-2} \\sum_j d_j^2/m^2`.
+    """
+    m, c, outside = _reml_parts(state, target)
+    d2 = np.square(state.d)
+    cj, out = c[:, 0], float(outside[0])
+    if np.isinf(lam):
+        return float((cj @ cj + out) / m), 0.0
+    if lam == 0:
+        if out > 0 or d2.size < m:
+            return out / max(m - d2.size, 1), 0.0
+        return 0.0, float(np.sum(np.square(cj) / d2) * np.sum(d2)) / m ** 2
+    sigma2 = float(np.sum(np.square(cj) * (lam / (d2 + lam))) + out) / m
+    return sigma2, sigma2 * float(np.sum(d2)) / (lam * m)

@@ -69,6 +69,7 @@ __all__ = [
     "make_folds",
     "cross_validate",
     "loo_residuals",
+    "heldout_residuals",
     "measure_cost_model",
 ]
 
@@ -380,6 +381,18 @@ class _ExactEngine:
     def form(self):
         return "dual" if self.dual else "primal"
 
+    def residuals(self, lam, only=None) -> np.ndarray:
+        """Held-out residuals (n, k, t) of the first partition (rows of folds not in
+        ``only`` get 0); with row weights, those of :math:`W^{1/2} y`."""
+        folds = self.folds[0]
+        only = range(len(folds)) if only is None else only
+        if self.dual:
+            out = np.zeros((self.state.n_samples, np.size(lam), self.state.n_targets))
+            for f in only:
+                out[folds[f]] = algebra.kfold_dual_residuals(self.state, folds[f], lam)
+            return out
+        return algebra.kfold_residuals(self.state, self.fold_r[0], folds, lam, only=only)
+
     def fold_mse(self, lam):
         if self.dual:
             return np.stack([np.stack([
@@ -616,6 +629,22 @@ def cross_validate(
                     scheme=scheme, scaling=scaling, method=route, form=engine.form,
                     method_reason=reason, multi_target=multi, _engine=engine,
                     fold_weights=fold_w)
+
+
+def heldout_residuals(path, lam: float, labels, *, only=None) -> np.ndarray:
+    """Exact held-out residuals at one penalty for a partition ``labels``, shape (n,) or (n, t).
+
+    Row ``i`` gets :math:`y_i - \\hat\\mu_{(-f)}(x_i)`, the residual of the fit
+    that leaves out its whole fold :math:`f`, from the full-data factors
+    (:math:`e_{(-f)} = (I - H_{ff})^{-1} e_f`, primal or dual form of the module
+    notes); the preprocessing is held fixed and the intercept refitted.  ``only``:
+    the folds to compute (the other rows get 0).
+    """
+    labels = np.asarray(labels)
+    lam_arr = as_lambdas(lam)[:1]
+    engine = _ExactEngine(path.state, [labels])
+    out = engine.residuals(lam_arr, only=only)[:, 0]
+    return out if path.multi_target else out[:, 0]
 
 
 def loo_residuals(path, lam) -> np.ndarray:
