@@ -15,7 +15,9 @@ from html.parser import HTMLParser
 import numpy as np
 import pytest
 
-from paths.workflows.analysis import explore
+from paths.workflows.explore import explore_prepared
+from paths.workflows.options import FigureOptions, FitOptions, OutputOptions
+from paths.workflows.prepare import Prepared
 from paths.data.synthetic import make_calibration
 from paths.data.tables import select
 from paths.present.report import (REFERENCES, RULE_NAMES, convention_formula, fmt,
@@ -30,8 +32,11 @@ def run(tmp_path_factory):
     frame = make_calibration(40, 120, seed=0)
     data = select(frame, "analyte", source="synthetic calibration (paths.data.synthetic)")
     out = tmp_path_factory.mktemp("report") / "out"
-    r = explore(data, out_dir=out, holdout=0.25, seed=2, cv=5, n_lambdas=40, formats=("svg",),
-                command_line=["paths", "explore", "x.csv", "--target", "analyte"])
+    r = explore_prepared(Prepared(train=data), FitOptions(seed=2, n_folds=5, n_lambdas=40),
+                         FigureOptions(formats=("svg",)),
+                         OutputOptions(out_dir=out, command_line=["paths", "explore", "x.csv",
+                                                                  "--target", "analyte"]),
+                         holdout=0.25)
     summary = json.loads((out / "summary.json").read_text())
     return r, summary, out
 

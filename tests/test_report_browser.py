@@ -21,7 +21,9 @@ import numpy as np
 import pytest
 from PIL import Image
 
-from paths.workflows.analysis import explore
+from paths.workflows.explore import explore_prepared
+from paths.workflows.options import FigureOptions, FitOptions, OutputOptions
+from paths.workflows.prepare import Prepared
 from paths.data.synthetic import make_calibration
 from paths.data.tables import select
 
@@ -59,7 +61,8 @@ def report(tmp_path_factory):
     """A report from a small synthetic calibration run (seeded), figures inlined as SVG."""
     out = tmp_path_factory.mktemp("browser") / "run"
     data = select(make_calibration(36, 150, seed=0), "analyte", source="synthetic calibration")
-    explore(data, out_dir=out, holdout=0.25, n_lambdas=30, formats=("svg",))
+    explore_prepared(Prepared(train=data), FitOptions(n_lambdas=30), FigureOptions(formats=("svg",)),
+                     OutputOptions(out_dir=out), holdout=0.25)
     return out / "report.html"
 
 
