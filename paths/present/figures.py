@@ -302,13 +302,37 @@ def threshold_figure(sweep, *, theory=None, noise_variance=None, bias_variance=N
         drawers.append(lambda ax: plot_bias_variance(bias_variance, ax))
     caption = ("(a) Test MSE against the ratio of features to training samples for the "
                "min-norm fit and ridge at fixed and tuned penalties, with baselines and "
-               "theory curves (log error axis; vertical line at p' = n); (b) training MSE of "
+               "theory curves (log error axis; the vertical line is where least squares starts to "
+               "interpolate, p' + 1 = n with the intercept; theory drawn as thin grey dots is "
+               "for reference only, its assumptions do not hold); (b) training MSE of "
                "least squares over the law sigma^2 (1 - p'/n)"
                + ("; (c) exact bias^2 and variance of the min-norm fit" if bias_variance
                   is not None else "") + ". Penalty convention: minimize ‖y − b0 − Xβ‖² "
                "+ λ‖β‖², intercept unpenalized.")
-    layout = {"single": lambda k: (k, 1, 2.9 * k + 0.4), "double": lambda k: (1, k, 3.4)}
-    return _compose(name, width, caption, layout, drawers)
+    layout = {"single": lambda k: (k, 1, 2.6 * k + 1.0), "double": lambda k: (1, k, 3.2)}
+    panel = _compose(name, width, caption, layout, drawers)
+    _legend_below(panel, "a", ncol=2 if panel.width == "single" else 4)
+    return panel
+
+
+def _legend_below(panel: Panel, letter: str, ncol: int) -> None:
+    """Move panel ``letter``'s legend under the whole figure (one row per ``ncol`` entries), so
+    a long legend never crowds a narrow panel."""
+    import matplotlib as mpl
+
+    art = panel.artists[letter]
+    leg = art.ax.get_legend()
+    if leg is None:
+        return
+    handles, labels = leg.legend_handles, [t.get_text() for t in leg.get_texts()]
+    title = leg.get_title().get_text()
+    leg.remove()
+    art.texts[:] = [t for t in art.texts if t is not leg]
+    with mpl.rc_context(panel.rc):
+        new = panel.figure.legend(handles, labels, loc="outside lower center", ncol=ncol,
+                                  frameon=False, fontsize=NOTE_PT, title=title or None,
+                                  title_fontsize=NOTE_PT, handlelength=2.2, columnspacing=1.2)
+    art.texts.append(new)
 
 
 _PLAIN = [(r"\log_{10}", "log10 "), (r"\lambda", "λ"), (r"\beta", "β"), (r"\gamma", "γ"),

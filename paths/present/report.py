@@ -656,8 +656,10 @@ def threshold_diagnosis(summary: dict) -> list:
                  "ridge_fixed": "ridge at the fixed penalty"}.get(best.get("method"),
                                                                   best.get("method"))
         out.append(f"The best usable ridge curve ({label}) reaches a mean test MSE of "
-                   f"{fmt(summary.get('best_ridge_test_mse'))} (at p'/n = {fmt(best.get('ratio'))}); "
-                   "a tuned penalty removes the spike instead of dropping features.")
+                   f"{fmt(summary.get('best_ridge_test_mse'))} (at p'/n = {fmt(best.get('ratio'))}).")
+        spike = _spike_sentence(summary)
+        if spike:
+            out.append(spike)
     th = summary.get("theory") or {}
     if th:
         out.append(("The isotropic theory curves (Hastie et al. 2022; Dobriban & Wager 2018) use "
@@ -671,6 +673,35 @@ def threshold_diagnosis(summary: dict) -> list:
     return out
 
 
+def _spike_sentence(summary: dict) -> str:
+    """What the tuned (GCV) ridge curve does at the min-norm peak, from the curves' numbers.
+
+    "removes": at the peak ratio its mean test MSE is within 1.5 times its own median over the
+    sweep; "reduces": below half the min-norm peak but above that; otherwise "does not remove".
+    """
+    peak = summary.get("peak") or {}
+    ratios = summary.get("ratio") or []
+    curve = (((summary.get("curves") or {}).get("ridge_gcv") or {}).get("test_mse") or {})
+    mean = curve.get("mean") or []
+    if peak.get("ratio") is None or not mean or peak["ratio"] not in ratios:
+        return ""
+    at = mean[ratios.index(peak["ratio"])]
+    vals = sorted(v for v in mean if v is not None)
+    if at is None or not vals:
+        return ""
+    med = vals[len(vals) // 2]
+    where = f"at the min-norm peak (p'/n = {fmt(peak['ratio'])})"
+    if at <= 1.5 * med:
+        verdict = "removes the spike"
+    elif at < 0.5 * peak["test_mse"]:
+        verdict = "reduces the spike but does not remove it"
+    else:
+        verdict = "does not remove the spike"
+    return (f"Ridge at the GCV penalty {verdict}: {where} its mean test MSE is {fmt(at)}, "
+            f"against {fmt(peak['test_mse'])} for the min-norm fit and a median of {fmt(med)} "
+            "over the sweep.")
+
+
 def threshold_methods(summary: dict) -> str:
     plo, phi = _minmax(summary.get("n_features"))
     lo, hi = _minmax(summary.get("ratio"))
@@ -680,7 +711,7 @@ def threshold_methods(summary: dict) -> str:
                  f"to {fmt(max(summary.get('n_train_points') or [0]))}")
     parts = [
         f"We swept {grow} (ratio p'/n from {fmt(lo)} to {fmt(hi)}, {fmt(summary.get('points'))} "
-        f"points, {summary.get('order')} order, {fmt(summary.get('repeats'))} repeat(s), seed "
+        f"points, {summary.get('order')} order, {_repeats(summary.get('repeats'))}, seed "
         f"{fmt(summary.get('seed'))}) with {fmt(summary.get('n_train'))} training and "
         f"{fmt(summary.get('n_test'))} test rows.",
         "At every point we fitted the minimum-norm least-squares solution, ridge at a fixed "
@@ -860,6 +891,10 @@ def _family_of(rule: str) -> str:
     from paths.present.plot import rule_family
 
     return rule_family(rule)
+
+
+def _repeats(k) -> str:
+    return "one repeat" if k in (None, 1) else f"{fmt(k)} repeats"
 
 
 def _repetitions(k) -> str:
