@@ -178,3 +178,13 @@ def test_explore_writes_figures_and_their_csv(run):
             "report.html", "summary.json", "path.csv", "coefficients.csv"} <= names
     assert not (out / "fig-path.png").exists()  # only the asked-for formats
     np.testing.assert_array_less(0, [f.stat().st_size for f in r.files])
+
+
+def test_format_none_writes_no_figure_files_but_the_report_keeps_its_figures(tmp_path):
+    """``--format none``: no fig-* files; report.html still inlines both figures (SVG)."""
+    data = select(make_calibration(30, 60, seed=1), "analyte", source="synthetic calibration")
+    run = explore(data, out_dir=tmp_path / "o", n_lambdas=20, formats="none")
+    names = {f.name for f in run.files}
+    assert not any(n.startswith("fig-") for n in names)
+    assert {"report.html", "report.md", "model.csv", "summary.json"} <= names
+    assert (tmp_path / "o" / "report.html").read_text().count("<svg") >= 2

@@ -6,7 +6,7 @@ from pathlib import Path
 import typer
 from rich.table import Table
 
-from paths.workflows.cases import DEMO_CASE, find_case, list_cases
+from paths.workflows.cases import DEMO_CASE, DEMO_SWEEP, find_case, list_cases
 from paths.cli.app import command, console
 from paths.cli.run import FORMAT_HELP, WIDTH_HELP, run_and_print
 
@@ -20,7 +20,8 @@ def demo_cmd(
     format: str = typer.Option(None, "--format", help=FORMAT_HELP),
     width: str = typer.Option(None, "--width", help=WIDTH_HELP),
 ):
-    """Run the built-in synthetic calibration case into ./paths-demo/ (figures, report, tables)."""
+    """Run the built-in demo into ./paths-demo/: the penalty choice on wide synthetic data, then
+    a sweep across p = n (the interpolation spike and what shrinkage does) into threshold/."""
     if list_:
         t = Table(title="built-in cases (all data synthetic)", title_justify="left")
         t.add_column("name")
@@ -33,3 +34,6 @@ def demo_cmd(
         return
     run_and_print(find_case(case), out, force=force, format=format, width=width,
                   command_line=["paths", "demo"] + ([] if case == DEMO_CASE else ["--case", case]))
+    if case == DEMO_CASE:  # the whole story: then a sweep across p = n, into OUT/threshold
+        run_and_print(find_case(DEMO_SWEEP), out / "threshold", force=force, format=format,
+                      width=width, command_line=["paths", "demo"])

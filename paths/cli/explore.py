@@ -10,7 +10,7 @@ from rich.table import Table
 
 from paths.workflows.analysis import explore, load_data, read_groups
 from paths.data.validation import check_rows_for_cv
-from paths.cli.app import command, console
+from paths.cli.app import command, console, emit_summary, stdin_file
 
 
 class Solver(str, Enum):
@@ -185,7 +185,7 @@ def explore_cmd(
     rank: int = typer.Option(None, "--rank", help="Keep the top K principal components "
                              "(randomized SVD for wide data): approximate, see the warning."),
     fig_format: str = typer.Option("png,svg", "--format", help="Figure formats, comma-separated: "
-                                   "png (300 dpi), pdf (TrueType fonts), svg."),
+                                   "png (300 dpi), pdf (TrueType fonts), svg; or none."),
     fig_width: str = typer.Option("single", "--width", help="Figure width: single (3.5 in) or "
                                   "double (7.2 in) journal column."),
     fig_x: str = typer.Option("df", "--figure-x", help="Path figures against log_lambda "
@@ -219,7 +219,9 @@ def explore_cmd(
         print_summary(run)
         if (run.out_dir / "report.html").exists():
             console.print(f"[bold]report:[/] {run.out_dir / 'report.html'}")
+        emit_summary(run.summary)
         return
+    data = stdin_file(data)
     group_labels = None
     if groups is not None:
         group_labels = read_groups(data, groups, sep=sep)
@@ -236,13 +238,15 @@ def explore_cmd(
     if test is not None:
         test_set, tdigest = load_data(test, target, sep=sep, like=dataset)
         digests[str(test)] = tdigest
-    run = explore(dataset, out_dir=out, test=test_set, holdout=holdout, seed=seed,
-                  n_lambdas=lambdas, standardize=standardize, solver=solver.value, force=force,
-                  input_sha256=digests, command_line=["paths", *sys.argv[1:]],
-                  cv=cv, repeats=repeats, groups=group_labels, folds=folds.value,
-                  cv_scaling=cv_scaling.value, rule=rule, formats=fig_formats,
-                  width=fig_width, x_axis=fig_x, report=report)
+    with console.status("fitting the path, choosing the penalty, writing figures and report"):
+        run = explore(dataset, out_dir=out, test=test_set, holdout=holdout, seed=seed,
+                      n_lambdas=lambdas, standardize=standardize, solver=solver.value, force=force,
+                      input_sha256=digests, command_line=["paths", *sys.argv[1:]],
+                      cv=cv, repeats=repeats, groups=group_labels, folds=folds.value,
+                      cv_scaling=cv_scaling.value, rule=rule, formats=fig_formats,
+                      width=fig_width, x_axis=fig_x, report=report)
     print_summary(run)
     print_rules(run)
     if (run.out_dir / "report.html").exists():
         console.print(f"[bold]report:[/] {run.out_dir / 'report.html'}")
+    emit_summary(run.summary)

@@ -48,13 +48,16 @@ CSV_HEADER = ["panel", "series", "kind", "x_quantity", "y_quantity", "x", "y", "
 
 
 def parse_formats(spec) -> tuple:
-    """``"png,pdf"`` or a sequence -> a tuple of known formats, in order, without repeats.
+    """``"png,pdf"`` or a sequence -> a tuple of known formats, in order, without repeats;
+    ``"none"`` -> an empty tuple (no figure files).
 
     Raises
     ------
     InputError
         An unknown or empty format list (one line, listing the valid ones).
     """
+    if isinstance(spec, str) and spec.strip().lower() == "none":
+        return ()  # no figure files (the report still inlines its figures)
     items = spec.split(",") if isinstance(spec, str) else list(spec)
     out = []
     for item in items:
@@ -63,11 +66,12 @@ def parse_formats(spec) -> tuple:
             continue
         if f not in FORMATS:
             raise InputError(f"unknown figure format {f!r}; choose from {', '.join(FORMATS)} "
-                             "(comma-separated, e.g. --format png,pdf)")
+                             "(comma-separated, e.g. --format png,pdf) or none")
         if f not in out:
             out.append(f)
     if not out:
-        raise InputError(f"no figure format given; choose from {', '.join(FORMATS)}")
+        raise InputError(f"no figure format given; choose from {', '.join(FORMATS)} "
+                         "(or none)")
     return tuple(out)
 
 
@@ -127,12 +131,21 @@ class Panel:
         The rc settings to render with.
     """
 
-    figure: object
-    artists: dict
+    figure: object = field(repr=False)
+    artists: dict = field(repr=False)
     name: str
-    caption: str
+    caption: str = field(repr=False)
     width: str
     rc: dict = field(repr=False, default_factory=dict)
+
+    def _repr_png_(self) -> bytes:
+        """Shown inline by Jupyter (a notebook cell ending in a Panel draws the figure)."""
+        import matplotlib as mpl
+
+        buf = io.BytesIO()
+        with mpl.rc_context(self.rc):
+            self.figure.savefig(buf, format="png", dpi=150)
+        return buf.getvalue()
 
 
 def _new_figure(width: str, height: float, rows: int, cols: int, name: str):

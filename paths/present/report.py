@@ -811,7 +811,7 @@ def write_threshold_outputs(result, summary: dict, out_dir, *, formats=("png", "
 
     out = Path(out_dir)
     panel = threshold_figure(result, width=width)
-    files = save_figure(panel, out, formats=formats)
+    files = save_figure(panel, out, formats=formats) if formats else []  # --format none
     written = list(files)
     if report:
         refs = figure_refs([(panel, files)])
@@ -856,7 +856,7 @@ def write_explore_outputs(result, summary: dict, out_dir, *, cv=None, formats=("
     owners.append(None)
     written, pairs = [], []
     for panel in panels:
-        files = save_figure(panel, out, formats=formats)
+        files = save_figure(panel, out, formats=formats) if formats else []  # --format none
         written += files
         pairs.append((panel, files))
     if report:
@@ -959,7 +959,9 @@ def _md_rules(summary: dict) -> list:
 def _md_figures(figures) -> list:
     L = []
     for f in figures:
-        L += [f"![{_md(f.name)}]({f.image})", "", f"*{_md(f.caption)}*", ""]
+        img = (f"![{_md(f.name)}]({f.image})" if f.image else
+               f"**{_md(f.name)}** (no figure file written: see report.html)")
+        L += [img, "", f"*{_md(f.caption)}*", ""]
     return L
 
 

@@ -39,10 +39,12 @@ except ModuleNotFoundError:  # pragma: no cover - Python 3.10
     import tomli as tomllib
 
 __all__ = ["Case", "CaseRun", "GENERATORS", "builtin_dir", "list_cases", "find_case", "load_case",
-           "parse_case", "run_case", "DEMO_CASE"]
+           "parse_case", "run_case", "DEMO_CASE", "DEMO_SWEEP"]
 
-#: The case ``paths demo`` runs.
+#: The case ``paths demo`` runs: the penalty choice on wide data ...
 DEMO_CASE = "calibration"
+#: ... followed by a sweep across p = n (into the demo folder's ``threshold/``).
+DEMO_SWEEP = "spike"
 ANALYSES = ("explore", "threshold", "simulate")
 
 
