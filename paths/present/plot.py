@@ -569,10 +569,15 @@ def plot_coef_path(result, ax=None, *, x: str = "df", scale: str = "standardized
                                markersize=6, color="black", clip_on=False, zorder=6,
                                linestyle="none", label="_nolegend_")
             art.markers["reported"] = wedge
+            right = _xfrac(ax, xs)[0] > 0.6
             art.texts.append(ax.annotate(f"reported ({_rule_label(ref_rule)})", (xs, 0.0),
                                          xycoords=ax.get_xaxis_transform(),
-                                         xytext=(4, 3), textcoords="offset points",
-                                         fontsize=NOTE_PT, ha="left", va="bottom"))
+                                         xytext=(-6 if right else 4, 3),
+                                         textcoords="offset points", fontsize=NOTE_PT,
+                                         ha="right" if right else "left", va="bottom",
+                                         bbox=dict(boxstyle="square,pad=0.1",
+                                                   facecolor="white", edgecolor="none",
+                                                   alpha=0.85)))
     if others.size:
         art.texts.append(ax.legend(handles=[art.bands["others"]], loc="upper left",
                                    fontsize=NOTE_PT, frameon=False, handlelength=1.4,
@@ -828,9 +833,14 @@ def _name_markers(art, placed):
         xs = float(ax.transScale.inverted().transform(
             ax.transLimits.inverted().transform((f, 0.5)))[0])
         ytop = max(placed[i][1] for i in g)
+        ybot = min(placed[i][1] for i in g)
         ha = "left" if f < 0.25 else ("right" if f > 0.75 else "center")
-        t = ax.annotate(text_of(g), (xs, ytop), xytext=(0, 14), textcoords="offset points",
-                        fontsize=NOTE_PT, ha=ha, va="bottom", linespacing=1.0,
+        # above the cluster, unless it sits in the upper half: then below it
+        high = ax.transLimits.transform(ax.transScale.transform((xs, ytop)))[1] > 0.55
+        t = ax.annotate(text_of(g), (xs, ybot if high else ytop),
+                        xytext=(0, -14 if high else 14), textcoords="offset points",
+                        fontsize=NOTE_PT, ha=ha, va="top" if high else "bottom",
+                        linespacing=1.0,
                         arrowprops=dict(arrowstyle="-", linewidth=0.5, color="#444444",
                                         shrinkA=0, shrinkB=4),
                         bbox=dict(boxstyle="square,pad=0.1", facecolor="white",

@@ -8,8 +8,9 @@ chosen rule, the grid range, the shrinkage fraction at the choice) are derived
 once by :func:`report_numbers` and stored in the record under ``"report"``
 before it is written.
 
-The HTML file inlines the figures as SVG and carries its own CSS: no network
-access, no scripts, one file to archive or e-mail.
+The HTML file inlines the figures as SVG and carries its own CSS and, for an
+explore run, a small inline script (:mod:`paths.present.interactive`) that lets
+the reader move the penalty: no network access, one file to archive or e-mail.
 """
 from __future__ import annotations
 
@@ -542,6 +543,9 @@ figure{margin:1.5rem 0;padding:0}figure svg{width:100%;max-width:40rem;height:au
 figcaption{font-size:.9rem;color:#333;margin-top:.3rem}
 .methods{background:#f7f7f2;border-left:4px solid #0072B2;padding:.6rem 1rem}
 .caution{border-left:4px solid #D55E00;padding-left:1rem}
+.explorer{border:1px solid #ccc;padding:.5rem 1rem;background:#fbfbfb}
+.explorer button{margin:0 .3rem .3rem 0;font:inherit;padding:.1rem .5rem}
+.explorer output{font-variant-numeric:tabular-nums}
 tr.family th{background:#fff;border:none;border-bottom:1px solid #999;font-style:italic;
 padding-top:.6rem}h2.target{border-bottom:3px solid #0072B2}math{font-size:1.05em}
 code{font-size:.85rem;word-break:break-all}
@@ -612,11 +616,15 @@ def render_html(summary: dict, figures=(), *, interactive: str = "") -> str:
     return "\n".join(B) + "\n"
 
 
-def write_report(out_dir, summary: dict, figures=()) -> list:
-    """Write ``report.md`` and ``report.html`` into ``out_dir`` (atomically); returns the paths."""
+def write_report(out_dir, summary: dict, figures=(), *, interactive: str = "") -> list:
+    """Write ``report.md`` and ``report.html`` into ``out_dir`` (atomically); returns the paths.
+
+    ``interactive``: the explorer section for the HTML page
+    (:func:`paths.present.interactive.explorer_section`)."""
     out = Path(out_dir)
     return [write_text(out / "report.md", render_markdown(summary, figures)),
-            write_text(out / "report.html", render_html(summary, figures))]
+            write_text(out / "report.html", render_html(summary, figures,
+                                                        interactive=interactive))]
 
 
 # ------------------------------------------------------------------ threshold sweeps
@@ -860,8 +868,11 @@ def write_explore_outputs(result, summary: dict, out_dir, *, cv=None, formats=("
         written += files
         pairs.append((panel, files))
     if report:
+        from paths.present.interactive import explorer_section
+
         refs = figure_refs(pairs, owners)
-        written += write_report(out, summary, refs)
+        written += write_report(out, summary, refs,
+                                interactive=explorer_section(result, summary))
     for panel in panels:
         panel.figure.clear()
     return written
