@@ -39,6 +39,8 @@ _PUBLIC = {
     "WidePath": "paths.engines.wide",
     "wide_path": "paths.engines.wide",
     "dask_path": "paths.engines.dask_cluster",
+    "SavedFit": "paths.present.fitfile",
+    "load_fit": "paths.present.fitfile",
     "ThresholdResult": "paths.threshold.sweep",
     "TheoryCurves": "paths.threshold.sweep",
     "threshold_sweep": "paths.threshold.sweep",

@@ -23,7 +23,7 @@ REPO = Path(__file__).resolve().parents[1]
 runner = CliRunner()
 
 # What `paths demo` promises to write (docs/figures.md, "What paths demo writes").
-DEMO_FILES = ["summary.json", "path.csv", "coefficients.csv", "model.csv",
+DEMO_FILES = ["summary.json", "path.csv", "coefficients.csv", "model.csv", "fit.npz",
               "fig-path.png", "fig-path.pdf", "fig-path.svg", "fig-path.csv",
               "fig-spectrum.png", "fig-spectrum.pdf", "fig-spectrum.svg", "fig-spectrum.csv",
               "report.md", "report.html", "threshold"]

@@ -21,7 +21,8 @@ from paths.core.design import Design, prepare, to_sample_space
 from paths.core.factor import Factorization, factorize
 from paths.core.grid import default_grid
 
-__all__ = ["PENALTY_CONVENTION", "RidgePath", "MinNormFit", "Criteria", "criteria", "fit_path"]
+__all__ = ["PENALTY_CONVENTION", "RidgePath", "MinNormFit", "Criteria", "criteria", "fit_path",
+           "path_from_factors"]
 
 PENALTY_CONVENTION = (
     "minimize ||y - b0 - X beta||^2 + lambda ||beta||^2; X column-centered "
@@ -584,7 +585,48 @@ def fit_path(
             "(standardize=True) or rescale X"
         )
     lam = default_grid(fac.d, n_lambdas) if lam_user is None else lam_user
+    return path_from_factors(
+        design, fac, lam, feature_names=names if names is not None else [f"x{j}" for j in range(p)],
+        multi_target=multi, X_test=X_test if has_test else None, Y_test=Yt if has_test else None,
+        return_fitted=return_fitted)
+
+
+def path_from_factors(design: Design, fac: Factorization, lambdas, *, feature_names,
+                      multi_target: bool = False, X_test=None, Y_test=None,
+                      return_fitted: bool = False) -> RidgePath:
+    """Assemble a :class:`RidgePath` from a prepared design and its factorization.
+
+    The step of :func:`fit_path` after the factorization; also used to rebuild a
+    path from a saved fit (:func:`paths.load_fit`), which then gives the same
+    numbers bit for bit.
+
+    Parameters
+    ----------
+    design : Design
+    fac : Factorization
+        Factors of the reduced design of ``design``.
+    lambdas : ndarray, shape (k,)
+        Validated penalties.
+    feature_names : list of str
+    multi_target : bool
+        Keep the target axis in the results (a two-dimensional response).
+    X_test : ndarray, shape (n_test, p), optional
+    Y_test : ndarray, shape (n_test, t), optional
+        Validated held-out rows and responses (two-dimensional).
+    return_fitted : bool
+
+    Returns
+    -------
+    RidgePath
+    """
+    lam = np.array(lambdas, dtype=np.float64)
     _freeze(lam)
+    n, p = design.n_samples, design.n_features
+    fit_intercept = design.fit_intercept
+    multi = multi_target
+    Yt = Y_test
+    has_test = X_test is not None
+    t_count = design.zy.shape[1]
 
     c = fac.u.T @ design.zy  # (r, t)
     crit = criteria(fac, design, c, lam)
@@ -595,7 +637,7 @@ def fit_path(
     coef = _coefficients(fac, c, lam, design)  # (k, p, t)
     intercept = design.y_mean[None, :] - np.matmul(design.x_mean, coef)  # (k, t)
     beta0 = (c / d[:, None]).T @ fac.vt  # (t, q) standardized min-norm coefficients
-    coef0 = np.zeros((p, Y.shape[1]))
+    coef0 = np.zeros((p, t_count))
     coef0[design.active] = (beta0 / design.x_scale[design.active]).T
     intercept0 = design.y_mean - design.x_mean @ coef0
 
@@ -634,7 +676,6 @@ def fit_path(
         lambdas=lam, df=df, rank=r, rank_tol=fac.tol, singular_values=fac.d,
         condition_number=fac.condition_number, min_norm=min_norm, solver=fac.solver,
         solver_reason=fac.reason, n_samples=n, n_features=p, n_test=n_test,
-        fit_intercept=fit_intercept, standardize=standardize,
-        feature_names=names if names is not None else [f"x{j}" for j in range(p)],
-        design=design, factorization=fac, uty=c, **out,
+        fit_intercept=fit_intercept, standardize=design.standardize,
+        feature_names=list(feature_names), design=design, factorization=fac, uty=c, **out,
     )

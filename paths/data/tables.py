@@ -1003,11 +1003,13 @@ def _duplicate_groups(X: np.ndarray, names, skip=()) -> list:
     return out
 
 
-def select_like(df, like: Dataset, *, source: str = "") -> Dataset:
+def select_like(df, like: Dataset, *, source: str = "", targets: bool = True) -> Dataset:
     """Build a test set with the training design's columns, in the training order.
 
     Column order in ``df`` may differ and extra columns are ignored; missing
-    ones are named.  One-hot columns use the training levels (a level unseen in
+    ones are named.  With ``targets=False`` (new rows to predict) the target
+    columns are neither needed nor read, and ``y`` is ``None``; ``rows`` then
+    holds the table positions of the rows kept.  One-hot columns use the training levels (a level unseen in
     training is refused); rows with missing values are dropped only when the
     training set was read with ``drop_missing="rows"``.
 
@@ -1025,16 +1027,17 @@ def select_like(df, like: Dataset, *, source: str = "") -> Dataset:
     nested = attrs.get("paths_nested") or {}
     df = df.rename(columns=str) if any(not isinstance(c, str) for c in df.columns) else df
     columns = set(map(str, df.columns))
-    need = list(like.source_columns) + list(like.target_names)
+    need = list(like.source_columns) + (list(like.target_names) if targets else [])
+    role = "test data" if targets else "the data"
     missing = [c for c in need if c not in columns]
     if missing:
         nest = [c for c in missing if c in nested]
         if nest:
             raise _fail(where, f"column {nest[0]!r} has the nested type {nested[nest[0]]}; "
                                "give it the training column as scalars")
-        raise _fail(where, f"test data lack {len(missing)} training column(s): "
-                           f"{_names(missing)}; give the test file the training columns "
-                           "(order may differ; extra columns are ignored)")
+        raise _fail(where, f"{role} lack {len(missing)} training column(s): "
+                           f"{_names(missing)}; give the {'test ' if targets else ''}file the "
+                           "training columns (order may differ; extra columns are ignored)")
     for c in need:
         s = df[c]
         if c not in like.encoding and not _is_numeric(s) and not s.isna().all():
@@ -1048,13 +1051,15 @@ def select_like(df, like: Dataset, *, source: str = "") -> Dataset:
     if counts:
         if like.drop_missing != "rows":
             shown = ", ".join(f"{c!r} ({k})" for c, k in list(counts.items())[:_SHOW])
-            raise _fail(where, f"missing values in the test data: {shown}; remove or impute "
+            raise _fail(where, f"missing values in {'the test data' if targets else 'the data'}: {shown}; remove or impute "
                                "them, or pass --drop-missing rows")
         for m in miss.values():
             keep &= ~m
-        notes.append(f"dropped {int((~keep).sum())} test row(s) with missing values")
+        notes.append(f"dropped {int((~keep).sum())} {'test ' if targets else ''}row(s) with "
+                     "missing values")
         if not keep.any():
-            raise _fail(where, "every test row has a missing value; nothing is left to test")
+            raise _fail(where, f"every {'test ' if targets else ''}row has a missing value; "
+                               "nothing is left")
     sub = df if keep.all() else df.loc[keep]
     sub_lines = None if lines is None else np.asarray(lines)[keep]
     blocks = []
@@ -1074,15 +1079,20 @@ def select_like(df, like: Dataset, *, source: str = "") -> Dataset:
         else:
             blocks.append(_float_column(s))
     X = np.column_stack(blocks) if blocks else np.zeros((sub.shape[0], 0))
-    Y = np.column_stack([_float_column(sub[t]) for t in like.target_names])
-    _refuse_infinite(where, sub_lines, (X, like.feature_names, "feature"),
-                     (Y, like.target_names, "target"))
-    y = Y[:, 0] if len(like.target_names) == 1 else Y
+    if targets:
+        Y = np.column_stack([_float_column(sub[t]) for t in like.target_names])
+        _refuse_infinite(where, sub_lines, (X, like.feature_names, "feature"),
+                         (Y, like.target_names, "target"))
+        y = Y[:, 0] if len(like.target_names) == 1 else Y
+    else:
+        _refuse_infinite(where, sub_lines, (X, like.feature_names, "feature"))
+        y = None
     ids = sub[like.id_column].to_numpy() if like.id_column and like.id_column in columns else None
     return Dataset(X=np.ascontiguousarray(X), y=y, feature_names=list(like.feature_names),
                    target_names=list(like.target_names), source=source, notes=notes, ids=ids,
                    id_column=like.id_column, source_columns=list(like.source_columns),
-                   encoding=dict(like.encoding), drop_missing=like.drop_missing)
+                   encoding=dict(like.encoding), drop_missing=like.drop_missing,
+                   rows=None if targets else np.flatnonzero(keep))
 
 
 def load_dataset(data, target, *, sep=None, header=None, features=None, exclude=None,

@@ -19,7 +19,8 @@ from paths.core.path import RidgePath, fit_path
 from paths.present.summary import (add_choice_errors, coefficient_table, model_table, path_table,
                                    reported_lambdas, selections, summary_dict)
 
-__all__ = ["ExploreRun", "explore", "load_data", "read_groups", "explore_engine", "ENGINES"]
+__all__ = ["ExploreRun", "explore", "load_data", "read_groups", "explore_engine", "ENGINES",
+           "write_saved_fit"]
 
 
 @dataclass(frozen=True)
@@ -208,12 +209,34 @@ def explore(
             write_csv(out / "model.csv", *model_table(result, reported_lambdas(summary),
                                                      data.target_names)),
             write_json(out / "summary.json", summary),
+            write_saved_fit(out / "fit.npz", result, selection, data, input_sha256),
         ]
         if formats or report:
             files += write_explore_outputs(result, summary, out, cv=cv_res, formats=formats or (),
                                            width=width, x=x_axis, report=report)
     return ExploreRun(result=result, summary=summary, out_dir=folder.target,
                       files=folder.final_paths(files), selection=selection, cv=cv_res)
+
+
+def write_saved_fit(dest: Path, result: RidgePath, selection, data: Dataset,
+                    input_sha256: dict | None = None, **header_kw) -> Path:
+    """Write ``fit.npz`` (:mod:`paths.present.fitfile`) at the reported rule's penalties."""
+    from paths.present.fitfile import save_fit
+
+    rules = {}
+    for rule in selection.per_target[0]:
+        lams = [sel[rule].lam for sel in selection.per_target]
+        rules[rule] = None if any(v is None for v in lams) else [float(v) for v in lams]
+    prep = {"source_columns": list(data.source_columns or data.feature_names),
+            "encoding": {k: list(v) for k, v in data.encoding.items()},
+            "id_column": data.id_column, "drop_missing": data.drop_missing,
+            "target_names": list(data.target_names), "source": str(data.source)}
+    reported, rule = selection.chosen_lambdas(), selection.reported
+    if not np.all(np.isfinite(reported)):  # the reported rule gave no penalty: GCV's instead
+        reported, rule = np.array(rules["gcv"], dtype=float), f"gcv (rule {rule} gave none)"
+    return save_fit(dest, result, reported=reported, reported_rule=rule, rules=rules,
+                    preparation=prep,
+                    input_sha256=input_sha256, **header_kw)
 
 
 def _selection(result, X, y, *, cv, repeats, groups, folds, cv_scaling, seed, rule):

@@ -1,0 +1,41 @@
+"""``paths predict FIT DATA --out PREDICTIONS.csv``: apply a saved fit to new rows."""
+from __future__ import annotations
+
+from pathlib import Path
+
+import typer
+
+from paths.cli.app import command, console
+
+
+@command("predict")
+def predict_cmd(
+    fit: Path = typer.Argument(..., help="The fit.npz written by paths explore."),
+    data: Path = typer.Argument(..., help="New rows: a table with the fit's feature columns "
+                                "(any order; extra columns are ignored)."),
+    out: Path = typer.Option(..., "--out", "-o", help="Predictions CSV to write."),
+    lam: float = typer.Option(None, "--lambda", help="Predict at this penalty (default: the "
+                              "fit's reported one)."),
+    rule: str = typer.Option(None, "--rule", help="Predict at a rule's penalty: one saved with "
+                             "the fit (gcv, loo, cv, one-se, hkb, lw, isotropic) or df=VALUE, "
+                             "fraction=VALUE."),
+    intervals: float = typer.Option(None, "--intervals", help="Also write prediction intervals "
+                                    "at this level, e.g. 0.9 (columns lower, upper)."),
+    id_column: str = typer.Option(None, "--id", help="Identifier column carried through to "
+                                  "the output (default: the fit's, if present; else row)."),
+    sep: str = typer.Option(None, "--sep", help="Delimiter of a text file; detected by default."),
+    force: bool = typer.Option(False, "--force", help="Overwrite an existing --out file."),
+):
+    """Predict the rows of DATA with the saved fit FIT and write them to --out."""
+    from paths.workflows.predict import predict_file
+
+    run = predict_file(fit, data, out=out, lam=lam, rule=rule, intervals=intervals,
+                       id_column=id_column, sep=sep, force=force)
+    lams = ", ".join(f"{v:.4g}" for v in run.lam)
+    console.print(f"predicted {run.n_rows} row(s) at lambda {lams} ({run.choice})", markup=False)
+    if run.intervals:
+        console.print(f"intervals: {run.intervals['method']} at level {run.intervals['level']:g}",
+                      markup=False)
+    for note in run.notes:
+        console.print(f"note: {note}", markup=False)
+    console.print(f"wrote {run.out}", markup=False)
