@@ -236,6 +236,9 @@ def convention_formula(summary: dict, form: str = "latex") -> str:
     std = bool(summary.get("standardize", True))
     scale = ("X column-centered and scaled to unit population SD" if std
              else "X column-centered")
+    free = summary.get("unpenalized") or []
+    if free:
+        scale += f"; the columns {', '.join(map(str, free))} unpenalized (λ acts on the others)"
     if form == "latex":
         return (r"$\min_{b_0,\beta}\ \lVert y - b_0\mathbf{1} - X\beta\rVert_2^2 + "
                 r"\lambda\lVert\beta\rVert_2^2$ (" + scale + "; intercept $b_0$ unpenalized; "
@@ -276,6 +279,10 @@ def data_summary(summary: dict) -> list:
                  "; ".join(map(str, notes)) if notes else "none reported"))
     rows.append(("scaling", "centered and standardized (population SD)" if summary.get("standardize")
                  else "centered only"))
+    free = summary.get("unpenalized") or []
+    if free:
+        rows.append(("unpenalized columns (not shrunk; no penalty on them)",
+                     ", ".join(map(_md, free))))
     rows.append(("solver", f"{summary.get('solver')} ({summary.get('solver_reason')})"))
     if summary.get("source"):
         rows.append(("source", str(summary["source"])))

@@ -17,7 +17,8 @@ from paths.data.tables import Dataset, load_dataset, sha256_of
 from paths.data.output import OutputFolder, write_csv, write_json
 from paths.core.path import RidgePath, fit_path
 from paths.present.summary import (add_choice_errors, coefficient_table, model_table, path_table,
-                                   reported_lambdas, selections, summary_dict)
+                                   reported_lambdas, selections, summary_dict,
+                                   write_coefficients)
 
 __all__ = ["ExploreRun", "explore", "load_data", "read_groups", "explore_engine", "ENGINES",
            "write_saved_fit"]
@@ -204,8 +205,7 @@ def explore(
         summary["report"] = report_numbers(summary)
         files = [
             write_csv(out / "path.csv", *_per_target(path_table, result, data.target_names)),
-            write_csv(out / "coefficients.csv",
-                      *_per_target(coefficient_table, result, data.target_names)),
+            write_coefficients(out, *_per_target(coefficient_table, result, data.target_names)),
             write_csv(out / "model.csv", *model_table(result, reported_lambdas(summary),
                                                      data.target_names)),
             write_json(out / "summary.json", summary),
