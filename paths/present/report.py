@@ -423,17 +423,16 @@ def _methods_text(summary: dict, formula: str) -> str:
         "2022) computed exactly from the same factors.",
     ]
     cv = r.get("cv")
-    scheme = f", with {_cv_sentence(cv)}," if cv and rule in ("cv", "one_se", "one-se") else ""
+    scheme = f", with {_cv_sentence(cv)}" if cv and rule in ("cv", "one_se", "one-se") else ""
+    parts.append(f"The penalty was chosen by {RULE_NAMES.get(rule, rule)}{scheme}.")
     if r.get("min_norm_choice"):
-        parts.append(f"The penalty was chosen by {RULE_NAMES.get(rule, rule)}{scheme}, which chose "
-                     "λ → 0: the reported model is the minimum-norm least-squares fit "
-                     f"({fmt(r['df'])} effective degrees of freedom), not a shrunken ridge fit.")
+        parts.append("The rule chose λ → 0: the reported model is the minimum-norm least-squares "
+                     f"fit ({fmt(r['df'])} effective degrees of freedom), not a shrunken ridge fit.")
     else:
-        parts.append(f"The penalty was chosen by {RULE_NAMES.get(rule, rule)}{scheme}: "
-                     f"λ = {fmt(r['lambda'])}, with {fmt(r['df'])} effective degrees of freedom"
-                     + (f" and a coefficient norm {fmt(r['fraction'])} times that of the "
-                        "minimum-norm fit (standardized scale)" if r.get("fraction") is not None
-                        else "") + ".")
+        parts.append(f"It chose λ = {fmt(r['lambda'])}, with {fmt(r['df'])} effective degrees of "
+                     "freedom" + (f" and a coefficient norm {fmt(r['fraction'])} times that of the "
+                                  "minimum-norm fit (standardized scale)"
+                                  if r.get("fraction") is not None else "") + ".")
     if r.get("est_mse") is not None:
         se = (f" (standard error {fmt(r['est_se'])})" if r.get("est_se") is not None
               else " (no standard error is available for this estimate)")
