@@ -27,13 +27,23 @@ from paths import InputError, RidgePathRegressor
                                     {"standardize": False, "rule": "loo"}],
                          ids=["gcv", "cv", "fraction", "loo-unscaled"])
 def test_check_estimator(params):
-    """scikit-learn's check_estimator passes (every check; array-API input skipped by sklearn)."""
-    results = check_estimator(RidgePathRegressor(**params), on_fail=None)
+    """scikit-learn's check_estimator passes (every check; array-API input skipped by sklearn).
+
+    One check is expected to fail: weights as repetition counts.  Our row weights
+    weigh each row's own error (leave-one-out leaves the whole row out, issue 15),
+    so a row of weight 3 is not three copies of it for the selection rules.
+    """
+    results = check_estimator(RidgePathRegressor(**params), on_fail=None, expected_failed_checks={
+        "check_sample_weight_equivalence_on_dense_data":
+            "weights weigh a row's error; they are not repetition counts for LOO/GCV/CV"})
     bad = [(r["check_name"], str(r["exception"])[:200]) for r in results
            if r["status"] == "failed"]
     assert not bad
     skipped = {r["check_name"] for r in results if r["status"] == "skipped"}
     assert skipped <= {"check_array_api_input"}
+    # the weight-equivalence check is run (and fails, as expected): others are not hidden
+    assert {r["status"] for r in results
+            if r["check_name"] == "check_sample_weight_equivalence_on_dense_data"} <= {"xfail"}
 
 
 @pytest.mark.parametrize("rule", ["gcv", "loo", "cv", "one-se", "hkb", "lw", "isotropic",

@@ -200,3 +200,20 @@ def test_header_not_json_and_npz_without_header():
 def test_missing_file(tmp_path):
     with pytest.raises(InputError, match="no such file"):
         load_fit(tmp_path / "nope.npz")
+
+
+def test_round_trip_weights_and_unpenalized():
+    """Row weights, unpenalized columns and relative penalties survive the file bit for bit."""
+    X, y = _problem(30, 40, seed=21)
+    w = np.random.default_rng(1).uniform(0.5, 2.0, 30)
+    path = fit_path(X, y, sample_weight=w, unpenalized=[0, 1], relative_penalty={"x5": 3.0})
+    saved = load_fit(io.BytesIO(fit_bytes(path, reported=path.lambdas[20])))
+    for key in ("coef", "intercept", "df", "train_mse", "gcv", "loo_mse"):
+        assert np.array_equal(getattr(saved.path, key), getattr(path, key)), key
+    assert saved.path.unpenalized == ["x0", "x1"] and saved.path.weighted
+    Xn = _problem(5, 40, seed=22)[0]
+    assert np.array_equal(saved.predict(Xn, 0.5), path.predict(Xn, 0.5))
+    bad = _rewrite(fit_bytes(path, reported=1.0),
+                   lambda a, h: a.update(span_sqrt_w=-a["span_sqrt_w"]))
+    with pytest.raises(InputError, match="not positive"):
+        load_fit(bad)

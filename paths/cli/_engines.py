@@ -17,10 +17,11 @@ from paths.cli.app import console, err_console
 # explore options the out-of-memory engines do not offer, with their defaults
 _UNSUPPORTED = {"holdout": None, "groups": None, "id_column": None, "encode": "none",
                 "drop_missing": None, "repeats": 1, "cv_scaling": "global", "rule": None,
-                "solver": "auto"}
+                "solver": "auto", "weights": None, "unpenalized": None, "relative_penalty": None}
 _FLAGS = {"holdout": "--holdout", "groups": "--groups", "id_column": "--id", "encode": "--encode",
           "drop_missing": "--drop-missing", "repeats": "--repeats", "cv_scaling": "--cv-scaling",
-          "rule": "--rule", "solver": "--solver"}
+          "rule": "--rule", "solver": "--solver", "weights": "--weights",
+          "unpenalized": "--unpenalized", "relative_penalty": "--relative-penalty"}
 
 
 class _Bar:
@@ -58,8 +59,10 @@ def run_engine(*, engine: str, options: dict, **kwargs):
         value = options.get(key)
         value = getattr(value, "value", value)
         if value is not None and value != default:
-            raise InputError(f"{_FLAGS[key]} is not available with --engine {engine}; drop it "
-                             "or use --engine memory")
+            why = (" (its one-pass moments are unweighted and penalize every column)"
+                   if key in ("weights", "unpenalized", "relative_penalty") else "")
+            raise InputError(f"{_FLAGS[key]} is not available with --engine {engine}{why}; "
+                             "drop it or use --engine memory")
     folds = getattr(options.get("folds"), "value", options.get("folds"))
     cv_seed = options.get("seed", 0) if folds == "shuffled" else None
     with _Bar() as bar, warnings.catch_warnings():

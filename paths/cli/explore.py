@@ -8,7 +8,8 @@ from pathlib import Path
 import typer
 from rich.table import Table
 
-from paths.workflows.analysis import explore, load_data, read_groups
+from paths.workflows.analysis import (explore, load_data, parse_relative_penalties, read_groups,
+                                      read_weights)
 from paths.data.validation import check_rows_for_cv
 from paths.cli.app import command, console, emit_summary, stdin_file
 
@@ -163,6 +164,15 @@ def explore_cmd(
                                 "times (mean and standard error per penalty); seed --seed."),
     groups: str = typer.Option(None, "--groups", help="Column of group labels (subjects, sites, "
                                "batches): whole groups are held out together; not a feature."),
+    weights: str = typer.Option(None, "--weights", help="Column of positive row weights "
+                                "(survey weights, counts, precisions); not a feature. Every "
+                                "error is then weighted."),
+    unpenalized: list[str] = typer.Option(None, "--unpenalized", help="Columns (names or glob "
+                                          "patterns, repeatable) fitted without penalty, like "
+                                          "the intercept (e.g. age, sex, batch)."),
+    relative_penalty: list[str] = typer.Option(None, "--relative-penalty", help="PATTERN=W: "
+                                               "penalize those columns by W x lambda (W > 0; "
+                                               "repeatable)."),
     folds: Folds = typer.Option(Folds.shuffled, "--folds", help="Fold scheme: seeded shuffle, "
                                 "or contiguous blocks for ordered rows."),
     cv_scaling: CVScaling = typer.Option(CVScaling.global_, "--cv-scaling", help="Column scales "
@@ -209,7 +219,9 @@ def explore_cmd(
                 "stream" if engine is Engine.memory else engine.value),
             options=dict(holdout=holdout, groups=groups, id_column=id_column, encode=encode,
                          drop_missing=drop_missing, repeats=repeats, cv_scaling=cv_scaling,
-                         rule=rule, solver=solver, folds=folds, seed=seed),
+                         rule=rule, solver=solver, folds=folds, seed=seed, weights=weights,
+                         unpenalized=unpenalized or None,
+                         relative_penalty=relative_penalty or None),
             data=data, target=target, out_dir=out, test=test, features=features or None,
             exclude=exclude or None, sep=sep, n_lambdas=lambdas, standardize=standardize,
             force=force, chunk_rows=chunk_rows, accurate=accurate, rank=rank,
@@ -222,10 +234,14 @@ def explore_cmd(
         emit_summary(run.summary)
         return
     data = stdin_file(data)
-    group_labels = None
+    group_labels = row_weights = test_weights = None
+    penalties = parse_relative_penalties(relative_penalty)
     if groups is not None:
         group_labels = read_groups(data, groups, sep=sep)
         exclude = [*(exclude or []), groups]
+    if weights is not None:
+        row_weights = read_weights(data, weights, sep=sep)
+        exclude = [*(exclude or []), weights]
     dataset, digest = load_data(
         data, target, sep=sep, features=features or None, exclude=exclude or None,
         id_column=id_column, encode=None if encode is Encode.none else encode.value,
@@ -233,18 +249,24 @@ def explore_cmd(
     check_rows_for_cv(dataset.X.shape[0], cv, str(data))
     if group_labels is not None and dataset.rows is not None:  # rows dropped (--drop-missing)
         group_labels = group_labels[dataset.rows]
+    if row_weights is not None and dataset.rows is not None:
+        row_weights = row_weights[dataset.rows]
     digests = {str(data): digest}
     test_set = None
     if test is not None:
         test_set, tdigest = load_data(test, target, sep=sep, like=dataset)
         digests[str(test)] = tdigest
+        if weights is not None:  # the test file's own weights, if it has the column
+            test_weights = read_weights(test, weights, sep=sep, required=False)
     with console.status("fitting the path, choosing the penalty, writing figures and report"):
         run = explore(dataset, out_dir=out, test=test_set, holdout=holdout, seed=seed,
                       n_lambdas=lambdas, standardize=standardize, solver=solver.value, force=force,
                       input_sha256=digests, command_line=["paths", *sys.argv[1:]],
                       cv=cv, repeats=repeats, groups=group_labels, folds=folds.value,
                       cv_scaling=cv_scaling.value, rule=rule, formats=fig_formats,
-                      width=fig_width, x_axis=fig_x, report=report)
+                      width=fig_width, x_axis=fig_x, report=report, weights=row_weights,
+                      test_weights=test_weights, unpenalized=unpenalized or None,
+                      relative_penalty=penalties)
     print_summary(run)
     print_rules(run)
     if (run.out_dir / "report.html").exists():

@@ -16,12 +16,15 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from paths.data.validation import InputError, as_design, as_lambdas, as_response, feature_names_of
-from paths.core.design import Design, prepare, to_sample_space
+from paths.data.validation import (InputError, as_design, as_lambdas, as_response, as_weights,
+                                   feature_names_of)
+from paths.core.design import Design, prepare, prepare_weighted, to_sample_space
 from paths.core.factor import Factorization, factorize
 from paths.core.grid import default_grid
+from paths.core import algebra
+from paths.core.algebra import Criteria, FactorState
 
-__all__ = ["PENALTY_CONVENTION", "RidgePath", "MinNormFit", "Criteria", "criteria", "fit_path",
+__all__ = ["PENALTY_CONVENTION", "RidgePath", "MinNormFit", "Criteria", "fit_path",
            "path_from_factors"]
 
 PENALTY_CONVENTION = (
@@ -30,7 +33,6 @@ PENALTY_CONVENTION = (
     "lambda on the scale of squared singular values of X (scikit-learn Ridge alpha)"
 )
 _EPS = np.finfo(np.float64).eps
-_BLOCK_ROWS = 4096  # rows per block for the n x k leave-one-out arrays
 
 
 def _freeze(*arrays):
@@ -115,6 +117,10 @@ class RidgePath:
     uty : ndarray, shape (rank, t)
         :math:`U^T y` on the reduced response.
     penalty_convention : str
+    unpenalized : list of str
+        Columns left out of the penalty (``unpenalized=``).
+    weighted : bool
+        Fitted with row weights (``sample_weight=``): every error is weighted.
     """
 
     lambdas: np.ndarray
@@ -143,6 +149,9 @@ class RidgePath:
     factorization: Factorization = field(repr=False)
     uty: np.ndarray = field(repr=False)
     penalty_convention: str = PENALTY_CONVENTION
+    state: FactorState | None = field(default=None, repr=False, compare=False)
+    unpenalized: list = field(default_factory=list)
+    weighted: bool = False
 
     # ------------------------------------------------------------------ helpers
     @property
@@ -157,8 +166,14 @@ class RidgePath:
 
     @property
     def coef_norm(self) -> np.ndarray:
-        """:math:`\\|\\beta_\\lambda\\|_2` on the scale the penalty acts on, shape (k,) or (k, t)."""
-        return np.sqrt(np.sum(np.square(self.coef_std), axis=1))
+        """:math:`\\|\\beta_\\lambda\\|_2` on the scale the penalty acts on, shape (k,) or (k, t).
+
+        Unpenalized columns are left out (the penalty does not act on them).
+        """
+        cs = self.coef_std
+        if self.design.unpenalized is not None:
+            cs = cs[:, ~self.design.unpenalized]
+        return np.sqrt(np.sum(np.square(cs), axis=1))
 
     def index_min(self, criterion: str = "gcv", target: int = 0) -> int:
         """Grid index minimizing ``"gcv"``, ``"loo"``/``"loo_mse"``, ``"train"`` or ``"test"``."""
@@ -178,7 +193,10 @@ class RidgePath:
 
         Shapes follow the path's: (k,) per criterion [or (k, t) for several targets].
         """
-        crit = criteria(self.factorization, self.design, self.uty, as_lambdas(lam))
+        if self.state is None or self.state.u is None:
+            raise InputError("criteria at new penalties need the left factor, which this "
+                             "engine does not keep; pass the penalties as lambdas=")
+        crit = algebra.criteria(self.state, as_lambdas(lam))
         if self.multi_target:
             return crit
         return Criteria(**{k: (v if k == "df" else v[..., 0]) for k, v in vars(crit).items()})
@@ -190,7 +208,7 @@ class RidgePath:
         (len(lam), p, t)] for a sequence.
         """
         lam_arr = as_lambdas(lam)
-        coef = _coefficients(self.factorization, self.uty, lam_arr, self.design)
+        coef = algebra.coefficients(self._state(), lam_arr, self.design)
         if not self.multi_target:
             coef = coef[..., 0]
         return coef[0] if np.ndim(lam) == 0 else coef
@@ -216,217 +234,23 @@ class RidgePath:
                 "pass the same features in the same order"
             )
         lam_arr = as_lambdas(lam)
-        gains = _gains(self.factorization.d, lam_arr)  # (r, k)
-        proj = self.design.transform(X) @ self.factorization.vt.T  # (n_new, r)
-        pred = self.design.y_mean + _project(proj, gains, self.uty)
+        if self.design.span is not None:  # unpenalized part: through the coefficients
+            coef = algebra.coefficients(self._state(), lam_arr, self.design)  # (k, p, t)
+            pred = np.einsum("np,kpt->nkt", X, coef) + algebra.intercepts(coef, self.design)
+        else:
+            gains = algebra.gains(self.factorization.d, lam_arr)  # (r, k)
+            proj = self.design.transform(X) @ self.factorization.vt.T  # (n_new, r)
+            pred = self.design.y_mean + algebra.project(proj, gains, self.uty)
         if not self.multi_target:
             pred = pred[..., 0]
         return pred[:, 0] if np.ndim(lam) == 0 else pred
 
-
-def _gains(d: np.ndarray, lam: np.ndarray) -> np.ndarray:
-    """:math:`d_j/(d_j^2+\\lambda)`, shape (r, k); the min-norm :math:`1/d_j` at 0."""
-    return d[:, None] / (np.square(d)[:, None] + lam[None, :])
-
-
-def _project(proj: np.ndarray, gains: np.ndarray, uty: np.ndarray) -> np.ndarray:
-    """:math:`\\sum_j P_{ij} g_{jk} c_{jt}`, shape (i, k, t), as one matrix product."""
-    r, k = gains.shape
-    t = uty.shape[1]
-    gc = (gains[:, :, None] * uty[:, None, :]).reshape(r, k * t)
-    return (proj @ gc).reshape(proj.shape[0], k, t)
-
-
-def _coefficients(fac: Factorization, uty: np.ndarray, lam: np.ndarray, design: Design):
-    """Original-scale coefficients (k, p, t) at penalties ``lam``."""
-    gains = _gains(fac.d, lam)
-    k, t = lam.size, uty.shape[1]
-    p = design.n_features
-    act = design.active
-    inv_scale = 1.0 / design.x_scale[act]
-    scaled = not np.all(inv_scale == 1.0)  # x * 1.0 == x: skip a pass over k x p
-    if t == 1 and act.all():  # one GEMM straight into the result, scaled in place
-        cj = (gains * uty).T @ fac.vt  # (k, p)
-        if scaled:
-            cj *= inv_scale
-        return cj[:, :, None]
-    coef = np.zeros((k, p, t))
-    for j in range(t):
-        cj = (gains * uty[:, j:j + 1]).T @ fac.vt  # (k, q)
-        if scaled:
-            cj *= inv_scale
-        coef[:, act, j] = cj
-    return coef
-
-
-def _row_blocks(u: np.ndarray, fit_intercept: bool, block: int = _BLOCK_ROWS):
-    """Yield ``(start, stop, rows)`` of the sample-space :math:`U` without forming it.
-
-    ``rows`` is a view of ``u`` (no intercept) or of one buffer reused for every
-    block (with an intercept): use it before asking for the next block.
-    """
-    m = u.shape[0]
-    if not fit_intercept:
-        for s in range(0, m, block):
-            yield s, min(s + block, m), u[s:s + block]
-        return
-    n = m + 1
-    rn = np.sqrt(n)
-    colsum = u.sum(axis=0)
-    shift = colsum / (n + rn)
-    buf = np.empty((min(block, n),) + u.shape[1:])
-    for s in range(0, n, block):
-        e = min(s + block, n)
-        lo, hi = max(s - 1, 0), e - 1  # reduced rows for sample rows s..e-1 (row 0 special)
-        rows = buf[:e - s]
-        if s == 0:
-            rows[0] = -colsum / rn
-            np.subtract(u[lo:hi], shift, out=rows[1:])
-        else:
-            np.subtract(u[lo:hi], shift, out=rows)
-        yield s, e, rows
-
-
-def _loo_block_rows(r: int, width: int) -> int:
-    """Rows per leave-one-out block: about 4 MiB per (rows x max(r, k t)) array."""
-    return int(min(_BLOCK_ROWS, max(256, (1 << 19) // max(r, width, 1))))
-
-
-def _loo(fac: Factorization, design: Design, uty: np.ndarray, out: np.ndarray,
-         lam: np.ndarray):
-    """Exact leave-one-out MSE (k, t) on the grid and at the min-norm limit (t,).
-
-    The LOO residual is :math:`e_i(\\lambda) / (1 - H_{ii}(\\lambda))` with
-    :math:`H = 11^T/n + U \\operatorname{diag}(f) U^T`.  Both parts are built
-    from the shrinkage complements :math:`s_j = \\lambda/(d_j^2+\\lambda)`, never
-    as ``1 - f``, so they stay accurate as the fit approaches interpolation:
-
-    - :math:`e(\\lambda) = e_\\perp + U (s \\circ U^T y)`, with :math:`e_\\perp` the
-      part of the response outside the column span;
-    - :math:`1 - H_{ii} = \\ell_i + \\sum_j U_{ij}^2 s_j`, with :math:`\\ell_i`
-      the leverage left outside the span (zero at full row rank).
-
-    At :math:`\\lambda = 0` the ratio is its limit: :math:`e_{\\perp,i}/\\ell_i`,
-    or where :math:`\\ell_i = 0`,
-    :math:`\\sum_j U_{ij} c_j d_j^{-2} / \\sum_j U_{ij}^2 d_j^{-2}`.
-    """
-    d2 = np.square(fac.d)
-    n = design.n_samples
-    m, r = fac.u.shape
-    k, t = lam.size, uty.shape[1]
-    S = lam[None, :] / (d2[:, None] + lam[None, :])  # (r, k)
-    # S scaled by each target's U^T y, side by side: the residuals of every
-    # penalty and target are one matrix product per block, U_b @ SC
-    SC = (S[:, :, None] * uty[:, None, :]).reshape(r, k * t)
-    full_row_rank = r == m
-    zero = lam == 0
-    inv_d2 = d2[-1] / d2  # 1/d_j^2 up to a constant (cancels in a/b): no overflow
-    sum_sq = np.zeros((k, t))
-    lim_sq = np.zeros(t)
-    base = 1.0 - 1.0 / n if design.fit_intercept else 1.0
-    block = _loo_block_rows(r, k * t)
-    sq_buf = np.empty((min(block, n), r))
-    out_blocks = _row_blocks(out, design.fit_intercept, block)
-    for (s, e, ub), (_, _, ob) in zip(_row_blocks(fac.u, design.fit_intercept, block),
-                                      out_blocks):
-        if full_row_rank:
-            lev_out = np.zeros(e - s)
-        else:
-            lev_out = np.maximum(base - np.einsum("ir,ir->i", ub, ub), 0.0)
-        ub2 = np.square(ub, out=sq_buf[:e - s])
-        den = ub2 @ S  # (b, k)
-        den += lev_out[:, None]
-        num = (ub @ SC).reshape(e - s, k, t)  # (b, k, t)
-        num += ob[:, None, :]
-        # min-norm limit
-        small = lev_out <= 100 * m * _EPS
-        lim = np.empty((e - s, t))
-        with np.errstate(divide="ignore", invalid="ignore"):
-            lim[~small] = ob[~small] / lev_out[~small, None]
-        if small.any():
-            a = ub[small] @ (uty * inv_d2[:, None])
-            b = ub2[small] @ inv_d2
-            lim[small] = a / b[:, None]
-        lim_sq += np.sum(np.square(lim), axis=0)
-        if zero.any():
-            den[:, zero] = 1.0
-            num[:, zero, :] = lim[:, None, :]
-        num /= den[:, :, None]
-        np.square(num, out=num)
-        sum_sq += np.sum(num, axis=0)
-    return sum_sq / n, lim_sq / n
-
-
-@dataclass(frozen=True)
-class Criteria:
-    """Path criteria on a grid, with their :math:`\\lambda \\to 0^+` limits.
-
-    Arrays have shape (k,) for ``df`` and (k, t) otherwise; the ``*0`` fields
-    have shape (t,).
-    """
-
-    df: np.ndarray
-    train_mse: np.ndarray
-    gcv: np.ndarray
-    loo_mse: np.ndarray
-    train_mse0: np.ndarray
-    gcv0: np.ndarray
-    loo_mse0: np.ndarray
-
-
-def criteria(fac: Factorization, design: Design, uty: np.ndarray, lam) -> Criteria:
-    """Effective df, training MSE, GCV and exact leave-one-out MSE at penalties ``lam``.
-
-    Parameters
-    ----------
-    fac : Factorization
-        Factors of the reduced design.
-    design : Design
-        Its preprocessing (``design.zy`` is the reduced response).
-    uty : ndarray, shape (r, t)
-        ``fac.u.T @ design.zy``.
-    lam : array_like, shape (k,)
-        Non-negative penalties; 0 gives the min-norm limit.
-
-    Returns
-    -------
-    Criteria
-
-    Notes
-    -----
-    See :func:`fit_path`; every quantity is a closed form on the factors and the
-    cost is O((m + k) r t) plus O(n r k) for leave-one-out, with no refit.
-    """
-    lam = np.atleast_1d(np.asarray(lam, dtype=np.float64))
-    n = design.n_samples
-    c = uty
-    if fac.u.shape[1] == fac.u.shape[0]:
-        # U spans all of R^m: nothing lies outside the span; the computed difference
-        # would be rounding (~m eps |y|), which dominates residuals ~lam/d^2 near 0
-        resid_out = np.zeros_like(design.zy)
-    else:
-        resid_out = design.zy - fac.u @ c  # (m, t): response outside the column span
-    rss_out = np.einsum("it,it->t", resid_out, resid_out)
-    m, r = fac.u.shape
-    d2 = np.square(fac.d)
-    denom = d2[:, None] + lam[None, :]
-    F = d2[:, None] / denom
-    S = lam[None, :] / denom
-    df = design.fit_intercept + F.sum(axis=0)
-    rss = rss_out[None, :] + np.square(S).T @ np.square(c)  # (k, t)
-    resid_dof = (m - r) + S.sum(axis=0)  # n - df, without cancellation
-    # min-norm limit of GCV: finite even when the fit interpolates (m == r)
-    if m > r:
-        gcv0 = n * rss_out / (m - r) ** 2
-    else:
-        inv_d2 = d2[-1] / d2  # 1/d_j^2 up to a constant (cancels): no overflow or 0/0
-        gcv0 = n * (np.square(c).T @ np.square(inv_d2)) / inv_d2.sum() ** 2
-    zero = resid_dof == 0
-    gcv = n * rss / np.square(np.where(zero, 1.0, resid_dof))[:, None]
-    gcv[zero] = gcv0
-    loo_mse, loo0 = _loo(fac, design, c, resid_out, lam)
-    return Criteria(df=df, train_mse=rss / n, gcv=gcv, loo_mse=loo_mse,
-                    train_mse0=rss_out / n, gcv0=gcv0, loo_mse0=loo0)
+    def _state(self) -> FactorState:
+        if self.state is not None:
+            return self.state
+        fac = self.factorization
+        return FactorState(d=fac.d, vt=fac.vt, uty=self.uty, rss_out=np.zeros(self.uty.shape[1]),
+                           n_samples=self.n_samples, fit_intercept=self.fit_intercept)
 
 
 def fit_path(
@@ -442,6 +266,10 @@ def fit_path(
     n_lambdas: int = 100,
     rtol: float | None = None,
     return_fitted: bool = False,
+    sample_weight=None,
+    unpenalized=None,
+    relative_penalty=None,
+    test_weight=None,
 ) -> RidgePath:
     """The ridge regularization path, with its criteria, from one factorization.
 
@@ -471,6 +299,23 @@ def fit_path(
         count as zero.  Default ``max(n, p) * eps`` (numpy's ``pinv`` default).
     return_fitted : bool
         Also return the training-set fitted values (k × n).
+    sample_weight : array_like, shape (n,), optional
+        Positive row weights: minimize
+        :math:`\\sum_i w_i (y_i - b_0 - x_i\\beta)^2 + \\lambda\\|\\beta\\|^2` with
+        weighted centering and weighted population scaling (scikit-learn's
+        ``Ridge(alpha).fit(X, y, sample_weight=w)``).  Every criterion is then
+        weighted: training and test error, GCV, leave-one-out and K-fold errors
+        are :math:`\\sum_i w_i e_i^2 / \\sum_i w_i` (leave-one-out and K-fold from
+        the weighted refits without the rows left out).
+    unpenalized : sequence of str or int, or bool mask, optional
+        Columns left out of the penalty (names, glob patterns or indices), like
+        the intercept; df counts them.
+    relative_penalty : mapping or array_like, optional
+        ``{pattern: W}`` (or one factor per column): column j is penalized by
+        :math:`W_j \\lambda`, :math:`W_j > 0`.
+    test_weight : array_like, shape (n_test,), optional
+        Weights of the test rows (default 1): test error
+        :math:`\\sum_i w_i e_i^2/\\sum_i w_i`.
 
     Returns
     -------
@@ -496,7 +341,7 @@ def fit_path(
       column span, computed directly rather than as a difference of norms;
     - :math:`\\mathrm{GCV} = n\\,\\mathrm{RSS}/(n-\\operatorname{df})^2` (Golub,
       Heath & Wahba 1979) with :math:`n - \\operatorname{df} = (m - r) + \\sum_j s_j`;
-    - leave-one-out residuals :math:`e_i/(1-H_{ii})`, exact (see ``_loo``).
+    - leave-one-out residuals :math:`e_i/(1-H_{ii})`, exact (see :mod:`paths.core.algebra`).
 
     All penalties are handled by matrix products on the factors; nothing is
     refitted.
@@ -557,8 +402,21 @@ def fit_path(
             )
         Yt = Yt if multi else Yt[:, None]
     lam_user = None if lambdas is None else as_lambdas(lambdas)
+    names = names if names is not None else [f"x{j}" for j in range(p)]
+    general = _penalty_spec(names, n, sample_weight, unpenalized, relative_penalty)
+    Wt = None
+    if test_weight is not None:
+        if not has_test:
+            raise InputError("test_weight needs X_test and y_test")
+        Wt = as_weights(test_weight, X_test.shape[0], "test_weight")
 
-    design, z = prepare(X, Y, fit_intercept=fit_intercept, standardize=standardize)
+    def prep():
+        if general is None:
+            return prepare(X, Y, fit_intercept=fit_intercept, standardize=standardize)
+        return prepare_weighted(X, Y, fit_intercept=fit_intercept, standardize=standardize,
+                                names=names, **general)
+
+    design, z = prep()
     if not design.active.any():
         raise InputError(
             f"every one of the {p} columns of X is constant; nothing to fit — "
@@ -569,7 +427,7 @@ def fit_path(
     try:
         fac = factorize(z, solver=solver, rtol=rtol, overwrite=True)
     except np.linalg.LinAlgError:  # gesdd failed after overwriting z: rebuild, use gesvd
-        design, z = prepare(X, Y, fit_intercept=fit_intercept, standardize=standardize)
+        design, z = prep()
         fac = factorize(z, solver="svd", rtol=rtol, overwrite=False)
     del z
     if fac.rank == 0:
@@ -586,14 +444,26 @@ def fit_path(
         )
     lam = default_grid(fac.d, n_lambdas) if lam_user is None else lam_user
     return path_from_factors(
-        design, fac, lam, feature_names=names if names is not None else [f"x{j}" for j in range(p)],
-        multi_target=multi, X_test=X_test if has_test else None, Y_test=Yt if has_test else None,
-        return_fitted=return_fitted)
+        design, fac, lam, feature_names=names, multi_target=multi,
+        X_test=X_test if has_test else None, Y_test=Yt if has_test else None, test_weight=Wt,
+        X_train=X if return_fitted else None, return_fitted=return_fitted)
+
+
+def _penalty_spec(names, n, sample_weight, unpenalized, relative_penalty) -> dict | None:
+    """Keyword arguments of :func:`paths.core.design.prepare_weighted`, or None (plain ridge)."""
+    from paths.core.penalties import penalty_factors, unpenalized_mask
+
+    w = None if sample_weight is None else as_weights(sample_weight, n)
+    unp = unpenalized_mask(unpenalized, names)
+    pf = penalty_factors(relative_penalty, names)
+    if w is None and unp is None and pf is None:
+        return None
+    return {"sample_weight": w, "unpenalized": unp, "penalty_factor": pf}
 
 
 def path_from_factors(design: Design, fac: Factorization, lambdas, *, feature_names,
-                      multi_target: bool = False, X_test=None, Y_test=None,
-                      return_fitted: bool = False) -> RidgePath:
+                      multi_target: bool = False, X_test=None, Y_test=None, test_weight=None,
+                      X_train=None, return_fitted: bool = False) -> RidgePath:
     """Assemble a :class:`RidgePath` from a prepared design and its factorization.
 
     The step of :func:`fit_path` after the factorization; also used to rebuild a
@@ -613,6 +483,10 @@ def path_from_factors(design: Design, fac: Factorization, lambdas, *, feature_na
     X_test : ndarray, shape (n_test, p), optional
     Y_test : ndarray, shape (n_test, t), optional
         Validated held-out rows and responses (two-dimensional).
+    test_weight : ndarray, shape (n_test,), optional
+    X_train : ndarray, shape (n, p), optional
+        The training design, needed for ``return_fitted`` with a span (weights
+        or unpenalized columns).
     return_fitted : bool
 
     Returns
@@ -628,33 +502,34 @@ def path_from_factors(design: Design, fac: Factorization, lambdas, *, feature_na
     has_test = X_test is not None
     t_count = design.zy.shape[1]
 
-    c = fac.u.T @ design.zy  # (r, t)
-    crit = criteria(fac, design, c, lam)
+    state = algebra.factor_state(fac, design)
+    c = state.uty
+    crit = algebra.criteria(state, lam)
     df = crit.df
-    m, r = fac.u.shape
-    d = fac.d
+    r = fac.rank
 
-    coef = _coefficients(fac, c, lam, design)  # (k, p, t)
-    intercept = design.y_mean[None, :] - np.matmul(design.x_mean, coef)  # (k, t)
-    beta0 = (c / d[:, None]).T @ fac.vt  # (t, q) standardized min-norm coefficients
-    coef0 = np.zeros((p, t_count))
-    coef0[design.active] = (beta0 / design.x_scale[design.active]).T
-    intercept0 = design.y_mean - design.x_mean @ coef0
+    coef = algebra.coefficients(state, lam, design)  # (k, p, t)
+    intercept = algebra.intercepts(coef, design)  # (k, t)
+    coef0, beta0 = algebra.min_norm_coefficients(state, design)
+    intercept0 = algebra.intercepts(coef0, design)
 
     test_mse = test0 = None
     n_test = 0
     if has_test:
         n_test = X_test.shape[0]
-        proj = design.transform(X_test) @ fac.vt.T  # (n_test, r), once per test set
-        gains = _gains(d, lam)
-        resid = (Yt - design.y_mean)[:, None, :] - _project(proj, gains, c)
-        test_mse = np.mean(np.square(resid), axis=0)
-        resid0 = Yt - design.y_mean - proj @ (c / d[:, None])
-        test0 = np.mean(np.square(resid0), axis=0)
+        if design.span is None and test_weight is None:
+            proj = design.transform(X_test) @ fac.vt.T  # (n_test, r), once per test set
+            sums, sums0 = algebra.test_sums(state, lam, proj, Yt - design.y_mean)
+            test_mse, test0 = sums / n_test, sums0 / n_test
+        else:
+            test_mse, test0 = _weighted_test_error(X_test, Yt, test_weight, coef, intercept,
+                                                   coef0, intercept0)
 
     fitted = None
-    if return_fitted:
-        F = np.square(d)[:, None] / (np.square(d)[:, None] + lam[None, :])
+    if return_fitted and design.span is not None:
+        fitted = np.einsum("np,kpt->knt", X_train, coef) + intercept[:, None, :]
+    elif return_fitted:
+        F = algebra.fractions(fac.d, lam)
         fitted_c = to_sample_space(fac.u @ (F[:, :, None] * c[:, None, :]).reshape(r, -1),
                                    fit_intercept)
         fitted = design.y_mean + fitted_c.reshape(n, lam.size, -1).transpose(1, 0, 2)
@@ -664,18 +539,33 @@ def path_from_factors(design: Design, fac: Factorization, lambdas, *, feature_na
 
     min_norm = MinNormFit(
         coef=sq(coef0), intercept=sq(intercept0), train_mse=sq(crit.train_mse0),
-        gcv=sq(crit.gcv0), loo_mse=sq(crit.loo_mse0), test_mse=sq(test0), df=float(fit_intercept + r),
-        coef_norm=sq(np.sqrt(np.sum(np.square(beta0), axis=1))), rank=r,
+        gcv=sq(crit.gcv0), loo_mse=sq(crit.loo_mse0), test_mse=sq(test0),
+        df=float(design.n_fixed + r),
+        coef_norm=sq(algebra.coef_norm(beta0)), rank=r,
     )
     out = dict(
         coef=sq(coef), intercept=sq(intercept), train_mse=sq(crit.train_mse), gcv=sq(crit.gcv),
         loo_mse=sq(crit.loo_mse), test_mse=sq(test_mse), fitted=sq(fitted),
     )
     _freeze(*out.values(), df, c, *(v for v in vars(min_norm).values()))
+    unpen = design.unpenalized
     return RidgePath(
+        unpenalized=[] if unpen is None else [feature_names[j] for j in np.flatnonzero(unpen)],
+        weighted=design.sample_weight is not None,
         lambdas=lam, df=df, rank=r, rank_tol=fac.tol, singular_values=fac.d,
         condition_number=fac.condition_number, min_norm=min_norm, solver=fac.solver,
         solver_reason=fac.reason, n_samples=n, n_features=p, n_test=n_test,
         fit_intercept=fit_intercept, standardize=design.standardize,
-        feature_names=list(feature_names), design=design, factorization=fac, uty=c, **out,
+        feature_names=list(feature_names), design=design, factorization=fac, uty=c, state=state,
+        **out,
     )
+
+
+def _weighted_test_error(X_test, Yt, w, coef, intercept, coef0, intercept0):
+    """Test error :math:`\\sum_i w_i e_i^2 / \\sum_i w_i` on the grid (k, t) and at 0 (t,)."""
+    w = np.ones(X_test.shape[0]) if w is None else w
+    pred = np.einsum("np,kpt->knt", X_test, coef) + intercept[:, None, :]
+    res = Yt[None, :, :] - pred
+    mse = np.einsum("n,knt->kt", w, np.square(res)) / w.sum()
+    res0 = Yt - (X_test @ coef0 + intercept0)
+    return mse, (w @ np.square(res0)) / w.sum()

@@ -139,3 +139,23 @@ def check_rows_for_cv(n_rows: int, n_folds, source: str = "", *, fit_intercept: 
             f"{where}{n_rows} row(s) are too few for {K}-fold cross-validation (every fold "
             f"needs a held-out row and {need} training rows); {fix}"
         )
+
+
+def as_weights(w, n: int, what: str = "sample_weight") -> np.ndarray:
+    """Return row weights as a float64 array of shape (n,): finite and positive.
+
+    Zero weights are refused (drop those rows instead): a row that does not
+    count has no leave-one-out or K-fold error to weigh.
+    """
+    arr = _to_float_2d(w, what)
+    if arr.ndim != 1:
+        raise InputError(f"{what} must be 1-D with one weight per row; got shape {arr.shape}")
+    if arr.shape[0] != n:
+        raise InputError(f"{what} has {arr.shape[0]} values but X has {n} rows; pass one "
+                         "weight per row")
+    _check_finite(arr, what)
+    if np.any(arr <= 0):
+        i = int(np.flatnonzero(arr <= 0)[0])
+        raise InputError(f"{what} must be positive; value {arr[i]!r} at row {i} — drop rows "
+                         "with zero weight instead")
+    return arr

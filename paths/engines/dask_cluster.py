@@ -273,20 +273,14 @@ def _unflatten(hp: HatPass, vec: np.ndarray) -> None:
 
 
 def _test_block(block, fit, lam, p):
-    from paths.core.path import _gains
+    from paths.core import algebra
 
     des, fac = fit.design, fit.fac
-    t = fit.uty.shape[1]
-    k = lam.size
     block = np.asarray(block, dtype=np.float64)
-    gains = _gains(fac.d, lam)
-    GC = (gains[:, :, None] * fit.uty[:, None, :]).reshape(fac.rank, -1)
     proj = des.transform(block[:, :p]) @ fac.vt.T
     yc = block[:, p:] - des.y_mean
-    res = yc[:, None, :] - (proj @ GC).reshape(-1, k, t)
-    res0 = yc - proj @ (fit.uty / fac.d[:, None])
-    out = np.concatenate([np.einsum("ikt,ikt->kt", res, res).ravel(),
-                          np.einsum("it,it->t", res0, res0), [block.shape[0]]])
+    sums, sums0 = algebra.test_sums(fit.state, lam, proj, yc)
+    out = np.concatenate([sums.ravel(), sums0, [block.shape[0]]])
     return out[None, :]
 
 

@@ -38,7 +38,9 @@ from paths.data.chunks import DEFAULT_CHUNK_ROWS, RowSource, open_rows
 from paths.core.design import Design
 from paths.core.factor import Factorization
 from paths.core.grid import default_grid
-from paths.core.path import PENALTY_CONVENTION, MinNormFit, RidgePath, _coefficients, _gains
+from paths.core import algebra
+from paths.core.algebra import FactorState
+from paths.core.path import PENALTY_CONVENTION, MinNormFit, RidgePath
 
 __all__ = ["Moments", "chunk_moments", "merge_moments", "PairwiseMerger", "StreamPath",
            "stream_path", "PassInfo", "path_from_moments", "HatPass"]
@@ -157,6 +159,13 @@ class _Fit:
     raw_gram: bool
     captured_share: float = 1.0
     rank_limit: int | None = None
+
+    @property
+    def state(self) -> FactorState:
+        """The algebra's factor state (no left factor: rows come in a second pass)."""
+        return FactorState(d=self.fac.d, vt=self.fac.vt, uty=self.uty, rss_out=self.rss_out,
+                           n_samples=self.design.n_samples,
+                           fit_intercept=self.design.fit_intercept)
 
 
 def _preprocess(mom: Moments, p: int, fit_intercept: bool, standardize: bool):
@@ -325,19 +334,16 @@ class HatPass:
         self.fit = fit
         self.lam = lam
         d = fit.fac.d
-        d2 = np.square(d)
-        self.S = lam[None, :] / (d2[:, None] + lam[None, :])  # (r, k)
-        self.F = d2[:, None] / (d2[:, None] + lam[None, :])
+        self.state = fit.state
+        full, self._added = algebra.append_zero(lam)
+        self.shrink = algebra.shrinkage(d, full)
+        self.F = self.shrink.f
         self.k, self.t = lam.size, fit.uty.shape[1]
         r = d.size
-        self.SC = (self.S[:, :, None] * fit.uty[:, None, :]).reshape(r, -1)  # (r, k t)
         self.proj = fit.fac.vt.T / d  # (q, r)
         self.sum_sq = np.zeros((self.k, self.t))
         self.lim_sq = np.zeros(self.t)
-        self.inv_d2 = 1.0 / d2
-        self.uty_inv = fit.uty * self.inv_d2[:, None]
         des = fit.design
-        self.base = 1.0 - 1.0 / des.n_samples if des.fit_intercept else 1.0
         self.n_folds = int(n_folds)
         self.fold_seed = fold_seed
         if self.n_folds:
@@ -376,27 +382,15 @@ class HatPass:
 
     def add_rows(self, start: int, ub: np.ndarray, yc: np.ndarray) -> None:
         fit = self.fit
-        m = fit.design.n_samples - int(fit.design.fit_intercept)
         b = ub.shape[0]
-        e_perp = yc - ub @ fit.uty  # (b, t)
-        lev_out = np.maximum(self.base - np.einsum("ir,ir->i", ub, ub), 0.0)
-        full_row_rank = fit.fac.rank == m
-        if full_row_rank:
-            lev_out[:] = 0.0
-        den = lev_out[:, None] + np.square(ub) @ self.S  # (b, k)
-        num = e_perp[:, None, :] + (ub @ self.SC).reshape(b, self.k, self.t)
-        small = lev_out <= 100 * m * _EPS
-        lim = np.empty((b, self.t))
-        with np.errstate(divide="ignore", invalid="ignore"):
-            lim[~small] = e_perp[~small] / lev_out[~small, None]
-        if small.any():
-            lim[small] = (ub[small] @ self.uty_inv) / (np.square(ub[small]) @ self.inv_d2)[:, None]
-        self.lim_sq += np.sum(np.square(lim), axis=0)
-        zero = self.lam == 0
-        if zero.any():
-            den[:, zero] = 1.0
-            num[:, zero, :] = lim[:, None, :]
-        self.sum_sq += np.sum(np.square(num / den[:, :, None]), axis=0)
+        rows = algebra.unrefined_rows(self.state, ub, yc - ub @ fit.uty)
+        sums = algebra.loo_sums(rows, self.shrink, fit.uty)  # (k [+ 1], t)
+        if self._added:
+            self.sum_sq += sums[:-1]
+            self.lim_sq += sums[-1]
+        else:
+            self.sum_sq += sums
+            self.lim_sq += sums[-1]
         if self.n_folds:
             n = fit.design.n_samples
             ut = np.hstack([np.full((b, 1), 1.0 / np.sqrt(n)), ub]) if fit.design.fit_intercept else ub
@@ -530,36 +524,9 @@ class StreamPath(RidgePath):
                 "captured_share": self.captured_share, "approximate": self.approximate}
 
 
-def _closed_forms(fit: _Fit, lam: np.ndarray):
-    """df, training MSE and GCV on the grid and at the min-norm limit (as paths.path.criteria)."""
-    fac, des = fit.fac, fit.design
-    n = des.n_samples
-    m = n - int(des.fit_intercept)
-    r = fac.rank
-    c = fit.uty
-    d2 = np.square(fac.d)
-    denom = d2[:, None] + lam[None, :]
-    F = d2[:, None] / denom
-    S = lam[None, :] / denom
-    df = des.fit_intercept + F.sum(axis=0)
-    rss = fit.rss_out[None, :] + np.square(S).T @ np.square(c)
-    resid_dof = (m - r) + S.sum(axis=0)
-    if m > r:
-        gcv0 = n * fit.rss_out / (m - r) ** 2
-    else:
-        inv_d2 = 1.0 / d2
-        gcv0 = n * (np.square(c).T @ np.square(inv_d2)) / inv_d2.sum() ** 2
-    zero = resid_dof == 0
-    gcv = n * rss / np.square(np.where(zero, 1.0, resid_dof))[:, None]
-    gcv[zero] = gcv0
-    return df, rss / n, gcv, fit.rss_out / n, gcv0
-
-
 def _test_pass(fit: _Fit, lam, source: RowSource, p: int, progress):
     des, fac = fit.design, fit.fac
-    gains = _gains(fac.d, lam)
-    GC = (gains[:, :, None] * fit.uty[:, None, :]).reshape(fac.rank, -1)
-    c0 = fit.uty / fac.d[:, None]
+    state = fit.state
     k, t = lam.size, fit.uty.shape[1]
     sq = np.zeros((k, t))
     sq0 = np.zeros(t)
@@ -571,10 +538,9 @@ def _test_pass(fit: _Fit, lam, source: RowSource, p: int, progress):
         proj = des.transform(block[:, :p]) @ fac.vt.T
         yc = block[:, p:] - des.y_mean
         b = block.shape[0]
-        res = yc[:, None, :] - (proj @ GC).reshape(b, k, t)
-        sq += np.einsum("ikt,ikt->kt", res, res)
-        res0 = yc - proj @ c0
-        sq0 += np.einsum("it,it->t", res0, res0)
+        s_k, s_0 = algebra.test_sums(state, lam, proj, yc)
+        sq += s_k
+        sq0 += s_0
         n_test += b
         if progress:
             progress("test rows: test error", start + b, source.n_rows)
@@ -589,14 +555,14 @@ def path_from_moments(fit: _Fit, lam, *, feature_names, loo, loo0, test=None, cv
     fac, des = fit.fac, fit.design
     p = des.n_features
     multi = fit.uty.shape[1] > 1
-    df, train, gcv, train0, gcv0 = _closed_forms(fit, lam)
+    state = fit.state
+    crit = algebra.criteria(state, lam, loo=False)
+    df, train, gcv, train0, gcv0 = crit.df, crit.train_mse, crit.gcv, crit.train_mse0, crit.gcv0
     c = fit.uty
-    coef = _coefficients(fac, c, lam, des)
-    intercept = des.y_mean[None, :] - np.einsum("kpt,p->kt", coef, des.x_mean)
-    beta0 = (c / fac.d[:, None]).T @ fac.vt
-    coef0 = np.zeros((p, c.shape[1]))
-    coef0[des.active] = (beta0 / des.x_scale[des.active]).T
-    intercept0 = des.y_mean - des.x_mean @ coef0
+    coef = algebra.coefficients(state, lam, des)
+    intercept = algebra.intercepts(coef, des)
+    coef0, beta0 = algebra.min_norm_coefficients(state, des)
+    intercept0 = algebra.intercepts(coef0, des)
     test_mse, test0, n_test = test if test is not None else (None, None, 0)
     cv_mse, cv_se = cv if cv is not None else (None, None)
 
@@ -606,7 +572,7 @@ def path_from_moments(fit: _Fit, lam, *, feature_names, loo, loo0, test=None, cv
     min_norm = MinNormFit(
         coef=sq(coef0), intercept=sq(intercept0), train_mse=sq(train0), gcv=sq(gcv0),
         loo_mse=sq(loo0), test_mse=sq(test0), df=float(des.fit_intercept + fac.rank),
-        coef_norm=sq(np.sqrt(np.sum(np.square(beta0), axis=1))), rank=fac.rank)
+        coef_norm=sq(algebra.coef_norm(beta0)), rank=fac.rank)
     out = dict(coef=sq(coef), intercept=sq(intercept), train_mse=sq(train), gcv=sq(gcv),
                loo_mse=sq(loo), test_mse=sq(test_mse), cv_mse=sq(cv_mse), cv_se=sq(cv_se))
     for v in (*out.values(), df, lam, *vars(min_norm).values()):

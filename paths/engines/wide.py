@@ -39,10 +39,11 @@ import scipy.linalg as sla
 
 from paths.data.validation import InputError, as_lambdas, as_response
 from paths.data.chunks import DEFAULT_BLOCK_COLUMNS, ColumnSource, ParquetColumns, open_columns
-from paths.core.design import Design
+from paths.core import algebra
+from paths.core.design import Design, column_norms
 from paths.core.factor import Factorization
 from paths.core.grid import default_grid
-from paths.core.path import PENALTY_CONVENTION, MinNormFit, _gains, criteria
+from paths.core.path import PENALTY_CONVENTION, MinNormFit
 from paths.engines.stream import PassInfo, StreamPath
 
 __all__ = ["WidePath", "wide_path"]
@@ -73,8 +74,11 @@ class WidePath(StreamPath):
     @property
     def coef_norm(self) -> np.ndarray:
         """:math:`\\|\\beta_\\lambda\\|` on the penalized scale, :math:`\\sqrt{\\sum_j (g_j c_j)^2}`."""
-        g = _gains(self.factorization.d, self.lambdas)  # (r, k)
-        nrm = np.sqrt(np.einsum("rk,rt->kt", np.square(g), np.square(self.uty)))
+        fac = self.factorization
+        state = algebra.FactorState(d=fac.d, vt=fac.vt, uty=self.uty,
+                                    rss_out=np.zeros(self.uty.shape[1]),
+                                    n_samples=self.n_samples, fit_intercept=self.fit_intercept)
+        nrm = algebra.path_coef_norm(state, self.lambdas)
         return nrm if self.multi_target else nrm[:, 0]
 
     def coef_at(self, lam):
@@ -103,7 +107,7 @@ def _block_design(block, n, fit_intercept, standardize):
         mean = block.mean(axis=0)
         rn = np.sqrt(n)
         z = block[1:] - (mean + (block[0] - mean) / (1.0 + rn))
-        sd = np.sqrt(np.einsum("ij,ij->j", z, z)) / rn
+        sd = column_norms(z) / rn  # overflow-safe, as paths.core.design.prepare
         active = (sd > n * _EPS * absmax) & (block.max(axis=0) > block.min(axis=0))
     else:
         mean = np.zeros(block.shape[1])
@@ -423,13 +427,13 @@ def wide_path(
         a.flags.writeable = False
     fac = Factorization(u=u, d=d, vt=np.empty((r, 0)), rank=r, tol=float(tol), d_max=dmax,
                         d_min=float(d_all[-1]), solver=solver, reason=reason)
-    c = u.T @ zy
+    state = algebra.factor_state(fac, design)
+    c = state.uty
     lam = default_grid(d, n_lambdas) if lam_user is None else lam_user
-    crit = criteria(fac, design, c, lam)
-    gains = _gains(d, lam)  # (r, k)
+    crit = algebra.criteria(state, lam)
     # standardized coefficients are Z^T a(lam) with a = U diag(g/d) c  (m, k, t)
-    A = np.einsum("mr,rk,rt->mkt", u, gains / d[:, None], c)
-    A0 = u @ (c / np.square(d)[:, None])  # min-norm: gain 1/d, divided by d
+    A = algebra.sample_weights(state, lam)
+    A0 = algebra.sample_weights(state, [0.0])[:, 0]  # min-norm: gain 1/d, divided by d
     intercept = y_mean[None, :] - np.einsum("m,mkt->kt", total["w"], A)
     intercept0 = y_mean - total["w"] @ A0
     test_mse = test0 = None
@@ -437,10 +441,10 @@ def wide_path(
     if test is not None:
         Cm = total["C"]
         n_test = Cm.shape[0]
-        pred = np.einsum("im,mkt->ikt", Cm, A)
-        res_t = (Yt - y_mean)[:, None, :] - pred
-        test_mse = np.mean(np.square(res_t), axis=0)
-        test0 = np.mean(np.square(Yt - y_mean - Cm @ A0), axis=0)
+        # the test rows' projections Z_test V = C U D^-1: the algebra's test error
+        proj = np.einsum("im,mr->ir", Cm, u) / d
+        sums, sums0 = algebra.test_sums(state, lam, proj, Yt - y_mean)
+        test_mse, test0 = sums / n_test, sums0 / n_test
     coef = coef0 = None
     if coefficients:
         k = lam.size
@@ -460,7 +464,7 @@ def wide_path(
     def sq(a):
         return a if (multi or a is None) else a[..., 0]
 
-    beta0_norm = np.sqrt(np.sum(np.square(c / d[:, None]), axis=0))
+    beta0_norm = algebra.path_coef_norm(state, [0.0])[0]
     min_norm = MinNormFit(
         coef=sq(coef0), intercept=sq(intercept0), train_mse=sq(crit.train_mse0),
         gcv=sq(crit.gcv0), loo_mse=sq(crit.loo_mse0), test_mse=sq(test0),

@@ -63,7 +63,19 @@ def _arrays_of(path: RidgePath, reported: np.ndarray) -> dict:
         c = path.coef_at(float(lam))
         coefs[:, j] = c[:, j] if c.ndim == 2 else c
     icpt[:] = design.y_mean - design.x_mean @ coefs
-    return {
+    extra = {}
+    if design.span is not None:
+        sp = design.span
+        extra = {"span_reflectors": sp.reflectors, "span_tau": sp.tau, "span_r": sp.r,
+                 "span_q1": sp.q1, "span_sqrt_w": sp.sqrt_w, "span_qty": sp.qty,
+                 "span_qtx": sp.qtx, "design_unpenalized": (
+                     design.unpenalized if design.unpenalized is not None
+                     else np.zeros(design.n_features, dtype=bool)),
+                 "design_penalty_factor": (design.penalty_factor if design.penalty_factor
+                                           is not None else np.ones(design.n_features)),
+                 "design_sample_weight": (design.sample_weight if design.sample_weight
+                                          is not None else np.ones(design.n_samples))}
+    return {**extra,
         "design_x_mean": design.x_mean, "design_x_scale": design.x_scale,
         "design_active": design.active, "design_y_mean": design.y_mean,
         "design_zy": design.zy, "fac_u": fac.u, "fac_d": fac.d, "fac_vt": fac.vt,
@@ -81,7 +93,21 @@ def _expected_shapes(h: dict) -> dict:
         "design_y_mean": ((t,), f), "design_zy": ((m, t), f), "fac_u": ((m, r), f),
         "fac_d": ((r,), f), "fac_vt": ((r, q), f), "lambdas": ((k,), f),
         "reported_lambda": ((t,), f), "coef": ((p, t), f), "intercept": ((t,), f),
+        **_span_shapes(h),
     }
+
+
+def _span_shapes(h: dict) -> dict:
+    """Arrays of the unpenalized span (row weights, unpenalized columns), when there is one."""
+    span = h.get("span")
+    if span is None:
+        return {}
+    n, p, t, q, c = h["n_samples"], h["n_features"], h["n_targets"], h["n_active"], span["c"]
+    f = "float64"
+    return {"span_reflectors": ((n, c), f), "span_tau": ((c,), f), "span_r": ((c, c), f),
+            "span_q1": ((n, c), f), "span_sqrt_w": ((n,), f), "span_qty": ((c, t), f),
+            "span_qtx": ((c, q), f), "design_unpenalized": ((p,), "bool"),
+            "design_penalty_factor": ((p,), f), "design_sample_weight": ((n,), f)}
 
 
 def fit_header(path: RidgePath, *, reported_rule: str, reported: np.ndarray, rules=None,
@@ -110,8 +136,13 @@ def fit_header(path: RidgePath, *, reported_rule: str, reported: np.ndarray, rul
                     else "centered only") if path.fit_intercept else (
                     "scaled to unit population SD (ddof=0), not centered" if path.standardize
                     else "neither centered nor scaled"),
-        "weights": weights, "unpenalized": list(unpenalized),
+        "weights": weights if weights is not None else (
+            "row weights" if path.design.sample_weight is not None else None),
+        "unpenalized": list(unpenalized) or list(getattr(path, "unpenalized", [])),
         "relative_penalty": dict(relative_penalty or {}),
+        "span": None if path.design.span is None else {
+            "c": int(path.design.span.c), "intercept": bool(path.design.span.intercept),
+            "total_weight": float(path.design.span.total_weight)},
         "solver": fac.solver, "solver_reason": fac.reason, "rank_tol": float(fac.tol),
         "d_max": float(fac.d_max), "d_min": float(fac.d_min),
         "reported": {"rule": reported_rule, "lambda": [float(v) for v in reported]},
@@ -207,7 +238,16 @@ def _check_header(h: dict, src) -> None:
         raise _refuse(src, "header 'target_names' does not list n_targets names; the file is "
                            "damaged")
     n, m, r, q = h["n_samples"], h["m"], h["rank"], h["n_active"]
-    if m != n - int(h["fit_intercept"]) or r > min(m, q) or q > h["n_features"] or r < 1:
+    span = h.get("span")
+    if span is not None:
+        c = span.get("c") if isinstance(span, dict) else None
+        if (not isinstance(c, int) or isinstance(c, bool) or not 0 <= c < n
+                or not isinstance(span.get("intercept"), bool)
+                or not isinstance(span.get("total_weight"), (int, float))
+                or not span["total_weight"] > 0):
+            raise _refuse(src, "header 'span' is malformed; the file is damaged")
+    fixed = span["c"] if span is not None else int(h["fit_intercept"])
+    if m != n - fixed or r > min(m, q) or q > h["n_features"] or r < 1:
         raise _refuse(src, f"inconsistent dimensions (n={n}, m={m}, rank={r}, active={q}); the "
                            "file is damaged")
     if not (h["n_targets"] >= 1 and (h["multi_target"] or h["n_targets"] == 1)):
@@ -255,6 +295,10 @@ def _check_values(a: dict, h: dict, src) -> None:
         raise _refuse(src, "singular values are not positive and descending; the file is damaged")
     if np.any(a["design_x_scale"] <= 0):
         raise _refuse(src, "column scales are not positive; the file is damaged")
+    if "span_sqrt_w" in a and (np.any(a["span_sqrt_w"] <= 0)
+                               or np.any(a["design_penalty_factor"] <= 0)):
+        raise _refuse(src, "row weights or relative penalties are not positive; the file is "
+                           "damaged")
     if int(np.count_nonzero(a["design_active"])) != h["n_active"]:
         raise _refuse(src, "active-column mask disagrees with the header; the file is damaged")
     if np.any(a["lambdas"] < 0) or np.any(a["reported_lambda"] < 0):
@@ -311,7 +355,7 @@ class SavedFit:
         if name == "df":
             from paths.core.grid import lambda_for_df
 
-            lo = float(self.path.fit_intercept)
+            lo = float(self.path.design.n_fixed)
             hi = lo + self.path.rank
             if not lo < value <= hi:
                 raise InputError(f"df target {value:g} is outside ({lo:g}, {hi:g}] for this fit")
@@ -441,11 +485,29 @@ def load_fit(path) -> SavedFit:
     return _rebuild(header, arrays, src)
 
 
+def _rebuild_span(h: dict, a: dict) -> dict:
+    """The span-related :class:`Design` fields, or {} for a plain fit."""
+    if h.get("span") is None:
+        return {}
+    from paths.core.design import FixedSpan
+
+    sp = FixedSpan(reflectors=np.asfortranarray(a["span_reflectors"]), tau=a["span_tau"],
+                   r=a["span_r"], q1=a["span_q1"], sqrt_w=a["span_sqrt_w"], qty=a["span_qty"],
+                   qtx=a["span_qtx"], intercept=h["span"]["intercept"],
+                   total_weight=float(h["span"]["total_weight"]))
+    unp = a["design_unpenalized"]
+    pf = a["design_penalty_factor"]
+    w = a["design_sample_weight"]
+    return {"span": sp, "unpenalized": unp,
+            "penalty_factor": None if np.all(pf == 1.0) else pf,
+            "sample_weight": None if h.get("weights") is None else w}
+
+
 def _rebuild(h: dict, a: dict, src) -> SavedFit:
     design = Design(zy=a["design_zy"], x_mean=a["design_x_mean"], x_scale=a["design_x_scale"],
                     y_mean=a["design_y_mean"], active=a["design_active"],
                     n_samples=h["n_samples"], fit_intercept=h["fit_intercept"],
-                    standardize=h["standardize"])
+                    standardize=h["standardize"], **_rebuild_span(h, a))
     d = a["fac_d"]
     fac = Factorization(u=a["fac_u"], d=d, vt=a["fac_vt"], rank=int(d.size),
                         tol=float(h.get("rank_tol", 0.0)), d_max=float(h.get("d_max", d[0])),

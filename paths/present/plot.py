@@ -170,6 +170,15 @@ class Artists:
 
 
 # ---------------------------------------------------------------- accessors
+def _n_fixed(result) -> int:
+    """Unpenalized parameters df counts: the intercept and any unpenalized columns."""
+    design = _get(result, "design")
+    if design is not None and hasattr(design, "n_fixed"):
+        return int(design.n_fixed)
+    fixed = _get(result, "n_unpenalized")
+    return int(fixed) if fixed is not None else int(bool(_get(result, "fit_intercept", True)))
+
+
 def _get(obj, name, default=None):
     """``obj[name]`` for mappings, ``obj.name`` otherwise; ``default`` when absent."""
     if obj is None:
@@ -257,7 +266,7 @@ def _x_of_penalty(result, lam: float, df: float | None, x: str) -> float:
         d = _arr(_get(result, "singular_values"))
         if d is None:
             return float("nan")
-        return float(_get(result, "fit_intercept", True)) + float(np.sum(d**2 / (d**2 + lam)))
+        return float(_n_fixed(result)) + float(np.sum(d**2 / (d**2 + lam)))
     return float(np.log10(lam)) if lam > 0 else float("nan")
 
 
@@ -403,7 +412,7 @@ def _min_norm_x(result, xv, x) -> float:
             d = _arr(_get(result, "singular_values"))
             if d is None:
                 return float(np.nanmax(xv))
-            df0 = float(_get(result, "fit_intercept", True)) + float(np.sum(d > 0))
+            df0 = float(_n_fixed(result)) + float(np.sum(d > 0))
         return float(df0)
     lo, hi = float(np.nanmin(xv)), float(np.nanmax(xv))
     return lo - 0.07 * (hi - lo)
@@ -520,6 +529,8 @@ def plot_coef_path(result, ax=None, *, x: str = "df", scale: str = "standardized
     if coef.ndim == 3:
         coef = coef[:, :, target]
     names = list(_get(result, "feature_names") or [f"x{j}" for j in range(coef.shape[1])])
+    unpen = set(_get(result, "unpenalized") or [])  # said on the curve: not shrunk
+    names = [f"{c} (unpenalized)" if c in unpen else c for c in names]
     sels = selections_of(result, selected, target=target)
     art = Artists(ax=ax, x_quantity=xlabel,
                   y_quantity="coefficient (standardized scale)" if scale == "standardized"
@@ -1013,7 +1024,7 @@ def _eigen_scaled(result):
     design = _get(result, "design")
     q = int(np.count_nonzero(design.active)) if design is not None else \
         int(_get(result, "n_features")) - len(_get(result, "constant_features") or [])
-    m = n - int(bool(_get(result, "fit_intercept", True)))
+    m = n - _n_fixed(result)
     eig = d**2 / (np.sum(d**2) / q)
     return eig, q / m, q, m
 

@@ -229,6 +229,27 @@ def _test_phrase(summary: dict) -> str:
     return f"{n} held-out test rows, not used for fitting or selection"
 
 
+def _weights_sentences(summary: dict) -> list:
+    """Methods sentences for row weights, unpenalized columns and relative penalties."""
+    out = []
+    unpen = summary.get("unpenalized") or []
+    if unpen:
+        out.append(f"The column(s) {', '.join(map(str, unpen[:10]))}"
+                   f"{' …' if len(unpen) > 10 else ''} were left unpenalized, like the "
+                   "intercept (projected out of the factored design; the effective degrees of "
+                   "freedom count them).")
+    rel = summary.get("relative_penalty") or {}
+    if rel:
+        out.append("Relative penalties multiplied λ for "
+                   + ", ".join(f"{k} (× {fmt(v)})" for k, v in rel.items()) + ".")
+    if summary.get("weighted"):
+        out.append("Rows were weighted: the loss is Σ wᵢ(yᵢ − b₀ − xᵢβ)², centering and scaling "
+                   "use weighted means and SDs, and every error (training, GCV, leave-one-out, "
+                   "K-fold, test) is Σ wᵢeᵢ²/Σ wᵢ, leave-one-out and K-fold from the weighted "
+                   "refits without the rows left out.")
+    return out
+
+
 # ------------------------------------------------------------------ formulas
 def convention_formula(summary: dict, form: str = "latex") -> str:
     """The penalty convention as a formula: ``form`` "latex" (Markdown, ``$…$``),
@@ -236,9 +257,6 @@ def convention_formula(summary: dict, form: str = "latex") -> str:
     std = bool(summary.get("standardize", True))
     scale = ("X column-centered and scaled to unit population SD" if std
              else "X column-centered")
-    free = summary.get("unpenalized") or []
-    if free:
-        scale += f"; the columns {', '.join(map(str, free))} unpenalized (λ acts on the others)"
     if form == "latex":
         return (r"$\min_{b_0,\beta}\ \lVert y - b_0\mathbf{1} - X\beta\rVert_2^2 + "
                 r"\lambda\lVert\beta\rVert_2^2$ (" + scale + "; intercept $b_0$ unpenalized; "
@@ -279,10 +297,17 @@ def data_summary(summary: dict) -> list:
                  "; ".join(map(str, notes)) if notes else "none reported"))
     rows.append(("scaling", "centered and standardized (population SD)" if summary.get("standardize")
                  else "centered only"))
-    free = summary.get("unpenalized") or []
-    if free:
-        rows.append(("unpenalized columns (not shrunk; no penalty on them)",
-                     ", ".join(map(_md, free))))
+    unpen = summary.get("unpenalized") or []
+    if unpen:
+        rows.append(("unpenalized columns (fitted like the intercept, counted in df)",
+                     ", ".join(map(_md, unpen[:20])) + (" …" if len(unpen) > 20 else "")))
+    rel = summary.get("relative_penalty") or {}
+    if rel:
+        rows.append(("relative penalties (W x lambda)",
+                     ", ".join(f"{_md(k)}: {fmt(v)}" for k, v in rel.items())))
+    if summary.get("weighted"):
+        rows.append(("row weights", "yes: centering, scaling and every error are weighted "
+                     "(sum of w e^2 / sum of w)"))
     rows.append(("solver", f"{summary.get('solver')} ({summary.get('solver_reason')})"))
     if summary.get("source"):
         rows.append(("source", str(summary["source"])))
@@ -322,7 +347,7 @@ def diagnosis(summary: dict) -> list:
                "non-zero singular values (the spectrum figure shows how they spread).")
     mn = summary.get("min_norm") or {}
     tr0, te0, loo0 = (_first(mn.get(k)) for k in ("train_mse", "test_mse", "loo_mse"))
-    m = n - (1 if summary.get("fit_intercept", True) else 0)
+    m = n - int(summary.get("n_unpenalized", 1 if summary.get("fit_intercept", True) else 0))
     if rank >= m:
         what = (f"interpolates the training data (training MSE {fmt(tr0)}, zero up to rounding), "
                 "so its training error says nothing about its accuracy")
@@ -422,6 +447,7 @@ def _methods_text(summary: dict, formula: str) -> str:
         "included), with the λ → 0 limit (the minimum-norm least-squares fit; Hastie et al. "
         "2022) computed exactly from the same factors.",
     ]
+    parts += _weights_sentences(summary)
     cv = r.get("cv")
     scheme = f", with {_cv_sentence(cv)}" if cv and rule in ("cv", "one_se", "one-se") else ""
     parts.append(f"The penalty was chosen by {RULE_NAMES.get(rule, rule)}{scheme}.")

@@ -102,6 +102,9 @@ def summary_dict(result: RidgePath, **extra) -> dict:
         "solver": result.solver,
         "solver_reason": result.solver_reason,
         "fit_intercept": result.fit_intercept,
+        "n_unpenalized": int(result.design.n_fixed),
+        "unpenalized": list(getattr(result, "unpenalized", [])),
+        "weighted": bool(getattr(result, "weighted", False)),
         "standardize": result.standardize,
         "penalty_convention": result.penalty_convention,
         "lambdas": _list(result.lambdas),
@@ -167,6 +170,7 @@ def model_table(result: RidgePath, lambdas, targets=None):
         coef = np.asarray(result.coef_at(lam), dtype=float).reshape(result.n_features, -1)[:, j]
         icpt = float(result.design.y_mean.ravel()[j]
                      - result.design.x_mean @ coef) if result.fit_intercept else 0.0
+        # (with row weights or unpenalized columns the means are weighted; same formula)
         header += [f"{name} at lambda={lam:.6g}", f"{name} min-norm (lambda -> 0)"]
         cols += [np.concatenate([[icpt], coef]),
                  np.concatenate([[mn_icpt[min(j, mn_icpt.size - 1)]], mn_coef[:, j]])]

@@ -308,6 +308,7 @@ class CVResult:
     method_reason: str
     multi_target: bool = False
     _engine: object = field(default=None, repr=False, compare=False)
+    fold_weights: np.ndarray | None = None
 
     def at(self, lam):
         """``(mse, se)`` at any penalties (arrays shaped like ``mse``), same folds, no refit.
@@ -317,7 +318,8 @@ class CVResult:
         """
         lam = as_lambdas(lam)
         fold = self._engine.fold_mse(lam)  # (R, K, k, t)
-        mse, se, _ = _summarize(fold, self.fold_sizes)
+        mse, se, _ = _summarize(fold, self.fold_sizes if self.fold_weights is None
+                                else self.fold_weights)
         if not self.multi_target:
             mse, se = mse[..., 0], se[..., 0]
         return mse, se
@@ -360,10 +362,17 @@ class _ExactEngine:
         m, r = fac.u.shape
         self.dual = r == m
         self.colsum = fac.u.sum(axis=0)
+        # row weights / unpenalized columns: the span's basis Q1 takes the place of 1/sqrt(n),
+        # the sample-space factor is formed once, and residuals are those of W^1/2 y
+        self.span = design.span
+        self.un = None if self.span is None else self.span.to_sample(fac.u)
+        resid = None if self.dual else design.zy - fac.u @ uty
         if self.dual:
             self.eperp = None
+        elif self.span is not None:
+            self.eperp = self.span.to_sample(resid)
         else:
-            self.eperp = to_sample_space(design.zy - fac.u @ uty, design.fit_intercept)
+            self.eperp = to_sample_space(resid, design.fit_intercept)
         self.folds = [[np.flatnonzero(lab == f) for f in range(int(lab.max()) + 1)]
                       for lab in labels_list]
 
@@ -374,12 +383,18 @@ class _ExactEngine:
     def _fold(self, idx, lam):
         """Mean squared held-out residual of one fold, (k, t)."""
         b = idx.size
-        uf = _sample_rows(self.u, idx, self.fit_intercept, self.colsum)  # (b, r)
+        if self.span is not None:
+            uf = self.un[idx]
+        else:
+            uf = _sample_rows(self.u, idx, self.fit_intercept, self.colsum)  # (b, r)
         r = uf.shape[1]
         P = (uf[:, None, :] * uf[None, :, :]).reshape(b * b, r).T  # (r, b*b)
         if not self.dual:
             base = np.eye(b) - uf @ uf.T
-            if self.fit_intercept:
+            if self.span is not None:
+                qf = self.span.q1[idx]
+                base -= qf @ qf.T
+            elif self.fit_intercept:
                 base -= 1.0 / self.n
         t = self.c.shape[1]
         out = np.empty((lam.size, t))
@@ -396,7 +411,11 @@ class _ExactEngine:
                 A += base
                 rhs += self.eperp[idx][None, :, :]
             res = np.linalg.solve(A, rhs)  # (kc, b, t)
-            out[s:s + step] = np.mean(np.square(res), axis=1)
+            if self.span is not None:  # sum_i w_i e_i^2 / sum_i w_i over the fold
+                wf = np.square(self.span.sqrt_w[idx]).sum()
+                out[s:s + step] = np.sum(np.square(res), axis=1) / wf
+            else:
+                out[s:s + step] = np.mean(np.square(res), axis=1)
         return out
 
     def fold_mse(self, lam):
@@ -464,6 +483,9 @@ def cross_validate(
     solver: str = "auto",
     n_lambdas: int = 100,
     cost_model: CostModel | None = None,
+    sample_weight=None,
+    unpenalized=None,
+    relative_penalty=None,
 ) -> CVResult:
     """K-fold cross-validation errors for every penalty, without refitting per penalty.
 
@@ -498,6 +520,11 @@ def cross_validate(
     fit_intercept, standardize, solver, n_lambdas
         As in :func:`paths.path.fit_path` (ignored when ``path`` is given).
     cost_model : CostModel, optional
+    sample_weight, unpenalized, relative_penalty
+        As in :func:`paths.path.fit_path` (taken from ``path`` when given).
+        With row weights the error is :math:`\\sum_i w_i e_{(-f),i}^2 / \\sum_i w_i`
+        from the weighted refits without each fold; weights and unpenalized
+        columns need ``scaling="global"`` and are always exact (no refit route).
 
     Returns
     -------
@@ -554,12 +581,18 @@ def cross_validate(
     Y = Ya if multi else Ya[:, None]
     if path is None:
         path = fit_path(X, y, lambdas, fit_intercept=fit_intercept, standardize=standardize,
-                        solver=solver, n_lambdas=n_lambdas)
+                        solver=solver, n_lambdas=n_lambdas, sample_weight=sample_weight,
+                        unpenalized=unpenalized, relative_penalty=relative_penalty)
     elif path.n_samples != n or path.n_features != Xa.shape[1]:
         raise InputError(
             f"path was fitted on {path.n_samples} x {path.n_features} data but X is "
             f"{n} x {Xa.shape[1]}; pass the same data"
         )
+    elif sample_weight is not None and (path.design.sample_weight is None or not np.array_equal(
+            np.asarray(sample_weight, dtype=float), path.design.sample_weight)):
+        raise InputError("sample_weight differs from the weights the path was fitted with; "
+                         "pass the same weights (or none: the path's are used)")
+    span = path.design.span
     lam = path.lambdas if lambdas is None else as_lambdas(lambdas)
     labels = np.stack([
         make_folds(n, n_folds, scheme=scheme, seed=seed, groups=groups, repeat=i,
@@ -568,8 +601,18 @@ def cross_validate(
     ])
     K = int(labels.max()) + 1
     sizes = np.stack([np.bincount(lab, minlength=K) for lab in labels])
+    fold_w = None
+    if span is not None:
+        w = np.square(span.sqrt_w)
+        fold_w = np.stack([np.bincount(lab, weights=w, minlength=K) for lab in labels])
     fac = path.factorization
-    if scaling == "per-fold":
+    if span is not None:
+        if scaling == "per-fold" or method == "refit":
+            raise InputError("with row weights, unpenalized columns or relative penalties, "
+                             "K-fold CV is exact from the full-data factors only; use "
+                             "scaling='global' and method='exact' (CLI: --cv-scaling global)")
+        route, reason = "exact", "exact: row weights / unpenalized columns (no refit route)"
+    elif scaling == "per-fold":
         route, reason = "refit", "refit: per-fold scaling cannot be read off the full-data factors"
     elif method != "auto":
         route, reason = method, "requested"
@@ -583,6 +626,10 @@ def cross_validate(
         try:
             fold = engine.fold_mse(lam)
         except np.linalg.LinAlgError:
+            if span is not None:
+                raise InputError("a fold's block I - H_ff is singular (its rows carry "
+                                 "parameters no other fold sees); use fewer, larger folds") \
+                    from None
             route, engine = "refit", None
             reason = "refit: a fold block I - H_ff was singular at some penalty"
     if engine is None:
@@ -590,7 +637,7 @@ def cross_validate(
                               standardize=path.standardize, scaling=scaling, solver=path.solver
                               if path.solver in ("svd", "gram") else "auto", design=path.design)
         fold = engine.fold_mse(lam)
-    mse, se, se_rep = _summarize(fold, sizes)
+    mse, se, se_rep = _summarize(fold, sizes if fold_w is None else fold_w)
     if not multi:
         mse, se, fold = mse[..., 0], se[..., 0], fold[..., 0]
         se_rep = None if se_rep is None else se_rep[..., 0]
@@ -600,7 +647,8 @@ def cross_validate(
     return CVResult(lambdas=lam, mse=mse, se=se, se_repeats=se_rep, fold_mse=fold,
                     fold_sizes=sizes, labels=labels, n_folds=K, repeats=repeats, seed=seed,
                     scheme=scheme, scaling=scaling, method=route, form=engine.form,
-                    method_reason=reason, multi_target=multi, _engine=engine)
+                    method_reason=reason, multi_target=multi, _engine=engine,
+                    fold_weights=fold_w)
 
 
 def loo_residuals(path, lam) -> np.ndarray:
@@ -613,7 +661,9 @@ def loo_residuals(path, lam) -> np.ndarray:
     """
     lam = as_lambdas(lam)
     fac, design = path.factorization, path.design
-    un = to_sample_space(fac.u, design.fit_intercept)  # (n, r)
+    span = design.span
+    un = (to_sample_space(fac.u, design.fit_intercept) if span is None
+          else span.to_sample(fac.u))  # (n, r)
     c = path.uty
     d2 = np.square(fac.d)
     m, r = fac.u.shape
@@ -624,9 +674,13 @@ def loo_residuals(path, lam) -> np.ndarray:
         num = np.einsum("ir,rk,rt->ikt", un, coefs, c)
     else:
         coefs = lam[None, :] / denom
-        lev = 1.0 - np.einsum("ir,ir->i", un, un) - (1.0 / design.n_samples
-                                                    if design.fit_intercept else 0.0)
-        eperp = to_sample_space(design.zy - fac.u @ c, design.fit_intercept)
+        if span is not None:
+            lev = 1.0 - np.einsum("ir,ir->i", un, un) - span.leverage
+            eperp = span.to_sample(design.zy - fac.u @ c)
+        else:
+            lev = 1.0 - np.einsum("ir,ir->i", un, un) - (1.0 / design.n_samples
+                                                        if design.fit_intercept else 0.0)
+            eperp = to_sample_space(design.zy - fac.u @ c, design.fit_intercept)
         lev = np.maximum(lev, 0.0)
         den = lev[:, None] + np.square(un) @ coefs
         num = eperp[:, None, :] + np.einsum("ir,rk,rt->ikt", un, coefs, c)
@@ -641,4 +695,6 @@ def loo_residuals(path, lam) -> np.ndarray:
                 den[rows, kk] = 1.0
                 num[rows, kk, :] = lim
     res = num / den[:, :, None]
+    if span is not None:  # residuals of W^1/2 y: back to y (weighted refits without row i)
+        res /= span.sqrt_w[:, None, None]
     return res if path.multi_target else res[..., 0]

@@ -17,7 +17,7 @@ import numpy as np
 from sklearn.base import BaseEstimator, RegressorMixin
 from sklearn.utils.validation import check_is_fitted, validate_data
 
-from paths.data.validation import InputError
+from paths.data.validation import InputError, as_weights
 from paths.selection.cv import cross_validate
 from paths.core.path import fit_path
 from paths.selection.rules import parse_rule, select_penalty
@@ -106,7 +106,7 @@ class RidgePathRegressor(RegressorMixin, BaseEstimator):
         tags.target_tags.single_output = True
         return tags
 
-    def fit(self, X, y, groups=None):
+    def fit(self, X, y, groups=None, sample_weight=None):
         """Compute the path, apply the rule, keep the chosen coefficients.
 
         Parameters
@@ -115,6 +115,9 @@ class RidgePathRegressor(RegressorMixin, BaseEstimator):
         y : array_like, shape (n_samples,) or (n_samples, n_targets)
         groups : array_like, shape (n_samples,), optional
             Group labels for grouped K-fold CV (whole groups held out together).
+        sample_weight : array_like, shape (n_samples,), optional
+            Positive row weights (:func:`paths.path.fit_path`): the fit and every
+            criterion the rule reads are weighted.
 
         Returns
         -------
@@ -129,10 +132,13 @@ class RidgePathRegressor(RegressorMixin, BaseEstimator):
         const_y = Y.max(axis=0) <= Y.min(axis=0) if self.fit_intercept else ~np.any(Y, axis=0)
         const_x = bool(np.all(X.max(axis=0) <= X.min(axis=0))) and self.fit_intercept
         self.cv_result_ = None
+        if sample_weight is not None:
+            sample_weight = as_weights(sample_weight, n)
         if const_y.all() or const_x:
             # nothing to fit but the intercept: predict the mean (no penalty to choose)
             self.path_ = self.selection_ = self.noise_variance_ = None
-            mean = Y.mean(axis=0) if self.fit_intercept else np.zeros(Y.shape[1])
+            mean = (np.average(Y, axis=0, weights=sample_weight) if self.fit_intercept
+                    else np.zeros(Y.shape[1]))
             coef = np.zeros((Y.shape[1], p))
             lam = np.full(Y.shape[1], np.inf)
             df = np.full(Y.shape[1], float(self.fit_intercept))
@@ -143,7 +149,7 @@ class RidgePathRegressor(RegressorMixin, BaseEstimator):
             raise InputError(f"target column {j} is constant; fit it separately or drop it")
         path = fit_path(X, y, self.lambdas, fit_intercept=self.fit_intercept,
                         standardize=self.standardize, solver=self.solver,
-                        n_lambdas=self.n_lambdas)
+                        n_lambdas=self.n_lambdas, sample_weight=sample_weight)
         k = self.cv
         if k is None and (name in ("cv", "one-se") or groups is not None):
             k = 10 if groups is None else min(10, np.unique(np.asarray(groups)).size)
@@ -164,7 +170,7 @@ class RidgePathRegressor(RegressorMixin, BaseEstimator):
             coef[j] = c[:, j] if multi else c
         intercept = path.design.y_mean - coef @ path.design.x_mean
         d2 = np.square(path.singular_values)
-        df = np.array([self.fit_intercept + np.sum(d2 / (d2 + lj)) for lj in lam])
+        df = np.array([path.design.n_fixed + np.sum(d2 / (d2 + lj)) for lj in lam])
         self.path_ = path
         self.selection_ = rep
         self.noise_variance_ = rep.noise.value

@@ -250,7 +250,8 @@ def noise_variance(path, *, gcv_lambda=None) -> NoiseEstimate:
         rss = np.einsum("it,it->t", resid, resid)
         dof = float(m - r)
         val = rss / dof
-        label = "n - rank - 1" if design.fit_intercept else "n - rank"
+        fixed = design.n_fixed  # the intercept, and unpenalized columns
+        label = f"n - rank - {fixed}" if fixed else "n - rank"
         return NoiseEstimate(
             value=_squeeze(val, path), method="ols",
             formula=f"OLS: RSS/({label}) = RSS/{dof:g}",
@@ -344,7 +345,7 @@ def isotropic_lambda(path, sigma2, target: int = 0) -> float | None:
     """
     zy = path.design.zy[:, target]
     n = path.n_samples
-    var_y = float(zy @ zy) / (n - 1 if path.fit_intercept else n)
+    var_y = float(zy @ zy) / (n - path.design.n_fixed)
     r2 = var_y - sigma2
     if not r2 > 0:
         return None
@@ -545,12 +546,15 @@ def _estimate(path, cv, lam, j, loo_se_cache):
         return _col(mse, j), _col(se, j), "cv"
     res = loo_residuals(path, np.array([lam]))  # (n, 1[, t])
     e2 = np.square(res[:, 0] if res.ndim == 2 else res[:, 0, j])
+    w = path.design.sample_weight
+    if w is not None:  # sum_i w_i e_i^2 / sum_i w_i as a plain mean of rescaled terms
+        e2 = e2 * w * (e2.size / w.sum())
     return float(e2.mean()), float(e2.std(ddof=1) / np.sqrt(e2.size)), "loo"
 
 
 def _df_at(path, lam):
     d2 = np.square(path.factorization.d)
-    return float(path.fit_intercept + np.sum(d2 / (d2 + lam)))
+    return float(path.design.n_fixed + np.sum(d2 / (d2 + lam)))
 
 
 def select_penalty(path, cv=None, *, df_target: float | None = None,
@@ -613,11 +617,12 @@ def select_penalty(path, cv=None, *, df_target: float | None = None,
     if reported in ("cv", "one-se") and cv is None:
         raise InputError(f"rule {reported} needs K-fold cross-validation; pass cv= (CLI: --cv K)")
     r = path.rank
-    lo_df, hi_df = float(path.fit_intercept), float(r + path.fit_intercept)
+    fixed = path.design.n_fixed
+    lo_df, hi_df = float(fixed), float(r + fixed)
     if df_target is not None and not (lo_df < df_target <= hi_df):
         raise InputError(
             f"df target {df_target:g} is outside ({lo_df:g}, {hi_df:g}] "
-            f"(tr H, {'the intercept counted, ' if path.fit_intercept else ''}rank {r})"
+            f"(tr H, {f'{fixed} unpenalized parameter(s) counted, ' if fixed else ''}rank {r})"
         )
     if fraction_target is not None and not (0.0 < fraction_target <= 1.0):
         raise InputError(f"target shrinkage fraction must lie in (0, 1]; got {fraction_target:g}")
@@ -671,9 +676,9 @@ def _select_one(path, cv, j, g, sigma2, noise, df_target, fraction_target):
     if df_target is None:
         out["df"] = Selection("df", None, target=j, note="no df target given (rule df=VALUE)")
     else:
-        hi = path.rank + path.fit_intercept
+        hi = path.rank + path.design.n_fixed
         lam = 0.0 if df_target == hi else lambda_for_df(path.factorization.d,
-                                                       df_target - path.fit_intercept)
+                                                       df_target - path.design.n_fixed)
         out["df"] = _make(path, "df", lam, j, cv=est_cv, note=f"target df {df_target:g}")
     if fraction_target is None:
         out["fraction"] = Selection("fraction", None, target=j,

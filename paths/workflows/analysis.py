@@ -20,7 +20,8 @@ from paths.present.summary import (add_choice_errors, coefficient_table, model_t
                                    reported_lambdas, selections, summary_dict,
                                    write_coefficients)
 
-__all__ = ["ExploreRun", "explore", "load_data", "read_groups", "explore_engine", "ENGINES",
+__all__ = ["ExploreRun", "explore", "load_data", "read_groups", "read_weights",
+           "parse_relative_penalties", "explore_engine", "ENGINES",
            "write_saved_fit"]
 
 
@@ -69,6 +70,53 @@ def read_groups(path, column: str, *, sep=None) -> np.ndarray:
     return values.to_numpy()
 
 
+def read_weights(path, column: str, *, sep=None, required: bool = True):
+    """The row weights in column ``column`` of a data file (``--weights``), or None.
+
+    Refused in one line: a missing column (when ``required``), missing,
+    non-numeric, infinite, zero or negative values.  The column must also be
+    left out of the features (``exclude=[column]``).
+    """
+    from paths.data.validation import InputError, as_weights
+    from paths.data.tables import read_table
+
+    frame = read_table(path, sep=sep)
+    if column not in frame.columns:
+        if not required:
+            return None
+        raise InputError(f"{path}: --weights column {column!r} not found; columns are: "
+                         f"{', '.join(map(str, list(frame.columns)[:8]))}")
+    import pandas as pd
+
+    values = pd.to_numeric(frame[column], errors="coerce")
+    if values.isna().any():
+        i = int(np.flatnonzero(values.isna().to_numpy())[0])
+        raise InputError(f"{path}: --weights column {column!r} has a missing or non-numeric "
+                         f"value ({frame[column].iloc[i]!r}, data row {i + 1}); give every row "
+                         "a positive weight")
+    return as_weights(values.to_numpy(dtype=float), len(values), f"{path}: --weights {column!r}")
+
+
+def parse_relative_penalties(specs) -> dict | None:
+    """``["gene_*=2", "age=0.5"]`` → ``{"gene_*": 2.0, "age": 0.5}`` (``--relative-penalty``)."""
+    from paths.data.validation import InputError
+
+    if not specs:
+        return None
+    out = {}
+    for spec in specs:
+        pattern, eq, value = str(spec).rpartition("=")
+        try:
+            w = float(value)
+        except ValueError:
+            w = None
+        if not eq or not pattern or w is None or not (np.isfinite(w) and w > 0):
+            raise InputError(f"--relative-penalty takes PATTERN=W with W a number > 0 (e.g. "
+                             f"'gene_*=2'); got {spec!r}")
+        out[pattern] = w
+    return out
+
+
 def _per_target(table, result: RidgePath, targets) -> tuple[list, list]:
     """One table for one target; for several, the rows of each stacked under a ``target`` column."""
     if len(targets) == 1:
@@ -106,6 +154,10 @@ def explore(
     report: bool = True,
     extra: dict | None = None,
     inputs=(),
+    weights=None,
+    test_weights=None,
+    unpenalized=None,
+    relative_penalty=None,
 ) -> ExploreRun:
     """Fit the whole path on ``data`` and write ``path.csv``, ``coefficients.csv``, ``summary.json``.
 
@@ -138,6 +190,11 @@ def explore(
     inputs : iterable of paths, optional
         Files the run read besides those in ``input_sha256`` (e.g. a case file): no
         output may overwrite them (:class:`paths.data.output.OutputFolder`).
+    weights, test_weights : array_like, optional
+        Row weights of ``data`` (split with ``holdout``) and of ``test``
+        (:func:`paths.path.fit_path` ``sample_weight`` / ``test_weight``).
+    unpenalized, relative_penalty
+        Columns left unpenalized, relative penalties (:func:`paths.path.fit_path`).
     """
     from paths.data.validation import InputError
     from paths.present.figures import parse_formats, parse_width
@@ -167,16 +224,21 @@ def explore(
             train, held = split_holdout(X.shape[0], holdout, seed)
             X, y, X_test, y_test = X[train], y[train], X[held], y[held]
             split = {"holdout": holdout, "seed": seed, "n_test": int(held.size)}
+            if weights is not None:
+                weights, test_weights = np.asarray(weights)[train], np.asarray(weights)[held]
             if groups is not None and len(groups) == data.X.shape[0]:
                 groups = np.asarray(groups)[train]
         import pandas as pd
 
         frame = pd.DataFrame(X, columns=data.feature_names)
         result = fit_path(frame, y, n_lambdas=n_lambdas, standardize=standardize, solver=solver,
-                          X_test=X_test, y_test=y_test)
+                          X_test=X_test, y_test=y_test, sample_weight=weights,
+                          test_weight=test_weights if X_test is not None else None,
+                          unpenalized=unpenalized, relative_penalty=relative_penalty)
         selection, cv_record, cv_res = _selection(result, X, y, cv=cv, repeats=repeats, groups=groups,
                                                   folds=folds, cv_scaling=cv_scaling, seed=seed,
                                                   rule=rule)
+        summary_extra = _penalty_record(result, relative_penalty)
         summary = summary_dict(
             result,
             target=data.target_names[0] if len(data.target_names) == 1 else data.target_names,
@@ -191,6 +253,7 @@ def explore(
             cv=cv_record,
         )
         summary["selected"] = {**summary["selected"], **selection.as_dict(0)}
+        summary.update(summary_extra)
         if len(data.target_names) > 1:
             summary["targets"] = list(data.target_names)
             summary["by_target"] = {
@@ -216,6 +279,13 @@ def explore(
                                            width=width, x=x_axis, report=report)
     return ExploreRun(result=result, summary=summary, out_dir=folder.target,
                       files=folder.final_paths(files), selection=selection, cv=cv_res)
+
+
+def _penalty_record(result: RidgePath, relative_penalty) -> dict:
+    """summary.json keys for row weights, unpenalized columns and relative penalties."""
+    return {"weighted": bool(result.weighted), "unpenalized": list(result.unpenalized),
+            "relative_penalty": {str(k): float(v) for k, v in (
+                relative_penalty.items() if isinstance(relative_penalty, dict) else [])}}
 
 
 def write_saved_fit(dest: Path, result: RidgePath, selection, data: Dataset,

@@ -1,0 +1,898 @@
+"""Every closed form of the ridge path on the factors, in one place.
+
+Every engine (in memory, row-streamed, column-blocked wide, dask) only produces
+a :class:`FactorState` — the singular values :math:`d`, the right factors, the
+projections :math:`c = U^T y` and the part of the response outside the column
+span — and, in a second pass where needed, the row-wise quantities of
+:class:`LeverageRows` (one row of the left factor, the leverage left outside the
+span, the out-of-span residual) or the per-fold triangular factors of
+:func:`kfold_fold_mse`.  Everything else is computed here:
+
+- shrinkage gains :math:`g_j = d_j/(d_j^2+\\lambda)`, fractions
+  :math:`f_j = d_j^2/(d_j^2+\\lambda)` and complements
+  :math:`s_j = \\lambda/(d_j^2+\\lambda)` (never formed as :math:`1 - f_j`);
+- :math:`\\operatorname{df} = [\\text{intercept}] + \\sum_j f_j` (ESL eq. 3.50);
+- :math:`\\mathrm{RSS} = \\|y_\\perp\\|^2 + \\sum_j s_j^2 c_j^2`;
+- GCV :math:`= n\\,\\mathrm{RSS}/(n - \\operatorname{df})^2` (Golub, Heath &
+  Wahba 1979), :math:`n - \\operatorname{df} = (m - r) + \\sum_j s_j`, and its
+  :math:`\\lambda \\to 0^+` limit;
+- exact leave-one-out :math:`e_i/(1 - H_{ii})`;
+- exact K-fold held-out residuals :math:`(I - H_{ff})^{-1} e_f`;
+- the test error, the coefficients on the original scale, the minimum-norm limit.
+
+Scaled complements
+------------------
+Near :math:`\\lambda = 0` the complements underflow (:math:`s_j^2` is below the
+smallest float for :math:`\\lambda \\lesssim 10^{-160} d^2`), and GCV and
+leave-one-out are ratios of such quantities.  Every ratio is therefore written
+with the complements relative to the largest one,
+
+.. math:: \\hat s_j = s_j / s_r = (d_r^2 + \\lambda)/(d_j^2 + \\lambda) \\in (0, 1],
+
+which has the finite limit :math:`d_r^2/d_j^2` at :math:`\\lambda = 0`; the common
+factor :math:`s_r` cancels where the out-of-span part vanishes and multiplies a
+bounded sum elsewhere.  GCV, leave-one-out and their limits are then finite for
+every :math:`\\lambda` from 0 to the largest float, and equal to their
+:math:`\\lambda \\to 0^+` limits at :math:`\\lambda = 0` without a special case.
+
+Leverage near one
+-----------------
+:math:`1 - H_{ii} = \\ell_i + \\sum_j U_{ij}^2 s_j` with
+:math:`\\ell_i = 1 - [1/n] - \\|U_i\\|^2` the leverage left outside the span.  For
+rows whose :math:`\\ell_i` is small (a column non-zero in one row only, a rare
+level of a one-hot encoding) the subtraction loses every digit.  Those rows are
+recomputed from the complement: with the sample-space left factor
+:math:`\\tilde U = [1/\\sqrt n,\\ U]` split into these rows :math:`S` and the
+others :math:`O`, and :math:`\\tilde U_S = P \\Sigma Q^T` (full SVD),
+
+.. math:: (I - \\tilde U \\tilde U^T)_{SS} = P \\operatorname{diag}(\\delta) P^T,
+   \\qquad \\delta_k = \\|\\tilde U_O q_k\\|^2 = \\|R_O q_k\\|^2
+
+(:math:`\\delta_k = 1` past the rank of :math:`\\tilde U_S`), with :math:`R_O` the
+triangular factor of the other rows — a sum of squares, not a difference.  The
+out-of-span residuals of those rows follow the same way,
+:math:`e_{\\perp,S} = P[\\delta \\circ P^T y_S - \\Sigma (R_O Q)^T w]` with
+:math:`w = Q_O^T y_O`.  A leverage below its rounding level,
+:math:`\\ell_i \\le (10 \\max(n, r)\\,\\varepsilon)^2`, counts as exactly 1.
+
+References
+----------
+Golub, G. H., Heath, M. and Wahba, G. (1979). Generalized cross-validation as a
+method for choosing a good ridge parameter. *Technometrics* 21, 215–223.
+
+Hastie, T., Tibshirani, R. and Friedman, J. (2009). *The Elements of Statistical
+Learning*, 2nd ed., eq. 3.50 and §7.10.
+
+Liland, K. H., Skogholt, J. and Indahl, U. G. (2024). A new formula for faster
+computation of the K-fold cross-validation and good regularisation parameter
+values in ridge regression. *IEEE Access* 12, 17349–17368.
+
+Golub, G. H. and Van Loan, C. F. (2013). *Matrix Computations*, 4th ed.,
+§6.5.4 (downdating needs the complement of the column space).
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.linalg as sla
+
+__all__ = [
+    "FactorState", "factor_state", "Shrinkage", "shrinkage", "gains", "fractions",
+    "complements", "penalized_df", "degrees_of_freedom", "residual_dof", "rss", "gcv",
+    "gcv_limit", "Criteria", "criteria", "LeverageRows", "sample_space_blocks",
+    "leverage_rows", "state_blocks", "refine_leverage", "unrefined_rows", "naive_ell", "ell_tolerance", "LEVERAGE_REFINE", "loo_sums", "loo_mse",
+    "loo_residuals", "project", "test_sums", "coefficients", "min_norm_coefficients",
+    "intercepts", "coef_norm", "append_zero", "sample_weights", "path_coef_norm", "fold_factor", "kfold_fold_mse", "tsqr",
+]
+
+_EPS = np.finfo(np.float64).eps
+_BLOCK_ROWS = 4096
+#: rows whose computed leverage outside the span is below this are recomputed
+#: from the complement (at most (r + 1)/(1 - LEVERAGE_REFINE)... rows, see module notes)
+LEVERAGE_REFINE = 0.25
+
+
+# ------------------------------------------------------------------------- state
+@dataclass(frozen=True)
+class FactorState:
+    """The factor state every engine produces: enough for every criterion.
+
+    Attributes
+    ----------
+    d : ndarray, shape (r,)
+        Retained singular values of the reduced (centered, scaled) design, descending.
+    vt : ndarray, shape (r, q)
+        Right singular vectors (rows), on the active columns.
+    uty : ndarray, shape (r, t)
+        :math:`c = U^T y` on the reduced response.
+    rss_out : ndarray, shape (t,)
+        :math:`\\|y_\\perp\\|^2`, the squared norm of the response outside the
+        retained column span (with a truncated rank it includes the discarded part).
+    n_samples : int
+    fit_intercept : bool
+    u : ndarray, shape (m, r), or None
+        Left singular vectors in reduced coordinates (in-memory engines only).
+    resid_out : ndarray, shape (m, t), or None
+        :math:`y_\\perp` in reduced coordinates (in-memory engines only).
+    span : paths.core.design.FixedSpan or None
+        With row weights or unpenalized columns: the unpenalized span projected
+        out of the reduced coordinates (its columns take the place of the
+        intercept's :math:`1/\\sqrt n` everywhere below).  Every formula is then
+        that of the transformed problem :math:`W^{1/2}y, W^{1/2}X`: sums of
+        squares are weighted sums, and means divide by :math:`\\sum_i w_i`.
+    """
+
+    d: np.ndarray
+    vt: np.ndarray
+    uty: np.ndarray
+    rss_out: np.ndarray
+    n_samples: int
+    fit_intercept: bool
+    u: np.ndarray | None = None
+    resid_out: np.ndarray | None = None
+    span: object = None
+
+    @property
+    def n_fixed(self) -> int:
+        """Unpenalized parameters: the intercept, and unpenalized columns with a span."""
+        return self.span.c if self.span is not None else int(self.fit_intercept)
+
+    @property
+    def total_weight(self) -> float:
+        """:math:`\\sum_i w_i` (n without weights), the denominator of every mean error."""
+        return self.span.total_weight if self.span is not None else float(self.n_samples)
+
+    @property
+    def m(self) -> int:
+        """Rows of the reduced design: n minus the unpenalized parameters."""
+        return self.n_samples - self.n_fixed
+
+    @property
+    def rank(self) -> int:
+        return int(self.d.size)
+
+    @property
+    def n_targets(self) -> int:
+        return int(self.uty.shape[1])
+
+    @property
+    def full_row_rank(self) -> bool:
+        """True when the span holds every response (interpolation at λ = 0)."""
+        return self.rank == self.m
+
+
+def factor_state(fac, design) -> FactorState:
+    """The in-memory :class:`FactorState` of a factorization and its design.
+
+    ``fac`` is a :class:`paths.core.factor.Factorization` (``u``, ``d``, ``vt``),
+    ``design`` a :class:`paths.core.design.Design` (``zy``, ``n_samples``,
+    ``fit_intercept``).  The out-of-span residual :math:`y - Uc` is formed once;
+    at full row rank it is exactly zero (the computed difference would be
+    rounding, of order :math:`m\\varepsilon\\|y\\|`).
+    """
+    u, zy = fac.u, design.zy
+    c = u.T @ zy
+    if u.shape[1] == u.shape[0]:
+        resid = np.zeros_like(zy)
+    else:
+        resid = zy - u @ c
+    rss_out = _sumsq(resid)
+    for a in (c, resid, rss_out):
+        a.flags.writeable = False
+    return FactorState(d=fac.d, vt=fac.vt, uty=c, rss_out=rss_out,
+                       n_samples=design.n_samples, fit_intercept=design.fit_intercept,
+                       u=u, resid_out=resid, span=getattr(design, "span", None))
+
+
+def _sumsq(a: np.ndarray) -> np.ndarray:
+    """Column sums of squares, rescaled first so that they neither overflow nor underflow."""
+    a = np.asarray(a, dtype=np.float64)
+    if a.size == 0:
+        return np.zeros(a.shape[1:])
+    big = np.max(np.abs(a), axis=0)
+    if np.all((big < 1e150) & ((big > 1e-150) | (big == 0))):
+        return np.einsum("i...,i...->...", a, a)
+    safe = np.where(big > 0, big, 1.0)
+    s = a / safe
+    with np.errstate(over="ignore"):
+        return np.square(safe) * np.einsum("i...,i...->...", s, s)
+
+
+# --------------------------------------------------------------------- shrinkage
+@dataclass(frozen=True)
+class Shrinkage:
+    """Shrinkage of every singular direction at every penalty, shape (r, k).
+
+    Attributes
+    ----------
+    lam : ndarray, shape (k,)
+    f : ndarray, shape (r, k)
+        Fractions :math:`d_j^2/(d_j^2+\\lambda)`.
+    s : ndarray, shape (r, k)
+        Complements :math:`\\lambda/(d_j^2+\\lambda)`, computed directly.
+    s_max : ndarray, shape (k,)
+        The largest complement, :math:`s_r` (of the smallest singular value).
+    s_rel : ndarray, shape (r, k)
+        :math:`s_j/s_r = (d_r^2+\\lambda)/(d_j^2+\\lambda)`: in (0, 1], never
+        underflows, :math:`d_r^2/d_j^2` at :math:`\\lambda = 0`.
+    gain : ndarray, shape (r, k)
+        :math:`d_j/(d_j^2+\\lambda)` (:math:`1/d_j` at 0).
+    """
+
+    lam: np.ndarray
+    f: np.ndarray
+    s: np.ndarray
+    s_max: np.ndarray
+    s_rel: np.ndarray
+    gain: np.ndarray
+
+
+def _lam(lam) -> np.ndarray:
+    return np.atleast_1d(np.asarray(lam, dtype=np.float64)).reshape(-1)
+
+
+def shrinkage(d: np.ndarray, lam) -> Shrinkage:
+    """Fractions, complements, scaled complements and gains at penalties ``lam``.
+
+    Exact to a few ulps for every :math:`\\lambda \\in [0, \\text{max float}]`:
+    where :math:`d_j^2 + \\lambda` would overflow, numerator and denominator are
+    halved first (exact in binary).
+
+    Examples
+    --------
+    >>> sh = shrinkage(np.array([2.0, 1.0]), [0.0, 1.0])
+    >>> sh.f.tolist(), sh.s.tolist(), sh.s_rel.tolist()
+    ([[1.0, 0.8], [1.0, 0.5]], [[0.0, 0.2], [0.0, 0.5]], [[0.25, 0.4], [1.0, 1.0]])
+    """
+    lam = _lam(lam)
+    d = np.asarray(d, dtype=np.float64)
+    d2 = np.square(d)[:, None]
+    L = np.broadcast_to(lam[None, :], (d.size, lam.size))
+    with np.errstate(over="ignore"):
+        den = d2 + L
+    top = ~np.isfinite(den)
+    if top.any():  # both terms near the top of the range: halve (exact)
+        half = 0.5 * d2 + 0.5 * L
+        f = np.where(top, (0.5 * d2) / half, d2 / np.where(top, 1.0, den))
+        s = np.where(top, (0.5 * L) / half, L / np.where(top, 1.0, den))
+        den = np.where(top, half, den)
+        s_rel = den[-1:] / den
+        gain = f / d[:, None]
+    else:
+        f = d2 / den
+        s = L / den
+        s_rel = den[-1:] / den if d.size else den
+        gain = d[:, None] / den
+    s_max = s[-1] if d.size else np.zeros(lam.size)
+    return Shrinkage(lam=lam, f=f, s=s, s_max=s_max, s_rel=s_rel, gain=gain)
+
+
+def gains(d: np.ndarray, lam) -> np.ndarray:
+    """:math:`d_j/(d_j^2+\\lambda)`, shape (r, k); the min-norm :math:`1/d_j` at 0."""
+    return shrinkage(d, lam).gain
+
+
+def fractions(d: np.ndarray, lam) -> np.ndarray:
+    """:math:`f_j = d_j^2/(d_j^2+\\lambda)`, shape (r, k)."""
+    return shrinkage(d, lam).f
+
+
+def complements(d: np.ndarray, lam) -> np.ndarray:
+    """:math:`s_j = \\lambda/(d_j^2+\\lambda)`, shape (r, k), formed directly (not 1 − f)."""
+    return shrinkage(d, lam).s
+
+
+def penalized_df(d: np.ndarray, lam) -> np.ndarray:
+    """Effective df of the penalized part, :math:`\\sum_j d_j^2/(d_j^2+\\lambda)`.
+
+    Shape of ``lam`` (a scalar for a scalar).  ESL eq. 3.50.
+
+    Examples
+    --------
+    >>> float(penalized_df(np.array([1.0, 1.0]), 1.0))
+    1.0
+    """
+    shape = np.shape(lam)
+    return shrinkage(d, lam).f.sum(axis=0).reshape(shape)
+
+
+def degrees_of_freedom(state: FactorState, lam) -> np.ndarray:
+    """:math:`\\operatorname{tr} H_\\lambda`, the intercept's 1 included, shape (k,)."""
+    return state.n_fixed + shrinkage(state.d, lam).f.sum(axis=0)
+
+
+def residual_dof(state: FactorState, sh: Shrinkage) -> np.ndarray:
+    """:math:`n - \\operatorname{df} = (m - r) + \\sum_j s_j`, without cancellation, (k,)."""
+    return (state.m - state.rank) + sh.s.sum(axis=0)
+
+
+def _c_scaled(c: np.ndarray):
+    """``(c / cmax, cmax)`` per target, cmax = max |c_j| (1 where c is zero)."""
+    cmax = np.max(np.abs(c), axis=0) if c.size else np.ones(c.shape[1])
+    cmax = np.where(cmax > 0, cmax, 1.0)
+    return c / cmax, cmax
+
+
+def rss(state: FactorState, lam, sh: Shrinkage | None = None) -> np.ndarray:
+    """Residual sum of squares :math:`\\|y_\\perp\\|^2 + \\sum_j s_j^2 c_j^2`, shape (k, t)."""
+    sh = shrinkage(state.d, lam) if sh is None else sh
+    ch, cmax = _c_scaled(state.uty)
+    inner = np.square(sh.s_rel).T @ np.square(ch)  # (k, t), bounded by r
+    with np.errstate(under="ignore", over="ignore"):
+        scale = np.square(sh.s_max[:, None] * cmax[None, :])
+        return state.rss_out[None, :] + scale * inner
+
+
+def gcv_limit(state: FactorState) -> np.ndarray:
+    """GCV at :math:`\\lambda \\to 0^+`, shape (t,).
+
+    :math:`n\\|y_\\perp\\|^2/(m - r)^2` below full row rank; at full row rank
+    (interpolation) :math:`n \\sum_j c_j^2 d_j^{-4} / (\\sum_j d_j^{-2})^2`,
+    evaluated with :math:`d_r^2/d_j^2` so that it neither overflows nor underflows.
+    """
+    return gcv(state, [0.0])[0]
+
+
+def gcv(state: FactorState, lam, sh: Shrinkage | None = None) -> np.ndarray:
+    """Generalized cross-validation :math:`n\\,\\mathrm{RSS}/(n-\\operatorname{df})^2`, (k, t).
+
+    O(r t) per penalty.  Finite for every :math:`\\lambda \\ge 0`; at 0 it is
+    the :math:`\\lambda \\to 0^+` limit.
+
+    Notes
+    -----
+    With :math:`A = \\sum_j \\hat s_j^2 c_j^2` and :math:`B = \\sum_j \\hat s_j`
+    (scaled complements, module notes): :math:`n A / B^2` at full row rank
+    (:math:`s_r` cancels), else
+    :math:`n(\\|y_\\perp\\|^2 + s_r^2 A)/((m - r) + s_r B)^2`.
+    """
+    sh = shrinkage(state.d, lam) if sh is None else sh
+    n = state.n_samples
+    if state.span is not None:  # weighted: (RSS_w / sum w) / (1 - df/n)^2
+        n = n * (n / state.total_weight)
+    ch, cmax = _c_scaled(state.uty)
+    A = np.square(sh.s_rel).T @ np.square(ch)  # (k, t)
+    B = sh.s_rel.sum(axis=0)  # (k,)
+    with np.errstate(under="ignore", over="ignore"):
+        if state.full_row_rank:
+            return n * np.square(cmax[None, :] / B[:, None]) * A
+        num = state.rss_out[None, :] + np.square(sh.s_max[:, None] * cmax[None, :]) * A
+        den = (state.m - state.rank) + sh.s_max * B
+        return n * num / np.square(den)[:, None]
+
+
+# ----------------------------------------------------------- leave-one-out rows
+@dataclass(frozen=True)
+class LeverageRows:
+    """Row-wise quantities of a block of rows for leave-one-out, in sample space.
+
+    Attributes
+    ----------
+    u : ndarray, shape (b, r)
+        Rows of the sample-space left factor (centered, without the 1/√n column).
+    ell : ndarray, shape (b,)
+        Leverage outside the span, :math:`1 - H_{ii}(0)`; exactly 0 where the row
+        is interpolated.
+    e_perp : ndarray, shape (b, t)
+        Out-of-span residuals :math:`(y_\\perp)_i` (0 where ``ell`` is 0).
+    """
+
+    u: np.ndarray
+    ell: np.ndarray
+    e_perp: np.ndarray
+
+
+def sample_space_blocks(u: np.ndarray, fit_intercept: bool, block: int = _BLOCK_ROWS):
+    """Yield ``(start, stop, rows)`` of the sample-space factor :math:`Q[0; u]`.
+
+    ``u`` has m reduced rows (n = m + 1 sample rows with an intercept, see
+    :func:`paths.core.design.to_sample_space`); the factor is never formed.
+    ``rows`` is a view of ``u`` (no intercept) or of one buffer reused for
+    every block: use it before asking for the next block.
+    """
+    m = u.shape[0]
+    if not fit_intercept:
+        for s in range(0, m, block):
+            yield s, min(s + block, m), u[s:s + block]
+        return
+    n = m + 1
+    rn = np.sqrt(n)
+    colsum = u.sum(axis=0)
+    shift = colsum / (n + rn)
+    buf = np.empty((min(block, n),) + u.shape[1:])
+    for s in range(0, n, block):
+        e = min(s + block, n)
+        lo, hi = max(s - 1, 0), e - 1
+        rows = buf[:e - s]
+        if s == 0:
+            rows[0] = -colsum / rn
+            np.subtract(u[lo:hi], shift, out=rows[1:])
+        else:
+            np.subtract(u[lo:hi], shift, out=rows)
+        yield s, e, rows
+
+
+def state_blocks(state: FactorState, a: np.ndarray, block: int = _BLOCK_ROWS):
+    """:func:`sample_space_blocks` of reduced rows ``a`` for ``state`` (its span, if any)."""
+    if state.span is None:
+        yield from sample_space_blocks(a, state.fit_intercept, block)
+        return
+    full = state.span.to_sample(a)
+    for s in range(0, full.shape[0], block):
+        yield s, min(s + block, full.shape[0]), full[s:s + block]
+
+
+def ell_tolerance(n: int, r: int) -> float:
+    """Leverage outside the span below which a row counts as interpolated.
+
+    The refined :math:`\\ell_i` is a sum of squares of quantities known to about
+    :math:`\\max(n, r)\\,\\varepsilon` (backward error of the factors), so it is
+    indistinguishable from 0 below :math:`(10 \\max(n, r)\\,\\varepsilon)^2`.
+    """
+    return (10.0 * max(n, r) * _EPS) ** 2
+
+
+def naive_ell(state: FactorState, ub: np.ndarray, start: int = 0) -> np.ndarray:
+    """:math:`1 - [1/n] - \\|u_i\\|^2` (accurate where it is not small; see refine).
+
+    With a span, :math:`1 - \\|Q_{1,i}\\|^2 - \\|u_i\\|^2` for the rows from ``start``.
+    """
+    if state.full_row_rank:
+        return np.zeros(ub.shape[0])
+    if state.span is not None:
+        base = 1.0 - state.span.leverage[start:start + ub.shape[0]]
+    else:
+        base = 1.0 - 1.0 / state.n_samples if state.fit_intercept else 1.0
+    return np.maximum(base - np.einsum("ir,ir->i", ub, ub), 0.0)
+
+
+def unrefined_rows(state: FactorState, ub: np.ndarray, e_perp: np.ndarray) -> LeverageRows:
+    """:class:`LeverageRows` from the subtraction formulas alone (no complement at hand).
+
+    A leverage outside the span at or below :math:`100\\,m\\,\\varepsilon` (the
+    rounding level of :math:`1 - \\|u_i\\|^2`) counts as 0; above it the relative
+    error is about :math:`m\\varepsilon/\\ell_i`.  Prefer :func:`refine_leverage`.
+    """
+    ell = naive_ell(state, ub)
+    zero = ell <= 100 * state.m * _EPS
+    ell[zero] = 0.0
+    ep = np.where(zero[:, None], 0.0, e_perp)
+    return LeverageRows(u=ub, ell=ell, e_perp=ep)
+
+
+def _augment(state: FactorState, ub: np.ndarray, start: int = 0) -> np.ndarray:
+    """Rows of :math:`\\tilde U = [1/\\sqrt n,\\ U]` (the intercept column first).
+
+    With a span, :math:`[Q_1,\\ U]` for the rows from ``start``.
+    """
+    if state.span is not None:
+        return np.hstack([state.span.q1[start:start + ub.shape[0]], ub])
+    if not state.fit_intercept:
+        return ub
+    return np.hstack([np.full((ub.shape[0], 1), 1.0 / np.sqrt(state.n_samples)), ub])
+
+
+def tsqr(blocks, width: int) -> np.ndarray:
+    """Upper-triangular R (width × width) of the rows yielded by ``blocks`` (tall-skinny QR)."""
+    R = np.zeros((0, width))
+    for b in blocks:
+        if b.shape[0] == 0:
+            continue
+        R = _qr_r(np.vstack([R, b]), width)
+    return R if R.shape[0] == width else np.vstack([R, np.zeros((width - R.shape[0], width))])
+
+
+def _qr_r(a: np.ndarray, width: int) -> np.ndarray:
+    r = sla.qr(a, mode="r", check_finite=False)[0]
+    return r[:min(a.shape[0], width)]
+
+
+def refine_leverage(state: FactorState, ua_s: np.ndarray, y_s: np.ndarray,
+                    r_other: np.ndarray):
+    """Leverage outside the span and out-of-span residuals of high-leverage rows.
+
+    Parameters
+    ----------
+    state : FactorState
+    ua_s : ndarray, shape (s, ra)
+        The rows, augmented (:math:`[1/\\sqrt n,\\ u_i]` with an intercept).
+    y_s : ndarray, shape (s, t)
+        Their centered responses.
+    r_other : ndarray, shape (ra + t, ra + t)
+        Triangular factor of :math:`[\\tilde U_O,\\ y_O]` over all the other rows.
+
+    Returns
+    -------
+    ell : ndarray, shape (s,)
+    e_perp : ndarray, shape (s, t)
+
+    Notes
+    -----
+    See the module notes: every eigenvalue of the complement block is the
+    squared norm :math:`\\|R_O q_k\\|^2`, never :math:`1 - \\sigma_k^2`.
+    """
+    s, ra = ua_s.shape
+    Rx, w = r_other[:ra, :ra], r_other[:ra, ra:]
+    P, sig, Qt = np.linalg.svd(ua_s, full_matrices=True)
+    kk = sig.size
+    RQ = Rx @ Qt[:kk].T  # (ra, kk)
+    delta = np.ones(s)
+    delta[:kk] = np.einsum("ik,ik->k", RQ, RQ)
+    cross = np.zeros((s, y_s.shape[1]))
+    cross[:kk] = sig[:, None] * (RQ.T @ w)
+    ell = np.square(P) @ delta
+    e_perp = P @ (delta[:, None] * (P.T @ y_s) - cross)
+    zero = ell <= ell_tolerance(state.n_samples, state.rank + state.n_fixed)
+    ell[zero] = 0.0
+    e_perp[zero] = 0.0
+    return ell, e_perp
+
+
+def leverage_rows(state: FactorState, block: int = _BLOCK_ROWS):
+    """Yield ``(start, stop, LeverageRows)`` over the sample rows (in-memory state).
+
+    Rows whose computed leverage outside the span is below
+    :data:`LEVERAGE_REFINE` are recomputed by :func:`refine_leverage` (one
+    extra tall-skinny QR of the other rows, only when such rows exist).
+    """
+    if state.u is None:
+        raise ValueError("leverage_rows needs the left factor (an in-memory FactorState)")
+    fixes = _refined_rows(state, block)
+    e_blocks = state_blocks(state, state.resid_out, block)
+    for (s, e, ub), (_, _, eb) in zip(state_blocks(state, state.u, block), e_blocks):
+        ell = naive_ell(state, ub, s)
+        ep = np.zeros(eb.shape) if state.full_row_rank else eb.copy()
+        if fixes is not None:
+            idx, ell_s, ep_s = fixes
+            sel = (idx >= s) & (idx < e)
+            if sel.any():
+                ell[idx[sel] - s] = ell_s[sel]
+                ep[idx[sel] - s] = ep_s[sel]
+        yield s, e, LeverageRows(u=ub, ell=ell, e_perp=ep)
+
+
+def _refined_rows(state: FactorState, block: int):
+    """``(indices, ell, e_perp)`` of the high-leverage rows, or None when there are none."""
+    if state.full_row_rank:
+        return None
+    flagged = []
+    for s, e, ub in state_blocks(state, state.u, block):
+        flagged.append(s + np.flatnonzero(naive_ell(state, ub, s) < LEVERAGE_REFINE))
+    idx = np.concatenate(flagged)
+    if idx.size == 0:
+        return None
+    t = state.n_targets
+    ra = state.rank + state.n_fixed
+    is_s = np.zeros(state.n_samples, dtype=bool)
+    is_s[idx] = True
+    ua_s = np.empty((idx.size, ra))
+    y_s = np.empty((idx.size, t))
+
+    def others():
+        yb_iter = state_blocks(state, _centered_response(state), block)
+        for (s, e, ub), (_, _, yb) in zip(state_blocks(state, state.u, block), yb_iter):
+            keep = ~is_s[s:e]
+            ua = _augment(state, ub, s)
+            sel = idx[(idx >= s) & (idx < e)]
+            pos = np.searchsorted(idx, sel)
+            ua_s[pos] = ua[sel - s]
+            y_s[pos] = yb[sel - s]
+            yield np.hstack([ua[keep], yb[keep]])
+
+    R = tsqr(others(), ra + t)
+    ell, ep = refine_leverage(state, ua_s, y_s, R)
+    return idx, ell, ep
+
+
+def _centered_response(state: FactorState) -> np.ndarray:
+    """The reduced response :math:`Uc + y_\\perp` (sample space via the blocks)."""
+    return state.u @ state.uty + state.resid_out
+
+
+def loo_sums(rows: LeverageRows, sh: Shrinkage, c: np.ndarray) -> np.ndarray:
+    """Sum over the block's rows of the squared leave-one-out residuals, (k, t).
+
+    Residual :math:`(e_{\\perp,i} + s_r a_i)/(\\ell_i + s_r b_i)` with
+    :math:`a_i = \\sum_j u_{ij}\\hat s_j c_j`, :math:`b_i = \\sum_j u_{ij}^2 \\hat s_j`;
+    :math:`a_i/b_i` on interpolated rows (:math:`\\ell_i = 0`).  Equal to its
+    :math:`\\lambda \\to 0^+` limit at :math:`\\lambda = 0`.
+    """
+    res = _loo_res(rows, sh, c)
+    np.square(res, out=res)
+    return res.sum(axis=0)
+
+
+def _loo_res(rows: LeverageRows, sh: Shrinkage, c: np.ndarray) -> np.ndarray:
+    ub = rows.u
+    b, (r, k), t = ub.shape[0], sh.s_rel.shape, c.shape[1]
+    SC = (sh.s_rel[:, :, None] * c[:, None, :]).reshape(r, k * t)
+    num = (ub @ SC).reshape(b, k, t)
+    den = np.square(ub) @ sh.s_rel  # (b, k)
+    out = rows.ell > 0
+    if out.any():
+        with np.errstate(under="ignore"):
+            num[out] *= sh.s_max[None, :, None]
+            den[out] *= sh.s_max[None, :]
+        num[out] += rows.e_perp[out][:, None, :]
+        den[out] += rows.ell[out][:, None]
+    num /= den[:, :, None]
+    return num
+
+
+def append_zero(lam: np.ndarray):
+    """Penalties with 0 appended (for the min-norm limit) and whether it was added."""
+    if lam.size and lam[-1] == 0:
+        return lam, False
+    return np.append(lam, 0.0), True
+
+
+def loo_mse(state: FactorState, lam) -> tuple[np.ndarray, np.ndarray]:
+    """Exact leave-one-out MSE on the grid (k, t) and at the min-norm limit (t,).
+
+    In-memory state; O(n r k t).  Leave-one-out residuals are
+    :math:`e_i(\\lambda)/(1 - H_{ii}(\\lambda))` (see :func:`loo_sums`).
+    """
+    lam = _lam(lam)
+    full, added = append_zero(lam)
+    sh = shrinkage(state.d, full)
+    r, k, t = state.rank, full.size, state.n_targets
+    total = np.zeros((k, t))
+    blk = int(min(_BLOCK_ROWS, max(256, (1 << 19) // max(r, k * t, 1))))
+    for _, _, rows in leverage_rows(state, blk):
+        total += loo_sums(rows, sh, state.uty)
+    total /= state.total_weight
+    return (total[:-1] if added else total), total[-1]
+
+
+def loo_residuals(state: FactorState, lam) -> np.ndarray:
+    """Exact leave-one-out residuals :math:`y_i - \\hat y_{(-i)}`, shape (n, k, t) (in memory).
+
+    With row weights, those of the weighted refits without row i (the
+    transformed residual divided by :math:`\\sqrt{w_i}`).
+    """
+    sh = shrinkage(state.d, lam)
+    out = np.empty((state.n_samples, sh.lam.size, state.n_targets))
+    for s, e, rows in leverage_rows(state):
+        out[s:e] = _loo_res(rows, sh, state.uty)
+    if state.span is not None:
+        out /= state.span.sqrt_w[:, None, None]
+    return out
+
+
+# ---------------------------------------------------------------------- criteria
+@dataclass(frozen=True)
+class Criteria:
+    """Path criteria on a grid, with their :math:`\\lambda \\to 0^+` limits.
+
+    Arrays have shape (k,) for ``df`` and (k, t) otherwise; the ``*0`` fields
+    have shape (t,).  ``loo_mse`` and ``loo_mse0`` are None when the state has
+    no left factor (streaming engines compute them in a second pass).
+    """
+
+    df: np.ndarray
+    train_mse: np.ndarray
+    gcv: np.ndarray
+    loo_mse: np.ndarray | None
+    train_mse0: np.ndarray
+    gcv0: np.ndarray
+    loo_mse0: np.ndarray | None
+
+
+def criteria(state: FactorState, lam, *, loo: bool = True) -> Criteria:
+    """df, training MSE, GCV and (in memory) exact leave-one-out MSE at ``lam``.
+
+    Cost O(r k t), plus O(n r k t) for leave-one-out; no refit.
+    """
+    lam = _lam(lam)
+    n = state.total_weight
+    full, added = append_zero(lam)
+    sh = shrinkage(state.d, full)
+    g = gcv(state, full, sh)
+    train = rss(state, full, sh) / n
+    df = state.n_fixed + sh.f.sum(axis=0)
+    looo = loo0 = None
+    if loo and state.u is not None:
+        looo, loo0 = loo_mse(state, lam)
+    cut = slice(0, -1) if added else slice(None)
+    return Criteria(df=df[cut], train_mse=train[cut], gcv=g[cut], loo_mse=looo,
+                    train_mse0=state.rss_out / n, gcv0=g[-1], loo_mse0=loo0)
+
+
+# ------------------------------------------------------------- predictions, test
+def project(proj: np.ndarray, gain: np.ndarray, c: np.ndarray) -> np.ndarray:
+    """:math:`\\sum_j P_{ij} g_{jk} c_{jt}`, shape (i, k, t), as one matrix product."""
+    r, k = gain.shape
+    t = c.shape[1]
+    gc = (gain[:, :, None] * c[:, None, :]).reshape(r, k * t)
+    return (proj @ gc).reshape(proj.shape[0], k, t)
+
+
+def test_sums(state: FactorState, lam, proj: np.ndarray, yc: np.ndarray):
+    """Sums of squared test residuals on the grid (k, t) and at the min-norm limit (t,).
+
+    ``proj`` are the test rows centered and scaled as the training rows, times
+    :math:`V` (shape (b, r)); ``yc`` the test responses minus the training mean.
+    Divide by the number of test rows for the test MSE.
+    """
+    lam = _lam(lam)
+    full, added = append_zero(lam)
+    res = yc[:, None, :] - project(proj, gains(state.d, full), state.uty)
+    sq = np.einsum("ikt,ikt->kt", res, res)
+    return (sq[:-1] if added else sq), sq[-1]
+
+
+# ------------------------------------------------------------------ coefficients
+def coefficients(state: FactorState, lam, design) -> np.ndarray:
+    """Coefficients on the original feature scale, shape (k, p, t).
+
+    :math:`\\beta_\\lambda = V \\operatorname{diag}(g)\\, c`, divided by the column
+    scales; constant (inactive) columns get 0.
+    """
+    lam = _lam(lam)
+    g = gains(state.d, lam)
+    if state.span is not None:
+        return _span_coefficients(state, g, design)
+    k, t = lam.size, state.n_targets
+    act = design.active
+    inv_scale = 1.0 / design.x_scale[act]
+    scaled = not np.all(inv_scale == 1.0)
+    if t == 1 and act.all():
+        cj = (g * state.uty).T @ state.vt  # (k, p)
+        if scaled:
+            cj *= inv_scale
+        return cj[:, :, None]
+    coef = np.zeros((k, design.n_features, t))
+    for j in range(t):
+        cj = (g * state.uty[:, j:j + 1]).T @ state.vt
+        if scaled:
+            cj *= inv_scale
+        coef[:, act, j] = cj
+    return coef
+
+
+def _span_coefficients(state: FactorState, g: np.ndarray, design) -> np.ndarray:
+    """Coefficients (k, p, t) with a span: penalized ones from the factors, the
+    unpenalized ones :math:`R^{-1}(Q_1^T \\tilde y - Q_1^T \\tilde X \\beta)`.
+
+    The span's intercept coefficient is zero up to rounding (the columns and
+    the response are weighted-centered first), so :func:`intercepts` applies.
+    """
+    k, t = g.shape[1], state.n_targets
+    beta = np.einsum("rq,rk,rt->qkt", state.vt, g, state.uty)  # (q, k, t)
+    fixed = state.span.fixed_coef(beta)[int(state.span.intercept):]  # (c', k, t)
+    coef = np.zeros((k, design.n_features, t))
+    act, unp = design.active, design.unpenalized
+    coef[:, act, :] = np.moveaxis(beta / design.x_scale[act][:, None, None], 0, 1)
+    if unp is not None and unp.any():
+        coef[:, unp, :] = np.moveaxis(fixed / design.x_scale[unp][:, None, None], 0, 1)
+    return coef
+
+
+def sample_weights(state: FactorState, lam) -> np.ndarray:
+    """Weights :math:`a = U \\operatorname{diag}(g/d)\\, c`, shape (m, k, t), in reduced rows.
+
+    The standardized coefficients are :math:`Z^T a` — the form an engine that
+    holds the left factor but not the right one (column-blocked wide data) uses;
+    :math:`\\lambda = 0` gives the minimum-norm fit, :math:`U D^{-2} c`.
+    """
+    g = gains(state.d, lam)
+    return np.einsum("mr,rk,rt->mkt", state.u, g / state.d[:, None], state.uty)
+
+
+def min_norm_coefficients(state: FactorState, design):
+    """The :math:`\\lambda \\to 0^+` limit: ``(coef (p, t), beta_std (t, q))``.
+
+    ``beta_std`` is :math:`V D^{-1} c` on the scale the penalty acts on (its norm
+    is the min-norm coefficient norm); ``coef`` the same on the original scale.
+    """
+    beta0 = (state.uty / state.d[:, None]).T @ state.vt  # (t, q)
+    if state.span is not None:
+        return _span_coefficients(state, (1.0 / state.d)[:, None], design)[0], beta0
+    coef0 = np.zeros((design.n_features, state.n_targets))
+    coef0[design.active] = (beta0 / design.x_scale[design.active]).T
+    return coef0, beta0
+
+
+def intercepts(coef: np.ndarray, design) -> np.ndarray:
+    """:math:`\\bar y - \\bar x^T \\beta` for coefficients (..., p, t), shape (..., t)."""
+    return design.y_mean - np.einsum("...pt,p->...t", coef, design.x_mean)
+
+
+def path_coef_norm(state: FactorState, lam) -> np.ndarray:
+    """:math:`\\|\\beta_\\lambda\\| = (\\sum_j g_j^2 c_j^2)^{1/2}` on the penalized scale, (k, t)."""
+    g = gains(state.d, lam)
+    return np.sqrt(np.einsum("rk,rt->kt", np.square(g), np.square(state.uty)))
+
+
+def coef_norm(beta_std: np.ndarray) -> np.ndarray:
+    """Euclidean norm over the last axis, overflow safe."""
+    return np.sqrt(_sumsq(np.moveaxis(beta_std, -1, 0)))
+
+
+# ------------------------------------------------------------------------ K-fold
+def fold_factor(ua: np.ndarray, yc: np.ndarray) -> np.ndarray:
+    """Triangular factor of one fold's rows :math:`[\\tilde U_f,\\ y_f]` (square, ra + t)."""
+    return tsqr([np.hstack([ua, yc])], ua.shape[1] + yc.shape[1])
+
+
+def kfold_fold_mse(d: np.ndarray, fold_r: np.ndarray, counts: np.ndarray, lam, *,
+                   fit_intercept: bool, rtol: float | None = None) -> np.ndarray:
+    """Exact K-fold held-out MSE per fold, shape (K, k, t), from per-fold triangular factors.
+
+    Parameters
+    ----------
+    d : ndarray, shape (r,)
+    fold_r : ndarray, shape (K, ra + t, ra + t)
+        :func:`fold_factor` of every fold (``ra = r + fit_intercept``; the
+        intercept column :math:`1/\\sqrt n` first).
+    counts : ndarray, shape (K,)
+        Rows per fold.
+    lam : array_like, shape (k,)
+    fit_intercept : bool
+    rtol : float, optional
+        Relative tolerance below which a direction of the training folds counts
+        as absent (default ``max(sum(counts), r)·eps``).
+
+    Notes
+    -----
+    The held-out residuals :math:`(I - H_{ff})^{-1} e_f` (Liland, Skogholt &
+    Indahl 2024) are those of the refit on the other folds, with the
+    preprocessing held fixed.  In the coordinates of the factors that refit is
+    :math:`\\min_{a,b} \\|y_O - a/\\sqrt n - U_O D b\\|^2 + \\lambda \\|b\\|^2`,
+    solved from :math:`R_O` (the triangular factor of the other folds, merged
+    from their factors by prefix and suffix QR) and the SVD
+    :math:`R_{O,U} D = P \\Sigma W^T`: every quantity is a square root (the
+    complement :math:`\\sum_{g \\ne f} \\tilde U_g^T \\tilde U_g` of the fold is
+    never formed as :math:`I - \\tilde U_f^T \\tilde U_f`), so it stays accurate
+    as leverages tend to 1, and at :math:`\\lambda = 0` it is the limit of the
+    refits (directions the other folds do not see get gain 0).  Cost
+    :math:`O(K r^3 + K k r^2 t)`.
+    """
+    lam = _lam(lam)
+    K, w_all, _ = fold_r.shape
+    r = d.size
+    ra = r + int(fit_intercept)
+    t = w_all - ra
+    if rtol is None:
+        rtol = max(int(np.sum(counts)), r) * _EPS
+    prefix = [np.zeros((0, w_all))]
+    for f in range(K - 1):
+        prefix.append(_qr_r(np.vstack([prefix[-1], fold_r[f]]), w_all))
+    suffix = [np.zeros((0, w_all))] * K
+    for f in range(K - 1, 0, -1):
+        suffix[f - 1] = _qr_r(np.vstack([fold_r[f], suffix[f]]), w_all)
+    out = np.empty((K, lam.size, t))
+    for f in range(K):
+        Ro = _qr_r(np.vstack([prefix[f], suffix[f]]), w_all)
+        if Ro.shape[0] < w_all:
+            Ro = np.vstack([Ro, np.zeros((w_all - Ro.shape[0], w_all))])
+        X = _refit_coords(Ro, d, lam, ra, fit_intercept, rtol)  # (ra, k, t)
+        Rf = fold_r[f]
+        fit = np.einsum("ij,jkt->ikt", Rf[:ra, :ra], X)
+        res = Rf[:ra, None, ra:] - fit
+        rest = np.einsum("it,it->t", Rf[ra:, ra:], Rf[ra:, ra:])
+        out[f] = (np.einsum("ikt,ikt->kt", res, res) + rest[None, :]) / counts[f]
+    return out
+
+
+def _refit_coords(Ro, d, lam, ra, fit_intercept, rtol):
+    """Coefficients (ra, k, t) on :math:`\\tilde U` of the ridge refit with factor ``Ro``."""
+    t = Ro.shape[1] - ra
+    o = int(fit_intercept)
+    Rg, wg = Ro[o:ra, o:ra], Ro[o:ra, ra:]
+    M = Rg * d[None, :]
+    P, sig, Wt = np.linalg.svd(M)
+    keep = sig > rtol * (sig[0] if sig.size else 0.0)
+    sk = np.where(keep, sig, 0.0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        g = np.where(keep[:, None], sk[:, None] / (np.square(sk)[:, None] + lam[None, :]), 0.0)
+    Pw = P.T @ wg  # (r, t)
+    b = np.einsum("jr,rk,rt->jkt", Wt.T, g, Pw)  # (r, k, t)
+    xg = d[:, None, None] * b
+    X = np.empty((ra, lam.size, t))
+    X[o:] = xg
+    if fit_intercept:
+        rho = Ro[0, 0]
+        X[0] = (Ro[0, ra:][None, :] - np.einsum("j,jkt->kt", Ro[0, 1:ra], xg)) / rho
+    return X
