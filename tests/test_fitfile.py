@@ -217,3 +217,53 @@ def test_round_trip_weights_and_unpenalized():
                    lambda a, h: a.update(span_sqrt_w=-a["span_sqrt_w"]))
     with pytest.raises(InputError, match="not positive"):
         load_fit(bad)
+
+
+def test_crafted_npy_header_asking_for_a_huge_array():
+    """An array member whose own .npy header declares a huge shape is refused from the
+    header alone (nothing allocated), like one declaring an object dtype."""
+    good = _good_bytes()
+    with zipfile.ZipFile(io.BytesIO(good)) as zf:
+        members = {n: zf.read(n) for n in zf.namelist()}
+    inner = io.BytesIO()
+    np.lib.format.write_array_header_1_0(inner, {"descr": "<f8", "fortran_order": False,
+                                                 "shape": (10 ** 12,)})
+    for name, pattern in [("fac_d.npy", "shape"), ("lambdas.npy", "shape")]:
+        crafted = dict(members)
+        crafted[name] = inner.getvalue()
+        buf = io.BytesIO()
+        with zipfile.ZipFile(buf, "w") as zf:
+            for n, data in crafted.items():
+                zf.writestr(n, data)
+        buf.seek(0)
+        with pytest.raises(InputError, match=pattern):
+            load_fit(buf)
+
+
+def test_corrupted_bytes_never_escape_as_other_errors():
+    """Every single-byte corruption of a valid file loads or is refused with InputError
+    (fuzzing by exhaustion over a stride of positions; common practice, no source)."""
+    good = bytearray(_good_bytes())
+    for pos in range(0, len(good), max(1, len(good) // 400)):
+        bad = bytearray(good)
+        bad[pos] ^= 0xFF
+        try:
+            load_fit(io.BytesIO(bytes(bad)))
+        except InputError:
+            pass
+
+
+@pytest.mark.parametrize("field,value", [("reported", "gcv"), ("rules", {"gcv": "x"}),
+                                         ("preparation", {"encoding": {"a": 3}}),
+                                         ("rank_tol", "big"), ("solver", 3)])
+def test_malformed_header_records(field, value):
+    buf = _rewrite(_good_bytes(), lambda a, h: h.update({field: value}))
+    with pytest.raises(InputError, match="malformed"):
+        load_fit(buf)
+
+
+def test_values_out_of_range_refused():
+    """Finite but absurd singular values (squares overflow) are refused, not a traceback."""
+    buf = _rewrite(_good_bytes(), lambda a, h: a.update(fac_d=a["fac_d"] * 1e300))
+    with pytest.raises(InputError, match="float64 range"):
+        load_fit(buf)

@@ -277,6 +277,15 @@ def test_cli_weights_unpenalized_and_refusals(tmp_path):
     b0, beta, kappa = _augmented(X / sd, y, w, lam, unpen=[0], factor=factor)
     tol = 1e3 * 40 * kappa * EPS * np.abs(beta).max()
     assert_allclose(fit.coef * sd, beta, rtol=0, atol=tol)
+    r = runner.invoke(app, ["predict", str(out / "fit.npz"), str(tmp_path / "d.csv"), "-o",
+                            str(tmp_path / "p.csv"), "--lambda", str(lam)])
+    assert r.exit_code == 0, r.output
+    got = np.array([float(line.split(",")[1]) for line in
+                    (tmp_path / "p.csv").read_text().splitlines()[1:]])
+    assert_allclose(got, b0 + (X / sd) @ beta, rtol=0, atol=10 * tol * np.abs(X / sd).max())
+    r = runner.invoke(app, ["predict", str(out / "fit.npz"), str(tmp_path / "d.csv"), "-o",
+                            str(tmp_path / "p2.csv"), "--intervals", "0.9"])
+    assert r.exit_code == 2 and "not available for a fit with row weights" in r.output
     for args, pattern in [(["--engine", "stream"], "not available with --engine stream"),
                           (["--relative-penalty", "g2=0"], "PATTERN=W"),
                           (["--unpenalized", "zzz"], "matches no column")]:

@@ -34,7 +34,9 @@ from __future__ import annotations
 import io
 import json
 import platform
+import struct
 import zipfile
+import zlib
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -192,12 +194,21 @@ def _read_header(zf: zipfile.ZipFile, src) -> dict:
         raise _refuse(src, "the fit header is implausibly large; the file is damaged or not a "
                            "paths fit")
     with zf.open("header.npy") as fh:
-        raw = np.lib.format.read_array(fh, allow_pickle=False)
-    if raw.dtype != np.uint8 or raw.ndim != 1:
-        raise _refuse(src, "the fit header is not UTF-8 JSON bytes; the file is not a paths fit")
+        fmt = np.lib.format
+        try:
+            version = fmt.read_magic(fh)
+            reader = fmt.read_array_header_1_0 if version == (1, 0) else fmt.read_array_header_2_0
+            shape, _, dtype = reader(fh)
+        except (ValueError, TypeError, SyntaxError):
+            raise _refuse(src, "the fit header is not a valid .npy member; the file is "
+                               "damaged") from None
+        if dtype != np.uint8 or len(shape) != 1 or shape[0] > _HEADER_LIMIT:
+            raise _refuse(src, "the fit header is not UTF-8 JSON bytes; the file is not a "
+                               "paths fit")
+        raw = np.frombuffer(fh.read(shape[0]), dtype=np.uint8)
     try:
         header = json.loads(raw.tobytes().decode("utf-8"))
-    except (UnicodeDecodeError, json.JSONDecodeError):
+    except (UnicodeDecodeError, json.JSONDecodeError, RecursionError):
         raise _refuse(src, "the fit header is not valid JSON; the file is damaged") from None
     if not isinstance(header, dict) or header.get("format") != FORMAT:
         raise _refuse(src, "not a saved paths fit (format is not 'paths-fit'); pass the fit.npz "
@@ -252,6 +263,41 @@ def _check_header(h: dict, src) -> None:
                            "file is damaged")
     if not (h["n_targets"] >= 1 and (h["multi_target"] or h["n_targets"] == 1)):
         raise _refuse(src, "inconsistent number of targets; the file is damaged")
+    _check_records(h, src)
+
+
+def _check_records(h: dict, src) -> None:
+    """The header's records (reported rule, rules, preparation, solver) have their types."""
+    def bad(key):
+        return _refuse(src, f"header field {key!r} is malformed; the file is damaged")
+
+    rep = h.get("reported")
+    if not isinstance(rep, dict) or not isinstance(rep.get("rule"), str):
+        raise bad("reported")
+    rules = h.get("rules", {})
+    if not isinstance(rules, dict) or not all(
+            v is None or (isinstance(v, list) and all(
+                isinstance(x, (int, float)) and not isinstance(x, bool) for x in v))
+            for v in rules.values()):
+        raise bad("rules")
+    prep = h.get("preparation", {})
+    if not isinstance(prep, dict):
+        raise bad("preparation")
+    enc = prep.get("encoding") or {}
+    cols = prep.get("source_columns") or []
+    if (not isinstance(enc, dict) or not all(isinstance(v, list) and all(
+            isinstance(x, str) for x in v) for v in enc.values())
+            or not isinstance(cols, list) or not all(isinstance(c, str) for c in cols)
+            or not isinstance(prep.get("id_column") or "", str)
+            or prep.get("drop_missing") not in (None, "rows", "columns")):
+        raise bad("preparation")
+    for key in ("rank_tol", "d_max", "d_min"):
+        v = h.get(key, 0.0)
+        if not isinstance(v, (int, float)) or isinstance(v, bool):
+            raise bad(key)
+    for key in ("solver", "solver_reason"):
+        if not isinstance(h.get(key, ""), str):
+            raise bad(key)
 
 
 def _read_arrays(zf: zipfile.ZipFile, h: dict, src) -> dict:
@@ -271,22 +317,39 @@ def _read_arrays(zf: zipfile.ZipFile, h: dict, src) -> dict:
         if zf.getinfo(key + ".npy").file_size > nbytes + _NPY_OVERHEAD:
             raise _refuse(src, f"array {key} is larger than its header says {tuple(shape)}; "
                                "the file is damaged")
-        try:
-            with zf.open(key + ".npy") as fh:
-                a = np.lib.format.read_array(fh, allow_pickle=False)
-        except ValueError as exc:
-            why = "holds Python objects (refused: never unpickled)" if "allow_pickle" in str(
-                exc) else "cannot be read"
-            raise _refuse(src, f"array {key} {why}; the file is damaged or not a paths fit") \
-                from None
-        if a.dtype != np.dtype(dtype) or a.shape != tuple(shape):
-            raise _refuse(src, f"array {key} has {a.dtype} shape {a.shape}, expected {dtype} "
-                               f"shape {tuple(shape)}; the file is damaged")
+        with zf.open(key + ".npy") as fh:
+            a = _read_npy(fh, tuple(shape), np.dtype(dtype), key, src)
         if a.dtype.kind == "f" and not np.all(np.isfinite(a)):
             raise _refuse(src, f"array {key} has non-finite values; the file is damaged")
         a.flags.writeable = False
         out[key] = a
     return out
+
+
+def _read_npy(fh, shape: tuple, dtype: np.dtype, key: str, src) -> np.ndarray:
+    """One ``.npy`` member: its own header checked against ``shape``/``dtype`` before any
+    data is read or memory allocated (a crafted header cannot ask for a huge array, and
+    object dtypes are refused before anything could be unpickled)."""
+    fmt = np.lib.format
+    try:
+        version = fmt.read_magic(fh)
+        reader = fmt.read_array_header_1_0 if version == (1, 0) else fmt.read_array_header_2_0
+        got_shape, fortran, got_dtype = reader(fh)
+    except (ValueError, TypeError, SyntaxError) as exc:
+        raise _refuse(src, f"array {key} has no valid .npy header ({type(exc).__name__}); the "
+                           "file is damaged") from None
+    if got_dtype.hasobject:
+        raise _refuse(src, f"array {key} holds Python objects (refused: never unpickled); the "
+                           "file is damaged or not a paths fit")
+    if got_dtype != dtype or tuple(got_shape) != shape:
+        raise _refuse(src, f"array {key} has {got_dtype} shape {tuple(got_shape)}, expected "
+                           f"{dtype} shape {shape}; the file is damaged")
+    nbytes = int(np.prod(shape, dtype=np.int64)) * dtype.itemsize
+    data = fh.read(nbytes)
+    if len(data) != nbytes:
+        raise _refuse(src, f"array {key} is truncated; the file is damaged")
+    return np.frombuffer(data, dtype=dtype).reshape(shape, order="F" if fortran else "C").copy(
+        order="F" if fortran else "C")
 
 
 def _check_values(a: dict, h: dict, src) -> None:
@@ -470,7 +533,8 @@ def load_fit(path) -> SavedFit:
             raise InputError(f"{p}: no such file; pass the fit.npz written by paths explore")
     try:
         zf = zipfile.ZipFile(path)
-    except (zipfile.BadZipFile, OSError, ValueError):
+    except (zipfile.BadZipFile, zipfile.LargeZipFile, OSError, ValueError, EOFError,
+            NotImplementedError, struct.error, UnicodeDecodeError):
         raise _refuse(src, "not a saved paths fit (not a NumPy .npz archive); pass the fit.npz "
                            "written by paths explore") from None
     with zf:
@@ -478,11 +542,21 @@ def load_fit(path) -> SavedFit:
             header = _read_header(zf, src)
             _check_header(header, src)
             arrays = _read_arrays(zf, header, src)
-        except (zipfile.BadZipFile, EOFError, OSError, KeyError, TypeError) as exc:
+        except InputError:
+            raise
+        except (zipfile.BadZipFile, zipfile.LargeZipFile, EOFError, OSError, KeyError,
+                TypeError, ValueError, NotImplementedError, zlib.error, struct.error,
+                UnicodeDecodeError) as exc:
+            # damaged zip structure (CRC, sizes, compression method): never a traceback
             raise _refuse(src, f"the archive is damaged ({type(exc).__name__}); write the fit "
                                "again with paths explore") from None
     _check_values(arrays, header, src)
-    return _rebuild(header, arrays, src)
+    try:
+        with np.errstate(over="raise", invalid="raise", divide="raise"):
+            return _rebuild(header, arrays, src)
+    except (FloatingPointError, np.linalg.LinAlgError):
+        raise _refuse(src, "the saved factors leave the float64 range when the path is rebuilt; "
+                           "the file is damaged") from None
 
 
 def _rebuild_span(h: dict, a: dict) -> dict:

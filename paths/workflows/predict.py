@@ -100,6 +100,10 @@ def prediction_columns(saved: SavedFit, id_name: str, intervals: bool) -> list:
 
 
 def _intervals(saved: SavedFit, X, lams, level):
+    if saved.path.design.span is not None:
+        raise InputError("--intervals is not available for a fit with row weights, unpenalized "
+                         "columns or relative penalties (the conformal intervals assume the "
+                         "plain intercept); predict without --intervals")
     import paths
 
     try:
