@@ -8,11 +8,12 @@ from pathlib import Path
 
 import typer
 
+
 from paths.data.output import OutputFolder, write_csv, write_json
 from paths.threshold.simulate import bias_variance_table, make_truth, simulate
 from paths.present.summary import versions
 from paths.threshold.sweep import threshold_summary, threshold_table
-from paths.cli.app import command, console
+from paths.cli.app import command, console, emit_summary
 from paths.cli.threshold import Band, Order, Over, print_threshold, run_with_progress, write_report
 
 
@@ -55,8 +56,12 @@ def simulate_cmd(
     seed: int = typer.Option(0, "--seed", help="Seed."),
     out: Path = typer.Option(Path("paths-simulate"), "--out", "-o", help="Output folder."),
     force: bool = typer.Option(False, "--force", help="Write into a non-empty output folder."),
+    fig_format: str = typer.Option("png,svg", "--format", help="Figure formats, comma-separated: "
+                                   "png (300 dpi), pdf (TrueType fonts), svg; or none."),
+    fig_width: str = typer.Option("single", "--width", help="Figure width: single (3.5 in) or "
+                                  "double (7.2 in) journal column."),
     report: bool = typer.Option(True, "--report/--no-report",
-                                help="Also write the threshold figure and report.html."),
+                                help="Also write report.md and report.html (the figure follows --format)."),
 ):
     """Simulate synthetic data, run the sweep; write threshold.csv/.json and bias_variance.csv."""
     truth = make_truth(p, covariance=covariance.value, rho=rho, n_spikes=spikes,
@@ -89,6 +94,10 @@ def simulate_cmd(
         files = [write_csv(out_dir / "threshold.csv", *threshold_table(sim.sweep)),
                  write_json(out_dir / "threshold.json", summary),
                  write_csv(out_dir / "bias_variance.csv", *bias_variance_table(sim))]
-        if report:
-            files += write_report(sim, summary, out_dir)
+        from paths.present.figures import parse_formats, parse_width
+
+        if report or fig_format.strip().lower() != "none":
+            files += write_report(sim, summary, out_dir, formats=parse_formats(fig_format),
+                                  width=parse_width(fig_width), report=report)
     print_threshold(summary, folder.final_paths(files), folder.target)
+    emit_summary(summary)

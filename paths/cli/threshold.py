@@ -7,6 +7,7 @@ from enum import Enum
 from pathlib import Path
 
 import typer
+
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
 from rich.table import Table
 
@@ -15,7 +16,7 @@ from paths.data.synthetic import split_holdout
 from paths.data.output import OutputFolder, write_csv, write_json
 from paths.present.summary import versions
 from paths.threshold.sweep import threshold_summary, threshold_sweep, threshold_table
-from paths.cli.app import command, console
+from paths.cli.app import command, console, emit_summary
 from paths.cli.explore import Solver
 
 
@@ -120,8 +121,12 @@ def threshold_cmd(
     solver: Solver = typer.Option(Solver.auto, "--solver", help="Factorization route."),
     out: Path = typer.Option(Path("paths-threshold"), "--out", "-o", help="Output folder."),
     force: bool = typer.Option(False, "--force", help="Write into a non-empty output folder."),
+    fig_format: str = typer.Option("png,svg", "--format", help="Figure formats, comma-separated: "
+                                   "png (300 dpi), pdf (TrueType fonts), svg; or none."),
+    fig_width: str = typer.Option("single", "--width", help="Figure width: single (3.5 in) or "
+                                  "double (7.2 in) journal column."),
     report: bool = typer.Option(True, "--report/--no-report",
-                                help="Also write the threshold figure and report.html."),
+                                help="Also write report.md and report.html (the figure follows --format)."),
 ):
     """Sweep the model size across p = n on DATA; write threshold.csv and threshold.json."""
     from paths.data.validation import InputError
@@ -161,13 +166,19 @@ def threshold_cmd(
             command_line=shlex.join(["paths", *sys.argv[1:]]), versions=versions())
         files = [write_csv(out_dir / "threshold.csv", *threshold_table(result)),
                  write_json(out_dir / "threshold.json", summary)]
-        if report:
-            files += write_report(result, summary, out_dir)
+        from paths.present.figures import parse_formats, parse_width
+
+        if report or fig_format.strip().lower() != "none":
+            files += write_report(result, summary, out_dir, formats=parse_formats(fig_format),
+                                  width=parse_width(fig_width), report=report)
     print_threshold(summary, folder.final_paths(files), folder.target)
+    emit_summary(summary)
 
 
-def write_report(result, summary: dict, out_dir) -> list:
-    """The figures and report.html of :mod:`paths.report` (the figures issue), same folder."""
+def write_report(result, summary: dict, out_dir, *, formats=("png", "svg"), width="single",
+                 report: bool = True) -> list:
+    """The threshold figure (in ``formats``, at ``width``) and, with ``report``, the report."""
     from paths.present.report import write_threshold_outputs
 
-    return list(write_threshold_outputs(result, summary, out_dir))
+    return list(write_threshold_outputs(result, summary, out_dir, formats=formats, width=width,
+                                        report=report))
