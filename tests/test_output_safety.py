@@ -277,3 +277,20 @@ def test_input_error_leaves_no_output_folder(tmp_path):
                                   "--engine", engine])
         assert res.exit_code == 2, res.output
         assert not out.exists()
+
+
+# ----------------------------------------------------------------- item 6: report.md escapes
+def test_report_md_carries_no_raw_html_from_names(tmp_path):
+    """Column and file names with HTML and Markdown links stay text in report.md
+    (CommonMark: entity references and backslash escapes render as the characters)."""
+    names = ["<script>alert(1)</script>", "<img src=x onerror=alert(2)>",
+             "[x](javascript:alert(3))", "`code`", "y"]
+    src = _data(tmp_path / "<b onclick=x>data.csv", names=names, n=20)
+    out = tmp_path / "o"
+    res = runner.invoke(app, ["explore", str(src), "-t", "y", "--out", str(out),
+                              "--format", "svg"])
+    assert res.exit_code == 0, res.output
+    md = (out / "report.md").read_text()
+    for raw in ("<script", "<img", "<b>", "](javascript:"):
+        assert raw not in md, raw
+    assert "&lt;b onclick=x&gt;data.csv" in md

@@ -13,14 +13,47 @@ import importlib
 import pkgutil
 
 import typer
+import typer.core
 from rich.console import Console
 
 from paths.data.validation import InputError
+from paths.cli._checks import check_options
 
 __all__ = ["app", "command", "console", "err_console", "main", "emit_summary",
            "stdin_file"]
 
+class OneLineErrors(typer.core.TyperGroup):
+    """The command group: an option that does not parse prints one line (no box), exit 2."""
+
+    def main(self, args=None, prog_name=None, complete_var=None, standalone_mode=True,
+             **extra):
+        click = typer.core._click  # the click that typer vendors (its exceptions)
+
+        if not standalone_mode:
+            return super().main(args=args, prog_name=prog_name, complete_var=complete_var,
+                                standalone_mode=False, **extra)
+        try:
+            rv = super().main(args=args, prog_name=prog_name, complete_var=complete_var,
+                              standalone_mode=False, **extra)
+        except click.exceptions.NoArgsIsHelpError as exc:
+            typer.echo(exc.ctx.get_help() if exc.ctx is not None else str(exc))
+            raise SystemExit(exc.exit_code) from None
+        except click.exceptions.UsageError as exc:
+            cmd = exc.ctx.command_path if exc.ctx is not None else "paths"
+            text = " ".join(exc.format_message().split()).rstrip(".")
+            typer.echo(f"error: {text}; see {cmd} --help", err=True)
+            raise SystemExit(2) from None
+        except click.exceptions.ClickException as exc:
+            typer.echo(f"error: {' '.join(exc.format_message().split())}", err=True)
+            raise SystemExit(exc.exit_code) from None
+        except click.exceptions.Abort:
+            typer.echo("aborted", err=True)
+            raise SystemExit(1) from None
+        raise SystemExit(rv if isinstance(rv, int) else 0)
+
+
 app = typer.Typer(
+    cls=OneLineErrors,
     name="paths",
     help=(
         "The whole ridge regularization path from one factorization. Penalty convention: "
@@ -92,6 +125,29 @@ def emit_summary(summary: dict) -> None:
         sys.stdout.write("\n")
 
 
+def _with_warning_notes(func, args, kwargs):
+    """Run a command; numpy's RuntimeWarnings (overflow, invalid value near the limits of
+    floating point) become one ``note:`` line each on success, not warning blocks."""
+    import warnings
+
+    seen = []
+    show = warnings.showwarning
+
+    def collect(message, category, filename, lineno, file=None, line=None):
+        if issubclass(category, RuntimeWarning):
+            seen.append(" ".join(str(message).split()))
+        else:
+            show(message, category, filename, lineno, file, line)
+
+    with warnings.catch_warnings():
+        warnings.showwarning = collect
+        result = func(*args, **kwargs)
+    for text in dict.fromkeys(seen):
+        err_console.print(f"note: numerical warning: {text} (values near the limits of floating "
+                          "point; check the scale of the data)", soft_wrap=True, markup=False)
+    return result
+
+
 def command(*args, **kwargs):
     """``app.command`` with the error boundary: exit 2 for user errors, 1 for bugs."""
 
@@ -99,7 +155,8 @@ def command(*args, **kwargs):
         @functools.wraps(func)
         def wrapper(*a, **kw):
             try:
-                return func(*a, **kw)
+                check_options(kw)
+                return _with_warning_notes(func, a, kw)
             except (typer.Exit, typer.Abort):
                 raise
             except InputError as exc:

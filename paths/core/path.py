@@ -16,8 +16,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from paths.data.validation import (InputError, as_design, as_lambdas, as_response, as_weights,
-                                   feature_names_of)
+from paths.data.validation import (InputError, as_count, as_design, as_lambdas, as_response,
+                                   as_weights, check_memory, feature_names_of)
 from paths.core.design import Design, prepare, prepare_weighted, to_sample_space
 from paths.core.factor import Factorization, factorize
 from paths.core.grid import default_grid
@@ -379,11 +379,14 @@ def fit_path(
         j = int(np.flatnonzero(~spread)[0])
         label = f"target column {j}" if multi else "y"
         raise InputError(
-            f"{label} is constant (every value {Y[0, j]!r}); there is nothing to fit — "
+            f"{label} is constant (every value {float(Y[0, j]):g}); there is nothing to fit — "
             "check the target column"
         )
-    if n_lambdas < 1:
-        raise InputError(f"n_lambdas must be at least 1; got {n_lambdas}")
+    n_lambdas = as_count(n_lambdas, "n_lambdas")
+    n_pen = n_lambdas if lambdas is None else np.size(lambdas)
+    check_memory(8.0 * n_pen * (2.0 * p * Y.shape[1] + (n + 16) * Y.shape[1]),
+                 f"{n_pen} penalties on {n} x {p} data (coefficients {n_pen} x {p})",
+                 "ask for fewer penalties (--lambdas), or use --engine stream")
     has_test = X_test is not None or y_test is not None
     if has_test:
         if X_test is None or y_test is None:

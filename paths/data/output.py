@@ -45,7 +45,7 @@ from pathlib import Path
 from paths.data.validation import InputError
 
 __all__ = ["OutputError", "OutputFolder", "prepare_out_dir", "write_text", "write_bytes",
-           "write_json", "write_csv", "safe_cell", "confined_name"]
+           "write_json", "write_csv", "safe_cell", "confined_name", "input_at"]
 
 LOCK = ".paths-lock"
 MANIFEST = ".paths-manifest.json"
@@ -75,8 +75,9 @@ def confined_name(name: str, what: str = "output name") -> str:
     return text
 
 
-def _is_input(dest: Path, inputs) -> Path | None:
+def input_at(dest, inputs) -> Path | None:
     """The input ``dest`` would overwrite (same resolved path or same inode), else None."""
+    dest = Path(dest)
     rdest = dest.resolve()
     for src in inputs:
         s = Path(src)
@@ -122,11 +123,11 @@ class OutputFolder:
     def __enter__(self) -> "OutputFolder":
         out = self.target
         if out.exists() and not out.is_dir():
-            which = _is_input(out, self.inputs)
+            which = input_at(out, self.inputs)
             extra = " (it is an input of this run)" if which is not None else ""
             raise OutputError(f"--out {out} exists and is not a folder{extra}; choose another --out")
         for src in self.inputs:  # the folder itself must not be an input (a Parquet folder)
-            if src.is_dir() and _is_input(out, [src]) is not None:
+            if src.is_dir() and input_at(out, [src]) is not None:
                 raise OutputError(f"--out {out} is the input folder {src}; choose another --out")
         self._created = not out.exists()
         try:
@@ -219,7 +220,7 @@ class OutputFolder:
         for rel in names:  # every check before anything is moved
             confined_name(rel)
             dest = out / rel
-            src = _is_input(dest, self.inputs)
+            src = input_at(dest, self.inputs)
             if src is not None:
                 raise OutputError(f"--out {out} would overwrite the input file {src} ({rel}); "
                                   "choose another --out")
@@ -227,7 +228,7 @@ class OutputFolder:
                 raise OutputError(f"{dest} is a folder; cannot write a file over it: remove it "
                                   "or choose another --out")
         old = [r for r in _manifest(out) if r not in names
-               and _is_input(out / r, self.inputs) is None]
+               and input_at(out / r, self.inputs) is None]
         write_json(out / JOURNAL, {"staging": stage.name, "files": names, "remove": old})
         finish_swap(out)
         return [out / r for r in names]

@@ -9,6 +9,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from paths.data.validation import check_memory
+
 __all__ = ["make_calibration", "make_isotropic", "make_panel", "split_holdout"]
 
 
@@ -36,6 +38,7 @@ def make_calibration(n_samples: int = 60, n_channels: int = 300, *, noise: float
     pandas.DataFrame
         Columns ``ch000`` … and ``analyte``; ``attrs`` marks it synthetic.
     """
+    check_shape(n_samples, n_channels, "make_calibration")
     rng = np.random.default_rng(seed)
     grid = np.linspace(0.0, 1.0, n_channels)
     centres = np.array([0.25, 0.45, 0.6, 0.8])
@@ -67,6 +70,7 @@ def make_isotropic(n_samples: int = 200, n_features: int = 200, *, snr: float = 
         Columns ``x000`` … and ``y``; ``attrs`` holds the truth (``beta``,
         ``noise_variance``, ``signal_variance``) and marks it synthetic.
     """
+    check_shape(n_samples, n_features, "make_isotropic")
     rng = np.random.default_rng(seed)
     X = rng.standard_normal((n_samples, n_features))
     beta = rng.standard_normal(n_features)
@@ -99,6 +103,7 @@ def make_panel(n_samples: int = 120, n_features: int = 100, *, n_factors: int = 
         Columns ``ind000`` … and ``demand``; ``attrs`` holds the truth
         (``beta``, ``noise_variance``) and marks it synthetic.
     """
+    check_shape(n_samples, n_features, "make_panel")
     rng = np.random.default_rng(seed)
     factors = rng.standard_normal((n_samples, n_factors))
     loadings = rng.normal(0.0, 1.0, (n_factors, n_features)) * rng.uniform(0.3, 1.0, n_features)
@@ -127,3 +132,10 @@ def split_holdout(n: int, fraction: float, seed: int = 0) -> tuple[np.ndarray, n
         )
     perm = np.random.default_rng(seed).permutation(n)
     return np.sort(perm[n_test:]), np.sort(perm[:n_test])
+
+
+def check_shape(n, p, what: str) -> None:
+    """Refuse, before drawing, a synthetic table too large for the memory (n x p float64s,
+    about three copies while it is built and framed)."""
+    check_memory(8.0 * 3 * float(n) * float(p), f"{what}: {n} rows x {p} columns",
+                 "ask for fewer rows or columns")

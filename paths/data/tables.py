@@ -47,12 +47,15 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from paths.data.validation import InputError
+from paths.data.validation import InputError, check_memory
 
 __all__ = [
     "Dataset",
     "NA_TOKENS",
     "as_frame",
+    "is_number_text",
+    "number_problem",
+    "parse_number",
     "load_dataset",
     "read_table",
     "select",
@@ -77,6 +80,60 @@ _THOUSANDS_COMMA = re.compile(r"^[+-]?\d{1,3}(,\d{3})+(\.\d*)?$")
 _THOUSANDS_DOT = re.compile(r"^[+-]?\d{1,3}(\.\d{3})+(,\d*)?$")
 _THOUSANDS_SPACE = re.compile(r"^[+-]?\d{1,3}([ '\u00a0\u202f]\d{3})+([.,]\d*)?$")
 _DECIMAL_COMMA = re.compile(r"^[+-]?\d*,\d+([eE][+-]?\d+)?$")
+# the one number syntax of every reader: ASCII digits, '.', an exponent, inf/nan; Python's
+# float() also takes '1_000' (PEP 515 digit grouping), '1e5j'-free complex aside, and
+# non-ASCII digits, which a data file must not be read with
+_NUMBER = re.compile(r"^[+-]?(?:(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+)?"
+                     r"|inf|infinity|nan)$", re.IGNORECASE)
+_UNDERSCORE = re.compile(r"^[+-]?[0-9][0-9_]*_[0-9_]*(\.[0-9_]*)?([eE][+-]?[0-9_]+)?$")
+_COMPLEX = re.compile(r"^\(?[+-]?(?:[0-9.]+(?:[eE][+-]?[0-9]+)?[+-])?[0-9.]*(?:[eE][+-]?[0-9]+)?"
+                      r"[jJiI]\)?$")
+
+
+def is_number_text(s: str) -> bool:
+    """Whether the (stripped) text ``s`` is a number in the one syntax every reader accepts.
+
+    Examples
+    --------
+    >>> [is_number_text(t) for t in ("1.5", "-2e-3", ".5", "inf", "1_000", "1+2j", "١")]
+    [True, True, True, True, False, False, False]
+    """
+    return bool(_NUMBER.match(s))
+
+
+def parse_number(s: str) -> float:
+    """``float(s)`` for text that :func:`is_number_text` accepts; ``ValueError`` otherwise."""
+    if not _NUMBER.match(s):
+        raise ValueError(f"not a number: {s!r}")
+    return float(s)
+
+
+def number_problem(s: str) -> str | None:
+    """Why the text ``s`` looks like a number but is not read as one, or None.
+
+    One of ``"thousands"``, ``"decimal"``, ``"underscore"``, ``"complex"``.
+    """
+    if _THOUSANDS_COMMA.match(s) or _THOUSANDS_SPACE.match(s) or _THOUSANDS_DOT.match(s):
+        return "thousands"
+    if _DECIMAL_COMMA.match(s):
+        return "decimal"
+    if _UNDERSCORE.match(s):
+        return "underscore"
+    if _COMPLEX.match(s) and any(ch.isdigit() for ch in s):
+        return "complex"
+    return None
+
+
+_PROBLEM_FIX = {
+    "decimal": "numbers with a decimal comma (e.g. {ex} on {at}); re-export the file with '.' "
+               "as the decimal mark",
+    "thousands": "numbers with thousands separators (e.g. {ex} on {at}); re-export the file "
+                 "without thousands separators",
+    "underscore": "numbers with underscores (e.g. {ex} on {at}), which are not read as digit "
+                  "grouping; remove the underscores",
+    "complex": "complex numbers (e.g. {ex} on {at}); split them into real and imaginary "
+               "columns",
+}
 
 
 def _one_line(text: str) -> str:
@@ -185,10 +242,14 @@ def sha256_of(path: str | os.PathLike) -> str:
 def _check_path(p: Path) -> None:
     if p.is_dir():
         raise _fail("", f"{p} is a folder, not a data file; pass the file inside it")
+    if p.is_symlink() and not p.exists():
+        raise _fail("", f"{p} is a symbolic link to {os.readlink(p)}, which does not exist; "
+                        "fix the link or pass the file itself")
     if not p.exists():
         near = ""
         if p.parent.is_dir():
-            close = difflib.get_close_matches(p.name, [c.name for c in p.parent.iterdir()], n=1)
+            close = difflib.get_close_matches(
+                p.name, [c.name for c in p.parent.iterdir() if c.name != p.name], n=1)
             if close:
                 near = f" (did you mean {close[0]!r}?)"
         raise _fail("", f"{p}: no such file{near}; check the path")
@@ -302,11 +363,7 @@ def _is_number(s: str) -> bool:
     s = s.strip()
     if s in _NA_SET:
         return True
-    try:
-        float(s)
-    except ValueError:
-        return False
-    return True
+    return is_number_text(s)
 
 
 def _has_header(head) -> bool:
@@ -354,6 +411,11 @@ def _read_text(p: Path, sep: str | None, header: bool | None) -> pd.DataFrame:
             notes.append("no header row detected: columns named x0, x1, ...")
     counts = np.asarray(counts)
     width = int(counts[0])
+    # pandas holds each column as an object (about 4 KiB each) plus the text and the floats
+    check_memory(width * 4096.0 + counts.size * width * 8.0 * 3,
+                 f"{p}: {counts.size} rows x {width} columns read in memory",
+                 "use --engine stream (row chunks; column blocks for wide Parquet) or keep "
+                 "fewer columns")
     ragged = np.flatnonzero(counts != width)
     if ragged.size:
         k = int(ragged[0])
@@ -409,15 +471,13 @@ def _as_floats(values: list):
     """``values`` (str or None) as float64 with NaN for None, or the index of the first
     value that is not a number."""
     try:
-        return np.array([np.nan if v is None else float(v) for v in values], dtype=np.float64)
+        return np.array([np.nan if v is None else parse_number(v) for v in values],
+                        dtype=np.float64)
     except ValueError:
         pass
     for i, v in enumerate(values):
-        if v is not None:
-            try:
-                float(v)
-            except ValueError:
-                return i
+        if v is not None and not is_number_text(v):
+            return i
     return None  # pragma: no cover (the fast path would have succeeded)
 
 
@@ -437,25 +497,14 @@ def _numeric_text_columns(df: pd.DataFrame, p: Path, lines) -> pd.DataFrame:
             continue
         i = conv
         bad = [v for v in stripped if v is not None and not _is_number(v)][:200]
-        at = f"line {lines[i]}" if lines is not None else f"row {i + 1}"
-        example = stripped[i]
-        kinds = []
-        for v in bad:
-            if _THOUSANDS_COMMA.match(v) or _THOUSANDS_SPACE.match(v):
-                kinds.append("thousands")
-            elif _DECIMAL_COMMA.match(v):
-                kinds.append("decimal")
-            elif _THOUSANDS_DOT.match(v):
-                kinds.append("thousands")
+        kinds = [k for k in map(number_problem, bad) if k is not None]
         if bad and len(kinds) / len(bad) >= 0.5:
             kind = max(set(kinds), key=kinds.count)
-            if kind == "decimal":
-                raise _fail(f"{p}: ", f"column {col!r} has numbers with a decimal comma (e.g. "
-                                      f"{example!r} on {at}); re-export the file with '.' as the "
-                                      "decimal mark")
-            raise _fail(f"{p}: ", f"column {col!r} has numbers with thousands separators (e.g. "
-                                  f"{example!r} on {at}); re-export the file without thousands "
-                                  "separators")
+            j = next(k for k, v in enumerate(stripped)
+                     if v is not None and number_problem(v) == kind)
+            at = f"line {lines[j]}" if lines is not None else f"row {j + 1}"
+            raise _fail(f"{p}: ", f"column {col!r} has " + _PROBLEM_FIX[kind].format(
+                ex=repr(stripped[j]), at=at))
         out[col] = np.array(stripped, dtype=object)
     if not out:
         return df
@@ -517,6 +566,11 @@ def _frame_from_arrays(arrays: dict, p, default_prefix: str) -> pd.DataFrame:
                 cols[name] = sub
             n_rows = arr.shape[0] if arr.ndim else 1
         elif arr.ndim == 1:
+            if key is None:  # a lone .npy vector has no column to name or to take as target
+                raise _fail(f"{p}: ", f"the array is 1-D (shape {arr.shape}): one column without "
+                                      "a name; save the table as 2-D (rows x columns, target "
+                                      "included: columns x0, x1, ...) or as a .npz of named "
+                                      "columns")
             cols[key] = arr
             n_rows = arr.shape[0]
         elif arr.ndim == 2:
@@ -607,13 +661,27 @@ def as_frame(data) -> pd.DataFrame:
     """A DataFrame view of in-memory data: a DataFrame, a 2-D or structured NumPy array
     (columns ``x0, x1, ...`` or the field names), or a mapping of names to 1-D arrays."""
     if isinstance(data, pd.DataFrame):
-        return data
+        return _nullable_booleans(data)
     if isinstance(data, dict):
         return _frame_from_arrays(data, "data", "x")
     arr = np.asarray(data)
     if arr.ndim == 1 and not arr.dtype.names:
         raise InputError(f"data is 1-D with shape {arr.shape}; pass a 2-D array (rows x columns)")
     return _frame_from_arrays({None: arr}, "data", "x")
+
+
+def _nullable_booleans(df: pd.DataFrame) -> pd.DataFrame:
+    """Object columns of true/false with missing values (a Parquet boolean column with
+    nulls) as pandas' nullable boolean: read as 0/1 with missing values, not as text."""
+    cols = [c for c, dt in zip(df.columns, df.dtypes) if dt == object and df[c].isna().any()
+            and df[c].notna().any()
+            and df[c].dropna().map(type).isin([bool, np.bool_]).all()]
+    if not cols:
+        return df
+    df = df.copy()
+    for c in cols:
+        df[c] = df[c].astype("boolean")
+    return df
 
 
 # --------------------------------------------------------------------------- selection

@@ -7,9 +7,12 @@ the fix (the CLI prints it and exits with status 2).
 """
 from __future__ import annotations
 
+import os
+
 import numpy as np
 
-__all__ = ["InputError", "as_design", "as_response", "as_lambdas", "check_rows_for_cv"]
+__all__ = ["InputError", "as_design", "as_response", "as_lambdas", "as_count", "check_rows_for_cv",
+           "available_memory", "check_memory"]
 
 
 class InputError(ValueError):
@@ -17,13 +20,45 @@ class InputError(ValueError):
 
 
 def _to_float_2d(a, what: str) -> np.ndarray:
+    """``a`` as float64, refusing what a plain conversion would silently misread:
+    complex values (the imaginary part dropped), sparse matrices, masked entries,
+    duplicate column names."""
+    module = type(a).__module__ or ""
+    if module.startswith("scipy.sparse") or hasattr(a, "tocsr"):
+        raise InputError(f"{what} is a sparse matrix of shape {getattr(a, 'shape', '?')}; "
+                         f"pass a dense array ({what}.toarray()): the path needs the dense SVD")
+    if isinstance(a, np.ma.MaskedArray):
+        masked = int(np.ma.count_masked(a))
+        if masked:
+            raise InputError(f"{what} is a masked array with {masked} masked value(s); fill "
+                             f"or drop them first ({what}.filled(value) or "
+                             f"{what}[~{what}.mask.any(axis=1)])")
+        a = np.ma.getdata(a)
+    cols = getattr(a, "columns", None)
+    if cols is not None and hasattr(cols, "duplicated") and bool(cols.duplicated().any()):
+        dup = [str(c) for c in cols[cols.duplicated()]][:5]
+        raise InputError(f"{what} has duplicate column name(s) {', '.join(map(repr, dup))}; "
+                         "rename them so every column has one name")
     try:
-        arr = np.asarray(a, dtype=np.float64)
+        raw = np.asarray(a)
+    except (TypeError, ValueError) as exc:
+        raise InputError(f"{what} is not numeric ({_one_line(exc)}); convert or drop the "
+                         "non-numeric columns") from None
+    if raw.dtype.kind == "c" or (raw.dtype.kind == "O" and any(
+            isinstance(v, complex) for v in raw.ravel()[:100_000])):
+        raise InputError(f"{what} holds complex numbers (dtype {raw.dtype}); pass the real "
+                         "part and the imaginary part as separate real columns")
+    try:
+        arr = np.asarray(raw, dtype=np.float64)
     except (TypeError, ValueError) as exc:
         raise InputError(
-            f"{what} is not numeric ({exc}); convert or drop the non-numeric columns"
+            f"{what} is not numeric ({_one_line(exc)}); convert or drop the non-numeric columns"
         ) from None
     return arr
+
+
+def _one_line(exc) -> str:
+    return " ".join(str(exc).split())[:160]
 
 
 def _check_finite(arr: np.ndarray, what: str, names=None) -> None:
@@ -108,9 +143,94 @@ def as_lambdas(lambdas) -> np.ndarray:
     if not np.all(np.isfinite(lam)) or np.any(lam < 0):
         raise InputError(
             "lambdas must be finite and >= 0 (penalty on ||beta||^2); "
-            f"got min {lam.min()!r}, max {lam.max()!r}"
+            f"got min {float(lam.min())!r}, max {float(lam.max())!r}"
         )
     return lam
+
+
+def as_count(value, name: str, *, minimum: int = 1, maximum: int | None = None) -> int:
+    """``value`` as a whole number in ``[minimum, maximum]``; InputError otherwise.
+
+    Examples
+    --------
+    >>> as_count(3.0, "n_lambdas")
+    3
+    >>> as_count(2.5, "n_lambdas")
+    Traceback (most recent call last):
+    ...
+    paths.data.validation.InputError: n_lambdas must be a whole number >= 1; got 2.5
+    """
+    bound = f">= {minimum}" if maximum is None else f"between {minimum} and {maximum}"
+    ok = (isinstance(value, (int, np.integer)) and not isinstance(value, (bool, np.bool_))) or (
+        isinstance(value, (float, np.floating)) and np.isfinite(value) and float(value).is_integer())
+    if not ok:
+        raise InputError(f"{name} must be a whole number {bound}; got {value!r}")
+    k = int(value)
+    if k < minimum or (maximum is not None and k > maximum):
+        raise InputError(f"{name} must be a whole number {bound}; got {k}")
+    return k
+
+
+def available_memory() -> int | None:
+    """Bytes of memory this process can still use: ``MemAvailable`` of ``/proc/meminfo``,
+    capped by a cgroup (container) limit; None where neither is known."""
+    avail = None
+    try:
+        with open("/proc/meminfo", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("MemAvailable:"):
+                    avail = int(line.split()[1]) * 1024
+                    break
+    except OSError:
+        pass
+    if avail is None:
+        try:
+            avail = os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE")
+        except (ValueError, OSError, AttributeError):
+            avail = None
+    for limit_file, usage_file in (("/sys/fs/cgroup/memory.max", "/sys/fs/cgroup/memory.current"),
+                                   ("/sys/fs/cgroup/memory/memory.limit_in_bytes",
+                                    "/sys/fs/cgroup/memory/memory.usage_in_bytes")):
+        try:
+            with open(limit_file, encoding="ascii") as fh:
+                text = fh.read().strip()
+            if text == "max":
+                continue
+            with open(usage_file, encoding="ascii") as fh:
+                left = int(text) - int(fh.read().strip())
+            avail = left if avail is None else min(avail, left)
+        except (OSError, ValueError):
+            continue
+    return avail
+
+
+def _bytes(n: float) -> str:
+    for unit in ("bytes", "KiB", "MiB", "GiB", "TiB", "PiB", "EiB"):
+        if n < 1024 or unit == "EiB":
+            return f"{n:.0f} {unit}" if unit == "bytes" else f"{n:.3g} {unit}"
+        n /= 1024
+    return f"{n:.3g} EiB"  # pragma: no cover
+
+
+def check_memory(nbytes: float, what: str, fix: str) -> None:
+    """Refuse, before allocating, a request estimated at ``nbytes`` above the available memory.
+
+    ``what`` says what would be allocated (with its shape), ``fix`` how to need less.
+    The estimate counts the largest arrays only (8 bytes per float64), so it is a lower
+    bound of the real use; nothing is refused when the available memory is unknown.
+
+    Examples
+    --------
+    >>> check_memory(8 * 10**20, "the coefficients (1e20 x 1)",
+    ...              "ask for fewer penalties")  # doctest: +ELLIPSIS
+    Traceback (most recent call last):
+    ...
+    paths.data.validation.InputError: the coefficients (1e20 x 1) need about 694 EiB ...
+    """
+    avail = available_memory()
+    if avail is not None and nbytes > avail:
+        raise InputError(f"{what} need about {_bytes(nbytes)} but {_bytes(avail)} of memory "
+                         f"are available; {fix}")
 
 
 def check_rows_for_cv(n_rows: int, n_folds, source: str = "", *, fit_intercept: bool = True) -> None:

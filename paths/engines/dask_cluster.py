@@ -40,6 +40,53 @@ DEFAULT_TIMEOUT = 10.0
 _PARQUET = (".parquet", ".pq", ".parq")
 
 
+_SCHEMES = ("tcp", "tls", "inproc", "ucx", "ws", "wss")
+
+
+def check_address(scheduler: str) -> None:
+    """Refuse a malformed scheduler address before any connection is tried.
+
+    An address is ``SCHEME://HOST:PORT`` (scheme tcp, tls, inproc, ucx, ws or wss;
+    ``tcp://`` may be left out) with a port between 1 and 65535.
+
+    Examples
+    --------
+    >>> check_address("tcp://10.0.0.5:8786")
+    >>> check_address("10.0.0.5")
+    Traceback (most recent call last):
+    ...
+    paths.data.validation.InputError: --scheduler '10.0.0.5' is not an address SCHEME://HOST:PORT (no port); use e.g. tcp://10.0.0.5:8786
+    """
+    text = str(scheduler).strip()
+    scheme, sep, rest = text.partition("://")
+    if not sep:
+        scheme, rest = "tcp", text
+    problem = None
+    if scheme not in _SCHEMES:
+        problem = f"unknown scheme {scheme!r}"
+    elif scheme != "inproc":
+        host, colon, port = rest.rpartition(":")
+        if not colon or not port:
+            problem = "no port"
+        elif not port.isdigit() or not 1 <= int(port) <= 65535:
+            problem = f"port {port!r} is not a number from 1 to 65535"
+        elif not host or any(ch.isspace() for ch in host) or "/" in host:
+            problem = f"host {host!r} is not a host name"
+    if problem:
+        raise InputError(f"--scheduler {scheduler!r} is not an address SCHEME://HOST:PORT "
+                         f"({problem}); use e.g. tcp://10.0.0.5:8786")
+
+
+def _disarm(tb, client_type) -> None:
+    """Keep a half-built ``Client`` (left in the traceback) from closing its wedged event loop
+    at garbage collection, which waits 20 s and prints a traceback of its own."""
+    while tb is not None:
+        obj = tb.tb_frame.f_locals.get("self")
+        if isinstance(obj, client_type):
+            obj._Client__loop = None  # Client.__del__ skips close() for a client without loop
+        tb = tb.tb_next
+
+
 @contextmanager
 def connect(scheduler: str | None, timeout: float = DEFAULT_TIMEOUT):
     """A ``distributed.Client`` for ``scheduler`` (closed on exit), or None for the default.
@@ -57,8 +104,14 @@ def connect(scheduler: str | None, timeout: float = DEFAULT_TIMEOUT):
         from distributed import Client
     except ImportError:  # pragma: no cover - optional dependency
         raise InputError("--scheduler needs dask.distributed; pip install 'ridgepaths[dask]'") from None
+    check_address(scheduler)
     try:
         client = Client(scheduler, timeout=timeout, set_as_default=False)
+    except MemoryError as exc:  # the reply was not a dask message: its "length" was garbage
+        _disarm(exc.__traceback__, Client)
+        raise InputError(f"the service at {scheduler} did not answer as a dask scheduler; check "
+                         "the address and port (a dask scheduler listens on 8786 by default)"
+                         ) from None
     except (OSError, TimeoutError) as exc:
         raise InputError(
             f"could not connect to the dask scheduler at {scheduler} within {timeout:g} s "

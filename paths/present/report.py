@@ -21,6 +21,7 @@ from dataclasses import dataclass, replace
 from pathlib import Path
 
 from paths.data.output import write_text
+from paths.present.markup import md_escape, md_safe
 
 __all__ = ["FigureRef", "report_numbers", "diagnosis", "methods_paragraph", "rules_table",
            "cautions", "render_markdown", "render_html", "write_report", "fmt"]
@@ -533,7 +534,12 @@ def _title(summary) -> str:
 
 
 def render_markdown(summary: dict, figures=()) -> str:
-    """The report as Markdown (figures linked as image files next to it; formulas in LaTeX)."""
+    """The report as Markdown (figures linked as image files next to it; formulas in LaTeX).
+
+    Every string of ``summary`` (names from the data) is escaped first
+    (:func:`paths.present.markup.md_safe`): no raw HTML, links or code spans.
+    """
+    summary = md_safe(summary)
     L = [f"# {_md(_title(summary))}", ""]
     if summary.get("description"):
         L += [str(summary["description"]), ""]
@@ -561,7 +567,8 @@ def render_markdown(summary: dict, figures=()) -> str:
 
 
 def _md(s) -> str:
-    return str(s).replace("|", "\\|").replace("\n", " ")
+    """A table cell: pipes escaped once (strings of the summary are already escaped)."""
+    return re.sub(r"(?<!\\)\|", r"\\|", str(s)).replace("\n", " ")
 
 
 _CSS = """
@@ -800,6 +807,7 @@ def render_threshold_html(summary: dict, figures=()) -> str:
 
 
 def render_threshold_markdown(summary: dict, figures=()) -> str:
+    summary = md_safe(summary)  # names from the data are text, never markup
     title = summary.get("title") or "Interpolation threshold report"
     L = [f"# {title}", ""]
     if summary.get("description"):
@@ -810,7 +818,7 @@ def render_threshold_markdown(summary: dict, figures=()) -> str:
     if figures:
         L += ["", "## Figures", ""]
         for f in figures:
-            L += [f"![{f.name}]({f.image})", "", f"*{f.caption}*", ""]
+            L += [f"![{f.name}]({f.image})", "", f"*{md_escape(f.caption)}*", ""]
     L += ["", "## Methods paragraph", "", threshold_methods(summary), "", "## Cautions", ""]
     L += [f"- {c}" for c in cautions({"n_test": summary.get("n_test"),
                                       "synthetic": summary.get("synthetic")})]
@@ -1004,7 +1012,7 @@ def _md_figures(figures) -> list:
     for f in figures:
         img = (f"![{_md(f.name)}]({f.image})" if f.image else
                f"**{_md(f.name)}** (no figure file written: see report.html)")
-        L += [img, "", f"*{_md(f.caption)}*", ""]
+        L += [img, "", f"*{_md(md_escape(f.caption))}*", ""]
     return L
 
 

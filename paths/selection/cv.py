@@ -125,6 +125,10 @@ def make_folds(n_samples: int, n_folds: int = 10, *, scheme: str = "shuffled", s
     if isinstance(n_folds, bool) or int(n_folds) != n_folds:
         raise InputError(f"the number of folds must be an integer >= 2; got {n_folds!r}")
     K = int(n_folds)
+    if groups is not None and len(groups) and np.unique(np.asarray(groups)).size < 2:
+        one = np.asarray(groups).ravel()[0]
+        raise InputError(f"every row is in a single group ({str(one)!r}); grouped cross-validation "
+                         "needs at least 2 groups: check the --groups column")
     if K < 2:
         raise InputError(f"the number of folds must be at least 2; got {K} (valid: 2 to {n_samples})")
     if groups is not None or scheme == "grouped":
@@ -148,6 +152,11 @@ def make_folds(n_samples: int, n_folds: int = 10, *, scheme: str = "shuffled", s
             labels[chunk] = f
     sizes = np.bincount(labels, minlength=K)
     need = 2 if fit_intercept else 1
+    if n_samples - sizes.max() < need and groups is not None:
+        raise InputError(
+            f"one fold of whole groups holds {sizes.max()} of {n_samples} rows, leaving fewer "
+            f"than {need} training rows when it is held out; the groups are too unbalanced for "
+            f"{K} folds: regroup, or drop --groups")
     if n_samples - sizes.max() < need:
         raise InputError(
             f"a fold of {sizes.max()} of {n_samples} rows leaves fewer than {need} training rows; "

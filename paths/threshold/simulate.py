@@ -28,7 +28,7 @@ from typing import Callable
 import numpy as np
 from scipy.linalg import toeplitz
 
-from paths.data.validation import InputError
+from paths.data.validation import InputError, check_memory
 from paths.core.design import to_sample_space
 from paths.threshold.sweep import METHODS, PointFit, ThresholdResult, VarianceEstimate, threshold_sweep
 
@@ -113,6 +113,9 @@ def make_truth(p: int, *, covariance: str = "isotropic", rho: float = 0.5, n_spi
         ``snr <= 0``, ``noise_variance <= 0``, ``|rho| >= 1``, ``p < 1``, an
         unknown kind.
     """
+    if isinstance(p, (int, float, np.integer, np.floating)) and p >= 1:
+        check_memory(8.0 * 4 * float(p) ** 2, f"the {p} x {p} covariance of p = {p} features "
+                     "and its eigenvectors", "simulate fewer features (--p)")
     if not (np.isfinite(snr) and snr > 0):
         raise InputError(f"the SNR must be a finite number > 0; got {snr} (pass e.g. --snr 1)")
     if not (np.isfinite(noise_variance) and noise_variance > 0):
@@ -374,6 +377,9 @@ def simulate(
     (see the module notes); they need one :math:`k \\times k` block of
     :math:`\\Sigma` times the :math:`k \\times r` factor per point.
     """
+    check_memory(8.0 * 3 * (float(n_train) + float(n_test)) * truth.n_features,
+                 f"{n_train} training + {n_test} test rows x {truth.n_features} features",
+                 "simulate fewer rows (--n, --n-test) or features (--p)")
     if int(repeats) != repeats or repeats < 1:
         raise InputError(f"repeats must be an integer >= 1; got {repeats}")
     if int(n_test) != n_test or n_test < 2:

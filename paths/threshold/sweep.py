@@ -39,7 +39,7 @@ from typing import Callable
 
 import numpy as np
 
-from paths.data.validation import InputError, as_design, as_response
+from paths.data.validation import InputError, as_design, as_response, check_memory
 from paths.core.design import Design, prepare, to_sample_space
 from paths.core.factor import Factorization, factorize
 from paths.core.grid import lambda_for_df
@@ -711,6 +711,10 @@ def threshold_sweep(
         if int(random_features) != random_features or random_features < 1:
             raise InputError(f"the random-features count must be an integer >= 1; got "
                              f"{random_features} (pass e.g. --random-features 800)")
+        rows = X.shape[0] + Xt.shape[0]
+        check_memory(8.0 * 3 * rows * float(random_features),
+                     f"{random_features} random features of {rows} rows",
+                     "ask for fewer random features (--random-features)")
     if (repeats > 1 and random_features is None and over == "features"
             and order != "random"):
         raise InputError(f"--repeats {repeats} repeats nothing with order {order!r}; "

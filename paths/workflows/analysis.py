@@ -378,17 +378,30 @@ def _columns_and_shape(path: Path, sep=None):
             raise InputError(f"{path}: not a readable Parquet file ({exc}); check the file") from None
         return names, rows
     if suffix == ".npy":
-        arr = np.load(path, mmap_mode="r")
+        try:
+            arr = np.load(path, mmap_mode="r", allow_pickle=False)
+        except (ValueError, OSError, EOFError) as exc:  # object (pickled), truncated, not .npy
+            msg = " ".join(str(exc).split())[:160] or type(exc).__name__
+            raise InputError(f"{path} is not a readable NumPy file ({msg}); save it with "
+                             "numpy.save, without object arrays") from None
+        if arr.ndim != 2:
+            raise InputError(f"{path}: the array has shape {arr.shape}; the streaming engines "
+                             "read a 2-D array (rows x columns)")
         return None, int(arr.shape[0])
     import pandas as pd
 
     if sep is None:
         sep = "\t" if suffix in (".tsv", ".tab") else ","
     try:
-        return [str(c) for c in pd.read_csv(path, sep=sep, nrows=0).columns], None
+        names = [str(c) for c in pd.read_csv(path, sep=sep, nrows=0).columns]
     except Exception as exc:  # noqa: BLE001
         raise InputError(f"{path} could not be read ({type(exc).__name__}); check the delimiter "
                          "(--sep) and that it is UTF-8 text") from None
+    with open(path, "rb") as fh:  # a header without data rows: refused here, not mid-pass
+        fh.readline()
+        if not any(line.strip() for line in fh):
+            raise InputError(f"{path} has a header row but no data rows; add data rows")
+    return names, None
 
 
 def _resolve_features(names, targets, features, exclude):
@@ -456,6 +469,9 @@ def explore_engine(
     path = Path(data)
     if not path.exists():
         raise InputError(f"{path}: no such file or folder; check the path")
+    if not (path.is_file() or path.is_dir()):  # a FIFO or device would block the reader
+        raise InputError(f"{path} is not a regular file (a pipe or a device); save the data "
+                         "to a file and pass that")
     targets = [x for t in ([target] if isinstance(target, str) else list(target))
                for x in str(t).split(",") if x]
     folder = OutputFolder(out_dir, force=force, inputs=[path, *([] if test is None else [test])])
@@ -504,9 +520,14 @@ def explore_engine(
         else:
             from paths.engines.dask_cluster import dask_path
 
-            result = dask_path(path, target=targets, features=feats, chunk_rows=chunk_rows,
+            # a remote scheduler's workers do not share our working folder: absolute paths
+            remote = scheduler is not None
+            result = dask_path(path.resolve() if remote else path, target=targets,
+                               features=feats, chunk_rows=chunk_rows,
                                accurate=accurate, scheduler=scheduler, timeout=timeout,
-                               standardize=standardize, test=test, n_lambdas=n_lambdas, cv=cv,
+                               standardize=standardize,
+                               test=Path(test).resolve() if remote and test is not None else test,
+                               n_lambdas=n_lambdas, cv=cv,
                                cv_seed=cv_seed, rank=rank, progress=progress)
         cv_record = None
         if result.cv_mse is not None:

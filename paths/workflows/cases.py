@@ -66,7 +66,7 @@ _SECTIONS = {
 # arguments of the configured functions that a case may not set (the runner owns them)
 _FIT_OWNED = {"data", "out_dir", "test", "holdout", "seed", "force", "input_sha256",
               "command_line", "groups", "formats", "width", "report", "x_axis", "figure_x",
-              "extra"}
+              "extra", "inputs"}
 _THRESHOLD_OWNED = {"X", "y", "X_test", "y_test", "progress", "on_point", "variances"}
 _SIMULATE_OWNED = {"truth", "progress"}
 
@@ -79,6 +79,63 @@ def _keyword_names(func, owned) -> tuple:
     return tuple(n for n, p in inspect.signature(func).parameters.items()
                  if n not in owned and p.kind in (p.KEYWORD_ONLY, p.POSITIONAL_OR_KEYWORD)
                  and not n.startswith("_"))
+
+
+_FIXED_TYPES = {"case": {"title": str, "description": str, "synthetic": bool, "analysis": str},
+                "data": {"generator": str, "file": str, "target": str, "test_file": str,
+                         "holdout": float, "seed": int, "params": dict},
+                "figures": {"x": str, "width": str, "report": bool}}
+_TYPE_WORDS = {bool: "true or false", int: "a whole number", float: "a number", str: "a string",
+               dict: "a table"}
+
+
+def _expected_type(param):
+    """The TOML type a keyword of a library function takes: from its default, else from
+    its annotation (``int | None`` -> int); None when either would do."""
+    d = param.default
+    if isinstance(d, bool):
+        return bool
+    if isinstance(d, (int, float, str)):
+        return type(d)
+    ann = str(param.annotation)
+    words = set(re.findall(r"[A-Za-z_]+", ann))
+    if words & {"list", "tuple", "Sequence", "dict", "object", "Any", "ndarray", "Callable"}:
+        return None
+    for t, name in ((bool, "bool"), (float, "float"), (int, "int"), (str, "str")):
+        if name in words:
+            return t
+    return None
+
+
+def _check_type(where: str, table: str, key: str, value, want) -> None:
+    if want is None:
+        return
+    ok = (isinstance(value, bool) if want is bool else
+          isinstance(value, int) and not isinstance(value, bool) if want is int else
+          isinstance(value, (int, float)) and not isinstance(value, bool) if want is float
+          else isinstance(value, want))
+    if not ok:
+        raise InputError(f"{where}: [{table}] {key} must be {_TYPE_WORDS[want]}; got "
+                         f"{value!r} ({type(value).__name__})")
+
+
+def _check_types(where: str, doc: dict) -> None:
+    """Every value of the case file has the type its function takes (one line otherwise)."""
+    from paths.workflows.analysis import explore
+
+    funcs = {"fit": explore}
+    if any(t in doc for t in ("threshold", "truth", "simulate")):
+        from paths.threshold.simulate import make_truth, simulate
+        from paths.threshold.sweep import threshold_sweep
+
+        funcs.update(threshold=threshold_sweep, truth=make_truth, simulate=simulate)
+    for table, body in doc.items():
+        fixed = _FIXED_TYPES.get(table)
+        params = None if fixed is not None else inspect.signature(funcs[table]).parameters
+        for key, value in body.items():
+            want = fixed.get(key) if fixed is not None else (
+                _expected_type(params[key]) if key in params else None)
+            _check_type(where, table, key, value, want)
 
 
 def _valid_keys() -> dict:
@@ -202,6 +259,7 @@ def parse_case(text: str, *, source=None) -> Case:
             raise InputError(f"{where}: unknown key(s) in [{table}]: "
                              f"{', '.join(sorted(unknown))}; valid keys: "
                              f"{', '.join(valid[table])}")
+    _check_types(where, doc)
     meta, data = doc.get("case", {}), doc.get("data", {})
     stem = Path(source).stem if source is not None else "case"
     analysis = meta.get("analysis", "explore")
@@ -232,6 +290,9 @@ def parse_case(text: str, *, source=None) -> Case:
         if bad:
             raise InputError(f"{where}: unknown generator parameter(s) {', '.join(sorted(bad))} "
                              f"for {gen}; valid: {', '.join(allowed)}")
+        sig = inspect.signature(func).parameters
+        for key, value in params.items():
+            _check_type(where, "data.params", key, value, _expected_type(sig[key]))
     elif "file" in data and "target" not in data:
         raise InputError(f"{where}: [data] file needs target = COLUMN")
     figs = doc.get("figures", {})

@@ -59,17 +59,13 @@ def _choose(saved: SavedFit, lam, rule) -> tuple[np.ndarray, str]:
 
 
 def _check_out(out: Path, inputs, force: bool) -> None:
-    from paths.data.output import OutputError
+    from paths.data.output import OutputError, input_at
 
     if out.is_dir():
         raise OutputError(f"--out {out} is a folder; give a file name such as predictions.csv")
-    for src in inputs:
-        try:
-            same = out.exists() and Path(src).exists() and out.samefile(src)
-        except OSError:
-            same = False
-        if same:
-            raise OutputError(f"--out {out} is the input file {src}; choose another --out")
+    src = input_at(out, inputs)  # resolved path or inode: the one check of every command
+    if src is not None:
+        raise OutputError(f"--out {out} is the input file {src}; choose another --out")
     if out.exists() and not force:
         raise OutputError(f"{out} exists; choose another --out or pass --force to overwrite it")
     if not out.parent.is_dir():
