@@ -33,6 +33,8 @@ _PUBLIC = {
     "SelectionReport": "paths.selection.rules",
     "noise_variance": "paths.selection.rules",
     "select_penalty": "paths.selection.rules",
+    "PredictionIntervals": "paths.selection.intervals",
+    "prediction_intervals": "paths.selection.intervals",
     "RidgePathRegressor": "paths.selection.estimator",
     "StreamPath": "paths.engines.stream",
     "stream_path": "paths.engines.stream",

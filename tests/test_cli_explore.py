@@ -74,8 +74,9 @@ def test_explore_writes_contract_files_matching_sklearn(wide_csv):
     assert len(summary["input_sha256"]) == 2
 
     header, table = _read_csv(out / "path.csv")
-    assert header == ["lambda", "df", "train_mse", "gcv", "loo_mse", "test_mse", "coef_norm"]
-    assert table.shape == (25, 7)
+    assert header == ["lambda", "df", "train_mse", "gcv", "loo_mse", "test_mse", "coef_norm",
+                      "reml_loglik"]
+    assert table.shape == (25, 8)
     cheader, coefs = _read_csv(out / "coefficients.csv")
     assert cheader[:2] == ["lambda", "intercept"] and len(cheader) == 2 + 45
 
@@ -133,3 +134,58 @@ def test_explore_holdout_split_is_seeded(wide_csv):
         outs.append(json.loads((out / "summary.json").read_text()))
     assert outs[0]["n_test"] == 6 and outs[0]["split"]["seed"] == 3
     assert outs[0]["test_mse"] == outs[1]["test_mse"]
+
+
+def test_explore_intervals_contract(wide_csv):
+    """``--intervals`` writes intervals.csv (row, prediction, lower, upper) for the test
+    rows and summary.json["intervals"]; the endpoints equal scikit-learn refits without
+    each training row (jackknife+, Barber et al. 2021, eq. 6) at the reported penalty,
+    and the recorded coverage is the share of test responses inside their interval."""
+    tmp, X, y = wide_csv
+    out = tmp / "iv"
+    res = runner.invoke(app, ["explore", str(tmp / "train.csv"), "-t", "resp", "--test",
+                              str(tmp / "test.csv"), "--intervals", "0.8", "--rule", "df=8",
+                              "--format", "svg", "--no-report", "-o", str(out)])
+    assert res.exit_code == 0, res.output
+    summary = json.loads((out / "summary.json").read_text())
+    rec = summary["intervals"]
+    assert {"level", "method", "lambda", "coverage", "mean_width"} <= set(rec)
+    assert rec["method"] == "jackknife+" and rec["level"] == 0.8
+    lam = summary["selected"]["df"]["lambda"]
+    assert rec["lambda"] == lam
+    header, table = _read_csv(out / "intervals.csv")
+    assert header == ["row", "prediction", "lower", "upper"]
+    assert_allclose(table[:, 0], np.arange(10))
+    Xtr, ytr, Xte, yte = X[:30], y[:30], X[30:], y[30:]
+    scale = Xtr.std(axis=0)  # scales learned on all training rows, held fixed
+    mus, R = np.empty((10, 30)), np.empty(30)
+    for i in range(30):
+        keep = np.arange(30) != i
+        model = Ridge(alpha=lam, solver="svd").fit(Xtr[keep] / scale, ytr[keep])
+        mus[:, i] = model.predict(Xte / scale)
+        R[i] = abs(ytr[i] - model.predict(Xtr[i:i + 1] / scale)[0])
+    lo, up = np.sort(mus - R, axis=1)[:, 5], np.sort(mus + R, axis=1)[:, 24]  # ranks 6, 25 of 30
+    width = up - lo
+    # 1e-8 of the width (issue 14); CSV round trip by repr is exact
+    assert_allclose(table[:, 2], lo, rtol=0, atol=1e-8 * width.min())
+    assert_allclose(table[:, 3], up, rtol=0, atol=1e-8 * width.min())
+    inside = (table[:, 2] <= yte) & (yte <= table[:, 3])
+    assert rec["coverage"] == pytest.approx(inside.mean(), abs=1e-15)
+    assert rec["mean_width"] == pytest.approx(np.mean(table[:, 3] - table[:, 2]), rel=1e-12)
+    path_header, _ = _read_csv(out / "path.csv")
+    assert path_header[-1] == "reml_loglik"
+    # the saved fit carries what the intervals need: the same endpoints from fit.npz
+    from paths import load_fit, prediction_intervals
+
+    again = prediction_intervals(load_fit(out / "fit.npz").path, Xte, lam, level=0.8)
+    assert_allclose(again.lower, table[:, 2], rtol=0, atol=1e-8 * width.min())
+    assert_allclose(again.upper, table[:, 3], rtol=0, atol=1e-8 * width.min())
+
+
+def test_explore_intervals_need_test_rows(wide_csv):
+    """Without --test/--holdout, --intervals is refused with exit 2 and the fix named."""
+    tmp, _, _ = wide_csv
+    res = runner.invoke(app, ["explore", str(tmp / "train.csv"), "-t", "resp", "--intervals",
+                              "0.9", "-o", str(tmp / "x")])
+    assert res.exit_code == 2
+    assert "--holdout" in res.output

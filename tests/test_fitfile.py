@@ -267,3 +267,24 @@ def test_values_out_of_range_refused():
     buf = _rewrite(_good_bytes(), lambda a, h: a.update(fac_d=a["fac_d"] * 1e300))
     with pytest.raises(InputError, match="float64 range"):
         load_fit(buf)
+
+
+def test_predict_only_fit_from_the_streaming_engine(tmp_path):
+    """A streamed path (no left factors) saves a predict-only fit: its predictions equal the
+    streamed path's own bit for bit, and the in-memory path's to the Gram route's accuracy
+    (kappa^2 eps relative, Higham 2002 ch. 20; 1e3 n kappa^2 eps of the largest value)."""
+    from paths import stream_path
+
+    X, y = _problem(300, 10, seed=31)
+    sp = stream_path(X, y=y, chunk_rows=64)
+    saved = load_fit(io.BytesIO(fit_bytes(sp, reported=2.0)))
+    assert saved.header["kind"] == "predict-only" and saved.path is None
+    Xn = _problem(6, 10, seed=32)[0]
+    for lam in (0.0, 2.0, 50.0):
+        assert np.array_equal(saved.predict(Xn, lam), sp.predict(Xn, lam))
+    ref = fit_path(X, y).predict(Xn, 2.0)
+    kappa = sp.condition_number
+    assert_allclose(saved.predict(Xn), ref, rtol=0,
+                    atol=1e3 * 300 * kappa ** 2 * EPS * np.abs(ref).max())
+    with pytest.raises(InputError, match="needs the full fit"):
+        saved.lambda_for("fraction=0.5")

@@ -134,3 +134,27 @@ def test_predict_missing_columns_and_files(files):
     r = runner.invoke(app, ["predict", fit, str(tmp / "new.csv"), "-o", str(tmp / "keep.csv")])
     assert r.exit_code == 2 and "--force" in r.output
     assert (tmp / "keep.csv").read_text() == "keep me"
+
+
+def test_stream_engine_writes_a_predict_only_fit(tmp_path):
+    """explore --engine stream writes fit.npz; predict from it matches the in-memory fit's
+    predictions to the Gram route's accuracy; --intervals is refused in one line."""
+    rng = np.random.default_rng(5)
+    X = rng.standard_normal((200, 6))
+    y = X[:, 0] + rng.standard_normal(200)
+    pd.DataFrame(X, columns=[f"c{j}" for j in range(6)]).assign(y=y).to_csv(
+        tmp_path / "t.csv", index=False)
+    for engine, out in (("stream", "os"), ("memory", "om")):
+        r = runner.invoke(app, ["explore", str(tmp_path / "t.csv"), "-t", "y", "--engine", engine,
+                                "--no-report", "--format", "svg", "-o", str(tmp_path / out)])
+        assert r.exit_code == 0, r.output
+        r = runner.invoke(app, ["predict", str(tmp_path / out / "fit.npz"), str(tmp_path / "t.csv"),
+                                "-o", str(tmp_path / f"{out}.csv"), "--lambda", "3"])
+        assert r.exit_code == 0, r.output
+    got = np.array([float(r[1]) for r in _read(tmp_path / "os.csv")[1]])
+    ref = np.array([float(r[1]) for r in _read(tmp_path / "om.csv")[1]])
+    kappa = load_fit(tmp_path / "om" / "fit.npz").path.condition_number
+    assert_allclose(got, ref, rtol=0, atol=1e3 * 200 * kappa ** 2 * EPS * np.abs(ref).max())
+    r = runner.invoke(app, ["predict", str(tmp_path / "os" / "fit.npz"), str(tmp_path / "t.csv"),
+                            "-o", str(tmp_path / "x.csv"), "--intervals", "0.9"])
+    assert r.exit_code == 2 and "predict-only" in r.output

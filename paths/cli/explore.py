@@ -40,6 +40,12 @@ class CVScaling(str, Enum):
     per_fold = "per-fold"
 
 
+class IntervalMethod(str, Enum):
+    jackknife_plus = "jackknife+"
+    cv_plus = "cv+"
+    split = "split"
+
+
 class Engine(str, Enum):
     memory = "memory"
     stream = "stream"
@@ -81,6 +87,19 @@ def print_rules(run) -> None:
         shown = ", ".join(f"{v:.4g}" for v in val) if isinstance(val, list) else f"{val:.4g}"
         console.print(f"noise variance {shown}  ({nv['formula']}; {nv['reference']})",
                       markup=False)
+
+
+def print_intervals(run) -> None:
+    """One line per target: the prediction intervals' level, method, coverage and width."""
+    rec = run.summary.get("intervals")
+    if not rec:
+        return
+    cov, wid = rec["coverage"], rec["mean_width"]
+    cov, wid = (cov, wid) if isinstance(cov, list) else ([cov], [wid])
+    for j, name in enumerate(run.summary.get("targets") or [None]):
+        console.print(f"prediction intervals{'' if name is None else f' ({name})'}: level "
+                      f"{rec['level']:g}, {rec['method']}, coverage on {rec['n_test']} test rows "
+                      f"{cov[j]:.3f}, mean width {wid[j]:.4g}; {rec['guarantee']}", markup=False)
 
 
 def _fmt(v) -> str:
@@ -202,6 +221,12 @@ def explore_cmd(
                               "or df (effective degrees of freedom)."),
     report: bool = typer.Option(True, "--report/--no-report", help="Write report.md and a "
                                 "self-contained report.html."),
+    intervals: float = typer.Option(None, "--intervals", help="Prediction intervals at this "
+                                    "level (e.g. 0.9) for the test rows (--test or --holdout), "
+                                    "at the reported penalty: intervals.csv."),
+    interval_method: IntervalMethod = typer.Option(
+        IntervalMethod.jackknife_plus, "--interval-method", help="jackknife+ (coverage >= "
+        "1 - 2 alpha), cv+ (the --cv folds) or split (half the training rows calibrate)."),
 ):
     """Fit the whole ridge path of DATA and write path.csv, coefficients.csv, summary.json."""
     from paths.present.figures import parse_formats, parse_width
@@ -213,6 +238,12 @@ def explore_cmd(
         raise InputError(f"--figure-x must be log_lambda or df; got {fig_x!r}")
     if engine is not Engine.memory or rank is not None or scheduler is not None:
         from paths.cli._engines import run_engine
+
+        if intervals is not None:
+            from paths.data.validation import InputError
+
+            raise InputError("--intervals needs the in-memory engine (the leave-out fits use "
+                             "the left singular vectors); drop --engine/--rank/--scheduler")
 
         run = run_engine(
             engine="dask" if scheduler is not None and engine is Engine.memory else (
@@ -266,9 +297,11 @@ def explore_cmd(
                       cv_scaling=cv_scaling.value, rule=rule, formats=fig_formats,
                       width=fig_width, x_axis=fig_x, report=report, weights=row_weights,
                       test_weights=test_weights, unpenalized=unpenalized or None,
-                      relative_penalty=penalties)
+                      relative_penalty=penalties, intervals=intervals,
+                      interval_method=interval_method.value)
     print_summary(run)
     print_rules(run)
+    print_intervals(run)
     if (run.out_dir / "report.html").exists():
         console.print(f"[bold]report:[/] {run.out_dir / 'report.html'}")
     emit_summary(run.summary)

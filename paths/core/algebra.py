@@ -76,6 +76,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import scipy.linalg as sla
+from scipy.special import logsumexp
 
 __all__ = [
     "FactorState", "factor_state", "Shrinkage", "shrinkage", "gains", "fractions",
@@ -896,3 +897,129 @@ def _refit_coords(Ro, d, lam, ra, fit_intercept, rtol):
         rho = Ro[0, 0]
         X[0] = (Ro[0, ra:][None, :] - np.einsum("j,jkt->kt", Ro[0, 1:ra], xg)) / rho
     return X
+
+
+# ------------------------------------------------------- leave-out fits at new rows
+def cross_hat(state: FactorState, proj: np.ndarray, lam: float, un: np.ndarray) -> np.ndarray:
+    """Cross-hat rows :math:`h(x)` of new rows at penalty ``lam``, shape (b, n).
+
+    ``proj`` holds the new rows in the right singular basis, :math:`a(x) = V^T
+    \\tilde x` (centered and scaled like the training rows), ``un`` the
+    sample-space left factor.  :math:`h_i(x) = [1/n] + \\sum_j a_j(x)\\,
+    d_j/(d_j^2+\\lambda)\\, U_{ij}`, and the full-data prediction is
+    :math:`\\hat\\mu(x) = h(x)^T y`.
+    """
+    h = (proj * gains(state.d, lam)[:, 0]) @ un.T
+    if state.fit_intercept:
+        h += 1.0 / state.n_samples
+    return h
+
+
+def leave_out_shift(state: FactorState, proj: np.ndarray, lam: float, un: np.ndarray,
+                    resid: np.ndarray, labels: np.ndarray) -> np.ndarray:
+    """:math:`\\hat\\mu(x) - \\hat\\mu_{(-f)}(x)` for every fold ``f``, shape (b, K).
+
+    Leaving out the rows of fold :math:`f` changes a penalized least-squares fit
+    at :math:`x` by :math:`h_f(x)^T (I - H_{ff})^{-1} e_f = h_f(x)^T e_{(-f)}`,
+    :math:`e_{(-f)}` the held-out residuals (Woodbury; Sherman–Morrison for one
+    row).  The sum over the fold is taken on the factors,
+    :math:`\\bar e_f + a(x)^T \\operatorname{diag}(g)\\, U_f^T e_{(-f)}`: O(b r K),
+    no (b, n) block.  ``resid`` (n,) holds :math:`y_i - \\hat\\mu_{(-f(i))}(x_i)`,
+    ``labels`` (n,) the folds ``0 .. K-1``.
+    """
+    n = state.n_samples
+    E = np.zeros((n, int(labels.max()) + 1))
+    E[np.arange(n), labels] = resid
+    shift = (proj * gains(state.d, lam)[:, 0]) @ (un.T @ E)
+    if state.fit_intercept:
+        shift += E.sum(axis=0) / n
+    return shift
+
+
+# ------------------------------------------------------------------------- REML
+def _reml_parts(state: FactorState, target):
+    """``m`` (contrasts), ``c`` (r, t) and ``B`` (t,), for every target or one."""
+    m = state.n_samples - state.n_fixed
+    c, out = state.uty, np.asarray(state.rss_out, dtype=float)
+    if target is not None:
+        c, out = c[:, target:target + 1], out[target:target + 1]
+    return m, c, out
+
+
+def _log1p_ratio(d2: np.ndarray, lam: np.ndarray) -> np.ndarray:
+    """:math:`\\log(1 + d_j^2/\\lambda_k)`, shape (r, k), for λ > 0 without overflow."""
+    d2c, lamr = d2[:, None], lam[None, :]
+    big = lamr >= d2c
+    with np.errstate(divide="ignore", over="ignore"):
+        return np.where(big, np.log1p(np.where(big, d2c / lamr, 0.0)),
+                        np.log(d2c + lamr) - np.log(lamr))
+
+
+def reml_profile(state: FactorState, lam, *, target: int | None = None) -> np.ndarray:
+    """Restricted log-likelihood :math:`\\ell(\\lambda)`, σ² profiled out, shape (k, t).
+
+    :math:`\\ell = -\\tfrac12[m \\log(q/m) + \\sum_j L_j]` with
+    :math:`L_j = \\log(1 + d_j^2/\\lambda)` (:math:`\\log\\det H`, :math:`H = I +
+    ZZ^T/\\lambda`), :math:`q = r^T H^{-1} r = \\sum_j c_j^2 e^{-L_j} + B`,
+    :math:`m` the number of contrasts (n minus the unpenalized parameters), up to
+    a constant (Patterson & Thompson 1971; Harville 1977).  For
+    :math:`\\lambda \\ge d_r^2` the terms are ``log1p`` and a log-sum-exp; below,
+    :math:`q = \\lambda w` is factored out, :math:`m \\log q + \\sum L =
+    (m - r)\\log\\lambda + m \\log w + \\sum_j \\log(d_j^2+\\lambda)`, so nothing
+    overflows or cancels from :math:`10^{-300}` to :math:`10^{300}`.  ``inf``
+    gives the intercept-only limit :math:`-\\tfrac12 m\\log(\\|r\\|^2/m)`; 0 gives
+    :math:`-\\infty` when :math:`B > 0` or :math:`r < m`, else the finite limit.
+    ``target``: only that target (t = 1).
+    """
+    lam = np.atleast_1d(np.asarray(lam, dtype=float))
+    m, c, outside = _reml_parts(state, target)
+    d2 = np.square(state.d)
+    r = d2.size
+    out = np.empty((lam.size, c.shape[1]))
+    b = np.concatenate([np.square(c), outside[None, :]])[:, None, :]  # (r+1, 1, t)
+    big = (lam >= d2[-1]) & np.isfinite(lam)
+    if big.any():
+        L = _log1p_ratio(d2, lam[big])  # (r, kb)
+        a = np.concatenate([-L, np.zeros((1, L.shape[1]))])[:, :, None]
+        logq = logsumexp(a, b=b, axis=0)  # (kb, t)
+        out[big] = -0.5 * (m * (logq - np.log(m)) + L.sum(axis=0)[:, None])
+    small = (lam > 0) & (lam < d2[-1])
+    if small.any():
+        ls = lam[small]
+        logden = np.log(d2[:, None] + ls[None, :])  # (r, ks)
+        a = np.concatenate([-logden, -np.log(ls)[None, :]])[:, :, None]
+        logw = logsumexp(a, b=b, axis=0)
+        out[small] = -0.5 * (m * (logw - np.log(m))
+                             + ((m - r) * np.log(ls) + logden.sum(axis=0))[:, None])
+    inf = np.isinf(lam)
+    if inf.any():
+        out[inf] = -0.5 * m * np.log((np.sum(np.square(c), axis=0) + outside) / m)
+    zero = lam == 0
+    if zero.any():
+        if outside.any() or r < m:
+            out[zero] = -np.inf
+        else:
+            s = np.sum(np.square(c) * (d2[-1] / d2)[:, None], axis=0)  # scaled by d_r^2
+            out[zero] = -0.5 * (m * (np.log(s / m) - np.log(d2[-1])) + np.sum(np.log(d2)))
+    return out
+
+
+def reml_variances(state: FactorState, lam: float, target: int = 0) -> tuple[float, float]:
+    """``(noise variance, signal variance)`` of the random-effects model at ``lam``.
+
+    :math:`\\hat\\sigma^2 = r^T H^{-1} r/m` and :math:`\\hat\\sigma^2 \\sum_j
+    d_j^2/(\\lambda m)`; at ``inf`` the signal variance is 0; at 0 (full row
+    rank) the noise variance is 0 and the signal variance its limit
+    :math:`\\sum_j c_j^2 d_j^{-2} \\sum_j d_j^2/m^2`.
+    """
+    m, c, outside = _reml_parts(state, target)
+    d2 = np.square(state.d)
+    cj, out = c[:, 0], float(outside[0])
+    if np.isinf(lam):
+        return float((cj @ cj + out) / m), 0.0
+    if lam == 0:
+        if out > 0 or d2.size < m:
+            return out / max(m - d2.size, 1), 0.0
+        return 0.0, float(np.sum(np.square(cj) / d2) * np.sum(d2)) / m ** 2
+    sigma2 = float(np.sum(np.square(cj) * (lam / (d2 + lam))) + out) / m
+    return sigma2, sigma2 * float(np.sum(d2)) / (lam * m)

@@ -32,12 +32,13 @@ from paths.data.validation import InputError
 from paths.data.output import write_bytes, write_csv
 from paths.present.plot import (LABEL_PT, NOTE_PT, OKABE_ITO, TICK_PT, Artists,
                                 plot_bias_variance, plot_coef_path, plot_errors,
-                                plot_rule_strip, plot_shrinkage, plot_spectrum, plot_threshold,
-                                plot_training_law, plot_variance_share,
-                                unicode_log_ticks)
+                                plot_reml_profile, plot_rule_strip, plot_shrinkage,
+                                plot_spectrum, plot_threshold, plot_training_law,
+                                plot_variance_share, unicode_log_ticks)
 
 __all__ = ["FORMATS", "WIDTHS", "Panel", "parse_formats", "parse_width", "publication_style",
-           "path_figure", "spectrum_figure", "threshold_figure", "figure_table", "save_figure"]
+           "path_figure", "spectrum_figure", "reml_figure", "threshold_figure", "figure_table",
+           "save_figure"]
 
 #: Output formats :func:`save_figure` can write.
 FORMATS = ("png", "pdf", "svg")
@@ -293,6 +294,16 @@ def spectrum_figure(result, *, lam=None, selected=None, width: str = "single",
                + _convention(result) + ".")
     layout = {"single": lambda k: (3, 1, 6.9), "double": lambda k: (1, 3, 2.5)}
     return _compose(name, width, caption, layout, drawers)
+
+
+def reml_figure(result, *, width: str = "single", name: str = "fig-reml") -> Panel:
+    """The restricted log-likelihood profile of each target (:func:`paths.plot.plot_reml_profile`)."""
+    caption = ("Restricted log-likelihood of the penalty (REML; Patterson & Thompson 1971, "
+               "Harville 1977) relative to its maximum, with the REML choice marked; penalties "
+               "above the dotted line at -1.92 form the approximate 95% likelihood-ratio "
+               "interval. " + _convention(result) + ".")
+    layout = {"single": lambda k: (1, 1, 2.6), "double": lambda k: (1, 1, 2.6)}
+    return _compose(name, width, caption, layout, [lambda ax: plot_reml_profile(result, ax)])
 
 
 def threshold_figure(sweep, *, theory=None, noise_variance=None, bias_variance=None,

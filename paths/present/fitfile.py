@@ -77,22 +77,33 @@ def _arrays_of(path: RidgePath, reported: np.ndarray) -> dict:
                                            is not None else np.ones(design.n_features)),
                  "design_sample_weight": (design.sample_weight if design.sample_weight
                                           is not None else np.ones(design.n_samples))}
+    if _has_left_factor(path):
+        extra.update(design_zy=design.zy, fac_u=fac.u)
+    else:  # an out-of-memory engine: the projections U^T y stand for U and zy
+        extra.update(fac_uty=path.uty)
     return {**extra,
         "design_x_mean": design.x_mean, "design_x_scale": design.x_scale,
         "design_active": design.active, "design_y_mean": design.y_mean,
-        "design_zy": design.zy, "fac_u": fac.u, "fac_d": fac.d, "fac_vt": fac.vt,
+        "fac_d": fac.d, "fac_vt": fac.vt,
         "lambdas": path.lambdas, "reported_lambda": reported, "coef": coefs,
         "intercept": icpt,
     }
+
+
+def _has_left_factor(path: RidgePath) -> bool:
+    """True for an in-memory path (left factors and reduced response kept)."""
+    return path.factorization.u.shape[0] == path.n_samples - path.design.n_fixed
 
 
 def _expected_shapes(h: dict) -> dict:
     n, p, t, m, r, q, k = (h["n_samples"], h["n_features"], h["n_targets"], h["m"],
                            h["rank"], h["n_active"], h["n_lambdas"])
     f, b = "float64", "bool"
+    left = ({"design_zy": ((m, t), f), "fac_u": ((m, r), f)} if h.get("kind", "full") == "full"
+            else {"fac_uty": ((r, t), f)})
     return {
         "design_x_mean": ((p,), f), "design_x_scale": ((p,), f), "design_active": ((p,), b),
-        "design_y_mean": ((t,), f), "design_zy": ((m, t), f), "fac_u": ((m, r), f),
+        "design_y_mean": ((t,), f), **left,
         "fac_d": ((r,), f), "fac_vt": ((r, q), f), "lambdas": ((k,), f),
         "reported_lambda": ((t,), f), "coef": ((p, t), f), "intercept": ((t,), f),
         **_span_shapes(h),
@@ -123,6 +134,7 @@ def fit_header(path: RidgePath, *, reported_rule: str, reported: np.ndarray, rul
     return {
         "format": FORMAT,
         "format_version": FORMAT_VERSION,
+        "kind": "full" if _has_left_factor(path) else "predict-only",
         "versions": {"paths": paths.__version__, "numpy": np.__version__,
                      "python": platform.python_version()},
         "penalty_convention": PENALTY_CONVENTION,
@@ -130,7 +142,8 @@ def fit_header(path: RidgePath, *, reported_rule: str, reported: np.ndarray, rul
         "target_names": list((preparation or {}).get("target_names") or
                              (["y"] if t == 1 else [f"y{j}" for j in range(t)])),
         "n_samples": int(path.n_samples), "n_features": int(path.n_features),
-        "n_targets": int(t), "m": int(fac.u.shape[0]), "rank": int(fac.rank),
+        "n_targets": int(t), "m": int(path.n_samples - path.design.n_fixed),
+        "rank": int(fac.rank),
         "n_active": int(np.count_nonzero(path.design.active)),
         "n_lambdas": int(path.lambdas.size), "multi_target": bool(path.multi_target),
         "fit_intercept": bool(path.fit_intercept), "standardize": bool(path.standardize),
@@ -249,6 +262,8 @@ def _check_header(h: dict, src) -> None:
         raise _refuse(src, "header 'target_names' does not list n_targets names; the file is "
                            "damaged")
     n, m, r, q = h["n_samples"], h["m"], h["rank"], h["n_active"]
+    if h.get("kind", "full") not in ("full", "predict-only"):
+        raise _refuse(src, f"unknown fit kind {h.get('kind')!r}; the file is damaged")
     span = h.get("span")
     if span is not None:
         c = span.get("c") if isinstance(span, dict) else None
@@ -374,9 +389,12 @@ class SavedFit:
 
     Attributes
     ----------
-    path : RidgePath
+    path : RidgePath or None
         The path rebuilt from the saved factors on the saved grid: the same
-        coefficients and criteria, bit for bit, as the run that saved it.
+        coefficients and criteria, bit for bit, as the run that saved it.  None
+        for a ``"predict-only"`` fit (from ``--engine stream`` or ``dask``, which
+        keep no left factors): it predicts at any penalty, but has no criteria
+        and no prediction intervals.
     header : dict
         The JSON header (see the module notes).
     reported_lambda : ndarray, shape (t,)
@@ -386,19 +404,30 @@ class SavedFit:
         The model at the reported penalty, on the original feature scale.
     source : str
         The file read.
+    design : Design
+    singular_values, vt, uty : ndarray
+        The factors predictions at any penalty are made from.
     """
 
-    path: RidgePath
+    path: RidgePath | None
     header: dict
     reported_lambda: np.ndarray
     coef: np.ndarray
     intercept: np.ndarray | float
     source: str = ""
     preparation: dict = field(default_factory=dict)
+    design: Design | None = None
+    singular_values: np.ndarray | None = None
+    vt: np.ndarray | None = None
+    uty: np.ndarray | None = None
 
     @property
     def feature_names(self) -> list:
-        return list(self.path.feature_names)
+        return list(self.header["feature_names"])
+
+    @property
+    def n_features(self) -> int:
+        return int(self.header["n_features"])
 
     @property
     def target_names(self) -> list:
@@ -418,13 +447,16 @@ class SavedFit:
         if name == "df":
             from paths.core.grid import lambda_for_df
 
-            lo = float(self.path.design.n_fixed)
-            hi = lo + self.path.rank
+            lo = float(self.design.n_fixed)
+            hi = lo + self.singular_values.size
             if not lo < value <= hi:
                 raise InputError(f"df target {value:g} is outside ({lo:g}, {hi:g}] for this fit")
-            lam = 0.0 if value == hi else lambda_for_df(self.path.factorization.d, value - lo)
+            lam = 0.0 if value == hi else lambda_for_df(self.singular_values, value - lo)
             return np.full(t, lam)
         if name == "fraction":
+            if self.path is None:
+                raise InputError("fraction=VALUE needs the full fit; this predict-only fit "
+                                 "(out-of-memory engine) takes --lambda, df=VALUE or a saved rule")
             if not 0.0 < value <= 1.0:
                 raise InputError(f"target shrinkage fraction must lie in (0, 1]; got {value:g}")
             return np.array([lambda_for_fraction(self.path, value, j) for j in range(t)])
@@ -447,11 +479,11 @@ class SavedFit:
         """
         if isinstance(X, np.ndarray) or not hasattr(X, "columns") and not isinstance(X, dict):
             X = as_design(X, "X")
-            if X.shape[1] != self.path.n_features:
+            if X.shape[1] != self.n_features:
                 raise InputError(
-                    f"X has {X.shape[1]} columns but the fit has {self.path.n_features} "
+                    f"X has {X.shape[1]} columns but the fit has {self.n_features} "
                     f"features; pass them in the training order ({', '.join(self.feature_names[:5])}"
-                    f"{' ...' if self.path.n_features > 5 else ''}) or a table with those names"
+                    f"{' ...' if self.n_features > 5 else ''}) or a table with those names"
                 )
             return X
         return self.prepare_rows(X).X
@@ -461,7 +493,7 @@ class SavedFit:
         from paths.data.tables import Dataset, select_like
 
         prep = self.preparation
-        like = Dataset(X=np.zeros((0, self.path.n_features)), y=np.zeros(0),
+        like = Dataset(X=np.zeros((0, self.n_features)), y=np.zeros(0),
                        feature_names=self.feature_names, target_names=self.target_names,
                        source_columns=list(prep.get("source_columns") or self.feature_names),
                        encoding={k: list(v) for k, v in (prep.get("encoding") or {}).items()},
@@ -490,9 +522,21 @@ class SavedFit:
             if np.ndim(lam) != 0:
                 raise InputError("lam must be one penalty (a number); predict one at a time")
         if np.all(lams == lams[0]):
-            return self.path.predict(X, float(lams[0]))
-        pred = np.column_stack([self.path.predict(X, float(v))[:, j] for j, v in enumerate(lams)])
+            return self._at(X, float(lams[0]))
+        pred = np.column_stack([self._at(X, float(v))[:, j] for j, v in enumerate(lams)])
         return pred
+
+    def _at(self, X: np.ndarray, lam: float) -> np.ndarray:
+        """Predictions at one penalty: the path's own, or (predict-only) the same
+        arithmetic as :meth:`RidgePath.predict` on the saved factors."""
+        if self.path is not None:
+            return self.path.predict(X, lam)
+        from paths.core import algebra
+
+        gains = algebra.gains(self.singular_values, np.array([lam]))
+        proj = self.design.transform(X) @ self.vt.T
+        pred = (self.design.y_mean + algebra.project(proj, gains, self.uty))[:, 0]
+        return pred if self.header["multi_target"] else pred[:, 0]
 
 
 def load_fit(path) -> SavedFit:
@@ -578,20 +622,27 @@ def _rebuild_span(h: dict, a: dict) -> dict:
 
 
 def _rebuild(h: dict, a: dict, src) -> SavedFit:
-    design = Design(zy=a["design_zy"], x_mean=a["design_x_mean"], x_scale=a["design_x_scale"],
+    t, r = h["n_targets"], h["rank"]
+    zy = a["design_zy"] if "design_zy" in a else np.zeros((0, t))
+    design = Design(zy=zy, x_mean=a["design_x_mean"], x_scale=a["design_x_scale"],
                     y_mean=a["design_y_mean"], active=a["design_active"],
                     n_samples=h["n_samples"], fit_intercept=h["fit_intercept"],
                     standardize=h["standardize"], **_rebuild_span(h, a))
     d = a["fac_d"]
-    fac = Factorization(u=a["fac_u"], d=d, vt=a["fac_vt"], rank=int(d.size),
+    u = a["fac_u"] if "fac_u" in a else np.zeros((0, r))
+    fac = Factorization(u=u, d=d, vt=a["fac_vt"], rank=int(d.size),
                         tol=float(h.get("rank_tol", 0.0)), d_max=float(h.get("d_max", d[0])),
                         d_min=float(h.get("d_min", d[-1])), solver=str(h.get("solver", "svd")),
                         reason=str(h.get("solver_reason", "saved fit")))
-    path = path_from_factors(design, fac, a["lambdas"], feature_names=h["feature_names"],
-                             multi_target=h["multi_target"])
+    if h.get("kind", "full") == "full":
+        path = path_from_factors(design, fac, a["lambdas"], feature_names=h["feature_names"],
+                                 multi_target=h["multi_target"])
+        uty = path.uty
+    else:
+        path, uty = None, a["fac_uty"]
     multi = h["multi_target"]
     coef = a["coef"] if multi else a["coef"][:, 0]
     icpt = a["intercept"] if multi else float(a["intercept"][0])
     return SavedFit(path=path, header=h, reported_lambda=a["reported_lambda"], coef=coef,
-                    intercept=icpt, source=src,
-                    preparation=dict(h.get("preparation") or {}))
+                    intercept=icpt, source=src, preparation=dict(h.get("preparation") or {}),
+                    design=design, singular_values=d, vt=a["fac_vt"], uty=uty)

@@ -38,7 +38,8 @@ from paths.data.validation import InputError
 __all__ = [
     "OKABE_ITO", "STYLES", "RULE_LABELS", "CONVENTION_SHORT", "Trace", "Artists",
     "RULE_FAMILIES", "rule_family", "selections_of", "theory_of", "marchenko_pastur_density",
-    "plot_coef_path", "plot_errors", "plot_rule_strip", "interpolation_ratio", "theory_applies", "power_of_ten", "unicode_log_ticks", "plot_shrinkage", "plot_spectrum",
+    "plot_coef_path", "plot_errors", "plot_rule_strip", "interpolation_ratio", "theory_applies",
+    "power_of_ten", "unicode_log_ticks", "plot_shrinkage", "plot_spectrum", "plot_reml_profile",
     "plot_variance_share", "plot_threshold", "plot_training_law", "plot_bias_variance",
 ]
 
@@ -1135,6 +1136,65 @@ def plot_variance_share(result, ax=None, **style) -> Artists:
     art.texts.append(t)
     ax.set_xlabel(art.x_quantity)
     ax.set_ylabel(art.y_quantity)
+    return art
+
+
+def plot_reml_profile(result, ax=None, **style) -> Artists:
+    """The restricted log-likelihood profile :math:`\\ell(\\lambda) - \\ell(\\hat\\lambda)` of each target.
+
+    With the REML choice :math:`\\hat\\lambda` marked and the cut
+    :math:`-\\chi^2_{1,0.95}/2` whose crossings bound the approximate 95%
+    likelihood-ratio interval (:mod:`paths.selection.reml`).
+
+    Parameters
+    ----------
+    result : RidgePath
+        An in-memory path (its left singular vectors are needed).
+
+    Returns
+    -------
+    Artists
+        ``lines[target]``, ``markers[target]`` and ``refs["cut"]``.
+    """
+    from paths.selection.reml import CHI2_1_95, reml_estimate, reml_loglik
+
+    ax = _new_axes(ax)
+    lam = _arr(_get(result, "lambdas"))
+    if lam is None or _get(result, "factorization") is None:
+        raise InputError("the REML profile needs a RidgePath from fit_path")
+    ll = np.asarray(reml_loglik(result), dtype=float).reshape(lam.size, -1)
+    art = Artists(ax=ax, x_quantity=_penalty_label(_get(result, "standardize", True)),
+                  y_quantity=r"REML $\ell(\lambda)-\ell(\hat\lambda)$")
+    xv = np.log10(np.where(lam > 0, lam, np.nan))
+    names = ["y"] if ll.shape[1] == 1 else [f"target {j}" for j in range(ll.shape[1])]
+    for j, name in enumerate(names):
+        est = reml_estimate(result, j)
+        color, dash = _SEQUENCE[j % len(_SEQUENCE)]
+        kw = dict(color=color, linestyle=dash, linewidth=1.2)
+        kw.update(style)
+        rel = ll[:, j] - est.loglik
+        (ln,) = ax.plot(xv, rel, label=f"REML profile ({name})" if len(names) > 1
+                        else "REML profile", **kw)
+        art.lines[name] = ln
+        art.traces.append(Trace(f"reml_loglik {name}", "line", xv, rel))
+        if est.lam > 0:
+            xm = float(np.log10(est.lam))
+            (mk,) = ax.plot([xm], [0.0], marker="o", color=color, linestyle="none",
+                            markersize=4, label=f"REML λ = {est.lam:.3g}")
+            art.markers[name] = mk
+            art.traces.append(Trace(f"reml choice {name}", "marker", np.array([xm]),
+                                    np.array([0.0])))
+    cut = -0.5 * CHI2_1_95
+    art.refs["cut"] = ax.axhline(cut, color="#777777", linestyle=(0, (1, 1)), linewidth=0.8,
+                                 label="95% likelihood-ratio cut")
+    art.traces.append(Trace("chi2 cut", "reference", np.array([np.nanmin(xv), np.nanmax(xv)]),
+                            np.array([cut, cut])))
+    finite = np.isfinite(ll - ll.max(axis=0))
+    low = float(np.min((ll - ll.max(axis=0))[finite])) if finite.any() else cut
+    ax.set_ylim(max(low, 12 * cut), 0.5)
+    ax.set_xlabel(art.x_quantity)
+    ax.set_ylabel(art.y_quantity)
+    art.texts.append(ax.legend(fontsize=NOTE_PT, loc="lower center", frameon=True, framealpha=0.85))
     return art
 
 

@@ -24,6 +24,7 @@ from paths.data.output import write_text
 from paths.present.markup import md_escape, md_safe
 
 __all__ = ["FigureRef", "report_numbers", "diagnosis", "methods_paragraph", "rules_table",
+           "intervals_section",
            "cautions", "render_markdown", "render_html", "write_report", "fmt"]
 
 RULE_NAMES = {
@@ -63,6 +64,14 @@ REFERENCES = {
                  "ridge regression and classification. Annals of Statistics 46, 247–279.",
     "reml": "Patterson, H. D. and Thompson, R. (1971). Recovery of inter-block information when "
             "block sizes are unequal. Biometrika 58, 545–554.",
+    "reml_harville": "Harville, D. A. (1977). Maximum likelihood approaches to variance "
+                     "component estimation and to related problems. J. Amer. Statist. Assoc. 72, "
+                     "320–338.",
+    "jackknife+": "Barber, R. F., Candès, E. J., Ramdas, A. and Tibshirani, R. J. (2021). "
+                  "Predictive inference with the jackknife+. Annals of Statistics 49, 486–507.",
+    "split": "Lei, J., G'Sell, M., Rinaldo, A., Tibshirani, R. J. and Wasserman, L. (2018). "
+             "Distribution-free predictive inference for regression. J. Amer. Statist. Assoc. "
+             "113, 1094–1111.",
     "min_norm": "Hastie, T., Montanari, A., Rosset, S. and Tibshirani, R. J. (2022). Surprises in "
                 "high-dimensional ridgeless least squares interpolation. Annals of Statistics "
                 "50, 949–986.",
@@ -149,8 +158,10 @@ def report_numbers(summary: dict) -> dict:
     dfs = summary["df"]
     idx = sel.get("index")
     if idx is None:
-        idx = min(range(len(lams)), key=lambda i: abs(math.log(lams[i])
-                                                       - math.log(max(sel["lambda"], 1e-300))))
+        # nearest grid penalty on the log scale (lambda = 0, the min-norm limit: the smallest)
+        tiny = min([v for v in lams if v > 0], default=1.0) * 1e-300
+        idx = min(range(len(lams)), key=lambda i: abs(math.log(max(lams[i], tiny))
+                                                      - math.log(max(sel["lambda"], tiny))))
     norms = summary.get("coef_norm") or []
     mn_norm = _first((summary.get("min_norm") or {}).get("coef_norm"))
     fraction = _first(sel.get("fraction"))
@@ -478,6 +489,31 @@ def _methods_text(summary: dict, formula: str) -> str:
     return " ".join(parts)
 
 
+def intervals_section(summary: dict) -> list:
+    """Sentences on the prediction intervals of the run (empty without ``--intervals``):
+    the method, its guarantee with its assumption, and what the test rows showed."""
+    rec = summary.get("intervals")
+    if not rec:
+        return []
+    names = {"jackknife+": "jackknife+ (Barber, Candès, Ramdas & Tibshirani 2021)",
+             "cv+": f"CV+ with {rec.get('n_folds')} folds (Barber et al. 2021)",
+             "split": f"split conformal with {rec.get('n_calibration')} calibration rows "
+                      "(Lei et al. 2018)"}
+    cov, wid, lam = rec["coverage"], rec["mean_width"], rec["lambda"]
+    many = isinstance(cov, list)
+    show = (lambda v: ", ".join(fmt(x) for x in v)) if many else fmt  # noqa: E731
+    return [
+        f"Prediction intervals at level {fmt(rec['level'])} by "
+        f"{names.get(rec['method'], rec['method'])}, at the reported penalty lambda = "
+        f"{show(lam)}, from the one factorization (no refits).",
+        f"Guarantee: {rec['guarantee']}; exchangeable means the new rows come from the same "
+        "population as the training rows, drawn the same way. It does not hold for rows from "
+        "another site, time or instrument.",
+        f"On the {fmt(rec['n_test'])} test rows, {show(cov)} of the responses fell inside their "
+        f"interval (mean width {show(wid)}); intervals.csv lists every row.",
+    ]
+
+
 def cautions(summary: dict) -> list:
     out = [
         "A penalty chosen on the data makes the chosen model's in-sample criteria (GCV, "
@@ -556,6 +592,8 @@ def render_markdown(summary: dict, figures=()) -> str:
         if own:
             L += ["", f"{h2} Figures", ""] + _md_figures(own)
         L += ["", f"{h2} Methods paragraph", "", methods_paragraph(view, "latex")]
+    if summary.get("intervals"):
+        L += ["", "## Prediction intervals", ""] + [f"- {s}" for s in intervals_section(summary)]
     shared = [f for f in figures if not multi or getattr(f, "target", None) is None]
     if shared:
         L += ["", "## Figures", ""] + _md_figures(shared)
@@ -642,6 +680,9 @@ def render_html(summary: dict, figures=(), *, interactive: str = "") -> str:
             B += _figures_html(own, e, heading=f"<{h}>Figures</{h}>")
         B += [f"<{h}>Methods paragraph</{h}>",
               f'<p class="methods">{methods_paragraph(view, "html")}</p>']
+    if summary.get("intervals"):
+        B += ["<h2>Prediction intervals</h2>", "<ul>"] + [
+            f"<li>{e(s)}</li>" for s in intervals_section(summary)] + ["</ul>"]
     if interactive:
         B.append(interactive)
     B += _figures_html([f for f in figures if not multi or getattr(f, "target", None) is None], e)
@@ -881,7 +922,7 @@ def write_explore_outputs(result, summary: dict, out_dir, *, cv=None, formats=("
     K-fold CV (``cv``, a :class:`paths.cv.CVResult`) when given.  With several
     targets the path figures are ``fig-path-1``, ``fig-path-2``, … in target order.
     """
-    from paths.present.figures import path_figure, save_figure, spectrum_figure
+    from paths.present.figures import path_figure, reml_figure, save_figure, spectrum_figure
 
     out = Path(out_dir)
     nums = summary.get("report") or report_numbers(summary)
@@ -902,6 +943,9 @@ def write_explore_outputs(result, summary: dict, out_dir, *, cv=None, formats=("
     chosen = {nums["rule"]: summary["selected"][nums["rule"]]}
     panels.append(spectrum_figure(result, selected=chosen, width=width))
     owners.append(None)
+    if nums["rule"] == "reml" and result.factorization.u.shape[0] > 0:
+        panels.append(reml_figure(result, width=width))  # the profile behind the choice
+        owners.append(None)
     written, pairs = [], []
     for panel in panels:
         files = save_figure(panel, out, formats=formats) if formats else []  # --format none
@@ -979,8 +1023,13 @@ def _cited(summary: dict) -> list:
         k = _REF_KEY.get(rule, rule)
         if isinstance(sel, dict) and sel.get("lambda") is not None and k in REFERENCES:
             keys.append(k)
+    if "reml" in keys:
+        keys.append("reml_harville")
     if summary.get("cv"):
         keys.append("cv")
+    method = (summary.get("intervals") or {}).get("method")
+    if method:
+        keys.append("split" if method == "split" else "jackknife+")
     keys.append("min_norm")
     return list(dict.fromkeys(keys))
 

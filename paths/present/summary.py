@@ -20,7 +20,7 @@ from paths.core.path import RidgePath
 
 __all__ = ["versions", "path_table", "coefficient_table", "summary_dict", "selections",
            "model_table", "choice_errors", "shared_rows", "add_choice_errors", "reported_lambdas",
-           "write_coefficients", "COEFFICIENTS_CSV_LIMIT"]
+           "write_coefficients", "COEFFICIENTS_CSV_LIMIT", "interval_table", "interval_record"]
 
 
 def versions() -> dict:
@@ -62,9 +62,19 @@ def selections(result: RidgePath, target: int = 0) -> dict:
     return sel
 
 
+def _reml_column(result: RidgePath):
+    """The restricted log-likelihood along the grid (None where the engine kept no U)."""
+    if result.factorization.u.shape[0] == 0:  # streamed: left singular vectors never formed
+        return None
+    from paths.selection.reml import reml_loglik
+
+    return reml_loglik(result)
+
+
 def path_table(result: RidgePath, target: int = 0):
-    """``path.csv``: one row per penalty."""
-    header = ["lambda", "df", "train_mse", "gcv", "loo_mse", "test_mse", "coef_norm"]
+    """``path.csv``: one row per penalty (``reml_loglik``: :mod:`paths.selection.reml`)."""
+    header = ["lambda", "df", "train_mse", "gcv", "loo_mse", "test_mse", "coef_norm",
+              "reml_loglik"]
 
     def col(a):
         if a is None:
@@ -72,7 +82,8 @@ def path_table(result: RidgePath, target: int = 0):
         return a if a.ndim == 1 else a[:, target]
 
     cols = [result.lambdas, result.df, col(result.train_mse), col(result.gcv),
-            col(result.loo_mse), col(result.test_mse), col(result.coef_norm)]
+            col(result.loo_mse), col(result.test_mse), col(result.coef_norm),
+            col(_reml_column(result))]
     rows = [[None if c[i] is None else float(c[i]) for c in cols]
             for i in range(result.lambdas.size)]
     return header, rows
@@ -86,6 +97,34 @@ def coefficient_table(result: RidgePath, target: int = 0):
     rows = [[float(result.lambdas[i]), float(icpt[i]), *map(float, coef[i])]
             for i in range(result.lambdas.size)]
     return header, rows
+
+
+def interval_table(pi, rows, targets=None):
+    """``intervals.csv``: ``row, prediction, lower, upper`` per test row (``target`` first
+    with several targets, the rows of each stacked).
+
+    ``pi`` is a :class:`paths.selection.intervals.PredictionIntervals`, ``rows`` the
+    test rows' labels (row numbers in their file).
+    """
+    if pi.prediction.ndim == 1:
+        return (["row", "prediction", "lower", "upper"],
+                [[r, float(a), float(b), float(c)]
+                 for r, a, b, c in zip(rows, pi.prediction, pi.lower, pi.upper)])
+    out = []
+    for j, name in enumerate(targets):
+        out.extend([name, r, float(a), float(b), float(c)] for r, a, b, c in
+                   zip(rows, pi.prediction[:, j], pi.lower[:, j], pi.upper[:, j]))
+    return ["target", "row", "prediction", "lower", "upper"], out
+
+
+def interval_record(pi, y_test) -> dict:
+    """``summary.json["intervals"]``: level, method, lambda, coverage of the test rows,
+    mean width (lists over targets with several targets) and the guarantee."""
+    width = np.mean(pi.upper - pi.lower, axis=0)
+    return {"level": pi.level, "method": pi.method, "lambda": _list(pi.lam),
+            "coverage": _list(pi.coverage(y_test)), "mean_width": _list(width),
+            "guarantee": pi.guarantee, "n_test": int(pi.prediction.shape[0]),
+            "n_folds": pi.n_folds, "n_calibration": pi.n_calibration}
 
 
 def summary_dict(result: RidgePath, **extra) -> dict:

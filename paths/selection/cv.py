@@ -69,6 +69,7 @@ __all__ = [
     "make_folds",
     "cross_validate",
     "loo_residuals",
+    "heldout_residuals",
     "measure_cost_model",
 ]
 
@@ -390,14 +391,26 @@ class _ExactEngine:
         return "dual" if self.dual else "primal"
 
     def _fold(self, idx, lam):
-        """Mean squared held-out residual of one fold, (k, t)."""
+        """Mean squared held-out residual of one fold, (k, t); with row weights
+        :math:`\\sum_i w_i e_i^2 / \\sum_i w_i` (the residuals are those of :math:`W^{1/2} y`)."""
+        sq = np.concatenate([np.sum(np.square(res), axis=1)
+                             for res in self.fold_residuals(idx, lam)])
+        if self.span is not None:
+            return sq / np.square(self.span.sqrt_w[idx]).sum()
+        return sq / idx.size
+
+    def fold_residuals(self, idx, lam):
+        """Yield the held-out residuals of fold ``idx``, (k_chunk, b, t), chunk by chunk."""
         b = idx.size
         if self.span is not None:
             uf = self.un[idx]
         else:
             uf = _sample_rows(self.u, idx, self.fit_intercept, self.colsum)  # (b, r)
         r = uf.shape[1]
-        P = (uf[:, None, :] * uf[None, :, :]).reshape(b * b, r).T  # (r, b*b)
+        # the blocks of all penalties as one product with vec(u_fj u_fj^T), unless that
+        # (r, b*b) factor is too large (big folds): then one product per penalty
+        P = (uf[:, None, :] * uf[None, :, :]).reshape(b * b, r).T if r * b * b <= _CHUNK_ELEMS \
+            else None
         if not self.dual:
             base = np.eye(b) - uf @ uf.T
             if self.span is not None:
@@ -405,8 +418,6 @@ class _ExactEngine:
                 base -= qf @ qf.T
             elif self.fit_intercept:
                 base -= 1.0 / self.n
-        t = self.c.shape[1]
-        out = np.empty((lam.size, t))
         step = max(1, _CHUNK_ELEMS // max(b * b, r * b))
         if not self.dual:  # lambda = 0: the lambda -> 0+ limit (see _solve_at_zero)
             lam = np.where(lam == 0, 1e-10 * self.d2[-1], lam)
@@ -414,18 +425,15 @@ class _ExactEngine:
             lk = lam[s:s + step]
             denom = self.d2[None, :] + lk[:, None]  # (kc, r)
             coefs = (1.0 / denom) if self.dual else (lk[:, None] / denom)
-            A = (coefs @ P).reshape(lk.size, b, b)
+            if P is not None:
+                A = (coefs @ P).reshape(lk.size, b, b)
+            else:
+                A = np.stack([(uf * cf) @ uf.T for cf in coefs])
             rhs = np.einsum("ir,kr,rt->kit", uf, coefs, self.c)
             if not self.dual:
                 A += base
                 rhs += self.eperp[idx][None, :, :]
-            res = np.linalg.solve(A, rhs)  # (kc, b, t)
-            if self.span is not None:  # sum_i w_i e_i^2 / sum_i w_i over the fold
-                wf = np.square(self.span.sqrt_w[idx]).sum()
-                out[s:s + step] = np.sum(np.square(res), axis=1) / wf
-            else:
-                out[s:s + step] = np.mean(np.square(res), axis=1)
-        return out
+            yield np.linalg.solve(A, rhs)  # (kc, b, t)
 
     def fold_mse(self, lam):
         return np.stack([np.stack([self._fold(idx, lam) for idx in folds]) for folds in self.folds])
@@ -658,6 +666,25 @@ def cross_validate(
                     scheme=scheme, scaling=scaling, method=route, form=engine.form,
                     method_reason=reason, multi_target=multi, _engine=engine,
                     fold_weights=fold_w)
+
+
+def heldout_residuals(path, lam: float, labels, *, only=None) -> np.ndarray:
+    """Exact held-out residuals at one penalty for a partition ``labels``, shape (n,) or (n, t).
+
+    Row ``i`` gets :math:`y_i - \\hat\\mu_{(-f)}(x_i)`, the residual of the fit
+    that leaves out its whole fold :math:`f`, from the full-data factors
+    (:math:`e_{(-f)} = (I - H_{ff})^{-1} e_f`, primal or dual form of the module
+    notes); the preprocessing is held fixed and the intercept refitted.  ``only``:
+    the folds to compute (the other rows get 0).
+    """
+    labels = np.asarray(labels)
+    lam_arr = as_lambdas(lam)[:1]
+    engine = _ExactEngine(path.factorization, path.design, path.uty, [labels])
+    out = np.zeros((path.n_samples, path.uty.shape[1]))
+    for f, idx in enumerate(engine.folds[0]):
+        if only is None or f in only:
+            out[idx] = next(engine.fold_residuals(idx, lam_arr))[0]
+    return out if path.multi_target else out[:, 0]
 
 
 def loo_residuals(path, lam) -> np.ndarray:

@@ -27,6 +27,12 @@ Rules (keys of :data:`RULES`):
     :math:`\\hat b` the OLS fit); in this package's convention (unit population
     SD) :math:`\\lambda = n k`, i.e. :math:`\\lambda_{HKB} = p\\hat\\sigma^2/
     \\|\\hat\\beta\\|^2` and :math:`\\lambda_{LW} = n p \\hat\\sigma^2/\\|X\\hat\\beta\\|^2`.
+``reml``
+    The maximum of the restricted likelihood of the random-effects model
+    :math:`\\beta \\sim N(0, (\\sigma^2/\\lambda) I)` (Patterson & Thompson 1971;
+    Harville 1977; :mod:`paths.selection.reml`), with the noise and signal
+    variances at the maximum, the share of variance explained and an approximate
+    95% likelihood-ratio interval for :math:`\\lambda`.
 ``isotropic``
     The random-matrix plug-in :math:`\\lambda^* = p\\hat\\sigma^2/\\hat r^2`,
     :math:`\\hat r^2 = \\widehat{\\operatorname{var}}(y) - \\hat\\sigma^2`
@@ -41,11 +47,13 @@ from scipy.optimize import brentq, minimize_scalar
 
 from paths.data.validation import InputError
 from paths.core.grid import lambda_for_df
+from paths.selection.reml import reml_estimate
 
 __all__ = [
     "RULES",
     "NoiseEstimate",
     "Selection",
+    "RemlSelection",
     "SelectionReport",
     "parse_rule",
     "noise_variance",
@@ -59,7 +67,7 @@ __all__ = [
     "select",
 ]
 
-RULES = ("gcv", "loo", "cv", "one-se", "df", "fraction", "hkb", "lw", "isotropic")
+RULES = ("gcv", "loo", "cv", "one-se", "df", "fraction", "hkb", "lw", "isotropic", "reml")
 _XATOL = 1e-7  # tolerance of the refinement, in log(lambda)
 _N_EXTEND = 24  # grid extension: up to 12 decades beyond the edge, half a decade a step
 
@@ -80,7 +88,7 @@ def parse_rule(spec: str) -> tuple[str, float | None]:
     if name not in RULES:
         raise InputError(
             f"unknown rule {spec!r}; choose gcv, loo, cv, one-se, df=VALUE, fraction=VALUE, "
-            "hkb, lw or isotropic"
+            "hkb, lw, isotropic or reml"
         )
     if name in ("df", "fraction"):
         try:
@@ -498,6 +506,42 @@ class Selection:
 
 
 @dataclass(frozen=True)
+class RemlSelection(Selection):
+    """The ``reml`` rule's choice, with the variance components at the maximum.
+
+    Attributes
+    ----------
+    noise_variance : float or None
+        :math:`\\hat\\sigma^2 = r^T H^{-1} r/m` at the chosen penalty.
+    signal_variance : float or None
+        :math:`\\hat\\sigma^2 \\sum_j d_j^2/(\\lambda m)`, the average variance of
+        the random effect :math:`Z\\beta` per row.
+    variance_explained : float or None
+        signal / (signal + noise).
+    lam_interval : tuple of float or None
+        Approximate 95% likelihood-ratio interval ``(low, high)`` for the penalty
+        (:math:`\\chi^2_1`; ``high`` may be ``inf``).
+    loglik : float or None
+        The restricted log-likelihood at the maximum (up to a constant).
+    """
+
+    noise_variance: float | None = None
+    signal_variance: float | None = None
+    variance_explained: float | None = None
+    lam_interval: tuple | None = None
+    loglik: float | None = None
+
+    def as_dict(self) -> dict:
+        out = super().as_dict()
+        ends = None if self.lam_interval is None else [
+            None if not np.isfinite(v) else float(v) for v in self.lam_interval]
+        out.update(noise_variance=self.noise_variance, signal_variance=self.signal_variance,
+                   variance_explained=self.variance_explained, lambda_interval=ends,
+                   interval_level=0.95, loglik=self.loglik)
+        return out
+
+
+@dataclass(frozen=True)
 class SelectionReport:
     """Every rule's choice, per target, with the noise estimate.
 
@@ -699,6 +743,7 @@ def _select_one(path, cv, j, g, sigma2, noise, df_target, fraction_target):
                        note="; ".join(x for x in ("Hoerl, Kennard & Baldwin (1975)", note) if x))
     out["lw"] = _make(path, "lw", lw_lambda(path, sigma2, j), j, cv=est_cv,
                       note="; ".join(x for x in ("Lawless & Wang (1976)", note) if x))
+    out["reml"] = _reml(path, j, est_cv)
     iso = isotropic_lambda(path, sigma2, j)
     iso_note = "Dobriban & Wager (2018); assumes roughly isotropic standardized features"
     if not path.standardize:
@@ -710,6 +755,23 @@ def _select_one(path, cv, j, g, sigma2, noise, df_target, fraction_target):
     else:
         out["isotropic"] = _make(path, "isotropic", iso, j, cv=est_cv, note=iso_note)
     return out
+
+
+def _reml(path, j, cv) -> RemlSelection:
+    """The REML maximum (:func:`paths.selection.reml.reml_estimate`) as a rule's choice."""
+    est = reml_estimate(path, j)
+    lo, hi = est.lam_interval
+    summary = (f"noise variance {est.noise_variance:.4g}, signal variance "
+               f"{est.signal_variance:.4g} ({100 * est.variance_explained:.1f}% of the variance "
+               f"explained); approximate 95% likelihood-ratio interval for lambda "
+               f"[{lo:.3g}, {hi:.3g}]")
+    note = "; ".join(x for x in ("Patterson & Thompson (1971), Harville (1977); random-effects "
+                                 "model", summary, est.note) if x)
+    sel = _make(path, "reml", est.lam, j, cv=cv, refined=True, note=note)
+    return RemlSelection(**vars(sel), noise_variance=est.noise_variance,
+                         signal_variance=est.signal_variance,
+                         variance_explained=est.variance_explained,
+                         lam_interval=est.lam_interval, loglik=est.loglik)
 
 
 def _one_se(path, cv, j, lam_min, mse_min, se_min):

@@ -154,6 +154,8 @@ def explore(
     report: bool = True,
     extra: dict | None = None,
     inputs=(),
+    intervals: float | None = None,
+    interval_method: str = "jackknife+",
     weights=None,
     test_weights=None,
     unpenalized=None,
@@ -190,6 +192,13 @@ def explore(
     inputs : iterable of paths, optional
         Files the run read besides those in ``input_sha256`` (e.g. a case file): no
         output may overwrite them (:class:`paths.data.output.OutputFolder`).
+    intervals : float, optional
+        Prediction intervals at this level for the test rows
+        (:func:`paths.selection.intervals.prediction_intervals`, at the reported
+        rule's penalty): ``intervals.csv`` and ``summary.json["intervals"]``.
+        Needs ``test`` or ``holdout``.
+    interval_method : {"jackknife+", "cv+", "split"}
+        CV+ uses the K-fold partition of ``cv`` when given (else 10 seeded folds).
     weights, test_weights : array_like, optional
         Row weights of ``data`` (split with ``holdout``) and of ``test``
         (:func:`paths.path.fit_path` ``sample_weight`` / ``test_weight``).
@@ -207,11 +216,13 @@ def explore(
 
     if test is not None and holdout is not None:
         raise InputError("pass either --test or --holdout, not both")
+    if intervals is not None and test is None and holdout is None:
+        raise InputError("--intervals needs test rows: pass --test FILE or --holdout FRACTION")
     folder = OutputFolder(out_dir, force=force, inputs=[*(input_sha256 or {}), *inputs])
     with folder:
         out = folder.stage
         X, y = data.X, data.y
-        X_test = y_test = None
+        X_test = y_test = test_rows = None
         split = None
         if test is not None:
             missing = [c for c in data.feature_names if c not in test.feature_names]
@@ -220,8 +231,10 @@ def explore(
                                  f"{', '.join(missing[:5])}; give it the training columns")
             order = [test.feature_names.index(c) for c in data.feature_names]
             X_test, y_test = test.X[:, order], test.y
+            test_rows = test.rows if test.rows is not None else np.arange(test.X.shape[0])
         elif holdout is not None:
             train, held = split_holdout(X.shape[0], holdout, seed)
+            test_rows = held if data.rows is None else data.rows[held]
             X, y, X_test, y_test = X[train], y[train], X[held], y[held]
             split = {"holdout": holdout, "seed": seed, "n_test": int(held.size)}
             if weights is not None:
@@ -263,6 +276,11 @@ def explore(
                            for k in summary["min_norm"]}}
                 for j, name in enumerate(data.target_names)
             }
+        interval_file = None
+        if intervals is not None:
+            summary["intervals"], interval_file = _intervals(
+                result, selection, cv_res, X_test, y_test, test_rows, data.target_names,
+                level=intervals, method=interval_method, seed=seed)
         summary.update(extra or {})
         add_choice_errors(summary, result, X_train=X, X_test=X_test, y_test=y_test)
         summary["report"] = report_numbers(summary)
@@ -274,11 +292,26 @@ def explore(
             write_json(out / "summary.json", summary),
             write_saved_fit(out / "fit.npz", result, selection, data, input_sha256),
         ]
+        if interval_file is not None:
+            files.append(write_csv(out / "intervals.csv", *interval_file))
         if formats or report:
             files += write_explore_outputs(result, summary, out, cv=cv_res, formats=formats or (),
                                            width=width, x=x_axis, report=report)
     return ExploreRun(result=result, summary=summary, out_dir=folder.target,
                       files=folder.final_paths(files), selection=selection, cv=cv_res)
+
+
+def _intervals(result, selection, cv_res, X_test, y_test, test_rows, targets, *, level, method,
+               seed):
+    """Prediction intervals for the test rows at the reported penalty of each target:
+    ``(summary record, (header, rows) of intervals.csv)``."""
+    from paths.present.summary import interval_record, interval_table
+    from paths.selection.intervals import prediction_intervals
+
+    pi = prediction_intervals(
+        result, X_test, selection.chosen_lambdas(), level=level, method=method,
+        folds=cv_res.labels[0] if cv_res is not None and method == "cv+" else None, seed=seed)
+    return interval_record(pi, y_test), interval_table(pi, [int(r) for r in test_rows], targets)
 
 
 def _penalty_record(result: RidgePath, relative_penalty) -> dict:
@@ -307,6 +340,27 @@ def write_saved_fit(dest: Path, result: RidgePath, selection, data: Dataset,
     return save_fit(dest, result, reported=reported, reported_rule=rule, rules=rules,
                     preparation=prep,
                     input_sha256=input_sha256, **header_kw)
+
+
+def write_engine_fit(dest: Path, result, targets, source: str, input_sha256=None) -> Path:
+    """A predict-only ``fit.npz`` of an out-of-memory engine's path (its grid minima as rules;
+    the reported one: K-fold CV when computed, else GCV)."""
+    from paths.present.fitfile import save_fit
+
+    def grid_min(values):
+        if values is None:
+            return None
+        v = np.asarray(values, dtype=float).reshape(result.lambdas.size, -1)
+        return [float(result.lambdas[int(np.argmin(v[:, j]))]) for j in range(v.shape[1])]
+
+    rules = {"gcv": grid_min(result.gcv), "loo": grid_min(result.loo_mse),
+             "cv": grid_min(result.cv_mse)}
+    rule = "cv" if rules["cv"] is not None else "gcv"
+    prep = {"source_columns": list(result.feature_names), "encoding": {}, "id_column": None,
+            "drop_missing": None, "target_names": list(targets), "source": source}
+    return save_fit(dest, result, reported=np.array(rules[rule]),
+                    reported_rule=f"{rule} (grid minimum)", rules=rules, preparation=prep,
+                    input_sha256=input_sha256)
 
 
 def _selection(result, X, y, *, cv, repeats, groups, folds, cv_scaling, seed, rule):
@@ -563,6 +617,8 @@ def explore_engine(
 
             summary["report"] = report_numbers(summary)
         files.append(write_json(out / "summary.json", summary))
+        if result.coef is not None and result.engine != "wide":  # wide: no right factors kept
+            files.append(write_engine_fit(out / "fit.npz", result, targets, str(path), digests))
         if drawable:
             files += write_explore_outputs(result, summary, out, formats=formats or (),
                                            width=width, x=x_axis, report=report)

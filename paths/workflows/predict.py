@@ -96,6 +96,10 @@ def prediction_columns(saved: SavedFit, id_name: str, intervals: bool) -> list:
 
 
 def _intervals(saved: SavedFit, X, lams, level):
+    if saved.path is None:
+        raise InputError("--intervals needs the full fit; this fit.npz is predict-only (written "
+                         "by an out-of-memory engine, which keeps no left factors): refit with "
+                         "--engine memory or predict without --intervals")
     if saved.path.design.span is not None:
         raise InputError("--intervals is not available for a fit with row weights, unpenalized "
                          "columns or relative penalties (the conformal intervals assume the "
