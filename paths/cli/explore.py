@@ -198,7 +198,7 @@ def explore_cmd(
                                          "learned on all rows (fast, slightly optimistic) or "
                                          "inside each fold (exact, refits)."),
     rule: str = typer.Option(None, "--rule", help="Reported choice: gcv, loo, cv, one-se, "
-                             "df=VALUE, fraction=VALUE, hkb, lw or isotropic (default: cv with "
+                             "df=VALUE, fraction=VALUE, hkb, lw, isotropic or reml (default: cv with "
                              "--cv, else gcv)."),
     engine: Engine = typer.Option(Engine.memory, "--engine", help="memory: read everything; "
                                   "stream: row chunks (tall) or column blocks (wide Parquet) in "

@@ -54,7 +54,14 @@ CHI2_1_95 = 3.841458820694124  # 0.95 quantile of chi-square with 1 df (scipy.st
 def path_state(path) -> algebra.FactorState:
     """The path's factor state (:class:`paths.core.algebra.FactorState`)."""
     state = getattr(path, "state", None)
-    return state if state is not None else algebra.factor_state(path.factorization, path.design)
+    if state is not None:
+        return state
+    if path.factorization.u.shape[0] == 0:  # streamed: the left factor was never formed
+        from paths.data.validation import InputError
+
+        raise InputError("this path was computed without its left singular vectors (streaming "
+                         "engine); REML and prediction intervals need --engine memory")
+    return algebra.factor_state(path.factorization, path.design)
 
 
 def reml_loglik(path, lam=None) -> np.ndarray:

@@ -759,7 +759,10 @@ def _select_one(path, cv, j, g, sigma2, noise, df_target, fraction_target):
 
 def _reml(path, j, cv) -> RemlSelection:
     """The REML maximum (:func:`paths.selection.reml.reml_estimate`) as a rule's choice."""
-    est = reml_estimate(path, j)
+    try:
+        est = reml_estimate(path, j)
+    except InputError as exc:  # a path without its left factor (streamed)
+        return RemlSelection("reml", None, target=j, note=str(exc))
     lo, hi = est.lam_interval
     summary = (f"noise variance {est.noise_variance:.4g}, signal variance "
                f"{est.signal_variance:.4g} ({100 * est.variance_explained:.1f}% of the variance "
