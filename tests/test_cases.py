@@ -62,13 +62,13 @@ def test_three_scenarios_wide_near_threshold_crossing():
     """Calibration: a few dozen rows, hundreds of channels; panel: p within 10% of the training
     n; isotropic: a sweep whose features run past the training rows."""
     cases = {c.name: c for c in (load_case(p) for _, _, p in list_cases())}
-    cal = cases["calibration"].data["params"]
+    cal = cases["calibration"].data.params
     assert 24 <= cal["n_samples"] <= 60 and cal["n_channels"] >= 200
     pan = cases["panel"].data
-    n_train = round(pan["params"]["n_samples"] * (1 - pan["holdout"]))
-    assert abs(pan["params"]["n_features"] / n_train - 1) <= 0.1
+    n_train = round(pan.params["n_samples"] * (1 - pan.holdout))
+    assert abs(pan.params["n_features"] / n_train - 1) <= 0.1
     iso = cases["isotropic"]
-    assert iso.analysis == "simulate" and iso.truth["p"] > iso.simulate["n_train"]
+    assert iso.analysis == "simulate" and iso.truth.n_features > iso.simulate.n_train
 
 
 def test_unknown_keys_are_named_with_the_valid_ones():

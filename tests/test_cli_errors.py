@@ -165,8 +165,8 @@ def test_fewer_rows_than_the_requested_cv(tmp_path):
     file and the valid range of --cv."""
     X, y = _good_rows(4, 2)
     f = _csv(tmp_path / "small.csv", X, y)
-    _user_error(["explore", f, "-t", "y", "--cv", "10", "--out", tmp_path / "o"],
-                ["small.csv", "10-fold", "--cv between 2 and 4"])
+    _user_error(["explore", f, "-t", "y", "--n-folds", "10", "--out", tmp_path / "o"],
+                ["small.csv", "10-fold", "--n-folds between 2 and 4"])
     assert not (tmp_path / "o").exists() or not any((tmp_path / "o").iterdir())
 
 
@@ -175,12 +175,12 @@ def test_fewer_rows_than_the_requested_cv(tmp_path):
 
 def test_internal_error_exit_1_with_hint(tmp_path, good, monkeypatch):
     """A bug (any non-InputError exception) exits 1 with one line asking for a report."""
-    import paths.workflows.analysis
+    import paths.core.path
 
     def broken(*a, **k):
         raise RuntimeError("synthetic failure")
 
-    monkeypatch.setattr(paths.workflows.analysis, "fit_path", broken)
+    monkeypatch.setattr(paths.core.path, "fit_path", broken)
     res = runner.invoke(app, ["explore", str(good), "-t", "y", "--out", str(tmp_path / "o")])
     assert res.exit_code == 1
     err = res.stderr.strip()

@@ -62,7 +62,7 @@ def test_explore_writes_contract_files_matching_sklearn(wide_csv):
     tmp, X, y = wide_csv
     out = tmp / "out"
     res = runner.invoke(app, ["explore", str(tmp / "train.csv"), "--target", "resp",
-                              "--test", str(tmp / "test.csv"), "--lambdas", "25",
+                              "--test", str(tmp / "test.csv"), "--n-lambdas", "25",
                               "--out", str(out)])
     assert res.exit_code == 0, res.output
     summary = json.loads((out / "summary.json").read_text())

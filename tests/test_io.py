@@ -375,7 +375,7 @@ def test_explore_data_options_end_to_end(tmp_path):
         "explore", str(train), "--sep", ";", "--target", "y1", "--target", "y2",
         "--features", "g_*,site,noise", "--exclude", "noise", "--id", "id",
         "--encode", "onehot", "--drop-missing", "rows", "--test", str(test),
-        "--lambdas", "5", "--out", str(out)])
+        "--n-lambdas", "5", "--out", str(out)])
     assert res.exit_code == 0, res.output
     assert {f: (f.stat().st_mtime_ns, sha256_of(f)) for f in (train, test)} == stamp
     summary = json.loads((out / "summary.json").read_text())

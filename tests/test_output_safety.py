@@ -87,7 +87,7 @@ def test_threshold_never_overwrites_its_input(tmp_path, monkeypatch):
     monkeypatch.chdir(tmp_path)
     src = _data(tmp_path / "threshold.csv", names=[f"x{j}" for j in range(40)] + ["y"], n=30)
     before = _sha(src)
-    _refused(["threshold", "threshold.csv", "-t", "y", "--out", ".", "--force", "--points", "4",
+    _refused(["threshold", "threshold.csv", "-t", "y", "--out", ".", "--force", "--n-points", "4",
               "--no-report"], "would overwrite the input file")
     assert _sha(src) == before
 

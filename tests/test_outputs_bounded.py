@@ -15,7 +15,9 @@ from numpy.testing import assert_allclose
 
 from paths.data.tables import select
 from paths.present import summary as summary_mod
-from paths.workflows.analysis import explore
+from paths.workflows.explore import explore_prepared
+from paths.workflows.options import FigureOptions, FitOptions, OutputOptions
+from paths.workflows.prepare import Prepared
 
 
 def _wide(p=3000, n=40, seed=3):
@@ -30,7 +32,8 @@ def _wide(p=3000, n=40, seed=3):
 
 def test_wide_run_outputs_are_bounded(tmp_path, monkeypatch):
     monkeypatch.setattr(summary_mod, "COEFFICIENTS_CSV_LIMIT", 10_000)
-    run = explore(_wide(), out_dir=tmp_path / "o", n_lambdas=40, formats=("svg",))
+    run = explore_prepared(Prepared(train=_wide()), FitOptions(n_lambdas=40),
+                           FigureOptions(formats=("svg",)), OutputOptions(out_dir=tmp_path / "o"))
     out = tmp_path / "o"
     # report.html: a few hundred kB for 3000 features (figures summarise, never one line each)
     assert (out / "report.html").stat().st_size < 3_000_000

@@ -118,7 +118,7 @@ def test_cli_plan_and_pilot(tmp_path):
     --snr -1 exit 2 with one line."""
     runner = CliRunner()
     out = tmp_path / "p1"
-    r = runner.invoke(app, ["plan", "--features", "80", "--snr", "1.5", "--within", "5",
+    r = runner.invoke(app, ["plan", "--n-features", "80", "--snr", "1.5", "--tolerance", "0.05",
                             "--out", str(out)])
     assert r.exit_code == 0, r.output
     df = pd.read_csv(out / "plan.csv")
@@ -140,7 +140,7 @@ def test_cli_plan_and_pilot(tmp_path):
     assert_allclose(rec["noise_variance"], res @ res / (n - p - 1), rtol=1e-10)
     assert rec["n_features"] == p
     for snr in ("0", "-1"):
-        bad = runner.invoke(app, ["plan", "--features", "10", "--snr", snr,
+        bad = runner.invoke(app, ["plan", "--n-features", "10", "--snr", snr,
                                   "--out", str(tmp_path / f"b{snr}")])
         assert bad.exit_code == 2
         err = bad.stderr if hasattr(bad, "stderr") else bad.output

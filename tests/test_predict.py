@@ -158,3 +158,24 @@ def test_stream_engine_writes_a_predict_only_fit(tmp_path):
     r = runner.invoke(app, ["predict", str(tmp_path / "os" / "fit.npz"), str(tmp_path / "t.csv"),
                             "-o", str(tmp_path / "x.csv"), "--intervals", "0.9"])
     assert r.exit_code == 2 and "predict-only" in r.output
+
+
+def test_predict_intervals_equal_the_library(files):
+    """--intervals writes paths.prediction_intervals of the rebuilt path (jackknife+), bit for
+    bit (issue 15: predict equals the library's own prediction)."""
+    import paths
+
+    if "prediction_intervals" not in paths.__all__:
+        pytest.skip("this version has no paths.prediction_intervals (issue 14)")
+    tmp, _, new = files
+    r = runner.invoke(app, ["predict", str(tmp / "out" / "fit.npz"), str(tmp / "new.csv"),
+                            "-o", str(tmp / "pi.csv"), "--intervals", "0.8"])
+    assert r.exit_code == 0, r.output
+    header, rows = _read(tmp / "pi.csv")
+    assert header == ["sid", "prediction", "lower", "upper"]
+    fit = load_fit(tmp / "out" / "fit.npz")
+    ref = paths.prediction_intervals(fit.path, _design(new), float(fit.reported_lambda[0]),
+                                     level=0.8)
+    got = np.array([[float(v) for v in row[1:]] for row in rows])
+    assert np.array_equal(got[:, 0], ref.prediction)
+    assert np.array_equal(got[:, 1], ref.lower) and np.array_equal(got[:, 2], ref.upper)

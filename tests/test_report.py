@@ -16,7 +16,9 @@ import numpy as np
 from numpy.testing import assert_allclose
 import pytest
 
-from paths.workflows.analysis import explore
+from paths.workflows.explore import explore_prepared
+from paths.workflows.options import FigureOptions, FitOptions, OutputOptions
+from paths.workflows.prepare import Prepared
 from paths.data.synthetic import make_calibration
 from paths.data.tables import select
 from paths.present.report import (REFERENCES, RULE_NAMES, convention_formula, fmt,
@@ -31,8 +33,11 @@ def run(tmp_path_factory):
     frame = make_calibration(40, 120, seed=0)
     data = select(frame, "analyte", source="synthetic calibration (paths.data.synthetic)")
     out = tmp_path_factory.mktemp("report") / "out"
-    r = explore(data, out_dir=out, holdout=0.25, seed=2, cv=5, n_lambdas=40, formats=("svg",),
-                command_line=["paths", "explore", "x.csv", "--target", "analyte"])
+    r = explore_prepared(Prepared(train=data), FitOptions(seed=2, n_folds=5, n_lambdas=40),
+                         FigureOptions(formats=("svg",)),
+                         OutputOptions(out_dir=out, command_line=["paths", "explore", "x.csv",
+                                                                  "--target", "analyte"]),
+                         holdout=0.25)
     summary = json.loads((out / "summary.json").read_text())
     return r, summary, out
 
@@ -188,7 +193,8 @@ def test_explore_writes_figures_and_their_csv(run):
 def test_format_none_writes_no_figure_files_but_the_report_keeps_its_figures(tmp_path):
     """``--format none``: no fig-* files; report.html still inlines both figures (SVG)."""
     data = select(make_calibration(30, 60, seed=1), "analyte", source="synthetic calibration")
-    run = explore(data, out_dir=tmp_path / "o", n_lambdas=20, formats="none")
+    run = explore_prepared(Prepared(train=data), FitOptions(n_lambdas=20),
+                           FigureOptions(formats=()), OutputOptions(out_dir=tmp_path / "o"))
     names = {f.name for f in run.files}
     assert not any(n.startswith("fig-") for n in names)
     assert {"report.html", "report.md", "model.csv", "summary.json"} <= names
@@ -199,7 +205,8 @@ def test_training_file_given_as_test_is_never_called_held_out(tmp_path):
     """The training rows reused as the test set: counted (every test row is a training row),
     warned about in the cautions, and the words 'held-out test rows' never used."""
     data = select(make_calibration(30, 60, seed=1), "analyte", source="synthetic calibration")
-    run = explore(data, out_dir=tmp_path / "o", test=data, n_lambdas=20, formats="none")
+    run = explore_prepared(Prepared(train=data, test=data), FitOptions(n_lambdas=20),
+                           FigureOptions(formats=()), OutputOptions(out_dir=tmp_path / "o"))
     s = run.summary
     assert s["test_shared_rows"] == s["n_test"] == 30
     assert s["report"]["test_kind"] == "reused"
@@ -217,7 +224,9 @@ def test_model_file_is_the_fit_at_the_reported_penalty(tmp_path):
 
     frame = make_calibration(30, 60, seed=1)
     data = select(frame, "analyte", source="synthetic calibration")
-    run = explore(data, out_dir=tmp_path / "o", n_lambdas=20, formats="none", report=False)
+    run = explore_prepared(Prepared(train=data), FitOptions(n_lambdas=20),
+                           FigureOptions(formats=(), report=False),
+                           OutputOptions(out_dir=tmp_path / "o"))
     lam = run.summary["report"]["lambda"]
     with open(tmp_path / "o" / "model.csv") as fh:
         rows = [line.rstrip("\n").split(",") for line in fh]

@@ -24,7 +24,9 @@ import pytest
 from numpy.testing import assert_allclose
 from PIL import Image
 
-from paths.workflows.analysis import explore
+from paths.workflows.explore import explore_prepared
+from paths.workflows.options import FigureOptions, FitOptions, OutputOptions
+from paths.workflows.prepare import Prepared
 from paths.data.synthetic import make_calibration
 from paths.data.tables import select
 
@@ -62,7 +64,9 @@ def explored(tmp_path_factory):
     """A report from a small synthetic calibration run (seeded), figures inlined as SVG."""
     out = tmp_path_factory.mktemp("browser") / "run"
     data = select(make_calibration(36, 150, seed=0), "analyte", source="synthetic calibration")
-    run = explore(data, out_dir=out, holdout=0.25, n_lambdas=30, formats=("svg",))
+    run = explore_prepared(Prepared(train=data), FitOptions(n_lambdas=30),
+                           FigureOptions(formats=("svg",)), OutputOptions(out_dir=out),
+                           holdout=0.25)
     return run, out / "report.html"
 
 

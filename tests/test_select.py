@@ -226,7 +226,7 @@ runner = CliRunner()
 
 
 def test_cli_rules_table_and_summary(tmp_path):
-    """`paths explore --cv --groups --rule`: summary.json keys of issue 3 (contract), the group
+    """`paths explore --n-folds --groups --rule`: summary.json keys of issue 3 (contract), the group
     column kept out of the features, the reported rule marked; bad input exits 2 in one line."""
     rng = np.random.default_rng(0)
     n, p = 48, 70
@@ -239,7 +239,7 @@ def test_cli_rules_table_and_summary(tmp_path):
     data = tmp_path / "d.csv"
     data.write_text("\n".join(lines) + "\n")
     out = tmp_path / "out"
-    res = runner.invoke(app, ["explore", str(data), "-t", "y", "--cv", "4", "--groups", "site",
+    res = runner.invoke(app, ["explore", str(data), "-t", "y", "--n-folds", "4", "--groups", "site",
                               "--rule", "one-se", "-o", str(out)])
     assert res.exit_code == 0, res.output
     assert "* one-se" in res.output
@@ -251,8 +251,8 @@ def test_cli_rules_table_and_summary(tmp_path):
     assert {"lambda", "df", "index"} <= set(s["selected"]["loo"])
     assert {"value", "formula"} <= set(s["noise_variance"])
     assert s["cv"]["scheme"] == "grouped" and s["cv"]["n_folds"] == 4
-    for bad, msg in ((["--cv", "1"], "at least 2"), (["--rule", "fraction=2"], "(0, 1]"),
-                     (["--cv", "100"], "100")):
+    for bad, msg in ((["--n-folds", "1"], "at least 2"), (["--rule", "fraction=2"], "(0, 1]"),
+                     (["--n-folds", "100"], "100")):
         res = runner.invoke(app, ["explore", str(data), "-t", "y", "--groups", "site", *bad,
                                   "-o", str(tmp_path / "o2"), "--force"])
         assert res.exit_code == 2 and msg in res.output, res.output

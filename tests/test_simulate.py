@@ -119,8 +119,8 @@ def test_cli_simulate(tmp_path):
     variance source) and bias_variance.csv, whose exact_test_mse = bias2 + variance +
     noise_variance (pandas); --snr 0 exits 2 with one line."""
     out = tmp_path / "sim"
-    r = CliRunner().invoke(app, ["simulate", "--n", "40", "--p", "90", "--repeats", "2",
-                                 "--points", "8", "--n-test", "50", "--out", str(out)])
+    r = CliRunner().invoke(app, ["simulate", "--n-train", "40", "--n-features", "90", "--repeats", "2",
+                                 "--n-points", "8", "--n-test", "50", "--out", str(out)])
     assert r.exit_code == 0, r.output
     bv = pd.read_csv(out / "bias_variance.csv")
     ok = bv["exact_test_mse"].notna()

@@ -232,7 +232,7 @@ def test_cli_writes_contract_outputs(tmp_path):
     data = _write(tmp_path)
     out = tmp_path / "out"
     r = CliRunner().invoke(app, ["threshold", str(data), "--target", "y", "--order", "random",
-                                 "--repeats", "3", "--points", "12", "--out", str(out)])
+                                 "--repeats", "3", "--n-points", "12", "--out", str(out)])
     assert r.exit_code == 0, r.output
     df = pd.read_csv(out / "threshold.csv")
     assert tuple(df.columns) == CSV_COLUMNS

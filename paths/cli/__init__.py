@@ -1,6 +1,6 @@
-"""Command-line interface (typer): parses, calls the library, prints and writes."""
-from paths.cli.app import _load_commands, app, main
+"""Command-line interface (typer): parses, calls a workflow, prints."""
+from paths.cli.app import app, load_commands, main
 
-_load_commands()
+load_commands()
 
 __all__ = ["app", "main"]

@@ -11,16 +11,18 @@ from __future__ import annotations
 import functools
 import importlib
 import pkgutil
+import re
 
 import typer
 import typer.core
 from rich.console import Console
 
-from paths.data.validation import InputError
-from paths.cli._checks import check_options
 
-__all__ = ["app", "command", "console", "err_console", "main", "emit_summary",
-           "stdin_file"]
+__all__ = ["app", "command", "console", "err_console", "main", "load_commands", "as_flags", "flags_of",
+           "emit_summary", "stdin_file"]
+
+#: modules of this package that are not commands
+HELPERS = frozenset({"app", "checks", "flags", "progress"})
 
 class OneLineErrors(typer.core.TyperGroup):
     """The command group: an option that does not parse prints one line (no box), exit 2."""
@@ -46,7 +48,7 @@ class OneLineErrors(typer.core.TyperGroup):
         except click.exceptions.ClickException as exc:
             typer.echo(f"error: {' '.join(exc.format_message().split())}", err=True)
             raise SystemExit(exc.exit_code) from None
-        except click.exceptions.Abort:
+        except typer.Abort:
             typer.echo("aborted", err=True)
             raise SystemExit(1) from None
         raise SystemExit(rv if isinstance(rv, int) else 0)
@@ -104,6 +106,8 @@ def stdin_file(data):
     import sys
     import tempfile
 
+    from paths.data.validation import InputError
+
     raw = sys.stdin.buffer.read()
     if not raw.strip():
         raise InputError("'-' reads the data from standard input, but it was empty; pipe a "
@@ -152,24 +156,30 @@ def command(*args, **kwargs):
     """``app.command`` with the error boundary: exit 2 for user errors, 1 for bugs."""
 
     def register(func):
+        flags = flags_of(func)
+
         @functools.wraps(func)
         def wrapper(*a, **kw):
             try:
+                from paths.cli.checks import check_options  # loads numpy: not for --help
+
                 check_options(kw)
                 return _with_warning_notes(func, a, kw)
             except (typer.Exit, typer.Abort):
                 raise
-            except InputError as exc:
-                if _state["debug"]:
-                    raise
-                err_console.print(f"error: {exc}", soft_wrap=True, markup=False)
-                raise typer.Exit(2) from None
             except KeyboardInterrupt:
                 err_console.print("interrupted; no partial file was left under a final name")
                 raise typer.Exit(130) from None
             except Exception as exc:
+                # imported here: the data layer loads numpy, which `paths --help` does not need
+                from paths.data.validation import InputError
+
                 if _state["debug"]:
                     raise
+                if isinstance(exc, InputError):
+                    err_console.print(f"error: {as_flags(str(exc), flags)}", soft_wrap=True,
+                                      markup=False)
+                    raise typer.Exit(2) from None
                 err_console.print(
                     f"internal error: {type(exc).__name__}: {exc} -- this is a bug in paths; "
                     "please report it with the command line (add --debug for the traceback)",
@@ -182,16 +192,48 @@ def command(*args, **kwargs):
     return register
 
 
-def _load_commands() -> None:
+def flags_of(func) -> dict:
+    """``{parameter name: its long flag}`` of a command function's typer options."""
+    import inspect
+
+    out = {}
+    for name, param in inspect.signature(func).parameters.items():
+        decls = getattr(param.default, "param_decls", None) or ()
+        longs = [d.split("/")[0] for d in decls if d.startswith("--")]
+        if longs:
+            out[name] = longs[0]
+    return out
+
+
+# a parameter name is turned into its flag when it cannot be prose: it has an underscore,
+# it starts the message, or it follows "either", "or", "and", "with", "needs", "use"
+_CONTEXT = (r"(?:^|(?<=\beither )|(?<=\bor )|(?<=\band )|(?<=\bwith )|(?<=\bneeds )"
+            r"|(?<=\buse ))")
+
+
+def as_flags(message: str, flags: dict) -> str:
+    """A library error message with the parameters it names spelled as this command's flags.
+
+    Library errors name parameters (``n_folds``, ``holdout``); on the command
+    line the user knows the flags (``--n-folds``, ``--holdout``).
+    """
+    for name in sorted(flags, key=len, reverse=True):
+        flag = flags[name]
+        where = r"(?<![\w-])" if "_" in name else _CONTEXT
+        message = re.sub(where + re.escape(name) + r"(?![\w-])", flags[name], message)
+    return message
+
+
+def load_commands() -> None:
     """Import every command module of this package (each registers itself)."""
     from paths.cli import __path__ as here
 
     for mod in pkgutil.iter_modules(here):
-        if mod.name != "app" and not mod.name.startswith("_"):
+        if mod.name not in HELPERS and not mod.name.startswith("_"):
             importlib.import_module(f"{__package__}.{mod.name}")
 
 
 def main() -> None:
     """Console entry point."""
-    _load_commands()
+    load_commands()
     app()

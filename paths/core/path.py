@@ -386,7 +386,7 @@ def fit_path(
     n_pen = n_lambdas if lambdas is None else np.size(lambdas)
     check_memory(8.0 * n_pen * (2.0 * p * Y.shape[1] + (n + 16) * Y.shape[1]),
                  f"{n_pen} penalties on {n} x {p} data (coefficients {n_pen} x {p})",
-                 "ask for fewer penalties (--lambdas), or use --engine stream")
+                 "ask for fewer penalties (n_lambdas), or use engine stream")
     has_test = X_test is not None or y_test is not None
     if has_test:
         if X_test is None or y_test is None:

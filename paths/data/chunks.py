@@ -109,7 +109,8 @@ class ArrayRows(RowSource):
             yield s, block
 
 
-def _parquet_files(path: Path) -> list[Path]:
+def parquet_files(path: Path) -> list[Path]:
+    """The Parquet file ``path``, or the part files of the folder ``path`` (sorted)."""
     if path.is_dir():
         files = sorted(f for f in path.rglob("*") if f.is_file()
                        and f.suffix.lower() in _PARQUET_SUFFIXES)
@@ -126,7 +127,8 @@ def _is_numeric(pa_type) -> bool:
             or pa.types.is_boolean(pa_type))
 
 
-def _select_columns(names, target, features, where):
+def select_columns(names, target, features, where):
+    """(features, targets) among the column names: targets checked, features default the rest."""
     targets = [target] if isinstance(target, str) else list(target or [])
     if not targets:
         raise InputError(f"{where}no target column given; pass --target COLUMN")
@@ -166,7 +168,7 @@ class ParquetRows(RowSource):
         path = Path(path)
         if not path.exists():
             raise InputError(f"{path}: no such file or folder; check the path")
-        self._files = _parquet_files(path)
+        self._files = parquet_files(path)
         where = f"{path}: "
         try:
             schemas = [pq.read_schema(f) for f in self._files]
@@ -182,7 +184,7 @@ class ParquetRows(RowSource):
                     "rewrite the parts with one schema"
                 )
         names = list(first.names)
-        features, targets = _select_columns(names, target, features, where)
+        features, targets = select_columns(names, target, features, where)
         nonnum = [c for c in features + targets if not _is_numeric(first.field(c).type)]
         if nonnum:
             shown = ", ".join(f"{c} ({first.field(c).type})" for c in nonnum[:5])
@@ -282,7 +284,7 @@ class CSVRows(RowSource):
             raise InputError(f"{path} could not be read ({type(exc).__name__}); "
                              "check that it is UTF-8 CSV and the delimiter (--sep)") from None
         names = [str(c) for c in header.columns]
-        features, targets = _select_columns(names, target, features, f"{path}: ")
+        features, targets = select_columns(names, target, features, f"{path}: ")
         self._path = path
         super().__init__(columns=features + targets, n_features=len(features), n_rows=None,
                          source=str(path), chunk_rows=_check_chunk_rows(chunk_rows),

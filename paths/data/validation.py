@@ -253,8 +253,8 @@ def check_rows_for_cv(n_rows: int, n_folds, source: str = "", *, fit_intercept: 
 
     if not ok(K):
         valid = [k for k in range(2, min(n_rows, 1000) + 1) if ok(k)]
-        fix = (f"choose --cv between {valid[0]} and {valid[-1]}" if valid
-               else "add rows or drop --cv")
+        fix = (f"choose n_folds between {valid[0]} and {valid[-1]}" if valid
+               else "add rows or drop n_folds")
         raise InputError(
             f"{where}{n_rows} row(s) are too few for {K}-fold cross-validation (every fold "
             f"needs a held-out row and {need} training rows); {fix}"

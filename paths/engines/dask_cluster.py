@@ -207,7 +207,7 @@ def _from_dataframe(path: Path, target, features):
     import dask.dataframe as dd
     import pandas as pd
 
-    from paths.data.chunks import _select_columns
+    from paths.data.chunks import select_columns
 
     try:
         if path.is_dir() or path.suffix.lower() in _PARQUET:
@@ -223,7 +223,7 @@ def _from_dataframe(path: Path, target, features):
     except Exception as exc:  # noqa: BLE001 - dask/pyarrow raise many types for bad files
         raise InputError(f"{path}: could not be read by dask.dataframe "
                          f"({type(exc).__name__}: {str(exc).splitlines()[0][:120]}); check the file") from None
-    feats, targets = _select_columns([str(c) for c in df.columns], target, features, f"{path}: ")
+    feats, targets = select_columns([str(c) for c in df.columns], target, features, f"{path}: ")
     df = df[feats + targets]
     nonnum = [c for c in feats + targets if not pd.api.types.is_numeric_dtype(df.dtypes[c])]
     if nonnum:

@@ -659,7 +659,7 @@ def select_penalty(path, cv=None, *, df_target: float | None = None,
     else:
         reported = "cv" if cv is not None else "gcv"
     if reported in ("cv", "one-se") and cv is None:
-        raise InputError(f"rule {reported} needs K-fold cross-validation; pass cv= (CLI: --cv K)")
+        raise InputError(f"rule {reported} needs K-fold cross-validation; pass n_folds (K-fold CV)")
     r = path.rank
     fixed = path.design.n_fixed
     lo_df, hi_df = float(fixed), float(r + fixed)
@@ -704,8 +704,9 @@ def _select_one(path, cv, j, g, sigma2, noise, df_target, fraction_target):
     out["loo"] = _make(path, "loo", lo["lam"], j, est=(lo["value"], loo_est[1], "loo"),
                        index=lo["index"], refined=True, extended=lo["extended"], note=lo["note"])
     if cv is None:
-        out["cv"] = Selection("cv", None, target=j, note="no K-fold CV computed (--cv K)")
-        out["one-se"] = Selection("one-se", None, target=j, note="no K-fold CV computed (--cv K)")
+        none = "no K-fold CV computed (no number of folds given)"
+        out["cv"] = Selection("cv", None, target=j, note=none)
+        out["one-se"] = Selection("one-se", None, target=j, note=none)
     else:
         cm = _refine_minimum(_cv_fun(cv, j), cv.lambdas, _target_col(cv.mse, j))
         mse_min, se_min = cv.at(cm["lam"])

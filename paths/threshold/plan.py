@@ -199,7 +199,7 @@ def plan(n_features: int, *, snr: float | None = None, noise_variance: float | N
         lo, hi = hi, 2 * hi
         if hi > 1e12:
             raise InputError("no sample size below 1e12 reaches that tolerance; "
-                             "choose a larger --within")
+                             "choose a larger tolerance")
     if gap(lo) <= tolerance:
         hi = lo
     while hi - lo > 1:

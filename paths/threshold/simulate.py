@@ -115,7 +115,7 @@ def make_truth(p: int, *, covariance: str = "isotropic", rho: float = 0.5, n_spi
     """
     if isinstance(p, (int, float, np.integer, np.floating)) and p >= 1:
         check_memory(8.0 * 4 * float(p) ** 2, f"the {p} x {p} covariance of p = {p} features "
-                     "and its eigenvectors", "simulate fewer features (--p)")
+                     "and its eigenvectors", "simulate fewer features (n_features)")
     if not (np.isfinite(snr) and snr > 0):
         raise InputError(f"the SNR must be a finite number > 0; got {snr} (pass e.g. --snr 1)")
     if not (np.isfinite(noise_variance) and noise_variance > 0):
@@ -346,7 +346,7 @@ def simulate(
     band: str = "se",
     fit_intercept: bool = True,
     standardize: bool = True,
-    progress: Callable[[int, int], None] | None = None,
+    progress: Callable[[str, int, int], None] | None = None,
 ) -> SimulationResult:
     """Run the threshold sweep on ``repeats`` independent draws from ``truth``.
 
@@ -363,7 +363,7 @@ def simulate(
     repeats : int
         Independent draws (each with its own order when ``order="random"``).
     seed : int
-    progress : callable ``(done, total)``, optional
+    progress : callable ``(stage, done, total)``, optional
 
     Returns
     -------
@@ -379,7 +379,7 @@ def simulate(
     """
     check_memory(8.0 * 3 * (float(n_train) + float(n_test)) * truth.n_features,
                  f"{n_train} training + {n_test} test rows x {truth.n_features} features",
-                 "simulate fewer rows (--n, --n-test) or features (--p)")
+                 "simulate fewer rows (n_train, n_test) or features (n_features)")
     if int(repeats) != repeats or repeats < 1:
         raise InputError(f"repeats must be an integer >= 1; got {repeats}")
     if int(n_test) != n_test or n_test < 2:
@@ -396,9 +396,9 @@ def simulate(
             sub_order, sub_seed = "random", int(rng.integers(2**31))
         else:
             sub_order, sub_seed = order, 0
-        def prog(done, total, _rep=rep):
+        def prog(stage, done, total, _rep=rep):
             if progress is not None:
-                progress(_rep * total + done, total * int(repeats))
+                progress("simulate", _rep * total + done, total * int(repeats))
 
         one = sweep_with_truth(truth, X, y, Xt, yt, over=over, order=sub_order,
                                seed=sub_seed, n_points=n_points, sizes=sizes,
@@ -417,7 +417,7 @@ def simulate(
     if th is not None and truth.covariance_kind != "isotropic":
         th = dataclasses.replace(th, applies=False, note=(
             f"{truth.covariance_kind} covariance: the isotropic formulas are for reference only"))
-    spectrum_note = [f"repeats are {int(repeats)} independent draws from the truth"]
+    spectrum_note = [f"{int(repeats)} independent draw(s) from the truth, one per repeat"]
     sweep = dataclasses.replace(first, repeats=int(repeats), theory=th, seed=seed,
                                 order=order, notes=list(first.notes) + spectrum_note,
                                 **stacked)

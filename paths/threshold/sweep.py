@@ -502,6 +502,13 @@ def sweep_sizes(lo: int, hi: int, threshold: int, n_points: int) -> np.ndarray:
 
 
 # ----------------------------------------------------------------- one point
+def _row(*, lam, df, train_mse, test_mse, rank, min_singular_value, coef_norm) -> np.ndarray:
+    """One method's record at one point, its values in the order of ``FIELDS`` (named, not
+    positional, at every call)."""
+    return np.array([lam, df, train_mse, test_mse, rank, min_singular_value, coef_norm],
+                    dtype=float)
+
+
 def _fit_point(fac: Factorization, zy: np.ndarray, n: int, fit_intercept: bool,
                test_std: np.ndarray, yt_c: np.ndarray, lam_fixed: float | None,
                df_fraction: float | None, lam_grid: np.ndarray):
@@ -547,7 +554,8 @@ def _fit_point(fac: Factorization, zy: np.ndarray, n: int, fit_intercept: bool,
     out = np.empty((4, 7))
     dmin = float(d[-1]) if r else np.nan
     for row, i in enumerate(idx):
-        out[row] = (lam[i], df[i], rss[i] / n, test[i], r, dmin, coef_norm[i])
+        out[row] = _row(lam=lam[i], df=df[i], train_mse=rss[i] / n, test_mse=test[i], rank=r,
+                        min_singular_value=dmin, coef_norm=coef_norm[i])
     lambdas = {"min_norm": 0.0, "ridge_fixed": float(lam_f), "ridge_gcv": float(lam[i_gcv]),
                "ridge_oracle": float(lam[i_or])}
     return out, lambdas
@@ -558,8 +566,9 @@ def _baselines(z: np.ndarray, zy: np.ndarray, n: int, test_std: np.ndarray, yt_c
     """Training-mean and best-single-feature rows (2, 7); ``best`` = (j, beta) to reuse."""
     yy = float(zy @ zy)
     out = np.full((2, 7), np.nan)
-    out[0] = (np.nan, float(fit_intercept), yy / n, float(np.mean(np.square(yt_c))), 0,
-              np.nan, 0.0)
+    out[0] = _row(lam=np.nan, df=float(fit_intercept), train_mse=yy / n,
+                  test_mse=float(np.mean(np.square(yt_c))), rank=0, min_singular_value=np.nan,
+                  coef_norm=0.0)
     if best is None:
         zz = np.einsum("ij,ij->j", z, z)
         zty = z.T @ zy
@@ -569,7 +578,8 @@ def _baselines(z: np.ndarray, zy: np.ndarray, n: int, test_std: np.ndarray, yt_c
         best = (j, float(zty[j] / zz[j]), float(np.sqrt(zz[j])), float(gain[j]))
     j, b, norm_j, gain_j = best
     test = float(np.mean(np.square(yt_c - test_std[:, j] * b)))
-    out[1] = (np.nan, fit_intercept + 1.0, max(yy - gain_j, 0.0) / n, test, 1, norm_j, abs(b))
+    out[1] = _row(lam=np.nan, df=fit_intercept + 1.0, train_mse=max(yy - gain_j, 0.0) / n,
+                  test_mse=test, rank=1, min_singular_value=norm_j, coef_norm=abs(b))
     return out, best
 
 
@@ -601,7 +611,7 @@ def threshold_sweep(
     solver: str = "auto",
     variances: VarianceEstimate | None = None,
     variance_source: str | None = None,
-    progress: Callable[[int, int], None] | None = None,
+    progress: Callable[[str, int, int], None] | None = None,
     on_point: Callable[[PointFit], None] | None = None,
 ) -> ThresholdResult:
     """Sweep the model size across the interpolation threshold and record every method's errors.
@@ -644,7 +654,7 @@ def threshold_sweep(
         :func:`estimate_variances` on the training rows.
     variance_source : str, optional
         Label of ``variances`` (e.g. "truth (simulation)").
-    progress : callable ``(done, total)``, optional
+    progress : callable ``(stage, done, total)``, optional
     on_point : callable ``(PointFit)``, optional
         Called with each fitted point (used by :mod:`paths.simulate`).
 
@@ -697,7 +707,7 @@ def threshold_sweep(
         raise InputError(f"repeats must be an integer >= 1; got {repeats}")
     repeats = int(repeats)
     if n_points < 3:
-        raise InputError(f"the sweep needs at least 3 points; got {n_points} (pass --points 40)")
+        raise InputError(f"the sweep needs at least 3 points; got {n_points} (pass n_points=40)")
     if ridge_lambda is not None and ridge_df_fraction is not None:
         raise InputError("give either a fixed ridge penalty or a df fraction, not both")
     if ridge_lambda is not None and not (np.isfinite(ridge_lambda) and ridge_lambda > 0):
@@ -843,7 +853,7 @@ def threshold_sweep(
                                       _sub_design(design, k), fac, lambdas))
                 done += 1
                 if progress is not None:
-                    progress(done, total)
+                    progress("sweep", done, total)
         else:
             rows = rng.permutation(n) if order == "random" else np.arange(n)
             for i, k in enumerate(n_rows):
@@ -852,7 +862,7 @@ def threshold_sweep(
                 if np.ptp(yv[sel]) == 0:
                     done += 1
                     if progress is not None:
-                        progress(done, total)
+                        progress("sweep", done, total)
                     continue
                 design, z = prepare(Fk, yv[sel, None], fit_intercept=fit_intercept,
                                     standardize=standardize)
@@ -879,7 +889,7 @@ def threshold_sweep(
                                       lambdas))
                 done += 1
                 if progress is not None:
-                    progress(done, total)
+                    progress("sweep", done, total)
 
     ratio = n_feat / n_rows
     if ridge_lambda is not None:

@@ -119,7 +119,7 @@ def mp_density(x, gamma):
     Examples
     --------
     >>> round(float(mp_density(1.0, 0.5)), 6)
-    0.450158
+    0.421084
     """
     g = float(_gamma(gamma))
     a, b = mp_edges(g)

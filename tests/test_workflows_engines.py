@@ -1,4 +1,5 @@
-"""The explore workflows of ``paths/analysis.py``: the streaming engine writes the same report.
+"""The explore workflow on the out-of-memory engines (``paths/workflows/engines.py``): the
+streaming engine writes the same report.
 
 Reference: scikit-learn ``Ridge`` on ``StandardScaler``-scaled features (the
 same objective as the README's penalty convention) for the written
@@ -20,7 +21,7 @@ from paths.cli import app
 
 
 def test_stream_engine_writes_figures_and_report(tmp_path):
-    """``--engine stream --cv 5`` writes the path, the figures and the report; the
+    """``--engine stream --n-folds 5`` writes the path, the figures and the report; the
     coefficients equal scikit-learn ``Ridge`` (rtol 1e-8: the streamed Gram route on a
     condition number ~1 design is accurate to ~1e-13), and the report states the
     K-fold CV error and its SE at the reported choice exactly as summary.json has them."""
@@ -32,7 +33,7 @@ def test_stream_engine_writes_figures_and_report(tmp_path):
     frame.to_parquet(data)
     out = tmp_path / "out"
     res = CliRunner().invoke(app, ["explore", str(data), "-t", "resp", "--engine", "stream",
-                                   "--cv", "5", "--lambdas", "20", "--out", str(out)])
+                                   "--n-folds", "5", "--n-lambdas", "20", "--out", str(out)])
     assert res.exit_code == 0, res.output
     for name in ("path.csv", "coefficients.csv", "summary.json", "report.md", "report.html",
                  "fig-path.svg", "fig-spectrum.svg"):

@@ -1,7 +1,7 @@
 """Option checks shared by every command, run by the error boundary before the command.
 
-Helper of :mod:`paths.cli.app` (the leading underscore keeps it out of the command
-auto-import).  Each check names the option and the fix in one line
+Helper of :mod:`paths.cli.app` (listed in its ``HELPERS``, not a command module).  Each
+check names the option and the fix in one line
 (:class:`~paths.InputError`, exit status 2): ranges typer cannot express, and
 options that contradict each other (a conflicting option is refused, never ignored).
 """
@@ -14,12 +14,13 @@ from paths.data.validation import InputError
 __all__ = ["check_options"]
 
 _SEED_MAX = 2**32 - 1
-#: option -> (flag, smallest, largest or None) for whole-number options
-_COUNTS = {"seed": ("--seed", 0, _SEED_MAX), "lambdas": ("--lambdas", 1, None),
-           "chunk_rows": ("--chunk-rows", 1, None), "random_features": ("--random-features", 1, None),
-           "rank": ("--rank", 1, None), "cv": ("--cv", 2, None), "repeats": ("--repeats", 1, None),
-           "points": ("--points", 3, None), "n": ("--n", 2, None), "p": ("--p", 1, None),
-           "n_test": ("--n-test", 1, None), "features": ("--features", 1, None)}
+#: parameter -> (flag, smallest, largest or None) for whole-number options
+_COUNTS = {"seed": ("--seed", 0, _SEED_MAX), "n_lambdas": ("--n-lambdas", 1, None),
+           "chunk_rows": ("--chunk-rows", 1, None),
+           "random_features": ("--random-features", 1, None), "rank": ("--rank", 1, None),
+           "n_folds": ("--n-folds", 2, None), "repeats": ("--repeats", 1, None),
+           "n_points": ("--n-points", 3, None), "n_train": ("--n-train", 2, None),
+           "n_features": ("--n-features", 1, None), "n_test": ("--n-test", 1, None)}
 _TIMEOUT_MAX = 24 * 3600.0
 
 

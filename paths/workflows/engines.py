@@ -1,0 +1,294 @@
+"""The explore workflow for data that need not fit in memory: row-streamed, wide, dask.
+
+:func:`explore_engine` is :func:`paths.workflows.explore.run_explore` with
+``EngineOptions(engine="stream" | "dask")``: tall files (rows >= features) go to
+:func:`paths.engines.stream.stream_path` (or
+:func:`paths.engines.dask_cluster.dask_path`), wide Parquet files (more
+feature columns than rows) to :func:`paths.engines.wide.wide_path`.  It
+writes what the in-memory workflow writes (``path.csv``, ``coefficients.csv``,
+``summary.json`` with an ``engine`` record, the figures and the report).
+"""
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+from paths.data.validation import InputError
+from paths.workflows.explore import ExploreRun, check_figures, command_text, per_target
+from paths.workflows.options import (DataOptions, EngineOptions, FigureOptions, FitOptions,
+                                     OutputOptions)
+
+__all__ = ["explore_engine", "unsupported_options", "write_engine_fit", "ENGINES"]
+
+ENGINES = ("memory", "stream", "dask")
+_HASH_LIMIT = 2 << 30  # files above 2 GiB are recorded by size, not hashed (another full read)
+# options the out-of-memory engines do not offer yet (they keep their defaults)
+_DATA_ONLY_IN_MEMORY = ("holdout", "groups", "id_column", "encode", "drop_missing", "weights")
+_FIT_ONLY_IN_MEMORY = ("repeats", "cv_scaling", "rule", "solver", "unpenalized",
+                       "relative_penalty", "intervals")
+_WHY = {**{name: " (its one-pass moments are unweighted and penalize every column)"
+           for name in ("weights", "unpenalized", "relative_penalty")},
+        "intervals": " (the leave-out fits use the left singular vectors)"}
+
+
+def unsupported_options(data: DataOptions, fit: FitOptions) -> list:
+    """The options set away from their defaults that the out-of-memory engines do not offer."""
+    defaults = {DataOptions: DataOptions(), FitOptions: FitOptions()}
+    out = []
+    for opts, names in ((data, _DATA_ONLY_IN_MEMORY), (fit, _FIT_ONLY_IN_MEMORY)):
+        default = defaults[type(opts)]
+        out += [n for n in names if getattr(opts, n) != getattr(default, n)]
+    return out
+
+
+def _file_digests(path: Path) -> tuple[dict, list]:
+    from paths.data.tables import sha256_of
+
+    files = sorted(f for f in path.rglob("*") if f.is_file()) if path.is_dir() else [path]
+    out, notes = {}, []
+    for f in files:
+        size = f.stat().st_size
+        if size <= _HASH_LIMIT:
+            out[str(f)] = sha256_of(f)
+        else:
+            out[str(f)] = None
+            notes.append(f"{f}: {size} bytes, not hashed (over 2 GiB; another full read)")
+    return out, notes
+
+
+def _columns_and_shape(path: Path, sep=None):
+    """Column names and (rows or None) of a data file, from metadata or the header only."""
+    suffix = path.suffix.lower()
+    if path.is_dir() or suffix in (".parquet", ".pq", ".parq"):
+        import pyarrow.parquet as pq
+
+        from paths.data.chunks import parquet_files
+
+        files = parquet_files(path)
+        try:
+            names = list(pq.read_schema(files[0]).names)
+            rows = sum(pq.read_metadata(f).num_rows for f in files)
+        except Exception as exc:  # noqa: BLE001 - pyarrow error types vary
+            raise InputError(f"{path}: not a readable Parquet file ({exc}); check the file") from None
+        return names, rows
+    if suffix == ".npy":
+        try:
+            arr = np.load(path, mmap_mode="r", allow_pickle=False)
+        except (ValueError, OSError, EOFError) as exc:  # object (pickled), truncated, not .npy
+            msg = " ".join(str(exc).split())[:160] or type(exc).__name__
+            raise InputError(f"{path} is not a readable NumPy file ({msg}); save it with "
+                             "numpy.save, without object arrays") from None
+        if arr.ndim != 2:
+            raise InputError(f"{path}: the array has shape {arr.shape}; the streaming engines "
+                             "read a 2-D array (rows x columns)")
+        return None, int(arr.shape[0])
+    import pandas as pd
+
+    if sep is None:
+        sep = "\t" if suffix in (".tsv", ".tab") else ","
+    try:
+        names = [str(c) for c in pd.read_csv(path, sep=sep, nrows=0).columns]
+    except Exception as exc:  # noqa: BLE001
+        raise InputError(f"{path} could not be read ({type(exc).__name__}); check the delimiter "
+                         "(sep) and that it is UTF-8 text") from None
+    with open(path, "rb") as fh:  # a header without data rows: refused here, not mid-pass
+        fh.readline()
+        if not any(line.strip() for line in fh):
+            raise InputError(f"{path} has a header row but no data rows; add data rows")
+    return names, None
+
+
+def _resolve_features(names, targets, features, exclude):
+    from fnmatch import fnmatchcase
+
+    pool = [c for c in names if c not in targets]
+    if features:
+        chosen = [c for c in pool if any(fnmatchcase(c, pt) for pt in features)]
+        if not chosen:
+            raise InputError(f"features {', '.join(features)} match no column; check the names")
+        pool = chosen
+    if exclude:
+        pool = [c for c in pool if not any(fnmatchcase(c, pt) for pt in exclude)]
+    if not pool:
+        raise InputError("no feature columns left after features/exclude; keep some")
+    return pool
+
+
+def _plan(data: DataOptions):
+    """(path, targets, feature columns or None, wide?) from the file's metadata."""
+    path = Path(data.file)
+    if not path.exists():
+        raise InputError(f"{path}: no such file or folder; check the path")
+    if not (path.is_file() or path.is_dir()):  # a FIFO or device would block the reader
+        raise InputError(f"{path} is not a regular file (a pipe or a device); save the data "
+                         "to a file and pass that")
+    targets = list(data.target)
+    names, rows = _columns_and_shape(path, data.sep)
+    feats = None
+    if names is not None:
+        missing = [t for t in targets if t not in names]
+        if missing:
+            shown = ", ".join(names[:8]) + (" ..." if len(names) > 8 else "")
+            raise InputError(f"{path}: target column {missing[0]!r} not found; columns are: {shown}")
+        feats = _resolve_features(names, targets, data.features, data.exclude)
+    elif data.features or data.exclude:
+        raise InputError(f"{path}: features/exclude need named columns (CSV or Parquet)")
+    wide = rows is not None and feats is not None and len(feats) > rows
+    return path, targets, feats, wide, rows
+
+
+def _fit(data: DataOptions, fit: FitOptions, engine: EngineOptions, progress):
+    """Run the engine; returns its path result."""
+    from paths.data.chunks import DEFAULT_BLOCK_COLUMNS, DEFAULT_CHUNK_ROWS
+
+    name = engine.name
+    path, targets, feats, wide, rows = _plan(data)
+    test = data.test_file
+    cv_seed = fit.seed if fit.fold_scheme == "shuffled" else None
+    if wide:
+        from paths.engines.wide import wide_path
+
+        if name == "dask":
+            raise InputError(f"{path} is wide ({rows} rows x {len(feats)} features): use "
+                             "engine stream (column blocks); the dask engine splits rows")
+        if fit.n_folds is not None:
+            raise InputError("n_folds with wide data needs the in-memory engine")
+        if path.is_dir():
+            raise InputError(f"{path}: wide data must be one Parquet file (columns are read "
+                             "selectively); combine the parts")
+        return wide_path(path, target=targets if len(targets) > 1 else targets[0],
+                         features=feats, X_test=test, accurate=engine.accurate, rank=engine.rank,
+                         block_columns=engine.chunk_rows or DEFAULT_BLOCK_COLUMNS,
+                         n_lambdas=fit.n_lambdas, standardize=fit.standardize, progress=progress)
+    if name == "stream":
+        from paths.engines.stream import stream_path
+
+        return stream_path(path, target=targets, features=feats, sep=data.sep,
+                           chunk_rows=engine.chunk_rows or DEFAULT_CHUNK_ROWS,
+                           accurate=engine.accurate, standardize=fit.standardize, test=test,
+                           n_lambdas=fit.n_lambdas, cv=fit.n_folds, cv_seed=cv_seed,
+                           rank=engine.rank, progress=progress)
+    from paths.engines.dask_cluster import dask_path
+
+    if engine.scheduler is not None:  # a remote scheduler's workers do not share our folder
+        path = path.resolve()
+        test = None if test is None else Path(test).resolve()
+    return dask_path(path, target=targets, features=feats, chunk_rows=engine.chunk_rows,
+                     accurate=engine.accurate, scheduler=engine.scheduler,
+                     timeout=engine.scheduler_timeout, standardize=fit.standardize, test=test,
+                     n_lambdas=fit.n_lambdas, cv=fit.n_folds, cv_seed=cv_seed, rank=engine.rank,
+                     progress=progress)
+
+
+def _engine_record(result, cv_seed) -> tuple:
+    """(cv record or None, cv selection or None) of an engine's result: grid minima."""
+    if result.cv_mse is None:
+        return None, None
+    record = {"n_folds": result.n_folds, "repeats": 1,
+              "scheme": "blocked" if cv_seed is None else "shuffled-hash",
+              "seed": cv_seed, "scaling": "global", "method": "hat-diagonal blocks",
+              "form": "woodbury", "mse": np.asarray(result.cv_mse).tolist(),
+              "se": np.asarray(result.cv_se).tolist()}
+    cvm = result.cv_mse if result.cv_mse.ndim == 1 else result.cv_mse[:, 0]
+    i = int(np.argmin(cvm))
+    sel = {"lambda": float(result.lambdas[i]), "df": float(result.df[i]), "index": i,
+           "value": float(cvm[i])}
+    return record, sel
+
+
+def explore_engine(data: DataOptions, fit: FitOptions = FitOptions(),
+                   figures: FigureOptions = FigureOptions(),
+                   output: OutputOptions = OutputOptions(), *,
+                   engine: EngineOptions = EngineOptions(engine="stream"),
+                   progress=None) -> ExploreRun:
+    """The explore workflow on the ``stream`` or ``dask`` engine (see the module docstring).
+
+    Selections are the grid minima of GCV, LOO, test error and (with
+    ``n_folds``) K-fold CV.  ``progress(stage, done, total)`` reports each pass.
+    """
+    if engine.name not in ("stream", "dask"):
+        raise InputError(f"engine must be one of {', '.join(ENGINES)}; got {engine.engine!r}")
+    bad = unsupported_options(data, fit)
+    if bad:
+        raise InputError(f"{bad[0]} is not available with engine {engine.name}"
+                         f"{_WHY.get(bad[0], '')}; drop it or use engine memory")
+    check_figures(figures)
+    if data.file is None:
+        raise InputError(f"the {engine.name} engine reads a data file; give one")
+    inputs = [Path(data.file), *([] if data.test_file is None else [Path(data.test_file)])]
+    with output.folder(inputs) as folder:
+        result = _fit(data, fit, engine, progress)
+        digests, hash_notes = {}, []
+        for f in inputs:
+            dig, notes = _file_digests(f)
+            digests.update(dig)
+            hash_notes += notes
+        summary = _engine_summary(result, data, fit, output, digests, hash_notes)
+        files = _write_engine(result, summary, folder.stage, list(data.target), figures,
+                              source=str(data.file), digests=digests)
+    return ExploreRun(result=result, summary=summary, out_dir=folder.target,
+                      files=folder.final_paths(files))
+
+
+def _engine_summary(result, data, fit, output, digests, hash_notes) -> dict:
+    from paths.present.summary import summary_dict
+
+    targets = list(data.target)
+    cv_seed = fit.seed if fit.fold_scheme == "shuffled" else None
+    record, cv_sel = _engine_record(result, cv_seed)
+    summary = summary_dict(
+        result, target=targets[0] if len(targets) == 1 else targets, source=str(data.file),
+        input_sha256=digests, split=None, command_line=command_text(output),
+        data_notes=list(result.notes) + hash_notes, engine=result.engine_record(), cv=record)
+    if cv_sel is not None:
+        summary["selected"]["cv"] = cv_sel
+    return summary
+
+
+def write_engine_fit(dest: Path, result, targets, source: str, input_sha256=None) -> Path:
+    """A predict-only ``fit.npz`` of an out-of-memory engine's path (its grid minima as rules;
+    the reported one: K-fold CV when computed, else GCV)."""
+    from paths.present.fitfile import save_fit
+
+    def grid_min(values):
+        if values is None:
+            return None
+        v = np.asarray(values, dtype=float).reshape(result.lambdas.size, -1)
+        return [float(result.lambdas[int(np.argmin(v[:, j]))]) for j in range(v.shape[1])]
+
+    rules = {"gcv": grid_min(result.gcv), "loo": grid_min(result.loo_mse),
+             "cv": grid_min(result.cv_mse)}
+    rule = "cv" if rules["cv"] is not None else "gcv"
+    prep = {"source_columns": list(result.feature_names), "encoding": {}, "id_column": None,
+            "drop_missing": None, "target_names": list(targets), "source": source}
+    return save_fit(dest, result, reported=np.array(rules[rule]),
+                    reported_rule=f"{rule} (grid minimum)", rules=rules, preparation=prep,
+                    input_sha256=input_sha256)
+
+
+def _write_engine(result, summary: dict, out: Path, targets, figures: FigureOptions, *,
+                  source: str, digests: dict) -> list:
+    """path.csv, coefficients.csv and fit.npz (when the engine kept coefficients),
+    summary.json, figures, report."""
+    from paths.data.output import write_csv, write_json
+    from paths.present.summary import coefficient_table, path_table
+
+    formats, width = check_figures(figures)
+    files = [write_csv(out / "path.csv", *per_target(path_table, result, targets))]
+    if result.coef is not None:
+        files.append(write_csv(out / "coefficients.csv",
+                               *per_target(coefficient_table, result, targets)))
+    drawable = result.coef is not None and (formats or figures.report)
+    if drawable:
+        from paths.present.report import report_numbers, write_explore_outputs
+
+        summary["report"] = report_numbers(summary)
+    files.append(write_json(out / "summary.json", summary))
+    if result.coef is not None and result.engine != "wide":  # wide: no right factors kept
+        files.append(write_engine_fit(out / "fit.npz", result, targets, source, digests))
+    if drawable:
+        files += write_explore_outputs(result, summary, out, formats=formats, width=width,
+                                       x=figures.x, report=figures.report)
+    return files
+
