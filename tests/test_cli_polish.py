@@ -77,8 +77,8 @@ def test_quiet_prints_nothing_and_dash_reads_standard_input(tmp_path, csv_text):
 def test_simulate_takes_the_same_figure_options_and_json(tmp_path):
     """--format/--width as in explore (none: no figure file), --json the threshold record."""
     out = tmp_path / "s"
-    res = runner.invoke(app, ["--json", "simulate", "--n", "20", "--p", "40", "--n-test", "40",
-                              "--repeats", "1", "--points", "8", "--out", str(out),
+    res = runner.invoke(app, ["--json", "simulate", "--n-train", "20", "--n-features", "40",
+                              "--n-test", "40", "--repeats", "1", "--n-points", "8", "--out", str(out),
                               "--format", "none", "--width", "double"])
     assert res.exit_code == 0, res.output
     assert json.loads(res.stdout) == json.loads((out / "threshold.json").read_text())
