@@ -142,18 +142,21 @@ def test_fold_schemes_structure():
     assert np.unique(lab).size == 3
 
 
-def test_auto_route_prefers_refits_for_huge_folds(make_problem):
-    """Two folds of 1000 rows on 5 features: a 1000 x 1000 solve per penalty costs far more than
-    two 1000 x 5 factorizations (operation counts, common practice), so auto refits; and the two
-    routes agree (scikit-learn-free cross-check of the same estimator)."""
+def test_auto_route_follows_the_operation_counts(make_problem):
+    """Two folds of 1000 rows on 5 features: the primal exact route costs
+    O(n r^2 + K r^3) (fold factors, one r x r SVD per fold), less than two
+    1000 x 5 factorizations, so auto takes it; huge dual folds (a 1000 x 1000
+    solve per penalty) prefer refits (operation counts, common practice); and the
+    two routes agree (scikit-learn-free cross-check of the same estimator)."""
     X, y = make_problem(2000, 5, seed=0)
     cv = cross_validate(X, y, [0.1, 10.0], n_folds=2)
-    assert cv.method == "refit"
+    assert cv.method == "exact" and cv.form == "primal"
     exact = cross_validate(X[:200], y[:200], [0.1, 10.0], n_folds=2, method="exact")
     refit = cross_validate(X[:200], y[:200], [0.1, 10.0], n_folds=2, method="refit")
     assert_allclose(exact.mse, refit.mse, rtol=RTOL)
     model = CostModel()
     assert model.choose([40] * 10, n=400, r=399, q=4000, k=200)[0] == "exact"
+    assert model.choose([1000] * 2, n=2000, r=1999, q=2000, k=100)[0] == "refit"
 
 
 @pytest.mark.parametrize("kwargs, match", [

@@ -72,17 +72,18 @@ Golub, G. H. and Van Loan, C. F. (2013). *Matrix Computations*, 4th ed.,
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import scipy.linalg as sla
 from scipy.special import logsumexp
 
 __all__ = [
-    "FactorState", "factor_state", "Shrinkage", "shrinkage", "gains", "fractions",
+    "FactorState", "factor_state", "state_from_response", "Shrinkage", "shrinkage", "gains", "fractions",
     "complements", "penalized_df", "degrees_of_freedom", "residual_dof", "rss", "gcv",
     "gcv_limit", "Criteria", "criteria", "LeverageRows", "sample_space_blocks",
-    "leverage_rows", "state_blocks", "refine_leverage", "unrefined_rows", "naive_ell", "ell_tolerance", "LEVERAGE_REFINE", "loo_sums", "loo_mse",
+    "leverage_rows", "state_blocks", "refine_leverage", "naive_ell", "ell_tolerance",
+    "augment_rows", "LEVERAGE_REFINE", "loo_sums", "loo_mse",
     "loo_residuals", "project", "test_sums", "coefficients", "min_norm_coefficients",
     "intercepts", "coef_norm", "append_zero", "sample_weights", "path_coef_norm", "fold_factor", "kfold_fold_mse", "tsqr",
 ]
@@ -122,6 +123,9 @@ class FactorState:
         intercept's :math:`1/\\sqrt n` everywhere below).  Every formula is then
         that of the transformed problem :math:`W^{1/2}y, W^{1/2}X`: sums of
         squares are weighted sums, and means divide by :math:`\\sum_i w_i`.
+    cache : dict
+        Quantities computed once on first use (the refined high-leverage rows of
+        :func:`leverage_rows`); not part of the state's identity.
     """
 
     d: np.ndarray
@@ -133,6 +137,7 @@ class FactorState:
     u: np.ndarray | None = None
     resid_out: np.ndarray | None = None
     span: object = None
+    cache: dict = field(default_factory=dict, repr=False, compare=False)
 
     @property
     def n_fixed(self) -> int:
@@ -168,11 +173,23 @@ def factor_state(fac, design) -> FactorState:
 
     ``fac`` is a :class:`paths.core.factor.Factorization` (``u``, ``d``, ``vt``),
     ``design`` a :class:`paths.core.design.Design` (``zy``, ``n_samples``,
-    ``fit_intercept``).  The out-of-span residual :math:`y - Uc` is formed once;
-    at full row rank it is exactly zero (the computed difference would be
-    rounding, of order :math:`m\\varepsilon\\|y\\|`).
+    ``fit_intercept``); see :func:`state_from_response`.
     """
-    u, zy = fac.u, design.zy
+    return state_from_response(fac, design.zy, design.n_samples, design.fit_intercept,
+                               span=getattr(design, "span", None))
+
+
+def state_from_response(fac, zy: np.ndarray, n_samples: int, fit_intercept: bool, *,
+                        span=None) -> FactorState:
+    """The in-memory :class:`FactorState` of factors ``fac`` and a reduced response ``zy`` (m, t).
+
+    ``span`` is the design's unpenalized span (row weights, unpenalized columns), if any.
+
+    The out-of-span residual :math:`y - Uc` is formed once; at full row rank it
+    is exactly zero (the computed difference would be rounding, of order
+    :math:`m\\varepsilon\\|y\\|`).
+    """
+    u = fac.u
     c = u.T @ zy
     if u.shape[1] == u.shape[0]:
         resid = np.zeros_like(zy)
@@ -181,9 +198,8 @@ def factor_state(fac, design) -> FactorState:
     rss_out = _sumsq(resid)
     for a in (c, resid, rss_out):
         a.flags.writeable = False
-    return FactorState(d=fac.d, vt=fac.vt, uty=c, rss_out=rss_out,
-                       n_samples=design.n_samples, fit_intercept=design.fit_intercept,
-                       u=u, resid_out=resid, span=getattr(design, "span", None))
+    return FactorState(d=fac.d, vt=fac.vt, uty=c, rss_out=rss_out, n_samples=n_samples,
+                       fit_intercept=fit_intercept, u=u, resid_out=resid, span=span)
 
 
 def _sumsq(a: np.ndarray) -> np.ndarray:
@@ -448,21 +464,7 @@ def naive_ell(state: FactorState, ub: np.ndarray, start: int = 0) -> np.ndarray:
     return np.maximum(base - np.einsum("ir,ir->i", ub, ub), 0.0)
 
 
-def unrefined_rows(state: FactorState, ub: np.ndarray, e_perp: np.ndarray) -> LeverageRows:
-    """:class:`LeverageRows` from the subtraction formulas alone (no complement at hand).
-
-    A leverage outside the span at or below :math:`100\\,m\\,\\varepsilon` (the
-    rounding level of :math:`1 - \\|u_i\\|^2`) counts as 0; above it the relative
-    error is about :math:`m\\varepsilon/\\ell_i`.  Prefer :func:`refine_leverage`.
-    """
-    ell = naive_ell(state, ub)
-    zero = ell <= 100 * state.m * _EPS
-    ell[zero] = 0.0
-    ep = np.where(zero[:, None], 0.0, e_perp)
-    return LeverageRows(u=ub, ell=ell, e_perp=ep)
-
-
-def _augment(state: FactorState, ub: np.ndarray, start: int = 0) -> np.ndarray:
+def augment_rows(state: FactorState, ub: np.ndarray, start: int = 0) -> np.ndarray:
     """Rows of :math:`\\tilde U = [1/\\sqrt n,\\ U]` (the intercept column first).
 
     With a span, :math:`[Q_1,\\ U]` for the rows from ``start``.
@@ -539,7 +541,9 @@ def leverage_rows(state: FactorState, block: int = _BLOCK_ROWS):
     """
     if state.u is None:
         raise ValueError("leverage_rows needs the left factor (an in-memory FactorState)")
-    fixes = _refined_rows(state, block)
+    if "high_leverage" not in state.cache:  # once per state: an extra pass and maybe a QR
+        state.cache["high_leverage"] = _refined_rows(state, block)
+    fixes = state.cache["high_leverage"]
     e_blocks = state_blocks(state, state.resid_out, block)
     for (s, e, ub), (_, _, eb) in zip(state_blocks(state, state.u, block), e_blocks):
         ell = naive_ell(state, ub, s)
@@ -571,10 +575,10 @@ def _refined_rows(state: FactorState, block: int):
     y_s = np.empty((idx.size, t))
 
     def others():
-        yb_iter = state_blocks(state, _centered_response(state), block)
+        yb_iter = state_blocks(state, reduced_response(state), block)
         for (s, e, ub), (_, _, yb) in zip(state_blocks(state, state.u, block), yb_iter):
             keep = ~is_s[s:e]
-            ua = _augment(state, ub, s)
+            ua = augment_rows(state, ub, s)
             sel = idx[(idx >= s) & (idx < e)]
             pos = np.searchsorted(idx, sel)
             ua_s[pos] = ua[sel - s]
@@ -584,11 +588,6 @@ def _refined_rows(state: FactorState, block: int):
     R = tsqr(others(), ra + t)
     ell, ep = refine_leverage(state, ua_s, y_s, R)
     return idx, ell, ep
-
-
-def _centered_response(state: FactorState) -> np.ndarray:
-    """The reduced response :math:`Uc + y_\\perp` (sample space via the blocks)."""
-    return state.u @ state.uty + state.resid_out
 
 
 def loo_sums(rows: LeverageRows, sh: Shrinkage, c: np.ndarray) -> np.ndarray:
@@ -611,12 +610,14 @@ def _loo_res(rows: LeverageRows, sh: Shrinkage, c: np.ndarray) -> np.ndarray:
     num = (ub @ SC).reshape(b, k, t)
     den = np.square(ub) @ sh.s_rel  # (b, k)
     out = rows.ell > 0
-    if out.any():
-        with np.errstate(under="ignore"):
-            num[out] *= sh.s_max[None, :, None]
-            den[out] *= sh.s_max[None, :]
-        num[out] += rows.e_perp[out][:, None, :]
-        den[out] += rows.ell[out][:, None]
+    if out.all():  # in place, no gathered copies (the usual case below full row rank)
+        num *= sh.s_max[None, :, None]
+        num += rows.e_perp[:, None, :]
+        den *= sh.s_max[None, :]
+        den += rows.ell[:, None]
+    elif out.any():
+        num[out] = rows.e_perp[out][:, None, :] + sh.s_max[None, :, None] * num[out]
+        den[out] = rows.ell[out][:, None] + sh.s_max[None, :] * den[out]
     num /= den[:, :, None]
     return num
 
@@ -812,25 +813,114 @@ def coef_norm(beta_std: np.ndarray) -> np.ndarray:
 
 
 # ------------------------------------------------------------------------ K-fold
+def reduced_response(state: FactorState) -> np.ndarray:
+    """The reduced response :math:`Uc + y_\\perp`, shape (m, t) (in-memory state)."""
+    return state.u @ state.uty + state.resid_out
+
+
+def sample_rows(state: FactorState, idx: np.ndarray, zy: np.ndarray | None = None):
+    """Sample rows ``idx`` of :math:`\\tilde U = [1/\\sqrt n,\\ Q[0; U]]` and of the centered response.
+
+    Returns ``(ua (b, ra), yc (b, t))``; the intercept column only with an
+    intercept.  ``zy`` is :func:`reduced_response` (computed when not given).
+    """
+    zy = reduced_response(state) if zy is None else zy
+    idx = np.asarray(idx)
+    if state.span is not None:
+        ub = state.span.to_sample(state.u)[idx]
+        yb = state.span.to_sample(zy)[idx]
+        return np.hstack([state.span.q1[idx], ub]), yb
+    ub = _rows_of(state.u, idx, state.fit_intercept)
+    yb = _rows_of(zy, idx, state.fit_intercept)
+    return augment_rows(state, ub), yb
+
+
+def _rows_of(a: np.ndarray, idx: np.ndarray, fit_intercept: bool) -> np.ndarray:
+    """Rows ``idx`` of :math:`Q[0; a]` (see :func:`sample_space_blocks`) without forming it."""
+    if not fit_intercept:
+        return a[idx]
+    n = a.shape[0] + 1
+    rn = np.sqrt(n)
+    colsum = a.sum(axis=0)
+    out = np.empty((idx.size,) + a.shape[1:])
+    first = idx == 0
+    rest = ~first
+    out[rest] = a[idx[rest] - 1] - colsum / (n + rn)
+    out[first] = -colsum / rn
+    return out
+
+
+def kfold_dual_mse(state: FactorState, idx: np.ndarray, lam, *, weight: float | None = None,
+                   chunk_elems: int = 1 << 22) -> np.ndarray:
+    """Held-out MSE (k, t) of one fold at full row rank (the dual form).
+
+    The mean is over ``weight`` (the fold's :math:`\\sum_i w_i`; its size by
+    default); see :func:`kfold_dual_residuals`.
+    """
+    idx = np.asarray(idx)
+    weight = float(idx.size) if weight is None else float(weight)
+    res = kfold_dual_residuals(state, idx, lam, chunk_elems=chunk_elems)
+    return np.sum(np.square(res), axis=0) / weight
+
+
+def kfold_dual_residuals(state: FactorState, idx: np.ndarray, lam, *,
+                         chunk_elems: int = 1 << 22) -> np.ndarray:
+    """Held-out residuals (b, k, t) of one fold at full row rank (the dual form).
+
+    At full row rank :math:`I - H = \\tilde U S \\tilde U^T` (sample-space
+    :math:`\\tilde U` without the ones column) and :math:`e = \\tilde U S c`, so
+    with the scaled complements :math:`\\hat s` (module notes) the common
+    factor :math:`s_r` cancels:
+    :math:`e_{(-f)} = [U_f \\hat S U_f^T]^{-1} U_f \\hat S c` — no subtraction,
+    finite at every :math:`\\lambda \\ge 0`, and at 0 the limit of the per-fold
+    minimum-norm refits.  The :math:`b \\times b` blocks of all penalties come
+    from one product :math:`(k \\times r)(r \\times b^2)` (per penalty when that
+    factor would be too large) and a batched solve.
+    """
+    sh = shrinkage(state.d, lam)
+    idx = np.asarray(idx)
+    if state.span is not None:
+        uf = state.span.to_sample(state.u)[idx]
+    else:
+        uf = _rows_of(state.u, idx, state.fit_intercept)  # (b, r)
+    b, r = uf.shape
+    P = (uf[:, None, :] * uf[None, :, :]).reshape(b * b, r).T if r * b * b <= chunk_elems \
+        else None
+    k, t = sh.lam.size, state.n_targets
+    out = np.empty((b, k, t))
+    step = max(1, chunk_elems // max(b * b, r * b))
+    for s in range(0, k, step):
+        w = sh.s_rel[:, s:s + step].T  # (kc, r)
+        if P is not None:
+            A = (w @ P).reshape(w.shape[0], b, b)
+        else:
+            A = np.stack([(uf * wk) @ uf.T for wk in w])
+        rhs = np.einsum("ir,kr,rt->kit", uf, w, state.uty)
+        out[:, s:s + step] = np.moveaxis(np.linalg.solve(A, rhs), 0, 1)
+    return out
+
+
 def fold_factor(ua: np.ndarray, yc: np.ndarray) -> np.ndarray:
     """Triangular factor of one fold's rows :math:`[\\tilde U_f,\\ y_f]` (square, ra + t)."""
     return tsqr([np.hstack([ua, yc])], ua.shape[1] + yc.shape[1])
 
 
 def kfold_fold_mse(d: np.ndarray, fold_r: np.ndarray, counts: np.ndarray, lam, *,
-                   fit_intercept: bool, rtol: float | None = None) -> np.ndarray:
+                   n_fixed: int, rtol: float | None = None) -> np.ndarray:
     """Exact K-fold held-out MSE per fold, shape (K, k, t), from per-fold triangular factors.
 
     Parameters
     ----------
     d : ndarray, shape (r,)
     fold_r : ndarray, shape (K, ra + t, ra + t)
-        :func:`fold_factor` of every fold (``ra = r + fit_intercept``; the
-        intercept column :math:`1/\\sqrt n` first).
+        :func:`fold_factor` of every fold (``ra = r + n_fixed``; the unpenalized
+        columns first: the intercept's :math:`1/\\sqrt n`, or the span's basis).
     counts : ndarray, shape (K,)
-        Rows per fold.
+        Rows per fold (with row weights, the fold's :math:`\\sum_i w_i`): the
+        denominator of its mean error.
     lam : array_like, shape (k,)
-    fit_intercept : bool
+    n_fixed : int
+        Unpenalized columns (:attr:`FactorState.n_fixed`).
     rtol : float, optional
         Relative tolerance below which a direction of the training folds counts
         as absent (default ``max(sum(counts), r)·eps``).
@@ -853,22 +943,13 @@ def kfold_fold_mse(d: np.ndarray, fold_r: np.ndarray, counts: np.ndarray, lam, *
     lam = _lam(lam)
     K, w_all, _ = fold_r.shape
     r = d.size
-    ra = r + int(fit_intercept)
+    ra = r + int(n_fixed)
     t = w_all - ra
     if rtol is None:
         rtol = max(int(np.sum(counts)), r) * _EPS
-    prefix = [np.zeros((0, w_all))]
-    for f in range(K - 1):
-        prefix.append(_qr_r(np.vstack([prefix[-1], fold_r[f]]), w_all))
-    suffix = [np.zeros((0, w_all))] * K
-    for f in range(K - 1, 0, -1):
-        suffix[f - 1] = _qr_r(np.vstack([fold_r[f], suffix[f]]), w_all)
     out = np.empty((K, lam.size, t))
-    for f in range(K):
-        Ro = _qr_r(np.vstack([prefix[f], suffix[f]]), w_all)
-        if Ro.shape[0] < w_all:
-            Ro = np.vstack([Ro, np.zeros((w_all - Ro.shape[0], w_all))])
-        X = _refit_coords(Ro, d, lam, ra, fit_intercept, rtol)  # (ra, k, t)
+    for f, Ro in enumerate(_other_factors(fold_r)):
+        X = _refit_coords(Ro, d, lam, ra, int(n_fixed), rtol)  # (ra, k, t)
         Rf = fold_r[f]
         fit = np.einsum("ij,jkt->ikt", Rf[:ra, :ra], X)
         res = Rf[:ra, None, ra:] - fit
@@ -877,10 +958,52 @@ def kfold_fold_mse(d: np.ndarray, fold_r: np.ndarray, counts: np.ndarray, lam, *
     return out
 
 
-def _refit_coords(Ro, d, lam, ra, fit_intercept, rtol):
-    """Coefficients (ra, k, t) on :math:`\\tilde U` of the ridge refit with factor ``Ro``."""
+def _other_factors(fold_r: np.ndarray):
+    """Yield the triangular factor of all folds but ``f``, for f = 0 .. K-1 (prefix and
+    suffix QR merges: O(K) merges in all)."""
+    K, w_all, _ = fold_r.shape
+    prefix = [np.zeros((0, w_all))]
+    for f in range(K - 1):
+        prefix.append(_qr_r(np.vstack([prefix[-1], fold_r[f]]), w_all))
+    suffix = [np.zeros((0, w_all))] * K
+    for f in range(K - 1, 0, -1):
+        suffix[f - 1] = _qr_r(np.vstack([fold_r[f], suffix[f]]), w_all)
+    for f in range(K):
+        Ro = _qr_r(np.vstack([prefix[f], suffix[f]]), w_all)
+        if Ro.shape[0] < w_all:
+            Ro = np.vstack([Ro, np.zeros((w_all - Ro.shape[0], w_all))])
+        yield Ro
+
+
+def kfold_residuals(state: FactorState, fold_r: np.ndarray, folds, lam, *,
+                    only=None) -> np.ndarray:
+    """Held-out residuals (n, k, t) of the refits of :func:`kfold_fold_mse` (in memory).
+
+    ``folds`` lists the row indices of every fold (the order of ``fold_r``);
+    rows of folds not in ``only`` get 0.  With row weights, residuals of
+    :math:`W^{1/2} y`.
+    """
+    lam = _lam(lam)
+    zy = reduced_response(state)
+    ra = state.rank + state.n_fixed
+    rtol = max(state.n_samples, state.rank) * _EPS
+    out = np.zeros((state.n_samples, lam.size, state.n_targets))
+    for f, Ro in enumerate(_other_factors(fold_r)):
+        if only is not None and f not in only:
+            continue
+        X = _refit_coords(Ro, state.d, lam, ra, state.n_fixed, rtol)
+        ua, yc = sample_rows(state, folds[f], zy)
+        out[folds[f]] = yc[:, None, :] - np.einsum("ij,jkt->ikt", ua, X)
+    return out
+
+
+def _refit_coords(Ro, d, lam, ra, o, rtol):
+    """Coefficients (ra, k, t) on :math:`\\tilde U` of the ridge refit with factor ``Ro``.
+
+    The first ``o`` columns are unpenalized: eliminated by back substitution on
+    their triangular block after the penalized part is solved.
+    """
     t = Ro.shape[1] - ra
-    o = int(fit_intercept)
     Rg, wg = Ro[o:ra, o:ra], Ro[o:ra, ra:]
     M = Rg * d[None, :]
     P, sig, Wt = np.linalg.svd(M)
@@ -893,9 +1016,9 @@ def _refit_coords(Ro, d, lam, ra, fit_intercept, rtol):
     xg = d[:, None, None] * b
     X = np.empty((ra, lam.size, t))
     X[o:] = xg
-    if fit_intercept:
-        rho = Ro[0, 0]
-        X[0] = (Ro[0, ra:][None, :] - np.einsum("j,jkt->kt", Ro[0, 1:ra], xg)) / rho
+    if o:
+        rhs = Ro[:o, ra:][:, None, :] - np.einsum("ij,jkt->ikt", Ro[:o, o:ra], xg)
+        X[:o] = sla.solve_triangular(Ro[:o, :o], rhs.reshape(o, -1)).reshape(o, lam.size, t)
     return X
 
 

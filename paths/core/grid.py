@@ -4,6 +4,8 @@ from __future__ import annotations
 import numpy as np
 from scipy.optimize import brentq
 
+from paths.core.algebra import penalized_df
+
 __all__ = ["effective_df", "lambda_for_df", "default_grid"]
 
 
@@ -20,14 +22,17 @@ def effective_df(d: np.ndarray, lam) -> np.ndarray:
     -------
     ndarray, shape (k,) (or a scalar for scalar ``lam``)
 
+    Notes
+    -----
+    :func:`paths.core.algebra.penalized_df`, exact for every penalty from 0 to
+    the largest float.
+
     References
     ----------
     Hastie, Tibshirani & Friedman, *The Elements of Statistical Learning*,
     2nd ed. (2009), eq. 3.50.
     """
-    lam = np.asarray(lam, dtype=np.float64)
-    d2 = np.square(d)
-    return (d2[:, None] / (d2[:, None] + lam.reshape(1, -1))).sum(axis=0).reshape(lam.shape)
+    return penalized_df(d, lam)
 
 
 def lambda_for_df(d: np.ndarray, target: float) -> float:

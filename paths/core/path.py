@@ -503,7 +503,6 @@ def path_from_factors(design: Design, fac: Factorization, lambdas, *, feature_na
     multi = multi_target
     Yt = Y_test
     has_test = X_test is not None
-    t_count = design.zy.shape[1]
 
     state = algebra.factor_state(fac, design)
     c = state.uty

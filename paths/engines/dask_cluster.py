@@ -295,34 +295,29 @@ def _moments(W, names, accurate, compute):
     return Moments(n=mom.n, mean=mom.mean, m2=None, r=R, lo=mom.lo, hi=mom.hi, absmax=mom.absmax)
 
 
-def _hat_block(block, fit, lam, p, n_folds, fold_seed, block_info=None):
-    start = block_info[0]["array-location"][0][0] if block_info else 0
+def _hat_part(block, start, fit, lam, p, n_folds, fold_seed):
+    """The second-pass statistics of one row block (a :class:`HatPass`)."""
     hp = HatPass(fit, lam, n_folds=n_folds, fold_seed=fold_seed)
-    hp.add(start, np.asarray(block, dtype=np.float64), p)
-    return _flatten(hp)[None, :]
+    hp.add(int(start), np.asarray(block, dtype=np.float64), p)
+    return hp
 
 
-def _flatten(hp: HatPass) -> np.ndarray:
-    parts = [hp.sum_sq.ravel(), hp.lim_sq.ravel()]
-    if hp.n_folds:
-        parts += [hp.A.ravel(), hp.h.ravel(), hp.ss.ravel(), hp.count.astype(np.float64)]
-    return np.concatenate(parts)
+def _others_part(block, start, fit, lam, p):
+    """Third pass of one row block: the triangular factor of its ordinary rows."""
+    hp = HatPass(fit, lam)
+    hp.add_others(int(start), np.asarray(block, dtype=np.float64), p)
+    return hp.r_other
 
 
-def _unflatten(hp: HatPass, vec: np.ndarray) -> None:
-    pos = 0
+def _merge_r(a, b):
+    from paths.core import algebra
 
-    def take(a):
-        nonlocal pos
-        out = vec[pos:pos + a.size].reshape(a.shape)
-        pos += a.size
-        return out
+    return algebra.tsqr([a, b], a.shape[1])
 
-    hp.sum_sq = take(hp.sum_sq)
-    hp.lim_sq = take(hp.lim_sq)
-    if hp.n_folds:
-        hp.A, hp.h, hp.ss = take(hp.A), take(hp.h), take(hp.ss)
-        hp.count = np.rint(take(hp.count.astype(np.float64))).astype(np.int64)
+
+def _merge_hat(a: HatPass, b: HatPass) -> HatPass:
+    a.merge(b)
+    return a
 
 
 def _test_block(block, fit, lam, p):
@@ -454,18 +449,21 @@ def dask_path(
         notes = [f"dask engine: {W.numblocks[0]} row blocks"
                  + (f", scheduler {scheduler}" if scheduler else "")]
         if loo or cv:
-            label2 = ("pass 2/2: hat diagonals for exact leave-one-out (map_blocks)"
+            label2 = ("pass 2/2: hat diagonals for exact leave-one-out (dask delayed tree)"
                       + (f" and {cv}-fold CV" if cv else ""))
             if progress:
                 progress(label2, 0, mom.n)
-            hp = HatPass(fit, lam, n_folds=cv or 0, fold_seed=cv_seed)
-            width = _flatten(hp).size
+            import dask
+
             t0 = time.perf_counter()
-            parts = W.map_blocks(_hat_block, fit, lam, p, cv or 0, cv_seed,
-                                 chunks=((1,) * W.numblocks[0], (width,)), dtype=np.float64,
-                                 meta=np.empty((0, 0)))
-            vec = compute(parts.sum(axis=0))[0]
-            _unflatten(hp, np.asarray(vec))
+            starts = _offsets(W.chunks[0])
+            parts = [dask.delayed(_hat_part, pure=True)(b, int(s0), fit, lam, p, cv or 0, cv_seed)
+                     for b, s0 in zip(W.to_delayed().ravel(), starts)]
+            hp = compute(_tree(parts, _merge_hat))[0]
+            if hp.needs_others:  # rows of leverage near 1: the complement of the others
+                parts = [dask.delayed(_others_part, pure=True)(b, int(s0), fit, lam, p)
+                         for b, s0 in zip(W.to_delayed().ravel(), starts)]
+                hp.r_other = compute(_tree(parts, _merge_r))[0]
             passes.append(PassInfo(label2, mom.n, time.perf_counter() - t0,
                                    mom.n * W.shape[1] * 8))
             if progress:
@@ -494,7 +492,7 @@ def dask_path(
             if n_test == 0:
                 raise InputError("the test data have no rows; pass test rows")
             test_res = (vec[:k * t].reshape(k, t) / n_test, vec[k * t:k * t + t] / n_test, n_test)
-            passes.append(PassInfo("test rows: test error (map_blocks)", n_test,
+            passes.append(PassInfo("test rows: test error (dask delayed tree)", n_test,
                                    time.perf_counter() - t0, n_test * Wt.shape[1] * 8))
     return path_from_moments(fit, lam, feature_names=names, loo=loo_mse, loo0=loo0,
                              test=test_res, cv=cvres, n_folds=cv or 0, engine="dask",

@@ -311,23 +311,27 @@ def factor_moments(mom: Moments, p: int, *, fit_intercept: bool = True, standard
 
 # --------------------------------------------------------------------------- second pass
 class HatPass:
-    """Accumulates leave-one-out (and K-fold) sums chunk by chunk from the hat diagonals.
+    """Accumulates leave-one-out (and K-fold) statistics chunk by chunk from the rows.
 
     For rows :math:`x_i` the sample-space singular vectors are
-    :math:`u_i = V^T z_i / d`, with :math:`z_i` the centered scaled row; then, as
-    in :func:`paths.path._loo`, the leave-one-out residual is
-    :math:`(e_{\\perp,i} + \\sum_j u_{ij} s_j c_j) / (\\ell_i + \\sum_j u_{ij}^2 s_j)`
-    with :math:`s_j = \\lambda/(d_j^2+\\lambda)`, :math:`e_{\\perp,i} = y_i - \\bar y - u_i^T c`
-    and :math:`\\ell_i = 1 - 1/n - \\|u_i\\|^2` (the leverage outside the span).
+    :math:`u_i = V^T z_i / d`, with :math:`z_i` the centered scaled row.  Every
+    closed form is :mod:`paths.core.algebra`'s; this class only produces the
+    row-wise quantities:
 
-    K-fold (fold f held out, fixed preprocessing): the held-out residuals are
-    :math:`(I - H_{ff})^{-1} e_f` (Liland, Skogholt & Indahl 2024); with
-    :math:`H_{ff} = \\tilde U_f \\Phi \\tilde U_f^T`, :math:`\\tilde U = [1/\\sqrt n,\\ U]`,
-    :math:`\\Phi = \\operatorname{diag}(1, f)`, the Woodbury identity gives
-    :math:`(I - H_{ff})^{-1} = I + \\tilde U_f M \\tilde U_f^T`,
-    :math:`M = \\Phi^{1/2}(I - \\Phi^{1/2} A_f \\Phi^{1/2})^{-1}\\Phi^{1/2}`, so only
-    :math:`A_f = \\tilde U_f^T \\tilde U_f`, :math:`\\tilde U_f^T y_f` and
-    :math:`\\|y_f\\|^2` are accumulated per fold.
+    - leave-one-out (:func:`paths.core.algebra.loo_sums`): rows whose leverage
+      outside the span :math:`1 - 1/n - \\|u_i\\|^2` is at least
+      :data:`paths.core.algebra.LEVERAGE_REFINE` are summed at once; the few
+      others are kept and recomputed at the end from the complement
+      (:func:`paths.core.algebra.refine_leverage`, with the triangular factor of
+      :math:`[1/\\sqrt n,\\ u_i,\\ y_i]` over the other rows, from a third pass
+      :meth:`add_others` made only when such rows exist), so nothing is formed as
+      :math:`1 -` (something close to 1);
+    - K-fold (fold f held out, fixed preprocessing): the triangular factor of
+      every fold's rows :math:`[1/\\sqrt n,\\ u_i,\\ y_i]`
+      (:func:`paths.core.algebra.kfold_fold_mse`).
+
+    Two passes over disjoint rows merge with :meth:`merge` (sums add,
+    triangular factors merge by QR, kept rows concatenate).
     """
 
     def __init__(self, fit: _Fit, lam: np.ndarray, *, n_folds: int = 0, fold_seed=None):
@@ -337,20 +341,18 @@ class HatPass:
         self.state = fit.state
         full, self._added = algebra.append_zero(lam)
         self.shrink = algebra.shrinkage(d, full)
-        self.F = self.shrink.f
         self.k, self.t = lam.size, fit.uty.shape[1]
         r = d.size
+        self.ra = r + int(fit.design.fit_intercept)
         self.proj = fit.fac.vt.T / d  # (q, r)
-        self.sum_sq = np.zeros((self.k, self.t))
-        self.lim_sq = np.zeros(self.t)
-        des = fit.design
+        self.sums = np.zeros((full.size, self.t))
+        width = self.ra + self.t
+        self.r_other = np.zeros((0, width))
+        self.kept = np.zeros((0, width))  # high-leverage rows [ua, y], refined at the end
         self.n_folds = int(n_folds)
         self.fold_seed = fold_seed
         if self.n_folds:
-            ra = r + int(des.fit_intercept)
-            self.A = np.zeros((self.n_folds, ra, ra))
-            self.h = np.zeros((self.n_folds, ra, self.t))
-            self.ss = np.zeros((self.n_folds, self.t))
+            self.fold_r = [np.zeros((0, width)) for _ in range(self.n_folds)]
             self.count = np.zeros(self.n_folds, dtype=np.int64)
 
     def rows_u(self, block: np.ndarray, p: int):
@@ -382,39 +384,72 @@ class HatPass:
 
     def add_rows(self, start: int, ub: np.ndarray, yc: np.ndarray) -> None:
         fit = self.fit
-        b = ub.shape[0]
-        rows = algebra.unrefined_rows(self.state, ub, yc - ub @ fit.uty)
-        sums = algebra.loo_sums(rows, self.shrink, fit.uty)  # (k [+ 1], t)
-        if self._added:
-            self.sum_sq += sums[:-1]
-            self.lim_sq += sums[-1]
+        width = self.ra + self.t
+        ell = algebra.naive_ell(self.state, ub)
+        if self.state.full_row_rank:
+            keep = np.ones(ub.shape[0], dtype=bool)
+            ell[:] = 0.0
         else:
-            self.sum_sq += sums
-            self.lim_sq += sums[-1]
+            keep = ell >= algebra.LEVERAGE_REFINE
+        ua_y = np.hstack([algebra.augment_rows(self.state, ub), yc])
+        if keep.any():
+            rows = algebra.LeverageRows(u=ub[keep], ell=ell[keep],
+                                        e_perp=(np.zeros((int(keep.sum()), self.t))
+                                                if self.state.full_row_rank else
+                                                yc[keep] - ub[keep] @ fit.uty))
+            self.sums += algebra.loo_sums(rows, self.shrink, fit.uty)
+        if not keep.all():
+            self.kept = np.vstack([self.kept, ua_y[~keep]])
         if self.n_folds:
-            n = fit.design.n_samples
-            ut = np.hstack([np.full((b, 1), 1.0 / np.sqrt(n)), ub]) if fit.design.fit_intercept else ub
-            labels = self.fold_of(start, b)
+            labels = self.fold_of(start, ub.shape[0])
             for f in np.unique(labels):
                 sel = labels == f
-                uf, yf = ut[sel], yc[sel]
-                self.A[f] += uf.T @ uf
-                self.h[f] += uf.T @ yf
-                self.ss[f] += np.einsum("it,it->t", yf, yf)
+                self.fold_r[f] = algebra.tsqr([self.fold_r[f], ua_y[sel]], width)
                 self.count[f] += int(sel.sum())
 
+    @property
+    def needs_others(self) -> bool:
+        """True when high-leverage rows were kept: :meth:`add_others` must see every row once."""
+        return self.kept.shape[0] > 0
+
+    def add_others(self, start: int, block: np.ndarray, p: int) -> None:
+        """Third pass (only when rows were kept): the triangular factor of all other rows.
+
+        The kept rows are recognised by the same test as in :meth:`add_rows`.
+        """
+        width = self.ra + self.t
+        step = max(256, (4 << 20) // (8 * max(width, 1)))
+        for off in range(0, block.shape[0], step):
+            ub, yc = self.rows_u(block[off:off + step], p)
+            keep = algebra.naive_ell(self.state, ub) >= algebra.LEVERAGE_REFINE
+            if keep.any():
+                ua_y = np.hstack([algebra.augment_rows(self.state, ub[keep]), yc[keep]])
+                self.r_other = algebra.tsqr([self.r_other, ua_y], width)
+
     def merge(self, other: "HatPass") -> None:
-        self.sum_sq += other.sum_sq
-        self.lim_sq += other.lim_sq
+        width = self.ra + self.t
+        self.sums += other.sums
+        self.r_other = algebra.tsqr([self.r_other, other.r_other], width)
+        self.kept = np.vstack([self.kept, other.kept])
         if self.n_folds:
-            self.A += other.A
-            self.h += other.h
-            self.ss += other.ss
+            for f in range(self.n_folds):
+                self.fold_r[f] = algebra.tsqr([self.fold_r[f], other.fold_r[f]], width)
             self.count += other.count
 
     def loo(self):
-        n = self.fit.design.n_samples
-        return self.sum_sq / n, self.lim_sq / n
+        """Leave-one-out MSE on the grid (k, t) and at the min-norm limit (t,)."""
+        total = self.sums.copy()
+        if self.kept.shape[0]:
+            ra = self.ra
+            ua_s, y_s = self.kept[:, :ra], self.kept[:, ra:]
+            width = ra + self.t
+            R = algebra.tsqr([self.r_other], width)
+            ell, e_perp = algebra.refine_leverage(self.state, ua_s, y_s, R)
+            rows = algebra.LeverageRows(u=ua_s[:, ra - self.fit.fac.rank:], ell=ell,
+                                        e_perp=e_perp)
+            total += algebra.loo_sums(rows, self.shrink, self.fit.uty)
+        total /= self.fit.design.n_samples
+        return (total[:-1] if self._added else total), total[-1]
 
     def kfold(self):
         """K-fold CV MSE (k, t) and its standard error across folds (k, t)."""
@@ -423,30 +458,11 @@ class HatPass:
         if np.any(self.count == 0):
             raise InputError(f"{int(np.sum(self.count == 0))} of the {self.n_folds} folds are "
                              "empty; use fewer folds")
-        icpt = self.fit.design.fit_intercept
-        ctil = np.vstack([np.zeros((1, self.t)), self.fit.uty]) if icpt else self.fit.uty
-        ra = ctil.shape[0]
-        fold_mse = np.zeros((self.n_folds, self.k, self.t))
-        for f in range(self.n_folds):
-            A, h0, ss = self.A[f], self.h[f], self.ss[f]
-            for i in range(self.k):
-                phi = np.concatenate([[1.0], self.F[:, i]]) if icpt else self.F[:, i]
-                ph = np.sqrt(phi)
-                fc = phi[:, None] * ctil  # (ra, t)
-                g = h0 - A @ fc
-                ee = ss - 2 * np.einsum("rt,rt->t", fc, h0) + np.einsum("rt,rt->t", fc, A @ fc)
-                inner = np.eye(ra) - ph[:, None] * A * ph[None, :]
-                try:
-                    Mg = ph[:, None] * np.linalg.solve(inner, ph[:, None] * g)
-                except np.linalg.LinAlgError:
-                    raise InputError(
-                        f"fold {f} cannot be held out at lambda={self.lam[i]:.3g} (I - H_ff is "
-                        "singular: the other folds do not determine the fit); use fewer folds "
-                        "or a larger lambda") from None
-                rr = ee + 2 * np.einsum("rt,rt->t", g, Mg) + np.einsum("rt,rt->t", Mg, A @ Mg)
-                fold_mse[f, i] = np.maximum(rr, 0.0) / self.count[f]
-        n = self.fit.design.n_samples
-        w = self.count / n
+        width = self.ra + self.t
+        fold_r = np.stack([algebra.tsqr([R], width) for R in self.fold_r])
+        fold_mse = algebra.kfold_fold_mse(self.fit.fac.d, fold_r, self.count, self.lam,
+                                          n_fixed=self.state.n_fixed)
+        w = self.count / self.fit.design.n_samples
         mse = np.einsum("f,fkt->kt", w, fold_mse)
         se = fold_mse.std(axis=0, ddof=1) / np.sqrt(self.n_folds)
         return mse, se
@@ -584,7 +600,7 @@ def path_from_moments(fit: _Fit, lam, *, feature_names, loo, loo0, test=None, cv
         solver=fac.solver, solver_reason=fac.reason, n_samples=des.n_samples, n_features=p,
         n_test=n_test, fit_intercept=des.fit_intercept, standardize=des.standardize,
         feature_names=list(feature_names), design=des, factorization=fac, uty=c,
-        penalty_convention=PENALTY_CONVENTION, engine=engine, passes=tuple(passes),
+        penalty_convention=PENALTY_CONVENTION, state=state, engine=engine, passes=tuple(passes),
         n_folds=int(n_folds), notes=tuple(notes), captured_share=fit.captured_share,
         approximate=fit.rank_limit is not None,
         **out)
@@ -746,6 +762,15 @@ def stream_path(
             raise InputError(f"{src.source}: the data changed between passes ({mom.n} rows, then "
                              f"{rows2}); do not modify the input while it is read")
         passes.append(PassInfo(label2, rows2, time.perf_counter() - t0, rows2 * src.nbytes_per_row))
+        if hp.needs_others:
+            label3 = "pass 3/3: complement of the rows of leverage near 1"
+            t0 = time.perf_counter()
+            for start, block in src:
+                hp.add_others(start, block, p)
+                if progress:
+                    progress(label3, start + block.shape[0], mom.n)
+            passes.append(PassInfo(label3, rows2, time.perf_counter() - t0,
+                                   rows2 * src.nbytes_per_row))
         loo_mse, loo0 = hp.loo()
         if cv:
             cvres = hp.kfold()

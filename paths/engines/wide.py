@@ -40,7 +40,7 @@ import scipy.linalg as sla
 from paths.data.validation import InputError, as_lambdas, as_response
 from paths.data.chunks import DEFAULT_BLOCK_COLUMNS, ColumnSource, ParquetColumns, open_columns
 from paths.core import algebra
-from paths.core.design import Design, column_norms
+from paths.core.design import Design, column_norms, reduce_rows
 from paths.core.factor import Factorization
 from paths.core.grid import default_grid
 from paths.core.path import PENALTY_CONVENTION, MinNormFit
@@ -106,7 +106,7 @@ def _block_design(block, n, fit_intercept, standardize):
     if fit_intercept:
         mean = block.mean(axis=0)
         rn = np.sqrt(n)
-        z = block[1:] - (mean + (block[0] - mean) / (1.0 + rn))
+        z = reduce_rows(block, mean)  # as paths.core.design.prepare
         sd = column_norms(z) / rn  # overflow-safe, as paths.core.design.prepare
         active = (sd > n * _EPS * absmax) & (block.max(axis=0) > block.min(axis=0))
     else:
@@ -159,9 +159,8 @@ def _householder(Y, fit_intercept):
     """Reduced coordinates (m, t) of the centered response, and its mean."""
     if not fit_intercept:
         return Y.copy(), np.zeros(Y.shape[1])
-    n = Y.shape[0]
     mean = Y.mean(axis=0)
-    return Y[1:] - (mean + (Y[0] - mean) / (1.0 + np.sqrt(n))), mean
+    return reduce_rows(Y, mean), mean
 
 
 def wide_path(
@@ -482,5 +481,5 @@ def wide_path(
         solver_reason=reason, n_samples=n, n_features=p, n_test=n_test,
         fit_intercept=fit_intercept, standardize=standardize, feature_names=src.feature_names,
         design=design, factorization=fac, uty=c, penalty_convention=PENALTY_CONVENTION,
-        engine="wide", passes=tuple(passes), notes=tuple(notes), captured_share=share,
+        state=state, engine="wide", passes=tuple(passes), notes=tuple(notes), captured_share=share,
         approximate=approximate, **out)

@@ -33,6 +33,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
+from paths.core.algebra import fractions, penalized_df
 from paths.data.validation import InputError
 
 __all__ = [
@@ -267,7 +268,7 @@ def _x_of_penalty(result, lam: float, df: float | None, x: str) -> float:
         d = _arr(_get(result, "singular_values"))
         if d is None:
             return float("nan")
-        return float(_n_fixed(result)) + float(np.sum(d**2 / (d**2 + lam)))
+        return float(_n_fixed(result)) + float(penalized_df(d, lam))
     return float(np.log10(lam)) if lam > 0 else float("nan")
 
 
@@ -962,7 +963,7 @@ def plot_shrinkage(result, ax=None, *, lam=None, selected=None, target: int = 0,
         raise InputError("the result has no 'singular_values'; pass a RidgePath or summary")
     lam, rule = _choice(result, lam, selected, target)
     j = np.arange(1, d.size + 1, dtype=float)
-    f = d**2 / (d**2 + lam)
+    f = fractions(d, [lam])[:, 0]
     who = _rule_label(rule) if rule != "given" else "given"
     art = Artists(ax=ax, x_quantity="component j, by decreasing dⱼ",
                   y_quantity="shrinkage dⱼ²/(dⱼ² + λ)")

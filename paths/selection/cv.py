@@ -13,35 +13,34 @@ hat matrix (the unpenalized intercept's :math:`11^T/n` included) and
 It is exact for every penalty, as long as the preprocessing (centering and
 scaling) is held fixed; the intercept is refitted per fold automatically.
 
-Two algebraically equal forms are used, both cancellation free:
+Two algebraically equal forms are used, both cancellation free (the closed
+forms live in :mod:`paths.core.algebra`):
 
 *primal* (the centered design has rank :math:`r < n - 1`)
-    :math:`I - H = L + U \\operatorname{diag}(s) U^T` with
-    :math:`s_j = \\lambda/(d_j^2 + \\lambda)` and :math:`L` the projection onto
-    the residual space outside the column span and the ones vector;
-    :math:`e = e_\\perp + U (s \\circ U^T y)`.
-*dual* (full row rank, :math:`p \\ge n - 1`; :math:`L = 0`)
-    :math:`I - H = \\lambda\\, U \\operatorname{diag}(w) U^T` with
-    :math:`w_j = 1/(d_j^2 + \\lambda)` and :math:`e = \\lambda U (w \\circ U^T y)`.
-    The factor :math:`\\lambda` cancels, leaving
-    :math:`e_{(-f)} = [U_f W U_f^T]^{-1} U_f W U^T y`, the dual form
-    :math:`[(G^{-1})_{ff}]^{-1} (G^{-1} y)_f` with :math:`G = XX^T + \\lambda I`
+    The held-out residuals are those of the ridge refit on the other folds in
+    the coordinates of the factors, :math:`\\min_{a,b} \\|y_O - a/\\sqrt n -
+    U_O D b\\|^2 + \\lambda\\|b\\|^2`, solved from the triangular factor of the
+    other folds' rows of :math:`[1/\\sqrt n,\\ U,\\ y]` (merged from per-fold
+    factors) and one :math:`r \\times r` SVD per fold.  The complement of a fold
+    is a sum of squares over the other folds, never :math:`I - U_f^T U_f`, so
+    it stays accurate as leverages tend to 1 and at :math:`\\lambda = 0` is the
+    limit of the per-fold refits.  Cost :math:`O(n r^2 + K r^3 + K k r^2 t)`.
+*dual* (full row rank, :math:`p \\ge n - 1`)
+    :math:`I - H = U \\operatorname{diag}(s) U^T` and :math:`e = U (s \\circ U^T y)`
+    with :math:`s_j = \\lambda/(d_j^2 + \\lambda)`; the common factor cancels, leaving
+    :math:`e_{(-f)} = [U_f \\hat S U_f^T]^{-1} U_f \\hat S U^T y` with the scaled
+    complements :math:`\\hat s_j = (d_r^2 + \\lambda)/(d_j^2 + \\lambda)`, the dual
+    form :math:`[(G^{-1})_{ff}]^{-1} (G^{-1} y)_f` with :math:`G = XX^T + \\lambda I`
     restricted to the complement of the ones vector (intercept unpenalized).
     It stays exact as :math:`\\lambda \\to 0`, where :math:`I - H_{ff}` itself
     becomes singular, and at :math:`\\lambda = 0` gives the limit of the
-    per-fold minimum-norm refits.  (In the primal form, :math:`\\lambda = 0` is
-    evaluated at :math:`10^{-10} d_r^2`: the block :math:`L_{ff}` is singular when a
-    fold's training rows lose rank, and the limit is then reached only from
-    :math:`\\lambda > 0`; the value agrees with the limit to about :math:`10^{-10}`
-    relative, or to the conditioning of the block.)
+    per-fold minimum-norm refits.  For every fold, the :math:`b \\times b`
+    blocks of all :math:`k` penalties come from ONE matrix product,
+    :math:`(k \\times r) \\cdot (r \\times b^2)`, and a batched solve; the cost is
+    about :math:`2 k r b^2 + \\tfrac23 k b^3` per fold.
 
-For every fold, the :math:`b \\times b` blocks of all :math:`k` penalties come from
-ONE matrix product, :math:`(k \\times r) \\cdot (r \\times b^2)` (the rows of the
-right factor are :math:`\\operatorname{vec}(u_{fj} u_{fj}^T)`), and a batched
-solve; the cost is about :math:`2 k r b^2 + \\tfrac23 k b^3` per fold, i.e.
-:math:`2 k n r b` in total.  Refitting instead costs one factorization per fold.
-With large folds (few folds on many rows) refitting is cheaper; ``method="auto"``
-compares the two from a measured cost model (:class:`CostModel`).
+Refitting instead costs one factorization per fold; ``method="auto"`` compares
+the two from a measured cost model (:class:`CostModel`).
 
 Scaling: ``scaling="global"`` (the default) learns the column scales on all rows
 and holds them fixed — fast, exact for that estimator, slightly optimistic since
@@ -57,7 +56,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from paths.data.validation import InputError, as_design, as_lambdas, as_response
-from paths.core.design import prepare, to_sample_space
+from paths.core import algebra
+from paths.core.design import prepare
 from paths.core.factor import factorize
 
 __all__ = [
@@ -215,9 +215,14 @@ class CostModel:
     refit_rate: float = 9.3e-11
 
     @staticmethod
-    def exact_flops(sizes, r: int, k: int, t: int = 1) -> float:
-        """:math:`\\sum_f 2 k r b_f^2 + \\tfrac23 k b_f^3 + 2 k r b_f t + r b_f^2`."""
+    def exact_flops(sizes, r: int, k: int, t: int = 1, *, dual: bool = True) -> float:
+        """Dual form: :math:`\\sum_f 2 k r b_f^2 + \\tfrac23 k b_f^3 + 2 k r b_f t + r b_f^2`;
+        primal form: :math:`2 n r^2` for the fold factors, :math:`30 r^3` per fold for
+        the merges and the SVD, :math:`4 k r^2 t` per fold for the residuals."""
         b = np.asarray(sizes, dtype=float)
+        if not dual:
+            ra = r + 1.0
+            return float(2 * b.sum() * ra**2 + b.size * (30 * ra**3 + 4 * k * ra**2 * t))
         return float(np.sum(2 * k * r * b**2 + (2 / 3) * k * b**3 + 2 * k * r * b * t + r * b**2))
 
     @staticmethod
@@ -229,9 +234,11 @@ class CostModel:
         lo, hi = np.minimum(m, q), np.maximum(m, q)
         return float(np.sum(4 * lo**2 * hi + 8 * lo**3 + 2 * b * lo * k * t))
 
-    def choose(self, sizes, *, n: int, r: int, q: int, k: int, t: int = 1):
+    def choose(self, sizes, *, n: int, r: int, q: int, k: int, t: int = 1,
+               dual: bool | None = None):
         """``("exact" | "refit", reason)`` from the predicted times."""
-        te = self.exact_rate * self.exact_flops(sizes, r, k, t)
+        dual = r >= n - 1 if dual is None else dual
+        te = self.exact_rate * self.exact_flops(sizes, r, k, t, dual=dual)
         tr = self.refit_rate * self.refit_flops(sizes, n, q, k, t)
         route = "exact" if te <= tr else "refit"
         return route, (f"{route}: predicted {te:.2g} s for the fold solves vs "
@@ -346,97 +353,54 @@ def _summarize(fold, sizes):
 
 
 # ------------------------------------------------------------------------ engines
-def _sample_rows(u: np.ndarray, idx: np.ndarray, fit_intercept: bool, colsum) -> np.ndarray:
-    """Rows ``idx`` of the sample-space factor ``to_sample_space(u)`` without forming it."""
-    if not fit_intercept:
-        return u[idx]
-    n = u.shape[0] + 1
-    rn = np.sqrt(n)
-    out = np.empty((idx.size, u.shape[1]))
-    first = idx == 0
-    rest = ~first
-    out[rest] = u[idx[rest] - 1] - colsum / (n + rn)
-    out[first] = -colsum / rn
-    return out
-
-
 class _ExactEngine:
-    """Held-out residuals from the full-data factors (primal or dual form)."""
+    """Held-out residuals from the full-data factors (:mod:`paths.core.algebra`).
 
-    def __init__(self, fac, design, uty, labels_list):
-        self.d2 = np.square(fac.d)
-        self.u = fac.u
-        self.c = uty  # (r, t)
-        self.fit_intercept = design.fit_intercept
-        self.n = design.n_samples
-        m, r = fac.u.shape
-        self.dual = r == m
-        self.colsum = fac.u.sum(axis=0)
-        # row weights / unpenalized columns: the span's basis Q1 takes the place of 1/sqrt(n),
-        # the sample-space factor is formed once, and residuals are those of W^1/2 y
-        self.span = design.span
-        self.un = None if self.span is None else self.span.to_sample(fac.u)
-        resid = None if self.dual else design.zy - fac.u @ uty
-        if self.dual:
-            self.eperp = None
-        elif self.span is not None:
-            self.eperp = self.span.to_sample(resid)
-        else:
-            self.eperp = to_sample_space(resid, design.fit_intercept)
+    Primal (rank below n − 1): the refit on the other folds from per-fold
+    triangular factors (:func:`paths.core.algebra.kfold_fold_mse`); dual (full
+    row rank): the b × b blocks of :func:`paths.core.algebra.kfold_dual_mse`.
+    """
+
+    def __init__(self, state, labels_list):
+        self.state = state
+        self.dual = state.full_row_rank
         self.folds = [[np.flatnonzero(lab == f) for f in range(int(lab.max()) + 1)]
                       for lab in labels_list]
+        # with row weights, a fold's mean error is sum_i w_i e_i^2 / sum_i w_i
+        w = None if state.span is None else np.square(state.span.sqrt_w)
+        self.weights = [np.array([idx.size if w is None else w[idx].sum() for idx in folds])
+                        for folds in self.folds]
+        self.fold_r = []
+        if not self.dual:
+            zy = algebra.reduced_response(state)
+            for folds in self.folds:
+                self.fold_r.append(np.stack([
+                    algebra.fold_factor(*algebra.sample_rows(state, idx, zy)) for idx in folds]))
 
     @property
     def form(self):
         return "dual" if self.dual else "primal"
 
-    def _fold(self, idx, lam):
-        """Mean squared held-out residual of one fold, (k, t); with row weights
-        :math:`\\sum_i w_i e_i^2 / \\sum_i w_i` (the residuals are those of :math:`W^{1/2} y`)."""
-        sq = np.concatenate([np.sum(np.square(res), axis=1)
-                             for res in self.fold_residuals(idx, lam)])
-        if self.span is not None:
-            return sq / np.square(self.span.sqrt_w[idx]).sum()
-        return sq / idx.size
-
-    def fold_residuals(self, idx, lam):
-        """Yield the held-out residuals of fold ``idx``, (k_chunk, b, t), chunk by chunk."""
-        b = idx.size
-        if self.span is not None:
-            uf = self.un[idx]
-        else:
-            uf = _sample_rows(self.u, idx, self.fit_intercept, self.colsum)  # (b, r)
-        r = uf.shape[1]
-        # the blocks of all penalties as one product with vec(u_fj u_fj^T), unless that
-        # (r, b*b) factor is too large (big folds): then one product per penalty
-        P = (uf[:, None, :] * uf[None, :, :]).reshape(b * b, r).T if r * b * b <= _CHUNK_ELEMS \
-            else None
-        if not self.dual:
-            base = np.eye(b) - uf @ uf.T
-            if self.span is not None:
-                qf = self.span.q1[idx]
-                base -= qf @ qf.T
-            elif self.fit_intercept:
-                base -= 1.0 / self.n
-        step = max(1, _CHUNK_ELEMS // max(b * b, r * b))
-        if not self.dual:  # lambda = 0: the lambda -> 0+ limit (see _solve_at_zero)
-            lam = np.where(lam == 0, 1e-10 * self.d2[-1], lam)
-        for s in range(0, lam.size, step):
-            lk = lam[s:s + step]
-            denom = self.d2[None, :] + lk[:, None]  # (kc, r)
-            coefs = (1.0 / denom) if self.dual else (lk[:, None] / denom)
-            if P is not None:
-                A = (coefs @ P).reshape(lk.size, b, b)
-            else:
-                A = np.stack([(uf * cf) @ uf.T for cf in coefs])
-            rhs = np.einsum("ir,kr,rt->kit", uf, coefs, self.c)
-            if not self.dual:
-                A += base
-                rhs += self.eperp[idx][None, :, :]
-            yield np.linalg.solve(A, rhs)  # (kc, b, t)
+    def residuals(self, lam, only=None) -> np.ndarray:
+        """Held-out residuals (n, k, t) of the first partition (rows of folds not in
+        ``only`` get 0); with row weights, those of :math:`W^{1/2} y`."""
+        folds = self.folds[0]
+        only = range(len(folds)) if only is None else only
+        if self.dual:
+            out = np.zeros((self.state.n_samples, np.size(lam), self.state.n_targets))
+            for f in only:
+                out[folds[f]] = algebra.kfold_dual_residuals(self.state, folds[f], lam)
+            return out
+        return algebra.kfold_residuals(self.state, self.fold_r[0], folds, lam, only=only)
 
     def fold_mse(self, lam):
-        return np.stack([np.stack([self._fold(idx, lam) for idx in folds]) for folds in self.folds])
+        if self.dual:
+            return np.stack([np.stack([
+                algebra.kfold_dual_mse(self.state, idx, lam, weight=wf, chunk_elems=_CHUNK_ELEMS)
+                for idx, wf in zip(folds, wts)]) for folds, wts in zip(self.folds, self.weights)])
+        return np.stack([
+            algebra.kfold_fold_mse(self.state.d, R, wts, lam, n_fixed=self.state.n_fixed)
+            for R, wts in zip(self.fold_r, self.weights)])
 
 
 class _RefitEngine:
@@ -474,8 +438,7 @@ class _RefitEngine:
         for per in self.folds:
             rows = []
             for d, c, proj, yt in per:
-                g = d[:, None] / (np.square(d)[:, None] + lam[None, :])  # (r, k)
-                pred = np.einsum("ir,rk,rt->ikt", proj, g, c)
+                pred = algebra.project(proj, algebra.gains(d, lam), c)
                 rows.append(np.mean(np.square(yt[:, None, :] - pred), axis=0))
             out.append(np.stack(rows))
         return np.stack(out)
@@ -636,10 +599,10 @@ def cross_validate(
     else:
         route, reason = (cost_model or CostModel()).choose(
             sizes[0], n=n, r=fac.rank, q=int(path.design.active.sum()), k=lam.size,
-            t=Y.shape[1])
+            t=Y.shape[1], dual=path.state.full_row_rank)
     engine = None
     if route == "exact":
-        engine = _ExactEngine(fac, path.design, path.uty, list(labels))
+        engine = _ExactEngine(path.state, list(labels))
         try:
             fold = engine.fold_mse(lam)
         except np.linalg.LinAlgError:
@@ -679,58 +642,22 @@ def heldout_residuals(path, lam: float, labels, *, only=None) -> np.ndarray:
     """
     labels = np.asarray(labels)
     lam_arr = as_lambdas(lam)[:1]
-    engine = _ExactEngine(path.factorization, path.design, path.uty, [labels])
-    out = np.zeros((path.n_samples, path.uty.shape[1]))
-    for f, idx in enumerate(engine.folds[0]):
-        if only is None or f in only:
-            out[idx] = next(engine.fold_residuals(idx, lam_arr))[0]
+    engine = _ExactEngine(path.state, [labels])
+    out = engine.residuals(lam_arr, only=only)[:, 0]
     return out if path.multi_target else out[:, 0]
 
 
 def loo_residuals(path, lam) -> np.ndarray:
     """Exact leave-one-out residuals at penalties ``lam``, shape (n, k) or (n, k, t).
 
-    :math:`e_i/(1 - H_{ii})`, evaluated in the primal or dual form of the module
-    notes (single-row folds), so it stays finite as :math:`\\lambda \\to 0` at
-    full row rank.  Their mean square is ``path.criteria_at(lam).loo_mse``; their
-    spread gives its standard error.
+    :math:`e_i/(1 - H_{ii})` from :func:`paths.core.algebra.loo_residuals`
+    (cancellation free as leverages tend to 1, finite as :math:`\\lambda \\to 0`).
+    Their mean square is ``path.criteria_at(lam).loo_mse``; their spread gives
+    its standard error.
     """
     lam = as_lambdas(lam)
-    fac, design = path.factorization, path.design
-    span = design.span
-    un = (to_sample_space(fac.u, design.fit_intercept) if span is None
-          else span.to_sample(fac.u))  # (n, r)
-    c = path.uty
-    d2 = np.square(fac.d)
-    m, r = fac.u.shape
-    denom = d2[:, None] + lam[None, :]
-    if r == m:  # dual: 1 - H_ii = lam * sum_j U_ij^2 w_j
-        coefs = 1.0 / denom
-        den = np.square(un) @ coefs
-        num = np.einsum("ir,rk,rt->ikt", un, coefs, c)
-    else:
-        coefs = lam[None, :] / denom
-        if span is not None:
-            lev = 1.0 - np.einsum("ir,ir->i", un, un) - span.leverage
-            eperp = span.to_sample(design.zy - fac.u @ c)
-        else:
-            lev = 1.0 - np.einsum("ir,ir->i", un, un) - (1.0 / design.n_samples
-                                                        if design.fit_intercept else 0.0)
-            eperp = to_sample_space(design.zy - fac.u @ c, design.fit_intercept)
-        lev = np.maximum(lev, 0.0)
-        den = lev[:, None] + np.square(un) @ coefs
-        num = eperp[:, None, :] + np.einsum("ir,rk,rt->ikt", un, coefs, c)
-        # lambda = 0 on a row with no leverage left outside the span (H_ii = 1): the limit
-        # sum_j U_ij c_j / d_j^2 / sum_j U_ij^2 / d_j^2, as in paths.path
-        small = lev <= 100 * m * np.finfo(float).eps
-        zero = lam == 0
-        if small.any() and zero.any():
-            lim = (un[small] @ (c / d2[:, None])) / (np.square(un[small]) @ (1.0 / d2))[:, None]
-            rows = np.flatnonzero(small)
-            for kk in np.flatnonzero(zero):
-                den[rows, kk] = 1.0
-                num[rows, kk, :] = lim
-    res = num / den[:, :, None]
-    if span is not None:  # residuals of W^1/2 y: back to y (weighted refits without row i)
-        res /= span.sqrt_w[:, None, None]
+    if path.state is None or path.state.u is None:
+        raise InputError("leave-one-out residuals need the left factor, which this engine "
+                         "does not keep; use the in-memory engine")
+    res = algebra.loo_residuals(path.state, lam)
     return res if path.multi_target else res[..., 0]

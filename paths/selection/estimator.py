@@ -19,6 +19,7 @@ from sklearn.utils.validation import check_is_fitted, validate_data
 
 from paths.data.validation import InputError, as_weights
 from paths.selection.cv import cross_validate
+from paths.core.algebra import penalized_df
 from paths.core.path import fit_path
 from paths.selection.rules import parse_rule, select_penalty
 
@@ -169,8 +170,7 @@ class RidgePathRegressor(RegressorMixin, BaseEstimator):
             c = path.coef_at(lam[j])
             coef[j] = c[:, j] if multi else c
         intercept = path.design.y_mean - coef @ path.design.x_mean
-        d2 = np.square(path.singular_values)
-        df = np.array([path.design.n_fixed + np.sum(d2 / (d2 + lj)) for lj in lam])
+        df = path.design.n_fixed + penalized_df(path.singular_values, lam)
         self.path_ = path
         self.selection_ = rep
         self.noise_variance_ = rep.noise.value

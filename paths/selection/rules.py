@@ -45,6 +45,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy.optimize import brentq, minimize_scalar
 
+from paths.core import algebra
 from paths.data.validation import InputError
 from paths.core.grid import lambda_for_df
 from paths.selection.reml import reml_estimate
@@ -117,11 +118,8 @@ def shrinkage_fraction(path, lam, target: int = 0) -> np.ndarray:
     :math:`\\lambda = 0` and decreases to 0.
     """
     lam = np.asarray(lam, dtype=float)
-    d = path.factorization.d
-    c = path.uty[:, target]
-    g = d[:, None] / (np.square(d)[:, None] + lam.reshape(1, -1))
-    num = np.sqrt(np.square(g * c[:, None]).sum(axis=0))
-    den = np.sqrt(np.sum(np.square(c / d)))
+    nrm = algebra.path_coef_norm(_state_of(path), algebra.append_zero(lam.reshape(-1))[0])
+    num, den = nrm[:lam.size, target], nrm[-1, target]
     return (num / den).reshape(lam.shape)
 
 
@@ -364,9 +362,9 @@ def isotropic_lambda(path, sigma2, target: int = 0) -> float | None:
 # -------------------------------------------------------------------- refinement
 def _gcv_values(path, lam, j):
     """GCV :math:`n\\,\\mathrm{RSS}/(n - \\mathrm{df})^2` at ``lam`` for target ``j``
-    (:meth:`paths.path.RidgePath.criteria_at`; at 0, the min-norm limit)."""
+    (:func:`paths.core.algebra.gcv`, O(r) per penalty; at 0, the min-norm limit)."""
     lam = np.atleast_1d(np.asarray(lam, dtype=float))
-    return _target_col(path.criteria_at(lam).gcv, j).reshape(lam.shape)
+    return algebra.gcv(_state_of(path), lam.reshape(-1))[:, j].reshape(lam.shape)
 
 
 def _gcv_fun(path, j):
@@ -597,8 +595,18 @@ def _estimate(path, cv, lam, j, loo_se_cache):
 
 
 def _df_at(path, lam):
-    d2 = np.square(path.factorization.d)
-    return float(path.design.n_fixed + np.sum(d2 / (d2 + lam)))
+    return float(path.design.n_fixed + algebra.penalized_df(path.factorization.d, lam))
+
+
+def _state_of(path) -> algebra.FactorState:
+    """The path's factor state (from its factors when the engine did not keep one)."""
+    st = getattr(path, "state", None)
+    if st is not None:
+        return st
+    fac = path.factorization
+    rss_out = np.atleast_1d(np.asarray(path.min_norm.train_mse, dtype=float)) * path.n_samples
+    return algebra.FactorState(d=fac.d, vt=fac.vt, uty=path.uty, rss_out=rss_out,
+                               n_samples=path.n_samples, fit_intercept=path.fit_intercept)
 
 
 def select_penalty(path, cv=None, *, df_target: float | None = None,

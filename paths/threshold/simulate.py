@@ -29,6 +29,7 @@ import numpy as np
 from scipy.linalg import toeplitz
 
 from paths.data.validation import InputError, check_memory
+from paths.core import algebra
 from paths.core.design import to_sample_space
 from paths.threshold.sweep import METHODS, PointFit, ThresholdResult, VarianceEstimate, threshold_sweep
 
@@ -250,7 +251,7 @@ class _Exact:
         ok = np.isfinite(lam)
         if ok.any():
             d = fac.d
-            G = d[:, None] / (np.square(d)[:, None] + lam[None, ok])  # (r, K)
+            G = algebra.gains(d, lam[ok])  # (r, K)
             a = G * cstar[:, None]
             b0 = fbar - xw @ a
             bias = (np.square(b0) if icpt else 0.0) + np.einsum("rk,rs,sk->k", a, A, a) \

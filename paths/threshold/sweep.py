@@ -42,6 +42,7 @@ import numpy as np
 from paths.data.validation import InputError, as_design, as_response, check_memory
 from paths.core.design import Design, prepare, to_sample_space
 from paths.core.factor import Factorization, factorize
+from paths.core import algebra
 from paths.core.grid import lambda_for_df
 from paths.threshold import theory
 
@@ -517,36 +518,26 @@ def _fit_point(fac: Factorization, zy: np.ndarray, n: int, fit_intercept: bool,
     Returns an (M_ridge=4, 7) array of FIELDS for min_norm, ridge_fixed,
     ridge_gcv, ridge_oracle, and the dict of penalties.
     """
-    u, d, r = fac.u, fac.d, fac.rank
-    m = u.shape[0]
-    c = u.T @ zy
-    res = zy - u @ c
-    rss_out = float(res @ res)
+    d, r = fac.d, fac.rank
+    state = algebra.state_from_response(fac, zy[:, None], n, fit_intercept)
     if lam_fixed is None:
         target = df_fraction * r
         lam_f = lambda_for_df(d, target) if 0 < target < r else 0.0
     else:
         lam_f = lam_fixed
     lam = np.concatenate([[0.0], lam_grid, [lam_f]])
-    d2 = np.square(d)
-    den = d2[:, None] + lam[None, :]
-    S = lam[None, :] / den  # shrinkage complements
-    G = d[:, None] / den  # gains; 1/d at lambda = 0
-    c2 = np.square(c)
-    rss = rss_out + np.square(S).T @ c2  # (K,)
-    resid_dof = (m - r) + S.sum(axis=0)
-    df = fit_intercept + (d2[:, None] / den).sum(axis=0)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        gcv = n * rss / np.square(resid_dof)
-    if resid_dof[0] <= 0:
-        # interpolation: GCV is 0/0 at lambda = 0; its limit n sum(c^2/d^4)/(sum 1/d^2)^2 is
+    sh = algebra.shrinkage(d, lam)
+    rss = algebra.rss(state, lam, sh)[:, 0]  # (K,)
+    df = fit_intercept + sh.f.sum(axis=0)
+    gcv = algebra.gcv(state, lam, sh)[:, 0]
+    if state.full_row_rank:
+        # interpolation: GCV at lambda = 0 is its limit n sum(c^2/d^4)/(sum 1/d^2)^2, which is
         # dominated by the smallest singular direction and says nothing about the test
         # error, so the search keeps lambda > 0 there
         gcv[0] = np.inf
-    gc = G * c[:, None]  # (r, K): standardized coefficients
-    coef_norm = np.sqrt(np.sum(np.square(gc), axis=0))
-    pred = test_std @ gc  # (n_test, K), test projections once per point
-    test = np.mean(np.square(yt_c[:, None] - pred), axis=0)
+    coef_norm = algebra.path_coef_norm(state, lam)[:, 0]  # standardized coefficients' norm
+    # test projections once per point
+    test = algebra.test_sums(state, lam, test_std, yt_c[:, None])[0][:, 0] / yt_c.size
     K = lam.size
     i_gcv = int(np.argmin(np.where(np.isnan(gcv[:K - 1]), np.inf, gcv[:K - 1])))
     i_or = int(np.argmin(test[:K - 1]))
