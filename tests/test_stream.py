@@ -281,7 +281,7 @@ def test_csv_non_numeric_value_reports_row_range(tmp_path):
     rows[21][0] = "n/a?"
     f.write_text("a,y\n" + "\n".join(f"{r[0]},{r[1]}" for r in rows) + "\n")
     with pytest.raises(InputError, match=r"rows 21-25: column 'a' has a non-numeric value "
-                                         r"'n/a\?' at data row 22"):
+                                         r"'n/a\?' on line 23"):
         stream_path(f, target="y", chunk_rows=10)
 
 
@@ -372,7 +372,7 @@ def test_cli_bad_input_exit_2(tmp_path, case):
         f = tmp_path / "d.csv"
         f.write_text("a,y\n" + "\n".join(f"{i},{i % 7}" for i in range(30)) + "\n7x,1\n")
         args += [str(f), "-t", "y", "--engine", "stream", "--chunk-rows", "8"]
-        want = "rows 25-31: column 'a' has a non-numeric value '7x' at data row 31"
+        want = "rows 25-31: column 'a' has a non-numeric value '7x' on line 32"
     elif case == "schema":
         pq.write_table(pa.table({"a": [1.0, 2.0, 3.0], "y": [1.0, 2.0, 4.0]}), tmp_path / "p0.parquet")
         pq.write_table(pa.table({"a": [1, 2], "y": [1.0, 2.0]}), tmp_path / "p1.parquet")

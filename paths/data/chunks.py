@@ -21,7 +21,8 @@ import numpy as np
 
 from paths.data.validation import InputError
 
-__all__ = ["RowSource", "ArrayRows", "ParquetRows", "CSVRows", "open_rows",
+__all__ = ["RowSource", "ArrayRows", "ParquetRows", "CSVRows", "open_rows", "count_rows",
+           "HoldoutRows", "GroupValues", "CSVColumns", "frame_block", "RowSubsetColumns",
            "ColumnSource", "ArrayColumns", "ParquetColumns", "open_columns",
            "DEFAULT_CHUNK_ROWS", "DEFAULT_BLOCK_COLUMNS"]
 
@@ -88,6 +89,9 @@ class ArrayRows(RowSource):
         if X.shape[0] == 0 or X.shape[1] == 0:
             raise InputError(f"X has shape {X.shape}; pass at least 2 rows and 1 column")
         for name, a in (("X", X), ("y", y)):
+            if np.issubdtype(a.dtype, np.complexfloating):
+                raise InputError(f"{name} holds complex numbers (dtype {a.dtype}); split them "
+                                 "into real and imaginary columns")
             if not (np.issubdtype(a.dtype, np.number) or a.dtype == bool):
                 raise InputError(f"{name} is not numeric (dtype {a.dtype}); convert it to floats")
         p, t = X.shape[1], y.shape[1]
@@ -184,6 +188,9 @@ class ParquetRows(RowSource):
                     "rewrite the parts with one schema"
                 )
         names = list(first.names)
+        if len(set(names)) != len(names):
+            dup = next(c for c in names if names.count(c) > 1)
+            raise InputError(f"{path}: column name {dup!r} appears twice; rename one")
         features, targets = select_columns(names, target, features, where)
         nonnum = [c for c in features + targets if not _is_numeric(first.field(c).type)]
         if nonnum:
@@ -255,68 +262,88 @@ def _schema_difference(a, b) -> str:
 
 
 class CSVRows(RowSource):
-    """Row chunks of a CSV/TSV file (pandas' C parser, ``chunksize`` rows at a time).
+    """Row chunks of a CSV/TSV file, under exactly the in-memory reader's rules.
+
+    The layout (delimiter, header, column names) is decided on the first lines
+    by :func:`paths.data.tables.text_layout` and the records parsed by
+    :func:`paths.data.tables.read_text_chunks` — the functions
+    :func:`paths.data.tables.read_table` uses — so a record with a field too
+    many or too few, a repeated column name, a number with digit-group
+    underscores or thousands separators, or a non-UTF-8 byte is refused with
+    the message the in-memory engine gives.
 
     Raises
     ------
     InputError
-        A missing column, a non-numeric value (the column, the value and the
-        row range of its chunk), a missing or infinite value.
+        A missing column, a ragged record, a non-numeric value (the column, the
+        value and its line), a missing or infinite value.
     """
 
     def __init__(self, path, target, *, features=None, sep: str | None = None,
                  chunk_rows: int = DEFAULT_CHUNK_ROWS):
-        import pandas as pd
+        from paths.data.tables import text_layout
 
         path = Path(path)
-        if not path.exists():
-            raise InputError(f"{path}: no such file; check the path")
         if path.is_dir():
             raise InputError(f"{path} is a folder, not a CSV file; pass the file inside it")
-        if sep is None:
-            sep = "\t" if path.suffix.lower() in (".tsv", ".tab") else ","
-        self._sep = sep
-        try:
-            header = pd.read_csv(path, sep=sep, nrows=0)
-        except pd.errors.EmptyDataError:
-            raise InputError(f"{path} is empty; pass a file with a header row and data rows") from None
-        except (UnicodeDecodeError, pd.errors.ParserError, ValueError) as exc:
-            raise InputError(f"{path} could not be read ({type(exc).__name__}); "
-                             "check that it is UTF-8 CSV and the delimiter (--sep)") from None
-        names = [str(c) for c in header.columns]
+        self._layout = text_layout(path, sep=sep)
+        self._sep = self._layout.sep
+        names = list(self._layout.names)
         features, targets = select_columns(names, target, features, f"{path}: ")
         self._path = path
         super().__init__(columns=features + targets, n_features=len(features), n_rows=None,
                          source=str(path), chunk_rows=_check_chunk_rows(chunk_rows),
                          nbytes_per_row=8 * (len(features) + len(targets)))
 
-    def __iter__(self):
-        import pandas as pd
+    @property
+    def layout(self):
+        """The file's :class:`~paths.data.tables.TextLayout` (delimiter, header, names)."""
+        return self._layout
 
-        cols = self.columns
+    @property
+    def notes(self) -> list:
+        """What the reader detected (delimiter, header), as the in-memory reader says it."""
+        return list(self._layout.notes)
+
+    def __iter__(self):
+        from paths.data.tables import read_text_chunks
+
         start = 0
-        reader = pd.read_csv(self._path, sep=self._sep, usecols=cols, chunksize=self.chunk_rows)
-        with reader:
-            for frame in reader:
-                rows = frame.shape[0]
-                block = np.empty((rows, len(cols)))
-                for j, name in enumerate(cols):
-                    s = frame[name]
-                    if not pd.api.types.is_numeric_dtype(s):
-                        num = pd.to_numeric(s, errors="coerce")
-                        bad = np.flatnonzero(num.isna().to_numpy() & s.notna().to_numpy())
-                        if bad.size:
-                            i = int(bad[0])
-                            raise InputError(
-                                f"{self._path}: rows {start + 1}-{start + rows}: column {name!r} "
-                                f"has a non-numeric value {str(s.iloc[i])!r} at data row "
-                                f"{start + i + 1}; fix or drop that value"
-                            )
-                        s = num
-                    block[:, j] = s.to_numpy(dtype=np.float64, na_value=np.nan)
-                _finite_or_raise(block, start, cols, f"{self._path}: ")
-                yield start, block
-                start += rows
+        for frame in read_text_chunks(self._layout, self.chunk_rows):
+            block = frame_block(frame, self.columns, start, self._path)
+            yield start, block
+            start += block.shape[0]
+
+
+def frame_block(frame, cols, start: int, source) -> np.ndarray:
+    """The columns ``cols`` of a parsed text chunk as float64, every value checked: a
+    non-numeric value or a missing or infinite one is refused with its line."""
+    lines = frame.attrs.get("paths_lines")
+    rows = frame.shape[0]
+    block = np.empty((rows, len(cols)))
+    for j, name in enumerate(cols):
+        s = frame[name]
+        if not _numeric_series(s):
+            import pandas as pd
+
+            num = pd.to_numeric(s.astype(object).where(s.notna(), None), errors="coerce")
+            bad = np.flatnonzero(num.isna().to_numpy() & s.notna().to_numpy())
+            i = int(bad[0]) if bad.size else 0
+            at = f"line {int(lines[i])}" if lines is not None else f"data row {start + i + 1}"
+            raise InputError(
+                f"{source}: rows {start + 1}-{start + rows}: column {name!r} has a "
+                f"non-numeric value {str(s.iloc[i])!r} on {at}; fix or drop that value"
+            )
+        block[:, j] = s.to_numpy(dtype=np.float64, na_value=np.nan)
+    _finite_or_raise(block, start, cols, f"{source}: ")
+    return block
+
+
+def _numeric_series(s) -> bool:
+    import pandas as pd
+
+    return (pd.api.types.is_numeric_dtype(s) and not pd.api.types.is_complex_dtype(s)) or \
+        pd.api.types.is_bool_dtype(s) or bool(s.isna().all())
 
 
 def open_rows(data, target=None, *, features=None, sep=None,
@@ -341,9 +368,9 @@ def open_rows(data, target=None, *, features=None, sep=None,
         if path.is_dir() or path.suffix.lower() in _PARQUET_SUFFIXES:
             return ParquetRows(path, target, features=features, chunk_rows=chunk_rows)
         if path.suffix.lower() == ".npy":
-            if not path.exists():
-                raise InputError(f"{path}: no such file; check the path")
-            arr = np.load(path, mmap_mode="r")
+            from paths.data.tables import open_npy
+
+            arr = open_npy(path)
             if y is None:
                 if arr.ndim != 2 or arr.shape[1] < 2:
                     raise InputError(f"{path}: expected a 2-D array with the target as its last "
@@ -393,6 +420,14 @@ class ArrayColumns(ColumnSource):
         super().__init__(feature_names=names, n_rows=int(X.shape[0]), source=source,
                          block_columns=int(block_columns))
         self._X = X
+
+    def read_columns(self, names) -> np.ndarray:
+        """The named columns of every row, as float64 (n, len(names))."""
+        pos = [self.feature_names.index(c) for c in names]
+        block = self._X[:, pos]
+        if hasattr(block, "compute"):
+            block = block.compute()
+        return np.array(block, dtype=np.float64)
 
     def __iter__(self):
         p = self._X.shape[1]
@@ -476,10 +511,9 @@ def open_columns(data, *, features=None, exclude=(), block_columns: int = DEFAUL
             return ParquetColumns(path, features=features, exclude=exclude,
                                   block_columns=block_columns)
         if path.suffix.lower() == ".npy":
-            if not path.exists():
-                raise InputError(f"{path}: no such file; check the path")
-            return ArrayColumns(np.load(path, mmap_mode="r"), block_columns=block_columns,
-                                source=str(path))
+            from paths.data.tables import open_npy
+
+            return ArrayColumns(open_npy(path), block_columns=block_columns, source=str(path))
         raise InputError(f"{path}: wide data must be Parquet or .npy (columns are read in "
                          "blocks); convert the file, e.g. with pandas.DataFrame.to_parquet")
     cols = getattr(data, "columns", None)
@@ -489,3 +523,258 @@ def open_columns(data, *, features=None, exclude=(), block_columns: int = DEFAUL
     if not hasattr(data, "ndim"):
         data = np.asarray(data, dtype=np.float64)
     return ArrayColumns(data, block_columns=block_columns, feature_names=feature_names)
+
+
+# --------------------------------------------------------------------------- row subsets, groups
+def count_rows(src: RowSource, progress=None) -> int:
+    """Rows of a source: from its metadata, or by one reading pass (CSV)."""
+    if src.n_rows is not None:
+        return int(src.n_rows)
+    n = 0
+    for start, block in src:
+        n = start + block.shape[0]
+        if progress:
+            progress("pass 0: counting rows (for --holdout)", n, None)
+    return n
+
+
+class HoldoutRows(RowSource):
+    """The training (``test=False``) or test rows of a source under the seeded holdout split.
+
+    The split is :func:`paths.data.folds.holdout_mask` of the row index, so it
+    is the in-memory engine's split whatever the chunk size; ``start`` counts
+    the kept rows only.
+    """
+
+    def __init__(self, src: RowSource, n_all: int, fraction: float, seed: int, *, test: bool):
+        from paths.data.folds import holdout_count
+
+        n_test = holdout_count(n_all, fraction)
+        super().__init__(columns=list(src.columns), n_features=src.n_features,
+                         n_rows=n_test if test else n_all - n_test,
+                         source=f"{src.source} ({'held-out' if test else 'training'} rows)",
+                         chunk_rows=src.chunk_rows, nbytes_per_row=src.nbytes_per_row)
+        self._src, self._n_all, self._fraction, self._seed, self._test = (
+            src, n_all, fraction, seed, test)
+
+    def keep(self, start: int, rows: int) -> np.ndarray:
+        """Which of the rows ``start .. start + rows - 1`` of the whole source are kept."""
+        from paths.data.folds import holdout_mask
+
+        held = holdout_mask(np.arange(start, start + rows), self._n_all, self._fraction,
+                            seed=self._seed)
+        return held if self._test else ~held
+
+    def __iter__(self):
+        out = 0
+        for start, block in self._src:
+            sel = self.keep(start, block.shape[0])
+            if sel.any():
+                kept = block[sel]
+                yield out, kept
+                out += kept.shape[0]
+
+
+class GroupValues:
+    """Group labels per row, read in pieces alongside a row source (grouped folds).
+
+    ``groups`` is an array (one label per row) or the name of a column of the
+    source's CSV/Parquet file.  :meth:`counts` makes one pass over the labels
+    (rows per group, groups in sorted label order, as :func:`numpy.unique`);
+    :meth:`codes` then gives each row its group's position in that order.
+    """
+
+    def __init__(self, groups, src: RowSource, *, sep=None, keep=None):
+        self._groups, self._src, self._sep, self._keep = groups, src, sep, keep
+        self._index = None
+        if isinstance(groups, str):
+            if not isinstance(src, (CSVRows, ParquetRows)):
+                raise InputError(f"--groups {groups!r} names a column; the data ({src.source}) "
+                                 "have none: pass the group labels as an array")
+            names = _file_columns(src)
+            if groups not in names:
+                shown = ", ".join(map(str, names[:8])) + (" ..." if len(names) > 8 else "")
+                raise InputError(f"{src.source}: --groups column {groups!r} not found; columns "
+                                 f"are: {shown}")
+        else:
+            g = np.asarray(groups)
+            if g.ndim != 1 or (src.n_rows is not None and g.shape[0] != src.n_rows):
+                raise InputError(f"groups has shape {g.shape} but there are {src.n_rows} rows; "
+                                 "pass one group label per row")
+
+    def subset(self, rows: "HoldoutRows") -> "GroupValues":
+        """The labels of the rows a :class:`HoldoutRows` keeps."""
+        return GroupValues(self._groups, self._src, sep=self._sep, keep=rows.keep)
+
+    def _raw(self):
+        """``(start, labels)`` pieces over the whole source, in row order."""
+        if not isinstance(self._groups, str):
+            g = np.asarray(self._groups)
+            step = self._src.chunk_rows
+            for s in range(0, g.shape[0], step):
+                yield s, g[s:s + step]
+            return
+        import pandas as pd
+
+        if isinstance(self._src, CSVRows):
+            reader = pd.read_csv(self._src._path, sep=self._src._sep, usecols=[self._groups],
+                                 chunksize=self._src.chunk_rows)
+            start = 0
+            with reader:
+                for frame in reader:
+                    yield start, frame[self._groups].to_numpy()
+                    start += frame.shape[0]
+            return
+        import pyarrow.parquet as pq
+
+        start = 0
+        for f in self._src._files:
+            pf = pq.ParquetFile(f, pre_buffer=False)
+            for g in range(pf.num_row_groups):
+                col = pf.read_row_group(g, columns=[self._groups]).column(0)
+                vals = col.to_pandas().to_numpy()
+                yield start, vals
+                start += vals.shape[0]
+
+    def _pieces(self):
+        out = 0
+        for start, vals in self._raw():
+            if pd_isna(vals).any():
+                i = int(np.flatnonzero(pd_isna(vals))[0])
+                raise InputError(f"{self._src.source}: --groups column has a missing value at "
+                                 f"data row {start + i + 1}; give every row a group")
+            if self._keep is not None:
+                vals = vals[self._keep(start, vals.shape[0])]
+            yield out, vals
+            out += vals.shape[0]
+
+    def counts(self, progress=None) -> np.ndarray:
+        """Rows per group, groups in sorted label order (one pass over the labels)."""
+        tally: dict = {}
+        for start, vals in self._pieces():
+            keys, cnt = np.unique(vals, return_counts=True) if vals.dtype != object else \
+                _unique_objects(vals)
+            for k, c in zip(keys.tolist(), cnt.tolist()):
+                tally[k] = tally.get(k, 0) + c
+            if progress:
+                progress("group labels: counting rows per group", start + vals.shape[0], None)
+        keys = list(tally)
+        try:
+            order = sorted(keys)
+        except TypeError:  # mixed types: compare as text, as numpy.unique does after astype(str)
+            order = sorted(keys, key=str)
+        self._index = {k: i for i, k in enumerate(order)}
+        return np.array([tally[k] for k in order], dtype=np.int64)
+
+    def codes(self) -> "_Aligned":
+        """Group codes of the rows, taken in row order (after :meth:`counts`)."""
+        if self._index is None:
+            self.counts()
+        index = self._index
+
+        def coded():
+            for start, vals in self._pieces():
+                yield start, np.fromiter((index[v] for v in vals.tolist()), dtype=np.intp,
+                                         count=vals.shape[0])
+        return _Aligned(coded())
+
+
+def _unique_objects(vals):
+    import pandas as pd
+
+    vc = pd.Series(vals).value_counts(sort=False)
+    return np.asarray(vc.index.tolist(), dtype=object), vc.to_numpy()
+
+
+def pd_isna(vals) -> np.ndarray:
+    import pandas as pd
+
+    return np.asarray(pd.isna(vals), dtype=bool).reshape(-1)
+
+
+def _file_columns(src) -> list:
+    import pandas as pd
+
+    if isinstance(src, CSVRows):
+        return [str(c) for c in pd.read_csv(src._path, sep=src._sep, nrows=0).columns]
+    return list(src._schema.names)
+
+
+class _Aligned:
+    """Take consecutive runs of values from a stream of ``(start, values)`` pieces."""
+
+    def __init__(self, pieces):
+        self._pieces, self._buf, self._at = iter(pieces), np.empty(0, dtype=np.intp), 0
+
+    def take(self, start: int, rows: int) -> np.ndarray:
+        if start != self._at:
+            raise InputError(f"group labels out of step with the rows (row {start}, labels at "
+                             f"{self._at}); do not modify the input while it is read")
+        while self._buf.shape[0] < rows:
+            try:
+                _, vals = next(self._pieces)
+            except StopIteration:
+                raise InputError("the group column has fewer values than the data have rows; "
+                                 "give every row a group") from None
+            self._buf = np.concatenate([self._buf, vals])
+        out, self._buf = self._buf[:rows], self._buf[rows:]
+        self._at += rows
+        return out
+
+
+class CSVColumns(ArrayColumns):
+    """Column blocks of a wide CSV/TSV file, read once by rows with :class:`CSVRows`.
+
+    The rows are parsed in chunks under the streaming reader's rules and the
+    feature columns written to a temporary memory-mapped float64 file (n × p on
+    disk, deleted with this object); column blocks are then read from it.  The
+    target columns are kept in memory (``targets``, shape (n, t)).
+    """
+
+    def __init__(self, path, target, *, features=None, sep=None,
+                 block_columns: int = DEFAULT_BLOCK_COLUMNS, progress=None):
+        import tempfile
+        import weakref
+
+        rows = CSVRows(path, target, features=features, sep=sep)
+        rows.chunk_rows = max(1, (32 << 20) // (8 * len(rows.columns)))  # ~32 MiB a chunk
+        p = rows.n_features
+        tmp = tempfile.TemporaryDirectory(prefix="paths-wide-")
+        raw = Path(tmp.name) / "design.f64"
+        targets, n = [], 0
+        with open(raw, "wb") as fh:
+            for start, block in rows:
+                np.ascontiguousarray(block[:, :p]).tofile(fh)
+                targets.append(block[:, p:].copy())
+                n = start + block.shape[0]
+                if progress:
+                    progress("pass 0: CSV rows to a memory-mapped column store", n, None)
+        if n == 0:
+            tmp.cleanup()
+            raise InputError(f"{path} has a header row but no data rows; add data rows")
+        X = np.memmap(raw, dtype=np.float64, mode="r", shape=(n, p))
+        super().__init__(X, block_columns=block_columns, feature_names=rows.feature_names,
+                         source=str(path))
+        self.targets = np.vstack(targets)
+        self.target_names = rows.target_names
+        self._tmp = tmp
+        weakref.finalize(self, tmp.cleanup)
+
+
+
+class RowSubsetColumns(ColumnSource):
+    """The rows ``rows`` (a boolean mask) of every column block of another column source
+    (the training or the held-out rows of a wide file)."""
+
+    def __init__(self, src: ColumnSource, rows: np.ndarray):
+        rows = np.asarray(rows, dtype=bool)
+        super().__init__(feature_names=list(src.feature_names), n_rows=int(rows.sum()),
+                         source=src.source, block_columns=src.block_columns)
+        self._src, self._rows = src, rows
+
+    def read_columns(self, names) -> np.ndarray:
+        return self._src.read_columns(names)[self._rows]
+
+    def __iter__(self):
+        for s, block in self._src:
+            yield s, block[self._rows]

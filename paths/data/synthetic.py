@@ -119,19 +119,14 @@ def make_panel(n_samples: int = 120, n_features: int = 100, *, n_factors: int = 
 
 
 def split_holdout(n: int, fraction: float, seed: int = 0) -> tuple[np.ndarray, np.ndarray]:
-    """Random train/test row indices with ``round(fraction * n)`` test rows (at least 1 each)."""
-    from paths.data.validation import InputError
+    """Random train/test row indices with ``round(fraction * n)`` test rows (at least 1 each).
 
-    if not 0.0 < fraction < 1.0:
-        raise InputError(f"--holdout must lie strictly between 0 and 1; got {fraction}")
-    n_test = int(round(fraction * n))
-    if n_test < 1 or n - n_test < 2:
-        raise InputError(
-            f"--holdout {fraction} leaves {n_test} test and {n - n_test} training rows of {n}; "
-            "choose a fraction that keeps at least 1 test and 2 training rows"
-        )
-    perm = np.random.default_rng(seed).permutation(n)
-    return np.sort(perm[n_test:]), np.sort(perm[:n_test])
+    The split is :func:`paths.data.folds.holdout_mask`, the one every engine uses.
+    """
+    from paths.data.folds import holdout_mask
+
+    test = holdout_mask(np.arange(n), n, fraction, seed=seed)
+    return np.flatnonzero(~test), np.flatnonzero(test)
 
 
 def check_shape(n, p, what: str) -> None:

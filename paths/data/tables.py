@@ -52,15 +52,22 @@ from paths.data.validation import InputError, check_memory
 __all__ = [
     "Dataset",
     "NA_TOKENS",
+    "TextBlock",
+    "TextLayout",
     "as_frame",
     "is_number_text",
     "number_problem",
     "parse_number",
     "load_dataset",
+    "open_npy",
     "read_table",
+    "read_text_block",
+    "read_text_chunks",
     "select",
     "select_like",
     "sha256_of",
+    "text_blocks",
+    "text_layout",
 ]
 
 #: Cell contents read as a missing value (pandas' defaults, minus nothing, plus nothing).
@@ -268,20 +275,20 @@ def _parse_sep(sep: str) -> str:
     return s
 
 
-def _decode(data: bytes, p: Path) -> str:
+def _decode(data: bytes, p: Path, first_line: int = 1) -> str:
     if data[:2] in (b"\xff\xfe", b"\xfe\xff"):
         raise _fail("", f"{p} is UTF-16 text; re-save it as UTF-8")
     try:
         text = data.decode("utf-8")
     except UnicodeDecodeError as exc:
-        line = data[:exc.start].count(b"\n") + 1
+        line = data[:exc.start].count(b"\n") + first_line
         byte = data[exc.start:exc.start + 1].hex().upper()
         raise _fail("", f"{p} is not UTF-8 text (byte 0x{byte} on line {line}, offset "
                         f"{exc.start}); re-save it as UTF-8") from None
     if text.startswith("\ufeff"):
         text = text[1:]
     if "\x00" in text:
-        line = text[:text.index("\x00")].count("\n") + 1
+        line = text[:text.index("\x00")].count("\n") + first_line
         raise _fail("", f"{p} contains NUL bytes (line {line}); it looks like a binary file, "
                         "not delimited text; pass a CSV/TSV, Parquet or .npy/.npz file")
     return text.replace("\r\n", "\n").replace("\r", "\n")
@@ -384,14 +391,47 @@ def _has_header(head) -> bool:
 _BLANK = re.compile(r"(?m)^[ \t]+$")
 
 
-def _read_text(p: Path, sep: str | None, header: bool | None) -> pd.DataFrame:
-    with open(p, "rb") as fh:
-        data = fh.read()
-    text = _decode(data, p)
-    if not text or text.isspace():
-        raise _fail("", f"{p} is empty; pass a file with a header row and data rows")
+@dataclass(frozen=True)
+class TextLayout:
+    """How a delimited text file is laid out, as the reader's rules decide it.
+
+    Attributes
+    ----------
+    path : Path
+    sep : str
+        The delimiter (given, tab for ``.tsv``/``.tab``, or detected).
+    header : bool
+        Whether the first record is a header (given or detected).
+    names : list of str
+        Column names (from the header, or ``x0, x1, ...``).
+    width : int
+        Fields per record.
+    data_line : int
+        1-based line of the first data record.
+    notes : list of str
+        What the reader detected (delimiter, header, unnamed columns).
+    """
+
+    path: Path
+    sep: str
+    header: bool
+    names: list
+    width: int
+    data_line: int
+    notes: list
+
+
+def _clean_text(text: str) -> str:
     if (text[:1] in (" ", "\t") or "\n " in text or "\n\t" in text) and _BLANK.search(text):
         text = _BLANK.sub("", text)
+    return text
+
+
+def _layout(p: Path, text: str, sep, header) -> tuple[TextLayout, list, list]:
+    """The layout of ``text`` (the whole file, or its first lines), with the records'
+    start lines and field counts (``_scan``)."""
+    if not text or text.isspace():
+        raise _fail("", f"{p} is empty; pass a file with a header row and data rows")
     notes = []
     if sep is None:
         if p.suffix.lower() in (".tsv", ".tab"):
@@ -409,24 +449,7 @@ def _read_text(p: Path, sep: str | None, header: bool | None) -> pd.DataFrame:
         header = _has_header(head)
         if not header:
             notes.append("no header row detected: columns named x0, x1, ...")
-    counts = np.asarray(counts)
     width = int(counts[0])
-    # pandas holds each column as an object (about 4 KiB each) plus the text and the floats
-    check_memory(width * 4096.0 + counts.size * width * 8.0 * 3,
-                 f"{p}: {counts.size} rows x {width} columns read in memory",
-                 "use --engine stream (row chunks; column blocks for wide Parquet) or keep "
-                 "fewer columns")
-    ragged = np.flatnonzero(counts != width)
-    if ragged.size:
-        k = int(ragged[0])
-        what = "the header" if header else f"line {starts[0]}"
-        hint = (" (a ',' inside an unquoted number, e.g. a thousands separator, splits it"
-                " in two: quote it or remove the separators)"
-                if sep == "," and counts[k] > width else "")
-        raise _fail(f"{p}: ", f"line {starts[k]} has {counts[k]} fields but {what} has {width} "
-                              f"({_DELIM_NAMES.get(sep, repr(sep))}-delimited; {ragged.size} "
-                              f"ragged line(s)){hint}; make every row the same length or pass "
-                              "the right --sep")
     if header:
         names = [f.strip() for f in head[0]]
         for j, nm in enumerate(names):
@@ -439,32 +462,226 @@ def _read_text(p: Path, sep: str | None, header: bool | None) -> pd.DataFrame:
                 raise _fail(f"{p}: ", f"column name {nm!r} appears twice in the header "
                                       f"(columns {seen[nm] + 1} and {j + 1}); rename one")
             seen[nm] = j
-        body = starts[1:]
     else:
         names = [f"x{j}" for j in range(width)]
-        body = starts
-    if not body:
-        raise _fail("", f"{p} has a header row but no data rows; add data rows")
+    body = starts[1:] if header else starts
+    layout = TextLayout(path=p, sep=sep, header=bool(header), names=names, width=width,
+                        data_line=int(body[0]) if body else 0, notes=notes)
+    return layout, starts, counts
+
+
+def _check_ragged(layout: TextLayout, starts, counts, first_line: int) -> None:
+    """Refuse records whose field count differs from the header's (lines as in the file)."""
+    counts = np.asarray(counts)
+    ragged = np.flatnonzero(counts != layout.width)
+    if not ragged.size:
+        return
+    k = int(ragged[0])
+    sep, width = layout.sep, layout.width
+    what = "the header" if layout.header else f"line {first_line}"
+    hint = (" (a ',' inside an unquoted number, e.g. a thousands separator, splits it"
+            " in two: quote it or remove the separators)"
+            if sep == "," and counts[k] > width else "")
+    raise _fail(f"{layout.path}: ", f"line {starts[k]} has {counts[k]} fields but {what} has "
+                                    f"{width} ({_DELIM_NAMES.get(sep, repr(sep))}-delimited; "
+                                    f"{ragged.size} ragged line(s)){hint}; make every row the "
+                                    "same length or pass the right --sep")
+
+
+def _parse_records(layout: TextLayout, text, skiprows: int, body) -> pd.DataFrame:
+    """The data records of ``text`` (str, or UTF-8 bytes already checked) as a frame
+    (numbers as numbers, the NA tokens as missing), ``attrs["paths_lines"]`` their lines."""
+    raw = text.encode("utf-8") if isinstance(text, str) else text
     try:
         df = pd.read_csv(
-            _io.BytesIO(text.encode("utf-8")), sep=sep, header=None, encoding="utf-8",
-            skiprows=starts[1] - 1 if header else 0,
-            names=names, na_values=list(NA_TOKENS), keep_default_na=False,
-            skipinitialspace=True, skip_blank_lines=True, engine="c", low_memory=False,
-            quotechar='"', index_col=False, dtype=None,
+            _io.BytesIO(raw), sep=layout.sep, header=None, encoding="utf-8",
+            skiprows=skiprows, names=layout.names, na_values=list(NA_TOKENS),
+            keep_default_na=False, skipinitialspace=True, skip_blank_lines=True, engine="c",
+            low_memory=False, quotechar='"', index_col=False, dtype=None,
         )
     except (pd.errors.ParserError, pd.errors.EmptyDataError, ValueError, csv.Error,
             OverflowError) as exc:
         msg = _one_line(str(exc).strip().splitlines()[-1] if str(exc).strip() else type(exc).__name__)
-        raise _fail(f"{p}: ", f"could not be parsed ({msg}); check the delimiter (--sep) "
-                              "and the quoting") from None
+        raise _fail(f"{layout.path}: ", f"could not be parsed ({msg}); check the delimiter "
+                                        "(--sep) and the quoting") from None
     lines = np.asarray(body, dtype=np.int64)
     if df.shape[0] != lines.size:  # pandas read the quoting differently: positions only
         lines = None
-    df = _numeric_text_columns(df, p, lines)
+    df = _numeric_text_columns(df, layout.path, lines)
     df.attrs["paths_lines"] = lines
-    df.attrs["paths_notes"] = notes
     return df
+
+
+def _read_text(p: Path, sep: str | None, header: bool | None) -> pd.DataFrame:
+    with open(p, "rb") as fh:
+        data = fh.read()
+    text = _clean_text(_decode(data, p))
+    layout, starts, counts = _layout(p, text, sep, header)
+    width = layout.width
+    # pandas holds each column as an object (about 4 KiB each) plus the text and the floats
+    check_memory(width * 4096.0 + len(counts) * width * 8.0 * 3,
+                 f"{p}: {len(counts)} rows x {width} columns read in memory",
+                 "use --engine stream (row chunks; column blocks for wide Parquet) or keep "
+                 "fewer columns")
+    _check_ragged(layout, starts, counts, starts[0])
+    body = starts[1:] if layout.header else starts
+    if not body:
+        raise _fail("", f"{p} has a header row but no data rows; add data rows")
+    df = _parse_records(layout, text, starts[1] - 1 if layout.header else 0, body)
+    df.attrs["paths_notes"] = list(layout.notes)
+    return df
+
+
+_HEAD_BYTES = 1 << 20  # the delimiter and the header are decided on the first MiB (2000 lines)
+
+
+def text_layout(path, *, sep: str | None = None, header: bool | None = None) -> TextLayout:
+    """The layout of a delimited text file, decided on its first lines as :func:`read_table` does.
+
+    Raises
+    ------
+    InputError
+        A missing file, empty file, a header without data rows, non-UTF-8 bytes,
+        duplicate column names, a bad ``sep``.
+    """
+    p = Path(path)
+    _check_path(p)
+    with open(p, "rb") as fh:
+        data = fh.read(_HEAD_BYTES)
+        if len(data) == _HEAD_BYTES:  # complete the last line
+            data += fh.readline()
+    text = _clean_text(_decode(data, p))
+    if text and not text.isspace():
+        text = "\n".join(text.split("\n", 2000)[:2000])
+    layout, starts, counts = _layout(p, text, sep, header)
+    if not layout.data_line:
+        raise _fail("", f"{p} has a header row but no data rows; add data rows")
+    return layout
+
+
+@dataclass(frozen=True)
+class TextBlock:
+    """A run of whole records of a text file: ``length`` bytes from ``offset``, starting on
+    line ``first_line``, holding ``records`` data records."""
+
+    offset: int
+    length: int
+    first_line: int
+    records: int
+
+
+def text_blocks(layout: TextLayout, block_bytes: int = 64 << 20) -> list:
+    """Split the data records of a text file into blocks of about ``block_bytes`` bytes,
+    each ending on a record boundary (never inside a quoted field), for parallel reading
+    with :func:`read_text_block`."""
+    out = []
+    with open(layout.path, "rb") as fh:
+        for _ in range(layout.data_line - 1):
+            fh.readline()
+        start, first, line, records, odd = fh.tell(), layout.data_line, layout.data_line, 0, False
+        for raw in fh:
+            odd ^= bool(raw.count(b'"') % 2)
+            line += 1
+            if not odd and raw.strip(b" \t\r\n"):
+                records += 1
+            if not odd and fh.tell() - start >= block_bytes:
+                out.append(TextBlock(start, fh.tell() - start, first, records))
+                start, first, records = fh.tell(), line, 0
+        if fh.tell() > start:
+            out.append(TextBlock(start, fh.tell() - start, first, records))
+    return out
+
+
+def read_text_block(layout: TextLayout, block: TextBlock) -> pd.DataFrame:
+    """The records of one :class:`TextBlock`, under the rules of :func:`read_text_chunks`."""
+    with open(layout.path, "rb") as fh:
+        fh.seek(block.offset)
+        buf = fh.read(block.length)
+    return _records_of(layout, buf, block.first_line)
+
+
+_WS = np.zeros(256, dtype=bool)
+_WS[[9, 13, 32]] = True  # tab, carriage return, space
+
+
+def _scan_bytes(buf: bytes, sep: str):
+    """``_scan`` for UTF-8 bytes without quotes or carriage returns, vectorized: start
+    lines (1-based) and field counts of the non-blank lines; None when a line holds only
+    spaces or tabs (the text route then cleans it as the whole-file reader does)."""
+    a = np.frombuffer(buf, dtype=np.uint8)
+    if not a.size:
+        return [], []
+    nl = np.flatnonzero(a == 10)
+    ends = nl if a[-1] == 10 else np.append(nl, a.size)
+    begins = np.concatenate([[0], ends[:-1] + 1])
+    filled = np.flatnonzero(ends > begins)
+    if not filled.size:
+        return [], []
+    for i in filled[_WS[a[begins[filled]]]]:  # lines that start blank: whitespace only?
+        if not buf[begins[i]:ends[i]].strip(b" \t"):
+            return None
+    sp = np.flatnonzero(a == ord(sep))
+    counts = np.searchsorted(sp, ends[filled]) - np.searchsorted(sp, begins[filled]) + 1
+    return (filled + 1).tolist(), counts.tolist()
+
+
+def _records_of(layout: TextLayout, buf: bytes, line: int):
+    p = layout.path
+    fast = None
+    if b'"' not in buf and b"\x00" not in buf and b"\r" not in buf and \
+            not buf.startswith(b"\xef\xbb\xbf"):  # else the text route (quotes, NUL, CR, BOM)
+        fast = _scan_bytes(buf, layout.sep)
+    if fast is not None:
+        try:
+            buf.decode("utf-8")
+        except UnicodeDecodeError:
+            _decode(buf, p, first_line=line)  # raises with the line
+        (starts, counts), text = fast, buf
+    else:
+        text = _clean_text(_decode(buf, p, first_line=line))
+        try:
+            starts, counts, _ = _scan(text, layout.sep)
+        except InputError as exc:
+            raise _fail(f"{p}: ", f"{exc}; check the quoting") from None
+    starts = [line + s - 1 for s in starts]
+    if not starts:
+        return None
+    _check_ragged(layout, starts, counts, layout.data_line - int(layout.header))
+    return _parse_records(layout, text, 0, starts)
+
+
+def read_text_chunks(layout: TextLayout, chunk_rows: int):
+    """The data records of a text file, ``chunk_rows`` lines at a time, under the rules of
+    :func:`read_table`: every record as wide as the header, the NA tokens, numbers with
+    thousands separators or decimal commas named, UTF-8 only.
+
+    Yields
+    ------
+    DataFrame
+        Columns ``layout.names``; ``attrs["paths_lines"]`` holds the file line of each row.
+    """
+    import itertools
+
+    p = layout.path
+    with open(p, "rb") as fh:
+        for _ in range(layout.data_line - 1):
+            fh.readline()
+        line = layout.data_line
+        while True:
+            lines = list(itertools.islice(fh, chunk_rows))
+            if not lines:
+                return
+            buf = b"".join(lines)
+            while b'"' in buf and buf.count(b'"') % 2:  # a quoted field runs on
+                more = fh.readline()
+                if not more:
+                    break
+                lines.append(more)
+                buf += more
+            frame = _records_of(layout, buf, line)
+            if frame is not None:
+                yield frame
+            line += len(lines)
 
 
 def _as_floats(values: list):
@@ -597,6 +814,36 @@ def _frame_from_arrays(arrays: dict, p, default_prefix: str) -> pd.DataFrame:
     return df
 
 
+def _numpy_error(p: Path, exc: BaseException) -> InputError:
+    msg = _one_line(str(exc)) or type(exc).__name__
+    return _fail("", f"{p} is not a readable NumPy file ({msg[:160]}); save it with "
+                     "numpy.save / numpy.savez, without object arrays")
+
+
+def open_npy(path) -> np.ndarray:
+    """A ``.npy`` file memory-mapped read-only, under the reader's rules: never unpickled,
+    a truncated or object array refused, complex numbers refused (one line each).
+
+    Raises
+    ------
+    InputError
+        A missing or unreadable file, object/pickled or truncated data, complex values.
+    """
+    p = Path(path)
+    _check_path(p)
+    try:
+        arr = np.load(p, mmap_mode="r", allow_pickle=False)
+    except (ValueError, OSError, EOFError) as exc:
+        raise _numpy_error(p, exc) from None
+    if arr.dtype.kind == "c":
+        raise _fail(f"{p}: ", "the array holds complex numbers; split them into real and "
+                              "imaginary columns")
+    if arr.dtype.kind not in "biuf":
+        raise _fail(f"{p}: ", f"the array has dtype {arr.dtype} (not numbers); save a numeric "
+                              "2-D array (or read structured arrays with --engine memory)")
+    return arr
+
+
 def _read_numpy(p: Path) -> pd.DataFrame:
     try:
         if p.suffix.lower() == ".npy":
@@ -607,9 +854,7 @@ def _read_numpy(p: Path) -> pd.DataFrame:
     except InputError:
         raise
     except (ValueError, OSError, EOFError, zipfile.BadZipFile, KeyError) as exc:
-        msg = _one_line(str(exc)) or type(exc).__name__
-        raise _fail("", f"{p} is not a readable NumPy file ({msg[:160]}); save it with "
-                        "numpy.save / numpy.savez, without object arrays") from None
+        raise _numpy_error(p, exc) from None
     return _frame_from_arrays(arrays, p, "x")
 
 

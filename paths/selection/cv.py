@@ -59,6 +59,7 @@ from paths.data.validation import InputError, as_design, as_lambdas, as_response
 from paths.core import algebra
 from paths.core.design import prepare
 from paths.core.factor import factorize
+from paths.data.folds import SCHEMES, fold_labels, group_folds
 
 __all__ = [
     "SCHEMES",
@@ -73,7 +74,6 @@ __all__ = [
     "measure_cost_model",
 ]
 
-SCHEMES = ("shuffled", "blocked", "grouped")
 SCALINGS = ("global", "per-fold")
 METHODS = ("auto", "exact", "refit")
 _CHUNK_ELEMS = 1 << 22  # largest (k_chunk, b, b) block held at once (32 MiB of float64)
@@ -100,9 +100,9 @@ def make_folds(n_samples: int, n_folds: int = 10, *, scheme: str = "shuffled", s
     groups : array_like, shape (n_samples,), optional
         Group labels; required for (and implying) ``"grouped"``.
     repeat : int
-        Index of the repetition: repetition ``i`` uses the ``i``-th partition drawn
-        from the generator seeded with ``seed`` (repetition 0 is the plain
-        seeded partition).
+        Index of the repetition: repetition ``i`` uses the permutation keyed by
+        ``(seed, i)`` (:mod:`paths.data.folds`, the one assignment for every
+        engine; repetition 0 is the plain seeded partition).
     fit_intercept : bool
         Each training set must keep at least 2 rows to fit an intercept.
 
@@ -141,16 +141,8 @@ def make_folds(n_samples: int, n_folds: int = 10, *, scheme: str = "shuffled", s
             raise InputError(
                 f"fewer rows ({n_samples}) than folds ({K}); choose 2 to {n_samples} folds"
             )
-        if scheme == "blocked":
-            order = np.arange(n_samples)
-        else:
-            rng = np.random.default_rng(seed)
-            for _ in range(repeat):
-                rng.permutation(n_samples)
-            order = rng.permutation(n_samples)
-        labels = np.empty(n_samples, dtype=np.intp)
-        for f, chunk in enumerate(np.array_split(order, K)):
-            labels[chunk] = f
+        labels = fold_labels(np.arange(n_samples), n_samples, K, scheme=scheme, seed=seed,
+                             repeat=repeat)
     sizes = np.bincount(labels, minlength=K)
     need = 2 if fit_intercept else 1
     if n_samples - sizes.max() < need and groups is not None:
@@ -176,26 +168,7 @@ def _grouped(n, K, groups, seed, repeat):
         _, inv, counts = np.unique(g, return_inverse=True, return_counts=True)
     except TypeError:
         _, inv, counts = np.unique(g.astype(str), return_inverse=True, return_counts=True)
-    G = counts.size
-    if G < 2:
-        raise InputError(
-            "the group column has a single group; grouped folds need at least 2 groups "
-            "(and at least as many groups as folds)"
-        )
-    if G < K:
-        raise InputError(f"{G} groups but {K} folds requested; choose 2 to {G} folds")
-    rng = np.random.default_rng(seed)
-    for _ in range(repeat):
-        rng.permutation(G)
-    perm = rng.permutation(G)
-    order = perm[np.argsort(-counts[perm], kind="stable")]  # largest first, random ties
-    fold_of = np.empty(G, dtype=np.intp)
-    load = np.zeros(K, dtype=np.int64)
-    for grp in order:
-        f = int(np.argmin(load))
-        fold_of[grp] = f
-        load[f] += counts[grp]
-    return fold_of[inv.ravel()]
+    return group_folds(counts, K, seed=seed, repeat=repeat)[inv.ravel()]
 
 
 # ---------------------------------------------------------------------- cost model
