@@ -138,7 +138,7 @@ def test_kfold_against_sklearn_refits(cv_seed):
     """K-fold CV from the hat diagonals (Woodbury form of (I - H_ff)^-1 e_f,
     Liland, Skogholt & Indahl 2024) equals scikit-learn ``Ridge`` refitted on
     each training part with the scaling of all rows fixed (the documented
-    convention): blocked and hashed-shuffle folds, 1e-8 relative."""
+    convention): blocked and seeded-shuffle folds, 1e-8 relative."""
     X, y = problem(n=300, p=6, seed=4)
     lams = np.array([100.0, 3.0, 0.0])
     res = stream_path(X, lams, y=y, chunk_rows=41, cv=5, cv_seed=cv_seed)

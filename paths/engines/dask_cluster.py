@@ -472,7 +472,7 @@ def dask_path(
             if cv:
                 cvres = hp.kfold()
                 notes.append(f"{cv}-fold CV with preprocessing from all rows; "
-                             + (f"hashed shuffle, seed {cv_seed}" if cv_seed is not None
+                             + (f"seeded shuffle (the in-memory engine's folds), seed {cv_seed}" if cv_seed is not None
                                 else "contiguous blocks of rows"))
         test_res = None
         if test is not None:

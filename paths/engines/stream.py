@@ -33,6 +33,7 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.linalg as sla
 
+from paths.data.folds import fold_labels
 from paths.data.validation import InputError, as_lambdas
 from paths.data.chunks import DEFAULT_CHUNK_ROWS, RowSource, open_rows
 from paths.core.design import Design
@@ -363,17 +364,13 @@ class HatPass:
         return z @ self.proj, yc
 
     def fold_of(self, start: int, rows: int) -> np.ndarray:
-        """Fold labels of rows ``start .. start+rows-1``: blocked (contiguous) or hashed shuffle."""
-        idx = np.arange(start, start + rows, dtype=np.uint64)
+        """Fold labels of rows ``start .. start+rows-1``: contiguous blocks (no seed) or the
+        seeded shuffle — :func:`paths.data.folds.fold_labels`, the assignment every engine
+        (the in-memory one included) uses, independent of the chunk size."""
         n = self.fit.design.n_samples
-        if self.fold_seed is None:
-            return (idx * np.uint64(self.n_folds) // np.uint64(n)).astype(np.int64)
-        # splitmix64 of (index + seed): a seeded shuffle independent of the chunk size
-        x = idx + np.uint64((0x9E3779B97F4A7C15 * (int(self.fold_seed) + 1)) % 2**64)
-        x = (x ^ (x >> np.uint64(30))) * np.uint64(0xBF58476D1CE4E5B9)
-        x = (x ^ (x >> np.uint64(27))) * np.uint64(0x94D049BB133111EB)
-        x = x ^ (x >> np.uint64(31))
-        return (x % np.uint64(self.n_folds)).astype(np.int64)
+        scheme = "blocked" if self.fold_seed is None else "shuffled"
+        return fold_labels(np.arange(start, start + rows), n, self.n_folds, scheme=scheme,
+                           seed=0 if self.fold_seed is None else int(self.fold_seed))
 
     def add(self, start: int, block: np.ndarray, p: int) -> None:
         # sub-blocks keep the (rows x k) temporaries small whatever the chunk size
@@ -665,7 +662,7 @@ def stream_path(
         ``False`` the result's ``loo_mse`` is None.
     cv : int, optional
         Also exact K-fold CV with ``cv`` folds in the second pass (fixed
-        preprocessing): contiguous blocks of rows, or a seeded hashed shuffle
+        preprocessing): contiguous blocks of rows, or the seeded shuffle
         with ``cv_seed``.
     rank : int, optional
         Keep only the top ``rank`` principal components (exact truncation of
@@ -775,7 +772,7 @@ def stream_path(
         if cv:
             cvres = hp.kfold()
             notes.append(f"{cv}-fold CV with preprocessing (centering, scaling) from all rows; "
-                         + ("hashed shuffle, seed " + str(cv_seed) if cv_seed is not None
+                         + ("seeded shuffle (the in-memory engine's folds), seed " + str(cv_seed) if cv_seed is not None
                             else "contiguous blocks of rows"))
     else:
         notes.append("leave-one-out skipped (loo=False): no second pass")

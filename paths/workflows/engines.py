@@ -186,7 +186,7 @@ def _engine_record(result, cv_seed) -> tuple:
     if result.cv_mse is None:
         return None, None
     record = {"n_folds": result.n_folds, "repeats": 1,
-              "scheme": "blocked" if cv_seed is None else "shuffled-hash",
+              "scheme": "blocked" if cv_seed is None else "shuffled",
               "seed": cv_seed, "scaling": "global", "method": "hat-diagonal blocks",
               "form": "woodbury", "mse": np.asarray(result.cv_mse).tolist(),
               "se": np.asarray(result.cv_se).tolist()}
