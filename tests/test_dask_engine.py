@@ -208,20 +208,21 @@ def test_cli_dask_engine_through_cluster(cluster, tmp_path):
 
 
 def test_csv_later_block_non_numeric_is_input_error(tmp_path, monkeypatch):
-    """dask.dataframe infers CSV dtypes from the first block; a text value in a
-    later block is reported as one-line InputError pointing to the stream
-    engine for the row range (issue 7), not an internal error."""
-    import dask.dataframe as dd
+    """A CSV file is split into byte blocks read in parallel under the in-memory
+    reader's rules (paths.data.tables.text_blocks); a text value in a later block
+    is one line naming the column, the value and its file line (issue 7), not an
+    internal error."""
+    import paths.data.tables as tables
 
-    from paths.engines.dask_cluster import as_dask_design
+    from paths.engines.dask_cluster import dask_path
 
     f = tmp_path / "d.csv"
     lines = ["a,y"] + [f"{i},{i % 7}" for i in range(20000)]
     lines[15000] = "zz,1"
     f.write_text("\n".join(lines) + "\n")
-    orig = dd.read_csv
-    monkeypatch.setattr(dd, "read_csv", lambda *a, **k: orig(*a, blocksize=50_000, **k))
-    assert dd.read_csv(str(f)).npartitions > 1  # several blocks
-    with pytest.raises(InputError, match="non-numeric") as ei:
-        as_dask_design(str(f), target="y")
+    orig = tables.text_blocks
+    monkeypatch.setattr(tables, "text_blocks", lambda layout: orig(layout, block_bytes=50_000))
+    assert len(tables.text_blocks(tables.text_layout(f))) > 1  # several blocks
+    with pytest.raises(InputError, match="non-numeric value 'zz' on line 15001") as ei:
+        dask_path(str(f), target="y", lambdas=[1.0])
     assert "\n" not in str(ei.value)

@@ -59,7 +59,7 @@ def test_stream_reader_refuses_what_memory_refuses(tmp_path, name):
     assert str(eng.value) == str(mem.value)  # the text rules themselves: word for word
 
 
-@pytest.mark.parametrize("engine", ["stream"])
+@pytest.mark.parametrize("engine", ["stream", "dask"])
 @pytest.mark.parametrize("name", ["extra-field", "duplicate-name", "header-only", "underscore"])
 def test_cli_engines_exit_2_on_bad_csv(tmp_path, engine, name):
     """Through the command line: exit 2, one line, no traceback, for both engines."""
@@ -168,3 +168,16 @@ def test_chunked_text_equals_whole_file_reader(tmp_path, variant):
     assert_allclose(got, whole[["a", "b", "y"]].to_numpy(dtype=float), rtol=0, atol=0)
     lines_got = np.concatenate([p.attrs["paths_lines"] for p in parts])
     assert lines_got.tolist() == list(whole.attrs["paths_lines"])
+
+
+def test_subnormal_column_refused_not_dropped():
+    """A feature whose values are all below sqrt(tiny) ≈ 1.5e-154 has squares in the
+    subnormal range (IEEE 754: float64's smallest normal number is 2.2e-308), so its
+    spread cannot be computed from moments; it was dropped as 'constant' without a word.
+    Now it is refused in one line naming the column."""
+    rng = np.random.default_rng(0)
+    X = rng.standard_normal((200, 3))
+    X[:, 1] *= 1e-310
+    y = X[:, 0] + rng.standard_normal(200)
+    with pytest.raises(InputError, match="'x1' has values no larger than"):
+        stream_path(X, y=y, chunk_rows=50)

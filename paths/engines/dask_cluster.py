@@ -216,8 +216,7 @@ def _from_dataframe(path: Path, target, features):
             ParquetRows(path, target, features=features)  # schema checks, one line each
             df = dd.read_parquet(str(path))
         else:
-            sep = "\t" if path.suffix.lower() in (".tsv", ".tab") else ","
-            df = dd.read_csv(str(path), sep=sep)
+            return _from_text(path, target, features)
     except InputError:
         raise
     except Exception as exc:  # noqa: BLE001 - dask/pyarrow raise many types for bad files
@@ -241,6 +240,39 @@ def _from_dataframe(path: Path, target, features):
                          f"({type(exc).__name__}: {msg}); --engine stream reports the row "
                          "range") from None
     return W, feats, targets
+
+
+def _text_block(layout, block, cols, start):
+    from paths.data.chunks import frame_block
+    from paths.data.tables import read_text_block
+
+    frame = read_text_block(layout, block)
+    if frame is None:
+        return np.empty((0, len(cols)))
+    return frame_block(frame, cols, start, layout.path)
+
+
+def _from_text(path: Path, target, features, sep=None):
+    """A CSV/TSV file as row blocks parsed under the in-memory reader's rules
+    (:func:`paths.data.tables.text_blocks`, one dask task per block)."""
+    import dask
+    import dask.array as da
+
+    from paths.data.chunks import CSVRows
+    from paths.data.tables import text_blocks
+
+    rows = CSVRows(path, target, features=features, sep=sep)  # layout, columns: one line each
+    cols = rows.columns
+    parts, start = [], 0
+    for blk in text_blocks(rows.layout):
+        if blk.records:
+            parts.append(da.from_delayed(dask.delayed(_text_block, pure=True)(
+                rows.layout, blk, cols, start), shape=(blk.records, len(cols)),
+                dtype=np.float64))
+            start += blk.records
+    if not parts:
+        raise InputError(f"{path} has a header row but no data rows; add data rows")
+    return da.concatenate(parts, axis=0), rows.feature_names, rows.target_names
 
 
 def _offsets(chunks):

@@ -604,6 +604,25 @@ def path_from_moments(fit: _Fit, lam, *, feature_names, loo, loo0, test=None, cv
 
 
 # --------------------------------------------------------------------------- entry point
+_TINY_ROOT = float(np.sqrt(np.finfo(np.float64).tiny))  # |x| below: x*x is subnormal or 0
+
+
+def check_magnitudes(mom: Moments, names, source: str = "") -> None:
+    """Refuse a column whose values are all so small that their squares underflow.
+
+    Its spread, computed from squares, would be zero or inaccurate, and the
+    column would be dropped as constant without a word; the user rescales it.
+    """
+    small = (mom.absmax > 0) & (mom.absmax < _TINY_ROOT)
+    if small.any():
+        j = int(np.flatnonzero(small)[0])
+        where = f"{source}: " if source else ""
+        raise InputError(f"{where}column {names[j]!r} has values no larger than "
+                         f"{mom.absmax[j]:.3g} in magnitude: their squares fall below the "
+                         "float64 normal range (subnormal), so its spread cannot be computed; "
+                         "rescale the column (e.g. multiply it by 1e200) or leave it out")
+
+
 def stream_path(
     data,
     lambdas=None,
@@ -735,6 +754,7 @@ def stream_path(
         if progress:
             progress(label1, rows, src.n_rows)
     mom = merger.result()
+    check_magnitudes(mom, src.columns, src.source)
     passes.append(PassInfo(label1, mom.n, time.perf_counter() - t0, mom.n * src.nbytes_per_row))
     if fit_intercept and mom.n < 2:
         raise InputError(f"the data have {mom.n} row; at least 2 samples are needed to fit an "
