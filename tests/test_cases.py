@@ -26,7 +26,7 @@ runner = CliRunner()
 DEMO_FILES = ["summary.json", "path.csv", "coefficients.csv", "model.csv", "fit.npz",
               "fig-path.png", "fig-path.pdf", "fig-path.svg", "fig-path.csv",
               "fig-spectrum.png", "fig-spectrum.pdf", "fig-spectrum.svg", "fig-spectrum.csv",
-              "report.md", "report.html"]
+              "report.md", "report.html", "threshold"]
 
 
 def _one_line_error(result, *needles):
@@ -104,6 +104,11 @@ def test_demo_writes_every_promised_file_and_says_where_the_report_is(tmp_path):
     s = json.loads((out / "summary.json").read_text())
     assert s["synthetic"] is True and s["case"] == "calibration"
     assert s["command_line"] == "paths demo"
+    # the second half of the story: a sweep across p = n, with the spike and ridge beside it
+    sweep = json.loads((out / "threshold" / "threshold.json").read_text())
+    assert min(sweep["ratio"]) < 1 < max(sweep["ratio"])
+    assert {"min_norm", "ridge_gcv"} <= set(sweep["methods"])
+    assert (out / "threshold" / "report.html").exists()
     # a second run refuses the existing folder: one line, exit 2
     again = runner.invoke(app, ["demo", "--out", str(out)])
     _one_line_error(again, "exists", "--force")

@@ -46,3 +46,10 @@ def test_runs_top_to_bottom(path, tmp_path):
     # something was shown: text or a figure from the last cell
     last = [c for c in nb.cells if c.cell_type == "code"][-1]
     assert last.outputs, path.name
+    # figures are shown inline as images (Jupyter's image/png output), never as a repr
+    shown = [o for c in nb.cells if c.cell_type == "code" for o in c.outputs]
+    texts = " ".join(str(o.get("data", {}).get("text/plain", "")) + str(o.get("text", ""))
+                     for o in shown)
+    assert "<Figure size" not in texts
+    if any("figure" in c.source for c in nb.cells if c.cell_type == "code"):
+        assert any("image/png" in o.get("data", {}) for o in shown), path.name

@@ -232,10 +232,36 @@ def test_threshold_lines_are_repeat_means_with_se_bands():
     sel = tab["method"] == "min_norm"
     v = np.array([tab["test_mse"][sel][tab["ratio"][sel] == r] for r in np.unique(tab["ratio"])])
     assert_allclose(band.high - band.y, v.std(axis=1, ddof=1) / np.sqrt(2), rtol=1e-12)
-    assert_allclose(art.refs["threshold"].get_xdata()[0], 1.0)
+    # with an intercept least squares interpolates at p' + 1 = n: ratio (n - 1)/n, n = 50
+    assert_allclose(art.refs["threshold"].get_xdata()[0], 49 / 50)
     assert_allclose(art.lines["theory:min_norm"].get_ydata(), theory["min_norm"])
+    assert art.ax.get_xscale() == "linear"  # the sweep stops at 2 n
     assert art.ax.get_yscale() == "log"
     assert to_hex(art.lines["min_norm"].get_color()) == plot.STYLES["min_norm"]["color"].lower()
+
+
+def test_threshold_axis_is_logarithmic_past_four_n_and_reference_theory_is_grey():
+    """A sweep to p' = 8 n gets a log ratio axis (else the threshold is a hairline); theory
+    marked ``applies: false`` is drawn thin, grey and dotted and labelled reference only."""
+    tab = _sweep_table()
+    tab = {k: np.concatenate([v, v]) for k, v in tab.items()}
+    half = tab["ratio"].size // 2
+    tab["ratio"][half:] *= 4.0
+    theory = {"ratio": np.array([0.5, 0.9, 1.2, 8.0]), "min_norm": np.array([2.0, 10, 6, 2.1]),
+              "applies": False}
+    art = plot.plot_threshold(tab, _axes(), theory=theory)
+    assert art.ax.get_xscale() == "log"
+    ln = art.lines["theory:min_norm"]
+    assert to_hex(ln.get_color()) == "#8c8c8c" and ln.get_linewidth() < 0.9
+    assert "reference only" in ln.get_label()
+    applies = plot.plot_threshold(tab, _axes(), theory={**theory, "applies": True})
+    assert to_hex(applies.lines["theory:min_norm"].get_color()) == "#000000"
+
+
+def test_interpolation_ratio_of_a_sweep_over_rows():
+    """Over training rows (p fixed) least squares interpolates at n' = p + 1: ratio p/(p + 1)."""
+    cols = {"over": np.array(["samples"]), "n_features": np.array([30]), "ratio": np.array([1.0])}
+    assert_allclose(plot.interpolation_ratio(cols), 30 / 31)
 
 
 def test_training_law_is_sigma2_times_one_minus_ratio():

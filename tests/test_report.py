@@ -13,6 +13,7 @@ import re
 from html.parser import HTMLParser
 
 import numpy as np
+from numpy.testing import assert_allclose
 import pytest
 
 from paths.workflows.explore import explore_prepared
@@ -128,11 +129,11 @@ class _Text(HTMLParser):
 
     def handle_starttag(self, tag, attrs):
         self.tags.append((tag, dict(attrs)))
-        if tag in ("svg", "style"):
+        if tag in ("svg", "style", "script"):
             self.skip += 1
 
     def handle_endtag(self, tag):
-        if tag in ("svg", "style"):
+        if tag in ("svg", "style", "script"):
             self.skip -= 1
 
     def handle_data(self, data):
@@ -146,12 +147,16 @@ def test_html_report_is_self_contained_and_its_numbers_come_from_summary(run):
     p = _Text()
     p.feed(html)
     tags = [t for t, _ in p.tags]
-    assert "script" not in tags and "link" not in tags and "img" not in tags and "iframe" not in tags
+    assert "link" not in tags and "img" not in tags and "iframe" not in tags
+    assert all("src" not in attrs for t, attrs in p.tags if t == "script")  # inline only
     assert tags.count("svg") >= 2  # both figures inlined
     assert not re.search(r"(src|href)\s*=\s*[\"']https?:", html)
     assert "url(http" not in html
     text = " ".join(p.parts)
-    text = re.sub(r"Figures.*?Methods paragraph", " ", text, flags=re.S)
+    # fixed text: the explorer's labels (its numbers are computed in the browser, checked in
+    # tests/test_report_browser.py) and the figure captions
+    text = re.sub(r"Explore the penalty.*?(?=Cautions)", " ", text, flags=re.S)
+    assert "Explore the penalty" in html and "Methods paragraph" in text
     assert _unaccounted(text, s, fixed=("lambda -> 0+", "SHA-256")) == []
 
 
@@ -183,3 +188,63 @@ def test_explore_writes_figures_and_their_csv(run):
             "report.html", "summary.json", "path.csv", "coefficients.csv"} <= names
     assert not (out / "fig-path.png").exists()  # only the asked-for formats
     np.testing.assert_array_less(0, [f.stat().st_size for f in r.files])
+
+
+def test_format_none_writes_no_figure_files_but_the_report_keeps_its_figures(tmp_path):
+    """``--format none``: no fig-* files; report.html still inlines both figures (SVG)."""
+    data = select(make_calibration(30, 60, seed=1), "analyte", source="synthetic calibration")
+    run = explore_prepared(Prepared(train=data), FitOptions(n_lambdas=20),
+                           FigureOptions(formats=()), OutputOptions(out_dir=tmp_path / "o"))
+    names = {f.name for f in run.files}
+    assert not any(n.startswith("fig-") for n in names)
+    assert {"report.html", "report.md", "model.csv", "summary.json"} <= names
+    assert (tmp_path / "o" / "report.html").read_text().count("<svg") >= 2
+
+
+def test_training_file_given_as_test_is_never_called_held_out(tmp_path):
+    """The training rows reused as the test set: counted (every test row is a training row),
+    warned about in the cautions, and the words 'held-out test rows' never used."""
+    data = select(make_calibration(30, 60, seed=1), "analyte", source="synthetic calibration")
+    run = explore_prepared(Prepared(train=data, test=data), FitOptions(n_lambdas=20),
+                           FigureOptions(formats=()), OutputOptions(out_dir=tmp_path / "o"))
+    s = run.summary
+    assert s["test_shared_rows"] == s["n_test"] == 30
+    assert s["report"]["test_kind"] == "reused"
+    for name in ("report.md", "report.html"):
+        text = (tmp_path / "o" / name).read_text()
+        assert "held-out test rows" not in text
+        assert "NOT held out" in text and "WARNING" in text
+
+
+def test_model_file_is_the_fit_at_the_reported_penalty(tmp_path):
+    """model.csv: intercept first, original scale, equal to scikit-learn's Ridge on the
+    standardized design at the reported lambda (mapped back to the original scale), and to
+    the min-norm fit (numpy lstsq, minimum-norm solution) in its second column."""
+    from sklearn.linear_model import Ridge
+
+    frame = make_calibration(30, 60, seed=1)
+    data = select(frame, "analyte", source="synthetic calibration")
+    run = explore_prepared(Prepared(train=data), FitOptions(n_lambdas=20),
+                           FigureOptions(formats=(), report=False),
+                           OutputOptions(out_dir=tmp_path / "o"))
+    lam = run.summary["report"]["lambda"]
+    with open(tmp_path / "o" / "model.csv") as fh:
+        rows = [line.rstrip("\n").split(",") for line in fh]
+    assert rows[0][0] == "term" and rows[1][0] == "(intercept)"
+    assert rows[0][1] == f"analyte at lambda={lam:.6g}"
+    got = np.array([[float(v) for v in r[1:]] for r in rows[1:]])
+    X, y = data.X, data.y
+    mu, sd = X.mean(axis=0), X.std(axis=0)
+    ref = Ridge(alpha=lam).fit((X - mu) / sd, y)
+    coef = ref.coef_ / sd
+    icpt = ref.intercept_ - mu @ coef
+    # both sides are backward stable; the forward error of a least-squares / ridge solution
+    # is at most ~ kappa^2 eps (Higham 2002, ch. 20): 100 kappa^2 eps, kappa of the
+    # centered, standardized design (numpy's 2-norm condition number)
+    Z = (X - mu) / sd
+    kappa = np.linalg.cond(Z - Z.mean(axis=0))
+    tol = 100 * kappa**2 * np.finfo(float).eps
+    assert_allclose(got[1:, 0], coef, rtol=tol, atol=tol * np.abs(coef).max())
+    assert_allclose(got[0, 0], icpt, rtol=tol, atol=tol * abs(y).max())
+    b0 = np.linalg.lstsq(Z, y - y.mean(), rcond=None)[0] / sd
+    assert_allclose(got[1:, 1], b0, rtol=tol, atol=tol * np.abs(b0).max())

@@ -5,7 +5,9 @@ SVG figures, and renders a screenshot.  Checks: the screenshot is not blank
 (Pillow reads it; a share of non-white pixels and a spread of grey levels), and
 every inlined figure loaded (a probe script, added to a COPY of the report, reads
 each ``svg[data-figure]``'s rendered size and element count into the title,
-which ``--dump-dom`` returns).  The report itself carries no script.
+which ``--dump-dom`` returns).  The explorer section: a URL fragment selects the
+penalty, the page recomputes the model in the browser, and ``--dump-dom`` returns
+the read-outs (each with its full-precision ``data-value``).
 
 Skips, with the reason, only where no chromium can be found (``.ci/run``
 installs it with apt-get before the tests run).
@@ -19,6 +21,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from numpy.testing import assert_allclose
 from PIL import Image
 
 from paths.workflows.explore import explore_prepared
@@ -57,18 +60,24 @@ def _chromium(tmp_path, *args):
 
 
 @pytest.fixture(scope="module")
-def report(tmp_path_factory):
+def explored(tmp_path_factory):
     """A report from a small synthetic calibration run (seeded), figures inlined as SVG."""
     out = tmp_path_factory.mktemp("browser") / "run"
     data = select(make_calibration(36, 150, seed=0), "analyte", source="synthetic calibration")
-    explore_prepared(Prepared(train=data), FitOptions(n_lambdas=30), FigureOptions(formats=("svg",)),
-                     OutputOptions(out_dir=out), holdout=0.25)
-    return out / "report.html"
+    run = explore_prepared(Prepared(train=data), FitOptions(n_lambdas=30),
+                           FigureOptions(formats=("svg",)), OutputOptions(out_dir=out),
+                           holdout=0.25)
+    return run, out / "report.html"
+
+
+@pytest.fixture(scope="module")
+def report(explored):
+    return explored[1]
 
 
 def test_every_figure_loads(report, tmp_path):
     html = report.read_text()
-    assert "<script" not in html  # the report itself is script-free
+    assert not re.search(r"<script[^>]*\ssrc=", html)  # inline scripts only, nothing fetched
     probe = tmp_path / "probe.html"
     probe.write_text(html.replace("</body>", PROBE + "</body>"))
     res = _chromium(tmp_path, "--dump-dom", probe.as_uri())
@@ -93,3 +102,66 @@ def test_screenshot_is_not_blank(report, tmp_path):
         rgb = np.asarray(im.convert("RGB"), dtype=float)
     chroma = rgb.max(axis=2) - rgb.min(axis=2)
     assert np.mean(chroma > 60) > 1e-4
+
+
+# ------------------------------------------------------------------ the explorer
+EXPLORER_FLAGS = ["--virtual-time-budget=8000"]
+
+
+def _dump(tmp_path, url):
+    res = _chromium(tmp_path, "--dump-dom", url)
+    assert "data-explorer=\"ready\"" in res.stdout, (res.returncode, res.stderr[-2000:])
+    return res.stdout
+
+
+def _value(dom, element_id):
+    m = re.search(rf'id="{element_id}"[^>]*data-value="([^"]*)"', dom) or \
+        re.search(rf'data-value="([^"]*)"[^>]*id="{element_id}"', dom)
+    assert m, element_id
+    return float(m.group(1)) if m.group(1) else None
+
+
+def test_fragment_selects_the_penalty_and_the_page_recomputes_the_model(explored, tmp_path):
+    """``#lambda=V``: the browser's read-outs equal the closed forms at V — df = 1 + Σ d²/(d²+λ)
+    (HTF 2009 eq. 3.50, from the record's singular values), training MSE and GCV from
+    RidgePath.criteria_at, the coefficients from RidgePath.coef_at (both checked against
+    scikit-learn's Ridge in tests/test_path.py)."""
+    run, report = explored
+    lam = 0.37  # off the grid
+    dom = _dump(tmp_path, report.as_uri() + f"#lambda={lam}")
+    d = np.asarray(run.summary["singular_values"])
+    crit = run.result.criteria_at(lam)
+    # the page computes in double precision with the same formulas: 1e-9 covers the
+    # different summation order (r terms, condition of the sums ~ 1)
+    assert_allclose(_value(dom, "ix-lambda"), lam, rtol=0)
+    assert_allclose(_value(dom, "ix-df"), 1 + np.sum(d**2 / (d**2 + lam)), rtol=1e-9)
+    assert_allclose(_value(dom, "ix-train"), float(crit.train_mse[0]), rtol=1e-9)
+    assert_allclose(_value(dom, "ix-gcv"), float(crit.gcv[0]), rtol=1e-9)
+    coefs = re.findall(r'<tr><td>([^<]+)</td><td class="num" data-value="([^"]+)"', dom)
+    assert len(coefs) == 12
+    names = list(run.result.feature_names)
+    beta = run.result.coef_at(lam)
+    for name, v in coefs:
+        assert_allclose(float(v), beta[names.index(name)], rtol=1e-9, atol=1e-12 * np.abs(beta).max())
+    # errors the page cannot recompute are the grid's, at the grid penalty nearest lam
+    i = int(np.argmin(np.abs(np.log(run.result.lambdas) - np.log(lam))))
+    assert_allclose(_value(dom, "ix-loo"), run.summary["loo_mse"][i], rtol=0)
+
+
+def test_fragment_rule_shows_that_rules_choice(explored, tmp_path):
+    run, report = explored
+    dom = _dump(tmp_path, report.as_uri() + "#rule=loo")
+    sel = run.summary["selected"]["loo"]
+    assert _value(dom, "ix-lambda") == sel["lambda"]
+    assert_allclose(_value(dom, "ix-df"), sel["df"], rtol=1e-9)
+    assert _value(dom, "ix-test") == sel["at_choice"]["test_mse"]
+    assert "LOO choice" in dom
+
+
+def test_fragment_lambda_zero_is_the_min_norm_fit(explored, tmp_path):
+    run, report = explored
+    dom = _dump(tmp_path, report.as_uri() + "#lambda=0")
+    mn = run.summary["min_norm"]
+    assert_allclose(_value(dom, "ix-df"), mn["df"], rtol=1e-12)
+    assert_allclose(_value(dom, "ix-fraction"), 1.0, rtol=1e-9)
+    assert _value(dom, "ix-test") == mn["test_mse"]

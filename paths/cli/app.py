@@ -18,7 +18,8 @@ import typer.core
 from rich.console import Console
 
 
-__all__ = ["app", "command", "console", "err_console", "main", "load_commands", "as_flags", "flags_of"]
+__all__ = ["app", "command", "console", "err_console", "main", "load_commands", "as_flags", "flags_of",
+           "emit_summary", "stdin_file"]
 
 #: modules of this package that are not commands
 HELPERS = frozenset({"app", "checks", "flags", "progress"})
@@ -64,15 +65,68 @@ app = typer.Typer(
     no_args_is_help=True,
     add_completion=False,
     pretty_exceptions_enable=False,
+    # plain help: option names are never cut at 80 columns (long help text wraps instead)
+    rich_markup_mode=None,
 )
 console = Console(highlight=False)
 err_console = Console(stderr=True, highlight=False)
 _state = {"debug": False}
 
 
+def _version(value: bool) -> None:
+    if value:
+        from paths import __version__
+
+        typer.echo(f"paths {__version__}")
+        raise typer.Exit()
+
+
 @app.callback()
-def _root(debug: bool = typer.Option(False, "--debug", help="Show the traceback on errors.")):
+def _root(
+    debug: bool = typer.Option(False, "--debug", help="Show the traceback on errors."),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help="Print nothing but errors."),
+    json_out: bool = typer.Option(False, "--json", help="Print the run's summary as JSON on "
+                                  "standard output (and nothing else there)."),
+    version: bool = typer.Option(False, "--version", callback=_version, is_eager=True,
+                                 help="Print the version and exit."),
+):
     _state["debug"] = debug
+    _state["json"] = json_out
+    console.quiet = quiet or json_out
+
+
+def stdin_file(data):
+    """``-`` as the data argument: standard input, kept in a temporary CSV file for the run
+    (removed at exit); any other path is returned unchanged."""
+    from pathlib import Path
+
+    if str(data) != "-":
+        return data
+    import atexit
+    import sys
+    import tempfile
+
+    from paths.data.validation import InputError
+
+    raw = sys.stdin.buffer.read()
+    if not raw.strip():
+        raise InputError("'-' reads the data from standard input, but it was empty; pipe a "
+                         "CSV file in (e.g. cat data.csv | paths explore - --target y)")
+    fd, name = tempfile.mkstemp(prefix="paths-stdin-", suffix=".csv")
+    with open(fd, "wb") as fh:
+        fh.write(raw)
+    atexit.register(Path(name).unlink, missing_ok=True)
+    return Path(name)
+
+
+def emit_summary(summary: dict) -> None:
+    """With ``paths --json``, write the run's summary record to standard output as JSON."""
+    if _state.get("json"):
+        import json
+        import sys
+
+        json.dump(summary, sys.stdout, allow_nan=False, default=str)
+        sys.stdout.write("\n")
 
 
 def _with_warning_notes(func, args, kwargs):

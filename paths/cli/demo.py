@@ -36,11 +36,15 @@ def demo_cmd(
     formats: str = typer.Option(None, "--format", help=FORMAT_HELP),
     width: str = typer.Option(None, "--width", help=WIDTH_HELP),
 ):
-    """Run the built-in synthetic calibration case into ./paths-demo/ (figures, report, tables)."""
-    from paths.workflows.cases import find_case
+    """Run the built-in demo into ./paths-demo/: the penalty choice on wide synthetic data, then
+    a sweep across p = n (the interpolation spike and what shrinkage does) into threshold/."""
+    from paths.workflows.cases import DEMO_SWEEP, find_case
 
     if list_:
         print_cases()
         return
     run_and_print(find_case(case), out_dir, force=force, formats=formats, width=width,
                   command_line=["paths", "demo"] + ([] if case == DEMO_CASE else ["--case", case]))
+    if case == DEMO_CASE:  # the whole story: then a sweep across p = n, into OUT/threshold
+        run_and_print(find_case(DEMO_SWEEP), out_dir / "threshold", force=force,
+                      formats=formats, width=width, command_line=["paths", "demo"])

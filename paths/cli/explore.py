@@ -7,7 +7,7 @@ from pathlib import Path
 import typer
 
 from paths.cli import flags as f
-from paths.cli.app import command, console
+from paths.cli.app import command, console, emit_summary, stdin_file
 
 def _fmt_or(v, fmt="{:.4g}") -> str:
     return "n/a" if v is None else fmt.format(float(v))
@@ -156,6 +156,7 @@ def explore_cmd(
     from paths.workflows import options as o
     from paths.workflows.explore import run_explore
 
+    data = stdin_file(data)  # "-": standard input
     given = locals()
     engine_options = f.build(o.EngineOptions, given)
     options = dict(data=f.build(o.DataOptions, given, file=data),
@@ -164,7 +165,9 @@ def explore_cmd(
                    output=f.build(o.OutputOptions, given, command_line=["paths", *sys.argv[1:]]),
                    engine=engine_options)
     if engine_options.name == "memory":
-        run = run_explore(**options)
+        with console.status("fitting the path, choosing the penalty, writing figures and "
+                            "report"):
+            run = run_explore(**options)
     else:
         run = _run_engine(options)
     print_summary(run)
@@ -173,6 +176,7 @@ def explore_cmd(
     print_intervals(run)
     if (run.out_dir / "report.html").exists():
         console.print(f"[bold]report:[/] {run.out_dir / 'report.html'}")
+    emit_summary(run.summary)
 
 
 def _run_engine(options: dict):

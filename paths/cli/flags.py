@@ -142,7 +142,7 @@ N_POINTS = typer.Option(40, "--n-points", help="Sweep points, dense around the t
 
 # ------------------------------------------------------------------ figures and output
 FORMATS = typer.Option("png,svg", "--format", help="Figure formats, comma-separated: png "
-                       "(300 dpi), pdf (TrueType fonts), svg.")
+                       "(300 dpi), pdf (TrueType fonts), svg; or none.")
 WIDTH = typer.Option("single", "--width", help="Figure width: single (3.5 in) or double "
                      "(7.2 in) journal column.")
 FIGURE_X = typer.Option("df", "--figure-x", help="Path figures against log_lambda or df "

@@ -6,7 +6,7 @@ from pathlib import Path
 
 import typer
 
-from paths.cli.app import command, console
+from paths.cli.app import command, console, emit_summary
 
 FORMAT_HELP = "Figure formats, comma-separated: png, pdf, svg (default: the case's)."
 WIDTH_HELP = "Figure width: single (3.5 in) or double (7.2 in) column (default: the case's)."
@@ -42,6 +42,7 @@ def run_and_print(case_path, out, *, force, formats, width, command_line) -> Non
                         force=force, formats=formats, width=width, command_line=command_line,
                         progress=bar)
     print_case_run(crun)
+    emit_summary(crun.summary)
 
 
 @command("run")

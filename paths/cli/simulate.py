@@ -7,7 +7,7 @@ from pathlib import Path
 import typer
 
 from paths.cli import flags as f
-from paths.cli.app import command, console
+from paths.cli.app import command, console, emit_summary
 from paths.cli.threshold import print_threshold
 
 
@@ -58,3 +58,4 @@ def simulate_cmd(
             progress=bar)
     console.print(f"[bold]simulate:[/] {run.summary['truth']['description']}")
     print_threshold(run.summary, run.files, run.out_dir)
+    emit_summary(run.summary)

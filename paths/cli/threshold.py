@@ -7,7 +7,7 @@ from pathlib import Path
 import typer
 
 from paths.cli import flags as f
-from paths.cli.app import command, console
+from paths.cli.app import command, console, emit_summary
 
 def _fmt(v) -> str:
     return "n/a" if v is None else f"{float(v):.4g}"
@@ -89,3 +89,4 @@ def threshold_cmd(
             f.build(o.OutputOptions, given, command_line=["paths", *sys.argv[1:]]),
             progress=bar)
     print_threshold(run.summary, run.files, run.out_dir)
+    emit_summary(run.summary)

@@ -49,13 +49,16 @@ CSV_HEADER = ["panel", "series", "kind", "x_quantity", "y_quantity", "x", "y", "
 
 
 def parse_formats(spec) -> tuple:
-    """``"png,pdf"`` or a sequence -> a tuple of known formats, in order, without repeats.
+    """``"png,pdf"`` or a sequence -> a tuple of known formats, in order, without repeats;
+    ``"none"`` -> an empty tuple (no figure files).
 
     Raises
     ------
     InputError
         An unknown or empty format list (one line, listing the valid ones).
     """
+    if isinstance(spec, str) and spec.strip().lower() == "none":
+        return ()  # no figure files (the report still inlines its figures)
     items = spec.split(",") if isinstance(spec, str) else list(spec)
     out = []
     for item in items:
@@ -64,11 +67,12 @@ def parse_formats(spec) -> tuple:
             continue
         if f not in FORMATS:
             raise InputError(f"unknown figure format {f!r}; choose from {', '.join(FORMATS)} "
-                             "(comma-separated, e.g. --format png,pdf)")
+                             "(comma-separated, e.g. --format png,pdf) or none")
         if f not in out:
             out.append(f)
     if not out:
-        raise InputError(f"no figure format given; choose from {', '.join(FORMATS)}")
+        raise InputError(f"no figure format given; choose from {', '.join(FORMATS)} "
+                         "(or none)")
     return tuple(out)
 
 
@@ -128,12 +132,21 @@ class Panel:
         The rc settings to render with.
     """
 
-    figure: object
-    artists: dict
+    figure: object = field(repr=False)
+    artists: dict = field(repr=False)
     name: str
-    caption: str
+    caption: str = field(repr=False)
     width: str
     rc: dict = field(repr=False, default_factory=dict)
+
+    def _repr_png_(self) -> bytes:
+        """Shown inline by Jupyter (a notebook cell ending in a Panel draws the figure)."""
+        import matplotlib as mpl
+
+        buf = io.BytesIO()
+        with mpl.rc_context(self.rc):
+            self.figure.savefig(buf, format="png", dpi=150)
+        return buf.getvalue()
 
 
 def _new_figure(width: str, height: float, rows: int, cols: int, name: str):
@@ -313,13 +326,37 @@ def threshold_figure(sweep, *, theory=None, noise_variance=None, bias_variance=N
         drawers.append(lambda ax: plot_bias_variance(bias_variance, ax))
     caption = ("(a) Test MSE against the ratio of features to training samples for the "
                "min-norm fit and ridge at fixed and tuned penalties, with baselines and "
-               "theory curves (log error axis; vertical line at p' = n); (b) training MSE of "
+               "theory curves (log error axis; the vertical line is where least squares starts to "
+               "interpolate, p' + 1 = n with the intercept; theory drawn as thin grey dots is "
+               "for reference only, its assumptions do not hold); (b) training MSE of "
                "least squares over the law sigma^2 (1 - p'/n)"
                + ("; (c) exact bias^2 and variance of the min-norm fit" if bias_variance
                   is not None else "") + ". Penalty convention: minimize ‖y − b0 − Xβ‖² "
                "+ λ‖β‖², intercept unpenalized.")
-    layout = {"single": lambda k: (k, 1, 2.9 * k + 0.4), "double": lambda k: (1, k, 3.4)}
-    return _compose(name, width, caption, layout, drawers)
+    layout = {"single": lambda k: (k, 1, 2.6 * k + 1.0), "double": lambda k: (1, k, 3.2)}
+    panel = _compose(name, width, caption, layout, drawers)
+    _legend_below(panel, "a", ncol=2 if panel.width == "single" else 4)
+    return panel
+
+
+def _legend_below(panel: Panel, letter: str, ncol: int) -> None:
+    """Move panel ``letter``'s legend under the whole figure (one row per ``ncol`` entries), so
+    a long legend never crowds a narrow panel."""
+    import matplotlib as mpl
+
+    art = panel.artists[letter]
+    leg = art.ax.get_legend()
+    if leg is None:
+        return
+    handles, labels = leg.legend_handles, [t.get_text() for t in leg.get_texts()]
+    title = leg.get_title().get_text()
+    leg.remove()
+    art.texts[:] = [t for t in art.texts if t is not leg]
+    with mpl.rc_context(panel.rc):
+        new = panel.figure.legend(handles, labels, loc="outside lower center", ncol=ncol,
+                                  frameon=False, fontsize=NOTE_PT, title=title or None,
+                                  title_fontsize=NOTE_PT, handlelength=2.2, columnspacing=1.2)
+    art.texts.append(new)
 
 
 _PLAIN = [(r"\log_{10}", "log10 "), (r"\lambda", "λ"), (r"\beta", "β"), (r"\gamma", "γ"),

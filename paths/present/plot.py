@@ -39,8 +39,8 @@ from paths.data.validation import InputError
 __all__ = [
     "OKABE_ITO", "STYLES", "RULE_LABELS", "CONVENTION_SHORT", "Trace", "Artists",
     "RULE_FAMILIES", "rule_family", "selections_of", "theory_of", "marchenko_pastur_density",
-    "plot_coef_path", "plot_errors", "plot_rule_strip", "power_of_ten", "unicode_log_ticks", "plot_shrinkage", "plot_spectrum",
-    "plot_reml_profile",
+    "plot_coef_path", "plot_errors", "plot_rule_strip", "interpolation_ratio", "theory_applies",
+    "power_of_ten", "unicode_log_ticks", "plot_shrinkage", "plot_spectrum", "plot_reml_profile",
     "plot_variance_share", "plot_threshold", "plot_training_law", "plot_bias_variance",
 ]
 
@@ -582,10 +582,15 @@ def plot_coef_path(result, ax=None, *, x: str = "df", scale: str = "standardized
                                markersize=6, color="black", clip_on=False, zorder=6,
                                linestyle="none", label="_nolegend_")
             art.markers["reported"] = wedge
+            right = _xfrac(ax, xs)[0] > 0.6
             art.texts.append(ax.annotate(f"reported ({_rule_label(ref_rule)})", (xs, 0.0),
                                          xycoords=ax.get_xaxis_transform(),
-                                         xytext=(4, 3), textcoords="offset points",
-                                         fontsize=NOTE_PT, ha="left", va="bottom"))
+                                         xytext=(-6 if right else 4, 3),
+                                         textcoords="offset points", fontsize=NOTE_PT,
+                                         ha="right" if right else "left", va="bottom",
+                                         bbox=dict(boxstyle="square,pad=0.1",
+                                                   facecolor="white", edgecolor="none",
+                                                   alpha=0.85)))
     if others.size:
         art.texts.append(ax.legend(handles=[art.bands["others"]], loc="upper left",
                                    fontsize=NOTE_PT, frameon=False, handlelength=1.4,
@@ -841,9 +846,14 @@ def _name_markers(art, placed):
         xs = float(ax.transScale.inverted().transform(
             ax.transLimits.inverted().transform((f, 0.5)))[0])
         ytop = max(placed[i][1] for i in g)
+        ybot = min(placed[i][1] for i in g)
         ha = "left" if f < 0.25 else ("right" if f > 0.75 else "center")
-        t = ax.annotate(text_of(g), (xs, ytop), xytext=(0, 14), textcoords="offset points",
-                        fontsize=NOTE_PT, ha=ha, va="bottom", linespacing=1.0,
+        # above the cluster, unless it sits in the upper half: then below it
+        high = ax.transLimits.transform(ax.transScale.transform((xs, ytop)))[1] > 0.55
+        t = ax.annotate(text_of(g), (xs, ybot if high else ytop),
+                        xytext=(0, -14 if high else 14), textcoords="offset points",
+                        fontsize=NOTE_PT, ha=ha, va="top" if high else "bottom",
+                        linespacing=1.0,
                         arrowprops=dict(arrowstyle="-", linewidth=0.5, color="#444444",
                                         shrinkA=0, shrinkB=4),
                         bbox=dict(boxstyle="square,pad=0.1", facecolor="white",
@@ -1252,7 +1262,64 @@ def _ratio_label(cols) -> str:
     over = cols.get("over")
     if over is not None and np.size(over) and str(np.asarray(over)[0]) == "samples":
         return "ratio p/n′\n(features / training rows)"
-    return "ratio p′/n\n(features in the model / training rows)"
+    return "ratio p′/n\n(model features / training rows)"
+
+
+def interpolation_ratio(cols) -> float:
+    """Where the fit starts to interpolate, on the sweep's ratio axis.
+
+    With an intercept the centered design has n − 1 rows, so least squares
+    interpolates at p′ + 1 = n: ratio p′/n = (n − 1)/n for a sweep over features
+    (n = ``n_train``), p/n′ = p/(p + 1) for a sweep over training rows (p =
+    ``n_features``); without an intercept at ratio 1.
+    """
+    icpt = cols.get("fit_intercept")
+    icpt = True if icpt is None or not np.size(icpt) else bool(np.asarray(icpt).ravel()[0])
+    if not icpt:
+        return 1.0
+    over = cols.get("over")
+    over = str(np.asarray(over).ravel()[0]) if over is not None and np.size(over) else "features"
+    if over == "samples":
+        p = cols.get("n_features")
+        if p is not None and np.size(p):
+            p = float(np.asarray(p, dtype=float).ravel()[0])
+            return p / (p + 1.0)
+        return 1.0
+    n = cols.get("n_train")
+    if n is not None and np.size(n):
+        n = float(np.asarray(n, dtype=float).ravel()[0])
+        return (n - 1.0) / n
+    return 1.0
+
+
+def _ratio_axis(art: Artists, cols, label: bool = True):
+    """Log ratio axis when the sweep runs past 4 times the threshold (so the threshold
+    region is not a hairline at the left); the interpolation line at p′ + 1 = n."""
+    ax = art.ax
+    r = np.asarray(cols["ratio"], dtype=float)
+    r = r[np.isfinite(r) & (r > 0)]
+    if r.size and r.max() > 4.0 and r.max() / r.min() > 8.0:
+        from matplotlib.ticker import LogLocator, NullFormatter, ScalarFormatter
+
+        ax.set_xscale("log")
+        ax.xaxis.set_major_locator(LogLocator(base=10, subs=(1.0, 2.0, 5.0)))
+        fmt = ScalarFormatter()
+        fmt.set_scientific(False)
+        ax.xaxis.set_major_formatter(fmt)
+        ax.xaxis.set_minor_formatter(NullFormatter())
+        art.notes.append("ratio axis logarithmic: the sweep runs past 4 times the threshold")
+    xi = interpolation_ratio(cols)
+    over = cols.get("over")
+    samples = over is not None and np.size(over) and str(np.asarray(over).ravel()[0]) == "samples"
+    art.refs["threshold"] = ax.axvline(xi, color="#444444", linewidth=0.8, linestyle="-",
+                                       zorder=1)
+    art.traces.append(Trace("interpolation", "reference", np.array([xi]), np.array([np.nan])))
+    if label:
+        txt = "p + 1 = n′" if samples else "p′ + 1 = n"
+        art.texts.append(ax.text(xi, 0.98, f" {txt}", transform=ax.get_xaxis_transform(),
+                                 fontsize=NOTE_PT, ha="left", va="top", color="#444444",
+                                 bbox=dict(boxstyle="square,pad=0.1", facecolor="white",
+                                           edgecolor="none", alpha=0.85)))
 
 
 def plot_threshold(sweep, ax=None, *, theory=None, methods=None, band: bool = True,
@@ -1276,7 +1343,9 @@ def plot_threshold(sweep, ax=None, *, theory=None, methods=None, band: bool = Tr
     -------
     Artists
         ``lines[method]``, ``bands[method]``, ``lines["theory:<name>"]``,
-        ``refs["threshold"]`` (the line at p′ = n, ratio 1).
+        ``refs["threshold"]`` (the line where least squares starts to interpolate,
+        p′ + 1 = n with an intercept: :func:`interpolation_ratio`).  The ratio axis is
+        logarithmic when the sweep runs past 4 times the threshold.
     """
     ax = _new_axes(ax)
     cols = _columns(sweep)
@@ -1312,9 +1381,7 @@ def plot_threshold(sweep, ax=None, *, theory=None, methods=None, band: bool = Tr
         theory = sweep
     if theory is not None:
         _draw_theory(art, theory, keys_skip=("train", "train_mse", "training"))
-    art.refs["threshold"] = ax.axvline(1.0, color="#444444", linewidth=0.8, linestyle="-")
-    art.texts.append(ax.text(1.0, 0.02, " p′ = n", transform=ax.get_xaxis_transform(),
-                             fontsize=NOTE_PT, ha="left", va="bottom", color="#444444"))
+    _ratio_axis(art, cols)
     reps = int(np.max(cols["repeat"])) + 1 if "repeat" in cols and np.size(cols["repeat"]) else 1
     ax.set_yscale("log")
     ax.set_xlabel(art.x_quantity)
@@ -1356,6 +1423,17 @@ def theory_of(theory) -> dict | None:
     return out if "ratio" in out else None
 
 
+def theory_applies(theory) -> bool:
+    """False when the theory record says its assumptions do not hold for this sweep
+    (``applies: false``, e.g. a screening order); True otherwise."""
+    if theory is None:
+        return True
+    if hasattr(theory, "band_of"):
+        theory = getattr(theory, "theory", None)
+    v = _get(theory, "applies", True)
+    return True if v is None else bool(v)
+
+
 def _draw_theory(art: Artists, theory, keys_skip=(), keys_only=None):
     ax = art.ax
     tc = theory_of(theory)
@@ -1363,6 +1441,9 @@ def _draw_theory(art: Artists, theory, keys_skip=(), keys_only=None):
         art.notes.append("no theory curves with a 'ratio'; not drawn")
         return
     ratio = np.asarray(tc["ratio"], dtype=float)
+    applies = theory_applies(theory)
+    if not applies:
+        art.notes.append("theory curves drawn as reference only (their assumptions do not hold)")
     styles = [(0, (2, 1)), (0, (4, 1, 1, 1)), (0, (1, 1)), (0, (6, 1, 1, 1, 1, 1))]
     k = 0
     for name, v in tc.items():
@@ -1375,9 +1456,13 @@ def _draw_theory(art: Artists, theory, keys_skip=(), keys_only=None):
         if v.shape != ratio.shape:
             continue
         ok = np.isfinite(v) & (v > 0)
-        (ln,) = ax.plot(ratio[ok], v[ok], color=_C["black"], linewidth=0.9,
-                        linestyle=styles[k % len(styles)],
-                        label=f"theory: {name.replace('_', ' ')}")
+        if applies:
+            kw = dict(color=_C["black"], linewidth=0.9, linestyle=styles[k % len(styles)])
+            label = f"theory: {name.replace('_', ' ')}"
+        else:  # thin grey dots: shown for reference, its assumptions do not hold here
+            kw = dict(color="#8C8C8C", linewidth=0.7, linestyle=(0, (1, 2)), alpha=0.9)
+            label = f"theory, reference only: {name.replace('_', ' ')}"
+        (ln,) = ax.plot(ratio[ok], v[ok], label=label, **kw)
         art.lines[f"theory:{name}"] = ln
         art.traces.append(Trace(f"theory:{name}", "line", ratio[ok], v[ok]))
         k += 1
@@ -1444,7 +1529,7 @@ def plot_training_law(sweep, ax=None, *, noise_variance=None, theory=None,
         art.traces.append(Trace("law", "line", law[0], law[1]))
     else:
         art.notes.append("no noise variance or theory curve: the law is not drawn")
-    art.refs["threshold"] = ax.axvline(1.0, color="#444444", linewidth=0.8)
+    _ratio_axis(art, cols, label=False)
     ax.set_ylim(bottom=0)
     ax.set_xlabel(art.x_quantity)
     ax.set_ylabel(art.y_quantity)
@@ -1487,7 +1572,7 @@ def plot_bias_variance(sim, ax=None, *, method: str = "min_norm", **style) -> Ar
     art.lines.update(bias2=lb, variance=lv, total=lt)
     art.traces.extend([Trace("bias2", "line", b[0], b[1]), Trace("variance", "line", v[0], v[1]),
                        Trace("total", "line", common, tot)])
-    art.refs["threshold"] = ax.axvline(1.0, color="#444444", linewidth=0.8)
+    _ratio_axis(art, cols, label=False)
     ax.set_yscale("log")
     ax.set_xlabel(art.x_quantity)
     ax.set_ylabel(art.y_quantity)

@@ -8,8 +8,9 @@ chosen rule, the grid range, the shrinkage fraction at the choice) are derived
 once by :func:`report_numbers` and stored in the record under ``"report"``
 before it is written.
 
-The HTML file inlines the figures as SVG and carries its own CSS: no network
-access, no scripts, one file to archive or e-mail.
+The HTML file inlines the figures as SVG and carries its own CSS and, for an
+explore run, a small inline script (:mod:`paths.present.interactive`) that lets
+the reader move the penalty: no network access, one file to archive or e-mail.
 """
 from __future__ import annotations
 
@@ -460,17 +461,16 @@ def _methods_text(summary: dict, formula: str) -> str:
     ]
     parts += _weights_sentences(summary)
     cv = r.get("cv")
-    scheme = f", with {_cv_sentence(cv)}," if cv and rule in ("cv", "one_se", "one-se") else ""
+    scheme = f", with {_cv_sentence(cv)}" if cv and rule in ("cv", "one_se", "one-se") else ""
+    parts.append(f"The penalty was chosen by {RULE_NAMES.get(rule, rule)}{scheme}.")
     if r.get("min_norm_choice"):
-        parts.append(f"The penalty was chosen by {RULE_NAMES.get(rule, rule)}{scheme}, which chose "
-                     "λ → 0: the reported model is the minimum-norm least-squares fit "
-                     f"({fmt(r['df'])} effective degrees of freedom), not a shrunken ridge fit.")
+        parts.append("The rule chose λ → 0: the reported model is the minimum-norm least-squares "
+                     f"fit ({fmt(r['df'])} effective degrees of freedom), not a shrunken ridge fit.")
     else:
-        parts.append(f"The penalty was chosen by {RULE_NAMES.get(rule, rule)}{scheme}: "
-                     f"λ = {fmt(r['lambda'])}, with {fmt(r['df'])} effective degrees of freedom"
-                     + (f" and a coefficient norm {fmt(r['fraction'])} times that of the "
-                        "minimum-norm fit (standardized scale)" if r.get("fraction") is not None
-                        else "") + ".")
+        parts.append(f"It chose λ = {fmt(r['lambda'])}, with {fmt(r['df'])} effective degrees of "
+                     "freedom" + (f" and a coefficient norm {fmt(r['fraction'])} times that of the "
+                                  "minimum-norm fit (standardized scale)"
+                                  if r.get("fraction") is not None else "") + ".")
     if r.get("est_mse") is not None:
         se = (f" (standard error {fmt(r['est_se'])})" if r.get("est_se") is not None
               else " (no standard error is available for this estimate)")
@@ -620,6 +620,9 @@ figure{margin:1.5rem 0;padding:0}figure svg{width:100%;max-width:40rem;height:au
 figcaption{font-size:.9rem;color:#333;margin-top:.3rem}
 .methods{background:#f7f7f2;border-left:4px solid #0072B2;padding:.6rem 1rem}
 .caution{border-left:4px solid #D55E00;padding-left:1rem}
+.explorer{border:1px solid #ccc;padding:.5rem 1rem;background:#fbfbfb}
+.explorer button{margin:0 .3rem .3rem 0;font:inherit;padding:.1rem .5rem}
+.explorer output{font-variant-numeric:tabular-nums}
 tr.family th{background:#fff;border:none;border-bottom:1px solid #999;font-style:italic;
 padding-top:.6rem}h2.target{border-bottom:3px solid #0072B2}math{font-size:1.05em}
 code{font-size:.85rem;word-break:break-all}
@@ -693,11 +696,15 @@ def render_html(summary: dict, figures=(), *, interactive: str = "") -> str:
     return "\n".join(B) + "\n"
 
 
-def write_report(out_dir, summary: dict, figures=()) -> list:
-    """Write ``report.md`` and ``report.html`` into ``out_dir`` (atomically); returns the paths."""
+def write_report(out_dir, summary: dict, figures=(), *, interactive: str = "") -> list:
+    """Write ``report.md`` and ``report.html`` into ``out_dir`` (atomically); returns the paths.
+
+    ``interactive``: the explorer section for the HTML page
+    (:func:`paths.present.interactive.explorer_section`)."""
     out = Path(out_dir)
     return [write_text(out / "report.md", render_markdown(summary, figures)),
-            write_text(out / "report.html", render_html(summary, figures))]
+            write_text(out / "report.html", render_html(summary, figures,
+                                                        interactive=interactive))]
 
 
 # ------------------------------------------------------------------ threshold sweeps
@@ -737,8 +744,10 @@ def threshold_diagnosis(summary: dict) -> list:
                  "ridge_fixed": "ridge at the fixed penalty"}.get(best.get("method"),
                                                                   best.get("method"))
         out.append(f"The best usable ridge curve ({label}) reaches a mean test MSE of "
-                   f"{fmt(summary.get('best_ridge_test_mse'))} (at p'/n = {fmt(best.get('ratio'))}); "
-                   "a tuned penalty removes the spike instead of dropping features.")
+                   f"{fmt(summary.get('best_ridge_test_mse'))} (at p'/n = {fmt(best.get('ratio'))}).")
+        spike = _spike_sentence(summary)
+        if spike:
+            out.append(spike)
     th = summary.get("theory") or {}
     if th:
         out.append(("The isotropic theory curves (Hastie et al. 2022; Dobriban & Wager 2018) use "
@@ -752,6 +761,35 @@ def threshold_diagnosis(summary: dict) -> list:
     return out
 
 
+def _spike_sentence(summary: dict) -> str:
+    """What the tuned (GCV) ridge curve does at the min-norm peak, from the curves' numbers.
+
+    "removes": at the peak ratio its mean test MSE is within 1.5 times its own median over the
+    sweep; "reduces": below half the min-norm peak but above that; otherwise "does not remove".
+    """
+    peak = summary.get("peak") or {}
+    ratios = summary.get("ratio") or []
+    curve = (((summary.get("curves") or {}).get("ridge_gcv") or {}).get("test_mse") or {})
+    mean = curve.get("mean") or []
+    if peak.get("ratio") is None or not mean or peak["ratio"] not in ratios:
+        return ""
+    at = mean[ratios.index(peak["ratio"])]
+    vals = sorted(v for v in mean if v is not None)
+    if at is None or not vals:
+        return ""
+    med = vals[len(vals) // 2]
+    where = f"at the min-norm peak (p'/n = {fmt(peak['ratio'])})"
+    if at <= 1.5 * med:
+        verdict = "removes the spike"
+    elif at < 0.5 * peak["test_mse"]:
+        verdict = "reduces the spike but does not remove it"
+    else:
+        verdict = "does not remove the spike"
+    return (f"Ridge at the GCV penalty {verdict}: {where} its mean test MSE is {fmt(at)}, "
+            f"against {fmt(peak['test_mse'])} for the min-norm fit and a median of {fmt(med)} "
+            "over the sweep.")
+
+
 def threshold_methods(summary: dict) -> str:
     plo, phi = _minmax(summary.get("n_features"))
     lo, hi = _minmax(summary.get("ratio"))
@@ -761,7 +799,7 @@ def threshold_methods(summary: dict) -> str:
                  f"to {fmt(max(summary.get('n_train_points') or [0]))}")
     parts = [
         f"We swept {grow} (ratio p'/n from {fmt(lo)} to {fmt(hi)}, {fmt(summary.get('points'))} "
-        f"points, {summary.get('order')} order, {fmt(summary.get('repeats'))} repeat(s), seed "
+        f"points, {summary.get('order')} order, {_repeats(summary.get('repeats'))}, seed "
         f"{fmt(summary.get('seed'))}) with {fmt(summary.get('n_train'))} training and "
         f"{fmt(summary.get('n_test'))} test rows.",
         "At every point we fitted the minimum-norm least-squares solution, ridge at a fixed "
@@ -862,7 +900,7 @@ def write_threshold_outputs(result, summary: dict, out_dir, *, formats=("png", "
 
     out = Path(out_dir)
     panel = threshold_figure(result, width=width)
-    files = save_figure(panel, out, formats=formats)
+    files = save_figure(panel, out, formats=formats) if formats else []  # --format none
     written = list(files)
     if report:
         refs = figure_refs([(panel, files)])
@@ -910,12 +948,15 @@ def write_explore_outputs(result, summary: dict, out_dir, *, cv=None, formats=("
         owners.append(None)
     written, pairs = [], []
     for panel in panels:
-        files = save_figure(panel, out, formats=formats)
+        files = save_figure(panel, out, formats=formats) if formats else []  # --format none
         written += files
         pairs.append((panel, files))
     if report:
+        from paths.present.interactive import explorer_section
+
         refs = figure_refs(pairs, owners)
-        written += write_report(out, summary, refs)
+        written += write_report(out, summary, refs,
+                                interactive=explorer_section(result, summary))
     for panel in panels:
         panel.figure.clear()
     return written
@@ -945,6 +986,10 @@ def _family_of(rule: str) -> str:
     from paths.present.plot import rule_family
 
     return rule_family(rule)
+
+
+def _repeats(k) -> str:
+    return "one repeat" if k in (None, 1) else f"{fmt(k)} repeats"
 
 
 def _repetitions(k) -> str:
@@ -1014,7 +1059,9 @@ def _md_rules(summary: dict) -> list:
 def _md_figures(figures) -> list:
     L = []
     for f in figures:
-        L += [f"![{_md(f.name)}]({f.image})", "", f"*{_md(md_escape(f.caption))}*", ""]
+        img = (f"![{_md(f.name)}]({f.image})" if f.image else
+               f"**{_md(f.name)}** (no figure file written: see report.html)")
+        L += [img, "", f"*{_md(md_escape(f.caption))}*", ""]
     return L
 
 

@@ -20,7 +20,7 @@ from paths.core.path import RidgePath
 
 __all__ = ["versions", "path_table", "coefficient_table", "summary_dict", "selections",
            "model_table", "choice_errors", "shared_rows", "add_choice_errors", "reported_lambdas",
-           "interval_table", "interval_record"]
+           "write_coefficients", "COEFFICIENTS_CSV_LIMIT", "interval_table", "interval_record"]
 
 
 def versions() -> dict:
@@ -296,3 +296,28 @@ def reported_lambdas(summary: dict) -> list:
         out.append(float(sel["lambda"]) if sel and sel.get("lambda") is not None
                    else float(rep["lambda"]))
     return out
+
+
+#: Above this many numbers the full coefficient table is written as Parquet, not CSV
+#: (a CSV of 10^6 numbers is ~20 MB and slow to write; Parquet is compact and typed).
+COEFFICIENTS_CSV_LIMIT = 500_000
+
+
+def write_coefficients(out_dir, header, rows):
+    """``coefficients.csv`` (or ``coefficients.parquet`` past :data:`COEFFICIENTS_CSV_LIMIT`
+    numbers): the full per-penalty coefficient table; returns the path written."""
+    from pathlib import Path
+
+    from paths.data.output import write_bytes, write_csv
+
+    out = Path(out_dir)
+    if len(rows) * len(header) <= COEFFICIENTS_CSV_LIMIT or len(set(header)) < len(header):
+        return write_csv(out / "coefficients.csv", header, rows)
+    import io
+
+    import pandas as pd
+
+    frame = pd.DataFrame(rows, columns=[str(h) for h in header])
+    buf = io.BytesIO()
+    frame.to_parquet(buf, index=False)
+    return write_bytes(out / "coefficients.parquet", buf.getvalue())

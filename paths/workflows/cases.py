@@ -48,8 +48,11 @@ except ModuleNotFoundError:  # pragma: no cover - Python 3.10
     import tomli as tomllib
 
 __all__ = ["Case", "CaseRun", "GENERATORS", "builtin_dir", "list_cases", "find_case", "load_case",
-           "parse_case", "run_case", "DEMO_CASE"]
+           "parse_case", "run_case", "DEMO_CASE", "DEMO_SWEEP"]
 
+#: ``paths demo`` runs DEMO_CASE, then this sweep across p = n (into the demo folder's
+#: ``threshold/``).
+DEMO_SWEEP = "spike"
 ANALYSES = ("explore", "threshold", "simulate")
 _META = ("name", "title", "description", "synthetic", "analysis")
 #: a case name becomes part of a path (the default output folder paths-NAME): no separators

@@ -271,12 +271,13 @@ def write_explore(fitted, summary: dict, out: Path, targets, figures: FigureOpti
     """path.csv, coefficients.csv, model.csv, summary.json, then the figures and the report."""
     from paths.data.output import write_csv, write_json
     from paths.present.report import write_explore_outputs
-    from paths.present.summary import coefficient_table, model_table, path_table, reported_lambdas
+    from paths.present.summary import (coefficient_table, model_table, path_table,
+                                       reported_lambdas, write_coefficients)
 
     formats, width = check_figures(figures)
     result = fitted.result
     files = [write_csv(out / "path.csv", *per_target(path_table, result, targets)),
-             write_csv(out / "coefficients.csv", *per_target(coefficient_table, result, targets)),
+             write_coefficients(out, *per_target(coefficient_table, result, targets)),
              write_csv(out / "model.csv", *model_table(result, reported_lambdas(summary), targets)),
              write_json(out / "summary.json", summary)]
     if formats or figures.report:

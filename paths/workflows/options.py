@@ -216,7 +216,9 @@ class FigureOptions:
     report: bool = True
 
     def __post_init__(self):
-        if isinstance(self.formats, str):
+        if isinstance(self.formats, str) and self.formats.strip().lower() == "none":
+            _set(self, "formats", ())  # --format none: no figure files
+        elif isinstance(self.formats, str):
             _set(self, "formats", _names(self.formats) or ())
         else:
             _set(self, "formats", tuple(self.formats or ()))

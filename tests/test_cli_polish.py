@@ -1,0 +1,86 @@
+"""Command-line niceties: help at 80 columns, --version, --quiet, --json, '-' for stdin.
+
+References: click's own help formatter (the layout under test is click's plain
+one), the standard ``json`` module (the --json output parses), and the package
+metadata (importlib.metadata) for the version.
+"""
+from __future__ import annotations
+
+import json
+import re
+from importlib.metadata import version
+
+import pytest
+from typer.testing import CliRunner
+
+from paths.cli import app
+
+runner = CliRunner()
+COMMANDS = ["explore", "threshold", "simulate", "plan", "run", "demo"]
+
+
+def _option_names(cmd):
+    import typer.main
+
+    click_cmd = typer.main.get_command(app).commands[cmd]
+    return [n for p in click_cmd.params for n in p.opts + p.secondary_opts if n.startswith("--")]
+
+
+@pytest.mark.parametrize("cmd", COMMANDS)
+def test_help_at_80_columns_keeps_every_option_name_whole(cmd):
+    res = runner.invoke(app, [cmd, "--help"], env={"COLUMNS": "80"}, terminal_width=80)
+    assert res.exit_code == 0, res.output
+    assert max(len(line) for line in res.output.splitlines()) <= 80
+    words = set(re.findall(r"--[\w-]+", res.output))
+    missing = [n for n in _option_names(cmd) if n not in words]
+    assert missing == []
+    assert "…" not in res.output
+
+
+def test_version_is_the_installed_distribution_version():
+    res = runner.invoke(app, ["--version"])
+    assert res.exit_code == 0 and res.output.strip() == f"paths {version('ridgepaths')}"
+
+
+@pytest.fixture()
+def csv_text():
+    """A small invented table (seeded numbers), as CSV text."""
+    import numpy as np
+
+    rng = np.random.default_rng(4)
+    X = rng.standard_normal((20, 3))
+    y = X @ np.array([1.0, -0.5, 0.2]) + 0.1 * rng.standard_normal(20)
+    lines = ["a,b,c,y"] + [",".join(f"{v:.6f}" for v in (*row, t)) for row, t in zip(X, y)]
+    return "\n".join(lines) + "\n"
+
+
+def test_json_prints_the_summary_and_nothing_else(tmp_path, csv_text):
+    data = tmp_path / "d.csv"
+    data.write_text(csv_text)
+    res = runner.invoke(app, ["--json", "explore", str(data), "--target", "y", "--out",
+                              str(tmp_path / "o"), "--format", "none", "--no-report"])
+    assert res.exit_code == 0, res.output
+    record = json.loads(res.stdout)
+    assert record == json.loads((tmp_path / "o" / "summary.json").read_text())
+
+
+def test_quiet_prints_nothing_and_dash_reads_standard_input(tmp_path, csv_text):
+    res = runner.invoke(app, ["--quiet", "explore", "-", "--target", "y", "--out",
+                              str(tmp_path / "o"), "--format", "none", "--no-report"],
+                        input=csv_text)
+    assert res.exit_code == 0, res.output
+    assert res.stdout == ""
+    s = json.loads((tmp_path / "o" / "summary.json").read_text())
+    assert s["n_samples"] == 20 and s["n_features"] == 3
+
+
+def test_simulate_takes_the_same_figure_options_and_json(tmp_path):
+    """--format/--width as in explore (none: no figure file), --json the threshold record."""
+    out = tmp_path / "s"
+    res = runner.invoke(app, ["--json", "simulate", "--n-train", "20", "--n-features", "40",
+                              "--n-test", "40", "--repeats", "1", "--n-points", "8", "--out", str(out),
+                              "--format", "none", "--width", "double"])
+    assert res.exit_code == 0, res.output
+    assert json.loads(res.stdout) == json.loads((out / "threshold.json").read_text())
+    assert not any(p.name.startswith("fig-") for p in out.iterdir())
+    assert (out / "report.html").read_text().count("<svg") >= 1  # the report still shows it

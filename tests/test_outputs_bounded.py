@@ -1,0 +1,48 @@
+"""Bounded outputs on wide data: figure CSVs hold what is drawn, report.html stays small,
+the full coefficient table goes to Parquet when large.
+
+References: pandas reads the Parquet file back (pyarrow engine) and the CSV
+(``csv`` module) against the path's own arrays; the size bound (a few MB for a
+report that is e-mailed or archived) is common practice, no source.
+"""
+from __future__ import annotations
+
+import csv
+
+import numpy as np
+import pandas as pd
+from numpy.testing import assert_allclose
+
+from paths.data.tables import select
+from paths.present import summary as summary_mod
+from paths.workflows.explore import explore_prepared
+from paths.workflows.options import FigureOptions, FitOptions, OutputOptions
+from paths.workflows.prepare import Prepared
+
+
+def _wide(p=3000, n=40, seed=3):
+    """Invented wide data (seeded): n rows, p Gaussian features, a sparse signal."""
+    rng = np.random.default_rng(seed)
+    X = rng.standard_normal((n, p))
+    y = X[:, :10].sum(axis=1) + rng.standard_normal(n)
+    frame = pd.DataFrame(X, columns=[f"f{j}" for j in range(p)])
+    frame["y"] = y
+    return select(frame, "y", source="synthetic wide")
+
+
+def test_wide_run_outputs_are_bounded(tmp_path, monkeypatch):
+    monkeypatch.setattr(summary_mod, "COEFFICIENTS_CSV_LIMIT", 10_000)
+    run = explore_prepared(Prepared(train=_wide()), FitOptions(n_lambdas=40),
+                           FigureOptions(formats=("svg",)), OutputOptions(out_dir=tmp_path / "o"))
+    out = tmp_path / "o"
+    # report.html: a few hundred kB for 3000 features (figures summarise, never one line each)
+    assert (out / "report.html").stat().st_size < 3_000_000
+    with open(out / "fig-path.csv", newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    series = {r["series"] for r in rows}
+    assert len(series) < 40 and len(rows) < 20 * 40 + 100  # not 3000 lines
+    # the full table, as Parquet past the limit, equals the path's coefficients
+    assert not (out / "coefficients.csv").exists()
+    table = pd.read_parquet(out / "coefficients.parquet")
+    assert_allclose(table["lambda"].to_numpy(), run.result.lambdas, rtol=0)
+    assert_allclose(table[run.result.feature_names].to_numpy(), run.result.coef, rtol=0)
