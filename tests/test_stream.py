@@ -374,8 +374,9 @@ def test_cli_bad_input_exit_2(tmp_path, case):
     else:
         X, y = problem(n=50, p=5)
         _parquet(tmp_path / "d.parquet", X, y)
-        args += [str(tmp_path / "d.parquet"), "-t", "y", "--engine", "stream", "--holdout", "0.2"]
-        want = "--holdout is not available with --engine stream"
+        args += [str(tmp_path / "d.parquet"), "-t", "y", "--engine", "stream", "--cv-scaling",
+                 "per-fold"]
+        want = "--cv-scaling is not available with --engine stream (per-fold scaling refits"
     r = CliRunner().invoke(app, args + ["--out", str(tmp_path / "out")])
     assert r.exit_code == 2, r.output
     assert want in r.output

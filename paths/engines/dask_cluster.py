@@ -31,8 +31,9 @@ import numpy as np
 
 from paths.data.validation import InputError, as_lambdas
 from paths.core.grid import default_grid
-from paths.engines.stream import (HatPass, Moments, PassInfo, StreamPath, chunk_moments, factor_moments,
-                     merge_moments, path_from_moments)
+from paths.engines.stream import (HatPass, Moments, PassInfo, StreamPath, check_cv_options,
+                                  chunk_moments, cv_note, factor_moments, fold_plan,
+                                  merge_moments, path_from_moments)
 
 __all__ = ["dask_path", "connect", "as_dask_design"]
 
@@ -327,9 +328,9 @@ def _moments(W, names, accurate, compute):
     return Moments(n=mom.n, mean=mom.mean, m2=None, r=R, lo=mom.lo, hi=mom.hi, absmax=mom.absmax)
 
 
-def _hat_part(block, start, fit, lam, p, n_folds, fold_seed):
+def _hat_part(block, start, fit, lam, p, plan):
     """The second-pass statistics of one row block (a :class:`HatPass`)."""
-    hp = HatPass(fit, lam, n_folds=n_folds, fold_seed=fold_seed)
+    hp = HatPass(fit, lam, folds=plan)
     hp.add(int(start), np.asarray(block, dtype=np.float64), p)
     return hp
 
@@ -364,6 +365,19 @@ def _test_block(block, fit, lam, p):
     return out[None, :]
 
 
+def _holdout_split(W, fraction: float, seed: int):
+    """(training rows, held-out rows) of a row-blocked array: the seeded holdout of
+    :func:`paths.data.folds.holdout_mask`, the in-memory engine's rows."""
+    from paths.data.folds import holdout_mask
+
+    n = W.shape[0]
+    if n is None or n != n:  # unknown row count (NaN chunks): the mask needs it
+        W.compute_chunk_sizes()
+        n = W.shape[0]
+    held = holdout_mask(np.arange(int(n)), int(n), fraction, seed=seed)
+    return W[~held], W[held]
+
+
 def dask_path(
     data,
     lambdas=None,
@@ -384,6 +398,9 @@ def dask_path(
     loo: bool = True,
     cv: int | None = None,
     cv_seed: int | None = None,
+    repeats: int = 1,
+    holdout: float | None = None,
+    seed: int = 0,
     rank: int | None = None,
     progress=None,
 ) -> StreamPath:
@@ -407,8 +424,10 @@ def dask_path(
         Seconds to wait for the scheduler.
     test, y_test : optional
         Test rows, in any form ``data`` accepts.
-    loo, cv, cv_seed, rank, fit_intercept, standardize, n_lambdas, rtol
-        As in :func:`paths.stream.stream_path`.
+    loo, cv, cv_seed, repeats, holdout, seed, rank, fit_intercept, standardize, n_lambdas, rtol
+        As in :func:`paths.engines.stream.stream_path` (the same folds and the
+        same holdout rows; the holdout's row mask, one byte per row, is made on
+        the client).
     progress : callable, optional
         ``progress(label, done, total)`` at the start and end of each pass.
 
@@ -432,8 +451,10 @@ def dask_path(
     >>> dask_path(X, y=y, lambdas=[1.0, 0.1], loo=False).coef.shape
     (2, 5)
     """
-    if cv is not None and (int(cv) != cv or cv < 2):
-        raise InputError(f"cv must be an integer >= 2 (number of folds); got {cv!r}")
+    scheme = "blocked" if cv_seed is None else "shuffled"
+    check_cv_options(cv, scheme, repeats)
+    if test is not None and holdout is not None:
+        raise InputError("pass either a test set or a holdout fraction, not both")
     if chunk_rows is not None and (int(chunk_rows) != chunk_rows or chunk_rows < 1):
         raise InputError(f"chunk_rows must be a positive integer; got {chunk_rows!r}")
     if n_lambdas < 1:
@@ -459,6 +480,9 @@ def dask_path(
 
         W, names, tnames = as_dask_design(data, y, target=target, features=features,
                                           chunk_rows=chunk_rows)
+        W_test = None
+        if holdout is not None:
+            W, W_test = _holdout_split(W, holdout, seed)
         p = len(names)
         passes = []
         label1 = "pass 1/2: moments on the cluster" if (loo or cv) else "pass 1/1: moments"
@@ -489,7 +513,10 @@ def dask_path(
 
             t0 = time.perf_counter()
             starts = _offsets(W.chunks[0])
-            parts = [dask.delayed(_hat_part, pure=True)(b, int(s0), fit, lam, p, cv or 0, cv_seed)
+            plan = None if not cv else fold_plan(
+                mom.n, cv, scheme=scheme, seed=0 if cv_seed is None else int(cv_seed),
+                repeats=repeats, fit_intercept=fit_intercept)
+            parts = [dask.delayed(_hat_part, pure=True)(b, int(s0), fit, lam, p, plan)
                      for b, s0 in zip(W.to_delayed().ravel(), starts)]
             hp = compute(_tree(parts, _merge_hat))[0]
             if hp.needs_others:  # rows of leverage near 1: the complement of the others
@@ -503,14 +530,12 @@ def dask_path(
             loo_mse, loo0 = hp.loo()
             if cv:
                 cvres = hp.kfold()
-                notes.append(f"{cv}-fold CV with preprocessing from all rows; "
-                             + (f"seeded shuffle (the in-memory engine's folds), seed {cv_seed}" if cv_seed is not None
-                                else "contiguous blocks of rows"))
+                notes.append(cv_note(plan))
         test_res = None
-        if test is not None:
-            Wt, tn, _ = as_dask_design(test, y_test, target=target if target is not None else tnames,
-                                       features=names if not hasattr(test, "shape") else None,
-                                       chunk_rows=chunk_rows)
+        if test is not None or W_test is not None:
+            Wt = W_test if W_test is not None else as_dask_design(
+                test, y_test, target=target if target is not None else tnames,
+                features=names if not hasattr(test, "shape") else None, chunk_rows=chunk_rows)[0]
             if Wt.shape[1] != W.shape[1]:
                 raise InputError(f"the test data have {Wt.shape[1] - len(tnames)} feature "
                                  f"columns but the training data {p}; pass the same features")

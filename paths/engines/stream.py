@@ -36,7 +36,8 @@ import scipy.linalg as sla
 from paths.data.folds import fold_labels
 from paths.data.validation import (InputError, as_lambdas, check_feature_bounds,
                                    check_response_bounds)
-from paths.data.chunks import DEFAULT_CHUNK_ROWS, RowSource, open_rows
+from paths.data.chunks import (DEFAULT_CHUNK_ROWS, GroupValues, HoldoutRows, RowSource,
+                               count_rows, open_rows)
 from paths.core.design import Design
 from paths.core.factor import Factorization
 from paths.core.grid import default_grid
@@ -45,7 +46,8 @@ from paths.core.algebra import FactorState
 from paths.core.path import PENALTY_CONVENTION, MinNormFit, RidgePath
 
 __all__ = ["Moments", "chunk_moments", "merge_moments", "PairwiseMerger", "StreamPath",
-           "stream_path", "PassInfo", "path_from_moments", "HatPass"]
+           "stream_path", "PassInfo", "path_from_moments", "HatPass", "FoldPlan", "fold_plan",
+           "check_cv_options", "cv_note"]
 
 _EPS = np.finfo(np.float64).eps
 
@@ -345,7 +347,8 @@ class HatPass:
     triangular factors merge by QR, kept rows concatenate).
     """
 
-    def __init__(self, fit: _Fit, lam: np.ndarray, *, n_folds: int = 0, fold_seed=None):
+    def __init__(self, fit: _Fit, lam: np.ndarray, *, n_folds: int = 0, fold_seed=None,
+                 folds: "FoldPlan | None" = None):
         self.fit = fit
         self.lam = lam
         d = fit.fac.d
@@ -360,11 +363,16 @@ class HatPass:
         width = self.ra + self.t
         self.r_other = np.zeros((0, width))
         self.kept = np.zeros((0, width))  # high-leverage rows [ua, y], refined at the end
-        self.n_folds = int(n_folds)
-        self.fold_seed = fold_seed
+        if folds is None and n_folds:
+            folds = FoldPlan(n_folds=int(n_folds), n_rows=fit.design.n_samples,
+                             scheme="blocked" if fold_seed is None else "shuffled",
+                             seed=0 if fold_seed is None else int(fold_seed))
+        self.folds = folds
+        self.n_folds = 0 if folds is None else folds.n_folds
         if self.n_folds:
-            self.fold_r = [np.zeros((0, width)) for _ in range(self.n_folds)]
-            self.count = np.zeros(self.n_folds, dtype=np.int64)
+            R = folds.repeats
+            self.fold_r = [[np.zeros((0, width)) for _ in range(self.n_folds)] for _ in range(R)]
+            self.count = np.zeros((R, self.n_folds), dtype=np.int64)
 
     def rows_u(self, block: np.ndarray, p: int):
         des = self.fit.design
@@ -374,22 +382,20 @@ class HatPass:
         return z @ self.proj, yc
 
     def fold_of(self, start: int, rows: int) -> np.ndarray:
-        """Fold labels of rows ``start .. start+rows-1``: contiguous blocks (no seed) or the
-        seeded shuffle — :func:`paths.data.folds.fold_labels`, the assignment every engine
-        (the in-memory one included) uses, independent of the chunk size."""
-        n = self.fit.design.n_samples
-        scheme = "blocked" if self.fold_seed is None else "shuffled"
-        return fold_labels(np.arange(start, start + rows), n, self.n_folds, scheme=scheme,
-                           seed=0 if self.fold_seed is None else int(self.fold_seed))
+        """Fold labels (first repeat) of rows ``start .. start+rows-1``: the
+        :class:`FoldPlan`'s, independent of the chunk size."""
+        return self.folds.labels(start, rows)[0]
 
-    def add(self, start: int, block: np.ndarray, p: int) -> None:
+    def add(self, start: int, block: np.ndarray, p: int, groups=None) -> None:
+        """Add the rows ``start ..`` of ``block`` (``groups``: their group codes, grouped folds)."""
         # sub-blocks keep the (rows x k) temporaries small whatever the chunk size
         step = max(256, (4 << 20) // (8 * max(self.k * self.t, self.fit.fac.rank, 1)))
         for off in range(0, block.shape[0], step):
             ub, yc = self.rows_u(block[off:off + step], p)
-            self.add_rows(start + off, ub, yc)
+            g = None if groups is None else groups[off:off + step]
+            self.add_rows(start + off, ub, yc, g)
 
-    def add_rows(self, start: int, ub: np.ndarray, yc: np.ndarray) -> None:
+    def add_rows(self, start: int, ub: np.ndarray, yc: np.ndarray, groups=None) -> None:
         fit = self.fit
         width = self.ra + self.t
         ell = algebra.naive_ell(self.state, ub)
@@ -408,11 +414,12 @@ class HatPass:
         if not keep.all():
             self.kept = np.vstack([self.kept, ua_y[~keep]])
         if self.n_folds:
-            labels = self.fold_of(start, ub.shape[0])
-            for f in np.unique(labels):
-                sel = labels == f
-                self.fold_r[f] = algebra.tsqr([self.fold_r[f], ua_y[sel]], width)
-                self.count[f] += int(sel.sum())
+            labels = self.folds.labels(start, ub.shape[0], groups)  # (R, b)
+            for rep, lab in enumerate(labels):
+                for f in np.unique(lab):
+                    sel = lab == f
+                    self.fold_r[rep][f] = algebra.tsqr([self.fold_r[rep][f], ua_y[sel]], width)
+                    self.count[rep, f] += int(sel.sum())
 
     @property
     def needs_others(self) -> bool:
@@ -439,8 +446,9 @@ class HatPass:
         self.r_other = algebra.tsqr([self.r_other, other.r_other], width)
         self.kept = np.vstack([self.kept, other.kept])
         if self.n_folds:
-            for f in range(self.n_folds):
-                self.fold_r[f] = algebra.tsqr([self.fold_r[f], other.fold_r[f]], width)
+            for rep, row in enumerate(self.fold_r):
+                for f in range(self.n_folds):
+                    row[f] = algebra.tsqr([row[f], other.fold_r[rep][f]], width)
             self.count += other.count
 
     def loo(self):
@@ -459,20 +467,97 @@ class HatPass:
         return (total[:-1] if self._added else total), total[-1]
 
     def kfold(self):
-        """K-fold CV MSE (k, t) and its standard error across folds (k, t)."""
+        """K-fold CV MSE (k, t) and its standard error across folds (k, t), averaged over
+        the repeats (as :func:`paths.selection.cv.cross_validate` pools them)."""
         if not self.n_folds:
             return None, None
         if np.any(self.count == 0):
-            raise InputError(f"{int(np.sum(self.count == 0))} of the {self.n_folds} folds are "
-                             "empty; use fewer folds")
+            raise InputError(f"{int(np.sum(self.count[0] == 0))} of the {self.n_folds} folds "
+                             "are empty; use fewer folds")
         width = self.ra + self.t
-        fold_r = np.stack([algebra.tsqr([R], width) for R in self.fold_r])
-        fold_mse = algebra.kfold_fold_mse(self.fit.fac.d, fold_r, self.count, self.lam,
-                                          n_fixed=self.state.n_fixed)
-        w = self.count / self.fit.design.n_samples
-        mse = np.einsum("f,fkt->kt", w, fold_mse)
-        se = fold_mse.std(axis=0, ddof=1) / np.sqrt(self.n_folds)
-        return mse, se
+        fold = np.stack([algebra.kfold_fold_mse(
+            self.fit.fac.d, np.stack([algebra.tsqr([R], width) for R in row]), count, self.lam,
+            n_fixed=self.state.n_fixed) for row, count in zip(self.fold_r, self.count)])
+        w = self.count / self.count.sum(axis=1, keepdims=True)  # (R, K)
+        pooled = np.einsum("rf,rfkt->rkt", w, fold)
+        se = fold.std(axis=1, ddof=1) / np.sqrt(self.n_folds)
+        return pooled.mean(axis=0), se.mean(axis=0)
+
+
+@dataclass(frozen=True)
+class FoldPlan:
+    """Which fold each row is in: :mod:`paths.data.folds`, as every engine assigns folds.
+
+    ``n_rows`` rows (the training rows, in order) are split into ``n_folds``
+    folds by ``scheme``, ``repeats`` times; for grouped folds ``group_fold``
+    (R, G) gives each group's fold (groups coded in sorted label order).
+    """
+
+    n_folds: int
+    n_rows: int
+    scheme: str = "shuffled"
+    seed: int = 0
+    repeats: int = 1
+    group_fold: np.ndarray | None = None
+
+    def labels(self, start: int, rows: int, groups=None) -> np.ndarray:
+        """Fold labels (R, rows) of rows ``start .. start + rows - 1``."""
+        if self.scheme == "grouped":
+            return self.group_fold[:, np.asarray(groups, dtype=np.intp)]
+        idx = np.arange(start, start + rows)
+        return np.stack([fold_labels(idx, self.n_rows, self.n_folds, scheme=self.scheme,
+                                     seed=self.seed, repeat=i) for i in range(self.repeats)])
+
+
+def check_cv_options(cv, scheme, repeats) -> None:
+    """One-line errors for K-fold options a streamed engine is given."""
+    if cv is None:
+        if isinstance(repeats, bool) or repeats != 1:
+            raise InputError("repeats needs K-fold CV (cv=K; CLI: --cv K)")
+        return
+    if isinstance(cv, bool) or int(cv) != cv or cv < 2:
+        raise InputError(f"cv must be an integer >= 2 (number of folds); got {cv!r}")
+    if isinstance(repeats, bool) or int(repeats) != repeats or repeats < 1:
+        raise InputError(f"repeats must be an integer >= 1; got {repeats!r}")
+    if scheme == "blocked" and repeats > 1:
+        raise InputError("blocked folds are deterministic; use repeats=1 (or shuffled folds)")
+
+
+def fold_plan(n: int, cv: int, *, scheme="shuffled", seed=0, repeats=1, group_counts=None,
+              fit_intercept: bool = True) -> FoldPlan:
+    """The :class:`FoldPlan` of ``n`` training rows (checked as
+    :func:`paths.selection.cv.make_folds` checks folds)."""
+    from paths.data.folds import group_folds
+
+    K = int(cv)
+    if group_counts is not None:
+        if group_counts.size < K:
+            raise InputError(f"{group_counts.size} groups cannot fill {K} folds; use at most "
+                             f"{group_counts.size} folds")
+        gf = np.stack([group_folds(group_counts, K, seed=seed, repeat=i) for i in range(repeats)])
+        sizes = np.stack([np.bincount(g, weights=group_counts, minlength=K) for g in gf])
+        plan = FoldPlan(n_folds=K, n_rows=n, scheme="grouped", seed=seed, repeats=int(repeats),
+                        group_fold=gf)
+    else:
+        if n < K:
+            raise InputError(f"fewer rows ({n}) than folds ({K}); choose 2 to {n} folds")
+        q, r = divmod(n, K)
+        sizes = np.array([[q + (f < r) for f in range(K)]])
+        plan = FoldPlan(n_folds=K, n_rows=n, scheme=scheme, seed=seed, repeats=int(repeats))
+    need = 2 if fit_intercept else 1
+    if n - sizes.max() < need:
+        raise InputError(f"a fold of {int(sizes.max())} of {n} rows leaves fewer than {need} "
+                         "training rows; use more folds or more rows")
+    return plan
+
+
+def cv_note(plan: FoldPlan) -> str:
+    """The data note of a streamed engine's K-fold CV."""
+    how = {"shuffled": f"seeded shuffle, seed {plan.seed}", "blocked": "contiguous blocks of rows",
+           "grouped": f"whole groups, seed {plan.seed}"}[plan.scheme]
+    reps = f" x {plan.repeats} repeats" if plan.repeats > 1 else ""
+    return (f"{plan.n_folds}-fold CV{reps} with preprocessing (centering, scaling) from all "
+            f"training rows; {how} (paths.data.folds, as every engine assigns folds)")
 
 
 # --------------------------------------------------------------------------- result
@@ -652,6 +737,10 @@ def stream_path(
     loo: bool = True,
     cv: int | None = None,
     cv_seed: int | None = None,
+    repeats: int = 1,
+    groups=None,
+    holdout: float | None = None,
+    seed: int = 0,
     rank: int | None = None,
     progress=None,
 ) -> StreamPath:
@@ -741,18 +830,37 @@ def stream_path(
     ((100, 10), 'stream')
     """
     src = open_rows(data, target, features=features, sep=sep, chunk_rows=chunk_rows, y=y)
+    if isinstance(groups, str) and groups in src.feature_names:
+        if features is not None:
+            raise InputError(f"groups column {groups!r} is also a feature; leave it out of "
+                             "the features")
+        src = open_rows(data, target, features=[c for c in src.feature_names if c != groups],
+                        sep=sep, chunk_rows=chunk_rows)
     p = src.n_features
     if n_lambdas < 1:
         raise InputError(f"n_lambdas must be at least 1; got {n_lambdas}")
-    if cv is not None and (int(cv) != cv or cv < 2):
-        raise InputError(f"cv must be an integer >= 2 (number of folds); got {cv!r}")
+    if test is not None and holdout is not None:
+        raise InputError("pass either a test set or a holdout fraction, not both")
+    group_src = None if groups is None else GroupValues(groups, src, sep=sep)
+    scheme = "grouped" if groups is not None else "blocked" if cv_seed is None else "shuffled"
+    check_cv_options(cv, scheme, repeats)
     lam_user = None if lambdas is None else as_lambdas(lambdas)
     test_src = None
-    if test is not None:
+    if holdout is not None:
+        n_all = count_rows(src, progress)
+        full = src
+        src = HoldoutRows(full, n_all, holdout, seed, test=False)
+        test_src = HoldoutRows(full, n_all, holdout, seed, test=True)
+        if group_src is not None:
+            group_src = group_src.subset(src)
+    elif test is not None:
         test_src = open_rows(test, target if target is not None else src.target_names,
                              features=src.feature_names if not isinstance(test, RowSource) and
                              not hasattr(test, "shape") else None,
                              sep=sep, chunk_rows=chunk_rows, y=y_test)
+    counts = None if group_src is None else group_src.counts(progress)
+    if counts is not None and cv is None:
+        cv = int(min(10, counts.size))
     passes = []
     merger = PairwiseMerger()
     label1 = "pass 1/2: moments (X'X, X'y, y'y)" if loo or cv else "pass 1/1: moments (X'X, X'y, y'y)"
@@ -777,11 +885,15 @@ def stream_path(
     if loo or cv:
         label2 = ("pass 2/2: hat diagonals for exact leave-one-out"
                   + (f" and {cv}-fold CV" if cv else ""))
-        hp = HatPass(fit, lam, n_folds=cv or 0, fold_seed=cv_seed)
+        plan = None if not cv else fold_plan(
+            mom.n, cv, scheme=scheme, seed=0 if cv_seed is None else int(cv_seed),
+            repeats=repeats, group_counts=counts, fit_intercept=fit_intercept)
+        hp = HatPass(fit, lam, folds=plan)
+        codes = None if plan is None or group_src is None else group_src.codes()
         t0 = time.perf_counter()
         rows2 = 0
         for start, block in src:
-            hp.add(start, block, p)
+            hp.add(start, block, p, None if codes is None else codes.take(start, block.shape[0]))
             rows2 = start + block.shape[0]
             if progress:
                 progress(label2, rows2, mom.n)
@@ -801,9 +913,7 @@ def stream_path(
         loo_mse, loo0 = hp.loo()
         if cv:
             cvres = hp.kfold()
-            notes.append(f"{cv}-fold CV with preprocessing (centering, scaling) from all rows; "
-                         + ("seeded shuffle (the in-memory engine's folds), seed " + str(cv_seed) if cv_seed is not None
-                            else "contiguous blocks of rows"))
+            notes.append(cv_note(plan))
     else:
         notes.append("leave-one-out skipped (loo=False): no second pass")
     if rank is not None:

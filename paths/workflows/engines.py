@@ -23,13 +23,23 @@ __all__ = ["explore_engine", "unsupported_options", "write_engine_fit", "ENGINES
 
 ENGINES = ("memory", "stream", "dask")
 _HASH_LIMIT = 2 << 30  # files above 2 GiB are recorded by size, not hashed (another full read)
-# options the out-of-memory engines do not offer yet (they keep their defaults)
-_DATA_ONLY_IN_MEMORY = ("holdout", "groups", "id_column", "encode", "drop_missing", "weights")
-_FIT_ONLY_IN_MEMORY = ("repeats", "cv_scaling", "rule", "solver", "unpenalized",
-                       "relative_penalty", "intervals")
+# options the out-of-memory engines do not offer (they keep their defaults)
+_DATA_ONLY_IN_MEMORY = ("encode", "drop_missing", "weights")
+_FIT_ONLY_IN_MEMORY = ("cv_scaling", "rule", "solver", "unpenalized", "relative_penalty",
+                       "intervals")
 _WHY = {**{name: " (its one-pass moments are unweighted and penalize every column)"
            for name in ("weights", "unpenalized", "relative_penalty")},
-        "intervals": " (the leave-out fits use the left singular vectors)"}
+        "intervals": " (the leave-out fits use the left singular vectors)",
+        "encode": (" (one-hot columns need every level of every text column before the first "
+                   "pass, which a streamed engine never holds; encode the columns beforehand, "
+                   "e.g. pandas.get_dummies)"),
+        "drop_missing": (" (rows or columns would be dropped only as the chunks arrive, after "
+                         "the row count that fixes the holdout and the folds; remove the "
+                         "missing values beforehand)"),
+        "cv_scaling": (" (per-fold scaling refits every fold on its own scaling, which needs "
+                       "each fold's rows again in memory; use cv_scaling global)"),
+        "solver": (" (the streamed engines factor the p x p moments: their route is "
+                   "accurate=True (QR of the rows) or the Gram matrix)")}
 
 
 def unsupported_options(data: DataOptions, fit: FitOptions) -> list:
@@ -131,9 +141,16 @@ def _plan(data: DataOptions):
         if missing:
             shown = ", ".join(names[:8]) + (" ..." if len(names) > 8 else "")
             raise InputError(f"{path}: target column {missing[0]!r} not found; columns are: {shown}")
-        feats = _resolve_features(names, targets, data.features, data.exclude)
-    elif data.features or data.exclude:
-        raise InputError(f"{path}: features/exclude need named columns (CSV or Parquet)")
+        for col, flag in ((data.id_column, "id_column"), (data.groups, "groups")):
+            if col is not None and col not in names:
+                raise InputError(f"{path}: {flag} column {col!r} not found; columns are: "
+                                 f"{', '.join(names[:8])}")
+        keep_out = [c for c in (data.id_column, data.groups) if c is not None]
+        feats = _resolve_features([c for c in names if c not in keep_out], targets,
+                                  data.features, data.exclude)
+    elif data.features or data.exclude or data.id_column or data.groups:
+        raise InputError(f"{path}: features/exclude/id_column/groups need named columns "
+                         "(CSV or Parquet)")
     wide = rows is not None and feats is not None and len(feats) > rows
     return path, targets, feats, wide, rows
 
@@ -145,7 +162,11 @@ def _fit(data: DataOptions, fit: FitOptions, engine: EngineOptions, progress):
     name = engine.name
     path, targets, feats, wide, rows = _plan(data)
     test = data.test_file
-    cv_seed = fit.seed if fit.fold_scheme == "shuffled" else None
+    cv_seed = _cv_seed(data, fit)
+    if wide and (data.holdout is not None or data.groups is not None or fit.repeats != 1):
+        raise InputError(f"{path} is wide ({rows} rows x {len(feats)} features): holdout, "
+                         "groups and repeats are not available with wide data on the streamed "
+                         "engines yet; use engine memory")
     if wide:
         from paths.engines.wide import wide_path
 
@@ -168,25 +189,41 @@ def _fit(data: DataOptions, fit: FitOptions, engine: EngineOptions, progress):
                            chunk_rows=engine.chunk_rows or DEFAULT_CHUNK_ROWS,
                            accurate=engine.accurate, standardize=fit.standardize, test=test,
                            n_lambdas=fit.n_lambdas, cv=fit.n_folds, cv_seed=cv_seed,
-                           rank=engine.rank, progress=progress)
+                           repeats=fit.repeats, groups=data.groups, holdout=data.holdout,
+                           seed=fit.seed, rank=engine.rank, progress=progress)
     from paths.engines.dask_cluster import dask_path
 
+    if data.groups is not None:
+        raise InputError("groups with engine dask: the group labels of every row would have to "
+                         "be gathered on the client; use engine stream (it reads them in "
+                         "chunks) or engine memory")
     if engine.scheduler is not None:  # a remote scheduler's workers do not share our folder
         path = path.resolve()
         test = None if test is None else Path(test).resolve()
     return dask_path(path, target=targets, features=feats, chunk_rows=engine.chunk_rows,
                      accurate=engine.accurate, scheduler=engine.scheduler,
                      timeout=engine.scheduler_timeout, standardize=fit.standardize, test=test,
-                     n_lambdas=fit.n_lambdas, cv=fit.n_folds, cv_seed=cv_seed, rank=engine.rank,
+                     n_lambdas=fit.n_lambdas, cv=fit.n_folds, cv_seed=cv_seed,
+                     repeats=fit.repeats, holdout=data.holdout, seed=fit.seed, rank=engine.rank,
                      progress=progress)
 
 
-def _engine_record(result, cv_seed) -> tuple:
+def _cv_seed(data: DataOptions, fit: FitOptions):
+    """The fold seed of the streamed engines: None for blocked folds (not with groups)."""
+    if data.groups is not None:
+        if fit.fold_scheme == "blocked":
+            raise InputError("groups makes grouped folds; drop fold scheme blocked")
+        return fit.seed
+    return fit.seed if fit.fold_scheme == "shuffled" else None
+
+
+def _engine_record(result, cv_seed, data: DataOptions, fit: FitOptions) -> tuple:
     """(cv record or None, cv selection or None) of an engine's result: grid minima."""
     if result.cv_mse is None:
         return None, None
-    record = {"n_folds": result.n_folds, "repeats": 1,
-              "scheme": "blocked" if cv_seed is None else "shuffled",
+    record = {"n_folds": result.n_folds, "repeats": fit.repeats,
+              "scheme": ("grouped" if data.groups is not None
+                         else "blocked" if cv_seed is None else "shuffled"),
               "seed": cv_seed, "scaling": "global", "method": "hat-diagonal blocks",
               "form": "woodbury", "mse": np.asarray(result.cv_mse).tolist(),
               "se": np.asarray(result.cv_se).tolist()}
@@ -235,11 +272,14 @@ def _engine_summary(result, data, fit, output, digests, hash_notes) -> dict:
     from paths.present.summary import summary_dict
 
     targets = list(data.target)
-    cv_seed = fit.seed if fit.fold_scheme == "shuffled" else None
-    record, cv_sel = _engine_record(result, cv_seed)
+    cv_seed = _cv_seed(data, fit)
+    record, cv_sel = _engine_record(result, cv_seed, data, fit)
+    split = None
+    if data.holdout is not None:
+        split = {"holdout": data.holdout, "seed": fit.seed, "n_test": int(result.n_test)}
     summary = summary_dict(
         result, target=targets[0] if len(targets) == 1 else targets, source=str(data.file),
-        input_sha256=digests, split=None, command_line=command_text(output),
+        input_sha256=digests, split=split, command_line=command_text(output),
         data_notes=list(result.notes) + hash_notes, engine=result.engine_record(), cv=record)
     if cv_sel is not None:
         summary["selected"]["cv"] = cv_sel
