@@ -251,9 +251,16 @@ def noise_variance(path, *, gcv_lambda=None) -> NoiseEstimate:
     m, r = fac.u.shape
     n = design.n_samples
     t = path.uty.shape[1]
+    state = _state_of(path)
+    streamed = fac.u.shape[0] == 0  # a streamed path: no left factor, the state's sums
+    if streamed:
+        m = state.m
     if m - r >= 1:
-        resid = design.zy - fac.u @ path.uty
-        rss = np.einsum("it,it->t", resid, resid)
+        if streamed:
+            rss = np.asarray(state.rss_out, dtype=float).reshape(t)
+        else:
+            resid = design.zy - fac.u @ path.uty
+            rss = np.einsum("it,it->t", resid, resid)
         dof = float(m - r)
         val = rss / dof
         fixed = design.n_fixed  # the intercept, and unpenalized columns
@@ -586,6 +593,8 @@ def _estimate(path, cv, lam, j, loo_se_cache):
     if cv is not None:
         mse, se = cv.at(lam)
         return _col(mse, j), _col(se, j), "cv"
+    if getattr(path, "loo_at", None) is not None:  # a streamed path: one pass over the rows
+        return float(path.loo_at(np.array([lam]))[0, j]), None, "loo"  # no per-row errors: no SE
     res = loo_residuals(path, np.array([lam]))  # (n, 1[, t])
     e2 = np.square(res[:, 0] if res.ndim == 2 else res[:, 0, j])
     w = path.design.sample_weight
