@@ -17,6 +17,10 @@ from paths.data.validation import InputError
 from paths.core.design import prepare
 from paths.core.factor import factorize
 
+# numerical reference checks (mpmath, scikit-learn, numpy, published bounds): CI reruns
+# them under a forced OpenBLAS kernel (.ci/run)
+pytestmark = pytest.mark.reference
+
 EPS = np.finfo(np.float64).eps
 
 
@@ -267,3 +271,32 @@ def test_property_rank_and_pinv(m, q, k, seed, solver):
     coef = f.vt.T @ ((f.u.T @ y) / f.d) if f.rank else np.zeros(q)
     cond = d[0] / d[f.rank - 1] if f.rank else 1.0
     assert np.linalg.norm(coef - ref) <= 100 * cond**2 * EPS * max(np.linalg.norm(ref), 1e-300)
+
+
+def test_forced_gram_never_cuts_the_rank_silently():
+    """A 50 x 50 near-duplicate design (pairs of columns 1e-7 apart, labelled
+    synthetic): the SVD route (LAPACK gesdd, reference) keeps rank 49 of the
+    centered design; a forced Gram route cannot resolve singular values below
+    sqrt(max(m, q) eps) d_max (eigenvalues move by ~eps d_max^2, Golub & Van Loan
+    2013, Theorem 8.1.4), so it keeps fewer and must say so: a RankCutWarning
+    naming the rank kept and that limit, and a reason saying the condition number
+    covers the kept values only."""
+    from paths import fit_path
+    from paths.core.factor import RankCutWarning
+
+    rng = np.random.default_rng(0)
+    A = rng.standard_normal((50, 25))
+    X = np.repeat(A, 2, axis=1) + 1e-7 * rng.standard_normal((50, 50))
+    y = A.sum(axis=1) + rng.standard_normal(50)
+    full = fit_path(X, y, [1e-12], solver="svd")
+    assert full.rank == 49
+    with pytest.warns(RankCutWarning, match=r"kept rank (\d+) of 49") as rec:
+        cut = fit_path(X, y, [1e-12], solver="gram")
+    assert cut.rank < 49
+    msg = str(rec[0].message)
+    assert f"kept rank {cut.rank} of 49" in msg and "solver='svd'" in msg
+    limit = np.sqrt(50 * EPS) * cut.singular_values[0]
+    assert f"{cut.rank_tol:.3g}" in msg and cut.rank_tol >= limit * (1 - 1e-12)
+    assert "covers the kept values only" in cut.solver_reason
+    # the condition number is that of the kept values, as documented
+    assert cut.condition_number == cut.singular_values[0] / cut.singular_values[-1]

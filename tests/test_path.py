@@ -17,6 +17,10 @@ from sklearn.preprocessing import StandardScaler
 from paths import fit_path
 from paths.data.validation import InputError
 
+# numerical reference checks (mpmath, scikit-learn, numpy, published bounds): CI reruns
+# them under a forced OpenBLAS kernel (.ci/run)
+pytestmark = pytest.mark.reference
+
 EPS = np.finfo(np.float64).eps
 
 # Shapes: p < n, p = n, p > n.  With an intercept the centered design has rank

@@ -79,7 +79,7 @@ def test_ridge_methods_match_scikit_learn_and_explicit_gcv():
     """ridge_fixed, ridge_gcv and ridge_oracle at their recorded penalties equal
     scikit-learn Ridge(alpha=lambda) on the standardized subset (train and test MSE, rtol
     1e-8); the GCV choice minimizes n RSS/(n - tr H)^2 computed from the explicit hat
-    matrix (Golub, Heath & Wahba 1979) over the documented grid; the oracle's test MSE is
+    matrix (Golub, Heath & Wahba 1979) over the documented grid and guard; the oracle's test MSE is
     the grid minimum, so no grid penalty (min-norm included) beats it."""
     Xtr, ytr, Xte, yte = _data(seed=4)
     fits = []
@@ -107,7 +107,11 @@ def test_ridge_methods_match_scikit_learn_and_explicit_gcv():
             H = np.full((n, n), 1.0 / n) + Ac @ np.linalg.solve(
                 Ac.T @ Ac + lam * np.eye(Ac.shape[1]), Ac.T)
             r = ytr - H @ ytr
-            gcv.append(n * (r @ r) / (n - np.trace(H)) ** 2)
+            resid_df = n - np.trace(H)
+            # the documented guard (docs/threshold.md, Li 1987): only penalties leaving
+            # at least max(1, m/10) residual degrees of freedom, m = n - 1
+            ok = resid_df >= max(1.0, 0.1 * (n - 1))
+            gcv.append(n * (r @ r) / resid_df ** 2 if ok else np.inf)
         best = grid[int(np.argmin(gcv))]
         got = res.lam[0, pt.index, METHODS.index("ridge_gcv")]
         if got > 0:

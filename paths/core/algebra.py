@@ -737,18 +737,18 @@ def coefficients(state: FactorState, lam, design) -> np.ndarray:
         return _span_coefficients(state, g, design)
     k, t = lam.size, state.n_targets
     act = design.active
-    inv_scale = 1.0 / design.x_scale[act]
-    scaled = not np.all(inv_scale == 1.0)
+    scale = design.x_scale[act]  # divided, not multiplied by 1/scale: a subnormal
+    scaled = not np.all(scale == 1.0)  # scale has no finite reciprocal
     if t == 1 and act.all():
         cj = (g * state.uty).T @ state.vt  # (k, p)
         if scaled:
-            cj *= inv_scale
+            cj /= scale
         return cj[:, :, None]
     coef = np.zeros((k, design.n_features, t))
     for j in range(t):
         cj = (g * state.uty[:, j:j + 1]).T @ state.vt
         if scaled:
-            cj *= inv_scale
+            cj /= scale
         coef[:, act, j] = cj
     return coef
 

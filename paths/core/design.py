@@ -179,6 +179,15 @@ def prepare(X: np.ndarray, Y: np.ndarray, *, fit_intercept: bool,
     to its own magnitude, so the test is scale free).
     """
     n, p = X.shape
+    g = _power_of_two_scales(X) if standardize else None
+    if g is not None:  # extreme columns: exact rescaling, absorbed by the standardization
+        design, z = prepare(X / g, Y, fit_intercept=fit_intercept, standardize=True)
+        x_mean = design.x_mean * g
+        scale = design.x_scale * g  # Z = (X/g - m)/s = (X - m g)/(s g)
+        _readonly(x_mean, scale)
+        return Design(zy=design.zy, x_mean=x_mean, x_scale=scale, y_mean=design.y_mean,
+                      active=design.active, n_samples=n, fit_intercept=fit_intercept,
+                      standardize=True), z
     x_max, x_min = X.max(axis=0), X.min(axis=0)
     absmax = np.maximum(x_max, -x_min)  # = max |x_ij|, without an |X|-sized temporary
     if fit_intercept:
@@ -217,6 +226,22 @@ def prepare(X: np.ndarray, Y: np.ndarray, *, fit_intercept: bool,
         standardize=standardize,
     )
     return design, Z
+
+
+def _power_of_two_scales(X: np.ndarray) -> np.ndarray | None:
+    """Powers of two that bring extreme columns (max |x| beyond 2**±400) near 1, else None.
+
+    Dividing by a power of two is exact (IEEE 754), so standardizing ``X / g``
+    gives the same standardized design as ``X`` would in exact arithmetic, while
+    sums of n values near 1e308 no longer overflow and subnormal columns regain
+    normal range.
+    """
+    absmax = np.maximum(X.max(axis=0), -X.min(axis=0))
+    extreme = (absmax > 2.0**400) | ((absmax > 0) & (absmax < 2.0**-400))
+    if not extreme.any():
+        return None
+    _, e = np.frexp(np.where(extreme, absmax, 1.0))
+    return np.ldexp(1.0, np.where(extreme, e, 0).astype(int))
 
 
 def column_norms(A: np.ndarray) -> np.ndarray:

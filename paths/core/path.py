@@ -17,7 +17,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from paths.data.validation import (InputError, as_count, as_design, as_lambdas, as_response,
-                                   as_weights, check_memory, feature_names_of)
+                                   as_weights, check_feature_range, check_memory,
+                                   check_response_range, feature_names_of)
 from paths.core.design import Design, prepare, prepare_weighted, to_sample_space
 from paths.core.factor import Factorization, factorize
 from paths.core.grid import default_grid
@@ -105,7 +106,10 @@ class RidgePath:
         Singular values at or below this were treated as zero.
     singular_values : ndarray, shape (rank,)
     condition_number : float
-        ``singular_values[0] / singular_values[-1]``.
+        ``singular_values[0] / singular_values[-1]``: it covers the ``rank``
+        retained singular values only (those dropped as numerically zero, or as
+        too small for a forced Gram route to resolve, are not in it; a forced
+        Gram route that drops any says so with a ``RankCutWarning``).
     min_norm : MinNormFit
     solver, solver_reason : str
     n_samples, n_features, n_test : int
@@ -374,14 +378,9 @@ def fit_path(
             f"X has {n} row; at least 2 samples are needed to fit an intercept "
             "(or pass fit_intercept=False)"
         )
-    spread = (Y.max(axis=0) > Y.min(axis=0)) if fit_intercept else np.any(Y != 0, axis=0)
-    if not spread.all():
-        j = int(np.flatnonzero(~spread)[0])
-        label = f"target column {j}" if multi else "y"
-        raise InputError(
-            f"{label} is constant (every value {float(Y[0, j]):g}); there is nothing to fit — "
-            "check the target column"
-        )
+    check_response_range(Y, fit_intercept=fit_intercept)
+    y_size = float(np.max(np.ptp(Y, axis=0) if fit_intercept else np.abs(Y).max(axis=0)))
+    check_feature_range(X, standardize=standardize, y_size=y_size, names=names)
     n_lambdas = as_count(n_lambdas, "n_lambdas")
     n_pen = n_lambdas if lambdas is None else np.size(lambdas)
     check_memory(8.0 * n_pen * (2.0 * p * Y.shape[1] + (n + 16) * Y.shape[1]),

@@ -12,7 +12,12 @@ import os
 import numpy as np
 
 __all__ = ["InputError", "as_design", "as_response", "as_lambdas", "as_count", "check_rows_for_cv",
-           "available_memory", "check_memory"]
+           "available_memory", "check_memory", "check_response_range", "check_feature_range",
+           "check_response_bounds", "check_feature_bounds"]
+
+_EPS = np.finfo(np.float64).eps
+_TINY = np.finfo(np.float64).tiny
+_HUGE = np.finfo(np.float64).max
 
 
 class InputError(ValueError):
@@ -279,3 +284,130 @@ def as_weights(w, n: int, what: str = "sample_weight") -> np.ndarray:
         raise InputError(f"{what} must be positive; value {arr[i]!r} at row {i} — drop rows "
                          "with zero weight instead")
     return arr
+
+
+def _decade(v: float) -> str:
+    return f"1e{int(np.floor(np.log10(v)))}"
+
+
+def _spread_of(lo: np.ndarray, hi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Per column ``(max |a|, max - min)`` from the bounds, the latter without overflow."""
+    absmax = np.maximum(hi, -lo)
+    with np.errstate(over="ignore"):
+        spread = hi - lo  # exact for subnormals; inf (then the largest float) on overflow
+    return absmax, np.minimum(spread, _HUGE)
+
+
+def check_response_range(Y: np.ndarray, *, fit_intercept: bool, names=None) -> None:
+    """Refuse a response whose criteria cannot be represented, or that is constant.
+
+    Parameters
+    ----------
+    Y : ndarray, shape (n, t)
+        Finite response (validated by :func:`as_response`).
+    fit_intercept : bool
+    names : list of str, optional
+        Target names, for the message.
+
+    Notes
+    -----
+    The criteria (training, GCV, leave-one-out, test MSE) are mean squares of
+    residuals, of the order of the squared spread :math:`s^2` of the response
+    (:math:`s = \\max y - \\min y`, or :math:`\\max|y|` without an intercept);
+    their sums of n terms must stay finite, :math:`n s^2 < ` the largest float,
+    and their values must stay normal numbers (:math:`s^2 \\ge 10^6` tiny, about
+    2e-302, the margin the factorization's own range check uses), else digits
+    are lost or they are 0.  A response is constant when
+    its spread is at most :math:`n\\,\\varepsilon\\max|y|` (rounding level
+    relative to its own size: the test the columns use), not only when all
+    values are equal.
+    """
+    check_response_bounds(Y.min(axis=0), Y.max(axis=0), Y.shape[0],
+                          fit_intercept=fit_intercept, names=names)
+
+
+def check_response_bounds(lo, hi, n: int, *, fit_intercept: bool, names=None) -> None:
+    """:func:`check_response_range` from per-target minima and maxima (streaming engines)."""
+    lo, hi = np.asarray(lo, dtype=float), np.asarray(hi, dtype=float)
+    absmax, spread = _spread_of(lo, hi)
+    size = spread if fit_intercept else absmax
+    for j in range(lo.size):
+        label = (f"target {names[j]!r}" if names is not None
+                 else ("y" if lo.size == 1 else f"target column {j}"))
+        if spread[j] == 0 and (fit_intercept or absmax[j] == 0):
+            raise InputError(f"{label} is constant (every value {float(lo[j]):g}); there is "
+                             "nothing to fit — check the target column")
+        if (fit_intercept and spread[j] <= n * _EPS * absmax[j]) or absmax[j] == 0:
+            raise InputError(
+                f"{label} is constant up to rounding (values within {spread[j]:.3g} of "
+                f"{float(lo[j])!r}, at most n*eps of their size); there is nothing to fit — "
+                "check the target column")
+        if size[j] > np.sqrt(_HUGE / n) / 2:
+            raise InputError(
+                f"{label} spans {size[j]:.3g}: its squared errors (the scale of the MSE, GCV "
+                f"and leave-one-out criteria) leave the float64 range; rescale it (e.g. divide "
+                f"by {_decade(size[j] / 1e6)})")
+        if size[j] ** 2 < 1e6 * _TINY:
+            raise InputError(
+                f"{label} spans only {size[j]:.3g}: its squared errors (the scale of the MSE, "
+                "GCV and leave-one-out criteria) underflow float64; rescale it (e.g. multiply "
+                f"by {_decade(1e6 / size[j])})")
+
+
+def check_feature_range(X: np.ndarray, *, standardize: bool, y_size: float = 1.0,
+                        names=None) -> None:
+    """Refuse feature columns whose penalty scale or coefficients leave the float64 range.
+
+    Parameters
+    ----------
+    X : ndarray, shape (n, p)
+        Finite design.
+    standardize : bool
+    y_size : float
+        Spread of the response (coefficients are of order ``y_size / column size``).
+    names : list of str, optional
+
+    Notes
+    -----
+    Standardized columns are rescaled exactly (by a power of two) before
+    centering, so any finite column can be used, as long as its coefficient,
+    of order spread(y) / spread(x), is a normal float64 (within 1e±300).
+    Without standardization the penalty acts on the squared singular values,
+    of order :math:`n \\max|x|^2`, which must be normal numbers.
+    """
+    check_feature_bounds(X.min(axis=0), X.max(axis=0), X.shape[0], standardize=standardize,
+                         y_size=y_size, names=names)
+
+
+def check_feature_bounds(lo, hi, n: int, *, standardize: bool, y_size: float = 1.0,
+                         names=None, rescalable: bool = True) -> None:
+    """:func:`check_feature_range` from per-column minima and maxima.
+
+    ``rescalable=False`` (engines that accumulate cross products chunk by chunk
+    and do not rescale columns) also refuses standardized columns beyond
+    2**±400, whose squares would overflow or underflow there.
+    """
+    lo, hi = np.asarray(lo, dtype=float), np.asarray(hi, dtype=float)
+    absmax, spread = _spread_of(lo, hi)
+    size = np.where(spread > 0, spread, absmax)
+    bad = np.zeros(size.size, dtype=bool)
+    why = ""
+    if not standardize:
+        bad = (size > np.sqrt(_HUGE / n) / 2) | ((size > 0) & (size < np.sqrt(1e6 * _TINY)))
+        why = ("without standardization the penalty acts on its squares, which leave the "
+               "float64 range; pass standardize=True (--standardize) or rescale it")
+    elif not rescalable:
+        bad = (absmax > 2.0**400) | ((absmax > 0) & (absmax < 2.0**-400))
+        why = ("this engine accumulates its squares, which would leave the float64 range, "
+               "and does not rescale columns; rescale it (or fit in memory)")
+    if not bad.any():
+        with np.errstate(divide="ignore", over="ignore"):
+            ratio = np.where(size > 0, y_size / np.where(size > 0, size, 1.0), 1.0)
+        bad = (ratio > 1e300) | (ratio < 1e-300)
+        why = ("its coefficient, of order spread(y)/spread(x), would leave the float64 range; "
+               "rescale the column")
+    if bad.any():
+        j = int(np.flatnonzero(bad)[0])
+        label = str(names[j]) if names is not None else f"column {j}"
+        more = "" if bad.sum() == 1 else f" (and {int(bad.sum()) - 1} more column(s))"
+        raise InputError(f"feature {label} spans {size[j]:.3g}{more}: {why}")

@@ -34,7 +34,8 @@ import numpy as np
 import scipy.linalg as sla
 
 from paths.data.folds import fold_labels
-from paths.data.validation import InputError, as_lambdas
+from paths.data.validation import (InputError, as_lambdas, check_feature_bounds,
+                                   check_response_bounds)
 from paths.data.chunks import (DEFAULT_CHUNK_ROWS, GroupValues, HoldoutRows, RowSource,
                                count_rows, open_rows)
 from paths.core.design import Design
@@ -103,12 +104,15 @@ def chunk_moments(block: np.ndarray, *, accurate: bool = False) -> Moments:
     >>> m.n, m.mean.tolist(), m.m2.tolist()
     (2, [2.0, 4.0], [[2.0, 4.0], [4.0, 8.0]])
     """
-    mean = block.mean(axis=0)
-    centered = block - mean
-    if accurate:
-        r, m2 = _qr_r(centered), None
-    else:
-        r, m2 = None, centered.T @ centered
+    # values outside the float64 range of their squares give non-finite moments here;
+    # the range checks on lo/hi (factor_moments) refuse them in one line before use
+    with np.errstate(over="ignore", invalid="ignore", under="ignore"):
+        mean = block.mean(axis=0)
+        centered = block - mean
+        if accurate:
+            r, m2 = _qr_r(centered), None
+        else:
+            r, m2 = None, centered.T @ centered
     lo, hi = block.min(axis=0), block.max(axis=0)
     return Moments(n=block.shape[0], mean=mean, m2=m2, r=r, lo=lo, hi=hi,
                    absmax=np.maximum(np.abs(lo), np.abs(hi)))
@@ -117,15 +121,16 @@ def chunk_moments(block: np.ndarray, *, accurate: bool = False) -> Moments:
 def merge_moments(a: Moments, b: Moments) -> Moments:
     """Merge the moments of two disjoint row blocks (Chan, Golub & LeVeque update)."""
     n = a.n + b.n
-    delta = b.mean - a.mean
-    mean = a.mean + delta * (b.n / n)
-    w = a.n * b.n / n
-    if a.r is not None:
-        r = _qr_r(np.vstack([a.r, b.r, np.sqrt(w) * delta[None, :]]))
-        m2 = None
-    else:
-        r = None
-        m2 = a.m2 + b.m2 + w * np.outer(delta, delta)
+    with np.errstate(over="ignore", invalid="ignore", under="ignore"):  # see chunk_moments
+        delta = b.mean - a.mean
+        mean = a.mean + delta * (b.n / n)
+        w = a.n * b.n / n
+        if a.r is not None:
+            r = _qr_r(np.vstack([a.r, b.r, np.sqrt(w) * delta[None, :]]))
+            m2 = None
+        else:
+            r = None
+            m2 = a.m2 + b.m2 + w * np.outer(delta, delta)
     return Moments(n=n, mean=mean, m2=m2, r=r, lo=np.minimum(a.lo, b.lo),
                    hi=np.maximum(a.hi, b.hi), absmax=np.maximum(a.absmax, b.absmax))
 
@@ -176,6 +181,11 @@ def _preprocess(mom: Moments, p: int, fit_intercept: bool, standardize: bool):
     """Means, scales and active columns, as :func:`paths.design.prepare` defines them."""
     n = mom.n
     t = mom.mean.size - p
+    # the in-memory engine's range checks (paths.data.validation), on the pass-1 bounds
+    check_response_bounds(mom.lo[p:], mom.hi[p:], n, fit_intercept=fit_intercept)
+    y_size = float(np.max(mom.hi[p:] - mom.lo[p:] if fit_intercept else mom.absmax[p:]))
+    check_feature_bounds(mom.lo[:p], mom.hi[:p], n, standardize=standardize, y_size=y_size,
+                         rescalable=False)
     if mom.r is not None:
         diag = np.einsum("ij,ij->j", mom.r, mom.r)
     else:

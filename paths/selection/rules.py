@@ -47,7 +47,8 @@ from scipy.optimize import brentq, minimize_scalar
 
 from paths.core import algebra
 from paths.data.validation import InputError
-from paths.core.grid import lambda_for_df
+from paths.core.grid import default_grid, lambda_for_df
+from paths.core import algebra
 from paths.selection.reml import reml_estimate
 
 __all__ = [
@@ -58,6 +59,7 @@ __all__ = [
     "SelectionReport",
     "parse_rule",
     "noise_variance",
+    "noise_variance_from_factors",
     "one_se_index",
     "lambda_for_fraction",
     "shrinkage_fraction",
@@ -231,71 +233,128 @@ def noise_variance(path, *, gcv_lambda=None) -> NoiseEstimate:
 
     Notes
     -----
+    See :func:`noise_variance_from_factors`, which this calls on the path's factors.
+    """
+    streamed = path.factorization.u.shape[0] == 0  # no left factor: the state's sums
+    return noise_variance_from_factors(path.factorization, path.design, path.uty,
+                                       path.lambdas, gcv_lambda=gcv_lambda,
+                                       multi=path.multi_target,
+                                       rss_out=path.state.rss_out if streamed else None)
+
+
+def noise_variance_from_factors(fac, design, uty, lambdas=None, *, gcv_lambda=None,
+                                multi: bool = False, rss_out=None) -> NoiseEstimate:
+    """Noise variance on the factors of a reduced design; never 0 unless y is fitted exactly.
+
+    Parameters
+    ----------
+    fac : Factorization
+    design : Design
+    uty : ndarray, shape (r, t)
+        ``fac.u.T @ design.zy``.
+    lambdas : array_like, optional
+        Grid on which GCV is minimized (then refined); default the package's grid.
+    gcv_lambda : float or array_like (t,), optional
+        The penalty of the ridge estimate, instead of the GCV minimum.
+    multi : bool
+        Keep the target axis in the result.
+    rss_out : ndarray, shape (t,), optional
+        A streamed path's residual sum of squares outside the span (its
+        factorization has no left factor; :attr:`FactorState.rss_out`).
+
+    Returns
+    -------
+    NoiseEstimate
+
+    Notes
+    -----
     OLS: :math:`\\hat\\sigma^2 = \\mathrm{RSS}/(n - r - 1)` with ``r`` the rank of the
     centered design (``p`` at full column rank; without an intercept
-    :math:`n - r`).  Otherwise ridge at the GCV choice:
-    :math:`\\hat\\sigma^2 = \\mathrm{RSS}(\\lambda)/(n - \\operatorname{tr}(2H - HH^T))`,
-    with :math:`n - \\operatorname{tr}(2H - HH^T) = (m - r) + \\sum_j s_j^2`,
-    :math:`s_j = \\lambda/(d_j^2+\\lambda)` (no cancellation).  When the GCV
-    choice leaves fewer than max(1, n/10) residual degrees of freedom (GCV can
-    prefer the interpolating limit past p = n), the penalty is raised until it
-    leaves that many — our choice, said in ``formula``.  The ridge estimate
-    is biased upward by the squared bias of the fit; it is accurate when the
-    signal is well captured at the chosen penalty.
+    :math:`n - r`).  Otherwise (p near or above n) the residual variance of the
+    ridge fit at the GCV choice, :math:`\\hat\\sigma^2 = \\mathrm{RSS}(\\lambda)/
+    \\operatorname{tr}(I - H_\\lambda)` (Wahba 1983), with
+    :math:`\\operatorname{tr}(I - H) = (m - r) + \\sum_j s_j`,
+    :math:`s_j = \\lambda/(d_j^2+\\lambda)` (no cancellation).  Under the
+    random-effects view of ridge (:math:`\\beta \\sim N(0, \\sigma^2 I/\\lambda^*)`)
+    it is unbiased at :math:`\\lambda = \\lambda^*`:
+    :math:`E[s_j^2 c_j^2] = \\sigma^2 s_j` there, so the squared bias of the fit
+    is counted, not ignored — which the denominator
+    :math:`n - \\operatorname{tr}(2H - H^2)` does, overestimating by the signal
+    left in the residual when p is much larger than n.  GCV estimates
+    :math:`\\lambda^*` (Golub, Heath & Wahba 1979).  When the GCV choice leaves
+    fewer than max(1, n/10) residual degrees of freedom (GCV can prefer the
+    interpolating limit near and past p = n, where the estimate would be 0),
+    the penalty is raised until it leaves that many — our rule, said in
+    ``formula``; the estimate is then positive whenever y is not fitted exactly.
+    Checked by simulation (``tests/test_select.py``): on 100 x 300 Gaussian
+    designs, isotropic and AR(1) with correlation 0.9, the mean over 30 repeats
+    is within 15 % (plus 3 Monte Carlo SE) of the true :math:`\\sigma^2`; at
+    p = 10 n with a strong signal (var(X beta) >= 2 sigma^2) it overestimates
+    by up to a factor 2.6 (GCV's penalty is then too large).
 
     References
     ----------
-    Hastie, T. and Tibshirani, R. (1990). *Generalized Additive Models*, §3.5.
+    Wahba, G. (1983). Bayesian "confidence intervals" for the cross-validated
+    smoothing spline. *J. R. Statist. Soc. B* 45, 133–150.
+
+    Golub, G. H., Heath, M. and Wahba, G. (1979). Generalized cross-validation
+    as a method for choosing a good ridge parameter. *Technometrics* 21, 215–223.
     """
-    fac, design = path.factorization, path.design
     m, r = fac.u.shape
     n = design.n_samples
-    t = path.uty.shape[1]
-    state = _state_of(path)
-    streamed = fac.u.shape[0] == 0  # a streamed path: no left factor, the state's sums
-    if streamed:
-        m = state.m
+    t = uty.shape[1]
+
+    def out(a):
+        a = np.asarray(a, dtype=float)
+        return a if multi else float(a.reshape(-1)[0])
+
+    if rss_out is not None:  # a streamed path: no left factor, the state's sums
+        m = design.n_samples - design.n_fixed
     if m - r >= 1:
-        if streamed:
-            rss = np.asarray(state.rss_out, dtype=float).reshape(t)
+        if rss_out is not None:
+            rss = np.asarray(rss_out, dtype=float).reshape(t)
         else:
-            resid = design.zy - fac.u @ path.uty
+            resid = design.zy - fac.u @ uty
             rss = np.einsum("it,it->t", resid, resid)
         dof = float(m - r)
-        val = rss / dof
         fixed = design.n_fixed  # the intercept, and unpenalized columns
         label = f"n - rank - {fixed}" if fixed else "n - rank"
         return NoiseEstimate(
-            value=_squeeze(val, path), method="ols",
+            value=out(rss / dof), method="ols",
             formula=f"OLS: RSS/({label}) = RSS/{dof:g}",
             dof=dof, lam=None, reference="least-squares residual variance (common practice)")
     if gcv_lambda is None:
-        lam = np.array([_refine_minimum(_gcv_fun(path, j), path.lambdas,
-                                        _gcv_values(path, path.lambdas, j))["lam"]
-                        for j in range(t)])
+        grid = default_grid(fac.d, 100) if lambdas is None else np.asarray(lambdas, float)
+
+        state = algebra.factor_state(fac, design)
+
+        def gcv(j):
+            return lambda lam: algebra.gcv(state, np.atleast_1d(lam))[:, j]
+
+        lam = np.array([_refine_minimum(gcv(j), grid, gcv(j)(grid))["lam"] for j in range(t)])
     else:
         lam = np.broadcast_to(np.asarray(gcv_lambda, dtype=float), (t,)).copy()
     d2 = np.square(fac.d)
     min_dof = max(1.0, 0.1 * n)
     raised = False
     for j in range(t):  # the estimate needs residual degrees of freedom
-        if (m - r) + float(np.sum(np.square(lam[j] / (d2 + lam[j])))) < min_dof:
-            g = lambda u: (m - r) + float(np.sum(np.square(np.exp(u) / (d2 + np.exp(u))))) - min_dof  # noqa: E731,E501
+        if (m - r) + float(np.sum(lam[j] / (d2 + lam[j]))) < min_dof:
+            g = lambda u: (m - r) + float(np.sum(np.exp(u) / (d2 + np.exp(u)))) - min_dof  # noqa: E731,E501
             lam[j] = float(np.exp(brentq(g, np.log(d2[-1]) - 40.0, np.log(d2[0]) + 40.0,
                                          xtol=1e-10)))
             raised = True
     vals, dofs = np.empty(t), np.empty(t)
     for j in range(t):
         s = lam[j] / (d2 + lam[j])
-        rss = float(np.sum(np.square(s * path.uty[:, j])))
-        dofs[j] = (m - r) + float(np.sum(np.square(s)))
+        rss = float(np.sum(np.square(s * uty[:, j])))
+        dofs[j] = (m - r) + float(np.sum(s))
         vals[j] = rss / dofs[j]
     return NoiseEstimate(
-        value=_squeeze(vals, path), method="ridge",
-        formula="ridge: RSS(lambda)/(n - tr(2H - HH^T)) at the GCV-chosen lambda"
+        value=out(vals), method="ridge",
+        formula="ridge: RSS(lambda)/tr(I - H) at the GCV-chosen lambda"
                 + (f" (raised to leave >= {min_dof:g} residual dof)" if raised else ""),
-        dof=_squeeze(dofs, path), lam=_squeeze(lam, path),
-        reference="Hastie & Tibshirani (1990), Generalized Additive Models, sec. 3.5")
+        dof=out(dofs), lam=out(lam),
+        reference="Wahba (1983), J. R. Statist. Soc. B 45, 133-150")
 
 
 def _squeeze(a, path):

@@ -44,6 +44,7 @@ from paths.core.design import Design, prepare, to_sample_space
 from paths.core.factor import Factorization, factorize
 from paths.core import algebra
 from paths.core.grid import lambda_for_df
+from paths.selection.rules import noise_variance_from_factors
 from paths.threshold import theory
 
 __all__ = [
@@ -190,16 +191,21 @@ def estimate_variances(X, y, *, fit_intercept: bool = True,
       (the OLS residual variance, unbiased for any design) and
       :math:`\\hat r^2 = \\max(s_y^2 - \\hat\\sigma^2, 0)` with :math:`s_y^2` the
       sample variance of the response;
-    - otherwise the moment estimator for isotropic Gaussian designs (Dicker
-      2014), from :math:`E\\|y\\|^2 = m(\\sigma^2 + r^2)` and
-      :math:`E\\|Z^Ty\\|^2 = m(m + 1 + q) r^2 + m q \\sigma^2` (second moment of a
-      Wishart matrix): :math:`\\hat r^2 = (\\|Z^Ty\\|^2 - q\\|y\\|^2)/(m(m+1))`,
-      :math:`\\hat\\sigma^2 = ((m+q+1)\\|y\\|^2 - \\|Z^Ty\\|^2)/(m(m+1))`, with the
-      standardized columns rescaled to unit mean square; both clipped to
-      :math:`[0, s_y^2]`.  It assumes roughly isotropic features.
+    - otherwise (p near or above n) the ridge residual variance
+      :math:`\\mathrm{RSS}(\\lambda)/\\operatorname{tr}(I - H_\\lambda)` at the GCV
+      penalty, raised if needed to leave max(1, n/10) residual degrees of freedom
+      (Wahba 1983; :func:`paths.selection.rules.noise_variance_from_factors`, the
+      estimator ``paths explore`` reports), positive unless y is fitted exactly,
+      and :math:`\\hat r^2 = \\max(s_y^2 - \\hat\\sigma^2, 0)`.  The moment estimator
+      for isotropic designs (Dicker 2014) is not used: on correlated designs
+      (gene-expression tables) it is biased towards 0 and was clipped to
+      exactly 0.
 
     References
     ----------
+    Wahba, G. (1983). Bayesian "confidence intervals" for the cross-validated
+    smoothing spline. *J. R. Statist. Soc. B* 45, 133–150.
+
     Dicker, L. H. (2014). Variance estimation in high-dimensional linear models.
     *Biometrika* 101, 269–284.
     """
@@ -208,12 +214,13 @@ def estimate_variances(X, y, *, fit_intercept: bool = True,
     if yv.ndim != 1:
         raise InputError("the threshold sweep takes one target; pass a single --target column")
     design, z = prepare(X, yv[:, None], fit_intercept=fit_intercept, standardize=standardize)
-    return _variances_from(z, design.zy[:, 0], factorize(z))
+    return _variances_from(design, factorize(z))
 
 
-def _variances_from(z: np.ndarray, zy: np.ndarray, fac: Factorization) -> VarianceEstimate:
-    """:func:`estimate_variances` on a reduced design and its factors."""
-    m, q = z.shape
+def _variances_from(design, fac: Factorization) -> VarianceEstimate:
+    """:func:`estimate_variances` on a prepared design (one target) and its factors."""
+    zy = design.zy[:, 0]
+    m, q = fac.u.shape[0], fac.vt.shape[1]
     s_y2 = float(zy @ zy) / max(m, 1)
     dof = m - fac.rank
     if dof >= max(5, m / 10):
@@ -225,17 +232,12 @@ def _variances_from(z: np.ndarray, zy: np.ndarray, fac: Factorization) -> Varian
             s2, max(s_y2 - s2, 0.0),
             f"OLS residual variance RSS/(n - rank - 1) on all {q} features ({dof} residual df)",
             "sample variance of the response minus the noise variance")
-    zs = z * np.sqrt(m / np.maximum(np.einsum("ij,ij->j", z, z), _EPS))
-    yy = float(zy @ zy)
-    zty = zs.T @ zy
-    g = float(zty @ zty)
-    r2 = (g - q * yy) / (m * (m + 1.0))
-    s2 = ((m + q + 1.0) * yy - g) / (m * (m + 1.0))
-    r2 = float(np.clip(r2, 0.0, s_y2))
-    s2 = float(np.clip(s2, 0.0, s_y2))
-    label = ("moment estimator for isotropic designs (Dicker 2014) on all "
-             f"{q} standardized features ({m} centered rows)")
-    return VarianceEstimate(s2, r2, label, label)
+    est = noise_variance_from_factors(fac, design, fac.u.T @ design.zy)
+    s2 = float(est.value)
+    label = (f"{est.formula} ({est.reference}), lambda = {float(est.lam):.4g}, on all {q} "
+             f"features ({m} centered rows)")
+    return VarianceEstimate(s2, max(s_y2 - s2, 0.0), label,
+                            "sample variance of the response minus the noise variance")
 
 
 # ----------------------------------------------------------------- results
@@ -530,11 +532,16 @@ def _fit_point(fac: Factorization, zy: np.ndarray, n: int, fit_intercept: bool,
     rss = algebra.rss(state, lam, sh)[:, 0]  # (K,)
     df = fit_intercept + sh.f.sum(axis=0)
     gcv = algebra.gcv(state, lam, sh)[:, 0]
-    if state.full_row_rank:
-        # interpolation: GCV at lambda = 0 is its limit n sum(c^2/d^4)/(sum 1/d^2)^2, which is
-        # dominated by the smallest singular direction and says nothing about the test
-        # error, so the search keeps lambda > 0 there
-        gcv[0] = np.inf
+    # GCV is trusted only where the fit leaves at least max(1, m/10) residual degrees of
+    # freedom: its optimality needs tr(H)/n bounded away from 1 (Li 1987, Ann. Statist. 15,
+    # 958-975).  Near p' = n, GCV(0+) = n (one or two squared noise components) / (m - r)^2
+    # can fall below every sensible penalty by chance and pick an interpolating fit
+    # (issue 11: a test MSE of 151.7 against the oracle's 2.0 at p' = n - 2); at
+    # interpolation (m = r) its lambda = 0 value is a limit dominated by the smallest
+    # singular direction.  Our threshold, the same as the noise-variance estimate's
+    # (paths.selection.rules.noise_variance_from_factors).
+    resid_dof = algebra.residual_dof(state, sh)
+    gcv[resid_dof < max(1.0, 0.1 * state.m)] = np.inf
     coef_norm = algebra.path_coef_norm(state, lam)[:, 0]  # standardized coefficients' norm
     # test projections once per point
     test = algebra.test_sums(state, lam, test_std, yt_c[:, None])[0][:, 0] / yt_c.size
@@ -830,7 +837,7 @@ def threshold_sweep(
                 if rep == 0 and k == zf.shape[1]:  # the full design: spectrum, sigma^2, r^2
                     spectrum, spec_gamma = _spectrum_of(fac, m), k / m
                     if random_features is None and variances is None:
-                        est = _variances_from(zk, zy, fac)
+                        est = _variances_from(design, fac)
                 if fac.rank == 0:
                     vals[rep, i, :4, :] = np.nan
                     lambdas = {}
@@ -867,7 +874,7 @@ def threshold_sweep(
                 if rep == 0 and k == n_rows[-1]:  # all training rows: spectrum, sigma^2, r^2
                     spectrum, spec_gamma = _spectrum_of(fac, m), z.shape[1] / m
                     if variances is None:
-                        est = _variances_from(z, zy, fac)
+                        est = _variances_from(design, fac)
                 if fac.rank == 0:
                     lambdas = {}
                 else:
