@@ -9,6 +9,10 @@ same centered design — the Gram route (eigh of X'X, Chan–Golub–LeVeque
 merges) versus the thin SVD — so quantities agree to the perturbation of a
 well-conditioned problem, κ² · eps · (modest constant); with κ < 10 for the
 designs below that is below 1e-12, and 1e-9 relative has ample margin.
+Selected penalties are minimizers of flat functions: the refined choices are
+compared to 1e-5 relative in λ (Brent's ``xatol`` is 1e-7 in log λ, and the
+criteria agree to 1e-12, so the minimizers agree to sqrt(1e-12 / curvature)
+≈ 1e-6 or better).
 """
 from __future__ import annotations
 
@@ -61,6 +65,8 @@ OPTION_SETS = {
                    "--n-folds", "5"],
     "groups": ["--id", "id", "--groups", "site", "--n-folds", "4", "--seed", "1"],
     "groups-holdout": ["--id", "id", "--groups", "site", "--holdout", "0.2", "--seed", "6"],
+    "rule-one-se": ["--exclude", "site", "--id", "id", "--n-folds", "4", "--rule", "one-se"],
+    "rule-loo": ["--exclude", "site", "--id", "id", "--rule", "loo"],
 }
 
 
@@ -88,6 +94,14 @@ def test_engine_equals_memory(tmp_path, case):
             assert eng["cv"]["n_folds"] == mem["cv"]["n_folds"]
             assert_allclose(eng["cv"]["mse"], mem["cv"]["mse"], rtol=1e-9)
             assert_allclose(eng["cv"]["se"], mem["cv"]["se"], rtol=1e-9)
+        assert eng["reported"] == mem["reported"]
+        for rule in ("gcv", "loo", "cv", "one-se", "hkb", "lw", "reml"):
+            sel, got = mem["selected"].get(rule), eng["selected"].get(rule)
+            if sel is None or sel.get("lambda") is None:
+                continue
+            assert_allclose(got["lambda"], sel["lambda"], rtol=1e-5, atol=1e-12)
+            if sel.get("est_source") == "cv":  # K-fold estimates at the choice: same folds
+                assert_allclose(got["est_mse"], sel["est_mse"], rtol=1e-6)
 
 
 @pytest.mark.parametrize("engine", ENGINES)

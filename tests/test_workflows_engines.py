@@ -41,9 +41,8 @@ def test_stream_engine_writes_figures_and_report(tmp_path):
     summary = json.loads((out / "summary.json").read_text())
     nums = summary["report"]
     assert nums["rule"] == "cv"
-    i = nums["index"]
-    assert nums["est_mse"] == summary["selected"]["cv"]["value"]
-    assert nums["est_se"] == summary["cv"]["se"][i]
+    assert nums["est_mse"] == summary["selected"]["cv"]["est_mse"]
+    assert nums["est_se"] == summary["selected"]["cv"]["est_se"]
     assert f"{nums['est_mse']:.4g}" in (out / "report.md").read_text()
 
     with open(out / "coefficients.csv", newline="") as fh:

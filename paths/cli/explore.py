@@ -196,8 +196,8 @@ def _run_engine(options: dict):
                       f"({p.rows_per_second:,.0f} {unit}/s, {p.mb_per_second:,.0f} MB/s)",
                       markup=False, highlight=False)
     sel = run.summary["selected"].get("cv")
-    if sel is not None:
-        console.print(f"min {run.result.n_folds}-fold CV: lambda {sel['lambda']:.4g}, "
-                      f"df {sel['df']:.2f}, CV MSE {sel['value']:.4g}", markup=False,
+    if sel is not None and sel.get("lambda") is not None:
+        console.print(f"{run.result.n_folds}-fold CV choice: lambda {sel['lambda']:.4g}, "
+                      f"df {sel['df']:.2f}, CV MSE {sel['est_mse']:.4g}", markup=False,
                       highlight=False)
     return run

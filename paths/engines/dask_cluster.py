@@ -31,7 +31,7 @@ import numpy as np
 
 from paths.data.validation import InputError, as_lambdas
 from paths.core.grid import default_grid
-from paths.engines.stream import (HatPass, Moments, PassInfo, StreamPath, check_cv_options,
+from paths.engines.stream import (HatPass, LooPasses, Moments, PassInfo, StreamPath, check_cv_options,
                                   chunk_moments, cv_note, factor_moments, fold_plan,
                                   merge_moments, path_from_moments)
 
@@ -365,6 +365,43 @@ def _test_block(block, fit, lam, p):
     return out[None, :]
 
 
+def _computer(client):
+    """``compute(*objs)`` on ``client`` (or dask's default), cluster failures as one line."""
+    def compute(*objs):
+        try:
+            if client is not None:
+                return client.compute(list(objs), sync=True)
+            import dask
+
+            return dask.compute(*objs)
+        except InputError:
+            raise
+        except Exception as exc:  # noqa: BLE001 - the cluster's failure, reported as one line
+            from distributed import KilledWorker
+            if isinstance(exc, KilledWorker):
+                raise InputError(f"the dask cluster lost the workers running this "
+                                 f"computation ({exc}); check the workers' memory limits "
+                                 "and logs, then retry") from None
+            raise
+    return compute
+
+
+def _hat_tree(W, fit, lam, p, plan, compute) -> HatPass:
+    """The second pass as a delayed tree (and the third, when rows of leverage near 1
+    were kept)."""
+    import dask
+
+    starts = _offsets(W.chunks[0])
+    parts = [dask.delayed(_hat_part, pure=True)(b, int(s0), fit, lam, p, plan)
+             for b, s0 in zip(W.to_delayed().ravel(), starts)]
+    hp = compute(_tree(parts, _merge_hat))[0]
+    if hp.needs_others:  # rows of leverage near 1: the complement of the others
+        parts = [dask.delayed(_others_part, pure=True)(b, int(s0), fit, lam, p)
+                 for b, s0 in zip(W.to_delayed().ravel(), starts)]
+        hp.r_other = compute(_tree(parts, _merge_r))[0]
+    return hp
+
+
 def _holdout_split(W, fraction: float, seed: int):
     """(training rows, held-out rows) of a row-blocked array: the seeded holdout of
     :func:`paths.data.folds.holdout_mask`, the in-memory engine's rows."""
@@ -461,23 +498,7 @@ def dask_path(
         raise InputError(f"n_lambdas must be at least 1; got {n_lambdas}")
     lam_user = None if lambdas is None else as_lambdas(lambdas)
     with connect(scheduler, timeout) as client:
-        def compute(*objs):
-            try:
-                if client is not None:
-                    return client.compute(list(objs), sync=True)
-                import dask
-
-                return dask.compute(*objs)
-            except InputError:
-                raise
-            except Exception as exc:  # noqa: BLE001 - the cluster's failure, reported as one line
-                from distributed import KilledWorker
-                if isinstance(exc, KilledWorker):
-                    raise InputError(f"the dask cluster lost the workers running this "
-                                     f"computation ({exc}); check the workers' memory limits "
-                                     "and logs, then retry") from None
-                raise
-
+        compute = _computer(client)
         W, names, tnames = as_dask_design(data, y, target=target, features=features,
                                           chunk_rows=chunk_rows)
         W_test = None
@@ -501,7 +522,7 @@ def dask_path(
         fac = replace(fit.fac, solver=fit.fac.solver.replace("stream-", "dask-"))
         fit = replace(fit, fac=fac)
         lam = default_grid(fit.fac.d, n_lambdas) if lam_user is None else lam_user
-        loo_mse = loo0 = cvres = None
+        loo_mse = loo0 = cvres = hp = plan = None
         notes = [f"dask engine: {W.numblocks[0]} row blocks"
                  + (f", scheduler {scheduler}" if scheduler else "")]
         if loo or cv:
@@ -509,20 +530,11 @@ def dask_path(
                       + (f" and {cv}-fold CV" if cv else ""))
             if progress:
                 progress(label2, 0, mom.n)
-            import dask
-
             t0 = time.perf_counter()
-            starts = _offsets(W.chunks[0])
             plan = None if not cv else fold_plan(
                 mom.n, cv, scheme=scheme, seed=0 if cv_seed is None else int(cv_seed),
                 repeats=repeats, fit_intercept=fit_intercept)
-            parts = [dask.delayed(_hat_part, pure=True)(b, int(s0), fit, lam, p, plan)
-                     for b, s0 in zip(W.to_delayed().ravel(), starts)]
-            hp = compute(_tree(parts, _merge_hat))[0]
-            if hp.needs_others:  # rows of leverage near 1: the complement of the others
-                parts = [dask.delayed(_others_part, pure=True)(b, int(s0), fit, lam, p)
-                         for b, s0 in zip(W.to_delayed().ravel(), starts)]
-                hp.r_other = compute(_tree(parts, _merge_r))[0]
+            hp = _hat_tree(W, fit, lam, p, plan, compute)
             passes.append(PassInfo(label2, mom.n, time.perf_counter() - t0,
                                    mom.n * W.shape[1] * 8))
             if progress:
@@ -551,6 +563,12 @@ def dask_path(
             test_res = (vec[:k * t].reshape(k, t) / n_test, vec[k * t:k * t + t] / n_test, n_test)
             passes.append(PassInfo("test rows: test error (dask delayed tree)", n_test,
                                    time.perf_counter() - t0, n_test * Wt.shape[1] * 8))
+    def one_pass(lam_new):  # leave-one-out at new penalties: the cluster again
+        with connect(scheduler, timeout) as client2:
+            return _hat_tree(W, fit, as_lambdas(lam_new), p, None, _computer(client2)).loo()[0]
+
     return path_from_moments(fit, lam, feature_names=names, loo=loo_mse, loo0=loo0,
                              test=test_res, cv=cvres, n_folds=cv or 0, engine="dask",
-                             passes=passes, notes=notes)
+                             passes=passes, notes=notes,
+                             fold_stats=None if hp is None else hp.fold_factors(),
+                             fold_plan=plan, loo_at=LooPasses(one_pass) if loo else None)

@@ -28,7 +28,7 @@ from __future__ import annotations
 
 import time
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import scipy.linalg as sla
@@ -47,6 +47,7 @@ from paths.core.path import PENALTY_CONVENTION, MinNormFit, RidgePath
 
 __all__ = ["Moments", "chunk_moments", "merge_moments", "PairwiseMerger", "StreamPath",
            "stream_path", "PassInfo", "path_from_moments", "HatPass", "FoldPlan", "fold_plan",
+           "FoldFactors", "LooPasses",
            "check_cv_options", "cv_note"]
 
 _EPS = np.finfo(np.float64).eps
@@ -474,14 +475,45 @@ class HatPass:
         if np.any(self.count == 0):
             raise InputError(f"{int(np.sum(self.count[0] == 0))} of the {self.n_folds} folds "
                              "are empty; use fewer folds")
-        width = self.ra + self.t
-        fold = np.stack([algebra.kfold_fold_mse(
-            self.fit.fac.d, np.stack([algebra.tsqr([R], width) for R in row]), count, self.lam,
-            n_fixed=self.state.n_fixed) for row, count in zip(self.fold_r, self.count)])
+        stats = self.fold_factors()
+        fold = stats.fold_mse(self.lam)
         w = self.count / self.count.sum(axis=1, keepdims=True)  # (R, K)
         pooled = np.einsum("rf,rfkt->rkt", w, fold)
         se = fold.std(axis=1, ddof=1) / np.sqrt(self.n_folds)
         return pooled.mean(axis=0), se.mean(axis=0)
+
+    def fold_factors(self) -> "FoldFactors | None":
+        """The per-fold triangular factors, for K-fold errors at any penalty."""
+        if not self.n_folds:
+            return None
+        width = self.ra + self.t
+        fold_r = np.stack([np.stack([algebra.tsqr([R], width) for R in row])
+                           for row in self.fold_r])
+        return FoldFactors(d=self.fit.fac.d, fold_r=fold_r, count=self.count.copy(),
+                           n_fixed=self.state.n_fixed)
+
+
+@dataclass(frozen=True)
+class FoldFactors:
+    """Per-fold triangular factors of a streamed pass: K-fold errors at any penalty
+    without the rows (:func:`paths.core.algebra.kfold_fold_mse`).
+
+    ``fold_r`` (R, K, r' + t, r' + t), ``count`` (R, K): the factor of every
+    fold's rows :math:`[1/\\sqrt n,\\ u_i,\\ y_i]` and the fold sizes.
+    """
+
+    d: np.ndarray
+    fold_r: np.ndarray
+    count: np.ndarray
+    n_fixed: int
+
+    form = "primal"
+
+    def fold_mse(self, lam) -> np.ndarray:
+        """Held-out mean squared error (R, K, k, t) at penalties ``lam``."""
+        lam = np.asarray(lam, dtype=float).reshape(-1)
+        return np.stack([algebra.kfold_fold_mse(self.d, fr, c, lam, n_fixed=self.n_fixed)
+                         for fr, c in zip(self.fold_r, self.count)])
 
 
 @dataclass(frozen=True)
@@ -620,10 +652,33 @@ class StreamPath(RidgePath):
     notes: tuple = ()
     captured_share: float = 1.0
     approximate: bool = False
+    fold_stats: "FoldFactors | None" = None
+    fold_plan: "FoldPlan | None" = None
+    loo_at: object = field(default=None, repr=False, compare=False)
 
     def criteria_at(self, lam):
-        raise InputError("criteria at new penalties need another pass over the data with this "
-                         "engine; pass the penalties as lambdas= when streaming")
+        """df, training MSE, GCV and leave-one-out MSE at any penalties.
+
+        df, training error and GCV are closed forms of the factors; leave-one-out
+        needs every row's hat diagonal, so each call with new penalties makes one
+        more pass over the rows (``loo_at.passes`` counts them).
+        """
+        lam = as_lambdas(lam)
+        base = algebra.criteria(self.state, lam, loo=False)
+        loo = loo0 = None
+        if self.loo_at is not None:
+            loo = self.loo_at(lam)
+            loo0 = self.min_norm.loo_mse
+        elif self.loo_mse is not None:
+            raise InputError("leave-one-out at new penalties needs another pass over the rows, "
+                             "which this result cannot make; pass the penalties as lambdas=")
+        crit = algebra.Criteria(df=base.df, train_mse=base.train_mse, gcv=base.gcv,
+                                loo_mse=loo, train_mse0=base.train_mse0, gcv0=base.gcv0,
+                                loo_mse0=loo0)
+        if self.multi_target:
+            return crit
+        return algebra.Criteria(**{k: (v if k == "df" or v is None or np.ndim(v) == 0
+                                       else v[..., 0]) for k, v in vars(crit).items()})
 
     def engine_record(self) -> dict:
         """The engine's part of the summary record (passes, throughput, notes)."""
@@ -658,7 +713,8 @@ def _test_pass(fit: _Fit, lam, source: RowSource, p: int, progress):
 
 
 def path_from_moments(fit: _Fit, lam, *, feature_names, loo, loo0, test=None, cv=None,
-                      n_folds=0, engine="stream", passes=(), notes=()) -> StreamPath:
+                      n_folds=0, engine="stream", passes=(), notes=(), fold_stats=None,
+                      fold_plan=None, loo_at=None) -> StreamPath:
     """Assemble the path result from the factors and the pass results."""
     fac, des = fit.fac, fit.design
     p = des.n_features
@@ -694,8 +750,29 @@ def path_from_moments(fit: _Fit, lam, *, feature_names, loo, loo0, test=None, cv
         feature_names=list(feature_names), design=des, factorization=fac, uty=c,
         penalty_convention=PENALTY_CONVENTION, state=state, engine=engine, passes=tuple(passes),
         n_folds=int(n_folds), notes=tuple(notes), captured_share=fit.captured_share,
-        approximate=fit.rank_limit is not None,
-        **out)
+        approximate=fit.rank_limit is not None, fold_stats=fold_stats, fold_plan=fold_plan,
+        loo_at=loo_at, **out)
+
+
+class LooPasses:
+    """Leave-one-out MSE (k, t) at new penalties, one pass over the rows each.
+
+    ``pass_fn(lam) -> mse (k, t)``; results are cached by penalty, and
+    ``passes`` counts the passes made.
+    """
+
+    def __init__(self, pass_fn):
+        self._fn, self._cache, self.passes = pass_fn, {}, 0
+
+    def __call__(self, lam):
+        lam = np.asarray(lam, dtype=float).reshape(-1)
+        todo = [v for v in dict.fromkeys(lam.tolist()) if v not in self._cache]
+        if todo:
+            mse = self._fn(np.array(todo))
+            self.passes += 1
+            for i, v in enumerate(todo):
+                self._cache[v] = mse[i]
+        return np.stack([self._cache[v] for v in lam.tolist()])
 
 
 # --------------------------------------------------------------------------- entry point
@@ -880,36 +957,15 @@ def stream_path(
     fit = factor_moments(mom, p, fit_intercept=fit_intercept, standardize=standardize, rtol=rtol,
                          rank=rank)
     lam = default_grid(fit.fac.d, n_lambdas) if lam_user is None else lam_user
-    loo_mse = loo0 = cvres = None
+    loo_mse = loo0 = cvres = hp = plan = None
     notes = []
     if loo or cv:
-        label2 = ("pass 2/2: hat diagonals for exact leave-one-out"
-                  + (f" and {cv}-fold CV" if cv else ""))
         plan = None if not cv else fold_plan(
             mom.n, cv, scheme=scheme, seed=0 if cv_seed is None else int(cv_seed),
             repeats=repeats, group_counts=counts, fit_intercept=fit_intercept)
-        hp = HatPass(fit, lam, folds=plan)
-        codes = None if plan is None or group_src is None else group_src.codes()
-        t0 = time.perf_counter()
-        rows2 = 0
-        for start, block in src:
-            hp.add(start, block, p, None if codes is None else codes.take(start, block.shape[0]))
-            rows2 = start + block.shape[0]
-            if progress:
-                progress(label2, rows2, mom.n)
-        if rows2 != mom.n:
-            raise InputError(f"{src.source}: the data changed between passes ({mom.n} rows, then "
-                             f"{rows2}); do not modify the input while it is read")
-        passes.append(PassInfo(label2, rows2, time.perf_counter() - t0, rows2 * src.nbytes_per_row))
-        if hp.needs_others:
-            label3 = "pass 3/3: complement of the rows of leverage near 1"
-            t0 = time.perf_counter()
-            for start, block in src:
-                hp.add_others(start, block, p)
-                if progress:
-                    progress(label3, start + block.shape[0], mom.n)
-            passes.append(PassInfo(label3, rows2, time.perf_counter() - t0,
-                                   rows2 * src.nbytes_per_row))
+        hp = _hat_pass(fit, lam, src, p, plan, group_src, passes, progress,
+                       "pass 2/2: hat diagonals for exact leave-one-out"
+                       + (f" and {cv}-fold CV" if cv else ""))
         loo_mse, loo0 = hp.loo()
         if cv:
             cvres = hp.kfold()
@@ -926,7 +982,39 @@ def stream_path(
         test_res = _test_pass(fit, lam, test_src, p, progress)
         passes.append(PassInfo("test rows: test error", test_res[2], time.perf_counter() - t0,
                                test_res[2] * test_src.nbytes_per_row))
-    res = path_from_moments(fit, lam, feature_names=src.feature_names, loo=loo_mse, loo0=loo0,
-                            test=test_res, cv=cvres, n_folds=cv or 0, passes=passes,
-                            notes=notes)
-    return res
+    def one_pass(lam_new):
+        return _hat_pass(fit, lam_new, src, p, None, None, [], progress,
+                         "extra pass: leave-one-out at new penalties").loo()[0]
+
+    return path_from_moments(fit, lam, feature_names=src.feature_names, loo=loo_mse, loo0=loo0,
+                             test=test_res, cv=cvres, n_folds=cv or 0, passes=passes,
+                             notes=notes, fold_stats=None if hp is None else hp.fold_factors(),
+                             fold_plan=plan, loo_at=LooPasses(one_pass) if loo else None)
+
+
+def _hat_pass(fit, lam, src, p, plan, group_src, passes, progress, label) -> HatPass:
+    """The second pass (and the third, when rows of leverage near 1 were kept)."""
+    n = fit.design.n_samples
+    hp = HatPass(fit, lam, folds=plan)
+    codes = None if plan is None or group_src is None else group_src.codes()
+    t0 = time.perf_counter()
+    rows2 = 0
+    for start, block in src:
+        hp.add(start, block, p, None if codes is None else codes.take(start, block.shape[0]))
+        rows2 = start + block.shape[0]
+        if progress:
+            progress(label, rows2, n)
+    if rows2 != n:
+        raise InputError(f"{src.source}: the data changed between passes ({n} rows, then "
+                         f"{rows2}); do not modify the input while it is read")
+    passes.append(PassInfo(label, rows2, time.perf_counter() - t0, rows2 * src.nbytes_per_row))
+    if hp.needs_others:
+        label3 = "pass 3/3: complement of the rows of leverage near 1"
+        t0 = time.perf_counter()
+        for start, block in src:
+            hp.add_others(start, block, p)
+            if progress:
+                progress(label3, start + block.shape[0], n)
+        passes.append(PassInfo(label3, rows2, time.perf_counter() - t0,
+                               rows2 * src.nbytes_per_row))
+    return hp

@@ -43,7 +43,7 @@ from paths.core import algebra
 from paths.core.design import Design, column_norms, reduce_rows
 from paths.core.factor import Factorization
 from paths.core.grid import default_grid
-from paths.core.path import PENALTY_CONVENTION, MinNormFit
+from paths.core.path import PENALTY_CONVENTION, MinNormFit, RidgePath
 from paths.engines.stream import PassInfo, StreamPath
 
 __all__ = ["WidePath", "wide_path"]
@@ -80,6 +80,10 @@ class WidePath(StreamPath):
                                     n_samples=self.n_samples, fit_intercept=self.fit_intercept)
         nrm = algebra.path_coef_norm(state, self.lambdas)
         return nrm if self.multi_target else nrm[:, 0]
+
+    def criteria_at(self, lam):
+        """Criteria at any penalties from the held left factor (no pass over the columns)."""
+        return RidgePath.criteria_at(self, lam)
 
     def coef_at(self, lam):
         raise InputError("coefficients at new penalties need another pass over the columns; "

@@ -72,6 +72,7 @@ __all__ = [
     "loo_residuals",
     "heldout_residuals",
     "measure_cost_model",
+    "cv_from_fold_stats",
 ]
 
 SCALINGS = ("global", "per-fold")
@@ -634,3 +635,28 @@ def loo_residuals(path, lam) -> np.ndarray:
                          "does not keep; use the in-memory engine")
     res = algebra.loo_residuals(path.state, lam)
     return res if path.multi_target else res[..., 0]
+
+
+def cv_from_fold_stats(stats, plan, lambdas, *, multi_target: bool) -> CVResult:
+    """The :class:`CVResult` of a streamed engine's per-fold factors.
+
+    ``stats`` (:class:`paths.engines.stream.FoldFactors`) gives the held-out
+    errors at any penalty, as the in-memory exact route does; ``plan``
+    (:class:`paths.engines.stream.FoldPlan`) says which folds — the assignment
+    of :mod:`paths.data.folds`, so the folds, and the errors, are the in-memory
+    engine's.  ``labels`` is empty (R, 0): the rows' labels are never held.
+    """
+    lam = as_lambdas(lambdas)
+    sizes = np.array(stats.count, dtype=np.int64)
+    fold = stats.fold_mse(lam)
+    mse, se, se_rep = _summarize(fold, sizes)
+    if not multi_target:
+        mse, se, fold = mse[..., 0], se[..., 0], fold[..., 0]
+        se_rep = None if se_rep is None else se_rep[..., 0]
+    return CVResult(lambdas=lam, mse=mse, se=se, se_repeats=se_rep, fold_mse=fold,
+                    fold_sizes=sizes, labels=np.zeros((plan.repeats, 0), dtype=np.int64),
+                    n_folds=plan.n_folds, repeats=plan.repeats, seed=plan.seed,
+                    scheme=plan.scheme, scaling="global", method="exact", form=stats.form,
+                    method_reason="exact: per-fold triangular factors of the streamed hat "
+                                  "pass, preprocessing from all training rows",
+                    multi_target=multi_target, _engine=stats)

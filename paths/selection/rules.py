@@ -235,13 +235,15 @@ def noise_variance(path, *, gcv_lambda=None) -> NoiseEstimate:
     -----
     See :func:`noise_variance_from_factors`, which this calls on the path's factors.
     """
+    streamed = path.factorization.u.shape[0] == 0  # no left factor: the state's sums
     return noise_variance_from_factors(path.factorization, path.design, path.uty,
                                        path.lambdas, gcv_lambda=gcv_lambda,
-                                       multi=path.multi_target)
+                                       multi=path.multi_target,
+                                       rss_out=path.state.rss_out if streamed else None)
 
 
 def noise_variance_from_factors(fac, design, uty, lambdas=None, *, gcv_lambda=None,
-                                multi: bool = False) -> NoiseEstimate:
+                                multi: bool = False, rss_out=None) -> NoiseEstimate:
     """Noise variance on the factors of a reduced design; never 0 unless y is fitted exactly.
 
     Parameters
@@ -256,6 +258,9 @@ def noise_variance_from_factors(fac, design, uty, lambdas=None, *, gcv_lambda=No
         The penalty of the ridge estimate, instead of the GCV minimum.
     multi : bool
         Keep the target axis in the result.
+    rss_out : ndarray, shape (t,), optional
+        A streamed path's residual sum of squares outside the span (its
+        factorization has no left factor; :attr:`FactorState.rss_out`).
 
     Returns
     -------
@@ -303,9 +308,14 @@ def noise_variance_from_factors(fac, design, uty, lambdas=None, *, gcv_lambda=No
         a = np.asarray(a, dtype=float)
         return a if multi else float(a.reshape(-1)[0])
 
+    if rss_out is not None:  # a streamed path: no left factor, the state's sums
+        m = design.n_samples - design.n_fixed
     if m - r >= 1:
-        resid = design.zy - fac.u @ uty
-        rss = np.einsum("it,it->t", resid, resid)
+        if rss_out is not None:
+            rss = np.asarray(rss_out, dtype=float).reshape(t)
+        else:
+            resid = design.zy - fac.u @ uty
+            rss = np.einsum("it,it->t", resid, resid)
         dof = float(m - r)
         fixed = design.n_fixed  # the intercept, and unpenalized columns
         label = f"n - rank - {fixed}" if fixed else "n - rank"
@@ -642,6 +652,8 @@ def _estimate(path, cv, lam, j, loo_se_cache):
     if cv is not None:
         mse, se = cv.at(lam)
         return _col(mse, j), _col(se, j), "cv"
+    if getattr(path, "loo_at", None) is not None:  # a streamed path: one pass over the rows
+        return float(path.loo_at(np.array([lam]))[0, j]), None, "loo"  # no per-row errors: no SE
     res = loo_residuals(path, np.array([lam]))  # (n, 1[, t])
     e2 = np.square(res[:, 0] if res.ndim == 2 else res[:, 0, j])
     w = path.design.sample_weight

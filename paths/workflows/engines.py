@@ -25,7 +25,7 @@ ENGINES = ("memory", "stream", "dask")
 _HASH_LIMIT = 2 << 30  # files above 2 GiB are recorded by size, not hashed (another full read)
 # options the out-of-memory engines do not offer (they keep their defaults)
 _DATA_ONLY_IN_MEMORY = ("encode", "drop_missing", "weights")
-_FIT_ONLY_IN_MEMORY = ("cv_scaling", "rule", "solver", "unpenalized", "relative_penalty",
+_FIT_ONLY_IN_MEMORY = ("cv_scaling", "solver", "unpenalized", "relative_penalty",
                        "intervals")
 _WHY = {**{name: " (its one-pass moments are unweighted and penalize every column)"
            for name in ("weights", "unpenalized", "relative_penalty")},
@@ -217,21 +217,19 @@ def _cv_seed(data: DataOptions, fit: FitOptions):
     return fit.seed if fit.fold_scheme == "shuffled" else None
 
 
-def _engine_record(result, cv_seed, data: DataOptions, fit: FitOptions) -> tuple:
-    """(cv record or None, cv selection or None) of an engine's result: grid minima."""
-    if result.cv_mse is None:
-        return None, None
-    record = {"n_folds": result.n_folds, "repeats": fit.repeats,
-              "scheme": ("grouped" if data.groups is not None
-                         else "blocked" if cv_seed is None else "shuffled"),
-              "seed": cv_seed, "scaling": "global", "method": "hat-diagonal blocks",
-              "form": "woodbury", "mse": np.asarray(result.cv_mse).tolist(),
-              "se": np.asarray(result.cv_se).tolist()}
-    cvm = result.cv_mse if result.cv_mse.ndim == 1 else result.cv_mse[:, 0]
-    i = int(np.argmin(cvm))
-    sel = {"lambda": float(result.lambdas[i]), "df": float(result.df[i]), "index": i,
-           "value": float(cvm[i])}
-    return record, sel
+def _select(result, fit: FitOptions):
+    """K-fold CV from the engine's per-fold factors and every selection rule, refined
+    between grid points on the engine's own path (:func:`paths.selection.rules.select_penalty`):
+    GCV from the factor state, K-fold at any penalty from the per-fold factors,
+    leave-one-out at a new penalty by one more pass over the rows."""
+    from paths.selection.cv import cv_from_fold_stats
+    from paths.selection.rules import select_penalty
+
+    cv_res = None
+    if result.fold_stats is not None:
+        cv_res = cv_from_fold_stats(result.fold_stats, result.fold_plan, result.lambdas,
+                                    multi_target=result.multi_target)
+    return cv_res, select_penalty(result, cv_res, reported=fit.rule)
 
 
 def explore_engine(data: DataOptions, fit: FitOptions = FitOptions(),
@@ -241,8 +239,11 @@ def explore_engine(data: DataOptions, fit: FitOptions = FitOptions(),
                    progress=None) -> ExploreRun:
     """The explore workflow on the ``stream`` or ``dask`` engine (see the module docstring).
 
-    Selections are the grid minima of GCV, LOO, test error and (with
-    ``n_folds``) K-fold CV.  ``progress(stage, done, total)`` reports each pass.
+    Every selection rule is refined between grid points on the engine's own
+    path, as in memory (GCV from the factor state, K-fold at any penalty from
+    the per-fold factors, leave-one-out at a new penalty by one more pass over
+    the rows, counted in the data notes).  ``progress(stage, done, total)``
+    reports each pass.
     """
     if engine.name not in ("stream", "dask"):
         raise InputError(f"engine must be one of {', '.join(ENGINES)}; got {engine.engine!r}")
@@ -256,59 +257,66 @@ def explore_engine(data: DataOptions, fit: FitOptions = FitOptions(),
     inputs = [Path(data.file), *([] if data.test_file is None else [Path(data.test_file)])]
     with output.folder(inputs) as folder:
         result = _fit(data, fit, engine, progress)
+        cv_res, selection = _select(result, fit)
         digests, hash_notes = {}, []
         for f in inputs:
             dig, notes = _file_digests(f)
             digests.update(dig)
             hash_notes += notes
-        summary = _engine_summary(result, data, fit, output, digests, hash_notes)
+        loo_passes = 0 if result.loo_at is None else result.loo_at.passes
+        if loo_passes:
+            hash_notes.append(f"{loo_passes} extra pass(es) over the rows for leave-one-out "
+                              "between grid points (selection refinement and error estimates)")
+        summary = _engine_summary(result, data, fit, output, digests, hash_notes, cv_res,
+                                  selection)
         files = _write_engine(result, summary, folder.stage, list(data.target), figures,
-                              source=str(data.file), digests=digests)
+                              source=str(data.file), digests=digests, selection=selection)
     return ExploreRun(result=result, summary=summary, out_dir=folder.target,
                       files=folder.final_paths(files))
 
 
-def _engine_summary(result, data, fit, output, digests, hash_notes) -> dict:
+def _engine_summary(result, data, fit, output, digests, hash_notes, cv_res, selection) -> dict:
     from paths.present.summary import summary_dict
+    from paths.workflows.explore import by_target_record, cv_record
 
     targets = list(data.target)
-    cv_seed = _cv_seed(data, fit)
-    record, cv_sel = _engine_record(result, cv_seed, data, fit)
     split = None
     if data.holdout is not None:
         split = {"holdout": data.holdout, "seed": fit.seed, "n_test": int(result.n_test)}
     summary = summary_dict(
         result, target=targets[0] if len(targets) == 1 else targets, source=str(data.file),
         input_sha256=digests, split=split, command_line=command_text(output),
-        data_notes=list(result.notes) + hash_notes, engine=result.engine_record(), cv=record)
-    if cv_sel is not None:
-        summary["selected"]["cv"] = cv_sel
+        data_notes=list(result.notes) + hash_notes, engine=result.engine_record(),
+        noise_variance=selection.noise.as_dict(None if result.multi_target else 0),
+        reported=selection.reported, cv=None if cv_res is None else cv_record(cv_res))
+    summary["selected"] = {**summary["selected"], **selection.as_dict(0)}
+    if len(targets) > 1:
+        summary["targets"] = targets
+        summary["by_target"] = by_target_record(summary, result, selection, targets)
     return summary
 
 
-def write_engine_fit(dest: Path, result, targets, source: str, input_sha256=None) -> Path:
-    """A predict-only ``fit.npz`` of an out-of-memory engine's path (its grid minima as rules;
-    the reported one: K-fold CV when computed, else GCV)."""
+def write_engine_fit(dest: Path, result, targets, source: str, input_sha256=None, *,
+                     selection) -> Path:
+    """A predict-only ``fit.npz`` of an out-of-memory engine's path, at every rule's
+    refined choice (the reported rule's, else GCV's)."""
     from paths.present.fitfile import save_fit
 
-    def grid_min(values):
-        if values is None:
-            return None
-        v = np.asarray(values, dtype=float).reshape(result.lambdas.size, -1)
-        return [float(result.lambdas[int(np.argmin(v[:, j]))]) for j in range(v.shape[1])]
-
-    rules = {"gcv": grid_min(result.gcv), "loo": grid_min(result.loo_mse),
-             "cv": grid_min(result.cv_mse)}
-    rule = "cv" if rules["cv"] is not None else "gcv"
+    rules = {}
+    for rule in selection.per_target[0]:
+        lams = [sel[rule].lam for sel in selection.per_target]
+        rules[rule] = None if any(v is None for v in lams) else [float(v) for v in lams]
+    reported, rule = selection.chosen_lambdas(), selection.reported
+    if not np.all(np.isfinite(reported)):  # the reported rule gave no penalty: GCV's instead
+        reported, rule = np.array(rules["gcv"], dtype=float), f"gcv (rule {rule} gave none)"
     prep = {"source_columns": list(result.feature_names), "encoding": {}, "id_column": None,
             "drop_missing": None, "target_names": list(targets), "source": source}
-    return save_fit(dest, result, reported=np.array(rules[rule]),
-                    reported_rule=f"{rule} (grid minimum)", rules=rules, preparation=prep,
-                    input_sha256=input_sha256)
+    return save_fit(dest, result, reported=reported, reported_rule=rule, rules=rules,
+                    preparation=prep, input_sha256=input_sha256)
 
 
 def _write_engine(result, summary: dict, out: Path, targets, figures: FigureOptions, *,
-                  source: str, digests: dict) -> list:
+                  source: str, digests: dict, selection) -> list:
     """path.csv, coefficients.csv and fit.npz (when the engine kept coefficients),
     summary.json, figures, report."""
     from paths.data.output import write_csv, write_json
@@ -326,7 +334,8 @@ def _write_engine(result, summary: dict, out: Path, targets, figures: FigureOpti
         summary["report"] = report_numbers(summary)
     files.append(write_json(out / "summary.json", summary))
     if result.coef is not None and result.engine != "wide":  # wide: no right factors kept
-        files.append(write_engine_fit(out / "fit.npz", result, targets, source, digests))
+        files.append(write_engine_fit(out / "fit.npz", result, targets, source, digests,
+                                      selection=selection))
     if drawable:
         files += write_explore_outputs(result, summary, out, formats=formats, width=width,
                                        x=figures.x, report=figures.report)

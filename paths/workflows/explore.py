@@ -189,7 +189,7 @@ def select_rules(result, data: TrainTest, fit: FitOptions):
     return report, None if cv_res is None else cv_record(cv_res), cv_res
 
 
-def _by_target(summary: dict, result, selection, targets) -> dict:
+def by_target_record(summary: dict, result, selection, targets) -> dict:
     from paths.present.summary import selections
 
     mn = summary["min_norm"]
@@ -223,7 +223,7 @@ def explore_record(prepared: Prepared, fitted: Fitted, fit: FitOptions, *, comma
     summary.update(penalty_record(result, fit.relative_penalty))
     if len(targets) > 1:
         summary["targets"] = targets
-        summary["by_target"] = _by_target(summary, result, selection, targets)
+        summary["by_target"] = by_target_record(summary, result, selection, targets)
     if prepared.generator is not None:
         summary["generator"] = prepared.generator
     if intervals is not None:
