@@ -27,6 +27,8 @@ import json
 
 import numpy as np
 
+from paths.core import algebra
+
 __all__ = ["explorer_data", "explorer_section"]
 
 _SCRIPT = r"""
@@ -155,7 +157,7 @@ def explorer_data(result, summary: dict, *, target: int = 0, n_coef: int = 12) -
     d = np.asarray(fac.d, dtype=float)
     act = np.flatnonzero(design.active)
     lam = float(rep.get("lambda", 1.0))
-    beta = (d / (d**2 + lam) * c) @ fac.vt  # standardized scale, active columns
+    beta = (algebra.gains(d, lam)[:, 0] * c) @ fac.vt  # standardized scale, active columns
     top = np.argsort(-np.abs(beta))[:n_coef]
     n = int(result.n_samples)
     mn = summary.get("min_norm") or {}

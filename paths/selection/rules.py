@@ -48,7 +48,6 @@ from scipy.optimize import brentq, minimize_scalar
 from paths.core import algebra
 from paths.data.validation import InputError
 from paths.core.grid import default_grid, lambda_for_df
-from paths.core import algebra
 from paths.selection.reml import reml_estimate
 
 __all__ = [
@@ -334,18 +333,22 @@ def noise_variance_from_factors(fac, design, uty, lambdas=None, *, gcv_lambda=No
         lam = np.array([_refine_minimum(gcv(j), grid, gcv(j)(grid))["lam"] for j in range(t)])
     else:
         lam = np.broadcast_to(np.asarray(gcv_lambda, dtype=float), (t,)).copy()
-    d2 = np.square(fac.d)
+    d = fac.d
     min_dof = max(1.0, 0.1 * n)
+
+    def resid_dof(lam_j):  # n - df = (m - r) + sum_j s_j, from the algebra's complements
+        return (m - r) + float(algebra.complements(d, lam_j).sum())
+
     raised = False
     for j in range(t):  # the estimate needs residual degrees of freedom
-        if (m - r) + float(np.sum(lam[j] / (d2 + lam[j]))) < min_dof:
-            g = lambda u: (m - r) + float(np.sum(np.exp(u) / (d2 + np.exp(u)))) - min_dof  # noqa: E731,E501
-            lam[j] = float(np.exp(brentq(g, np.log(d2[-1]) - 40.0, np.log(d2[0]) + 40.0,
-                                         xtol=1e-10)))
+        if resid_dof(lam[j]) < min_dof:
+            log_d2 = 2.0 * np.log(d[[-1, 0]])
+            lam[j] = float(np.exp(brentq(lambda u: resid_dof(np.exp(u)) - min_dof,
+                                         log_d2[0] - 40.0, log_d2[1] + 40.0, xtol=1e-10)))
             raised = True
     vals, dofs = np.empty(t), np.empty(t)
     for j in range(t):
-        s = lam[j] / (d2 + lam[j])
+        s = algebra.complements(d, lam[j])[:, 0]
         rss = float(np.sum(np.square(s * uty[:, j])))
         dofs[j] = (m - r) + float(np.sum(s))
         vals[j] = rss / dofs[j]

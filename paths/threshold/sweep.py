@@ -320,7 +320,7 @@ class PointFit:
         """Coefficients (original feature scale, the point's columns) and intercept at ``lam``."""
         fac, des = self.factorization, self.design
         c = fac.u.T @ des.zy[:, 0]
-        beta_std = fac.vt.T @ (fac.d * c / (np.square(fac.d) + lam))
+        beta_std = fac.vt.T @ (algebra.gains(fac.d, lam)[:, 0] * c)
         beta = np.zeros(des.n_features)
         beta[des.active] = beta_std / des.x_scale[des.active]
         return beta, float(des.y_mean[0] - des.x_mean @ beta)
