@@ -83,7 +83,9 @@ __all__ = [
     "complements", "penalized_df", "degrees_of_freedom", "residual_dof", "rss", "gcv",
     "gcv_limit", "Criteria", "criteria", "LeverageRows", "sample_space_blocks",
     "leverage_rows", "state_blocks", "refine_leverage", "naive_ell", "ell_tolerance",
-    "augment_rows", "LEVERAGE_REFINE", "loo_sums", "loo_mse",
+    "augment_rows", "LEVERAGE_REFINE", "loo_sums", "loo_mse", "loo_blocks", "loo_paired",
+    "shrunk_projections", "LOO_BLOCK_ELEMS", "gcv_paired", "coefficients_paired",
+    "path_intercepts",
     "loo_residuals", "project", "test_sums", "coefficients", "min_norm_coefficients",
     "intercepts", "coef_norm", "append_zero", "sample_weights", "path_coef_norm", "fold_factor", "kfold_fold_mse", "tsqr",
 ]
@@ -365,18 +367,39 @@ def gcv(state: FactorState, lam, sh: Shrinkage | None = None) -> np.ndarray:
     :math:`n(\\|y_\\perp\\|^2 + s_r^2 A)/((m - r) + s_r B)^2`.
     """
     sh = shrinkage(state.d, lam) if sh is None else sh
-    n = state.n_samples
-    if state.span is not None:  # weighted: (RSS_w / sum w) / (1 - df/n)^2
-        n = n * (n / state.total_weight)
     ch, cmax = _c_scaled(state.uty)
     A = np.square(sh.s_rel).T @ np.square(ch)  # (k, t)
     B = sh.s_rel.sum(axis=0)  # (k,)
+    return _gcv_ratio(state, A, B[:, None], sh.s_max[:, None], cmax[None, :])
+
+
+def _gcv_ratio(state: FactorState, A, B, s_max, cmax):
+    """GCV from :math:`A = \\sum \\hat s^2 \\hat c^2`, :math:`B = \\sum \\hat s`, (broadcast shapes)."""
+    n = state.n_samples
+    if state.span is not None:  # weighted: (RSS_w / sum w) / (1 - df/n)^2
+        n = n * (n / state.total_weight)
     with np.errstate(under="ignore", over="ignore"):
         if state.full_row_rank:
-            return n * np.square(cmax[None, :] / B[:, None]) * A
-        num = state.rss_out[None, :] + np.square(sh.s_max[:, None] * cmax[None, :]) * A
-        den = (state.m - state.rank) + sh.s_max * B
-        return n * num / np.square(den)[:, None]
+            return n * np.square(cmax / B) * A
+        num = state.rss_out + np.square(s_max * cmax) * A
+        den = (state.m - state.rank) + s_max * B
+        return n * num / np.square(den)
+
+
+def gcv_paired(state: FactorState, lam) -> np.ndarray:
+    """GCV of target ``j`` at penalty ``lam[j]``, shape (t,): :func:`gcv` on the diagonal.
+
+    O(r t), the same scaled complements as :func:`gcv` (finite at every
+    :math:`\\lambda \\ge 0`).
+    """
+    lam = _lam(lam)
+    if lam.size != state.n_targets:
+        raise ValueError(f"gcv_paired needs one penalty per target ({state.n_targets}); "
+                         f"got {lam.size}")
+    sh = shrinkage(state.d, lam)  # (r, t)
+    ch, cmax = _c_scaled(state.uty)
+    A = np.einsum("rt,rt->t", np.square(sh.s_rel), np.square(ch))
+    return _gcv_ratio(state, A, sh.s_rel.sum(axis=0), sh.s_max, cmax)
 
 
 # ----------------------------------------------------------- leave-one-out rows
@@ -532,28 +555,34 @@ def refine_leverage(state: FactorState, ua_s: np.ndarray, y_s: np.ndarray,
     return ell, e_perp
 
 
-def leverage_rows(state: FactorState, block: int = _BLOCK_ROWS):
+def leverage_rows(state: FactorState, block: int = _BLOCK_ROWS, targets: slice = slice(None)):
     """Yield ``(start, stop, LeverageRows)`` over the sample rows (in-memory state).
 
     Rows whose computed leverage outside the span is below
     :data:`LEVERAGE_REFINE` are recomputed by :func:`refine_leverage` (one
     extra tall-skinny QR of the other rows, only when such rows exist).
+    ``targets`` selects the columns of ``e_perp`` (a block of targets).
     """
     if state.u is None:
         raise ValueError("leverage_rows needs the left factor (an in-memory FactorState)")
     if "high_leverage" not in state.cache:  # once per state: an extra pass and maybe a QR
         state.cache["high_leverage"] = _refined_rows(state, block)
     fixes = state.cache["high_leverage"]
-    e_blocks = state_blocks(state, state.resid_out, block)
+    resid = state.resid_out[:, targets]
+    if state.full_row_rank:  # nothing outside the span: no pass over the residuals
+        e_blocks = ((s, e, np.zeros((e - s, resid.shape[1])))
+                    for s, e, _ in state_blocks(state, resid[:, :0], block))
+    else:
+        e_blocks = state_blocks(state, resid, block)
     for (s, e, ub), (_, _, eb) in zip(state_blocks(state, state.u, block), e_blocks):
         ell = naive_ell(state, ub, s)
-        ep = np.zeros(eb.shape) if state.full_row_rank else eb.copy()
+        ep = eb if state.full_row_rank else eb.copy()
         if fixes is not None:
             idx, ell_s, ep_s = fixes
             sel = (idx >= s) & (idx < e)
             if sel.any():
                 ell[idx[sel] - s] = ell_s[sel]
-                ep[idx[sel] - s] = ep_s[sel]
+                ep[idx[sel] - s] = ep_s[sel][:, targets]
         yield s, e, LeverageRows(u=ub, ell=ell, e_perp=ep)
 
 
@@ -590,23 +619,32 @@ def _refined_rows(state: FactorState, block: int):
     return idx, ell, ep
 
 
-def loo_sums(rows: LeverageRows, sh: Shrinkage, c: np.ndarray) -> np.ndarray:
+def loo_sums(rows: LeverageRows, sh: Shrinkage, c: np.ndarray, *,
+             sc: np.ndarray | None = None) -> np.ndarray:
     """Sum over the block's rows of the squared leave-one-out residuals, (k, t).
 
     Residual :math:`(e_{\\perp,i} + s_r a_i)/(\\ell_i + s_r b_i)` with
     :math:`a_i = \\sum_j u_{ij}\\hat s_j c_j`, :math:`b_i = \\sum_j u_{ij}^2 \\hat s_j`;
     :math:`a_i/b_i` on interpolated rows (:math:`\\ell_i = 0`).  Equal to its
-    :math:`\\lambda \\to 0^+` limit at :math:`\\lambda = 0`.
+    :math:`\\lambda \\to 0^+` limit at :math:`\\lambda = 0`.  ``sc`` is
+    :func:`shrunk_projections` of ``sh`` and ``c`` when already formed (it does
+    not depend on the rows).
     """
-    res = _loo_res(rows, sh, c)
+    res = _loo_res(rows, sh, c, sc)
     np.square(res, out=res)
     return res.sum(axis=0)
 
 
-def _loo_res(rows: LeverageRows, sh: Shrinkage, c: np.ndarray) -> np.ndarray:
+def shrunk_projections(sh: Shrinkage, c: np.ndarray) -> np.ndarray:
+    """:math:`\\hat s_{jk} c_{jt}` laid out as an (r, k·t) matrix (penalty-major)."""
+    r, k = sh.s_rel.shape
+    return (sh.s_rel[:, :, None] * c[:, None, :]).reshape(r, k * c.shape[1])
+
+
+def _loo_res(rows: LeverageRows, sh: Shrinkage, c: np.ndarray, sc=None) -> np.ndarray:
     ub = rows.u
     b, (r, k), t = ub.shape[0], sh.s_rel.shape, c.shape[1]
-    SC = (sh.s_rel[:, :, None] * c[:, None, :]).reshape(r, k * t)
+    SC = shrunk_projections(sh, c) if sc is None else sc
     num = (ub @ SC).reshape(b, k, t)
     den = np.square(ub) @ sh.s_rel  # (b, k)
     out = rows.ell > 0
@@ -640,11 +678,65 @@ def loo_mse(state: FactorState, lam) -> tuple[np.ndarray, np.ndarray]:
     sh = shrinkage(state.d, full)
     r, k, t = state.rank, full.size, state.n_targets
     total = np.zeros((k, t))
-    blk = int(min(_BLOCK_ROWS, max(256, (1 << 19) // max(r, k * t, 1))))
-    for _, _, rows in leverage_rows(state, blk):
-        total += loo_sums(rows, sh, state.uty)
+    tb, blk = loo_blocks(r, k, t, state.n_samples)
+    for t0 in range(0, t, tb):  # targets in blocks: the n x k x t residuals are never held
+        cols = slice(t0, min(t0 + tb, t))
+        c = state.uty[:, cols]
+        sc = shrunk_projections(sh, c)
+        for _, _, rows in leverage_rows(state, blk, cols):
+            total[:, cols] += loo_sums(rows, sh, c, sc=sc)
     total /= state.total_weight
     return (total[:-1] if added else total), total[-1]
+
+
+#: elements of the largest temporary of leave-one-out (the shrunk projections,
+#: a block of residuals): 2**22 float64, 32 MiB
+LOO_BLOCK_ELEMS = 1 << 22
+
+
+def loo_blocks(r: int, k: int, t: int, n: int, budget: int = LOO_BLOCK_ELEMS) -> tuple[int, int]:
+    """``(targets, rows)`` per block so that the (r, k·targets) shrunk projections and the
+    (rows, k, targets) residuals each stay within ``budget`` elements (at least one of each)."""
+    tb = int(max(1, min(t, budget // max(r * k, 1))))
+    blk = int(max(64, min(_BLOCK_ROWS, n, budget // max(k * tb, r, 1))))
+    return tb, blk
+
+
+def loo_paired(state: FactorState, lam, *, budget: int = LOO_BLOCK_ELEMS):
+    """Exact leave-one-out MSE and its standard error, target ``j`` at penalty ``lam[j]``.
+
+    Returns ``(mse (t,), se (t,))``; ``se`` is
+    :math:`\\operatorname{sd}_i(w_i e_{(i)}^2)/\\sqrt n` (weights rescaled to mean
+    1).  One penalty per target, so every block costs O(n r t), not O(n r k t):
+    the per-target refinement of :mod:`paths.selection.targets` evaluates this.
+    """
+    lam = _lam(lam)
+    t = state.n_targets
+    if lam.size != t:
+        raise ValueError(f"loo_paired needs one penalty per target ({t}); got {lam.size}")
+    sh = shrinkage(state.d, lam)  # (r, t): the penalty axis is the target axis
+    n = state.n_samples
+    w = None if state.span is None else np.square(state.span.sqrt_w)
+    s1, s2 = np.zeros(t), np.zeros(t)
+    tb = int(max(1, min(t, budget // max(n, state.rank, 1))))
+    for t0 in range(0, t, tb):
+        cols = slice(t0, min(t0 + tb, t))
+        sc = sh.s_rel[:, cols] * state.uty[:, cols]
+        for s, e, rows in leverage_rows(state, _BLOCK_ROWS, cols):
+            num = rows.u @ sc
+            den = np.square(rows.u) @ sh.s_rel[:, cols]
+            out = rows.ell > 0
+            if out.any():
+                num[out] = rows.e_perp[out] + sh.s_max[cols] * num[out]
+                den[out] = rows.ell[out][:, None] + sh.s_max[cols] * den[out]
+            e2 = np.square(num / den)
+            if w is not None:  # transformed residuals: w_i e_i^2 already; mean weight 1
+                e2 *= n / w.sum()
+            s1[cols] += e2.sum(axis=0)
+            s2[cols] += np.square(e2).sum(axis=0)
+    mean = s1 / n
+    var = np.maximum(s2 - n * np.square(mean), 0.0) / max(n - 1, 1)
+    return mean, np.sqrt(var / n)
 
 
 def loo_residuals(state: FactorState, lam) -> np.ndarray:
@@ -751,6 +843,49 @@ def coefficients(state: FactorState, lam, design) -> np.ndarray:
             cj /= scale
         coef[:, act, j] = cj
     return coef
+
+
+def coefficients_paired(state: FactorState, lam, design, targets=None) -> np.ndarray:
+    """Coefficients (original scale) of target ``targets[i]`` at penalty ``lam[i]``, (p, b).
+
+    ``targets`` defaults to every target (then one penalty per target).  Cost
+    O(q r b); the (k, p, t) array of :func:`coefficients` is never formed.
+    """
+    lam = _lam(lam)
+    idx = np.arange(state.n_targets) if targets is None else np.asarray(targets).reshape(-1)
+    if lam.size != idx.size:
+        raise ValueError(f"one penalty per target: {idx.size} targets, {lam.size} penalties")
+    g = gains(state.d, lam)  # (r, b)
+    c = state.uty[:, idx]
+    act = design.active
+    coef = np.zeros((design.n_features, idx.size))
+    beta = state.vt.T @ (g * c)  # (q, b)
+    if state.span is not None:  # the unpenalized columns as in _span_coefficients
+        sp = state.span
+        rhs = sp.qty[:, idx] - sp.qtx @ beta
+        fixed = sla.solve_triangular(sp.r, rhs, check_finite=False) if sp.c else rhs
+        unp = design.unpenalized
+        if unp is not None and unp.any():
+            coef[unp] = fixed[int(sp.intercept):] / design.x_scale[unp][:, None]
+    scale = design.x_scale[act]
+    coef[act] = beta if np.all(scale == 1.0) else beta / scale[:, None]
+    return coef
+
+
+def path_intercepts(state: FactorState, lam, design) -> np.ndarray:
+    """Intercepts :math:`\\bar y - \\bar x^T \\beta_\\lambda`, shape (k, t), from the factors.
+
+    :math:`\\bar x^T \\beta = (V^T(\\bar x/s))^T \\operatorname{diag}(g) c`: O(q r + r k t),
+    no coefficients formed (with a span, through :func:`coefficients`).
+    """
+    lam = _lam(lam)
+    if state.span is not None:
+        return intercepts(coefficients(state, lam, design), design)
+    act = design.active
+    xm = design.x_mean[act] / design.x_scale[act]
+    w = state.vt @ xm  # (r,)
+    g = gains(state.d, lam)  # (r, k)
+    return design.y_mean - (g * w[:, None]).T @ state.uty
 
 
 def _span_coefficients(state: FactorState, g: np.ndarray, design) -> np.ndarray:

@@ -25,7 +25,7 @@ from paths.core.grid import default_grid
 from paths.core import algebra
 from paths.core.algebra import Criteria, FactorState
 
-__all__ = ["PENALTY_CONVENTION", "RidgePath", "MinNormFit", "Criteria", "fit_path",
+__all__ = ["PENALTY_CONVENTION", "DENSE_COEF_LIMIT", "RidgePath", "MinNormFit", "Criteria", "fit_path",
            "path_from_factors"]
 
 PENALTY_CONVENTION = (
@@ -34,6 +34,17 @@ PENALTY_CONVENTION = (
     "lambda on the scale of squared singular values of X (scikit-learn Ridge alpha)"
 )
 _EPS = np.finfo(np.float64).eps
+#: bytes above which a dense penalties x features x targets coefficient array is refused
+DENSE_COEF_LIMIT = 2.0 * 2**30
+
+
+def _check_dense(k: int, p: int, t: int) -> None:
+    need = 8.0 * k * p * t
+    if need > DENSE_COEF_LIMIT:
+        raise InputError(
+            f"coefficients of {k} penalties x {p} features x {t} targets would take "
+            f"{need / 2**30:.3g} GiB (limit {DENSE_COEF_LIMIT / 2**30:.3g} GiB); ask for fewer "
+            "penalties or targets, or use coef_per_target(lambdas) (one penalty per target)")
 
 
 def _freeze(*arrays):
@@ -89,7 +100,11 @@ class RidgePath:
     lambdas : ndarray, shape (k,)
         Penalties, in the convention of :data:`PENALTY_CONVENTION`.
     coef : ndarray, shape (k, p) or (k, p, t)
-        Coefficients on the original feature scale.
+        Coefficients on the original feature scale: a property, computed from
+        the factors on first use and kept.  Above :data:`DENSE_COEF_LIMIT` bytes
+        (many targets) it is refused with an :class:`InputError` naming
+        :meth:`coef_of` (one target's path) and :meth:`coef_per_target` (each
+        target at its own penalty), which never form it.
     intercept : ndarray, shape (k,) or (k, t)
     df : ndarray, shape (k,)
         Effective degrees of freedom :math:`\\operatorname{tr} H_\\lambda`, the
@@ -128,7 +143,6 @@ class RidgePath:
     """
 
     lambdas: np.ndarray
-    coef: np.ndarray
     intercept: np.ndarray
     df: np.ndarray
     train_mse: np.ndarray
@@ -156,11 +170,70 @@ class RidgePath:
     state: FactorState | None = field(default=None, repr=False, compare=False)
     unpenalized: list = field(default_factory=list)
     weighted: bool = False
+    multi_target: bool = False
+    cache: dict = field(default_factory=dict, repr=False, compare=False)
 
     # ------------------------------------------------------------------ helpers
     @property
-    def multi_target(self) -> bool:
-        return self.uty.shape[1] > 1 or self.coef.ndim == 3
+    def n_targets(self) -> int:
+        return int(self.uty.shape[1])
+
+    @property
+    def coef(self) -> np.ndarray:
+        """Coefficients (k, p) [or (k, p, t)] on the original scale, formed on first use.
+
+        Raises
+        ------
+        InputError
+            When the dense array would exceed :data:`DENSE_COEF_LIMIT` bytes.
+        """
+        if "coef" not in self.cache:
+            k, p, t = self.lambdas.size, self.n_features, self.n_targets
+            need = 8.0 * k * p * t
+            if need > DENSE_COEF_LIMIT:
+                raise InputError(
+                    f"the dense coefficients of {k} penalties x {p} features x {t} targets "
+                    f"would take {need / 2**30:.3g} GiB (limit {DENSE_COEF_LIMIT / 2**30:.3g} GiB); "
+                    "use path.coef_of(target) for one target's path or "
+                    "path.coef_per_target(lambdas) for each target at its penalty")
+            coef = algebra.coefficients(self._state(), self.lambdas, self.design)
+            coef = coef if self.multi_target else coef[..., 0]
+            _freeze(coef)
+            self.cache["coef"] = coef
+        return self.cache["coef"]
+
+    def coef_of(self, target: int = 0) -> np.ndarray:
+        """One target's coefficient path (k, p), original scale, from the factors: O(k q r)."""
+        j = int(target)
+        if not 0 <= j < self.n_targets:
+            raise InputError(f"target {target} is out of range: the path has "
+                             f"{self.n_targets} target(s), numbered from 0")
+        if "coef" in self.cache:
+            c = self.cache["coef"]
+            return c[:, :, j] if c.ndim == 3 else c
+        lam = self.lambdas
+        return algebra.coefficients_paired(self._state(), np.asarray(lam), self.design,
+                                           np.full(lam.size, j)).T
+
+    def coef_per_target(self, lam, targets=None) -> np.ndarray:
+        """Coefficients (p, b) of each target at its own penalty, original scale.
+
+        Parameters
+        ----------
+        lam : array_like, shape (b,)
+            One penalty per target (every target by default).
+        targets : array_like of int, shape (b,), optional
+
+        Returns
+        -------
+        ndarray, shape (p, b): O(q r b), no (k, p, t) array.
+        """
+        lam_arr = as_lambdas(lam)
+        idx = np.arange(self.n_targets) if targets is None else np.asarray(targets, int)
+        if lam_arr.size != idx.size:
+            raise InputError(f"pass one penalty per target: {idx.size} target(s), "
+                             f"{lam_arr.size} penalties")
+        return algebra.coefficients_paired(self._state(), lam_arr, self.design, idx)
 
     @property
     def coef_std(self) -> np.ndarray:
@@ -172,12 +245,11 @@ class RidgePath:
     def coef_norm(self) -> np.ndarray:
         """:math:`\\|\\beta_\\lambda\\|_2` on the scale the penalty acts on, shape (k,) or (k, t).
 
-        Unpenalized columns are left out (the penalty does not act on them).
+        Unpenalized columns are left out (the penalty does not act on them):
+        :math:`(\\sum_j g_j^2 c_j^2)^{1/2}`, V having orthonormal columns.
         """
-        cs = self.coef_std
-        if self.design.unpenalized is not None:
-            cs = cs[:, ~self.design.unpenalized]
-        return np.sqrt(np.sum(np.square(cs), axis=1))
+        nrm = algebra.path_coef_norm(self._state(), self.lambdas)
+        return nrm if self.multi_target else nrm[:, 0]
 
     def index_min(self, criterion: str = "gcv", target: int = 0) -> int:
         """Grid index minimizing ``"gcv"``, ``"loo"``/``"loo_mse"``, ``"train"`` or ``"test"``."""
@@ -212,6 +284,7 @@ class RidgePath:
         (len(lam), p, t)] for a sequence.
         """
         lam_arr = as_lambdas(lam)
+        _check_dense(lam_arr.size, self.n_features, self.n_targets)
         coef = algebra.coefficients(self._state(), lam_arr, self.design)
         if not self.multi_target:
             coef = coef[..., 0]
@@ -239,6 +312,7 @@ class RidgePath:
             )
         lam_arr = as_lambdas(lam)
         if self.design.span is not None:  # unpenalized part: through the coefficients
+            _check_dense(lam_arr.size, self.n_features, self.n_targets)
             coef = algebra.coefficients(self._state(), lam_arr, self.design)  # (k, p, t)
             pred = np.einsum("np,kpt->nkt", X, coef) + algebra.intercepts(coef, self.design)
         else:
@@ -383,9 +457,9 @@ def fit_path(
     check_feature_range(X, standardize=standardize, y_size=y_size, names=names)
     n_lambdas = as_count(n_lambdas, "n_lambdas")
     n_pen = n_lambdas if lambdas is None else np.size(lambdas)
-    check_memory(8.0 * n_pen * (2.0 * p * Y.shape[1] + (n + 16) * Y.shape[1]),
-                 f"{n_pen} penalties on {n} x {p} data (coefficients {n_pen} x {p})",
-                 "ask for fewer penalties (n_lambdas), or use engine stream")
+    check_memory(8.0 * n_pen * 16 * Y.shape[1] + 8.0 * algebra.LOO_BLOCK_ELEMS,
+                 f"{n_pen} penalties x {Y.shape[1]} targets of criteria on {n} x {p} data",
+                 "ask for fewer penalties (n_lambdas) or targets")
     has_test = X_test is not None or y_test is not None
     if has_test:
         if X_test is None or y_test is None:
@@ -509,8 +583,7 @@ def path_from_factors(design: Design, fac: Factorization, lambdas, *, feature_na
     df = crit.df
     r = fac.rank
 
-    coef = algebra.coefficients(state, lam, design)  # (k, p, t)
-    intercept = algebra.intercepts(coef, design)  # (k, t)
+    intercept = algebra.path_intercepts(state, lam, design)  # (k, t), no coefficients formed
     coef0, beta0 = algebra.min_norm_coefficients(state, design)
     intercept0 = algebra.intercepts(coef0, design)
 
@@ -523,11 +596,15 @@ def path_from_factors(design: Design, fac: Factorization, lambdas, *, feature_na
             sums, sums0 = algebra.test_sums(state, lam, proj, Yt - design.y_mean)
             test_mse, test0 = sums / n_test, sums0 / n_test
         else:
+            _check_dense(lam.size, p, Yt.shape[1])
+            coef = algebra.coefficients(state, lam, design)
             test_mse, test0 = _weighted_test_error(X_test, Yt, test_weight, coef, intercept,
                                                    coef0, intercept0)
 
     fitted = None
     if return_fitted and design.span is not None:
+        _check_dense(lam.size, p, c.shape[1])
+        coef = algebra.coefficients(state, lam, design)
         fitted = np.einsum("np,kpt->knt", X_train, coef) + intercept[:, None, :]
     elif return_fitted:
         F = algebra.fractions(fac.d, lam)
@@ -545,7 +622,7 @@ def path_from_factors(design: Design, fac: Factorization, lambdas, *, feature_na
         coef_norm=sq(algebra.coef_norm(beta0)), rank=r,
     )
     out = dict(
-        coef=sq(coef), intercept=sq(intercept), train_mse=sq(crit.train_mse), gcv=sq(crit.gcv),
+        intercept=sq(intercept), train_mse=sq(crit.train_mse), gcv=sq(crit.gcv),
         loo_mse=sq(crit.loo_mse), test_mse=sq(test_mse), fitted=sq(fitted),
     )
     _freeze(*out.values(), df, c, *(v for v in vars(min_norm).values()))
@@ -558,7 +635,7 @@ def path_from_factors(design: Design, fac: Factorization, lambdas, *, feature_na
         solver_reason=fac.reason, n_samples=n, n_features=p, n_test=n_test,
         fit_intercept=fit_intercept, standardize=design.standardize,
         feature_names=list(feature_names), design=design, factorization=fac, uty=c, state=state,
-        **out,
+        multi_target=multi, **out,
     )
 
 

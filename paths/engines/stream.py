@@ -723,8 +723,7 @@ def path_from_moments(fit: _Fit, lam, *, feature_names, loo, loo0, test=None, cv
     crit = algebra.criteria(state, lam, loo=False)
     df, train, gcv, train0, gcv0 = crit.df, crit.train_mse, crit.gcv, crit.train_mse0, crit.gcv0
     c = fit.uty
-    coef = algebra.coefficients(state, lam, des)
-    intercept = algebra.intercepts(coef, des)
+    intercept = algebra.path_intercepts(state, lam, des)  # coefficients only on demand
     coef0, beta0 = algebra.min_norm_coefficients(state, des)
     intercept0 = algebra.intercepts(coef0, des)
     test_mse, test0, n_test = test if test is not None else (None, None, 0)
@@ -737,7 +736,7 @@ def path_from_moments(fit: _Fit, lam, *, feature_names, loo, loo0, test=None, cv
         coef=sq(coef0), intercept=sq(intercept0), train_mse=sq(train0), gcv=sq(gcv0),
         loo_mse=sq(loo0), test_mse=sq(test0), df=float(des.fit_intercept + fac.rank),
         coef_norm=sq(algebra.coef_norm(beta0)), rank=fac.rank)
-    out = dict(coef=sq(coef), intercept=sq(intercept), train_mse=sq(train), gcv=sq(gcv),
+    out = dict(intercept=sq(intercept), train_mse=sq(train), gcv=sq(gcv),
                loo_mse=sq(loo), test_mse=sq(test_mse), cv_mse=sq(cv_mse), cv_se=sq(cv_se))
     for v in (*out.values(), df, lam, *vars(min_norm).values()):
         if isinstance(v, np.ndarray):
@@ -751,7 +750,7 @@ def path_from_moments(fit: _Fit, lam, *, feature_names, loo, loo0, test=None, cv
         penalty_convention=PENALTY_CONVENTION, state=state, engine=engine, passes=tuple(passes),
         n_folds=int(n_folds), notes=tuple(notes), captured_share=fit.captured_share,
         approximate=fit.rank_limit is not None, fold_stats=fold_stats, fold_plan=fold_plan,
-        loo_at=loo_at, **out)
+        loo_at=loo_at, multi_target=multi, **out)
 
 
 class LooPasses:

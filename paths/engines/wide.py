@@ -62,8 +62,9 @@ class WidePath(StreamPath):
     """
 
     @property
-    def multi_target(self) -> bool:
-        return self.train_mse.ndim == 2
+    def coef(self):
+        """The coefficient pass's (k, p)[, t] array, or None without ``coefficients=True``."""
+        return self.cache.get("coef")
 
     @property
     def coef_std(self):
@@ -472,7 +473,7 @@ def wide_path(
         coef=sq(coef0), intercept=sq(intercept0), train_mse=sq(crit.train_mse0),
         gcv=sq(crit.gcv0), loo_mse=sq(crit.loo_mse0), test_mse=sq(test0),
         df=float(fit_intercept + r), coef_norm=sq(beta0_norm), rank=r)
-    out = dict(coef=sq(coef), intercept=sq(intercept), train_mse=sq(crit.train_mse),
+    out = dict(intercept=sq(intercept), train_mse=sq(crit.train_mse),
                gcv=sq(crit.gcv), loo_mse=sq(crit.loo_mse), test_mse=sq(test_mse))
     for v in (*out.values(), crit.df, lam, c, *vars(min_norm).values()):
         if isinstance(v, np.ndarray):
@@ -486,4 +487,4 @@ def wide_path(
         fit_intercept=fit_intercept, standardize=standardize, feature_names=src.feature_names,
         design=design, factorization=fac, uty=c, penalty_convention=PENALTY_CONVENTION,
         state=state, engine="wide", passes=tuple(passes), notes=tuple(notes), captured_share=share,
-        approximate=approximate, **out)
+        approximate=approximate, multi_target=multi, cache={"coef": sq(coef)}, **out)
