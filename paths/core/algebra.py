@@ -555,7 +555,7 @@ def refine_leverage(state: FactorState, ua_s: np.ndarray, y_s: np.ndarray,
     return ell, e_perp
 
 
-def leverage_rows(state: FactorState, block: int = _BLOCK_ROWS, targets: slice = slice(None)):
+def leverage_rows(state: FactorState, block: int = _BLOCK_ROWS, targets=slice(None)):
     """Yield ``(start, stop, LeverageRows)`` over the sample rows (in-memory state).
 
     Rows whose computed leverage outside the span is below
@@ -694,15 +694,17 @@ def loo_mse(state: FactorState, lam) -> tuple[np.ndarray, np.ndarray]:
 LOO_BLOCK_ELEMS = 1 << 22
 
 
-def loo_blocks(r: int, k: int, t: int, n: int, budget: int = LOO_BLOCK_ELEMS) -> tuple[int, int]:
+def loo_blocks(r: int, k: int, t: int, n: int, budget: int | None = None) -> tuple[int, int]:
     """``(targets, rows)`` per block so that the (r, k·targets) shrunk projections and the
-    (rows, k, targets) residuals each stay within ``budget`` elements (at least one of each)."""
+    (rows, k, targets) residuals each stay within ``budget`` elements (at least one of each;
+    default :data:`LOO_BLOCK_ELEMS`)."""
+    budget = LOO_BLOCK_ELEMS if budget is None else int(budget)
     tb = int(max(1, min(t, budget // max(r * k, 1))))
     blk = int(max(64, min(_BLOCK_ROWS, n, budget // max(k * tb, r, 1))))
     return tb, blk
 
 
-def loo_paired(state: FactorState, lam, *, budget: int = LOO_BLOCK_ELEMS):
+def loo_paired(state: FactorState, lam, *, targets=None, budget: int | None = None):
     """Exact leave-one-out MSE and its standard error, target ``j`` at penalty ``lam[j]``.
 
     Returns ``(mse (t,), se (t,))``; ``se`` is
@@ -711,18 +713,20 @@ def loo_paired(state: FactorState, lam, *, budget: int = LOO_BLOCK_ELEMS):
     the per-target refinement of :mod:`paths.selection.targets` evaluates this.
     """
     lam = _lam(lam)
-    t = state.n_targets
+    idx = np.arange(state.n_targets) if targets is None else np.asarray(targets).reshape(-1)
+    t = idx.size
     if lam.size != t:
         raise ValueError(f"loo_paired needs one penalty per target ({t}); got {lam.size}")
     sh = shrinkage(state.d, lam)  # (r, t): the penalty axis is the target axis
     n = state.n_samples
     w = None if state.span is None else np.square(state.span.sqrt_w)
     s1, s2 = np.zeros(t), np.zeros(t)
+    budget = LOO_BLOCK_ELEMS if budget is None else int(budget)
     tb = int(max(1, min(t, budget // max(n, state.rank, 1))))
     for t0 in range(0, t, tb):
         cols = slice(t0, min(t0 + tb, t))
-        sc = sh.s_rel[:, cols] * state.uty[:, cols]
-        for s, e, rows in leverage_rows(state, _BLOCK_ROWS, cols):
+        sc = sh.s_rel[:, cols] * state.uty[:, idx[cols]]
+        for s, e, rows in leverage_rows(state, _BLOCK_ROWS, idx[cols]):
             num = rows.u @ sc
             den = np.square(rows.u) @ sh.s_rel[:, cols]
             out = rows.ell > 0
