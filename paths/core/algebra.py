@@ -84,7 +84,7 @@ __all__ = [
     "gcv_limit", "Criteria", "criteria", "LeverageRows", "sample_space_blocks",
     "leverage_rows", "state_blocks", "refine_leverage", "naive_ell", "ell_tolerance",
     "augment_rows", "LEVERAGE_REFINE", "loo_sums", "loo_mse", "loo_blocks", "loo_paired",
-    "shrunk_projections", "LOO_BLOCK_ELEMS", "gcv_paired", "coefficients_paired",
+    "shrunk_projections", "LOO_BLOCK_ELEMS", "gcv_paired", "reml_paired", "coefficients_paired",
     "path_intercepts",
     "loo_residuals", "project", "test_sums", "coefficients", "min_norm_coefficients",
     "intercepts", "coef_norm", "append_zero", "sample_weights", "path_coef_norm", "fold_factor", "kfold_fold_mse", "tsqr",
@@ -370,10 +370,10 @@ def gcv(state: FactorState, lam, sh: Shrinkage | None = None) -> np.ndarray:
     ch, cmax = _c_scaled(state.uty)
     A = np.square(sh.s_rel).T @ np.square(ch)  # (k, t)
     B = sh.s_rel.sum(axis=0)  # (k,)
-    return _gcv_ratio(state, A, B[:, None], sh.s_max[:, None], cmax[None, :])
+    return _gcv_ratio(state, A, B[:, None], sh.s_max[:, None], cmax[None, :], state.rss_out)
 
 
-def _gcv_ratio(state: FactorState, A, B, s_max, cmax):
+def _gcv_ratio(state: FactorState, A, B, s_max, cmax, rss_out):
     """GCV from :math:`A = \\sum \\hat s^2 \\hat c^2`, :math:`B = \\sum \\hat s`, (broadcast shapes)."""
     n = state.n_samples
     if state.span is not None:  # weighted: (RSS_w / sum w) / (1 - df/n)^2
@@ -381,25 +381,26 @@ def _gcv_ratio(state: FactorState, A, B, s_max, cmax):
     with np.errstate(under="ignore", over="ignore"):
         if state.full_row_rank:
             return n * np.square(cmax / B) * A
-        num = state.rss_out + np.square(s_max * cmax) * A
+        num = rss_out + np.square(s_max * cmax) * A
         den = (state.m - state.rank) + s_max * B
         return n * num / np.square(den)
 
 
-def gcv_paired(state: FactorState, lam) -> np.ndarray:
-    """GCV of target ``j`` at penalty ``lam[j]``, shape (t,): :func:`gcv` on the diagonal.
+def gcv_paired(state: FactorState, lam, *, targets=None) -> np.ndarray:
+    """GCV of target ``targets[i]`` (default: every target) at penalty ``lam[i]``, (b,).
 
-    O(r t), the same scaled complements as :func:`gcv` (finite at every
-    :math:`\\lambda \\ge 0`).
+    :func:`gcv` on the diagonal, O(r b), with the same scaled complements
+    (finite at every :math:`\\lambda \\ge 0`).
     """
     lam = _lam(lam)
-    if lam.size != state.n_targets:
-        raise ValueError(f"gcv_paired needs one penalty per target ({state.n_targets}); "
+    idx = np.arange(state.n_targets) if targets is None else np.asarray(targets).reshape(-1)
+    if lam.size != idx.size:
+        raise ValueError(f"gcv_paired needs one penalty per target ({idx.size}); "
                          f"got {lam.size}")
-    sh = shrinkage(state.d, lam)  # (r, t)
-    ch, cmax = _c_scaled(state.uty)
+    sh = shrinkage(state.d, lam)  # (r, b)
+    ch, cmax = _c_scaled(state.uty[:, idx])
     A = np.einsum("rt,rt->t", np.square(sh.s_rel), np.square(ch))
-    return _gcv_ratio(state, A, sh.s_rel.sum(axis=0), sh.s_max, cmax)
+    return _gcv_ratio(state, A, sh.s_rel.sum(axis=0), sh.s_max, cmax, state.rss_out[idx])
 
 
 # ----------------------------------------------------------- leave-one-out rows
@@ -1235,34 +1236,71 @@ def reml_profile(state: FactorState, lam, *, target: int | None = None) -> np.nd
     """
     lam = np.atleast_1d(np.asarray(lam, dtype=float))
     m, c, outside = _reml_parts(state, target)
-    d2 = np.square(state.d)
+    return _reml_core(np.square(state.d), m, lam, c, outside, paired=False)
+
+
+def reml_paired(state: FactorState, lam, *, targets=None) -> np.ndarray:
+    """:func:`reml_profile` of target ``targets[i]`` (default every target) at ``lam[i]``, (b,).
+
+    O(r b); the same closed forms, so the same range (0 to inf) without overflow.
+    """
+    lam = np.atleast_1d(np.asarray(lam, dtype=float)).reshape(-1)
+    idx = np.arange(state.n_targets) if targets is None else np.asarray(targets).reshape(-1)
+    if lam.size != idx.size:
+        raise ValueError(f"reml_paired needs one penalty per target ({idx.size}); got {lam.size}")
+    m = state.n_samples - state.n_fixed
+    c, outside = state.uty[:, idx], np.asarray(state.rss_out, dtype=float)[idx]
+    return _reml_core(np.square(state.d), m, lam, c, outside, paired=True)
+
+
+def _logsumexp_cols(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """:math:`\\log \\sum_j b_j e^{a_j}` down the columns, ``b >= 0``: the largest exponent
+    with a positive weight is factored out (every term <= its weight), as ``logsumexp``."""
+    pos = b > 0
+    top = np.max(np.where(pos, a, -np.inf), axis=0)
+    top = np.where(np.isfinite(top), top, 0.0)
+    total = np.einsum("ij,ij->j", b, np.exp(np.where(pos, a - top, -np.inf)))
+    with np.errstate(divide="ignore"):
+        return top + np.log(total)
+
+
+def _reml_core(d2, m, lam, c, outside, *, paired: bool) -> np.ndarray:
+    """The profile of :func:`reml_profile`: (k, t) on a grid, or (t,) with ``paired``
+    (column ``j`` of ``c`` at ``lam[j]``)."""
     r = d2.size
-    out = np.empty((lam.size, c.shape[1]))
-    b = np.concatenate([np.square(c), outside[None, :]])[:, None, :]  # (r+1, 1, t)
+    out = np.empty(lam.shape if paired else (lam.size, c.shape[1]))
+    b = np.concatenate([np.square(c), outside[None, :]])  # (r+1, t)
+    b = b if paired else b[:, None, :]
+
+    def lse(a, sel):  # log sum_j b_j e^{a_j} over the r+1 terms
+        return _logsumexp_cols(a, b[:, sel]) if paired else logsumexp(a[:, :, None], b=b,
+                                                                       axis=0)
+
+    col = (lambda v: v) if paired else (lambda v: v[:, None])
     big = (lam >= d2[-1]) & np.isfinite(lam)
     if big.any():
         L = _log1p_ratio(d2, lam[big])  # (r, kb)
-        a = np.concatenate([-L, np.zeros((1, L.shape[1]))])[:, :, None]
-        logq = logsumexp(a, b=b, axis=0)  # (kb, t)
-        out[big] = -0.5 * (m * (logq - np.log(m)) + L.sum(axis=0)[:, None])
+        logq = lse(np.concatenate([-L, np.zeros((1, L.shape[1]))]), big)
+        out[big] = -0.5 * (m * (logq - np.log(m)) + col(L.sum(axis=0)))
     small = (lam > 0) & (lam < d2[-1])
     if small.any():
         ls = lam[small]
         logden = np.log(d2[:, None] + ls[None, :])  # (r, ks)
-        a = np.concatenate([-logden, -np.log(ls)[None, :]])[:, :, None]
-        logw = logsumexp(a, b=b, axis=0)
+        logw = lse(np.concatenate([-logden, -np.log(ls)[None, :]]), small)
         out[small] = -0.5 * (m * (logw - np.log(m))
-                             + ((m - r) * np.log(ls) + logden.sum(axis=0))[:, None])
+                             + col((m - r) * np.log(ls) + logden.sum(axis=0)))
+    total = -0.5 * m * np.log((np.sum(np.square(c), axis=0) + outside) / m)  # lambda -> inf
     inf = np.isinf(lam)
     if inf.any():
-        out[inf] = -0.5 * m * np.log((np.sum(np.square(c), axis=0) + outside) / m)
+        out[inf] = total[inf] if paired else total
     zero = lam == 0
     if zero.any():
-        if outside.any() or r < m:
-            out[zero] = -np.inf
-        else:
-            s = np.sum(np.square(c) * (d2[-1] / d2)[:, None], axis=0)  # scaled by d_r^2
-            out[zero] = -0.5 * (m * (np.log(s / m) - np.log(d2[-1])) + np.sum(np.log(d2)))
+        s = np.sum(np.square(c) * (d2[-1] / d2)[:, None], axis=0)  # scaled by d_r^2
+        with np.errstate(divide="ignore"):
+            at0 = -0.5 * (m * (np.log(s / m) - np.log(d2[-1])) + np.sum(np.log(d2)))
+        dead = (outside > 0) if paired else np.full(c.shape[1], bool(outside.any()))
+        at0 = np.where(dead | (r < m), -np.inf, at0)
+        out[zero] = at0[zero] if paired else at0
     return out
 
 

@@ -66,6 +66,8 @@ __all__ = [
     "lw_lambda",
     "isotropic_lambda",
     "select_penalty",
+    "check_selection",
+    "setting_note",
     "select",
 ]
 
@@ -728,6 +730,36 @@ def select_penalty(path, cv=None, *, df_target: float | None = None,
     >>> rep.reported, rep.noise.method
     ('gcv', 'ols')
     """
+    t = path.uty.shape[1]
+    st = getattr(path, "state", None)
+    if t > 1 and st is not None and st.u is not None and getattr(path, "engine", None) is None:
+        from paths.selection.targets import select_targets  # every target at once
+
+        return select_targets(path, cv, df_target=df_target, fraction_target=fraction_target,
+                              reported=reported).report()
+    reported, df_target, fraction_target = check_selection(path, cv, df_target, fraction_target,
+                                                           reported)
+    gcv_choice = [_refine_minimum(_gcv_fun(path, j), path.lambdas,
+                                  _gcv_values(path, path.lambdas, j)) for j in range(t)]
+    noise = noise_variance(path, gcv_lambda=np.array([g["lam"] for g in gcv_choice]))
+    sig = np.broadcast_to(np.asarray(noise.value, dtype=float), (t,))
+    per_target = []
+    for j in range(t):
+        per_target.append(_select_one(path, cv, j, gcv_choice[j], float(sig[j]), noise,
+                                      df_target, fraction_target))
+    return SelectionReport(per_target=tuple(per_target), noise=noise, reported=reported,
+                           df_target=df_target, fraction_target=fraction_target)
+
+
+def check_selection(path, cv, df_target, fraction_target, reported):
+    """Validate :func:`select_penalty`'s arguments once: ``(reported, df_target,
+    fraction_target)`` with a rule spec (``"df=10"``) folded into its target.
+
+    Raises
+    ------
+    InputError
+        See :func:`select_penalty`.
+    """
     if reported is not None:
         name, value = parse_rule(reported)
         if name == "df":
@@ -751,17 +783,7 @@ def select_penalty(path, cv=None, *, df_target: float | None = None,
         raise InputError(f"target shrinkage fraction must lie in (0, 1]; got {fraction_target:g}")
     if cv is not None and (cv.lambdas.size == 0 or cv.mse.shape[0] != cv.lambdas.size):
         raise InputError("cv result has no penalties; compute it with cross_validate")
-    t = path.uty.shape[1]
-    gcv_choice = [_refine_minimum(_gcv_fun(path, j), path.lambdas,
-                                  _gcv_values(path, path.lambdas, j)) for j in range(t)]
-    noise = noise_variance(path, gcv_lambda=np.array([g["lam"] for g in gcv_choice]))
-    sig = np.broadcast_to(np.asarray(noise.value, dtype=float), (t,))
-    per_target = []
-    for j in range(t):
-        per_target.append(_select_one(path, cv, j, gcv_choice[j], float(sig[j]), noise,
-                                      df_target, fraction_target))
-    return SelectionReport(per_target=tuple(per_target), noise=noise, reported=reported,
-                           df_target=df_target, fraction_target=fraction_target)
+    return reported, df_target, fraction_target
 
 
 def _make(path, rule, lam, j, *, est=None, cv=None, **kw):
@@ -811,14 +833,7 @@ def _select_one(path, cv, j, g, sigma2, noise, df_target, fraction_target):
         lam = lambda_for_fraction(path, fraction_target, j)
         out["fraction"] = _make(path, "fraction", lam, j, cv=est_cv,
                                 note=f"target fraction {fraction_target:g}")
-    outside = []
-    if noise.method != "ols":
-        outside.append("OLS undefined (rank >= n - 1): min-norm fit and the ridge noise "
-                       "estimate used, outside the published setting")
-    if not path.standardize:
-        outside.append("features not standardized: the published rules assume standardized "
-                       "columns")
-    note = "; ".join(outside)
+    note = setting_note(path, noise)
     out["hkb"] = _make(path, "hkb", hkb_lambda(path, sigma2, j), j, cv=est_cv,
                        note="; ".join(x for x in ("Hoerl, Kennard & Baldwin (1975)", note) if x))
     out["lw"] = _make(path, "lw", lw_lambda(path, sigma2, j), j, cv=est_cv,
@@ -835,6 +850,18 @@ def _select_one(path, cv, j, g, sigma2, noise, df_target, fraction_target):
     else:
         out["isotropic"] = _make(path, "isotropic", iso, j, cv=est_cv, note=iso_note)
     return out
+
+
+def setting_note(path, noise) -> str:
+    """Where the plug-in rules (hkb, lw) leave their published setting, or ``""``."""
+    outside = []
+    if noise.method != "ols":
+        outside.append("OLS undefined (rank >= n - 1): min-norm fit and the ridge noise "
+                       "estimate used, outside the published setting")
+    if not path.standardize:
+        outside.append("features not standardized: the published rules assume standardized "
+                       "columns")
+    return "; ".join(outside)
 
 
 def _reml(path, j, cv) -> RemlSelection:
