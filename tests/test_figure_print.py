@@ -186,6 +186,17 @@ def _panels(wide):
         yield f"threshold-{width}", figures.threshold_figure(tab, noise_variance=1.0,
                                                              width=width)
         yield f"reml-{width}", figures.reml_figure(path, width=width)
+        yield f"targets-{width}", figures.targets_figure(_many_choices(), reported="loo",
+                                                         width=width)
+
+
+def _many_choices():
+    """Invented per-target penalties of 3000 targets (seeded, log-normal), some at 0."""
+    rng = np.random.default_rng(5)
+    base = 10.0 ** rng.normal(2.0, 1.0, 3000)
+    loo = base * 10.0 ** rng.normal(0.0, 0.1, 3000)
+    loo[:40] = 0.0
+    return {"gcv": base, "loo": loo, "reml": base * 10.0 ** rng.normal(0.2, 0.3, 3000)}
 
 
 @pytest.fixture(scope="module")
@@ -200,7 +211,7 @@ def saved(wide, tmp_path_factory):
 
 NAMES = [f"{k}-{w}{x}" for w in ("single", "double")
          for k, x in (("path", "-df"), ("path", "-log_lambda"), ("spectrum", ""),
-                      ("threshold", ""), ("reml", ""))]
+                      ("threshold", ""), ("reml", ""), ("targets", ""))]
 
 
 @pytest.mark.parametrize("name", NAMES)

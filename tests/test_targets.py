@@ -242,3 +242,52 @@ def test_select_penalty_with_many_targets_is_per_target_and_complete():
         assert_allclose(sels["fraction"].fraction, 0.5, rtol=1e-9)
         assert sels["cv"].lam is None
     assert rep.chosen_lambdas().shape == (12,)
+
+
+# ------------------------------------------------------------ report: every target
+def _many_targets_frame(n=40, p=60, t=30, seed=29):
+    """Invented data (seeded): t targets with signals of different strengths."""
+    import pandas as pd
+
+    from paths.data.tables import select
+
+    X, Y = _problem(n, p, t, seed=seed)
+    frame = pd.DataFrame(np.hstack([X, Y]), columns=[f"f{j}" for j in range(p)]
+                         + [f"y{j}" for j in range(t)])
+    return select(frame, [f"y{j}" for j in range(t)], source="synthetic many targets")
+
+
+def test_explore_with_many_targets_writes_one_row_per_target_and_bounded_report(tmp_path):
+    """targets.csv holds one row per target with the reported rule's choice (equal to
+    select_penalty's on the same path); report.html keeps to MAX_TARGET_SECTIONS
+    target sections and a bounded "All targets" table; fig-targets.csv counts every
+    target's choice per bin (numpy.histogram is the reference)."""
+    import csv
+
+    from paths.present.report import MAX_TARGET_SECTIONS
+    from paths.workflows.explore import explore_prepared
+    from paths.workflows.options import FigureOptions, FitOptions, OutputOptions
+    from paths.workflows.prepare import Prepared
+
+    run = explore_prepared(Prepared(train=_many_targets_frame()), FitOptions(n_lambdas=30),
+                           FigureOptions(formats=("svg",)), OutputOptions(out_dir=tmp_path / "o"))
+    out = tmp_path / "o"
+    with open(out / "targets.csv", newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    assert [r["target"] for r in rows] == [f"y{j}" for j in range(30)]
+    ref = select_penalty(run.result).chosen_lambdas()
+    assert_allclose([float(r["lambda"]) for r in rows], ref, rtol=1e-12)
+    html = (out / "report.html").read_text()
+    assert html.count('<h2 class="target">') == MAX_TARGET_SECTIONS
+    assert "All targets" in html and "targets.csv" in html
+    section = html.split('id="all-targets"')[1].split("<h2")[0]
+    assert section.count("<tr>") == 1 + 7  # header + the 7 quantile rows
+    with open(out / "fig-targets.csv", newline="") as fh:
+        fig = [r for r in csv.DictReader(fh) if r["series"].startswith("gcv ")]
+    lam = ref[ref > 0]
+    assert sum(float(r["y"]) for r in fig) == lam.size  # every positive choice counted once
+    centres = np.array([float(r["x"]) for r in fig])
+    width = centres[1] - centres[0]
+    edges = np.concatenate([centres - width / 2, [centres[-1] + width / 2]])
+    counts, _ = np.histogram(np.log10(lam), bins=edges)
+    assert_allclose([float(r["y"]) for r in fig], counts, rtol=0)

@@ -9,6 +9,16 @@ import typer
 from paths.cli import flags as f
 from paths.cli.app import command, console, emit_summary, stdin_file
 
+#: targets printed in full on the console; every target's choice is in targets.csv
+SHOWN_TARGETS = 10
+
+
+def _more_targets(targets) -> None:
+    if len(targets) > SHOWN_TARGETS:
+        console.print(f"... and {len(targets) - SHOWN_TARGETS} more targets: every target's "
+                      "choice is in targets.csv, their distribution in fig-targets", markup=False)
+
+
 def _fmt_or(v, fmt="{:.4g}") -> str:
     return "n/a" if v is None else fmt.format(float(v))
 
@@ -19,7 +29,7 @@ def print_rules(run) -> None:
 
     s = run.summary
     targets = s.get("targets") or [None]
-    for name in targets:
+    for name in targets[:SHOWN_TARGETS]:
         sel_all = s["selected"] if name is None else s["by_target"][name]["selected"]
         title = "penalty choice, every rule (* = reported)" + (
             "" if name is None else f" (target {name})")
@@ -40,9 +50,12 @@ def print_rules(run) -> None:
         console.print(t)
         for line in notes:
             console.print(line, markup=False, soft_wrap=True)
+    _more_targets(targets)
     nv = s.get("noise_variance")
     if nv:
         val = nv["value"]
+        if isinstance(val, list) and len(val) > SHOWN_TARGETS:
+            val = val[:SHOWN_TARGETS]  # the rest: summary.json
         shown = ", ".join(f"{v:.4g}" for v in val) if isinstance(val, list) else f"{val:.4g}"
         console.print(f"noise variance {shown}  ({nv['formula']}; {nv['reference']})",
                       markup=False)
@@ -82,7 +95,7 @@ def print_summary(run) -> None:
     t.add_row("scaling", "standardized (population SD)" if r.standardize else "centered only")
     console.print(t)
     targets = s.get("targets") or [None]
-    for j, name in enumerate(targets):  # one table per target (several with --target a --target b)
+    for j, name in enumerate(targets[:SHOWN_TARGETS]):  # one table per target (--target a --target b)
         sel_all = s["selected"] if name is None else s["by_target"][name]["selected"]
         mn = s["min_norm"] if name is None else s["by_target"][name]["min_norm"]
 

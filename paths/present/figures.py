@@ -33,11 +33,13 @@ from paths.data.output import write_bytes, write_csv
 from paths.present.plot import (LABEL_PT, NOTE_PT, OKABE_ITO, TICK_PT, Artists,
                                 plot_bias_variance, plot_coef_path, plot_errors,
                                 plot_reml_profile, plot_rule_strip, plot_shrinkage,
-                                plot_spectrum, plot_threshold, plot_training_law,
+                                plot_spectrum, plot_target_penalties, plot_threshold,
+                                plot_training_law,
                                 plot_variance_share, unicode_log_ticks)
 
 __all__ = ["FORMATS", "WIDTHS", "Panel", "parse_formats", "parse_width", "publication_style",
-           "path_figure", "spectrum_figure", "reml_figure", "threshold_figure", "figure_table",
+           "path_figure", "spectrum_figure", "reml_figure", "targets_figure", "threshold_figure",
+           "figure_table",
            "save_figure"]
 
 #: Output formats :func:`save_figure` can write.
@@ -304,6 +306,24 @@ def reml_figure(result, *, width: str = "single", name: str = "fig-reml") -> Pan
                "interval. " + _convention(result) + ".")
     layout = {"single": lambda k: (1, 1, 2.6), "double": lambda k: (1, 1, 2.6)}
     return _compose(name, width, caption, layout, [lambda ax: plot_reml_profile(result, ax)])
+
+
+def targets_figure(choices, *, reported: str | None = None, standardize=True,
+                   width: str = "single", name: str = "fig-targets") -> Panel:
+    """The distribution across targets of the penalty of the reported rule and of GCV,
+    leave-one-out, K-fold CV and REML where present (:func:`paths.plot.plot_target_penalties`);
+    its size does not grow with the targets."""
+    t = max((np.size(v) for v in choices.values()), default=0)
+    keep = [reported] + [r for r in ("gcv", "loo", "cv", "reml") if r != reported]
+    choices = {r: choices[r] for r in keep if r in choices}  # at most four outlines: readable
+    caption = (f"Penalty chosen for each of the {t} targets, by rule: number of targets per bin "
+               "of log10 lambda" + (f"; the reported rule ({reported}) filled" if reported
+                                    else "") + ". "
+               + _convention({"standardize": standardize}) + ".")
+    layout = {"single": lambda k: (1, 1, 2.6), "double": lambda k: (1, 1, 2.8)}
+    return _compose(name, width, caption, layout, [
+        lambda ax: plot_target_penalties(choices, ax, reported=reported,
+                                         standardize=standardize)])
 
 
 def threshold_figure(sweep, *, theory=None, noise_variance=None, bias_variance=None,

@@ -42,6 +42,7 @@ __all__ = [
     "plot_coef_path", "plot_errors", "plot_rule_strip", "interpolation_ratio", "theory_applies",
     "power_of_ten", "unicode_log_ticks", "plot_shrinkage", "plot_spectrum", "plot_reml_profile",
     "plot_variance_share", "plot_threshold", "plot_training_law", "plot_bias_variance",
+    "plot_target_penalties",
 ]
 
 #: Okabe & Ito (2008) colour-blind-safe palette.
@@ -1196,6 +1197,73 @@ def plot_reml_profile(result, ax=None, **style) -> Artists:
     ax.set_xlabel(art.x_quantity)
     ax.set_ylabel(art.y_quantity)
     art.texts.append(ax.legend(fontsize=NOTE_PT, loc="lower center", frameon=True, framealpha=0.85))
+    return art
+
+
+# ------------------------------------------------------------------ many targets
+def plot_target_penalties(choices, ax=None, *, reported: str | None = None, standardize=True,
+                          bins: int = 30, **style) -> Artists:
+    """How the chosen penalty spreads across targets: one histogram of log10 λ per rule.
+
+    Parameters
+    ----------
+    choices : mapping
+        ``{rule: array of penalties, one per target}`` (NaN: no choice; 0: the
+        minimum-norm limit, counted in a note, not drawn on the log axis).
+    reported : str, optional
+        The reported rule: drawn filled (light grey under a black outline), the
+        others as step outlines, each in its own colour and dash pattern.
+    bins : int
+        Bins shared by every rule (the figure's size does not grow with the
+        number of targets).
+
+    Returns
+    -------
+    Artists
+        ``lines[rule]`` (the histogram patches) and one ``"histogram"`` trace per
+        rule (bin centres, counts).
+    """
+    ax = _new_axes(ax)
+    art = Artists(ax=ax, x_quantity=_penalty_label(standardize),
+                  y_quantity="number of targets")
+    logs = {r: np.log10(np.asarray(v, dtype=float)[np.asarray(v, dtype=float) > 0])
+            for r, v in choices.items()}
+    logs = {r: v[np.isfinite(v)] for r, v in logs.items()}
+    drawn = [r for r, v in logs.items() if v.size]
+    if not drawn:
+        art.notes.append("no rule chose a positive penalty for any target")
+        return art
+    allv = np.concatenate([logs[r] for r in drawn])
+    lo, hi = float(allv.min()), float(allv.max())
+    if hi - lo < 1e-9:
+        lo, hi = lo - 0.5, hi + 0.5
+    edges = np.linspace(lo, hi, int(bins) + 1)
+    centres = 0.5 * (edges[1:] + edges[:-1])
+    order = ([reported] if reported in drawn else []) + [r for r in drawn if r != reported]
+    for k, rule in enumerate(order):
+        counts, _ = np.histogram(logs[rule], bins=edges)
+        label = RULE_LABELS.get(rule, rule) + (" (reported)" if rule == reported else "")
+        zeros = int(np.sum(np.asarray(choices[rule], dtype=float) == 0))
+        if zeros:  # not on the log axis: said in the legend
+            art.notes.append(f"{label}: {zeros} target(s) at the minimum-norm limit λ → 0")
+            label += f"; {zeros} at λ → 0"
+        if rule == reported:
+            kw = dict(histtype="stepfilled", facecolor="#d9d9d9", edgecolor=_C["black"],
+                      linewidth=1.0)
+        else:
+            key = _RULE_STYLE.get(rule)
+            color, dash = ((_style(key)["color"], _style(key)["linestyle"]) if key
+                           else _SEQUENCE[k % len(_SEQUENCE)])
+            kw = dict(histtype="step", color=color, linestyle=dash, linewidth=1.2)
+        kw.update(style)
+        *_, patches = ax.hist(logs[rule], bins=edges, label=label, **kw)
+        art.lines[rule] = patches
+        art.traces.append(Trace(f"{rule} penalty per target", "histogram", centres,
+                                counts.astype(float)))
+    ax.set_xlabel(art.x_quantity)
+    ax.set_ylabel(art.y_quantity)
+    art.texts.append(ax.legend(fontsize=NOTE_PT, loc="upper right", frameon=True,
+                               framealpha=0.85))
     return art
 
 

@@ -20,12 +20,15 @@ import re
 from dataclasses import dataclass, replace
 from pathlib import Path
 
+import numpy as np
+
 from paths.data.output import write_text
 from paths.present.markup import md_escape, md_safe
 
 __all__ = ["FigureRef", "report_numbers", "diagnosis", "methods_paragraph", "rules_table",
            "intervals_section",
-           "cautions", "render_markdown", "render_html", "write_report", "fmt"]
+           "cautions", "render_markdown", "render_html", "write_report", "fmt", "targets_section",
+           "MAX_TARGET_SECTIONS", "MAX_TARGET_ROWS"]
 
 RULE_NAMES = {
     "gcv": "minimum generalized cross-validation (GCV; Golub, Heath & Wahba 1979)",
@@ -581,7 +584,12 @@ def render_markdown(summary: dict, figures=()) -> str:
         L += [str(summary["description"]), ""]
     L += ["## Data", "", "| quantity | value |", "|---|---|"]
     L += [f"| {a} | {_md(b)} |" for a, b in data_summary(summary)]
-    multi = len(_blocks(summary)) > 1
+    said, head, rows = targets_section(summary)
+    if said:
+        L += ["", "## All targets", ""] + [f"- {s}" for s in said]
+        L += ["", "| " + " | ".join(head) + " |", "|" + "---|" * len(head)]
+        L += ["| " + " | ".join(map(_md, r)) + " |" for r in rows]
+    multi = len(summary.get("targets") or []) > 1
     for name, view in _blocks(summary):
         h2 = "###" if multi else "##"
         if multi:
@@ -668,7 +676,11 @@ def render_html(summary: dict, figures=(), *, interactive: str = "") -> str:
     if summary.get("description"):
         B.append(f"<p>{e(str(summary['description']))}</p>")
     B += ["<h2>Data</h2>", table(data_summary(summary), ["quantity", "value"])]
-    multi = len(_blocks(summary)) > 1
+    said, head, rows = targets_section(summary)
+    if said:
+        B += ['<h2 id="all-targets">All targets</h2>', "<ul>"]
+        B += [f"<li>{e(s)}</li>" for s in said] + ["</ul>", table(rows, head)]
+    multi = len(summary.get("targets") or []) > 1
     for name, view in _blocks(summary):
         h = "h3" if multi else "h2"
         if multi:
@@ -922,13 +934,19 @@ def write_explore_outputs(result, summary: dict, out_dir, *, cv=None, formats=("
     K-fold CV (``cv``, a :class:`paths.cv.CVResult`) when given.  With several
     targets the path figures are ``fig-path-1``, ``fig-path-2``, … in target order.
     """
-    from paths.present.figures import path_figure, reml_figure, save_figure, spectrum_figure
+    from paths.present.figures import (path_figure, reml_figure, save_figure, spectrum_figure,
+                                       targets_figure)
+    from paths.present.summary import target_choices
 
     out = Path(out_dir)
     nums = summary.get("report") or report_numbers(summary)
     names = summary.get("targets") or [None]
     panels, owners = [], []
-    for j, name in enumerate(names):
+    if len(names) > 1:  # every target at once, in a figure of fixed size
+        panels.append(targets_figure(target_choices(summary), reported=nums["rule"],
+                                     standardize=summary.get("standardize", True), width=width))
+        owners.append(None)
+    for j, name in enumerate(names[:MAX_TARGET_SECTIONS]):
         view = summary if name is None else target_view(summary, j)
         selected = {k: v for k, v in (view.get("selected") or {}).items()
                     if isinstance(v, dict) and v.get("lambda") is not None}
@@ -1039,12 +1057,70 @@ def references(summary: dict) -> list:
     return [REFERENCES[k] for k in _cited(summary)]
 
 
+#: targets given their own section (and path figure) in the report; every target is in
+#: the "All targets" table's file targets.csv and in the distribution figure
+MAX_TARGET_SECTIONS = 10
+#: rows of the "All targets" table in the report (quantiles of the choice beyond that)
+MAX_TARGET_ROWS = 20
+
+
 def _blocks(summary: dict) -> list:
-    """``[(target name or None, view)]``: one per target (one, unnamed, for a single target)."""
+    """``[(target name or None, view)]``: one per target (one, unnamed, for a single target),
+    the first :data:`MAX_TARGET_SECTIONS` targets only."""
     names = summary.get("targets") or []
     if not names:
         return [(None, summary)]
-    return [(name, target_view(summary, j)) for j, name in enumerate(names)]
+    return [(name, target_view(summary, j))
+            for j, name in enumerate(names[:MAX_TARGET_SECTIONS])]
+
+
+def targets_section(summary: dict):
+    """``(sentences, header, rows)`` of the report's "All targets" section, bounded in size.
+
+    Up to :data:`MAX_TARGET_ROWS` targets every row of :func:`paths.present.summary.targets_table`;
+    beyond, the targets at the minimum, the 10/25/50/75/90 % quantiles and the maximum of
+    the reported penalty (labelled), the whole table being in ``targets.csv``.
+    """
+    from paths.present.summary import targets_table
+
+    names = summary.get("targets") or []
+    if len(names) < 2:
+        return [], [], []
+    header, rows = targets_table(summary)
+    rule = rows[0][1]
+    lam = np.array([r[2] for r in rows], dtype=float)
+    ok = np.isfinite(lam)
+    out = [f"{len(names)} targets share one factorization; each has its own penalty "
+           f"(rule {SHORT.get(rule, rule)} reported). Every target's row is in targets.csv; "
+           f"figure fig-targets shows how each rule's penalty spreads across the targets."]
+    if ok.any():
+        q = np.quantile(lam[ok], [0.1, 0.5, 0.9])
+        out.append(f"Reported penalty: median {fmt(q[1])}, 10–90 % range {fmt(q[0])} to "
+                   f"{fmt(q[2])}" + ("" if ok.all() else f"; {int((~ok).sum())} target(s) "
+                                     "without one") + ".")
+    if len(names) > MAX_TARGET_SECTIONS:
+        out.append(f"The sections below cover the first {MAX_TARGET_SECTIONS} targets.")
+    shown = list(range(len(rows)))
+    label = [""] * len(rows)
+    if len(rows) > MAX_TARGET_ROWS and ok.any():
+        idx = np.flatnonzero(ok)
+        srt = idx[np.argsort(lam[idx], kind="stable")]
+        shown, label = [], []
+        for name, qq in (("minimum", 0.0), ("10 %", 0.1), ("25 %", 0.25), ("median", 0.5),
+                         ("75 %", 0.75), ("90 %", 0.9), ("maximum", 1.0)):
+            shown.append(int(srt[int(round(qq * (srt.size - 1)))]))
+            label.append(name)
+        out.append("The table lists the targets at the quantiles of the reported penalty.")
+    others = [h[len("lambda_"):].replace("_", "-") for h in header[7:]]
+    head = (["quantile"] if any(label) else []) + [
+        "target", "λ", "df", "error estimate", "± SE", *[f"λ {SHORT.get(r, r)}" for r in others]]
+    table = []
+    for lab, i in zip(label, shown):
+        r = rows[i]
+        cells = [str(r[0]), fmt(r[2]), fmt(r[3]), fmt(r[4]) + (f" ({r[6]})" if r[6] else ""),
+                 fmt(r[5]), *[fmt(v) for v in r[7:]]]
+        table.append(([lab] if any(label) else []) + cells)
+    return out, head, table
 
 
 def _md_rules(summary: dict) -> list:

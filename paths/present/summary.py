@@ -20,7 +20,8 @@ from paths.core.path import RidgePath
 
 __all__ = ["versions", "path_table", "coefficient_table", "summary_dict", "selections",
            "model_table", "choice_errors", "shared_rows", "add_choice_errors", "reported_lambdas",
-           "write_coefficients", "COEFFICIENTS_CSV_LIMIT", "interval_table", "interval_record"]
+           "write_coefficients", "COEFFICIENTS_CSV_LIMIT", "interval_table", "interval_record",
+           "TARGET_TABLE_RULES", "target_choices", "targets_table"]
 
 
 def versions() -> dict:
@@ -91,7 +92,7 @@ def path_table(result: RidgePath, target: int = 0):
 
 def coefficient_table(result: RidgePath, target: int = 0):
     """``coefficients.csv``: one row per penalty, the intercept then one column per feature."""
-    coef = result.coef if result.coef.ndim == 2 else result.coef[:, :, target]
+    coef = result.coef_of(target)  # one target's path: never the (k, p, t) array
     icpt = result.intercept if result.intercept.ndim == 1 else result.intercept[:, target]
     header = ["lambda", "intercept", *result.feature_names]
     rows = [[float(result.lambdas[i]), float(icpt[i]), *map(float, coef[i])]
@@ -321,3 +322,51 @@ def write_coefficients(out_dir, header, rows):
     buf = io.BytesIO()
     frame.to_parquet(buf, index=False)
     return write_bytes(out / "coefficients.parquet", buf.getvalue())
+
+
+# ------------------------------------------------------------------- many targets
+#: rules whose penalty per target the targets table lists (when the run has them)
+TARGET_TABLE_RULES = ("gcv", "loo", "cv", "one-se", "reml")
+
+
+def _num(v):
+    if isinstance(v, list):
+        v = v[0] if v else None
+    return np.nan if v is None else float(v)
+
+
+def target_choices(summary: dict) -> dict:
+    """``{rule: ndarray (t,)}``: each target's penalty per rule of a multi-target record
+    (NaN where a rule gave none; rules giving none for every target are left out)."""
+    names = summary.get("targets") or []
+    by = summary.get("by_target") or {}
+    rules = [r for r, v in ((by.get(names[0]) or {}).get("selected") or {}).items()
+             if isinstance(v, dict) and r != "test"] if names else []
+    out = {}
+    for rule in rules:
+        lam = np.array([_num((((by.get(n) or {}).get("selected") or {}).get(rule) or {})
+                             .get("lambda")) for n in names])
+        if np.isfinite(lam).any():
+            out[rule] = lam
+    return out
+
+
+def targets_table(summary: dict):
+    """``targets.csv``: one row per target — the reported rule's penalty, df and error
+    estimate (with its SE and source), then the penalty of each rule of
+    :data:`TARGET_TABLE_RULES` the run has.  Returns ``(header, rows)``."""
+    names = summary.get("targets") or []
+    by = summary.get("by_target") or {}
+    rule = (summary.get("report") or {}).get("rule") or summary.get("reported") or "gcv"
+    choices = target_choices(summary)
+    others = [r for r in TARGET_TABLE_RULES if r in choices]
+    header = ["target", "reported_rule", "lambda", "df", "est_mse", "est_se", "est_source",
+              *[f"lambda_{r.replace('-', '_')}" for r in others]]
+    rows = []
+    for j, name in enumerate(names):
+        sel = ((by.get(name) or {}).get("selected") or {}).get(rule) or {}
+        est = sel.get("est_mse", sel.get("value"))
+        rows.append([name, rule, _num(sel.get("lambda")), _num(sel.get("df")), _num(est),
+                     _num(sel.get("est_se")), sel.get("est_source") or "",
+                     *[float(choices[r][j]) for r in others]])
+    return header, rows

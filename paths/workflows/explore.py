@@ -272,7 +272,7 @@ def write_explore(fitted, summary: dict, out: Path, targets, figures: FigureOpti
     from paths.data.output import write_csv, write_json
     from paths.present.report import write_explore_outputs
     from paths.present.summary import (coefficient_table, model_table, path_table,
-                                       reported_lambdas, write_coefficients)
+                                       reported_lambdas, targets_table, write_coefficients)
 
     formats, width = check_figures(figures)
     result = fitted.result
@@ -280,6 +280,8 @@ def write_explore(fitted, summary: dict, out: Path, targets, figures: FigureOpti
              write_coefficients(out, *per_target(coefficient_table, result, targets)),
              write_csv(out / "model.csv", *model_table(result, reported_lambdas(summary), targets)),
              write_json(out / "summary.json", summary)]
+    if len(targets) > 1:  # one row per target: every target's choice in one table
+        files.append(write_csv(out / "targets.csv", *targets_table(summary)))
     if formats or figures.report:
         files += write_explore_outputs(result, summary, out, cv=fitted.cv, formats=formats,
                                        width=width, x=figures.x, report=figures.report)
