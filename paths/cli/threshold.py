@@ -7,7 +7,7 @@ from pathlib import Path
 import typer
 
 from paths.cli import flags as f
-from paths.cli.app import command, console, emit_summary
+from paths.cli.app import command, console, emit_summary, stdin_file
 
 def _fmt(v) -> str:
     return "n/a" if v is None else f"{float(v):.4g}"
@@ -81,6 +81,7 @@ def threshold_cmd(
     from paths.workflows import options as o
     from paths.workflows.threshold import run_threshold
 
+    data = stdin_file(data)  # "-": standard input
     given = locals()
     with ProgressBar() as bar:
         run = run_threshold(

@@ -14,6 +14,7 @@ from pathlib import Path
 
 import numpy as np
 
+from paths.data.stdin import source_name
 from paths.data.validation import InputError
 from paths.workflows.explore import ExploreRun, check_figures, command_text, per_target
 from paths.workflows.options import (DataOptions, EngineOptions, FigureOptions, FitOptions,
@@ -60,9 +61,9 @@ def _file_digests(path: Path) -> tuple[dict, list]:
     for f in files:
         size = f.stat().st_size
         if size <= _HASH_LIMIT:
-            out[str(f)] = sha256_of(f)
+            out[source_name(f)] = sha256_of(f)  # "standard input" for '-'
         else:
-            out[str(f)] = None
+            out[source_name(f)] = None
             notes.append(f"{f}: {size} bytes, not hashed (over 2 GiB; another full read)")
     return out, notes
 
@@ -270,7 +271,7 @@ def explore_engine(data: DataOptions, fit: FitOptions = FitOptions(),
         summary = _engine_summary(result, data, fit, output, digests, hash_notes, cv_res,
                                   selection)
         files = _write_engine(result, summary, folder.stage, list(data.target), figures,
-                              source=str(data.file), digests=digests, selection=selection)
+                              source=source_name(data.file), digests=digests, selection=selection)
     return ExploreRun(result=result, summary=summary, out_dir=folder.target,
                       files=folder.final_paths(files))
 
@@ -284,7 +285,7 @@ def _engine_summary(result, data, fit, output, digests, hash_notes, cv_res, sele
     if data.holdout is not None:
         split = {"holdout": data.holdout, "seed": fit.seed, "n_test": int(result.n_test)}
     summary = summary_dict(
-        result, target=targets[0] if len(targets) == 1 else targets, source=str(data.file),
+        result, target=targets[0] if len(targets) == 1 else targets, source=source_name(data.file),
         input_sha256=digests, split=split, command_line=command_text(output),
         data_notes=list(result.notes) + hash_notes, engine=result.engine_record(),
         noise_variance=selection.noise.as_dict(None if result.multi_target else 0),
