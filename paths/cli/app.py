@@ -19,7 +19,7 @@ from rich.console import Console
 
 
 __all__ = ["app", "command", "console", "err_console", "main", "load_commands", "as_flags", "flags_of",
-           "emit_summary", "stdin_file"]
+           "emit_summary", "stdin_file", "is_quiet"]
 
 #: modules of this package that are not commands
 HELPERS = frozenset({"app", "checks", "flags", "progress"})
@@ -92,7 +92,13 @@ def _root(
 ):
     _state["debug"] = debug
     _state["json"] = json_out
+    _state["quiet"] = quiet
     console.quiet = quiet or json_out
+
+
+def is_quiet() -> bool:
+    """Whether ``paths --quiet`` was given (errors only: no summary, no progress)."""
+    return bool(_state.get("quiet"))
 
 
 def stdin_file(data):
