@@ -101,8 +101,7 @@ def _case(n, p, t, threads_list, repeats, ref_repeats) -> list[dict]:
 
 
 def run(quick: bool) -> list[dict]:
-    rows = _case(500, 2000, 300 if quick else 1000, H.THREAD_SETTINGS, 3 if quick else 5,
-                 3 if quick else 5)
+    rows = _case(500, 2000, 300 if quick else 1000, H.THREAD_SETTINGS, 3, 3)
     if os.environ.get("PATHS_BENCH_LARGE") == "1":
         rows += _case(500, 2000, 10000, (1,), 3, 1)
     return rows

@@ -164,11 +164,7 @@ class RidgePathRegressor(RegressorMixin, BaseEstimator):
             raise InputError(
                 f"rule {self.rule!r} gives no penalty here ({rep.chosen.note}); choose another rule"
             )
-        coef = np.empty((Y.shape[1], p))
-        intercept = np.empty(Y.shape[1])
-        for j in range(Y.shape[1]):
-            c = path.coef_at(lam[j])
-            coef[j] = c[:, j] if multi else c
+        coef = path.coef_per_target(lam).T  # each target at its own penalty: (t, p)
         intercept = path.design.y_mean - coef @ path.design.x_mean
         df = path.design.n_fixed + penalized_df(path.singular_values, lam)
         self.path_ = path
