@@ -1169,6 +1169,9 @@ def plot_reml_profile(result, ax=None, **style) -> Artists:
                   y_quantity=r"REML $\ell(\lambda)-\ell(\hat\lambda)$")
     xv = np.log10(np.where(lam > 0, lam, np.nan))
     names = ["y"] if ll.shape[1] == 1 else [f"target {j}" for j in range(ll.shape[1])]
+    if len(names) > len(_SEQUENCE):  # one line per target: the first few, the rest said
+        art.notes.append(f"{len(names) - len(_SEQUENCE)} more targets not drawn")
+        names = names[:len(_SEQUENCE)]
     for j, name in enumerate(names):
         est = reml_estimate(result, j)
         color, dash = _SEQUENCE[j % len(_SEQUENCE)]
