@@ -291,3 +291,37 @@ def test_explore_with_many_targets_writes_one_row_per_target_and_bounded_report(
     edges = np.concatenate([centres - width / 2, [centres[-1] + width / 2]])
     counts, _ = np.histogram(np.log10(lam), bins=edges)
     assert_allclose([float(r["y"]) for r in fig], counts, rtol=0)
+
+
+# --------------------------------- the per-penalty leave-one-out kernel (many targets)
+import test_path as _tp  # noqa: E402  (tests/ is on sys.path: pytest rootdir conftest)
+import test_weights as _tw  # noqa: E402
+
+_CASES = [
+    ("brute force p<n", lambda mp: _tp.test_loo_against_brute_force_refits(mp, (20, 6), True)),
+    ("brute force p>n", lambda mp: _tp.test_loo_against_brute_force_refits(mp, (15, 40), False)),
+    ("min-norm pinv", lambda mp: _tp.test_min_norm_loo_against_brute_force_pinv_refits(mp)),
+    ("no intercept", lambda mp: _tp.test_min_norm_loo_without_intercept_against_pinv_refits(
+        (20, 5))),
+    ("RidgeCV square", lambda mp: _tp.test_loo_against_sklearn_ridgecv(mp, (30, 30), True)),
+    ("row blocks", lambda mp: _tp.test_loo_across_row_blocks_against_sklearn_ridgecv(False)),
+    ("leverage one", lambda mp: _tp.test_loo_with_a_leverage_one_sample(mp)),
+    ("high leverage", lambda mp: _tp.test_loo_with_a_high_leverage_sample(1e4)),
+    ("near interpolation", lambda mp: _tp.test_loo_gcv_near_interpolation_against_mpmath(mp, 10)),
+    ("weights p<n", lambda mp: _tw.test_weighted_loo_against_brute_force((25, 8))),
+    ("weights p>n", lambda mp: _tw.test_weighted_loo_against_brute_force((20, 30))),
+]
+
+
+@pytest.mark.reference
+@pytest.mark.parametrize("case", _CASES, ids=[c[0] for c in _CASES])
+def test_per_penalty_loo_kernel_passes_the_loo_reference_tests(case, monkeypatch):
+    """With many targets leave-one-out is summed one penalty at a time
+    (algebra.LOO_PER_PENALTY_TARGETS); forced on for one target, that kernel passes
+    the leave-one-out reference tests of tests/test_path.py and tests/test_weights.py
+    (brute-force scikit-learn refits, numpy pinv refits, RidgeCV, mpmath), with
+    their own stated tolerances."""
+    from conftest import _gaussian_problem
+
+    monkeypatch.setattr(algebra, "LOO_PER_PENALTY_TARGETS", 1)
+    case[1](_gaussian_problem)

@@ -84,7 +84,7 @@ __all__ = [
     "gcv_limit", "Criteria", "criteria", "LeverageRows", "sample_space_blocks",
     "leverage_rows", "state_blocks", "refine_leverage", "naive_ell", "ell_tolerance",
     "augment_rows", "LEVERAGE_REFINE", "loo_sums", "loo_mse", "loo_blocks", "loo_paired",
-    "shrunk_projections", "LOO_BLOCK_ELEMS", "gcv_paired", "reml_paired", "coefficients_paired",
+    "shrunk_projections", "LOO_BLOCK_ELEMS", "LOO_PER_PENALTY_TARGETS", "loo_row_weights", "gcv_paired", "reml_paired", "coefficients_paired",
     "path_intercepts",
     "loo_residuals", "project", "test_sums", "coefficients", "min_norm_coefficients",
     "intercepts", "coef_norm", "append_zero", "sample_weights", "path_coef_norm", "fold_factor", "kfold_fold_mse", "tsqr",
@@ -679,15 +679,66 @@ def loo_mse(state: FactorState, lam) -> tuple[np.ndarray, np.ndarray]:
     sh = shrinkage(state.d, full)
     r, k, t = state.rank, full.size, state.n_targets
     total = np.zeros((k, t))
-    tb, blk = loo_blocks(r, k, t, state.n_samples)
-    for t0 in range(0, t, tb):  # targets in blocks: the n x k x t residuals are never held
-        cols = slice(t0, min(t0 + tb, t))
-        c = state.uty[:, cols]
-        sc = shrunk_projections(sh, c)
-        for _, _, rows in leverage_rows(state, blk, cols):
-            total[:, cols] += loo_sums(rows, sh, c, sc=sc)
+    if t >= LOO_PER_PENALTY_TARGETS:
+        _loo_by_penalty(state, sh, total)
+    else:
+        tb, blk = loo_blocks(r, k, t, state.n_samples)
+        for t0 in range(0, t, tb):  # targets in blocks: the n x k x t residuals are never held
+            cols = slice(t0, min(t0 + tb, t))
+            c = state.uty[:, cols]
+            sc = shrunk_projections(sh, c)
+            for _, _, rows in leverage_rows(state, blk, cols):
+                total[:, cols] += loo_sums(rows, sh, c, sc=sc)
     total /= state.total_weight
     return (total[:-1] if added else total), total[-1]
+
+
+#: from this many targets on, leave-one-out is summed one penalty at a time (below: all
+#: penalties in one product, which suits few targets and tall data)
+LOO_PER_PENALTY_TARGETS = 16
+
+
+def _loo_by_penalty(state: FactorState, sh: Shrinkage, total: np.ndarray) -> None:
+    """Add the leave-one-out sums of squares (k, t) into ``total``, one penalty at a time.
+
+    The residual of row i is :math:`w_i (u_i^T(\\hat s \\circ c)) + v_i e_{\\perp,i}` with
+    the row weights of :func:`loo_row_weights`, so each penalty is one product
+    :math:`(W U)(\\hat S C)` of n × r by r × t and one sum of squares: no n × k × t
+    block, and no pass to divide by :math:`1 - H_{ii}`.
+    """
+    n, (r, k), t = state.n_samples, sh.s_rel.shape, state.n_targets
+    tb = int(max(1, min(t, LOO_BLOCK_ELEMS // max(min(n, _BLOCK_ROWS), r, 1))))
+    for t0 in range(0, t, tb):
+        cols = slice(t0, min(t0 + tb, t))
+        c = state.uty[:, cols]
+        for _, _, rows in leverage_rows(state, _BLOCK_ROWS, cols):
+            den = np.square(rows.u) @ sh.s_rel  # (b, k)
+            has_out = bool(np.any(rows.ell > 0) and np.any(rows.e_perp))
+            for j in range(k):
+                scale, inv = loo_row_weights(rows.ell, sh.s_max[j], den[:, j])
+                res = (rows.u * scale[:, None]) @ (sh.s_rel[:, j:j + 1] * c)
+                if has_out:
+                    res += inv[:, None] * rows.e_perp
+                total[j, cols] += np.einsum("it,it->t", res, res)
+
+
+def loo_row_weights(ell: np.ndarray, s_max, den: np.ndarray):
+    """``(scale, inv)``: the leave-one-out residual is ``scale * a + inv * e_perp``.
+
+    With :math:`a_i = u_i^T(\\hat s \\circ c)` and :math:`b_i = ` ``den`` :math:`=
+    \\sum_j u_{ij}^2 \\hat s_j`: ``scale`` :math:`= s_r/(\\ell_i + s_r b_i)` and ``inv``
+    :math:`= 1/(\\ell_i + s_r b_i)` where :math:`\\ell_i > 0`; on interpolated rows
+    (:math:`\\ell_i = 0`) ``scale`` :math:`= 1/b_i` and ``inv`` 0 (the limit of
+    :func:`loo_sums`' ratio, finite at :math:`\\lambda = 0`).  ``den`` is (b,) or (b, t)
+    (then ``s_max`` (t,)).
+    """
+    out = (ell > 0).reshape((-1,) + (1,) * (den.ndim - 1))
+    ellx = ell.reshape(out.shape)
+    full = ellx + s_max * den
+    with np.errstate(divide="ignore", invalid="ignore"):
+        scale = np.where(out, s_max / np.where(out, full, 1.0), 1.0 / np.where(out, 1.0, den))
+        inv = np.where(out, 1.0 / np.where(out, full, 1.0), 0.0)
+    return scale, inv
 
 
 #: elements of the largest temporary of leave-one-out (the shrunk projections,
@@ -728,13 +779,9 @@ def loo_paired(state: FactorState, lam, *, targets=None, budget: int | None = No
         cols = slice(t0, min(t0 + tb, t))
         sc = sh.s_rel[:, cols] * state.uty[:, idx[cols]]
         for s, e, rows in leverage_rows(state, _BLOCK_ROWS, idx[cols]):
-            num = rows.u @ sc
             den = np.square(rows.u) @ sh.s_rel[:, cols]
-            out = rows.ell > 0
-            if out.any():
-                num[out] = rows.e_perp[out] + sh.s_max[cols] * num[out]
-                den[out] = rows.ell[out][:, None] + sh.s_max[cols] * den[out]
-            e2 = np.square(num / den)
+            scale, inv = loo_row_weights(rows.ell, sh.s_max[cols], den)
+            e2 = np.square(scale * (rows.u @ sc) + inv * rows.e_perp)
             if w is not None:  # transformed residuals: w_i e_i^2 already; mean weight 1
                 e2 *= n / w.sum()
             s1[cols] += e2.sum(axis=0)
