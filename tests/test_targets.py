@@ -325,3 +325,20 @@ def test_per_penalty_loo_kernel_passes_the_loo_reference_tests(case, monkeypatch
 
     monkeypatch.setattr(algebra, "LOO_PER_PENALTY_TARGETS", 1)
     case[1](_gaussian_problem)
+
+
+@pytest.mark.reference
+def test_choice_errors_of_one_target_among_many():
+    """The errors at a rule's own penalty for one of 20 targets (computed for that
+    target alone) equal the references: scikit-learn's leave-one-out and Ridge's
+    training error, the explicit-hat-matrix GCV; rtol 1e-8 (the LOO bound above)."""
+    from paths.present.summary import choice_errors
+
+    X, Y = _problem(30, 45, 20, seed=31)
+    path = fit_path(X, Y, n_lambdas=20, standardize=False)
+    lam, j = 3.7, 5
+    ce = choice_errors(path, lam, j)
+    m = Ridge(alpha=lam, solver="svd").fit(X, Y[:, j])
+    assert_allclose(ce["train_mse"], np.mean((Y[:, j] - m.predict(X)) ** 2), rtol=1e-8)
+    assert_allclose(ce["gcv"], _explicit_gcv(X, Y[:, j], lam), rtol=1e-8)
+    assert_allclose(ce["loo_mse"], _sk_loo(X, Y[:, j], lam), rtol=1e-8)

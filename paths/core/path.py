@@ -248,8 +248,12 @@ class RidgePath:
         Unpenalized columns are left out (the penalty does not act on them):
         :math:`(\\sum_j g_j^2 c_j^2)^{1/2}`, V having orthonormal columns.
         """
-        nrm = algebra.path_coef_norm(self._state(), self.lambdas)
-        return nrm if self.multi_target else nrm[:, 0]
+        if "coef_norm" not in self.cache:
+            nrm = algebra.path_coef_norm(self._state(), self.lambdas)
+            nrm = nrm if self.multi_target else nrm[:, 0]
+            _freeze(nrm)
+            self.cache["coef_norm"] = nrm
+        return self.cache["coef_norm"]
 
     def index_min(self, criterion: str = "gcv", target: int = 0) -> int:
         """Grid index minimizing ``"gcv"``, ``"loo"``/``"loo_mse"``, ``"train"`` or ``"test"``."""

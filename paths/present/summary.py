@@ -69,7 +69,12 @@ def _reml_column(result: RidgePath):
         return None
     from paths.selection.reml import reml_loglik
 
-    return reml_loglik(result)
+    cache = getattr(result, "cache", None)  # once per path, not once per target's table
+    if cache is None:
+        return reml_loglik(result)
+    if "reml_loglik" not in cache:
+        cache["reml_loglik"] = reml_loglik(result)
+    return cache["reml_loglik"]
 
 
 def path_table(result: RidgePath, target: int = 0):
@@ -227,14 +232,23 @@ def choice_errors(result: RidgePath, lam: float, target: int = 0, *, X_test=None
     penalty refined off the grid gets its own errors, not the nearest grid
     point's; the test MSE is that of :meth:`RidgePath.predict` at ``lam``.
     """
-    crit = result.criteria_at(float(lam))
+    state = getattr(result, "state", None)
+    if result.multi_target and state is not None and state.u is not None:
+        from paths.core import algebra  # this target only: O(n r), not O(n r t)
 
-    def pick(v):
-        v = np.asarray(v, dtype=float)
-        return float(v.reshape(v.shape[0], -1)[0, min(target, v.reshape(v.shape[0], -1).shape[1]
-                                                       - 1)])
+        lam1, j = np.array([float(lam)]), [int(target)]
+        out = {"train_mse": float(algebra.rss(state, lam1)[0, target] / state.total_weight),
+               "gcv": float(algebra.gcv_paired(state, lam1, targets=j)[0]),
+               "loo_mse": float(algebra.loo_paired(state, lam1, targets=j)[0][0])}
+    else:
+        crit = result.criteria_at(float(lam))
 
-    out = {"train_mse": pick(crit.train_mse), "gcv": pick(crit.gcv), "loo_mse": pick(crit.loo_mse)}
+        def pick(v):
+            v = np.asarray(v, dtype=float).reshape(np.shape(v)[0], -1)
+            return float(v[0, min(target, v.shape[1] - 1)])
+
+        out = {"train_mse": pick(crit.train_mse), "gcv": pick(crit.gcv),
+               "loo_mse": pick(crit.loo_mse)}
     if X_test is not None and y_test is not None:
         pred = np.asarray(result.predict(X_test, float(lam)), dtype=float)
         yt = np.asarray(y_test, dtype=float)
