@@ -59,17 +59,22 @@ def test_coef_per_target_matches_sklearn_ridge_alpha_array(shape):
 
 @pytest.mark.reference
 def test_blocked_loo_over_targets_matches_ridgecv(monkeypatch):
-    """Leave-one-out computed in blocks of a few targets (budget forced down to
-    force 20+ blocks) equals ``RidgeCV(store_cv_results=True)``, rtol 1e-8 (the
+    """Leave-one-out and the test error computed in blocks of a few targets (budget
+    forced down to force 20+ blocks) equal ``RidgeCV(store_cv_results=True)`` and
+    ``Ridge`` predictions, rtol 1e-8 (the
     LOO bound of tests/test_path.py: residuals of size lam/d^2 divided by
     leverages of the same size, ~1e-10 relative)."""
-    X, Y = _problem(35, 50, 23, seed=5)
+    X, Y = _problem(45, 50, 23, seed=5)
+    X, Xt, Y, Yt = X[:35], X[35:], Y[:35], Y[35:]
     lams = np.geomspace(1e3, 1e-2, 12)
     monkeypatch.setattr(algebra, "LOO_BLOCK_ELEMS", 50 * 13)  # one target per block
     assert algebra.loo_blocks(34, 13, 23, 35)[0] == 1
-    res = fit_path(X, Y, lams, standardize=False)
+    res = fit_path(X, Y, lams, standardize=False, X_test=Xt, y_test=Yt)
     cv = RidgeCV(alphas=lams, store_cv_results=True).fit(X, Y)
     assert_allclose(res.loo_mse, cv.cv_results_.mean(axis=0).T, rtol=1e-8)
+    for i, lam in enumerate(lams):  # the test error, in blocks of targets too (Ridge: 1e-8)
+        m = Ridge(alpha=lam, solver="svd").fit(X, Y)
+        assert_allclose(res.test_mse[i], np.mean((Yt - m.predict(Xt)) ** 2, axis=0), rtol=1e-8)
 
 
 @pytest.mark.reference

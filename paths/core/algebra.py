@@ -863,8 +863,14 @@ def test_sums(state: FactorState, lam, proj: np.ndarray, yc: np.ndarray):
     """
     lam = _lam(lam)
     full, added = append_zero(lam)
-    res = yc[:, None, :] - project(proj, gains(state.d, full), state.uty)
-    sq = np.einsum("ikt,ikt->kt", res, res)
+    g = gains(state.d, full)
+    t = state.n_targets
+    sq = np.empty((full.size, t))
+    tb = int(max(1, min(t, LOO_BLOCK_ELEMS // max(proj.shape[0] * full.size, 1))))
+    for t0 in range(0, t, tb):  # blocks of targets: no (n_test, k, t) array at once
+        cols = slice(t0, min(t0 + tb, t))
+        res = yc[:, None, cols] - project(proj, g, state.uty[:, cols])
+        sq[:, cols] = np.einsum("ikt,ikt->kt", res, res)
     return (sq[:-1] if added else sq), sq[-1]
 
 
