@@ -91,9 +91,9 @@ def _case(n, p, t, threads_list, repeats, ref_repeats) -> list[dict]:
     peak_ours = H.peak_memory(lambda: ours(X, Y, grid))
     peak_ref = H.peak_memory(lambda: RidgeCV(alphas=grid, alpha_per_target=True).fit(X, Y))
     dense = 8.0 * grid.size * p * t
-    for name, v in (("peak traced memory, ours [MiB]", peak_ours / 2**20),
-                    ("peak traced memory, RidgeCV [MiB]", peak_ref / 2**20),
-                    ("dense k×p×t coefficients (not formed) [MiB]", dense / 2**20)):
+    for name, v in (("peak traced memory, ours", peak_ours / 2**20),
+                    ("peak traced memory, RidgeCV", peak_ref / 2**20),
+                    ("dense k×p×t coefficients (not formed)", dense / 2**20)):
         rows.append(H.row(BENCH, case, name, v, "MiB", kind="memory"))
     rows.append(H.row(BENCH, case, "peak memory RidgeCV / ours", peak_ref / peak_ours, "×",
                       kind="memory"))
