@@ -347,3 +347,24 @@ def test_choice_errors_of_one_target_among_many():
     assert_allclose(ce["train_mse"], np.mean((Y[:, j] - m.predict(X)) ** 2), rtol=1e-8)
     assert_allclose(ce["gcv"], _explicit_gcv(X, Y[:, j], lam), rtol=1e-8)
     assert_allclose(ce["loo_mse"], _sk_loo(X, Y[:, j], lam), rtol=1e-8)
+
+
+@pytest.mark.reference
+def test_paired_loo_with_row_weights_against_weighted_refits():
+    """Row weights, several targets, one penalty per target: the leave-one-out error
+    sum_i w_i e_(i)^2 / sum_i w_i equals brute-force scikit-learn
+    ``Ridge(alpha).fit(..., sample_weight=w)`` refits without row i; rtol 1e-8
+    (the bound of tests/test_weights.py)."""
+    rng = np.random.default_rng(37)
+    X, Y = _problem(22, 9, 4, seed=37)
+    w = rng.uniform(0.5, 2.0, 22)
+    lams = np.array([0.3, 3.0, 30.0, 1.0])
+    path = fit_path(X, Y, [1.0], standardize=False, sample_weight=w)
+    loo, _ = algebra.loo_paired(path.state, lams)
+    for j, lam in enumerate(lams):
+        e = np.empty(22)
+        for i in range(22):
+            keep = np.arange(22) != i
+            m = Ridge(alpha=lam, solver="svd").fit(X[keep], Y[keep, j], sample_weight=w[keep])
+            e[i] = Y[i, j] - m.predict(X[i:i + 1])[0]
+        assert_allclose(loo[j], np.sum(w * e ** 2) / w.sum(), rtol=1e-8)
