@@ -1116,7 +1116,7 @@ def kfold_dual_residuals(state: FactorState, idx: np.ndarray, lam, *,
             A = (w @ P).reshape(w.shape[0], b, b)
         else:
             A = np.stack([(uf * wk) @ uf.T for wk in w])
-        rhs = np.einsum("ir,kr,rt->kit", uf, w, state.uty)
+        rhs = np.stack([uf @ (wk[:, None] * state.uty) for wk in w])  # (kc, b, t): products
         out[:, s:s + step] = np.moveaxis(np.linalg.solve(A, rhs), 0, 1)
     return out
 

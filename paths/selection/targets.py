@@ -47,8 +47,10 @@ __all__ = ["COARSE", "FINE", "RuleChoices", "TargetSelection", "Minima", "minimi
 
 #: golden-section search stops at this bracket width in log(lambda) (then a parabola step)
 COARSE = 1e-3
-#: penalties per bracket of the fine grid (K-fold rules)
-FINE = 16
+#: penalties per bracket of the fine grid (K-fold rules; each costs a K-fold grid column
+#: for every target, so few)
+FINE = 6
+_CV_CHUNK = 32  # penalties per K-fold evaluation (bounds its held-out residual blocks)
 _INV_PHI = (np.sqrt(5.0) - 1.0) / 2.0
 _N_EXTEND = 24  # up to 12 decades beyond the edge, half a decade a step
 _CHI2_1_95 = 3.841458820694124  # 0.95 quantile of chi-square(1) (scipy.stats.chi2.ppf)
@@ -361,11 +363,12 @@ class _CVValues:
     def grid(self, lams, idx):
         lams = np.asarray(lams, dtype=float).reshape(-1)
         new = np.array(sorted({float(v) for v in lams} - set(self.seen)))
-        if new.size:
-            mse, se = self.cv.at(new)
-            mse = np.asarray(mse, dtype=float).reshape(new.size, -1)
-            se = np.asarray(se, dtype=float).reshape(new.size, -1)
-            for i, lam in enumerate(new):
+        for s0 in range(0, new.size, _CV_CHUNK):
+            part = new[s0:s0 + _CV_CHUNK]
+            mse, se = self.cv.at(part)
+            mse = np.asarray(mse, dtype=float).reshape(part.size, -1)
+            se = np.asarray(se, dtype=float).reshape(part.size, -1)
+            for i, lam in enumerate(part):
                 self.seen[float(lam)] = (mse[i], se[i])
         return np.stack([self.seen[float(v)][0][idx] for v in lams])
 
