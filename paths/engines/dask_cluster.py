@@ -32,6 +32,7 @@ import numpy as np
 from paths.data.validation import InputError, as_lambdas
 from paths.core.grid import default_grid
 from paths.engines.stream import (HatPass, LooPasses, Moments, PassInfo, StreamPath, check_cv_options,
+                                  check_moment_ranges, check_scheme, solver_route,
                                   chunk_moments, cv_note, factor_moments, fold_plan,
                                   merge_moments, path_from_moments)
 
@@ -303,7 +304,7 @@ def _tree(items, fn):
     return items[0]
 
 
-def _moments(W, names, accurate, compute):
+def _moments(W, names, accurate, compute, checks=None):
     import dask
     import dask.array as da
 
@@ -318,6 +319,8 @@ def _moments(W, names, accurate, compute):
              for b, s in zip(blocks, starts)]
     summary = _tree(parts, merge_moments)
     mom = compute(summary)[0]
+    if checks is not None:  # the range checks before the squares are formed in dask's TSQR
+        checks(mom)
     c = W.shape[1]
     Wc = W - mom.mean
     rows_min = min(W.chunks[0])
@@ -424,6 +427,7 @@ def dask_path(
     features=None,
     chunk_rows: int | None = None,
     accurate: bool = False,
+    solver: str = "auto",
     scheduler: str | None = None,
     timeout: float = DEFAULT_TIMEOUT,
     fit_intercept: bool = True,
@@ -433,8 +437,8 @@ def dask_path(
     n_lambdas: int = 100,
     rtol: float | None = None,
     loo: bool = True,
-    cv: int | None = None,
-    cv_seed: int | None = None,
+    n_folds: int | None = None,
+    fold_scheme: str = "shuffled",
     repeats: int = 1,
     holdout: float | None = None,
     seed: int = 0,
@@ -461,7 +465,7 @@ def dask_path(
         Seconds to wait for the scheduler.
     test, y_test : optional
         Test rows, in any form ``data`` accepts.
-    loo, cv, cv_seed, repeats, holdout, seed, rank, fit_intercept, standardize, n_lambdas, rtol
+    solver, loo, n_folds, fold_scheme, repeats, holdout, seed, rank, fit_intercept, standardize, n_lambdas, rtol
         As in :func:`paths.engines.stream.stream_path` (the same folds and the
         same holdout rows; the holdout's row mask, one byte per row, is made on
         the client).
@@ -488,8 +492,10 @@ def dask_path(
     >>> dask_path(X, y=y, lambdas=[1.0, 0.1], loo=False).coef.shape
     (2, 5)
     """
-    scheme = "blocked" if cv_seed is None else "shuffled"
-    check_cv_options(cv, scheme, repeats)
+    accurate = solver_route(solver, accurate)
+    scheme = check_scheme(fold_scheme)
+    check_cv_options(n_folds, scheme, repeats)
+    cv = n_folds
     if test is not None and holdout is not None:
         raise InputError("pass either a test set or a holdout fraction, not both")
     if chunk_rows is not None and (int(chunk_rows) != chunk_rows or chunk_rows < 1):
@@ -510,7 +516,13 @@ def dask_path(
         if progress:
             progress(label1, 0, W.shape[0])
         t0 = time.perf_counter()
-        mom = _moments(W, names + tnames, accurate, compute)
+        def checks(m):
+            check_moment_ranges(m, p, fit_intercept=fit_intercept, standardize=standardize,
+                                names=names + tnames, source=str(data) if isinstance(
+                                    data, (str, Path)) else "")
+
+        mom = _moments(W, names + tnames, accurate, compute, checks)
+        checks(mom)
         passes.append(PassInfo(label1 + (" (dask tsqr)" if accurate else ""), mom.n,
                                time.perf_counter() - t0, mom.n * W.shape[1] * 8))
         if progress:
@@ -518,7 +530,7 @@ def dask_path(
         if fit_intercept and mom.n < 2:
             raise InputError(f"the data have {mom.n} row; at least 2 samples are needed")
         fit = factor_moments(mom, p, fit_intercept=fit_intercept, standardize=standardize,
-                             rtol=rtol, rank=rank)
+                             rtol=rtol, rank=rank, names=names + tnames, requested=solver)
         fac = replace(fit.fac, solver=fit.fac.solver.replace("stream-", "dask-"))
         fit = replace(fit, fac=fac)
         lam = default_grid(fit.fac.d, n_lambdas) if lam_user is None else lam_user
@@ -532,8 +544,8 @@ def dask_path(
                 progress(label2, 0, mom.n)
             t0 = time.perf_counter()
             plan = None if not cv else fold_plan(
-                mom.n, cv, scheme=scheme, seed=0 if cv_seed is None else int(cv_seed),
-                repeats=repeats, fit_intercept=fit_intercept)
+                mom.n, cv, scheme=scheme, seed=int(seed), repeats=repeats,
+                fit_intercept=fit_intercept)
             hp = _hat_tree(W, fit, lam, p, plan, compute)
             passes.append(PassInfo(label2, mom.n, time.perf_counter() - t0,
                                    mom.n * W.shape[1] * 8))

@@ -48,7 +48,8 @@ from paths.core.path import PENALTY_CONVENTION, MinNormFit, RidgePath
 __all__ = ["Moments", "chunk_moments", "merge_moments", "PairwiseMerger", "StreamPath",
            "stream_path", "PassInfo", "path_from_moments", "HatPass", "FoldPlan", "fold_plan",
            "FoldFactors", "LooPasses",
-           "check_cv_options", "cv_note"]
+           "check_cv_options", "check_scheme", "check_moment_ranges", "cv_note",
+           "solver_route"]
 
 _EPS = np.finfo(np.float64).eps
 
@@ -177,15 +178,29 @@ class _Fit:
                            fit_intercept=self.design.fit_intercept)
 
 
-def _preprocess(mom: Moments, p: int, fit_intercept: bool, standardize: bool):
+def check_moment_ranges(mom: Moments, p: int, *, fit_intercept: bool, standardize: bool,
+                        names=None, source: str = "") -> None:
+    """The in-memory engine's range checks (:mod:`paths.data.validation`) on the pass-1
+    bounds of ``[X | Y]``: subnormal columns, a response whose squared errors leave the
+    float64 range or is constant up to rounding, features whose squares or coefficients
+    leave it.  Every streamed engine (stream, dask) calls this before factoring."""
+    names = None if names is None else list(names)
+    if names is not None:
+        check_magnitudes(mom, names, source)
+    n = mom.n
+    check_response_bounds(mom.lo[p:], mom.hi[p:], n, fit_intercept=fit_intercept)  # as fit_path
+    with np.errstate(over="ignore"):
+        y_size = float(np.max(mom.hi[p:] - mom.lo[p:] if fit_intercept else mom.absmax[p:]))
+    check_feature_bounds(mom.lo[:p], mom.hi[:p], n, standardize=standardize, y_size=y_size,
+                         rescalable=False, names=None if names is None else names[:p])
+
+
+def _preprocess(mom: Moments, p: int, fit_intercept: bool, standardize: bool, names=None):
     """Means, scales and active columns, as :func:`paths.design.prepare` defines them."""
     n = mom.n
     t = mom.mean.size - p
-    # the in-memory engine's range checks (paths.data.validation), on the pass-1 bounds
-    check_response_bounds(mom.lo[p:], mom.hi[p:], n, fit_intercept=fit_intercept)
-    y_size = float(np.max(mom.hi[p:] - mom.lo[p:] if fit_intercept else mom.absmax[p:]))
-    check_feature_bounds(mom.lo[:p], mom.hi[:p], n, standardize=standardize, y_size=y_size,
-                         rescalable=False)
+    check_moment_ranges(mom, p, fit_intercept=fit_intercept, standardize=standardize,
+                        names=names)
     if mom.r is not None:
         diag = np.einsum("ij,ij->j", mom.r, mom.r)
     else:
@@ -223,7 +238,8 @@ def _preprocess(mom: Moments, p: int, fit_intercept: bool, standardize: bool):
 
 
 def factor_moments(mom: Moments, p: int, *, fit_intercept: bool = True, standardize: bool = True,
-                   rtol: float | None = None, rank: int | None = None) -> _Fit:
+                   rtol: float | None = None, rank: int | None = None, names=None,
+                   requested: str | None = None) -> _Fit:
     """Singular values, right singular vectors, :math:`U^T y` and the out-of-span RSS.
 
     Gram route: the eigendecomposition of the scaled p × p centered Gram
@@ -235,7 +251,7 @@ def factor_moments(mom: Moments, p: int, *, fit_intercept: bool = True, standard
     :math:`\\|y_\\perp\\|^2 = \\|(I - W W^T) R_{12}\\|^2 + \\|R_{22}\\|^2`, with no
     difference of large squares and no squared condition number.
     """
-    design = _preprocess(mom, p, fit_intercept, standardize)
+    design = _preprocess(mom, p, fit_intercept, standardize, names)
     n = mom.n
     t = mom.mean.size - p
     act = design.active
@@ -299,6 +315,8 @@ def factor_moments(mom: Moments, p: int, *, fit_intercept: bool = True, standard
             reason += "; accurate=True recommended"
     if r == 0:
         raise InputError("the centered design is numerically zero; nothing to fit")
+    if requested in ("svd", "gram"):
+        reason = f"requested (solver {requested}): {reason}"
     share = 1.0
     if rank is not None:
         if int(rank) != rank or not 1 <= rank <= min(m, q):
@@ -541,27 +559,52 @@ class FoldPlan:
                                      seed=self.seed, repeat=i) for i in range(self.repeats)])
 
 
-def check_cv_options(cv, scheme, repeats) -> None:
+def solver_route(solver: str, accurate: bool) -> bool:
+    """The streamed route for ``solver`` (as :func:`paths.core.factor.factorize` names
+    them): ``"svd"`` → the accurate route (QR of the rows, then the SVD of R),
+    ``"gram"`` → the Gram route, ``"auto"`` → ``accurate`` as given."""
+    if solver not in ("auto", "svd", "gram"):
+        raise InputError(f"solver must be one of auto, svd, gram; got {solver!r}")
+    if solver == "gram" and accurate:
+        raise InputError("accurate=True is the QR route and solver gram the Gram route; "
+                         "drop one of them")
+    return accurate if solver == "auto" else solver == "svd"
+
+
+def check_scheme(fold_scheme: str, groups=None) -> str:
+    """The fold scheme of a streamed engine: ``"grouped"`` with groups, else ``fold_scheme``."""
+    if fold_scheme not in ("shuffled", "blocked", "grouped"):
+        raise InputError(f"fold_scheme must be shuffled or blocked; got {fold_scheme!r}")
+    if groups is not None:
+        if fold_scheme == "blocked":
+            raise InputError("groups makes grouped folds; drop fold_scheme blocked")
+        return "grouped"
+    if fold_scheme == "grouped":
+        raise InputError("fold_scheme grouped needs groups; pass the group labels")
+    return fold_scheme
+
+
+def check_cv_options(n_folds, scheme, repeats) -> None:
     """One-line errors for K-fold options a streamed engine is given."""
-    if cv is None:
+    if n_folds is None:
         if isinstance(repeats, bool) or repeats != 1:
-            raise InputError("repeats needs K-fold CV (cv=K; CLI: --cv K)")
+            raise InputError("repeats needs K-fold CV; pass n_folds")
         return
-    if isinstance(cv, bool) or int(cv) != cv or cv < 2:
-        raise InputError(f"cv must be an integer >= 2 (number of folds); got {cv!r}")
+    if isinstance(n_folds, bool) or int(n_folds) != n_folds or n_folds < 2:
+        raise InputError(f"n_folds must be an integer >= 2; got {n_folds!r}")
     if isinstance(repeats, bool) or int(repeats) != repeats or repeats < 1:
         raise InputError(f"repeats must be an integer >= 1; got {repeats!r}")
     if scheme == "blocked" and repeats > 1:
         raise InputError("blocked folds are deterministic; use repeats=1 (or shuffled folds)")
 
 
-def fold_plan(n: int, cv: int, *, scheme="shuffled", seed=0, repeats=1, group_counts=None,
+def fold_plan(n: int, n_folds: int, *, scheme="shuffled", seed=0, repeats=1, group_counts=None,
               fit_intercept: bool = True) -> FoldPlan:
     """The :class:`FoldPlan` of ``n`` training rows (checked as
     :func:`paths.selection.cv.make_folds` checks folds)."""
     from paths.data.folds import group_folds
 
-    K = int(cv)
+    K = int(n_folds)
     if group_counts is not None:
         if group_counts.size < K:
             raise InputError(f"{group_counts.size} groups cannot fill {K} folds; use at most "
@@ -805,6 +848,7 @@ def stream_path(
     sep: str | None = None,
     chunk_rows: int = DEFAULT_CHUNK_ROWS,
     accurate: bool = False,
+    solver: str = "auto",
     fit_intercept: bool = True,
     standardize: bool = True,
     test=None,
@@ -812,8 +856,8 @@ def stream_path(
     n_lambdas: int = 100,
     rtol: float | None = None,
     loo: bool = True,
-    cv: int | None = None,
-    cv_seed: int | None = None,
+    n_folds: int | None = None,
+    fold_scheme: str = "shuffled",
     repeats: int = 1,
     groups=None,
     holdout: float | None = None,
@@ -844,6 +888,10 @@ def stream_path(
     accurate : bool
         Chunked TSQR instead of the Gram matrix: backward stable, about twice
         the arithmetic.
+    solver : {"auto", "svd", "gram"}
+        As in :func:`paths.core.path.fit_path`: ``"svd"`` takes the accurate
+        route (TSQR of the rows, then the SVD of R), ``"gram"`` the Gram route,
+        ``"auto"`` follows ``accurate``; the request is stated in ``solver_reason``.
     fit_intercept, standardize : bool
         As in :func:`paths.path.fit_path`.
     test : path, RowSource or array_like, optional
@@ -855,10 +903,20 @@ def stream_path(
     loo : bool
         Make the second pass for exact leave-one-out (default True).  With
         ``False`` the result's ``loo_mse`` is None.
-    cv : int, optional
-        Also exact K-fold CV with ``cv`` folds in the second pass (fixed
-        preprocessing): contiguous blocks of rows, or the seeded shuffle
-        with ``cv_seed``.
+    n_folds : int, optional
+        Also exact K-fold CV with ``n_folds`` folds in the second pass (fixed
+        preprocessing), assigned by :mod:`paths.data.folds` as every engine does.
+    fold_scheme : {"shuffled", "blocked"}
+        The fold scheme: the seeded shuffle (``seed``) or contiguous blocks of
+        rows; with ``groups``, whole groups (``"grouped"``).
+    repeats : int
+        Repetitions of the shuffled (or grouped) K-fold split.
+    groups : str or array_like, optional
+        Group labels (a column name of the file, or one label per row): grouped folds.
+    holdout : float, optional
+        Hold out this fraction of the rows (seeded by ``seed``) as the test set.
+    seed : int
+        The one seed of the holdout split and the shuffled or grouped folds.
     rank : int, optional
         Keep only the top ``rank`` principal components (exact truncation of
         the p × p factorization; a warning states the captured share of
@@ -906,6 +964,7 @@ def stream_path(
     >>> res.coef.shape, res.engine
     ((100, 10), 'stream')
     """
+    accurate = solver_route(solver, accurate)
     src = open_rows(data, target, features=features, sep=sep, chunk_rows=chunk_rows, y=y)
     if isinstance(groups, str) and groups in src.feature_names:
         if features is not None:
@@ -919,8 +978,9 @@ def stream_path(
     if test is not None and holdout is not None:
         raise InputError("pass either a test set or a holdout fraction, not both")
     group_src = None if groups is None else GroupValues(groups, src, sep=sep)
-    scheme = "grouped" if groups is not None else "blocked" if cv_seed is None else "shuffled"
-    check_cv_options(cv, scheme, repeats)
+    scheme = check_scheme(fold_scheme, groups)
+    check_cv_options(n_folds, scheme, repeats)
+    cv = n_folds
     lam_user = None if lambdas is None else as_lambdas(lambdas)
     test_src = None
     if holdout is not None:
@@ -949,20 +1009,20 @@ def stream_path(
         if progress:
             progress(label1, rows, src.n_rows)
     mom = merger.result()
-    check_magnitudes(mom, src.columns, src.source)
+    check_magnitudes(mom, src.columns, src.source)  # before the row-count checks below
     passes.append(PassInfo(label1, mom.n, time.perf_counter() - t0, mom.n * src.nbytes_per_row))
     if fit_intercept and mom.n < 2:
         raise InputError(f"the data have {mom.n} row; at least 2 samples are needed to fit an "
                          "intercept (or pass fit_intercept=False)")
     fit = factor_moments(mom, p, fit_intercept=fit_intercept, standardize=standardize, rtol=rtol,
-                         rank=rank)
+                         rank=rank, names=src.columns, requested=solver)
     lam = default_grid(fit.fac.d, n_lambdas) if lam_user is None else lam_user
     loo_mse = loo0 = cvres = hp = plan = None
     notes = []
     if loo or cv:
         plan = None if not cv else fold_plan(
-            mom.n, cv, scheme=scheme, seed=0 if cv_seed is None else int(cv_seed),
-            repeats=repeats, group_counts=counts, fit_intercept=fit_intercept)
+            mom.n, cv, scheme=scheme, seed=int(seed), repeats=repeats, group_counts=counts,
+            fit_intercept=fit_intercept)
         hp = _hat_pass(fit, lam, src, p, plan, group_src, passes, progress,
                        "pass 2/2: hat diagonals for exact leave-one-out"
                        + (f" and {cv}-fold CV" if cv else ""))

@@ -25,8 +25,7 @@ ENGINES = ("memory", "stream", "dask")
 _HASH_LIMIT = 2 << 30  # files above 2 GiB are recorded by size, not hashed (another full read)
 # options the out-of-memory engines do not offer (they keep their defaults)
 _DATA_ONLY_IN_MEMORY = ("encode", "drop_missing", "weights")
-_FIT_ONLY_IN_MEMORY = ("cv_scaling", "solver", "unpenalized", "relative_penalty",
-                       "intervals")
+_FIT_ONLY_IN_MEMORY = ("cv_scaling", "unpenalized", "relative_penalty", "intervals")
 _WHY = {**{name: " (its one-pass moments are unweighted and penalize every column)"
            for name in ("weights", "unpenalized", "relative_penalty")},
         "intervals": " (the leave-out fits use the left singular vectors)",
@@ -37,9 +36,7 @@ _WHY = {**{name: " (its one-pass moments are unweighted and penalize every colum
                          "the row count that fixes the holdout and the folds; remove the "
                          "missing values beforehand)"),
         "cv_scaling": (" (per-fold scaling refits every fold on its own scaling, which needs "
-                       "each fold's rows again in memory; use cv_scaling global)"),
-        "solver": (" (the streamed engines factor the p x p moments: their route is "
-                   "accurate=True (QR of the rows) or the Gram matrix)")}
+                       "each fold's rows again in memory; use cv_scaling global)")}
 
 
 def unsupported_options(data: DataOptions, fit: FitOptions) -> list:
@@ -162,7 +159,6 @@ def _fit(data: DataOptions, fit: FitOptions, engine: EngineOptions, progress):
     name = engine.name
     path, targets, feats, wide, rows = _plan(data)
     test = data.test_file
-    cv_seed = _cv_seed(data, fit)
     if wide and (data.holdout is not None or data.groups is not None or fit.repeats != 1):
         raise InputError(f"{path} is wide ({rows} rows x {len(feats)} features): holdout, "
                          "groups and repeats are not available with wide data on the streamed "
@@ -182,15 +178,24 @@ def _fit(data: DataOptions, fit: FitOptions, engine: EngineOptions, progress):
                          features=feats, X_test=test, accurate=engine.accurate, rank=engine.rank,
                          block_columns=engine.chunk_rows or DEFAULT_BLOCK_COLUMNS,
                          n_lambdas=fit.n_lambdas, standardize=fit.standardize, progress=progress)
-    if name == "stream":
+    return _tall(path, targets, feats, data, fit, engine, progress)
+
+
+def _tall(path, targets, feats, data: DataOptions, fit: FitOptions, engine: EngineOptions,
+          progress):
+    """Tall data on the row-streamed or the dask engine."""
+    from paths.data.chunks import DEFAULT_CHUNK_ROWS
+
+    test = data.test_file
+    common = dict(target=targets, features=feats, accurate=engine.accurate, solver=fit.solver,
+                  standardize=fit.standardize, n_lambdas=fit.n_lambdas, n_folds=fit.n_folds,
+                  fold_scheme=fit.fold_scheme, repeats=fit.repeats, holdout=data.holdout,
+                  seed=fit.seed, rank=engine.rank, progress=progress)
+    if engine.name == "stream":
         from paths.engines.stream import stream_path
 
-        return stream_path(path, target=targets, features=feats, sep=data.sep,
-                           chunk_rows=engine.chunk_rows or DEFAULT_CHUNK_ROWS,
-                           accurate=engine.accurate, standardize=fit.standardize, test=test,
-                           n_lambdas=fit.n_lambdas, cv=fit.n_folds, cv_seed=cv_seed,
-                           repeats=fit.repeats, groups=data.groups, holdout=data.holdout,
-                           seed=fit.seed, rank=engine.rank, progress=progress)
+        return stream_path(path, sep=data.sep, test=test, groups=data.groups,
+                           chunk_rows=engine.chunk_rows or DEFAULT_CHUNK_ROWS, **common)
     from paths.engines.dask_cluster import dask_path
 
     if data.groups is not None:
@@ -200,21 +205,8 @@ def _fit(data: DataOptions, fit: FitOptions, engine: EngineOptions, progress):
     if engine.scheduler is not None:  # a remote scheduler's workers do not share our folder
         path = path.resolve()
         test = None if test is None else Path(test).resolve()
-    return dask_path(path, target=targets, features=feats, chunk_rows=engine.chunk_rows,
-                     accurate=engine.accurate, scheduler=engine.scheduler,
-                     timeout=engine.scheduler_timeout, standardize=fit.standardize, test=test,
-                     n_lambdas=fit.n_lambdas, cv=fit.n_folds, cv_seed=cv_seed,
-                     repeats=fit.repeats, holdout=data.holdout, seed=fit.seed, rank=engine.rank,
-                     progress=progress)
-
-
-def _cv_seed(data: DataOptions, fit: FitOptions):
-    """The fold seed of the streamed engines: None for blocked folds (not with groups)."""
-    if data.groups is not None:
-        if fit.fold_scheme == "blocked":
-            raise InputError("groups makes grouped folds; drop fold scheme blocked")
-        return fit.seed
-    return fit.seed if fit.fold_scheme == "shuffled" else None
+    return dask_path(path, test=test, chunk_rows=engine.chunk_rows, scheduler=engine.scheduler,
+                     timeout=engine.scheduler_timeout, **common)
 
 
 def _select(result, fit: FitOptions):
