@@ -376,9 +376,9 @@ def test_cli_bad_input_exit_2(tmp_path, case):
     else:
         X, y = problem(n=50, p=5)
         _parquet(tmp_path / "d.parquet", X, y)
-        args += [str(tmp_path / "d.parquet"), "-t", "y", "--engine", "stream", "--cv-scaling",
-                 "per-fold"]
-        want = "--cv-scaling is not available with --engine stream (per-fold scaling refits"
+        args += [str(tmp_path / "d.parquet"), "-t", "y", "--engine", "stream", "--unpenalized",
+                 "x0"]
+        want = "--unpenalized is not available with --engine stream (its one-pass moments"
     r = CliRunner().invoke(app, args + ["--out", str(tmp_path / "out")])
     assert r.exit_code == 2, r.output
     assert want in r.output

@@ -331,9 +331,9 @@ def _moments(W, names, accurate, compute, checks=None):
     return Moments(n=mom.n, mean=mom.mean, m2=None, r=R, lo=mom.lo, hi=mom.hi, absmax=mom.absmax)
 
 
-def _hat_part(block, start, fit, lam, p, plan):
+def _hat_part(block, start, fit, lam, p, plan, cv_scaling="global"):
     """The second-pass statistics of one row block (a :class:`HatPass`)."""
-    hp = HatPass(fit, lam, folds=plan)
+    hp = HatPass(fit, lam, folds=plan, cv_scaling=cv_scaling)
     hp.add(int(start), np.asarray(block, dtype=np.float64), p)
     return hp
 
@@ -389,13 +389,13 @@ def _computer(client):
     return compute
 
 
-def _hat_tree(W, fit, lam, p, plan, compute) -> HatPass:
+def _hat_tree(W, fit, lam, p, plan, compute, cv_scaling="global") -> HatPass:
     """The second pass as a delayed tree (and the third, when rows of leverage near 1
     were kept)."""
     import dask
 
     starts = _offsets(W.chunks[0])
-    parts = [dask.delayed(_hat_part, pure=True)(b, int(s0), fit, lam, p, plan)
+    parts = [dask.delayed(_hat_part, pure=True)(b, int(s0), fit, lam, p, plan, cv_scaling)
              for b, s0 in zip(W.to_delayed().ravel(), starts)]
     hp = compute(_tree(parts, _merge_hat))[0]
     if hp.needs_others:  # rows of leverage near 1: the complement of the others
@@ -439,6 +439,7 @@ def dask_path(
     loo: bool = True,
     n_folds: int | None = None,
     fold_scheme: str = "shuffled",
+    cv_scaling: str = "global",
     repeats: int = 1,
     holdout: float | None = None,
     seed: int = 0,
@@ -465,7 +466,7 @@ def dask_path(
         Seconds to wait for the scheduler.
     test, y_test : optional
         Test rows, in any form ``data`` accepts.
-    solver, loo, n_folds, fold_scheme, repeats, holdout, seed, rank, fit_intercept, standardize, n_lambdas, rtol
+    solver, loo, n_folds, fold_scheme, cv_scaling, repeats, holdout, seed, rank, fit_intercept, standardize, n_lambdas, rtol
         As in :func:`paths.engines.stream.stream_path` (the same folds and the
         same holdout rows; the holdout's row mask, one byte per row, is made on
         the client).
@@ -494,7 +495,7 @@ def dask_path(
     """
     accurate = solver_route(solver, accurate)
     scheme = check_scheme(fold_scheme)
-    check_cv_options(n_folds, scheme, repeats)
+    check_cv_options(n_folds, scheme, repeats, cv_scaling)
     cv = n_folds
     if test is not None and holdout is not None:
         raise InputError("pass either a test set or a holdout fraction, not both")
@@ -534,7 +535,7 @@ def dask_path(
         fac = replace(fit.fac, solver=fit.fac.solver.replace("stream-", "dask-"))
         fit = replace(fit, fac=fac)
         lam = default_grid(fit.fac.d, n_lambdas) if lam_user is None else lam_user
-        loo_mse = loo0 = cvres = hp = plan = None
+        loo_mse = loo0 = loo_se = cvres = hp = plan = None
         notes = [f"dask engine: {W.numblocks[0]} row blocks"
                  + (f", scheduler {scheduler}" if scheduler else "")]
         if loo or cv:
@@ -546,15 +547,16 @@ def dask_path(
             plan = None if not cv else fold_plan(
                 mom.n, cv, scheme=scheme, seed=int(seed), repeats=repeats,
                 fit_intercept=fit_intercept)
-            hp = _hat_tree(W, fit, lam, p, plan, compute)
+            hp = _hat_tree(W, fit, lam, p, plan, compute, cv_scaling)
             passes.append(PassInfo(label2, mom.n, time.perf_counter() - t0,
                                    mom.n * W.shape[1] * 8))
             if progress:
                 progress(label2, mom.n, mom.n)
             loo_mse, loo0 = hp.loo()
+            loo_se = hp.loo_with_se()[1]
             if cv:
                 cvres = hp.kfold()
-                notes.append(cv_note(plan))
+                notes.append(cv_note(plan, cv_scaling))
         test_res = None
         if test is not None or W_test is not None:
             Wt = W_test if W_test is not None else as_dask_design(
@@ -577,10 +579,12 @@ def dask_path(
                                    time.perf_counter() - t0, n_test * Wt.shape[1] * 8))
     def one_pass(lam_new):  # leave-one-out at new penalties: the cluster again
         with connect(scheduler, timeout) as client2:
-            return _hat_tree(W, fit, as_lambdas(lam_new), p, None, _computer(client2)).loo()[0]
+            return _hat_tree(W, fit, as_lambdas(lam_new), p, None,
+                             _computer(client2)).loo_with_se()
 
     return path_from_moments(fit, lam, feature_names=names, loo=loo_mse, loo0=loo0,
                              test=test_res, cv=cvres, n_folds=cv or 0, engine="dask",
                              passes=passes, notes=notes,
                              fold_stats=None if hp is None else hp.fold_factors(),
-                             fold_plan=plan, loo_at=LooPasses(one_pass) if loo else None)
+                             fold_plan=plan, loo_at=LooPasses(one_pass, lam, loo_mse, loo_se)
+                             if loo else None)

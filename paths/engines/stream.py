@@ -47,7 +47,7 @@ from paths.core.path import PENALTY_CONVENTION, MinNormFit, RidgePath
 
 __all__ = ["Moments", "chunk_moments", "merge_moments", "PairwiseMerger", "StreamPath",
            "stream_path", "PassInfo", "path_from_moments", "HatPass", "FoldPlan", "fold_plan",
-           "FoldFactors", "LooPasses",
+           "FoldFactors", "FoldMoments", "fold_moments", "LooPasses",
            "check_cv_options", "check_scheme", "check_moment_ranges", "cv_note",
            "solver_route"]
 
@@ -141,6 +141,11 @@ class PairwiseMerger:
 
     def __init__(self):
         self._stack: list[tuple[int, Moments]] = []
+
+    @property
+    def filled(self) -> bool:
+        """True once a block was added."""
+        return bool(self._stack)
 
     def add(self, m: Moments) -> None:
         level = 0
@@ -367,7 +372,7 @@ class HatPass:
     """
 
     def __init__(self, fit: _Fit, lam: np.ndarray, *, n_folds: int = 0, fold_seed=None,
-                 folds: "FoldPlan | None" = None):
+                 folds: "FoldPlan | None" = None, cv_scaling: str = "global"):
         self.fit = fit
         self.lam = lam
         d = fit.fac.d
@@ -379,6 +384,7 @@ class HatPass:
         self.ra = r + int(fit.design.fit_intercept)
         self.proj = fit.fac.vt.T / d  # (q, r)
         self.sums = np.zeros((full.size, self.t))
+        self.sums4 = np.zeros((full.size, self.t))  # fourth powers: the LOO standard error
         width = self.ra + self.t
         self.r_other = np.zeros((0, width))
         self.kept = np.zeros((0, width))  # high-leverage rows [ua, y], refined at the end
@@ -388,10 +394,14 @@ class HatPass:
                              seed=0 if fold_seed is None else int(fold_seed))
         self.folds = folds
         self.n_folds = 0 if folds is None else folds.n_folds
+        self.per_fold = cv_scaling == "per-fold"
         if self.n_folds:
             R = folds.repeats
             self.fold_r = [[np.zeros((0, width)) for _ in range(self.n_folds)] for _ in range(R)]
             self.count = np.zeros((R, self.n_folds), dtype=np.int64)
+            # per-fold scaling: every fold's raw moments of [X | Y] (its training set's
+            # moments are the merge of the other folds')
+            self.fold_mom = [[PairwiseMerger() for _ in range(self.n_folds)] for _ in range(R)]
 
     def rows_u(self, block: np.ndarray, p: int):
         des = self.fit.design
@@ -413,6 +423,15 @@ class HatPass:
             ub, yc = self.rows_u(block[off:off + step], p)
             g = None if groups is None else groups[off:off + step]
             self.add_rows(start + off, ub, yc, g)
+            if self.n_folds and self.per_fold:
+                self.add_fold_moments(start + off, block[off:off + step], g)
+
+    def add_fold_moments(self, start: int, rows: np.ndarray, groups=None) -> None:
+        """Per-fold scaling: add raw rows ``start ..`` to their folds' moments."""
+        accurate = not self.fit.raw_gram
+        for rep, lab in enumerate(self.folds.labels(start, rows.shape[0], groups)):
+            for f in np.unique(lab):
+                self.fold_mom[rep][f].add(chunk_moments(rows[lab == f], accurate=accurate))
 
     def add_rows(self, start: int, ub: np.ndarray, yc: np.ndarray, groups=None) -> None:
         fit = self.fit
@@ -429,7 +448,9 @@ class HatPass:
                                         e_perp=(np.zeros((int(keep.sum()), self.t))
                                                 if self.state.full_row_rank else
                                                 yc[keep] - ub[keep] @ fit.uty))
-            self.sums += algebra.loo_sums(rows, self.shrink, fit.uty)
+            s2, s4 = algebra.loo_power_sums(rows, self.shrink, fit.uty)
+            self.sums += s2
+            self.sums4 += s4
         if not keep.all():
             self.kept = np.vstack([self.kept, ua_y[~keep]])
         if self.n_folds:
@@ -437,7 +458,9 @@ class HatPass:
             for rep, lab in enumerate(labels):
                 for f in np.unique(lab):
                     sel = lab == f
-                    self.fold_r[rep][f] = algebra.tsqr([self.fold_r[rep][f], ua_y[sel]], width)
+                    if not self.per_fold:
+                        self.fold_r[rep][f] = algebra.tsqr([self.fold_r[rep][f], ua_y[sel]],
+                                                           width)
                     self.count[rep, f] += int(sel.sum())
 
     @property
@@ -462,17 +485,20 @@ class HatPass:
     def merge(self, other: "HatPass") -> None:
         width = self.ra + self.t
         self.sums += other.sums
+        self.sums4 += other.sums4
         self.r_other = algebra.tsqr([self.r_other, other.r_other], width)
         self.kept = np.vstack([self.kept, other.kept])
         if self.n_folds:
             for rep, row in enumerate(self.fold_r):
                 for f in range(self.n_folds):
                     row[f] = algebra.tsqr([row[f], other.fold_r[rep][f]], width)
+                    if other.fold_mom[rep][f].filled:
+                        self.fold_mom[rep][f].add(other.fold_mom[rep][f].result())
             self.count += other.count
 
-    def loo(self):
-        """Leave-one-out MSE on the grid (k, t) and at the min-norm limit (t,)."""
-        total = self.sums.copy()
+    def _loo_totals(self):
+        """Sums of the squared leave-one-out residuals and of their squares, (k + 1, t)."""
+        total, total4 = self.sums.copy(), self.sums4.copy()
         if self.kept.shape[0]:
             ra = self.ra
             ua_s, y_s = self.kept[:, :ra], self.kept[:, ra:]
@@ -481,9 +507,24 @@ class HatPass:
             ell, e_perp = algebra.refine_leverage(self.state, ua_s, y_s, R)
             rows = algebra.LeverageRows(u=ua_s[:, ra - self.fit.fac.rank:], ell=ell,
                                         e_perp=e_perp)
-            total += algebra.loo_sums(rows, self.shrink, self.fit.uty)
-        total /= self.fit.design.n_samples
+            s2, s4 = algebra.loo_power_sums(rows, self.shrink, self.fit.uty)
+            total += s2
+            total4 += s4
+        return total, total4
+
+    def loo(self):
+        """Leave-one-out MSE on the grid (k, t) and at the min-norm limit (t,)."""
+        total = self._loo_totals()[0] / self.fit.design.n_samples
         return (total[:-1] if self._added else total), total[-1]
+
+    def loo_with_se(self):
+        """Leave-one-out MSE and its standard error on the grid, both (k, t)
+        (:func:`paths.core.algebra.loo_standard_error`)."""
+        n = self.fit.design.n_samples
+        s2, s4 = self._loo_totals()
+        se = algebra.loo_standard_error(s2, s4, n)
+        mse = s2 / n
+        return (mse[:-1], se[:-1]) if self._added else (mse, se)
 
     def kfold(self):
         """K-fold CV MSE (k, t) and its standard error across folds (k, t), averaged over
@@ -500,10 +541,19 @@ class HatPass:
         se = fold.std(axis=1, ddof=1) / np.sqrt(self.n_folds)
         return pooled.mean(axis=0), se.mean(axis=0)
 
-    def fold_factors(self) -> "FoldFactors | None":
-        """The per-fold triangular factors, for K-fold errors at any penalty."""
+    def fold_factors(self) -> "FoldFactors | FoldMoments | None":
+        """The per-fold triangular factors, for K-fold errors at any penalty (with
+        per-fold scaling, the per-fold moments and their training sets' factors)."""
         if not self.n_folds:
             return None
+        if self.per_fold:
+            if np.any(self.count == 0):
+                raise InputError(f"{int(np.sum(self.count[0] == 0))} of the {self.n_folds} "
+                                 "folds are empty; use fewer folds")
+            des = self.fit.design
+            return fold_moments([[m.result() for m in row] for row in self.fold_mom],
+                                des.n_features, fit_intercept=des.fit_intercept,
+                                standardize=des.standardize)
         width = self.ra + self.t
         fold_r = np.stack([np.stack([algebra.tsqr([R], width) for R in row])
                            for row in self.fold_r])
@@ -532,6 +582,70 @@ class FoldFactors:
         lam = np.asarray(lam, dtype=float).reshape(-1)
         return np.stack([algebra.kfold_fold_mse(self.d, fr, c, lam, n_fixed=self.n_fixed)
                          for fr, c in zip(self.fold_r, self.count)])
+
+
+@dataclass(frozen=True)
+class FoldMoments:
+    """Per-fold scaling from per-fold moments: every fold's training set centered and
+    scaled on its own rows, refitted from its p x p moments, and scored on the fold's
+    rows from their moments (:func:`paths.core.algebra.block_sse`).
+
+    ``fits`` (R, K): the factors of each training set (the merge of the other
+    folds' moments, :func:`factor_moments`); ``held`` (R, K): each fold's own
+    moments; ``count`` (R, K) the fold sizes.
+    """
+
+    fits: tuple
+    held: tuple
+    count: np.ndarray
+
+    form = "refit"
+    scaling = "per-fold"
+    method = "refit"
+    method_reason = ("refit: per-fold scaling, each training set factored from the merged "
+                     "moments of the other folds (no rows held)")
+
+    def fold_mse(self, lam) -> np.ndarray:
+        """Held-out mean squared error (R, K, k, t) at penalties ``lam``."""
+        lam = np.asarray(lam, dtype=float).reshape(-1)
+        out = []
+        for fits, held, count in zip(self.fits, self.held, self.count):
+            rows = []
+            for fit, mom, c in zip(fits, held, count):
+                coef = algebra.coefficients(fit.state, lam, fit.design)
+                des = fit.design
+                dmean = mom.mean - np.concatenate([des.x_mean, des.y_mean])  # 0s: no intercept
+                sse = algebra.block_sse(coef, mom.n, dmean, m2=mom.m2, r=mom.r)
+                rows.append(sse / c)
+            out.append(np.stack(rows))
+        return np.stack(out)
+
+
+def fold_moments(held, p: int, *, fit_intercept: bool = True,
+                 standardize: bool = True) -> FoldMoments:
+    """:class:`FoldMoments` of the per-fold moments ``held`` (R lists of K
+    :class:`Moments`): each training set's moments merged from the other folds'
+    (prefix and suffix merges, O(K) per repeat) and factored."""
+    fits = []
+    for row in held:
+        K = len(row)
+        prefix = [None]
+        for f in range(K - 1):
+            prefix.append(row[f] if prefix[-1] is None else merge_moments(prefix[-1], row[f]))
+        suffix = [None] * K
+        for f in range(K - 1, 0, -1):
+            suffix[f - 1] = row[f] if suffix[f] is None else merge_moments(row[f], suffix[f])
+        per = []
+        for f in range(K):
+            parts = [m for m in (prefix[f], suffix[f]) if m is not None]
+            train = parts[0] if len(parts) == 1 else merge_moments(*parts)
+            with warnings.catch_warnings():  # the full-data fit already warned
+                warnings.simplefilter("ignore", UserWarning)
+                per.append(factor_moments(train, p, fit_intercept=fit_intercept,
+                                          standardize=standardize))
+        fits.append(tuple(per))
+    count = np.array([[m.n for m in row] for row in held], dtype=np.int64)
+    return FoldMoments(fits=tuple(fits), held=tuple(tuple(r) for r in held), count=count)
 
 
 @dataclass(frozen=True)
@@ -584,8 +698,10 @@ def check_scheme(fold_scheme: str, groups=None) -> str:
     return fold_scheme
 
 
-def check_cv_options(n_folds, scheme, repeats) -> None:
+def check_cv_options(n_folds, scheme, repeats, cv_scaling: str = "global") -> None:
     """One-line errors for K-fold options a streamed engine is given."""
+    if cv_scaling not in ("global", "per-fold"):
+        raise InputError(f"cv_scaling must be global or per-fold; got {cv_scaling!r}")
     if n_folds is None:
         if isinstance(repeats, bool) or repeats != 1:
             raise InputError("repeats needs K-fold CV; pass n_folds")
@@ -626,13 +742,16 @@ def fold_plan(n: int, n_folds: int, *, scheme="shuffled", seed=0, repeats=1, gro
     return plan
 
 
-def cv_note(plan: FoldPlan) -> str:
+def cv_note(plan: FoldPlan, cv_scaling: str = "global") -> str:
     """The data note of a streamed engine's K-fold CV."""
     how = {"shuffled": f"seeded shuffle, seed {plan.seed}", "blocked": "contiguous blocks of rows",
            "grouped": f"whole groups, seed {plan.seed}"}[plan.scheme]
     reps = f" x {plan.repeats} repeats" if plan.repeats > 1 else ""
-    return (f"{plan.n_folds}-fold CV{reps} with preprocessing (centering, scaling) from all "
-            f"training rows; {how} (paths.data.folds, as every engine assigns folds)")
+    pre = ("each training set centered and scaled on its own rows (per-fold scaling, "
+           "refitted from the per-fold moments)" if cv_scaling == "per-fold" else
+           "preprocessing (centering, scaling) from all training rows")
+    return (f"{plan.n_folds}-fold CV{reps} with {pre}; {how} (paths.data.folds, as every "
+            "engine assigns folds)")
 
 
 # --------------------------------------------------------------------------- result
@@ -798,24 +917,35 @@ def path_from_moments(fit: _Fit, lam, *, feature_names, loo, loo0, test=None, cv
 
 
 class LooPasses:
-    """Leave-one-out MSE (k, t) at new penalties, one pass over the rows each.
+    """Leave-one-out MSE (k, t) and its standard error at new penalties: one pass over
+    the rows for each call with penalties not seen before (all of them at once).
 
-    ``pass_fn(lam) -> mse (k, t)``; results are cached by penalty, and
-    ``passes`` counts the passes made.
+    ``pass_fn(lam) -> (mse, se)``, both (k, t); results are cached by penalty,
+    and ``passes`` counts the passes made.
     """
 
-    def __init__(self, pass_fn):
+    def __init__(self, pass_fn, lam=None, mse=None, se=None):
         self._fn, self._cache, self.passes = pass_fn, {}, 0
+        if lam is not None:  # the values the second pass already gave on the grid
+            for i, v in enumerate(np.asarray(lam, dtype=float).tolist()):
+                self._cache[v] = (mse[i], se[i])
 
-    def __call__(self, lam):
-        lam = np.asarray(lam, dtype=float).reshape(-1)
-        todo = [v for v in dict.fromkeys(lam.tolist()) if v not in self._cache]
+    def _fill(self, lam) -> list:
+        lam = np.asarray(lam, dtype=float).reshape(-1).tolist()
+        todo = [v for v in dict.fromkeys(lam) if v not in self._cache]
         if todo:
-            mse = self._fn(np.array(todo))
+            mse, se = self._fn(np.array(todo))
             self.passes += 1
             for i, v in enumerate(todo):
-                self._cache[v] = mse[i]
-        return np.stack([self._cache[v] for v in lam.tolist()])
+                self._cache[v] = (mse[i], se[i])
+        return lam
+
+    def __call__(self, lam):
+        return np.stack([self._cache[v][0] for v in self._fill(lam)])
+
+    def se(self, lam):
+        """Standard error (k, t) of the leave-one-out MSE at ``lam``."""
+        return np.stack([self._cache[v][1] for v in self._fill(lam)])
 
 
 # --------------------------------------------------------------------------- entry point
@@ -858,6 +988,7 @@ def stream_path(
     loo: bool = True,
     n_folds: int | None = None,
     fold_scheme: str = "shuffled",
+    cv_scaling: str = "global",
     repeats: int = 1,
     groups=None,
     holdout: float | None = None,
@@ -909,6 +1040,11 @@ def stream_path(
     fold_scheme : {"shuffled", "blocked"}
         The fold scheme: the seeded shuffle (``seed``) or contiguous blocks of
         rows; with ``groups``, whole groups (``"grouped"``).
+    cv_scaling : {"global", "per-fold"}
+        Centering and scaling of the K-fold training sets: from all training
+        rows (held fixed), or each training set's own (every fold refitted from
+        the merged moments of the other folds, as
+        :func:`paths.selection.cv.cross_validate` with ``scaling="per-fold"``).
     repeats : int
         Repetitions of the shuffled (or grouped) K-fold split.
     groups : str or array_like, optional
@@ -979,7 +1115,7 @@ def stream_path(
         raise InputError("pass either a test set or a holdout fraction, not both")
     group_src = None if groups is None else GroupValues(groups, src, sep=sep)
     scheme = check_scheme(fold_scheme, groups)
-    check_cv_options(n_folds, scheme, repeats)
+    check_cv_options(n_folds, scheme, repeats, cv_scaling)
     cv = n_folds
     lam_user = None if lambdas is None else as_lambdas(lambdas)
     test_src = None
@@ -1017,19 +1153,20 @@ def stream_path(
     fit = factor_moments(mom, p, fit_intercept=fit_intercept, standardize=standardize, rtol=rtol,
                          rank=rank, names=src.columns, requested=solver)
     lam = default_grid(fit.fac.d, n_lambdas) if lam_user is None else lam_user
-    loo_mse = loo0 = cvres = hp = plan = None
+    loo_mse = loo0 = loo_se = cvres = hp = plan = None
     notes = []
     if loo or cv:
         plan = None if not cv else fold_plan(
             mom.n, cv, scheme=scheme, seed=int(seed), repeats=repeats, group_counts=counts,
             fit_intercept=fit_intercept)
-        hp = _hat_pass(fit, lam, src, p, plan, group_src, passes, progress,
+        hp = _hat_pass(fit, lam, src, p, plan, group_src, passes, progress, cv_scaling,
                        "pass 2/2: hat diagonals for exact leave-one-out"
                        + (f" and {cv}-fold CV" if cv else ""))
         loo_mse, loo0 = hp.loo()
+        loo_se = hp.loo_with_se()[1]
         if cv:
             cvres = hp.kfold()
-            notes.append(cv_note(plan))
+            notes.append(cv_note(plan, cv_scaling))
     else:
         notes.append("leave-one-out skipped (loo=False): no second pass")
     if rank is not None:
@@ -1043,19 +1180,21 @@ def stream_path(
         passes.append(PassInfo("test rows: test error", test_res[2], time.perf_counter() - t0,
                                test_res[2] * test_src.nbytes_per_row))
     def one_pass(lam_new):
-        return _hat_pass(fit, lam_new, src, p, None, None, [], progress,
-                         "extra pass: leave-one-out at new penalties").loo()[0]
+        return _hat_pass(fit, lam_new, src, p, None, None, [], progress, "global",
+                         "extra pass: leave-one-out at new penalties").loo_with_se()
 
     return path_from_moments(fit, lam, feature_names=src.feature_names, loo=loo_mse, loo0=loo0,
                              test=test_res, cv=cvres, n_folds=cv or 0, passes=passes,
                              notes=notes, fold_stats=None if hp is None else hp.fold_factors(),
-                             fold_plan=plan, loo_at=LooPasses(one_pass) if loo else None)
+                             fold_plan=plan, loo_at=LooPasses(one_pass, lam, loo_mse, loo_se)
+                             if loo else None)
 
 
-def _hat_pass(fit, lam, src, p, plan, group_src, passes, progress, label) -> HatPass:
+def _hat_pass(fit, lam, src, p, plan, group_src, passes, progress, cv_scaling,
+              label) -> HatPass:
     """The second pass (and the third, when rows of leverage near 1 were kept)."""
     n = fit.design.n_samples
-    hp = HatPass(fit, lam, folds=plan)
+    hp = HatPass(fit, lam, folds=plan, cv_scaling=cv_scaling)
     codes = None if plan is None or group_src is None else group_src.codes()
     t0 = time.perf_counter()
     rows2 = 0

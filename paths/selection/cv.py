@@ -656,7 +656,9 @@ def cv_from_fold_stats(stats, plan, lambdas, *, multi_target: bool) -> CVResult:
     return CVResult(lambdas=lam, mse=mse, se=se, se_repeats=se_rep, fold_mse=fold,
                     fold_sizes=sizes, labels=np.zeros((plan.repeats, 0), dtype=np.int64),
                     n_folds=plan.n_folds, repeats=plan.repeats, seed=plan.seed,
-                    scheme=plan.scheme, scaling="global", method="exact", form=stats.form,
-                    method_reason="exact: per-fold triangular factors of the streamed hat "
-                                  "pass, preprocessing from all training rows",
+                    scheme=plan.scheme, scaling=getattr(stats, "scaling", "global"),
+                    method=getattr(stats, "method", "exact"), form=stats.form,
+                    method_reason=getattr(stats, "method_reason",
+                                          "exact: per-fold triangular factors of the streamed "
+                                          "hat pass, preprocessing from all training rows"),
                     multi_target=multi_target, _engine=stats)

@@ -25,7 +25,7 @@ ENGINES = ("memory", "stream", "dask")
 _HASH_LIMIT = 2 << 30  # files above 2 GiB are recorded by size, not hashed (another full read)
 # options the out-of-memory engines do not offer (they keep their defaults)
 _DATA_ONLY_IN_MEMORY = ("encode", "drop_missing", "weights")
-_FIT_ONLY_IN_MEMORY = ("cv_scaling", "unpenalized", "relative_penalty", "intervals")
+_FIT_ONLY_IN_MEMORY = ("unpenalized", "relative_penalty", "intervals")
 _WHY = {**{name: " (its one-pass moments are unweighted and penalize every column)"
            for name in ("weights", "unpenalized", "relative_penalty")},
         "intervals": " (the leave-out fits use the left singular vectors)",
@@ -35,8 +35,7 @@ _WHY = {**{name: " (its one-pass moments are unweighted and penalize every colum
         "drop_missing": (" (rows or columns would be dropped only as the chunks arrive, after "
                          "the row count that fixes the holdout and the folds; remove the "
                          "missing values beforehand)"),
-        "cv_scaling": (" (per-fold scaling refits every fold on its own scaling, which needs "
-                       "each fold's rows again in memory; use cv_scaling global)")}
+}
 
 
 def unsupported_options(data: DataOptions, fit: FitOptions) -> list:
@@ -189,7 +188,7 @@ def _tall(path, targets, feats, data: DataOptions, fit: FitOptions, engine: Engi
     test = data.test_file
     common = dict(target=targets, features=feats, accurate=engine.accurate, solver=fit.solver,
                   standardize=fit.standardize, n_lambdas=fit.n_lambdas, n_folds=fit.n_folds,
-                  fold_scheme=fit.fold_scheme, repeats=fit.repeats, holdout=data.holdout,
+                  fold_scheme=fit.fold_scheme, cv_scaling=fit.cv_scaling, repeats=fit.repeats, holdout=data.holdout,
                   seed=fit.seed, rank=engine.rank, progress=progress)
     if engine.name == "stream":
         from paths.engines.stream import stream_path
