@@ -24,6 +24,7 @@ from paths.data.validation import InputError
 __all__ = ["RowSource", "ArrayRows", "ParquetRows", "CSVRows", "open_rows", "count_rows",
            "HoldoutRows", "GroupValues", "CSVColumns", "frame_block", "RowSubsetColumns",
            "ColumnSource", "ArrayColumns", "ParquetColumns", "open_columns",
+           "PreparedRows", "file_frames", "open_prepared",
            "DEFAULT_CHUNK_ROWS", "DEFAULT_BLOCK_COLUMNS"]
 
 DEFAULT_CHUNK_ROWS = 65_536
@@ -778,3 +779,92 @@ class RowSubsetColumns(ColumnSource):
     def __iter__(self):
         for s, block in self._src:
             yield s, block[self._rows]
+
+
+# --------------------------------------------------------------------------- prepared rows
+class PreparedRows(RowSource):
+    """Row chunks of a CSV or Parquet file prepared as the in-memory reader prepares the
+    table (``encode``, ``drop_missing``; :mod:`paths.data.rowprep`): text columns one-hot
+    encoded with the levels of the pre-pass, rows or columns with missing values dropped.
+    ``start`` counts the kept rows only (the holdout and the folds are assigned on them)."""
+
+    def __init__(self, frames, prep, *, source: str, chunk_rows: int = DEFAULT_CHUNK_ROWS):
+        names = prep.names + list(prep.targets)
+        super().__init__(columns=names, n_features=len(prep.names), n_rows=prep.n_rows,
+                         source=source, chunk_rows=_check_chunk_rows(chunk_rows),
+                         nbytes_per_row=8 * len(names))
+        self._frames, self.preparation = frames, prep
+
+    def __iter__(self):
+        start = 0
+        for frame in self._frames(self.preparation.text_columns):
+            block = self.preparation.block(frame, start, self.source)
+            for off in range(0, block.shape[0], self.chunk_rows):
+                yield start + off, block[off:off + self.chunk_rows]
+            start += block.shape[0]
+
+
+def file_frames(path, *, sep=None, chunk_rows: int = DEFAULT_CHUNK_ROWS, columns=None):
+    """``(names, frames)``: the column names of a CSV/TSV or Parquet file and
+    ``frames(keep_text)``, an iterator of its parsed chunks (CSV: ``chunk_rows``
+    records under the in-memory reader's rules, the ``keep_text`` columns as written;
+    Parquet: a row group of the ``columns``)."""
+    path = Path(path)
+    if path.is_dir() or path.suffix.lower() in _PARQUET_SUFFIXES:
+        import pyarrow.parquet as pq
+
+        files = parquet_files(path)
+
+        try:
+            names = list(pq.read_schema(files[0]).names)
+        except Exception as exc:  # pyarrow raises ArrowInvalid / OSError subclasses
+            raise InputError(f"{path}: not a readable Parquet file ({exc}); check the file") \
+                from None
+
+        def frames(keep_text=()):
+            for f in files:
+                pf = pq.ParquetFile(f, pre_buffer=False)
+                for g in range(pf.num_row_groups):
+                    frame = pf.read_row_group(g, columns=columns).to_pandas()
+                    frame.attrs["paths_lines"] = None
+                    yield frame
+        return names, frames
+    if path.suffix.lower() == ".npy":
+        raise InputError(f"{path}: encode and drop_missing need named columns; pass a CSV or "
+                         "Parquet file")
+    from paths.data.tables import read_text_chunks, text_layout
+
+    layout = text_layout(path, sep=sep)
+
+    def frames(keep_text=()):
+        return read_text_chunks(layout, chunk_rows, keep_text=tuple(keep_text))
+    return list(layout.names), frames
+
+
+def open_prepared(data, target, *, features=None, sep=None,
+                  chunk_rows: int = DEFAULT_CHUNK_ROWS, encode=None, drop_missing=None,
+                  like=None, progress=None) -> PreparedRows:
+    """A :class:`PreparedRows` source for a CSV or Parquet file: the pre-pass
+    (:func:`paths.data.rowprep.scan_frames`) decides the columns, levels and rows kept;
+    with ``like`` (the training rows' :class:`~paths.data.rowprep.RowPreparation`), test
+    rows are prepared as the training rows were (their levels, their columns)."""
+    from dataclasses import replace
+
+    from paths.data.rowprep import scan_frames
+
+    if not isinstance(data, (str, os.PathLike)):
+        raise InputError("encode and drop_missing need a CSV or Parquet file; pass its path")
+    path = Path(data)
+    if not path.exists():
+        raise InputError(f"{path}: no such file or folder; check the path")
+    names, _ = file_frames(path, sep=sep)
+    feats, targets = select_columns(names, target if like is None else list(like.targets),
+                                    features if like is None else list(like.features),
+                                    f"{path}: ")
+    _, frames = file_frames(path, sep=sep, chunk_rows=chunk_rows, columns=feats + targets)
+    if like is None:
+        prep = scan_frames(lambda: frames(()), frames, feats, targets, encode=encode,
+                           drop_missing=drop_missing, source=str(path), progress=progress)
+    else:
+        prep = replace(like, n_rows=None, notes=(), kept=())
+    return PreparedRows(frames, prep, source=str(path), chunk_rows=chunk_rows)

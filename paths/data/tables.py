@@ -488,16 +488,19 @@ def _check_ragged(layout: TextLayout, starts, counts, first_line: int) -> None:
                                     "same length or pass the right --sep")
 
 
-def _parse_records(layout: TextLayout, text, skiprows: int, body) -> pd.DataFrame:
+def _parse_records(layout: TextLayout, text, skiprows: int, body,
+                   keep_text=()) -> pd.DataFrame:
     """The data records of ``text`` (str, or UTF-8 bytes already checked) as a frame
-    (numbers as numbers, the NA tokens as missing), ``attrs["paths_lines"]`` their lines."""
+    (numbers as numbers, the NA tokens as missing), ``attrs["paths_lines"]`` their lines;
+    the ``keep_text`` columns stay text (stripped) even where they hold only numbers."""
     raw = text.encode("utf-8") if isinstance(text, str) else text
     try:
         df = pd.read_csv(
             _io.BytesIO(raw), sep=layout.sep, header=None, encoding="utf-8",
             skiprows=skiprows, names=layout.names, na_values=list(NA_TOKENS),
             keep_default_na=False, skipinitialspace=True, skip_blank_lines=True, engine="c",
-            low_memory=False, quotechar='"', index_col=False, dtype=None,
+            low_memory=False, quotechar='"', index_col=False,
+            dtype={c: str for c in keep_text} if keep_text else None,
         )
     except (pd.errors.ParserError, pd.errors.EmptyDataError, ValueError, csv.Error,
             OverflowError) as exc:
@@ -507,7 +510,7 @@ def _parse_records(layout: TextLayout, text, skiprows: int, body) -> pd.DataFram
     lines = np.asarray(body, dtype=np.int64)
     if df.shape[0] != lines.size:  # pandas read the quoting differently: positions only
         lines = None
-    df = _numeric_text_columns(df, layout.path, lines)
+    df = _numeric_text_columns(df, layout.path, lines, keep_text)
     df.attrs["paths_lines"] = lines
     return df
 
@@ -592,12 +595,12 @@ def text_blocks(layout: TextLayout, block_bytes: int = 64 << 20) -> list:
     return out
 
 
-def read_text_block(layout: TextLayout, block: TextBlock) -> pd.DataFrame:
+def read_text_block(layout: TextLayout, block: TextBlock, keep_text=()) -> pd.DataFrame:
     """The records of one :class:`TextBlock`, under the rules of :func:`read_text_chunks`."""
     with open(layout.path, "rb") as fh:
         fh.seek(block.offset)
         buf = fh.read(block.length)
-    return _records_of(layout, buf, block.first_line)
+    return _records_of(layout, buf, block.first_line, tuple(keep_text))
 
 
 _WS = np.zeros(256, dtype=bool)
@@ -625,7 +628,7 @@ def _scan_bytes(buf: bytes, sep: str):
     return (filled + 1).tolist(), counts.tolist()
 
 
-def _records_of(layout: TextLayout, buf: bytes, line: int):
+def _records_of(layout: TextLayout, buf: bytes, line: int, keep_text=()):
     p = layout.path
     fast = None
     if b'"' not in buf and b"\x00" not in buf and b"\r" not in buf and \
@@ -647,13 +650,14 @@ def _records_of(layout: TextLayout, buf: bytes, line: int):
     if not starts:
         return None
     _check_ragged(layout, starts, counts, layout.data_line - int(layout.header))
-    return _parse_records(layout, text, 0, starts)
+    return _parse_records(layout, text, 0, starts, keep_text)
 
 
-def read_text_chunks(layout: TextLayout, chunk_rows: int):
+def read_text_chunks(layout: TextLayout, chunk_rows: int, keep_text=()):
     """The data records of a text file, ``chunk_rows`` lines at a time, under the rules of
     :func:`read_table`: every record as wide as the header, the NA tokens, numbers with
-    thousands separators or decimal commas named, UTF-8 only.
+    thousands separators or decimal commas named, UTF-8 only.  The ``keep_text``
+    columns stay text as written (stripped), even in chunks where they hold only numbers.
 
     Yields
     ------
@@ -678,7 +682,7 @@ def read_text_chunks(layout: TextLayout, chunk_rows: int):
                     break
                 lines.append(more)
                 buf += more
-            frame = _records_of(layout, buf, line)
+            frame = _records_of(layout, buf, line, tuple(keep_text))
             if frame is not None:
                 yield frame
             line += len(lines)
@@ -698,9 +702,9 @@ def _as_floats(values: list):
     return None  # pragma: no cover (the fast path would have succeeded)
 
 
-def _numeric_text_columns(df: pd.DataFrame, p: Path, lines) -> pd.DataFrame:
-    """Convert text columns that hold numbers; name the column when numbers are written
-    with thousands separators or decimal commas."""
+def _numeric_text_columns(df: pd.DataFrame, p: Path, lines, keep_text=()) -> pd.DataFrame:
+    """Convert text columns that hold numbers (not the ``keep_text`` ones); name the
+    column when numbers are written with thousands separators or decimal commas."""
     out = {}
     text_cols = [c for c, dt in zip(df.columns, df.dtypes) if not pd.api.types.is_numeric_dtype(dt)]
     for col in text_cols:
@@ -708,6 +712,9 @@ def _numeric_text_columns(df: pd.DataFrame, p: Path, lines) -> pd.DataFrame:
         stripped = [None if (v is None or v is pd.NA or (isinstance(v, float) and v != v))
                     else str(v).strip() for v in raw]
         stripped = [None if v is None or v in _NA_SET else v for v in stripped]
+        if col in keep_text:
+            out[col] = np.array(stripped, dtype=object)
+            continue
         conv = _as_floats(stripped)
         if isinstance(conv, np.ndarray):
             out[col] = conv

@@ -36,7 +36,7 @@ from paths.engines.stream import (HatPass, LooPasses, Moments, PassInfo, StreamP
                                   chunk_moments, cv_note, factor_moments, fold_plan,
                                   merge_moments, path_from_moments)
 
-__all__ = ["dask_path", "connect", "as_dask_design"]
+__all__ = ["dask_path", "connect", "as_dask_design", "prepared_design"]
 
 DEFAULT_TIMEOUT = 10.0
 _PARQUET = (".parquet", ".pq", ".parq")
@@ -277,6 +277,89 @@ def _from_text(path: Path, target, features, sep=None):
     return da.concatenate(parts, axis=0), rows.feature_names, rows.target_names
 
 
+def _read_unit(kind, layout, cols, unit, keep_text=()):
+    """One parsed piece of a file: a text block (CSV) or a row group (Parquet)."""
+    import pandas as pd
+
+    if kind == "csv":
+        from paths.data.tables import read_text_block
+
+        frame = read_text_block(layout, unit, keep_text)
+        if frame is None:
+            frame = pd.DataFrame({c: pd.Series([], dtype=object) for c in cols})
+            frame.attrs["paths_lines"] = None
+        return frame
+    import pyarrow.parquet as pq
+
+    f, g = unit
+    frame = pq.ParquetFile(f, pre_buffer=False).read_row_group(g, columns=cols).to_pandas()
+    frame.attrs["paths_lines"] = None
+    return frame
+
+
+def _prepared_block(kind, layout, cols, unit, prep, start, source):
+    """The prepared float rows of one piece (:meth:`paths.data.rowprep.RowPreparation.block`)."""
+    frame = _read_unit(kind, layout, cols, unit, prep.text_columns)
+    return prep.block(frame, start, source)
+
+
+def prepared_design(path, target, features=None, *, encode=None, drop_missing=None, sep=None,
+                    like=None):
+    """``(W, preparation)``: a CSV or Parquet file prepared as the in-memory reader does
+    (``encode``, ``drop_missing``; :mod:`paths.data.rowprep`), one dask block per text
+    block or row group.  A pre-pass on the client collects the levels and the rows kept
+    per block (the blocks' shapes); with ``like`` (test rows) the training preparation
+    is applied and the blocks' row counts are left unknown."""
+    import dask
+    import dask.array as da
+
+    from paths.data.chunks import CSVRows, parquet_files, select_columns
+    from paths.data.rowprep import scan_frames
+
+    path = Path(path)
+    if not path.exists():
+        raise InputError(f"{path}: no such file or folder; check the path")
+    if path.is_dir() or path.suffix.lower() in _PARQUET:
+        import pyarrow.parquet as pq
+
+        files = parquet_files(path)
+        kind, layout = "parquet", None
+        names = list(pq.read_schema(files[0]).names)
+        units = [(str(f), g) for f in files for g in range(pq.ParquetFile(f).num_row_groups)]
+    elif path.suffix.lower() == ".npy":
+        raise InputError(f"{path}: encode and drop_missing need named columns; pass a CSV or "
+                         "Parquet file")
+    else:
+        from paths.data.tables import text_blocks
+
+        layout = CSVRows(path, list(like.targets) if like else target, sep=sep).layout
+        kind, names, units = "csv", list(layout.names), text_blocks(layout)
+    feats, targets = select_columns(names, list(like.targets) if like else target,
+                                    list(like.features) if like else features, f"{path}: ")
+    cols = feats + targets
+    if like is None:
+        prep = scan_frames(lambda: (_read_unit(kind, layout, cols, u) for u in units),
+                           lambda keep: (_read_unit(kind, layout, cols, u, keep) for u in units),
+                           feats, targets, encode=encode, drop_missing=drop_missing,
+                           source=str(path))
+        kept = prep.kept
+    else:
+        from dataclasses import replace as _replace
+
+        prep, kept = _replace(like, n_rows=None, notes=(), kept=()), [np.nan] * len(units)
+    width = len(prep.names) + len(prep.targets)
+    parts, start = [], 0
+    for u, k in zip(units, kept):
+        if k == 0:
+            continue
+        parts.append(da.from_delayed(dask.delayed(_prepared_block, pure=True)(
+            kind, layout, cols, u, prep, start, str(path)), shape=(k, width), dtype=np.float64))
+        start = start + k if like is None else 0
+    if not parts:
+        raise InputError(f"{path}: no data rows left; add data rows")
+    return da.concatenate(parts, axis=0), prep
+
+
 def _offsets(chunks):
     return np.concatenate([[0], np.cumsum(chunks)])[:-1]
 
@@ -444,6 +527,8 @@ def dask_path(
     holdout: float | None = None,
     seed: int = 0,
     rank: int | None = None,
+    encode: str | None = None,
+    drop_missing: str | None = None,
     progress=None,
 ) -> StreamPath:
     """The ridge path of a design held as a dask array (``engine="dask"``).
@@ -466,7 +551,8 @@ def dask_path(
         Seconds to wait for the scheduler.
     test, y_test : optional
         Test rows, in any form ``data`` accepts.
-    solver, loo, n_folds, fold_scheme, cv_scaling, repeats, holdout, seed, rank, fit_intercept, standardize, n_lambdas, rtol
+    solver, loo, n_folds, fold_scheme, cv_scaling, repeats, holdout, seed, rank
+    fit_intercept, standardize, n_lambdas, rtol, encode, drop_missing
         As in :func:`paths.engines.stream.stream_path` (the same folds and the
         same holdout rows; the holdout's row mask, one byte per row, is made on
         the client).
@@ -506,8 +592,19 @@ def dask_path(
     lam_user = None if lambdas is None else as_lambdas(lambdas)
     with connect(scheduler, timeout) as client:
         compute = _computer(client)
-        W, names, tnames = as_dask_design(data, y, target=target, features=features,
-                                          chunk_rows=chunk_rows)
+        prep = None
+        if encode or drop_missing is not None:
+            if not isinstance(data, (str, Path)):
+                raise InputError("encode and drop_missing need a CSV or Parquet file; pass "
+                                 "its path")
+            W, prep = prepared_design(data, target, features, encode=encode,
+                                      drop_missing=drop_missing)
+            names, tnames = prep.names, list(prep.targets)
+            if chunk_rows is not None:
+                W = W.rechunk((int(chunk_rows), -1))
+        else:
+            W, names, tnames = as_dask_design(data, y, target=target, features=features,
+                                              chunk_rows=chunk_rows)
         W_test = None
         if holdout is not None:
             W, W_test = _holdout_split(W, holdout, seed)
@@ -538,6 +635,7 @@ def dask_path(
         loo_mse = loo0 = loo_se = cvres = hp = plan = None
         notes = [f"dask engine: {W.numblocks[0]} row blocks"
                  + (f", scheduler {scheduler}" if scheduler else "")]
+        notes += [] if prep is None else list(prep.notes)
         if loo or cv:
             label2 = ("pass 2/2: hat diagonals for exact leave-one-out (dask delayed tree)"
                       + (f" and {cv}-fold CV" if cv else ""))
@@ -559,9 +657,15 @@ def dask_path(
                 notes.append(cv_note(plan, cv_scaling))
         test_res = None
         if test is not None or W_test is not None:
-            Wt = W_test if W_test is not None else as_dask_design(
-                test, y_test, target=target if target is not None else tnames,
-                features=names if not hasattr(test, "shape") else None, chunk_rows=chunk_rows)[0]
+            if W_test is not None:
+                Wt = W_test
+            elif prep is not None:
+                Wt = prepared_design(test, None, like=prep)[0]
+            else:
+                Wt = as_dask_design(
+                    test, y_test, target=target if target is not None else tnames,
+                    features=names if not hasattr(test, "shape") else None,
+                    chunk_rows=chunk_rows)[0]
             if Wt.shape[1] != W.shape[1]:
                 raise InputError(f"the test data have {Wt.shape[1] - len(tnames)} feature "
                                  f"columns but the training data {p}; pass the same features")
@@ -587,4 +691,5 @@ def dask_path(
                              passes=passes, notes=notes,
                              fold_stats=None if hp is None else hp.fold_factors(),
                              fold_plan=plan, loo_at=LooPasses(one_pass, lam, loo_mse, loo_se)
-                             if loo else None)
+                             if loo else None,
+                             preparation=None if prep is None else prep.record())

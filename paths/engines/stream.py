@@ -37,7 +37,7 @@ from paths.data.folds import fold_labels
 from paths.data.validation import (InputError, as_lambdas, check_feature_bounds,
                                    check_response_bounds)
 from paths.data.chunks import (DEFAULT_CHUNK_ROWS, GroupValues, HoldoutRows, RowSource,
-                               count_rows, open_rows)
+                               count_rows, open_prepared, open_rows)
 from paths.core.design import Design
 from paths.core.factor import Factorization
 from paths.core.grid import default_grid
@@ -817,6 +817,7 @@ class StreamPath(RidgePath):
     fold_stats: "FoldFactors | None" = None
     fold_plan: "FoldPlan | None" = None
     loo_at: object = field(default=None, repr=False, compare=False)
+    preparation: dict | None = None
 
     def criteria_at(self, lam):
         """df, training MSE, GCV and leave-one-out MSE at any penalties.
@@ -876,7 +877,7 @@ def _test_pass(fit: _Fit, lam, source: RowSource, p: int, progress):
 
 def path_from_moments(fit: _Fit, lam, *, feature_names, loo, loo0, test=None, cv=None,
                       n_folds=0, engine="stream", passes=(), notes=(), fold_stats=None,
-                      fold_plan=None, loo_at=None) -> StreamPath:
+                      fold_plan=None, loo_at=None, preparation=None) -> StreamPath:
     """Assemble the path result from the factors and the pass results."""
     fac, des = fit.fac, fit.design
     p = des.n_features
@@ -913,7 +914,7 @@ def path_from_moments(fit: _Fit, lam, *, feature_names, loo, loo0, test=None, cv
         penalty_convention=PENALTY_CONVENTION, state=state, engine=engine, passes=tuple(passes),
         n_folds=int(n_folds), notes=tuple(notes), captured_share=fit.captured_share,
         approximate=fit.rank_limit is not None, fold_stats=fold_stats, fold_plan=fold_plan,
-        loo_at=loo_at, **out)
+        loo_at=loo_at, preparation=preparation, **out)
 
 
 class LooPasses:
@@ -994,6 +995,8 @@ def stream_path(
     holdout: float | None = None,
     seed: int = 0,
     rank: int | None = None,
+    encode: str | None = None,
+    drop_missing: str | None = None,
     progress=None,
 ) -> StreamPath:
     """The ridge path of tall data read in row chunks, without holding the design.
@@ -1058,6 +1061,14 @@ def stream_path(
         the p × p factorization; a warning states the captured share of
         :math:`\\|Z\\|_F^2` and that the min-norm quantities are then
         approximations).  At most min(n - 1, p).
+    encode : {None, "onehot"}
+        One-hot encode text feature columns as the in-memory reader does
+        (:func:`paths.data.tables.select`): same columns, names and order; the
+        levels come from a pre-pass over the file (:mod:`paths.data.rowprep`).
+    drop_missing : {None, "rows", "columns"}
+        Drop rows (or feature columns) with missing values, as in memory; a
+        pre-pass counts the rows kept, and the holdout and the folds are
+        assigned on the kept rows.  Both need a CSV or Parquet file.
     progress : callable, optional
         ``progress(label, rows_done, rows_total_or_None)`` after each chunk.
 
@@ -1101,7 +1112,17 @@ def stream_path(
     ((100, 10), 'stream')
     """
     accurate = solver_route(solver, accurate)
-    src = open_rows(data, target, features=features, sep=sep, chunk_rows=chunk_rows, y=y)
+    prepared = bool(encode) or drop_missing is not None
+    if prepared:
+        if groups is not None:
+            raise InputError("groups with encode or drop_missing on the streamed engine: the "
+                             "group labels are read apart from the prepared rows; encode or "
+                             "clean the table beforehand, or use engine memory")
+        src = open_prepared(data, target, features=features, sep=sep, chunk_rows=chunk_rows,
+                            encode=encode, drop_missing=drop_missing, progress=progress)
+        prep = src.preparation
+    else:
+        src = open_rows(data, target, features=features, sep=sep, chunk_rows=chunk_rows, y=y)
     if isinstance(groups, str) and groups in src.feature_names:
         if features is not None:
             raise InputError(f"groups column {groups!r} is also a feature; leave it out of "
@@ -1126,6 +1147,9 @@ def stream_path(
         test_src = HoldoutRows(full, n_all, holdout, seed, test=True)
         if group_src is not None:
             group_src = group_src.subset(src)
+    elif test is not None and prepared:
+        test_src = open_prepared(test, None, sep=sep, chunk_rows=chunk_rows,
+                                 like=prep)
     elif test is not None:
         test_src = open_rows(test, target if target is not None else src.target_names,
                              features=src.feature_names if not isinstance(test, RowSource) and
@@ -1154,7 +1178,7 @@ def stream_path(
                          rank=rank, names=src.columns, requested=solver)
     lam = default_grid(fit.fac.d, n_lambdas) if lam_user is None else lam_user
     loo_mse = loo0 = loo_se = cvres = hp = plan = None
-    notes = []
+    notes = list(prep.notes) if prepared else []
     if loo or cv:
         plan = None if not cv else fold_plan(
             mom.n, cv, scheme=scheme, seed=int(seed), repeats=repeats, group_counts=counts,
@@ -1187,7 +1211,8 @@ def stream_path(
                              test=test_res, cv=cvres, n_folds=cv or 0, passes=passes,
                              notes=notes, fold_stats=None if hp is None else hp.fold_factors(),
                              fold_plan=plan, loo_at=LooPasses(one_pass, lam, loo_mse, loo_se)
-                             if loo else None)
+                             if loo else None,
+                             preparation=prep.record() if prepared else None)
 
 
 def _hat_pass(fit, lam, src, p, plan, group_src, passes, progress, cv_scaling,

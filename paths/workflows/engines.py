@@ -26,17 +26,11 @@ __all__ = ["explore_engine", "unsupported_options", "write_engine_fit", "ENGINES
 ENGINES = ("memory", "stream", "dask")
 _HASH_LIMIT = 2 << 30  # files above 2 GiB are recorded by size, not hashed (another full read)
 # options the out-of-memory engines do not offer (they keep their defaults)
-_DATA_ONLY_IN_MEMORY = ("encode", "drop_missing", "weights")
+_DATA_ONLY_IN_MEMORY = ("weights",)
 _FIT_ONLY_IN_MEMORY = ("unpenalized", "relative_penalty", "intervals")
 _WHY = {**{name: " (its one-pass moments are unweighted and penalize every column)"
            for name in ("weights", "unpenalized", "relative_penalty")},
         "intervals": " (the leave-out fits use the left singular vectors)",
-        "encode": (" (one-hot columns need every level of every text column before the first "
-                   "pass, which a streamed engine never holds; encode the columns beforehand, "
-                   "e.g. pandas.get_dummies)"),
-        "drop_missing": (" (rows or columns would be dropped only as the chunks arrive, after "
-                         "the row count that fixes the holdout and the folds; remove the "
-                         "missing values beforehand)"),
 }
 
 
@@ -164,6 +158,10 @@ def _fit(data: DataOptions, fit: FitOptions, engine: EngineOptions, progress):
         raise InputError(f"{path} is wide ({rows} rows x {len(feats)} features): holdout, "
                          "groups and repeats are not available with wide data on the streamed "
                          "engines yet; use engine memory")
+    if wide and (data.encode or data.drop_missing is not None):  # the column-blocked reader
+        raise InputError(f"{path} is wide ({rows} rows x {len(feats)} features): encode and "
+                         "drop_missing are not available with wide data on the streamed "
+                         "engines yet; use engine memory")
     if wide:
         from paths.engines.wide import wide_path
 
@@ -190,8 +188,9 @@ def _tall(path, targets, feats, data: DataOptions, fit: FitOptions, engine: Engi
     test = data.test_file
     common = dict(target=targets, features=feats, accurate=engine.accurate, solver=fit.solver,
                   standardize=fit.standardize, n_lambdas=fit.n_lambdas, n_folds=fit.n_folds,
-                  fold_scheme=fit.fold_scheme, cv_scaling=fit.cv_scaling, repeats=fit.repeats, holdout=data.holdout,
-                  seed=fit.seed, rank=engine.rank, progress=progress)
+                  fold_scheme=fit.fold_scheme, cv_scaling=fit.cv_scaling, repeats=fit.repeats,
+                  holdout=data.holdout, seed=fit.seed, rank=engine.rank, encode=data.encode,
+                  drop_missing=data.drop_missing, progress=progress)
     if engine.name == "stream":
         from paths.engines.stream import stream_path
 
@@ -304,8 +303,9 @@ def write_engine_fit(dest: Path, result, targets, source: str, input_sha256=None
     reported, rule = selection.chosen_lambdas(), selection.reported
     if not np.all(np.isfinite(reported)):  # the reported rule gave no penalty: GCV's instead
         reported, rule = np.array(rules["gcv"], dtype=float), f"gcv (rule {rule} gave none)"
-    prep = {"source_columns": list(result.feature_names), "encoding": {}, "id_column": None,
-            "drop_missing": None, "target_names": list(targets), "source": source}
+    prep = {"source_columns": list(result.feature_names), "encoding": {}, "drop_missing": None,
+            **(getattr(result, "preparation", None) or {}),
+            "id_column": None, "target_names": list(targets), "source": source}
     return save_fit(dest, result, reported=reported, reported_rule=rule, rules=rules,
                     preparation=prep, input_sha256=input_sha256)
 
