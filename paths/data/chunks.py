@@ -136,7 +136,7 @@ def select_columns(names, target, features, where):
     """(features, targets) among the column names: targets checked, features default the rest."""
     targets = [target] if isinstance(target, str) else list(target or [])
     if not targets:
-        raise InputError(f"{where}no target column given; pass --target COLUMN")
+        raise InputError(f"{where}no target column given; pass target=COLUMN")
     missing = [t for t in targets if t not in names]
     if missing:
         shown = ", ".join(map(str, names[:8])) + (" ..." if len(names) > 8 else "")
@@ -147,7 +147,7 @@ def select_columns(names, target, features, where):
         features = list(features)
         absent = [c for c in features if c not in names]
         if absent:
-            raise InputError(f"{where}feature column {absent[0]!r} not found; check --features")
+            raise InputError(f"{where}feature column {absent[0]!r} not found; check features=")
     if not features:
         raise InputError(f"{where}no feature columns left besides the target; add features")
     return features, targets
@@ -196,8 +196,8 @@ class ParquetRows(RowSource):
         nonnum = [c for c in features + targets if not _is_numeric(first.field(c).type)]
         if nonnum:
             shown = ", ".join(f"{c} ({first.field(c).type})" for c in nonnum[:5])
-            raise InputError(f"{where}non-numeric column(s): {shown}; drop them (--features) "
-                             "or encode them as numbers")
+            raise InputError(f"{where}non-numeric column(s): {shown}; drop them (features=), "
+                             "encode them as numbers or pass encode='onehot'")
         self._schema = first
         super().__init__(columns=features + targets, n_features=len(features),
                          n_rows=int(sum(m.num_rows for m in metas)), source=str(path),
@@ -380,7 +380,7 @@ def open_rows(data, target=None, *, features=None, sep=None,
             return ArrayRows(arr, y, chunk_rows=chunk_rows, source=str(path))
         return CSVRows(path, target, features=features, sep=sep, chunk_rows=chunk_rows)
     if y is None:
-        raise InputError("pass the response y with an array design (or a file path and --target)")
+        raise InputError("pass the response y with an array design (or a file path and target=)")
     names = None
     cols = getattr(data, "columns", None)
     if cols is not None:
@@ -466,7 +466,7 @@ class ParquetColumns(ColumnSource):
             features = [c for c in names if c not in set(exclude)]
         absent = [c for c in features if c not in names]
         if absent:
-            raise InputError(f"{path}: feature column {absent[0]!r} not found; check --features")
+            raise InputError(f"{path}: feature column {absent[0]!r} not found; check features=")
         nonnum = [c for c in features if not _is_numeric(schema.field(c).type)]
         if nonnum:
             raise InputError(f"{path}: non-numeric column(s): {', '.join(nonnum[:5])}; "
@@ -590,12 +590,12 @@ class GroupValues:
         self._index = None
         if isinstance(groups, str):
             if not isinstance(src, (CSVRows, ParquetRows)):
-                raise InputError(f"--groups {groups!r} names a column; the data ({src.source}) "
+                raise InputError(f"groups={groups!r} names a column; the data ({src.source}) "
                                  "have none: pass the group labels as an array")
             names = _file_columns(src)
             if groups not in names:
                 shown = ", ".join(map(str, names[:8])) + (" ..." if len(names) > 8 else "")
-                raise InputError(f"{src.source}: --groups column {groups!r} not found; columns "
+                raise InputError(f"{src.source}: groups= column {groups!r} not found; columns "
                                  f"are: {shown}")
         else:
             g = np.asarray(groups)
@@ -642,7 +642,7 @@ class GroupValues:
         for start, vals in self._raw():
             if pd_isna(vals).any():
                 i = int(np.flatnonzero(pd_isna(vals))[0])
-                raise InputError(f"{self._src.source}: --groups column has a missing value at "
+                raise InputError(f"{self._src.source}: groups= column has a missing value at "
                                  f"data row {start + i + 1}; give every row a group")
             if self._keep is not None:
                 vals = vals[self._keep(start, vals.shape[0])]

@@ -208,8 +208,8 @@ class LevelScan:
         text = [c for c in self.features if c in self.text]
         if text and self.encode != "onehot":
             raise InputError(f"{where}non-numeric (categorical) feature column(s): "
-                             f"{_names(text)}; pass encode onehot to one-hot encode them, "
-                             "or exclude them")
+                             f"{_names(text)}; pass encode='onehot' to one-hot encode them, "
+                             "or exclude= them")
         counts = {c: int(k) for c, k in zip(self.used, self.missing) if k}
         for t in self.targets:
             if counts.get(t) == self.n0:
@@ -218,28 +218,28 @@ class LevelScan:
         every = [c for c in self.features if counts.get(c) == self.n0]
         if every and self.drop_missing != "columns":
             raise InputError(f"{where}column(s) {_names(every)} are entirely missing (all "
-                             f"{self.n0} values); exclude them or pass drop_missing columns")
+                             f"{self.n0} values); exclude= them or pass drop_missing='columns'")
         feats = list(self.features)
         if counts:
             detail = ", ".join(f"{c!r} ({counts[c]}, first on {self.first_missing[c]})"
                                for c in list(counts)[:_SHOW])
             if self.drop_missing is None:
                 raise InputError(f"{where}missing values in {len(counts)} column(s): {detail}; "
-                                 "remove or impute them, or pass drop_missing rows|columns")
+                                 "remove or impute them, or pass drop_missing=rows|columns")
             if self.drop_missing == "columns":
                 bad_t = [t for t in self.targets if t in counts]
                 if bad_t:
                     raise InputError(f"{where}target column {bad_t[0]!r} has "
                                      f"{counts[bad_t[0]]} missing value(s); a target cannot "
-                                     "be dropped: use drop_missing rows")
+                                     "be dropped: use drop_missing='rows'")
                 gone = [c for c in feats if c in counts]
                 feats = [c for c in feats if c not in counts]
                 notes.append(f"dropped {len(gone)} column(s) with missing values: "
                              + ", ".join(f"{c!r} ({counts[c]})" for c in gone))
                 if not feats:
                     raise InputError(f"{where}every feature column has missing values: none "
-                                     "is left (p = 0) after drop_missing columns; impute them "
-                                     "or use drop_missing rows")
+                                     "is left (p = 0) after drop_missing='columns'; impute "
+                                     "them or use drop_missing='rows'")
             else:
                 n_kept = sum(self.kept)
                 shown = ", ".join(map(str, self.dropped_lines[:10])) + (
@@ -248,8 +248,8 @@ class LevelScan:
                              f"values (lines {shown})")
                 if n_kept == 0:
                     raise InputError(f"{where}every row has a missing value in the used "
-                                     "columns; nothing is left after drop_missing rows; try "
-                                     "drop_missing columns")
+                                     "columns; nothing is left after drop_missing='rows'; try "
+                                     "drop_missing='columns'")
         levels = {}
         for c in feats:
             if c in self.text:

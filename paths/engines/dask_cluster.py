@@ -179,7 +179,7 @@ def as_dask_design(data, y=None, *, target=None, features=None, chunk_rows=None)
             W, names, tnames = _from_dataframe(path, target, features)
     else:
         if y is None:
-            raise InputError("pass the response y with an array design (or a file and --target)")
+            raise InputError("pass the response y with an array design (or a file and target=)")
         X = data if isinstance(data, da.Array) else da.from_array(
             np.asarray(data, dtype=np.float64), chunks=(chunk_rows or 65_536, -1))
         Y = y if isinstance(y, da.Array) else da.from_array(np.asarray(y, dtype=np.float64),
@@ -229,17 +229,17 @@ def _from_dataframe(path: Path, target, features):
     nonnum = [c for c in feats + targets if not pd.api.types.is_numeric_dtype(df.dtypes[c])]
     if nonnum:
         raise InputError(f"{path}: non-numeric column(s): {', '.join(nonnum[:5])}; drop them "
-                         "(--features) or encode them as numbers")
+                         "(features=) or encode them as numbers")
     try:
         W = df.to_dask_array(lengths=True).astype(np.float64)
     except Exception as exc:  # noqa: BLE001 - a block that does not parse as numbers
         if "Mismatched dtypes" in str(exc):
             raise InputError(f"{path}: a later row block has non-numeric values in a column "
                              "the first block showed as numeric (dask's dtype inference); "
-                             "--engine stream reports the column and row range") from None
+                             "engine='stream' reports the column and row range") from None
         msg = " ".join(str(exc).split())[:160]
         raise InputError(f"{path}: a row block could not be read as numbers "
-                         f"({type(exc).__name__}: {msg}); --engine stream reports the row "
+                         f"({type(exc).__name__}: {msg}); engine='stream' reports the row "
                          "range") from None
     return W, feats, targets
 

@@ -297,7 +297,7 @@ def factor_moments(mom: Moments, p: int, *, fit_intercept: bool = True, standard
             finite = np.all(np.isfinite(Gx))
         if not finite:
             raise InputError("the Gram matrix overflows for this design; pass accurate=True "
-                             "(--accurate) or standardize the columns")
+                             "or standardize the columns")
         wv, V = sla.eigh(Gx, check_finite=False)
         wv, V = np.maximum(wv[::-1], 0.0), V[:, ::-1]
         d_all = np.sqrt(wv)
@@ -316,7 +316,7 @@ def factor_moments(mom: Moments, p: int, *, fit_intercept: bool = True, standard
             warnings.warn(
                 f"the streamed Gram route squares the condition number (predicted relative "
                 f"error {predicted:.1e} of the smallest singular value); pass accurate=True "
-                "(--accurate) for the chunked TSQR route", UserWarning, stacklevel=3)
+                "for the chunked TSQR route", UserWarning, stacklevel=3)
             reason += "; accurate=True recommended"
     if r == 0:
         raise InputError("the centered design is numerically zero; nothing to fit")
@@ -325,7 +325,7 @@ def factor_moments(mom: Moments, p: int, *, fit_intercept: bool = True, standard
     share = 1.0
     if rank is not None:
         if int(rank) != rank or not 1 <= rank <= min(m, q):
-            raise InputError(f"--rank must be an integer in [1, {min(m, q)}] (min(n - 1, p) for "
+            raise InputError(f"rank must be an integer in [1, {min(m, q)}] (min(n - 1, p) for "
                              f"this {n} x {q} design); got {rank}")
         total = float(np.sum(np.square(d_all)))
         if rank < r:
@@ -333,7 +333,7 @@ def factor_moments(mom: Moments, p: int, *, fit_intercept: bool = True, standard
             rss_out = rss_out + np.einsum("it,it->t", uty[rank:], uty[rank:])
             r, d, vt, uty = rank, d[:rank], vt[:rank], uty[:rank]
         share = float(np.sum(np.square(d)) / total) if total > 0 else 1.0
-        msg = (f"--rank {rank}: the fit is ridge on the top {r} principal components, capturing "
+        msg = (f"rank={rank}: the fit is ridge on the top {r} principal components, capturing "
                f"{100 * share:.2f}% of ||X||_F^2; the minimum-norm fit and the quantities near "
                "the interpolation threshold need the full spectrum and are approximations")
         warnings.warn(msg, UserWarning, stacklevel=3)
@@ -1194,7 +1194,7 @@ def stream_path(
     else:
         notes.append("leave-one-out skipped (loo=False): no second pass")
     if rank is not None:
-        notes.append(f"truncated to the top {fit.fac.rank} principal components (--rank), "
+        notes.append(f"truncated to the top {fit.fac.rank} principal components (rank=), "
                      f"capturing {100 * fit.captured_share:.2f}% of ||X||_F^2; min-norm "
                      "quantities are approximations")
     test_res = None
