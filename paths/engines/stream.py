@@ -601,9 +601,8 @@ class FoldMoments:
 
     form = "refit"
     scaling = "per-fold"
-    method = "refit"
-    method_reason = ("refit: per-fold scaling, each training set factored from the merged "
-                     "moments of the other folds (no rows held)")
+    reason = ("refit: per-fold scaling, each training set factored from the merged moments "
+              "of the other folds (no rows held)")
 
     def fold_mse(self, lam) -> np.ndarray:
         """Held-out mean squared error (R, K, k, t) at penalties ``lam``."""
