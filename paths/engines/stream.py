@@ -799,6 +799,9 @@ class StreamPath(RidgePath):
     approximate : bool
         True when truncated (``rank``): the fit is ridge on the top principal
         components and the min-norm quantities are approximations.
+    preparation : dict or None
+        With ``encode`` / ``drop_missing``: the source columns, the one-hot
+        levels and the missing-value rule (as ``fit.npz`` records them).
 
     ``factorization.u`` is empty (0 × r): the left singular vectors are never
     formed, so :meth:`criteria_at` (which needs them for leave-one-out) is not

@@ -472,6 +472,9 @@ def _subgrid_minimum(fun, a: float, b: float):
     of a 100-point grid over 12 decades; the parabola's vertex is then within
     O(h**2) times the ratio of the third to the second derivative, about 1e-8, of
     the minimizer: inside Brent's ``xatol`` (1e-7) of the in-memory refinement.
+    On a very flat criterion (large n) both methods are limited instead by its
+    rounding, sqrt(2 delta_f / f'') in log(lambda) (about 1e-4 at
+    n = 20000, p = 20); the vertex is kept within the last bracket.
     Returns ``(log_lam, value at the best sub-grid point)``.
     """
     best_t, best_v = None, np.inf
@@ -484,8 +487,9 @@ def _subgrid_minimum(fun, a: float, b: float):
         a, b = float(t[max(i - 1, 0)]), float(t[min(i + 1, t.size - 1)])
     if 0 < i < t.size - 1 and best_t == t[i]:
         curv = v[i - 1] - 2 * v[i] + v[i + 1]
-        if curv > 0:
-            best_t = float(t[i] + 0.5 * (t[1] - t[0]) * (v[i - 1] - v[i + 1]) / curv)
+        if curv > 0:  # within the bracket: rounding in a flat criterion cannot throw it out
+            step = float(np.clip(0.5 * (v[i - 1] - v[i + 1]) / curv, -1.0, 1.0))
+            best_t = float(t[i] + step * (t[1] - t[0]))
     return best_t, best_v
 
 
