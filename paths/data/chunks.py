@@ -24,7 +24,7 @@ from paths.data.validation import InputError
 __all__ = ["RowSource", "ArrayRows", "ParquetRows", "CSVRows", "open_rows", "count_rows",
            "HoldoutRows", "GroupValues", "CSVColumns", "is_text_path", "frame_block", "RowSubsetColumns",
            "ColumnSource", "ArrayColumns", "ParquetColumns", "open_columns",
-           "PreparedRows", "file_frames", "open_prepared",
+           "PreparedRows", "PreparedGroups", "file_frames", "open_prepared",
            "DEFAULT_CHUNK_ROWS", "DEFAULT_BLOCK_COLUMNS"]
 
 DEFAULT_CHUNK_ROWS = 65_536
@@ -858,9 +858,32 @@ def file_frames(path, *, sep=None, chunk_rows: int = DEFAULT_CHUNK_ROWS, columns
     return list(layout.names), frames
 
 
+class PreparedGroups(GroupValues):
+    """Group labels of the rows a :class:`PreparedRows` keeps, read from the same parsed
+    chunks (the ``groups`` column) with the same rows dropped."""
+
+    def __init__(self, groups: str, src: PreparedRows, *, keep=None):
+        if groups not in src.file_columns:
+            shown = ", ".join(map(str, src.file_columns[:8]))
+            raise InputError(f"{src.source}: groups= column {groups!r} not found; columns are: "
+                             f"{shown}")
+        self._groups, self._src, self._sep, self._keep = groups, src, None, keep
+        self._index = None
+
+    def subset(self, rows: "HoldoutRows") -> "PreparedGroups":
+        return PreparedGroups(self._groups, self._src, keep=rows.keep)
+
+    def _raw(self):
+        prep, start = self._src.preparation, 0
+        for frame in self._src._frames(prep.text_columns):
+            vals = frame[self._groups].to_numpy()[prep.kept_mask(frame)]
+            yield start, vals
+            start += vals.shape[0]
+
+
 def open_prepared(data, target, *, features=None, sep=None,
                   chunk_rows: int = DEFAULT_CHUNK_ROWS, encode=None, drop_missing=None,
-                  like=None, progress=None) -> PreparedRows:
+                  like=None, extra=(), progress=None) -> PreparedRows:
     """A :class:`PreparedRows` source for a CSV or Parquet file: the pre-pass
     (:func:`paths.data.rowprep.scan_frames`) decides the columns, levels and rows kept;
     with ``like`` (the training rows' :class:`~paths.data.rowprep.RowPreparation`), test
@@ -875,13 +898,19 @@ def open_prepared(data, target, *, features=None, sep=None,
     if not path.exists():
         raise InputError(f"{path}: no such file or folder; check the path")
     names, _ = file_frames(path, sep=sep)
+    if features is None and extra:  # the extra (groups) columns are not features
+        tl = [target] if isinstance(target, str) else list(target or [])
+        features = [c for c in names if c not in tl and c not in extra]
     feats, targets = select_columns(names, target if like is None else list(like.targets),
                                     features if like is None else list(like.features),
                                     f"{path}: ")
-    _, frames = file_frames(path, sep=sep, chunk_rows=chunk_rows, columns=feats + targets)
+    _, frames = file_frames(path, sep=sep, chunk_rows=chunk_rows,
+                            columns=feats + targets + [c for c in extra if c in names])
     if like is None:
         prep = scan_frames(lambda: frames(()), frames, feats, targets, encode=encode,
                            drop_missing=drop_missing, source=str(path), progress=progress)
     else:
         prep = replace(like, n_rows=None, notes=(), kept=())
-    return PreparedRows(frames, prep, source=str(path), chunk_rows=chunk_rows)
+    rows = PreparedRows(frames, prep, source=str(path), chunk_rows=chunk_rows)
+    rows.file_columns = names
+    return rows

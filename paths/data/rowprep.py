@@ -87,6 +87,13 @@ class RowPreparation:
         return {"source_columns": list(self.features), "encoding": {
             c: list(v) for c, v in self.levels.items()}, "drop_missing": self.drop_missing}
 
+    def kept_mask(self, frame) -> np.ndarray:
+        """Which rows of a parsed chunk are kept (all, unless ``drop_missing="rows"``)."""
+        if self.drop_missing != "rows":
+            return np.ones(frame.shape[0], dtype=bool)
+        used = list(self.features) + list(self.targets)
+        return ~frame[used].isna().to_numpy().any(axis=1)
+
     def block(self, frame, start: int, source: str) -> np.ndarray:
         """The kept rows of one parsed chunk as float64 (rows, len(names) + t):
         the design columns, then the targets.  ``start``: kept rows before this chunk."""
@@ -94,9 +101,8 @@ class RowPreparation:
 
         used = list(self.features) + list(self.targets)
         lines = frame.attrs.get("paths_lines")
-        miss = frame[used].isna().to_numpy()
         if self.drop_missing == "rows":
-            keep = ~miss.any(axis=1)
+            keep = self.kept_mask(frame)
             if not keep.all():
                 frame = frame.loc[keep]
                 if lines is not None:

@@ -36,8 +36,8 @@ import scipy.linalg as sla
 from paths.data.folds import fold_labels
 from paths.data.validation import (InputError, as_lambdas, check_feature_bounds,
                                    check_response_bounds)
-from paths.data.chunks import (DEFAULT_CHUNK_ROWS, GroupValues, HoldoutRows, RowSource,
-                               count_rows, open_prepared, open_rows)
+from paths.data.chunks import (DEFAULT_CHUNK_ROWS, GroupValues, HoldoutRows, PreparedGroups,
+                               RowSource, count_rows, open_prepared, open_rows)
 from paths.core.design import Design
 from paths.core.factor import Factorization
 from paths.core.grid import default_grid
@@ -1116,12 +1116,12 @@ def stream_path(
     accurate = solver_route(solver, accurate)
     prepared = bool(encode) or drop_missing is not None
     if prepared:
-        if groups is not None:
-            raise InputError("groups with encode or drop_missing on the streamed engine: the "
-                             "group labels are read apart from the prepared rows; encode or "
-                             "clean the table beforehand, or use engine memory")
+        if groups is not None and not isinstance(groups, str):
+            raise InputError("groups with encode or drop_missing: name the groups column of "
+                             "the file (its labels are read with the prepared rows)")
         src = open_prepared(data, target, features=features, sep=sep, chunk_rows=chunk_rows,
-                            encode=encode, drop_missing=drop_missing, progress=progress)
+                            encode=encode, drop_missing=drop_missing, progress=progress,
+                            extra=() if groups is None else (groups,))
         prep = src.preparation
     else:
         src = open_rows(data, target, features=features, sep=sep, chunk_rows=chunk_rows, y=y)
@@ -1136,7 +1136,8 @@ def stream_path(
         raise InputError(f"n_lambdas must be at least 1; got {n_lambdas}")
     if test is not None and holdout is not None:
         raise InputError("pass either a test set or a holdout fraction, not both")
-    group_src = None if groups is None else GroupValues(groups, src, sep=sep)
+    group_src = None if groups is None else (
+        PreparedGroups(groups, src) if prepared else GroupValues(groups, src, sep=sep))
     scheme = check_scheme(fold_scheme, groups)
     check_cv_options(n_folds, scheme, repeats, cv_scaling)
     cv = n_folds
