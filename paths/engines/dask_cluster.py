@@ -57,7 +57,7 @@ def check_address(scheduler: str) -> None:
     >>> check_address("10.0.0.5")
     Traceback (most recent call last):
     ...
-    paths.data.validation.InputError: --scheduler '10.0.0.5' is not an address SCHEME://HOST:PORT (no port); use e.g. tcp://10.0.0.5:8786
+    paths.data.validation.InputError: scheduler '10.0.0.5' is not an address SCHEME://HOST:PORT (no port); use e.g. tcp://10.0.0.5:8786
     """
     text = str(scheduler).strip()
     scheme, sep, rest = text.partition("://")
@@ -75,7 +75,7 @@ def check_address(scheduler: str) -> None:
         elif not host or any(ch.isspace() for ch in host) or "/" in host:
             problem = f"host {host!r} is not a host name"
     if problem:
-        raise InputError(f"--scheduler {scheduler!r} is not an address SCHEME://HOST:PORT "
+        raise InputError(f"scheduler {scheduler!r} is not an address SCHEME://HOST:PORT "
                          f"({problem}); use e.g. tcp://10.0.0.5:8786")
 
 
@@ -105,7 +105,7 @@ def connect(scheduler: str | None, timeout: float = DEFAULT_TIMEOUT):
     try:
         from distributed import Client
     except ImportError:  # pragma: no cover - optional dependency
-        raise InputError("--scheduler needs dask.distributed; pip install 'ridgepaths[dask]'") from None
+        raise InputError("scheduler needs dask.distributed; pip install 'ridgepaths[dask]'") from None
     check_address(scheduler)
     try:
         client = Client(scheduler, timeout=timeout, set_as_default=False)
@@ -121,7 +121,7 @@ def connect(scheduler: str | None, timeout: float = DEFAULT_TIMEOUT):
             "the scheduler is running and reachable"
         ) from None
     except (ValueError, TypeError) as exc:
-        raise InputError(f"--scheduler {scheduler!r} is not a valid address ({exc}); "
+        raise InputError(f"scheduler {scheduler!r} is not a valid address ({exc}); "
                          "use e.g. tcp://10.0.0.5:8786") from None
     try:
         yield client
