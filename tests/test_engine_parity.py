@@ -324,3 +324,64 @@ def test_streamed_loo_refinement_in_few_passes(tmp_path, engine):
         sel, got = mem["selected"][rule], eng["selected"][rule]
         assert_allclose(got["lambda"], sel["lambda"], rtol=1e-9)
         assert_allclose(got["est_se"], sel["est_se"], rtol=1e-9)
+
+
+@pytest.mark.reference
+@pytest.mark.parametrize("engine", ENGINES)
+@pytest.mark.parametrize("accurate", [False, True])
+def test_per_fold_scaling_against_sklearn_refits(engine, accurate):
+    """Per-fold scaling on a streamed engine equals scikit-learn ``StandardScaler`` +
+    ``Ridge`` refitted on each training part (each part centered and scaled on its own
+    rows, population SD as StandardScaler), scored on the held-out fold; folds of
+    ``make_folds``.  Bound: kappa^2 eps times a modest constant for the Gram route (the
+    held-out sum of squares from moments, paths.core.algebra.block_sse), kappa eps for
+    the TSQR route; kappa < 20 here (columns of scales 0.5 to 10 and offsets up to 100,
+    standardized), so 1e-9 relative has a wide margin."""
+    import dask
+    from sklearn.preprocessing import StandardScaler
+
+    from paths.engines.dask_cluster import dask_path
+    from paths.engines.stream import stream_path
+
+    rng = np.random.default_rng(1)
+    X = rng.standard_normal((240, 6)) * [1, 2, 3, 0.5, 10, 1] + [5, 0, -3, 100, 2, 0]
+    y = X @ rng.standard_normal(6) + rng.standard_normal(240) + 7
+    lams = np.array([0.0, 0.3, 30.0])
+    with dask.config.set(scheduler="synchronous"):
+        fn = stream_path if engine == "stream" else dask_path
+        res = fn(X, lams, y=y, chunk_rows=37, n_folds=4, seed=2, cv_scaling="per-fold",
+                 accurate=accurate)
+    lab = make_folds(240, 4, seed=2)
+    for i, lam in enumerate(lams):
+        sq = 0.0
+        for f in range(4):
+            te = lab == f
+            sc = StandardScaler().fit(X[~te])
+            fit = Ridge(alpha=lam, solver="svd").fit(sc.transform(X[~te]), y[~te])
+            sq += np.sum(np.square(y[te] - fit.predict(sc.transform(X[te]))))
+        assert_allclose(res.cv_mse[i], sq / 240, rtol=1e-9)
+
+
+@pytest.mark.reference
+def test_streamed_loo_standard_error_against_refits():
+    """The streamed leave-one-out standard error, sd(e_(i)^2)/sqrt(n) with e_(i) the
+    residual of the refit without row i (scikit-learn ``Ridge`` on the standardized
+    design, the documented convention of fixed preprocessing), from the sums of e^2 and
+    e^4 in one pass: 1e-8 relative (the subtraction S4 - S2^2/n loses about
+    n eps S4/(S4 - S2^2/n), under 1e-12 for n = 60; the refits' own rounding is
+    kappa eps)."""
+    from paths.engines.stream import stream_path
+
+    rng = np.random.default_rng(3)
+    X = rng.standard_normal((60, 4))
+    y = X @ [1.0, -1.0, 0.5, 0.0] + rng.standard_normal(60)
+    res = stream_path(X, [2.0], y=y, chunk_rows=13)
+    Z = (X - X.mean(axis=0)) / X.std(axis=0)
+    e2 = np.empty(60)
+    for i in range(60):
+        keep = np.arange(60) != i
+        fit = Ridge(alpha=2.0, solver="svd").fit(Z[keep], y[keep])
+        e2[i] = (y[i] - fit.predict(Z[i:i + 1])[0]) ** 2
+    se = res.loo_at.se(np.array([2.0]))[0, 0]
+    assert_allclose(res.loo_mse[0], e2.mean(), rtol=1e-8)
+    assert_allclose(se, e2.std(ddof=1) / np.sqrt(60), rtol=1e-8)
