@@ -26,6 +26,7 @@ symmetric matrix).
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -86,3 +87,346 @@ def singular_value_bound(kappa_j, eps: float, *, gram: bool = False):
     """
     kappa_j = np.asarray(kappa_j, dtype=float)
     return eps * kappa_j * (1.0 + (kappa_j if gram else 0.0))
+
+
+# ---------------------------------------------------------------- summation
+def gamma(n: int) -> float:
+    """Higham (2002) section 3.1: ``gamma_n = n u / (1 - n u)``.
+
+    A sum or inner product of ``n`` terms computed in any order has an error
+    of at most ``gamma_{n-1} sum |terms|``; two evaluations of the same
+    expression that differ only in the order of their reductions (BLAS kernels,
+    blocking, threads) therefore agree to ``2 gamma_n`` relative for sums of
+    terms of one sign (sums of squares, traces of positive semidefinite
+    matrices, means of squared errors).
+    """
+    n = max(int(n), 1)
+    return n * U / (1.0 - n * U)
+
+
+def reorder_bound(n: int, *, ops: int = 1) -> float:
+    """Relative difference of two evaluations of the same same-sign sums.
+
+    ``2 gamma_n`` for the two summations (:func:`gamma`) plus ``ops`` further
+    roundings on each side (the elementwise operations of the expression:
+    one division, one square... each one ``u``; Higham 2002 section 2.2).
+    """
+    return 2.0 * gamma(n) + 2.0 * ops * U
+
+
+def solve_bound(A) -> float:
+    """Normwise relative forward error of ``numpy.linalg.solve(A, b)``.
+
+    LU with partial pivoting is backward stable, ``|dA| <= gamma_{3n} |L||U|``
+    (Higham 2002 Theorem 9.3); with the rule of thumb of section 2.8 and a
+    growth factor of order 1 (section 9.4: small in practice) the forward error
+    is ``kappa(A) * 3 sqrt(n) u`` times a factor 4 for the constant
+    (Theorem 7.2: ``kappa eps / (1 - kappa eps)`` to first order).
+    """
+    A = np.asarray(A, dtype=float)
+    n = A.shape[0]
+    return 4.0 * np.linalg.cond(A) * 3.0 * math.sqrt(n) * U
+
+
+# ---------------------------------------------------------------- ridge
+@dataclass(frozen=True)
+class RidgeBounds:
+    """Error bounds for one ridge fit at one penalty (see :func:`ridge_bounds`).
+
+    Fields: ``kappa`` the condition number ``sqrt((d_1^2 + lam)/(d_r^2 + lam))``
+    of the augmented problem; ``coef`` normwise relative error of the
+    coefficients on the original scale; ``intercept`` and ``fitted`` absolute
+    errors (``fitted`` entrywise, for the training rows); ``resid`` absolute
+    2-norm error of the residual; ``mse`` relative error of the training mean
+    squared error; ``df`` absolute error of ``tr(H)``; ``gcv`` and ``loo``
+    relative errors.
+    """
+
+    kappa: float
+    coef: float
+    intercept: float
+    fitted: float
+    resid: float
+    mse: float
+    mse_abs: float
+    df: float
+    gcv: float
+    loo: float
+    coef_norm: float
+    center: np.ndarray
+    scale: np.ndarray
+    ybar: float
+
+    def predict_atol(self, Xnew) -> float:
+        """Entrywise absolute error of predictions at new rows ``Xnew``:
+        ``||z_i|| ||d beta|| + |d b0|`` with ``z_i`` the centered scaled row
+        (Cauchy-Schwarz), plus ``gamma_{p+1}`` of the terms of the sum."""
+        Z = (np.atleast_2d(np.asarray(Xnew, dtype=float)) - self.center) / self.scale
+        zn = np.linalg.norm(Z, axis=1).max()
+        terms = abs(self.ybar) + np.abs(Z).sum(axis=1).max() * self.coef_norm
+        return (zn * self.coef * self.coef_norm + self.intercept
+                + gamma(Z.shape[1] + 1) * terms)
+
+    def test_mse_rtol(self, Xnew, ynew, fitted_ref) -> float:
+        """Relative error of a mean squared prediction error: ``2 max|df| /
+        rmse`` from ``|a^2 - b^2| = |a - b| |a + b|`` (Cauchy-Schwarz), plus
+        ``2 gamma_n`` for the mean."""
+        e = np.asarray(ynew, dtype=float) - np.asarray(fitted_ref, dtype=float)
+        rmse = math.sqrt(np.mean(e**2))
+        d = self.predict_atol(Xnew)
+        return 2.0 * d / rmse + (d / rmse) ** 2 + 2.0 * gamma(e.shape[0])
+
+
+def ridge_bounds(X, y, lam: float, *, standardize: bool = True,
+                 fit_intercept: bool = True, solvers: int = 2,
+                 gram: bool = False, rank_rtol: float | None = None) -> RidgeBounds:
+    """Error bounds on a ridge fit at penalty ``lam``, for comparing ``solvers``
+    backward-stable computations of it (each one's bound adds up).
+
+    The problem is rebuilt here in numpy from ``X`` and ``y`` (one ``y``
+    column): ``Z`` the centered (``fit_intercept``), population-SD scaled
+    (``standardize``) design with singular values ``d``, numerical rank ``r``
+    (numpy ``pinv``'s tolerance ``max(m, p) eps d_1`` unless ``rank_rtol``).
+
+    Notes
+    -----
+    Ridge is the least-squares problem ``min ||[y; 0] - [Z; sqrt(lam) I] b||``;
+    its solution lies in the span of the ``r`` leading right singular vectors,
+    where the problem has the condition number
+    ``kappa = sqrt((d_1^2 + lam) / (d_r^2 + lam))`` (Wedin 1973, rank-preserving
+    perturbations; Higham 2002 Theorem 20.1 with ``kappa`` for the reduced
+    problem).  A backward-stable SVD or QR solve has a backward error
+    :func:`backward_eps` ``(m, p)`` relative to ``||Z||`` (Theorem 20.3), so:
+
+    * coefficients: :func:`ls_coef_bound` with
+      ``rho = ||r_aug|| / (||A|| ||b||)``, ``r_aug`` the augmented residual;
+      on the original scale (``b / s``) times ``max(s) / min(s)``;
+      a Gram route (``gram=True``) adds ``2 kappa^2 eps`` (section 20.4);
+    * residual: :func:`ls_residual_bound`, ``||dr|| <= (1 + 2 kappa) eps ||y||``;
+      the training MSE moves by ``2 ||dr|| / ||r|| + (||dr|| / ||r||)^2``
+      relative (``mse_abs``: ``(||dr||^2 + 2 ||r|| ||dr||) / m`` absolute);
+      at full row rank and ``lam > 0`` also ``r = lam (G + lam I)^-1 y`` with
+      ``G = Z Z^T``, whose relative error is at most
+      ``2 cond(G + lam I)^2 eps``, ``cond(G + lam I) = kappa^2``: the
+      smaller bound applies (residuals formed without cancellation);
+    * intercept ``b0 = ybar - (xbar / s)^T b``: ``||xbar / s|| ||db||`` plus
+      ``gamma_{p+1}`` of its terms; fitted values likewise with each row;
+    * ``df = [1] + sum d_j^2 / (d_j^2 + lam)``: each singular value moves by at
+      most ``eps d_1`` (Weyl; Golub and Van Loan 2013 Corollary 8.6.2) and
+      ``|d(df)/dd_j| = 2 lam d_j / (d_j^2 + lam)^2``; a Gram route moves each
+      ``d_j^2`` by ``eps d_1^2`` instead (Theorem 8.1.4);
+    * GCV ``= m RSS / (m - df)^2``: the MSE error plus ``2 |d df| / (m - df)``,
+      with ``m - df = (m - [1] - r) + sum lam / (d_j^2 + lam)`` summed as
+      complements (relative ``gamma_r``);
+    * leave-one-out residuals ``e_i = r_i / (1 - h_i)``: the leverages are
+      diagonal entries of the top block of the orthogonal projector onto the
+      range of the augmented matrix, which moves by at most ``2 kappa eps``
+      (Wedin's sin-theta bound; Stewart and Sun 1990 Theorem III.3.4; through
+      a Gram matrix ``2 kappa^2 eps``, section 20.4), so
+      ``||de|| <= ||dr|| / min(1 - h) + ||e|| 2 kappa eps / min(1 - h)`` and the
+      LOO MSE moves by ``2 ||de|| / ||e|| + (||de|| / ||e||)^2`` relative.
+      Rows of leverage one at ``lam = 0`` (interpolation) take the
+      ``lam -> 0+`` limit ``e_i = (G+ y)_i / (G+)_ii``, ``G = Z Z^T``:
+      ``G+ = (Z+)^T Z+`` and ``Z+`` has a normwise relative error
+      ``kappa eps`` (Wedin 1973), so ``G+ y`` moves by ``2 kappa^2 eps
+      ||y|| / d_r^2`` and ``(G+)_ii = ||Z+ e_i||^2 >= 1 / d_1^2`` by
+      ``2 kappa^2 eps`` relative: ``||de|| <= 2 kappa^2 eps (kappa^2 ||y|| +
+      ||e||)``.  At full row rank the same argument holds at every
+      ``lam``: ``e_i = (M y)_i / M_ii`` with ``M = (G + lam I)^-1`` (on the
+      complement of the constant vector with an intercept), whose condition
+      number is ``kappa^2``; the smaller of the two bounds applies.
+
+    Each bound is first order in ``eps``; the tests use it unchanged (no
+    safety factor beyond the constants stated in :func:`backward_eps`).
+
+    References
+    ----------
+    Wedin, P.-A. (1973). Perturbation theory for pseudo-inverses. BIT 13, 217-232.
+    Stewart, G. W. and Sun, J.-G. (1990). *Matrix Perturbation Theory*. Academic Press.
+    """
+    X = np.asarray(X, dtype=float)
+    y = np.asarray(y, dtype=float).ravel()
+    m, p = X.shape
+    center = X.mean(axis=0) if fit_intercept else np.zeros(p)
+    scale = X.std(axis=0) if standardize else np.ones(p)
+    scale = np.where(scale > 0, scale, 1.0)
+    Z = (X - center) / scale
+    ybar = float(y.mean()) if fit_intercept else 0.0
+    yc = y - ybar
+    u, d, vt = np.linalg.svd(Z, full_matrices=False)
+    tol = (rank_rtol if rank_rtol is not None else max(m, p) * 2 * U) * d[0]
+    r = int(np.sum(d > tol))
+    u, d, vt = u[:, :r], d[:r], vt[:r]
+    lam = float(lam)
+    eps = backward_eps(m, p)
+    kappa = math.sqrt((d[0] ** 2 + lam) / (d[-1] ** 2 + lam))
+    uty = u.T @ yc
+    b = vt.T @ (d / (d**2 + lam) * uty)
+    fit = u @ (d**2 / (d**2 + lam) * uty)
+    res = yc - fit
+    bnorm = float(np.linalg.norm(b))
+    raug = math.sqrt(res @ res + lam * bnorm**2)
+    anorm = math.sqrt(d[0] ** 2 + lam)
+    rho = raug / (anorm * bnorm) if bnorm > 0 else 0.0
+    coef_std = solvers * ls_coef_bound(kappa, rho, eps, gram=gram)
+    coef = coef_std * float(scale.max() / scale.min())
+    zbar = center / scale
+    icpt = (float(np.linalg.norm(zbar)) * coef_std * bnorm
+            + gamma(p + 1) * (abs(ybar) + float(np.abs(zbar) @ np.abs(b))))
+    zrow = float(np.linalg.norm(Z, axis=1).max())
+    fitted = (zrow * coef_std * bnorm + icpt
+              + gamma(p + 1) * (abs(ybar) + float(np.abs(Z).sum(axis=1).max() * np.abs(b).max())))
+    dr = solvers * ls_residual_bound(kappa, eps, gram=gram) * float(np.linalg.norm(yc))
+    rn = float(np.linalg.norm(res))
+    full_row = r == m - fit_intercept
+    kg = kappa**2 * (1.0 + (kappa**2 if gram else 0.0))  # cond of G + lam I
+    if full_row and lam > 0:  # r = lam (G + lam I)^-1 y (see Notes)
+        dr = min(dr, solvers * 2 * kg * kg * eps * rn)
+    q = dr / rn if rn > 0 else math.inf
+    mse = 2 * q + q * q + 2 * gamma(m)
+    mse_abs = (dr * dr + 2 * rn * dr) / m + 2 * gamma(m) * rn * rn / m
+    dd = eps * d[0] * (1.0 + (d[0] / d if gram else 0.0))
+    dweyl = solvers * float(np.sum(2 * lam * d / (d**2 + lam) ** 2 * dd))
+    df = fit_intercept + float(np.sum(d**2 / (d**2 + lam)))
+    ddf = dweyl + 2 * gamma(r) * df
+    resid_df = (m - fit_intercept - r) + float(np.sum(lam / (d**2 + lam)))
+    gcv = mse + 2 * (dweyl / resid_df + 2 * gamma(r)) if resid_df > 0 else math.inf
+    h = (1.0 / m if fit_intercept else 0.0) + np.sum((u * (d**2 / (d**2 + lam))) * u, axis=1)
+    one = 1.0 - h
+    full = one <= m * m * U  # leverage one at lam = 0: the lam -> 0+ limit
+    e = np.where(full, 0.0, res / np.where(full, 1.0, one))
+    if full.any():  # limit e_i = (G+ y)_i / (G+)_ii with G = Z Z^T (see Notes)
+        gy = u @ (uty / d**2)
+        gd = np.sum(u * u / d**2, axis=1)
+        e[full] = gy[full] / gd[full]
+    en = float(np.linalg.norm(e))
+    dh = solvers * 2 * kappa * eps * (1.0 + (kappa if gram else 0.0))
+    de = (dr + en * dh) / float(one[~full].min()) if (~full).any() else 0.0
+    if full.any():
+        de += solvers * 2 * kappa**2 * eps * (kappa**2 * float(np.linalg.norm(yc)) + en)
+    if r == m - fit_intercept:  # full row rank: the inverse form (see Notes)
+        kg = kappa**2 * (1.0 + (kappa**2 if gram else 0.0))
+        de = min(de, solvers * 2 * kg * eps * (kg * float(np.linalg.norm(yc)) + en))
+    qe = de / en if en > 0 else math.inf
+    loo = 2 * qe + qe * qe + 2 * gamma(m)
+    return RidgeBounds(kappa=kappa, coef=coef, intercept=icpt, fitted=fitted, resid=dr,
+                       mse=mse, mse_abs=mse_abs, df=ddf, gcv=gcv, loo=loo, coef_norm=float(np.linalg.norm(b / scale)),
+                       center=center, scale=scale, ybar=ybar)
+
+
+def explicit_hat_bound(X1, pen) -> float:
+    """2-norm error of an explicit hat matrix ``X1 solve(X1^T X1 + diag(pen), X1^T)``.
+
+    Forming ``A = X1^T X1 + diag(pen)`` rounds each entry by ``gamma_m`` of
+    ``|X1|^T |X1|`` (Higham 2002 section 3.5), a backward error of at most
+    ``gamma_m ||X1||_F^2 / ||A||`` relative to ``A``; the solve adds
+    :func:`solve_bound`.  The forward error of ``A^-1 X1^T`` is then
+    ``cond(A)`` times that (Higham Theorem 7.2) and
+    ``||dH|| <= ||X1|| ||A^-1|| ||X1|| * rel``.
+    """
+    X1 = np.asarray(X1, dtype=float)
+    A = X1.T @ X1 + np.diag(np.asarray(pen, dtype=float))
+    sv = np.linalg.svd(A, compute_uv=False)
+    nx = np.linalg.norm(X1, 2)
+    rel = solve_bound(A) + sv[0] / sv[-1] * gamma(X1.shape[0]) * np.linalg.norm(X1) ** 2 / sv[0]
+    return float(nx * nx / sv[-1] * rel)
+
+
+def refit_loo_rtol(Xs, y, lam: float, *, fit_intercept: bool = True) -> float:
+    """Relative error of a leave-one-out MSE from ``n`` brute-force refits.
+
+    Refit ``i`` on the other ``n - 1`` rows of the (already scaled) design
+    predicts row ``i`` to within :meth:`RidgeBounds.predict_atol` (one
+    backward-stable solver); the mean of the squared errors then moves by
+    ``2 max|de| / rms(e) + (max|de| / rms(e))^2`` relative (``|a^2 - b^2| =
+    |a - b| |a + b|``) plus ``2 gamma_n`` for the mean.
+    """
+    Xs = np.asarray(Xs, dtype=float)
+    y = np.asarray(y, dtype=float)
+    n, p = Xs.shape
+    err, de = np.empty(n), np.empty(n)
+    for i in range(n):
+        k = np.arange(n) != i
+        b = ridge_bounds(Xs[k], y[k], lam, standardize=False, fit_intercept=fit_intercept,
+                         solvers=1)
+        xm = Xs[k].mean(axis=0) if fit_intercept else np.zeros(p)
+        ym = y[k].mean() if fit_intercept else 0.0
+        A = np.vstack([Xs[k] - xm, math.sqrt(lam) * np.eye(p)])
+        beta = np.linalg.lstsq(A, np.r_[y[k] - ym, np.zeros(p)], rcond=None)[0]
+        err[i] = y[i] - ym - (Xs[i] - xm) @ beta
+        de[i] = b.predict_atol(Xs[i:i + 1])
+    q = de.max() / math.sqrt(np.mean(err**2))
+    return 2 * q + q * q + 2 * gamma(n)
+
+
+@dataclass(frozen=True)
+class LimitGap:
+    """How far the criteria at a small ``lam`` may lie from their ``lam -> 0+``
+    limits in exact arithmetic (see :func:`limit_gap`): ``mse`` absolute,
+    ``df`` absolute, ``gcv`` and ``loo`` relative."""
+
+    tau: float
+    mse: float
+    df: float
+    gcv: float
+    loo: float
+
+
+def limit_gap(X, y, lam: float, *, standardize: bool = True,
+              fit_intercept: bool = True) -> LimitGap:
+    """Exact-arithmetic distance between the ridge criteria at ``lam`` and at
+    ``lam -> 0+``, from the shrinkage complements ``t_j = lam / (d_j^2 + lam)``
+    which all lie in ``[0, tau]``, ``tau = lam / d_r^2`` (a fact of the SVD).
+
+    * ``RSS = RSS_0 + sum t_j^2 c_j^2`` (``c = U^T y``): moves by ``<= tau^2 ||c||^2``;
+    * ``df = df_0 - sum t_j``: moves by ``<= r tau``;
+    * GCV: below full row rank, numerator and ``(m - df)^2`` move by the
+      above; at full row rank ``GCV = m sum s_j^2 (1 - t_j)^2 c_j^2 /
+      (sum s_j (1 - t_j))^2`` with ``s_j = d_j^-2``, so it lies within a factor
+      ``(1 - tau)^{-2}`` of its limit;
+    * LOO residuals ``e_i = r_i / (1 - h_i)``: ``r_i`` moves by
+      ``<= tau |U_i| |c|`` and ``1 - h_i`` by ``<= tau ||U_i||^2``; rows of
+      leverage one at the limit are ratios ``sum s_j (1 - t_j) U_ij c_j /
+      sum s_j (1 - t_j) U_ij^2``, numerator moving by
+      ``tau sum s_j |U_ij c_j|`` and the denominator within ``(1 - tau)``.
+    """
+    X = np.asarray(X, dtype=float)
+    y = np.asarray(y, dtype=float).ravel()
+    m, p = X.shape
+    center = X.mean(axis=0) if fit_intercept else np.zeros(p)
+    scale = X.std(axis=0) if standardize else np.ones(p)
+    Z = (X - center) / np.where(scale > 0, scale, 1.0)
+    yc = y - (y.mean() if fit_intercept else 0.0)
+    u, d, _ = np.linalg.svd(Z, full_matrices=False)
+    r = int(np.sum(d > max(m, p) * 2 * U * d[0]))
+    u, d = u[:, :r], d[:r]
+    c = u.T @ yc
+    tau = lam / d[-1] ** 2
+    r0 = yc - u @ c
+    rss0 = float(r0 @ r0)
+    cn = float(np.linalg.norm(c))
+    one0 = 1.0 - (1.0 / m if fit_intercept else 0.0) - np.sum(u * u, axis=1)
+    full = one0 <= m * m * U
+    s = 1.0 / d**2
+    e0 = np.empty(m)
+    de = np.empty(m)
+    nf = ~full
+    e0[nf] = r0[nf] / one0[nf]
+    # |d r_i| <= tau |U_i . |c||; |d(1 - h_i)| <= tau ||U_i||^2
+    dri = tau * (np.abs(u) @ np.abs(c))
+    dhi = tau * np.sum(u * u, axis=1)
+    de[nf] = (dri[nf] + np.abs(e0[nf]) * dhi[nf]) / np.maximum(one0[nf] - dhi[nf], 0.0)
+    if full.any():
+        num = u[full] @ (s * c)
+        den = (u[full] ** 2) @ s
+        e0[full] = num / den
+        de[full] = (tau * (np.abs(u[full]) @ (s * np.abs(c))) / ((1 - tau) * den)
+                    + np.abs(e0[full]) * tau / (1 - tau))
+    qe = float(np.linalg.norm(de) / np.linalg.norm(e0))
+    loo = 2 * qe + qe * qe
+    rdf = m - fit_intercept - r
+    if rdf == 0:
+        gcv = (1.0 - tau) ** -2 - 1.0
+    else:
+        gcv = (1 + tau**2 * cn**2 / rss0) * (1 + r * tau / rdf) ** 2 - 1.0
+    return LimitGap(tau=tau, mse=tau**2 * cn**2 / m, df=r * tau, gcv=gcv, loo=loo)
