@@ -135,7 +135,10 @@ class RidgeBounds:
 
     Fields: ``kappa`` the condition number ``sqrt((d_1^2 + lam)/(d_r^2 + lam))``
     of the augmented problem; ``coef`` normwise relative error of the
-    coefficients on the original scale; ``intercept`` and ``fitted`` absolute
+    coefficients on the original scale (``coef_std`` on the centered scaled
+    design, whose coefficient vector has the norm ``coef_std_norm``: an entry
+    ``j`` on the original scale is within ``coef_std * coef_std_norm / s_j``);
+    ``intercept`` and ``fitted`` absolute
     errors (``fitted`` entrywise, for the training rows); ``resid`` absolute
     2-norm error of the residual; ``mse`` relative error of the training mean
     squared error; ``df`` absolute error of ``tr(H)``; ``gcv`` and ``loo``
@@ -144,6 +147,8 @@ class RidgeBounds:
 
     kappa: float
     coef: float
+    coef_std: float
+    coef_std_norm: float
     intercept: float
     fitted: float
     resid: float
@@ -179,7 +184,8 @@ class RidgeBounds:
 
 def ridge_bounds(X, y, lam: float, *, standardize: bool = True,
                  fit_intercept: bool = True, solvers: int = 2,
-                 gram: bool = False, rank_rtol: float | None = None) -> RidgeBounds:
+                 gram: bool = False, rank_rtol: float | None = None,
+                 extra_eps: float = 0.0) -> RidgeBounds:
     """Error bounds on a ridge fit at penalty ``lam``, for comparing ``solvers``
     backward-stable computations of it (each one's bound adds up).
 
@@ -187,6 +193,8 @@ def ridge_bounds(X, y, lam: float, *, standardize: bool = True,
     column): ``Z`` the centered (``fit_intercept``), population-SD scaled
     (``standardize``) design with singular values ``d``, numerical rank ``r``
     (numpy ``pinv``'s tolerance ``max(m, p) eps d_1`` unless ``rank_rtol``).
+    ``extra_eps`` adds a known normwise relative perturbation of the data (for
+    example a column stored with fewer significant bits) to the backward error.
 
     Notes
     -----
@@ -217,7 +225,10 @@ def ridge_bounds(X, y, lam: float, *, standardize: bool = True,
       ``d_j^2`` by ``eps d_1^2`` instead (Theorem 8.1.4);
     * GCV ``= m RSS / (m - df)^2``: the MSE error plus ``2 |d df| / (m - df)``,
       with ``m - df = (m - [1] - r) + sum lam / (d_j^2 + lam)`` summed as
-      complements (relative ``gamma_r``);
+      complements (relative ``gamma_r``); at full row rank and ``lam = 0`` the
+      limit ``m ||G+ y||^2 / (tr G+)^2``, whose numerator moves by
+      ``4 kappa^4 eps`` and denominator by ``4 kappa^2 eps`` relative (as for
+      LOO below);
     * leave-one-out residuals ``e_i = r_i / (1 - h_i)``: the leverages are
       diagonal entries of the top block of the orthogonal projector onto the
       range of the augmented matrix, which moves by at most ``2 kappa eps``
@@ -257,16 +268,20 @@ def ridge_bounds(X, y, lam: float, *, standardize: bool = True,
     tol = (rank_rtol if rank_rtol is not None else max(m, p) * 2 * U) * d[0]
     r = int(np.sum(d > tol))
     u, d, vt = u[:, :r], d[:r], vt[:r]
-    lam = float(lam)
-    eps = backward_eps(m, p)
+    # every bound is invariant under Z -> Z / d_1, lam -> lam / d_1^2 (and b -> d_1 b):
+    # work with d_1 = 1 so that no square leaves the float64 range
+    dscale = float(d[0])
+    d = d / dscale
+    lam = float(lam) / dscale**2
+    eps = backward_eps(m, p) + extra_eps
     kappa = math.sqrt((d[0] ** 2 + lam) / (d[-1] ** 2 + lam))
     uty = u.T @ yc
-    b = vt.T @ (d / (d**2 + lam) * uty)
+    b = vt.T @ (d / (d**2 + lam) * uty) / dscale
     fit = u @ (d**2 / (d**2 + lam) * uty)
     res = yc - fit
     bnorm = float(np.linalg.norm(b))
-    raug = math.sqrt(res @ res + lam * bnorm**2)
-    anorm = math.sqrt(d[0] ** 2 + lam)
+    raug = math.sqrt(res @ res + lam * (dscale * bnorm) ** 2)
+    anorm = math.sqrt(d[0] ** 2 + lam) * dscale
     rho = raug / (anorm * bnorm) if bnorm > 0 else 0.0
     coef_std = solvers * ls_coef_bound(kappa, rho, eps, gram=gram)
     coef = coef_std * float(scale.max() / scale.min())
@@ -291,11 +306,13 @@ def ridge_bounds(X, y, lam: float, *, standardize: bool = True,
     ddf = dweyl + 2 * gamma(r) * df
     resid_df = (m - fit_intercept - r) + float(np.sum(lam / (d**2 + lam)))
     gcv = mse + 2 * (dweyl / resid_df + 2 * gamma(r)) if resid_df > 0 else math.inf
+    if full_row and lam == 0:  # GCV_0 = m ||G+ y||^2 / (tr G+)^2 (see Notes)
+        gcv = solvers * (4 * kg * kg * eps + 4 * kg * eps) + 4 * gamma(m)
     h = (1.0 / m if fit_intercept else 0.0) + np.sum((u * (d**2 / (d**2 + lam))) * u, axis=1)
     one = 1.0 - h
     full = one <= m * m * U  # leverage one at lam = 0: the lam -> 0+ limit
     e = np.where(full, 0.0, res / np.where(full, 1.0, one))
-    if full.any():  # limit e_i = (G+ y)_i / (G+)_ii with G = Z Z^T (see Notes)
+    if full.any():  # limit e_i = (G+ y)_i / (G+)_ii with G = Z Z^T (see Notes; scale-free)
         gy = u @ (uty / d**2)
         gd = np.sum(u * u / d**2, axis=1)
         e[full] = gy[full] / gd[full]
@@ -309,7 +326,8 @@ def ridge_bounds(X, y, lam: float, *, standardize: bool = True,
         de = min(de, solvers * 2 * kg * eps * (kg * float(np.linalg.norm(yc)) + en))
     qe = de / en if en > 0 else math.inf
     loo = 2 * qe + qe * qe + 2 * gamma(m)
-    return RidgeBounds(kappa=kappa, coef=coef, intercept=icpt, fitted=fitted, resid=dr,
+    return RidgeBounds(kappa=kappa, coef=coef, coef_std=coef_std,
+                       coef_std_norm=bnorm, intercept=icpt, fitted=fitted, resid=dr,
                        mse=mse, mse_abs=mse_abs, df=ddf, gcv=gcv, loo=loo, coef_norm=float(np.linalg.norm(b / scale)),
                        center=center, scale=scale, ybar=ybar)
 
