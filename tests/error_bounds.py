@@ -350,29 +350,36 @@ def explicit_hat_bound(X1, pen) -> float:
     return float(nx * nx / sv[-1] * rel)
 
 
-def refit_loo_rtol(Xs, y, lam: float, *, fit_intercept: bool = True) -> float:
-    """Relative error of a leave-one-out MSE from ``n`` brute-force refits.
+def refit_loo_rtol(Xs, y, lam: float, *, fit_intercept: bool = True, labels=None,
+                   extra_eps: float = 0.0) -> float:
+    """Relative error of a leave-one-out (or, with fold ``labels``, K-fold) MSE
+    from brute-force refits.
 
-    Refit ``i`` on the other ``n - 1`` rows of the (already scaled) design
-    predicts row ``i`` to within :meth:`RidgeBounds.predict_atol` (one
+    Refit ``i`` on the rows outside fold ``i`` of the (already scaled) design
+    predicts the held-out rows to within :meth:`RidgeBounds.predict_atol` (one
     backward-stable solver); the mean of the squared errors then moves by
     ``2 max|de| / rms(e) + (max|de| / rms(e))^2`` relative (``|a^2 - b^2| =
-    |a - b| |a + b|``) plus ``2 gamma_n`` for the mean.
+    |a - b| |a + b|``) plus ``2 gamma_n`` for the mean.  The held-out errors
+    are functions of the data alone, so the same bound holds for any method
+    backward stable on the whole data (a perturbation of the whole data
+    perturbs every refit's by no more).
     """
     Xs = np.asarray(Xs, dtype=float)
     y = np.asarray(y, dtype=float)
     n, p = Xs.shape
+    labels = np.arange(n) if labels is None else np.asarray(labels)
     err, de = np.empty(n), np.empty(n)
-    for i in range(n):
-        k = np.arange(n) != i
+    for f in np.unique(labels):
+        te = labels == f
+        k = ~te
         b = ridge_bounds(Xs[k], y[k], lam, standardize=False, fit_intercept=fit_intercept,
-                         solvers=1)
+                         solvers=1, extra_eps=extra_eps)
         xm = Xs[k].mean(axis=0) if fit_intercept else np.zeros(p)
         ym = y[k].mean() if fit_intercept else 0.0
         A = np.vstack([Xs[k] - xm, math.sqrt(lam) * np.eye(p)])
         beta = np.linalg.lstsq(A, np.r_[y[k] - ym, np.zeros(p)], rcond=None)[0]
-        err[i] = y[i] - ym - (Xs[i] - xm) @ beta
-        de[i] = b.predict_atol(Xs[i:i + 1])
+        err[te] = y[te] - ym - (Xs[te] - xm) @ beta
+        de[te] = b.predict_atol(Xs[te])
     q = de.max() / math.sqrt(np.mean(err**2))
     return 2 * q + q * q + 2 * gamma(n)
 
