@@ -455,3 +455,33 @@ def limit_gap(X, y, lam: float, *, standardize: bool = True,
     else:
         gcv = (1 + tau**2 * cn**2 / rss0) * (1 + r * tau / rdf) ** 2 - 1.0
     return LimitGap(tau=tau, mse=tau**2 * cn**2 / m, df=r * tau, gcv=gcv, loo=loo)
+
+
+def singular_vector_bound(d, eps: float, *, gram: bool = False) -> float:
+    """Largest entrywise difference of ``|u_j|`` (or ``|v_j|``) between the exact
+    and a computed singular vector, for a backward-stable factorization.
+
+    Wedin's sin-theta theorem (Stewart and Sun 1990, Theorem V.4.4; Golub and
+    Van Loan 2013, Theorem 8.6.5): a perturbation ``E`` turns the ``j``-th
+    singular vector by ``sin theta <= ||E|| / gap_j`` with ``gap_j`` the distance
+    from ``d_j`` to the other singular values; entries change by at most
+    ``sqrt(2) sin theta``.  ``||E|| <= eps d_1`` for an SVD; through the Gram
+    matrix the eigenvector of ``d_j^2`` turns by ``eps d_1^2 / gap(d^2)``
+    (Theorem 8.1.12).
+    """
+    d = np.sort(np.asarray(d, dtype=float))[::-1]
+    if gram:
+        d2 = d**2
+        gap = np.min(np.abs(np.diff(d2))) if d.size > 1 else d2[0]
+        return float(math.sqrt(2) * eps * d2[0] / gap)
+    gap = np.min(np.abs(np.diff(d))) if d.size > 1 else d[0]
+    return float(math.sqrt(2) * eps * d[0] / gap)
+
+
+def orthonormality_bound(m: int, q: int, kappa: float, *, gram: bool = False) -> float:
+    """``||Q^T Q - I||`` for the factors of a backward-stable SVD: Householder
+    based factors are orthonormal to ``gamma~_{mq}`` (Higham 2002 section 19.3,
+    with the rule of thumb :func:`backward_eps`); a Gram route forms
+    ``U = Z V D^-1``, whose ``U^T U - I = D^-1 V^T E V D^-1`` with
+    ``||E|| <= eps d_1^2``: ``kappa^2`` times more."""
+    return backward_eps(m, q) * (1.0 + (kappa**2 if gram else 0.0))
