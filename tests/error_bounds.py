@@ -485,3 +485,46 @@ def orthonormality_bound(m: int, q: int, kappa: float, *, gram: bool = False) ->
     ``U = Z V D^-1``, whose ``U^T U - I = D^-1 V^T E V D^-1`` with
     ``||E|| <= eps d_1^2``: ``kappa^2`` times more."""
     return backward_eps(m, q) * (1.0 + (kappa**2 if gram else 0.0))
+
+
+def centering_atol(X) -> np.ndarray:
+    """Entrywise error of a centered column (``X - mean`` in numpy, or a
+    Householder reflector applied to ``X``): at most ``gamma_{6n} ||x_j||``.
+
+    Higham (2002) Lemma 19.2: applying a computed reflector to a vector ``x``
+    errs by at most ``gamma~_{cn} ||x||`` with a small constant (we take
+    ``c = 6``); explicit centering errs by ``u |x_ij| + gamma_n mean|x_j|``, less.
+    The error is relative to the raw column's size, not to its spread.
+    """
+    X = np.asarray(X, dtype=float)
+    return gamma(6 * X.shape[0]) * np.linalg.norm(X, axis=0)
+
+
+def gram_atol(X, Y=None) -> np.ndarray:
+    """Entrywise difference between two computations of the centered cross
+    products ``Xc^T Yc`` (two centerings, :func:`centering_atol`, and two
+    ``n``-term inner products, ``gamma_n |xc|^T |yc|``, Higham 2002 section 3.1)."""
+    X = np.asarray(X, dtype=float)
+    Y = X if Y is None else np.asarray(Y, dtype=float)
+    n = X.shape[0]
+    cx, cy = centering_atol(X), centering_atol(Y)
+    nx = np.linalg.norm(X - X.mean(axis=0), axis=0)
+    ny = np.linalg.norm(Y - Y.mean(axis=0), axis=0)
+    return (2 * (np.outer(cx, ny) + np.outer(nx, cy) + np.sqrt(n) * np.outer(cx, cy))
+            + 2 * gamma(n) * np.outer(nx, ny))
+
+
+def assert_within(actual, desired, atol, rtol=0.0) -> None:
+    """``|actual - desired| <= atol + rtol |desired|`` elementwise, where
+    ``atol`` / ``rtol`` may be arrays (numpy's ``assert_allclose`` formats them
+    as scalars); the message names the worst entry and its ratio to the bound."""
+    a = np.asarray(actual, dtype=float)
+    b = np.asarray(desired, dtype=float)
+    tol = np.asarray(atol, dtype=float) + np.asarray(rtol, dtype=float) * np.abs(b)
+    diff = np.abs(a - b)
+    bad = ~(diff <= tol)
+    if np.any(bad):
+        ratio = np.where(tol > 0, diff / np.where(tol > 0, tol, 1.0), np.inf)
+        k = np.unravel_index(int(np.argmax(np.where(bad, ratio, -1.0))), bad.shape) if bad.ndim else ()
+        raise AssertionError(f"{int(bad.sum())} of {bad.size} entries outside the bound; worst "
+                             f"at {k}: |{a[k]!r} - {b[k]!r}| = {diff[k]:.3g} > {np.broadcast_to(tol, bad.shape)[k]:.3g}")

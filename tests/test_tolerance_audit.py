@@ -35,7 +35,7 @@ import pytest
 
 TESTS = Path(__file__).parent
 TAGS = ("bound:", "exact:", "sampling:", "spec:")
-CALL = re.compile(r"\b(assert_allclose|allclose|isclose|approx|assert_array_almost_equal"
+CALL = re.compile(r"\b(assert_allclose|assert_within|allclose|isclose|approx|assert_array_almost_equal"
                   r"|assert_almost_equal)\s*\(|\b[ra]tol\s*=")
 SMALL = re.compile(r"[<>]=?[^<>]*\b\d+(\.\d*)?e-\d+")
 
