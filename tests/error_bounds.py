@@ -350,38 +350,60 @@ def explicit_hat_bound(X1, pen) -> float:
     return float(nx * nx / sv[-1] * rel)
 
 
-def refit_loo_rtol(Xs, y, lam: float, *, fit_intercept: bool = True, labels=None,
-                   extra_eps: float = 0.0) -> float:
-    """Relative error of a leave-one-out (or, with fold ``labels``, K-fold) MSE
-    from brute-force refits.
+def refit_errors(X, y, lam: float, *, fit_intercept: bool = True, labels=None,
+                 extra_eps: float = 0.0, standardize: bool = False):
+    """Held-out errors of brute-force ridge refits and their error bounds.
 
-    Refit ``i`` on the rows outside fold ``i`` of the (already scaled) design
-    predicts the held-out rows to within :meth:`RidgeBounds.predict_atol` (one
-    backward-stable solver); the mean of the squared errors then moves by
-    ``2 max|de| / rms(e) + (max|de| / rms(e))^2`` relative (``|a^2 - b^2| =
-    |a - b| |a + b|``) plus ``2 gamma_n`` for the mean.  The held-out errors
-    are functions of the data alone, so the same bound holds for any method
+    Refit ``f`` on the rows outside fold ``f`` (each row its own fold without
+    ``labels``: leave-one-out) predicts the held-out rows to within
+    :meth:`RidgeBounds.predict_atol` (one backward-stable solver, Wedin).
+    With ``standardize`` each refit scales by its own training rows (a
+    pipeline); otherwise ``X`` is taken as already scaled.  The held-out errors
+    are functions of the data alone, so the same bounds hold for any method
     backward stable on the whole data (a perturbation of the whole data
-    perturbs every refit's by no more).
+    perturbs every refit's by no more).  Returns ``(err, atol)`` per row.
     """
-    Xs = np.asarray(Xs, dtype=float)
+    X = np.asarray(X, dtype=float)
     y = np.asarray(y, dtype=float)
-    n, p = Xs.shape
+    n, p = X.shape
     labels = np.arange(n) if labels is None else np.asarray(labels)
     err, de = np.empty(n), np.empty(n)
     for f in np.unique(labels):
         te = labels == f
         k = ~te
-        b = ridge_bounds(Xs[k], y[k], lam, standardize=False, fit_intercept=fit_intercept,
+        b = ridge_bounds(X[k], y[k], lam, standardize=standardize, fit_intercept=fit_intercept,
                          solvers=1, extra_eps=extra_eps)
-        xm = Xs[k].mean(axis=0) if fit_intercept else np.zeros(p)
-        ym = y[k].mean() if fit_intercept else 0.0
-        A = np.vstack([Xs[k] - xm, math.sqrt(lam) * np.eye(p)])
+        Z = (X - b.center) / b.scale
+        ym = b.ybar
+        A = np.vstack([Z[k], math.sqrt(lam) * np.eye(p)])
         beta = np.linalg.lstsq(A, np.r_[y[k] - ym, np.zeros(p)], rcond=None)[0]
-        err[te] = y[te] - ym - (Xs[te] - xm) @ beta
-        de[te] = b.predict_atol(Xs[te])
+        err[te] = y[te] - ym - Z[te] @ beta
+        de[te] = b.predict_atol(X[te])
+    return err, de
+
+
+def refit_loo_rtol(Xs, y, lam: float, *, fit_intercept: bool = True, labels=None,
+                   extra_eps: float = 0.0, standardize: bool = False) -> float:
+    """Relative error of a pooled leave-one-out (or K-fold) MSE from refits
+    (:func:`refit_errors`): ``2 max|de| / rms(e) + (max|de| / rms(e))^2``
+    (``|a^2 - b^2| = |a - b| |a + b|``) plus ``2 gamma_n`` for the mean."""
+    err, de = refit_errors(Xs, y, lam, fit_intercept=fit_intercept, labels=labels,
+                           extra_eps=extra_eps, standardize=standardize)
     q = de.max() / math.sqrt(np.mean(err**2))
-    return 2 * q + q * q + 2 * gamma(n)
+    return 2 * q + q * q + 2 * gamma(err.size)
+
+
+def refit_fold_rtol(X, y, lam: float, labels, **kw) -> np.ndarray:
+    """Per-fold relative error of the held-out MSEs from refits, as
+    :func:`refit_loo_rtol` fold by fold (folds in label order)."""
+    err, de = refit_errors(X, y, lam, labels=labels, **kw)
+    labels = np.asarray(labels)
+    out = []
+    for f in np.unique(labels):
+        te = labels == f
+        q = de[te].max() / math.sqrt(np.mean(err[te] ** 2))
+        out.append(2 * q + q * q + 2 * gamma(int(te.sum())))
+    return np.array(out)
 
 
 @dataclass(frozen=True)
