@@ -83,6 +83,19 @@ def unexplained(path: Path) -> list[str]:
     source = path.read_text()
     lines = source.splitlines()
     code, comment, ends = _lines(source)
+    # module-level constants whose own paragraph states a reason (``TOL = ...``)
+    named = set()
+    for row in code:
+        if row > len(lines):
+            continue
+        m = re.match(r"\s*([A-Z][A-Z0-9_]*)\s*=", lines[row - 1])
+        if m and not lines[row - 1].startswith((" ", "\t")):
+            first = row
+            while first > 1 and lines[first - 2].strip():
+                first -= 1
+            if any(t in comment.get(r, "") for r in range(first, ends.get(row, row) + 1)
+                   for t in TAGS):
+                named.add(m.group(1))
     out = []
     for row, text in sorted(code.items()):
         if not (CALL.search(text) or ("assert" in text and SMALL.search(text))):
@@ -93,6 +106,8 @@ def unexplained(path: Path) -> list[str]:
         last = ends.get(row, row)
         near = " ".join(comment.get(r, "") for r in range(first, last + 1))
         doc = _docstring_of(lines, row)
+        if any(re.search(rf"\b{k}\b", text) for k in named):
+            continue
         if not any(t in near or t in doc for t in TAGS):
             out.append(f"{path.name}:{row}: {lines[row - 1].strip()[:70]}")
     return out
