@@ -168,8 +168,8 @@ class RidgeBounds:
         (Cauchy-Schwarz), plus ``gamma_{p+1}`` of the terms of the sum."""
         Z = (np.atleast_2d(np.asarray(Xnew, dtype=float)) - self.center) / self.scale
         zn = np.linalg.norm(Z, axis=1).max()
-        terms = abs(self.ybar) + np.abs(Z).sum(axis=1).max() * self.coef_norm
-        return (zn * self.coef * self.coef_norm + self.intercept
+        terms = abs(self.ybar) + zn * self.coef_std_norm
+        return (zn * self.coef_std * self.coef_std_norm + self.intercept
                 + gamma(Z.shape[1] + 1) * terms)
 
     def test_mse_rtol(self, Xnew, ynew, fitted_ref) -> float:
@@ -289,8 +289,7 @@ def ridge_bounds(X, y, lam: float, *, standardize: bool = True,
     icpt = (float(np.linalg.norm(zbar)) * coef_std * bnorm
             + gamma(p + 1) * (abs(ybar) + float(np.abs(zbar) @ np.abs(b))))
     zrow = float(np.linalg.norm(Z, axis=1).max())
-    fitted = (zrow * coef_std * bnorm + icpt
-              + gamma(p + 1) * (abs(ybar) + float(np.abs(Z).sum(axis=1).max() * np.abs(b).max())))
+    fitted = zrow * coef_std * bnorm + icpt + gamma(p + 1) * (abs(ybar) + zrow * bnorm)
     dr = solvers * ls_residual_bound(kappa, eps, gram=gram) * float(np.linalg.norm(yc))
     rn = float(np.linalg.norm(res))
     full_row = r == m - fit_intercept
