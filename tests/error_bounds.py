@@ -549,3 +549,32 @@ def assert_within(actual, desired, atol, rtol=0.0) -> None:
         k = np.unravel_index(int(np.argmax(np.where(bad, ratio, -1.0))), bad.shape) if bad.ndim else ()
         raise AssertionError(f"{int(bad.sum())} of {bad.size} entries outside the bound; worst "
                              f"at {k}: |{a[k]!r} - {b[k]!r}| = {diff[k]:.3g} > {np.broadcast_to(tol, bad.shape)[k]:.3g}")
+
+
+def weighted_ridge_bounds(X, y, w, lam: float, *, standardize: bool = True,
+                          fit_intercept: bool = True, solvers: int = 2,
+                          gram: bool = False) -> RidgeBounds:
+    """:func:`ridge_bounds` for weighted ridge, ``sum_i w_i (y_i - b0 - x_i^T b)^2 +
+    lam ||b||^2``: after weighted centering (and weighted population-SD scaling) it is
+    unweighted ridge on the rows scaled by ``sqrt(w_i)``, so the same theorems apply to
+    that design; the returned bounds are mapped back to the original rows (centre,
+    scales and weighted mean of ``y``) for intercepts and predictions."""
+    import dataclasses
+
+    X = np.asarray(X, dtype=float)
+    y = np.asarray(y, dtype=float).ravel()
+    w = np.asarray(w, dtype=float)
+    p = X.shape[1]
+    mu = np.average(X, axis=0, weights=w) if fit_intercept else np.zeros(p)
+    ym = float(np.average(y, weights=w)) if fit_intercept else 0.0
+    sd = np.sqrt(np.average((X - mu) ** 2, axis=0, weights=w)) if standardize else np.ones(p)
+    sd = np.where(sd > 0, sd, 1.0)
+    sw = np.sqrt(w)[:, None]
+    b = ridge_bounds(sw * (X - mu) / sd, sw[:, 0] * (y - ym), lam, standardize=False,
+                     fit_intercept=False, solvers=solvers, gram=gram)
+    zbar = mu / sd
+    icpt = (float(np.linalg.norm(zbar)) * b.coef_std * b.coef_std_norm
+            + gamma(p + 1) * (abs(ym) + float(np.linalg.norm(zbar)) * b.coef_std_norm))
+    return dataclasses.replace(b, coef=b.coef_std * float(sd.max() / sd.min()), intercept=icpt,
+                               center=mu, scale=sd, ybar=ym,
+                               coef_norm=b.coef_std_norm / float(sd.min()))
