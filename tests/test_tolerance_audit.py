@@ -121,7 +121,7 @@ PENDING = {
     "test_predict.py", "test_reader_rules.py", "test_report.py",
     "test_report_browser.py", "test_simulate.py", "test_stream.py",
     "test_stream_reader.py",
-    "test_wide.py", "test_workflows.py", "test_workflows_engines.py",
+    "test_wide.py", "test_wide_parity.py", "test_workflows.py", "test_workflows_engines.py",
 }
 FILES = sorted(p for p in TESTS.glob("test_*.py")
                if p.name != Path(__file__).name and p.name not in PENDING)
