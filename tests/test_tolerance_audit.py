@@ -119,7 +119,7 @@ PENDING = {
     "test_figures.py", "test_fitfile.py", "test_folds.py",
     "test_io.py", "test_nist.py", "test_outputs_bounded.py", "test_plan.py",
     "test_predict.py", "test_reader_rules.py", "test_report.py",
-    "test_report_browser.py", "test_simulate.py", "test_stream.py",
+    "test_report_browser.py", "test_stream.py",
     "test_stream_reader.py",
     "test_wide.py", "test_wide_parity.py", "test_workflows.py", "test_workflows_engines.py",
 }
