@@ -169,6 +169,7 @@ def test_chunked_text_equals_whole_file_reader(tmp_path, variant):
     whole = read_table(f)
     parts = list(read_text_chunks(text_layout(f), 4))
     got = np.vstack([p[["a", "b", "y"]].to_numpy(dtype=float) for p in parts])
+    # exact: the same text parsed by the same number rules, chunked or whole
     assert_allclose(got, whole[["a", "b", "y"]].to_numpy(dtype=float), rtol=0, atol=0)
     lines_got = np.concatenate([p.attrs["paths_lines"] for p in parts])
     assert lines_got.tolist() == list(whole.attrs["paths_lines"])
