@@ -116,7 +116,7 @@ def unexplained(path: Path) -> list[str]:
 #: files whose tolerances are still being audited (issue 11 item 1): empty when done
 PENDING = {
     "test_dask_engine.py", "test_engine_parity.py", "test_stream.py", "test_wide.py",
-    "test_wide_parity.py", "test_workflows.py", "test_workflows_engines.py",
+    "test_wide_parity.py",
 }
 FILES = sorted(p for p in TESTS.glob("test_*.py")
                if p.name != Path(__file__).name and p.name not in PENDING)
