@@ -224,6 +224,25 @@ def test_gcv_minimum_refined_and_extended(make_problem, grid):
         assert "extended" in sel.note
 
 
+def test_gcv_near_p_equals_n_keeps_its_minimum_and_says_so(make_problem):
+    """Issue 11: near p = n GCV can pick an interpolating fit, because n - tr H tends to a
+    small number as lambda -> 0+.  The explore rule keeps GCV's own minimum (checked against
+    the dense-grid minimum above) but its note says when the choice leaves fewer than
+    max(1, m/10) residual df -- the guard the threshold tools apply, after Li (1987, Ann.
+    Statist. 15, 958-975): GCV's optimality needs tr(H)/n bounded away from 1.  A 40 x 38
+    Gaussian design (seed 21, synthetic) where GCV picks lambda ~ 1e-5 (about one residual
+    df) gets the note; a 120 x 40 design does not."""
+    rng = np.random.default_rng(21)
+    X = rng.standard_normal((40, 38))
+    y = X @ rng.standard_normal(38) * 0.3 + rng.standard_normal(40)
+    sel = select_penalty(fit_path(X, y)).rules["gcv"]
+    assert 40 - sel.df < max(1.0, 0.1 * 39)
+    assert "Li 1987" in sel.note and "residual df" in sel.note
+    X, y = make_problem(120, 40, seed=12, noise=2.0)
+    sel = select_penalty(fit_path(X, y)).rules["gcv"]
+    assert 120 - sel.df >= 0.1 * 119 and "Li 1987" not in (sel.note or "")
+
+
 def test_loo_per_target_matches_ridgecv(make_problem):
     """Per-target leave-one-out grid choices equal scikit-learn RidgeCV(alpha_per_target=True)
     (efficient LOO) on the standardized design."""
