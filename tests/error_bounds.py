@@ -29,6 +29,7 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
+import numpy.testing as _np_testing
 
 U = np.finfo(np.float64).eps / 2  # unit roundoff
 #: NIST StRD certified values are rounded to 15 significant digits: half a unit
@@ -578,3 +579,84 @@ def weighted_ridge_bounds(X, y, w, lam: float, *, standardize: bool = True,
     return dataclasses.replace(b, coef=b.coef_std * float(sd.max() / sd.min()), intercept=icpt,
                                center=mu, scale=sd, ybar=ym,
                                coef_norm=b.coef_std_norm / float(sd.min()))
+
+
+# ------------------------------------------------------- engines against each other
+
+class TargetView:
+    """One target's view of a multi-target path (``j`` None: the path itself)."""
+
+    def __init__(self, path, j):
+        self.p, self.j = path, j
+
+    def _pick(self, a):
+        a = np.asarray(a)
+        return a if self.j is None else a[..., self.j]
+
+    def __getattr__(self, name):
+        if name == "min_norm":
+            return TargetView(self.p.min_norm, self.j)
+        if name == "predict":
+            return lambda X, lam: self._pick(self.p.predict(X, lam))
+        if name in ("lambdas", "singular_values", "df"):
+            return getattr(self.p, name)
+        return self._pick(getattr(self.p, name))
+
+
+class RecordView:
+    """A summary.json record read as a path (its arrays by name)."""
+
+    def __init__(self, rec):
+        self.r = rec
+
+    def __getattr__(self, name):
+        return np.asarray(self.r[name], dtype=float)
+
+
+def grid_rtol(X, y, lams, *, gram=True, **kw):
+    """How far two default grids of one problem may differ: each end is brentq's root of
+    df(lam) = target on log lam (xtol 1e-12, rtol 4 eps; Brent stops within twice it,
+    paths/core/grid.py), moved by the df error of the route (ridge_bounds.df, the Gram term
+    when a route forms X^T X) over |d df / d log lam|; geomspace adds a few u."""
+    b0 = ridge_bounds(X, y, 1.0, **kw)
+    Z = (X - b0.center) / b0.scale
+    d = np.linalg.svd(Z, compute_uv=False)
+    d = d[d > max(X.shape) * 2 * U * d[0]]
+    tol = 0.0
+    for lam in (lams[0], lams[-1]):
+        slope = np.sum(d**2 * lam / (d**2 + lam) ** 2)
+        b = ridge_bounds(X, y, lam, gram=gram, **kw)
+        tol = max(tol, 4 * (1e-12 + 8 * U * abs(np.log(lam))) + b.df / slope)
+    return tol + 8 * U
+
+
+def check_same_path(res, ref, X, y, fields, *, Xt=None, yt=None, gram=True, **kw):
+    """Field by field and penalty by penalty, ``res`` (a streamed / Gram route) and ``ref``
+    (the in-memory SVD route) within error_bounds.ridge_bounds with the Gram term (which
+    covers both routes), two solvers; the penalties themselves within grid_rtol, whose
+    effect on the solution is at most as large relative (|d log b / d log lam| <= 1) and on
+    the criteria at most 4 times (RSS's <= 2, (n - df)^-2's <= 2)."""
+    lams = np.asarray(ref.lambdas)
+    g = grid_rtol(X, y, lams, gram=gram, **kw) if "lambdas" in fields else 0.0
+    if "lambdas" in fields:
+        _np_testing.assert_allclose(res.lambdas, lams, rtol=g)  # bound: grid_rtol
+    for i, lam in enumerate(lams):
+        b = ridge_bounds(X, y, lam, gram=gram, **kw)
+        if "coef" in fields:
+            assert np.linalg.norm(res.coef[i] - ref.coef[i]) <= (b.coef + g) * b.coef_norm
+        if "intercept" in fields:
+            _np_testing.assert_allclose(res.intercept[i], ref.intercept[i], rtol=g, atol=b.intercept)
+        if "df" in fields:
+            _np_testing.assert_allclose(res.df[i], ref.df[i], rtol=g, atol=b.df)
+        for name, tol in (("train_mse", b.mse), ("gcv", b.gcv), ("loo_mse", b.loo)):
+            if name in fields:
+                _np_testing.assert_allclose(getattr(res, name)[i], getattr(ref, name)[i], rtol=tol + 4 * g)
+        if "test_mse" in fields:
+            pred = ref.predict(Xt, lam)
+            _np_testing.assert_allclose(res.test_mse[i], ref.test_mse[i],
+                            rtol=b.test_mse_rtol(Xt, yt, pred) + 4 * g)
+    if "singular_values" in fields:
+        d = np.asarray(ref.singular_values)
+        eb = backward_eps(*X.shape)
+        sv = singular_value_bound(d[0] / d, eb, gram=gram) + singular_value_bound(d[0] / d, eb)
+        assert np.all(np.abs(np.asarray(res.singular_values) / d - 1) <= sv)

@@ -20,8 +20,8 @@ from numpy.testing import assert_allclose
 from sklearn.linear_model import Ridge
 from typer.testing import CliRunner
 
-from error_bounds import (U, backward_eps, gamma, gram_atol, refit_fold_rtol, refit_loo_rtol,
-                          reorder_bound, ridge_bounds, singular_value_bound)
+from error_bounds import (RecordView, TargetView, backward_eps, check_same_path, gamma, gram_atol,
+                          grid_rtol, refit_fold_rtol, refit_loo_rtol, reorder_bound, ridge_bounds)
 from paths import InputError, fit_path
 from paths.cli import app
 from paths.engines.stream import (PairwiseMerger, chunk_moments, merge_moments, stream_path)
@@ -45,83 +45,6 @@ def relerr(a, b):
     return float(np.max(np.abs(a - b)) / max(np.max(np.abs(b)), 1e-300))
 
 
-class _Target:
-    """One target's view of a multi-target path (``j`` None: the path itself)."""
-
-    def __init__(self, path, j):
-        self.p, self.j = path, j
-
-    def _pick(self, a):
-        a = np.asarray(a)
-        return a if self.j is None else a[..., self.j]
-
-    def __getattr__(self, name):
-        if name == "min_norm":
-            return _Target(self.p.min_norm, self.j)
-        if name == "predict":
-            return lambda X, lam: self._pick(self.p.predict(X, lam))
-        if name in ("lambdas", "singular_values", "df"):
-            return getattr(self.p, name)
-        return self._pick(getattr(self.p, name))
-
-
-class _Record:
-    """A summary.json record read as a path (its arrays by name)."""
-
-    def __init__(self, rec):
-        self.r = rec
-
-    def __getattr__(self, name):
-        return np.asarray(self.r[name], dtype=float)
-
-
-def _grid_rtol(X, y, lams, *, gram=True, **kw):
-    """How far two default grids of one problem may differ: each end is brentq's root of
-    df(lam) = target on log lam (xtol 1e-12, rtol 4 eps; Brent stops within twice it,
-    paths/core/grid.py), moved by the df error of the route (ridge_bounds.df, the Gram term
-    when a route forms X^T X) over |d df / d log lam|; geomspace adds a few u."""
-    b0 = ridge_bounds(X, y, 1.0, **kw)
-    Z = (X - b0.center) / b0.scale
-    d = np.linalg.svd(Z, compute_uv=False)
-    d = d[d > max(X.shape) * 2 * U * d[0]]
-    tol = 0.0
-    for lam in (lams[0], lams[-1]):
-        slope = np.sum(d**2 * lam / (d**2 + lam) ** 2)
-        b = ridge_bounds(X, y, lam, gram=gram, **kw)
-        tol = max(tol, 4 * (1e-12 + 8 * U * abs(np.log(lam))) + b.df / slope)
-    return tol + 8 * U
-
-
-def _check_same_path(res, ref, X, y, fields, *, Xt=None, yt=None, gram=True, **kw):
-    """Field by field and penalty by penalty, ``res`` (a streamed / Gram route) and ``ref``
-    (the in-memory SVD route) within error_bounds.ridge_bounds with the Gram term (which
-    covers both routes), two solvers; the penalties themselves within _grid_rtol, whose
-    effect on the solution is at most as large relative (|d log b / d log lam| <= 1) and on
-    the criteria at most 4 times (RSS's <= 2, (n - df)^-2's <= 2)."""
-    lams = np.asarray(ref.lambdas)
-    g = _grid_rtol(X, y, lams, gram=gram, **kw) if "lambdas" in fields else 0.0
-    if "lambdas" in fields:
-        assert_allclose(res.lambdas, lams, rtol=g)  # bound: _grid_rtol
-    for i, lam in enumerate(lams):
-        b = ridge_bounds(X, y, lam, gram=gram, **kw)
-        if "coef" in fields:
-            assert np.linalg.norm(res.coef[i] - ref.coef[i]) <= (b.coef + g) * b.coef_norm
-        if "intercept" in fields:
-            assert_allclose(res.intercept[i], ref.intercept[i], rtol=g, atol=b.intercept)
-        if "df" in fields:
-            assert_allclose(res.df[i], ref.df[i], rtol=g, atol=b.df)
-        for name, tol in (("train_mse", b.mse), ("gcv", b.gcv), ("loo_mse", b.loo)):
-            if name in fields:
-                assert_allclose(getattr(res, name)[i], getattr(ref, name)[i], rtol=tol + 4 * g)
-        if "test_mse" in fields:
-            pred = ref.predict(Xt, lam)
-            assert_allclose(res.test_mse[i], ref.test_mse[i],
-                            rtol=b.test_mse_rtol(Xt, yt, pred) + 4 * g)
-    if "singular_values" in fields:
-        d = np.asarray(ref.singular_values)
-        eb = backward_eps(*X.shape)
-        sv = singular_value_bound(d[0] / d, eb, gram=gram) + singular_value_bound(d[0] / d, eb)
-        assert np.all(np.abs(np.asarray(res.singular_values) / d - 1) <= sv)
 
 
 @pytest.mark.parametrize("accurate", [False, True])
@@ -160,7 +83,7 @@ CASES = [
 @pytest.mark.parametrize("case", CASES, ids=lambda c: "-".join(f"{k}={v}" for k, v in c.items()))
 def test_equals_in_memory_engine(case):
     """Issue 7 contract: the streamed path equals the in-memory ``fit_path`` on
-    data that fit in memory, every field, within the Gram route's bounds (_check_same_path)."""
+    data that fit in memory, every field, within the Gram route's bounds (check_same_path)."""
     case = dict(case)
     t = case.pop("t", None)
     X, y = problem(t=t)
@@ -168,13 +91,13 @@ def test_equals_in_memory_engine(case):
     kw = {k: case[k] for k in ("fit_intercept", "standardize") if k in case}
     ref = fit_path(X, y, X_test=Xt, y_test=yt, **kw)
     res = stream_path(X, y=y, test=Xt, y_test=yt, **case)
-    # bound: _check_same_path per target; the min-norm fit as ridge_bounds at 0
+    # bound: check_same_path per target; the min-norm fit as ridge_bounds at 0
     cols = [None] if t is None else range(t)
     for j in cols:
         pick = (lambda a: a) if j is None else (lambda a, j=j: np.asarray(a)[..., j])
         yj, ytj = pick(y), pick(yt)
-        r_j, f_j = _Target(res, j), _Target(ref, j)
-        _check_same_path(r_j, f_j, X, yj, FIELDS, Xt=Xt, yt=ytj, **kw)
+        r_j, f_j = TargetView(res, j), TargetView(ref, j)
+        check_same_path(r_j, f_j, X, yj, FIELDS, Xt=Xt, yt=ytj, **kw)
         b = ridge_bounds(X, yj, 0.0, gram=True, **kw)
         mr, mf = r_j.min_norm, f_j.min_norm
         assert np.linalg.norm(mr.coef - mf.coef) <= b.coef * np.linalg.norm(mf.coef)
@@ -282,7 +205,7 @@ def test_kfold_against_sklearn_refits(cv_seed):
 def test_parquet_and_csv_sources_equal_arrays(tmp_path):
     """Reading Parquet (several row groups, and a folder of parts) and CSV in
     chunks gives the array result (pyarrow / pandas readers as the reference
-    for the bytes): within the Gram route's bounds (_check_same_path; the bytes are read
+    for the bytes): within the Gram route's bounds (check_same_path; the bytes are read
     exactly, only the chunking of the arithmetic may differ)."""
     X, y = problem(n=2500, p=5, seed=6)
     names = [f"f{j}" for j in range(5)]
@@ -300,7 +223,7 @@ def test_parquet_and_csv_sources_equal_arrays(tmp_path):
     for src in (tmp_path / "d.parquet", parts, tmp_path / "d.csv"):
         res = stream_path(src, target="resp", chunk_rows=512)
         assert res.feature_names == names
-        _check_same_path(res, ref, X, y, ("coef", "gcv", "loo_mse", "singular_values"))
+        check_same_path(res, ref, X, y, ("coef", "gcv", "loo_mse", "singular_values"))
 
 
 NIST_SETS = ["Norris", "Longley", "Filip", "Wampler1", "Wampler3", "Wampler4", "Wampler5",
@@ -444,9 +367,9 @@ def test_cli_stream_equals_memory_engine(tmp_path):
     assert "hat diagonals" in r2.output and "rows/s" in r2.output
     a = json.loads((tmp_path / "mem" / "summary.json").read_text())
     b = json.loads((tmp_path / "str" / "summary.json").read_text())
-    # bound: _check_same_path on the records (JSON floats round-trip)
-    _check_same_path(_Record(b), _Record(a), X, y, ("lambdas", "gcv", "loo_mse", "df"))
-    g = _grid_rtol(X, y, a["lambdas"])
+    # bound: check_same_path on the records (JSON floats round-trip)
+    check_same_path(RecordView(b), RecordView(a), X, y, ("lambdas", "gcv", "loo_mse", "df"))
+    g = grid_rtol(X, y, a["lambdas"])
     for i, lam in enumerate(a["lambdas"]):
         bd = ridge_bounds(X, y, lam, gram=True)
         assert_allclose(b["coef_norm"][i], a["coef_norm"][i], rtol=bd.coef + g + 2 * gamma(4))
@@ -456,7 +379,7 @@ def test_cli_stream_equals_memory_engine(tmp_path):
     assert b["engine"]["engine"] == "stream" and len(b["engine"]["passes"]) == 3
     ca = np.loadtxt(tmp_path / "mem" / "coefficients.csv", delimiter=",", skiprows=1)
     cb = np.loadtxt(tmp_path / "str" / "coefficients.csv", delimiter=",", skiprows=1)
-    # bound: per row (lambda, intercept, coefficients) as in _check_same_path
+    # bound: per row (lambda, intercept, coefficients) as in check_same_path
     assert_allclose(cb[:, 0], ca[:, 0], rtol=g)
     for row_b, row_a in zip(cb, ca):
         bd = ridge_bounds(X, y, row_a[0], gram=True)
@@ -477,8 +400,8 @@ def test_cli_wide_parquet_routes_to_column_blocks(tmp_path):
     assert r.exit_code == 0, r.output
     s = json.loads((tmp_path / "o" / "summary.json").read_text())
     assert s["engine"]["engine"] == "wide" and s["solver"] == "wide-gram"
-    # bound: the wide Gram route against the in-memory SVD (_check_same_path)
-    _check_same_path(_Record(s), fit_path(X, y), X, y, ("lambdas", "gcv"))
+    # bound: the wide Gram route against the in-memory SVD (check_same_path)
+    check_same_path(RecordView(s), fit_path(X, y), X, y, ("lambdas", "gcv"))
 
 
 @pytest.mark.parametrize("case", ["non-numeric", "schema", "rank", "holdout"])
