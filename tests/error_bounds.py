@@ -651,12 +651,37 @@ def check_same_path(res, ref, X, y, fields, *, Xt=None, yt=None, gram=True, **kw
         for name, tol in (("train_mse", b.mse), ("gcv", b.gcv), ("loo_mse", b.loo)):
             if name in fields:
                 _np_testing.assert_allclose(getattr(res, name)[i], getattr(ref, name)[i], rtol=tol + 4 * g)
+        if "coef_norm" in fields:
+            _np_testing.assert_allclose(res.coef_norm[i], ref.coef_norm[i],
+                                        rtol=b.coef + g + 2 * gamma(X.shape[1]))
         if "test_mse" in fields:
-            pred = ref.predict(Xt, lam)
+            # |a^2 - b^2| = |a - b| |a + b| with the predictions within predict_atol
+            q = b.predict_atol(Xt) / math.sqrt(float(ref.test_mse[i]))
             _np_testing.assert_allclose(res.test_mse[i], ref.test_mse[i],
-                            rtol=b.test_mse_rtol(Xt, yt, pred) + 4 * g)
+                                        rtol=2 * q + q * q + 2 * gamma(len(yt)) + 4 * g)
     if "singular_values" in fields:
         d = np.asarray(ref.singular_values)
         eb = backward_eps(*X.shape)
         sv = singular_value_bound(d[0] / d, eb, gram=gram) + singular_value_bound(d[0] / d, eb)
         assert np.all(np.abs(np.asarray(res.singular_values) / d - 1) <= sv)
+
+
+def check_same_min_norm(res, ref, X, y, *, Xt=None, yt=None, gram=True, **kw):
+    """The lam -> 0+ limits of two routes (``res.min_norm`` against ``ref.min_norm``) within
+    ridge_bounds at 0 (two solvers, the Gram term covering both routes): coefficients
+    normwise, intercept, training MSE absolutely (0 at full row rank), GCV, LOO, test MSE."""
+    b = ridge_bounds(X, y, 0.0, gram=gram, **kw)
+    mr, mf = res.min_norm, ref.min_norm
+    assert np.linalg.norm(np.asarray(mr.coef) - mf.coef) <= b.coef * np.linalg.norm(mf.coef)
+    _np_testing.assert_allclose(mr.intercept, mf.intercept, rtol=0, atol=b.intercept)
+    _np_testing.assert_allclose(mr.train_mse, mf.train_mse, rtol=2 * gamma(X.shape[0]),
+                                atol=b.mse_abs)
+    _np_testing.assert_allclose(mr.gcv, mf.gcv, rtol=b.gcv)
+    _np_testing.assert_allclose(mr.loo_mse, mf.loo_mse, rtol=b.loo)
+    if Xt is not None:
+        q = b.predict_atol(Xt) / math.sqrt(float(mf.test_mse))
+        _np_testing.assert_allclose(mr.test_mse, mf.test_mse,
+                                    rtol=2 * q + q * q + 2 * gamma(len(yt)))
+    if hasattr(mf, "coef_norm"):
+        _np_testing.assert_allclose(mr.coef_norm, mf.coef_norm,
+                                    rtol=b.coef + 2 * gamma(X.shape[1]))

@@ -20,7 +20,8 @@ from numpy.testing import assert_allclose
 from sklearn.linear_model import Ridge
 from typer.testing import CliRunner
 
-from error_bounds import (RecordView, TargetView, backward_eps, check_same_path, gamma, gram_atol,
+from error_bounds import (RecordView, TargetView, backward_eps, check_same_min_norm,
+                          check_same_path, gamma, gram_atol,
                           grid_rtol, refit_fold_rtol, refit_loo_rtol, reorder_bound, ridge_bounds)
 from paths import InputError, fit_path
 from paths.cli import app
@@ -98,15 +99,7 @@ def test_equals_in_memory_engine(case):
         yj, ytj = pick(y), pick(yt)
         r_j, f_j = TargetView(res, j), TargetView(ref, j)
         check_same_path(r_j, f_j, X, yj, FIELDS, Xt=Xt, yt=ytj, **kw)
-        b = ridge_bounds(X, yj, 0.0, gram=True, **kw)
-        mr, mf = r_j.min_norm, f_j.min_norm
-        assert np.linalg.norm(mr.coef - mf.coef) <= b.coef * np.linalg.norm(mf.coef)
-        assert_allclose(mr.intercept, mf.intercept, rtol=0, atol=b.intercept)
-        assert_allclose(mr.train_mse, mf.train_mse, rtol=2 * gamma(X.shape[0]), atol=b.mse_abs)
-        assert_allclose(mr.gcv, mf.gcv, rtol=b.gcv)
-        assert_allclose(mr.loo_mse, mf.loo_mse, rtol=b.loo)
-        pred = f_j.predict(Xt, 0.0)
-        assert_allclose(mr.test_mse, mf.test_mse, rtol=b.test_mse_rtol(Xt, ytj, pred))
+        check_same_min_norm(r_j, f_j, X, yj, Xt=Xt, yt=ytj, **kw)
         assert_allclose(r_j.predict(Xt[:5], 3.0), f_j.predict(Xt[:5], 3.0), rtol=0,
                         atol=ridge_bounds(X, yj, 3.0, gram=True, **kw).predict_atol(Xt[:5]))
     assert res.rank == ref.rank and res.n_test == ref.n_test
