@@ -630,7 +630,8 @@ def grid_rtol(X, y, lams, *, gram=True, **kw):
     return tol + 8 * U
 
 
-def check_same_path(res, ref, X, y, fields, *, Xt=None, yt=None, gram=True, **kw):
+def check_same_path(res, ref, X, y, fields, *, Xt=None, yt=None, gram=True, cv_labels=None,
+                    **kw):
     """Field by field and penalty by penalty, ``res`` (a streamed / Gram route) and ``ref``
     (the in-memory SVD route) within error_bounds.ridge_bounds with the Gram term (which
     covers both routes), two solvers; the penalties themselves within grid_rtol, whose
@@ -651,6 +652,12 @@ def check_same_path(res, ref, X, y, fields, *, Xt=None, yt=None, gram=True, **kw
         for name, tol in (("train_mse", b.mse), ("gcv", b.gcv), ("loo_mse", b.loo)):
             if name in fields:
                 _np_testing.assert_allclose(getattr(res, name)[i], getattr(ref, name)[i], rtol=tol + 4 * g)
+        if "cv_mse" in fields:
+            # K-fold: both within the refits' bound, the Gram route's extra kappa eps_b as a
+            # backward error (refit_loo_rtol over the folds, on the globally scaled design)
+            Zs = X / (X.std(axis=0) if kw.get("standardize", True) else 1.0)
+            tol = refit_loo_rtol(Zs, y, lam, labels=cv_labels, extra_eps=b.kappa * backward_eps(*X.shape))
+            _np_testing.assert_allclose(res.cv_mse[i], ref.cv_mse[i], rtol=2 * tol + 4 * g)
         if "coef_norm" in fields:
             _np_testing.assert_allclose(res.coef_norm[i], ref.coef_norm[i],
                                         rtol=b.coef + g + 2 * gamma(X.shape[1]))
