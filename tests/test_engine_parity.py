@@ -45,7 +45,7 @@ def _rtol():
     return 10 * 4 * (d[0] / d[-1]) ** 2 * backward_eps(160, 5)
 
 
-RTOL = _rtol()
+RTOL = _rtol()  # bound: kappa^2 eps, computed (_rtol)
 
 
 def _write_csv(path, n=160, p=5, seed=0, with_groups=True):

@@ -113,13 +113,7 @@ def unexplained(path: Path) -> list[str]:
     return out
 
 
-#: files whose tolerances are still being audited (issue 11 item 1): empty when done
-PENDING = {
-    
-    "test_wide_parity.py",
-}
-FILES = sorted(p for p in TESTS.glob("test_*.py")
-               if p.name != Path(__file__).name and p.name not in PENDING)
+FILES = sorted(p for p in TESTS.glob("test_*.py") if p.name != Path(__file__).name)
 
 
 @pytest.mark.parametrize("path", FILES, ids=[p.name for p in FILES])
