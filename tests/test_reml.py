@@ -27,6 +27,10 @@ from paths import fit_path, select_penalty
 from paths.selection.reml import reml_estimate, reml_loglik
 from paths.selection.rules import parse_rule
 
+# numerical reference checks against outside references: CI reruns them under a
+# forced OpenBLAS kernel (.ci/run)
+pytestmark = pytest.mark.reference
+
 EPS = np.finfo(float).eps
 
 

@@ -26,6 +26,10 @@ from error_bounds import (assert_within, backward_eps, gamma, ls_coef_bound, rid
                           weighted_ridge_bounds)
 from paths import InputError, cross_validate, fit_path
 
+# numerical reference checks against outside references: CI reruns them under a
+# forced OpenBLAS kernel (.ci/run)
+pytestmark = pytest.mark.reference
+
 EPS = np.finfo(float).eps
 
 
