@@ -83,7 +83,6 @@ def test_streamed_engines_draw_the_in_memory_folds(scheme):
     y = X @ rng.standard_normal(6) + rng.standard_normal(300)
     lam = [0.1, 3.0, 100.0]
     ref = cross_validate(X, y, lam, n_folds=5, scheme=scheme, seed=0, method="exact")
-    seed = 0 if scheme == "shuffled" else None
     # bound: docstring (per penalty: the Gram route's bound plus the exact route's)
     Xs = (X - X.mean(axis=0)) / X.std(axis=0)
     s = np.linalg.svd(Xs - Xs.mean(axis=0), compute_uv=False)
@@ -92,8 +91,8 @@ def test_streamed_engines_draw_the_in_memory_folds(scheme):
     tol = np.array([refit_loo_rtol(Xs, y, v, labels=labels, extra_eps=extra)
                     + refit_loo_rtol(Xs, y, v, labels=labels) for v in lam])
     for chunk in (37, 300):
-        res = stream_path(X, lam, y=y, chunk_rows=chunk, cv=5, cv_seed=seed)
+        res = stream_path(X, lam, y=y, chunk_rows=chunk, n_folds=5, fold_scheme=scheme)
         np.testing.assert_allclose(res.cv_mse, ref.mse, rtol=tol.max())
     with dask.config.set(scheduler="synchronous"):
-        res = dask_path(X, lam, y=y, chunk_rows=41, cv=5, cv_seed=seed)
+        res = dask_path(X, lam, y=y, chunk_rows=41, n_folds=5, fold_scheme=scheme)
     np.testing.assert_allclose(res.cv_mse, ref.mse, rtol=tol.max())
