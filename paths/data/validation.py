@@ -13,7 +13,7 @@ import numpy as np
 
 __all__ = ["InputError", "as_design", "as_response", "as_lambdas", "as_count", "check_rows_for_cv",
            "available_memory", "check_memory", "check_response_range", "check_feature_range",
-           "check_response_bounds", "check_feature_bounds"]
+           "check_response_bounds", "check_feature_bounds", "all_finite"]
 
 _EPS = np.finfo(np.float64).eps
 _TINY = np.finfo(np.float64).tiny
@@ -66,7 +66,19 @@ def _one_line(exc) -> str:
     return " ".join(str(exc).split())[:160]
 
 
+def all_finite(arr: np.ndarray, block_bytes: int = 1 << 20) -> bool:
+    """Whether every entry of ``arr`` is finite, checked in row blocks of about
+    ``block_bytes`` (no mask the size of ``arr``, 1/8 of its bytes, is formed)."""
+    arr = np.asarray(arr)
+    if arr.ndim < 2:
+        return bool(np.isfinite(arr).all())
+    step = max(1, block_bytes // max(arr[:1].size, 1))
+    return all(np.isfinite(arr[s:s + step]).all() for s in range(0, arr.shape[0], step))
+
+
 def _check_finite(arr: np.ndarray, what: str, names=None) -> None:
+    if all_finite(arr):
+        return
     bad = ~np.isfinite(arr)
     if bad.any():
         if arr.ndim == 2:
