@@ -173,24 +173,30 @@ def fit_bytes(path: RidgePath, *, reported, reported_rule: str = "given", **head
     ``reported`` is one penalty, or one per target.  Keyword arguments go to
     :func:`fit_header`.
     """
+    buf = io.BytesIO()
+    _write_fit(buf, path, reported=reported, reported_rule=reported_rule, **header_kw)
+    return buf.getvalue()
+
+
+def _write_fit(fh, path: RidgePath, *, reported, reported_rule: str, **header_kw) -> None:
+    """Write the ``fit.npz`` archive of ``path`` to the binary file ``fh``."""
     t = path.uty.shape[1]
     rep = np.broadcast_to(as_lambdas(reported), (t,)).astype(np.float64)
     header = fit_header(path, reported_rule=reported_rule, reported=rep, **header_kw)
     header["arrays"] = {k: [list(s), dt] for k, (s, dt) in _expected_shapes(header).items()}
     text = json.dumps(header, allow_nan=False, sort_keys=True).encode("utf-8")
     arrays = _arrays_of(path, rep)  # memory order kept (np.save writes Fortran order as such)
-    buf = io.BytesIO()
-    np.savez(buf, header=np.frombuffer(text, dtype=np.uint8), **arrays)
-    return buf.getvalue()
+    np.savez(fh, header=np.frombuffer(text, dtype=np.uint8), **arrays)
 
 
 def save_fit(dest, path: RidgePath, *, reported, reported_rule: str = "given",
              **header_kw) -> Path:
-    """Write ``fit.npz`` atomically (see :func:`fit_bytes`); returns the path written."""
-    from paths.data.output import write_bytes
+    """Write ``fit.npz`` atomically (see :func:`fit_bytes`), streamed to the file (the left
+    factor of a tall design is as large as the data); returns the path written."""
+    from paths.data.output import write_with
 
-    return write_bytes(dest, fit_bytes(path, reported=reported, reported_rule=reported_rule,
-                                       **header_kw))
+    return write_with(dest, lambda fh: _write_fit(fh, path, reported=reported,
+                                                  reported_rule=reported_rule, **header_kw))
 
 
 # ------------------------------------------------------------------------- reading
