@@ -84,3 +84,31 @@ def test_simulate_takes_the_same_figure_options_and_json(tmp_path):
     assert json.loads(res.stdout) == json.loads((out / "threshold.json").read_text())
     assert not any(p.name.startswith("fig-") for p in out.iterdir())
     assert (out / "report.html").read_text().count("<svg") >= 1  # the report still shows it
+
+
+@pytest.mark.parametrize("engine", ["memory", "stream"])
+def test_standard_input_is_named_standard_input_with_its_digest(tmp_path, csv_text, engine):
+    """'-': summary.json, the report and the methods paragraph name "standard input" (never
+    the temporary copy), and the recorded digest is the SHA-256 of the bytes piped in
+    (hashlib, the outside reference)."""
+    import hashlib
+
+    out = tmp_path / "o"
+    res = runner.invoke(app, ["explore", "-", "--target", "y", "--out", str(out), "--format",
+                              "none", "--engine", engine], input=csv_text)
+    assert res.exit_code == 0, res.output
+    s = json.loads((out / "summary.json").read_text())
+    assert s["source"] == "standard input"
+    assert s["input_sha256"] == {"standard input":
+                                 hashlib.sha256(csv_text.encode()).hexdigest()}
+    for name in ("report.md", "report.html"):
+        text = (out / name).read_text()
+        assert "standard input" in text and "paths-stdin-" not in text
+    assert "paths-stdin-" not in json.dumps(s)
+
+
+def test_standard_input_in_an_error_message_is_named_standard_input(tmp_path):
+    res = runner.invoke(app, ["explore", "-", "--target", "nope", "--out", str(tmp_path / "o")],
+                        input="a,b,y\n1,2,3\n4,5,6\n7,8,9\n")
+    assert res.exit_code == 2
+    assert "standard input" in res.stderr and "paths-stdin-" not in res.stderr

@@ -230,6 +230,6 @@ def test_progress_has_one_signature(tmp_path):
     run_simulate(TruthOptions(n_features=12), DrawOptions(n_train=10, n_test=10),
                  ThresholdOptions(n_points=4, repeats=2), none,
                  OutputOptions(out_dir=tmp_path / "s"), progress=progress)
-    assert {c[0] for c in calls} == {"sweep", "simulate"}
+    assert {"sweep", "simulate"} <= {c[0] for c in calls}
     assert all(0 <= done <= total for _, done, total in calls)
     assert calls[-1][1] == calls[-1][2]  # the last call says the simulation is done

@@ -19,7 +19,7 @@ from rich.console import Console
 
 
 __all__ = ["app", "command", "console", "err_console", "main", "load_commands", "as_flags", "flags_of",
-           "emit_summary", "stdin_file"]
+           "emit_summary", "stdin_file", "is_quiet"]
 
 #: modules of this package that are not commands
 HELPERS = frozenset({"app", "checks", "flags", "progress"})
@@ -92,31 +92,36 @@ def _root(
 ):
     _state["debug"] = debug
     _state["json"] = json_out
+    _state["quiet"] = quiet
     console.quiet = quiet or json_out
+
+
+def is_quiet() -> bool:
+    """Whether ``paths --quiet`` was given (errors only: no summary, no progress)."""
+    return bool(_state.get("quiet"))
 
 
 def stdin_file(data):
     """``-`` as the data argument: standard input, kept in a temporary CSV file for the run
-    (removed at exit); any other path is returned unchanged."""
-    from pathlib import Path
-
+    (removed at exit; named "standard input" in every output, :mod:`paths.data.stdin`);
+    any other path is returned unchanged."""
     if str(data) != "-":
         return data
-    import atexit
+    from paths.data.stdin import copy_stdin
+
+    return copy_stdin()
+
+
+def _named_inputs(message: str) -> str:
+    """An error message with any temporary copy of standard input named "standard input"."""
     import sys
-    import tempfile
 
-    from paths.data.validation import InputError
-
-    raw = sys.stdin.buffer.read()
-    if not raw.strip():
-        raise InputError("'-' reads the data from standard input, but it was empty; pipe a "
-                         "CSV file in (e.g. cat data.csv | paths explore - --target y)")
-    fd, name = tempfile.mkstemp(prefix="paths-stdin-", suffix=".csv")
-    with open(fd, "wb") as fh:
-        fh.write(raw)
-    atexit.register(Path(name).unlink, missing_ok=True)
-    return Path(name)
+    stdin = sys.modules.get("paths.data.stdin")  # loaded only when '-' was given
+    if stdin is None:
+        return message
+    for path in stdin.stdin_copies():
+        message = message.replace(path, stdin.STDIN_SOURCE)
+    return message
 
 
 def emit_summary(summary: dict) -> None:
@@ -177,7 +182,7 @@ def command(*args, **kwargs):
                 if _state["debug"]:
                     raise
                 if isinstance(exc, InputError):
-                    err_console.print(f"error: {as_flags(str(exc), flags)}", soft_wrap=True,
+                    err_console.print(f"error: {as_flags(_named_inputs(str(exc)), flags)}", soft_wrap=True,
                                       markup=False)
                     raise typer.Exit(2) from None
                 err_console.print(

@@ -5,8 +5,9 @@ from pathlib import Path
 
 import typer
 
+from paths.cli import flags as f
 from paths.cli.app import command, console
-from paths.cli.run import FORMAT_HELP, WIDTH_HELP, run_and_print
+from paths.cli.run import run_and_print
 from paths.workflows.options import DEMO_CASE
 
 
@@ -29,12 +30,12 @@ def print_cases() -> None:
 
 @command("demo")
 def demo_cmd(
-    out_dir: Path = typer.Option(Path("paths-demo"), "--out", "-o", help="Output folder."),
-    force: bool = typer.Option(False, "--force", help="Write into a non-empty output folder."),
+    out_dir: Path = f.out_dir("demo"),
+    force: bool = f.FORCE,
     list_: bool = typer.Option(False, "--list", help="List the built-in cases and exit."),
     case: str = typer.Option(DEMO_CASE, "--case", help="Which built-in case to run."),
-    formats: str = typer.Option(None, "--format", help=FORMAT_HELP),
-    width: str = typer.Option(None, "--width", help=WIDTH_HELP),
+    formats: str = f.FORMATS_OF_CASE,
+    width: str = f.WIDTH_OF_CASE,
 ):
     """Run the built-in demo into ./paths-demo/: the penalty choice on wide synthetic data, then
     a sweep across p = n (the interpolation spike and what shrinkage does) into threshold/."""

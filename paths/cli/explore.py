@@ -149,7 +149,7 @@ def explore_cmd(
     width: str = f.WIDTH,
     x: str = f.FIGURE_X,
     report: bool = f.REPORT,
-    out_dir: Path = f.out_dir("paths-out"),
+    out_dir: Path = f.out_dir("explore"),
     force: bool = f.FORCE,
 ):
     """Fit the whole ridge path of DATA and write path.csv, coefficients.csv, summary.json."""
@@ -170,9 +170,10 @@ def explore_cmd(
         console.print(f"note: {choice.note}", markup=False, highlight=False)
     options.update(engine=choice.options, extra=choice.extra)
     if choice.options.name == "memory":
-        with console.status("fitting the path, choosing the penalty, writing figures and "
-                            "report"):
-            run = run_explore(**options)
+        from paths.cli.progress import ProgressBar
+
+        with ProgressBar() as bar:
+            run = run_explore(**options, progress=bar)
     else:
         run = _run_engine(options)
     print_summary(run)

@@ -7,7 +7,8 @@ from pathlib import Path
 import typer
 
 from paths.cli import flags as f
-from paths.cli.app import command, console
+from paths.cli.app import command, console, emit_summary
+from paths.workflows.options import PlanOptions
 
 
 def print_plan(run, tolerance: float) -> None:
@@ -41,7 +42,7 @@ def plan_cmd(
     signal_variance: float = typer.Option(None, "--signal-variance", help="r^2."),
     spectrum: Path = typer.Option(None, "--spectrum",
                                   help="File of covariance eigenvalues, one per line."),
-    tolerance: float = typer.Option(0.05, "--tolerance", help="Least squares within this "
+    tolerance: float = typer.Option(PlanOptions.tolerance, "--tolerance", help="Least squares within this "
                                     "fraction of optimal ridge (0.05: 5%)."),
     pilot: Path = typer.Option(None, "--pilot", help="Pilot data file: estimate sigma^2 and "
                                "r^2 (read and prepared like any table)."),
@@ -52,16 +53,20 @@ def plan_cmd(
     id_column: str = f.ID_COLUMN,
     encode: f.Encode = f.ENCODE,
     drop_missing: f.DropMissing = f.DROP_MISSING,
-    out_dir: Path = f.out_dir("paths-plan"),
+    out_dir: Path = f.out_dir("plan"),
     force: bool = f.FORCE,
 ):
     """Predict test MSE against n; report the n at which least squares nears optimal ridge."""
     from paths.workflows import options as o
     from paths.workflows.plan import run_plan
 
+    from paths.cli.progress import ProgressBar
+
     given = locals()
     pilot_options = None if pilot is None else f.build(o.DataOptions, given, file=pilot)
-    run = run_plan(f.build(o.PlanOptions, given),
-                   f.build(o.OutputOptions, given, command_line=["paths", *sys.argv[1:]]),
-                   pilot=pilot_options)
+    with ProgressBar() as bar:
+        run = run_plan(f.build(o.PlanOptions, given),
+                       f.build(o.OutputOptions, given, command_line=["paths", *sys.argv[1:]]),
+                       pilot=pilot_options, progress=bar)
     print_plan(run, tolerance)
+    emit_summary(run.summary)

@@ -5,32 +5,36 @@ from pathlib import Path
 
 import typer
 
-from paths.cli.app import command, console
+from paths.cli import flags as f
+from paths.cli.app import command, console, emit_summary, stdin_file
 
 
 @command("predict")
 def predict_cmd(
     fit: Path = typer.Argument(..., help="The fit.npz written by paths explore."),
     data: Path = typer.Argument(..., help="New rows: a table with the fit's feature columns "
-                                "(any order; extra columns are ignored)."),
+                                "(any order; extra columns are ignored); - reads CSV from "
+                                "standard input."),
     out: Path = typer.Option(..., "--out", "-o", help="Predictions CSV to write."),
     lam: float = typer.Option(None, "--lambda", help="Predict at this penalty (default: the "
                               "fit's reported one)."),
     rule: str = typer.Option(None, "--rule", help="Predict at a rule's penalty: one saved with "
                              "the fit (gcv, loo, cv, one-se, hkb, lw, isotropic) or df=VALUE, "
                              "fraction=VALUE."),
-    intervals: float = typer.Option(None, "--intervals", help="Also write prediction intervals "
-                                    "at this level, e.g. 0.9 (columns lower, upper)."),
+    intervals: float = f.INTERVALS,
     id_column: str = typer.Option(None, "--id", help="Identifier column carried through to "
                                   "the output (default: the fit's, if present; else row)."),
-    sep: str = typer.Option(None, "--sep", help="Delimiter of a text file; detected by default."),
-    force: bool = typer.Option(False, "--force", help="Overwrite an existing --out file."),
+    sep: str = f.SEP,
+    force: bool = f.FORCE,
 ):
     """Predict the rows of DATA with the saved fit FIT and write them to --out."""
+    from paths.cli.progress import ProgressBar
     from paths.workflows.predict import predict_file
 
-    run = predict_file(fit, data, out=out, lam=lam, rule=rule, intervals=intervals,
-                       id_column=id_column, sep=sep, force=force)
+    with ProgressBar() as bar:
+        run = predict_file(fit, stdin_file(data), out=out, lam=lam, rule=rule,
+                           intervals=intervals, id_column=id_column, sep=sep, force=force,
+                           progress=bar)
     lams = ", ".join(f"{v:.4g}" for v in run.lam)
     console.print(f"predicted {run.n_rows} row(s) at lambda {lams} ({run.choice})", markup=False)
     if run.intervals:
@@ -39,3 +43,5 @@ def predict_cmd(
     for note in run.notes:
         console.print(f"note: {note}", markup=False)
     console.print(f"wrote {run.out}", markup=False)
+    emit_summary({"out": str(run.out), "n_rows": run.n_rows, "lambda": [float(v) for v in run.lam],
+                  "choice": run.choice, "intervals": run.intervals, "notes": list(run.notes)})

@@ -9,25 +9,26 @@ import typer
 from paths.cli import flags as f
 from paths.cli.app import command, console, emit_summary
 from paths.cli.threshold import print_threshold
+from paths.workflows.options import DrawOptions as D, TruthOptions as T
 
 
 @command("simulate")
 def simulate_cmd(
-    n_train: int = typer.Option(200, "--n-train", help="Training rows per draw."),
-    n_test: int = typer.Option(1000, "--n-test", help="Test rows per draw."),
-    n_features: int = typer.Option(600, "--n-features", "-p", help="Features."),
-    covariance: f.Covariance = typer.Option(f.Covariance.isotropic, "--covariance",
+    n_train: int = typer.Option(D.n_train, "--n-train", help="Training rows per draw."),
+    n_test: int = typer.Option(D.n_test, "--n-test", help="Test rows per draw."),
+    n_features: int = typer.Option(T.n_features, "--n-features", "-p", help="Features."),
+    covariance: f.Covariance = typer.Option(f.Covariance(T.covariance), "--covariance",
                                             help="Feature covariance."),
-    rho: float = typer.Option(0.5, "--rho", help="AR(1) correlation."),
-    n_spikes: int = typer.Option(3, "--n-spikes", help="Number of spikes (spiked covariance; "
+    rho: float = typer.Option(T.rho, "--rho", help="AR(1) correlation."),
+    n_spikes: int = typer.Option(T.n_spikes, "--n-spikes", help="Number of spikes (spiked covariance; "
                                                        "aligned coefficients)."),
-    spike_strength: float = typer.Option(20.0, "--spike-strength", help="Spike strength."),
-    coefficients: f.Coefficients = typer.Option(f.Coefficients.dense, "--coefficients",
+    spike_strength: float = typer.Option(T.spike_strength, "--spike-strength", help="Spike strength."),
+    coefficients: f.Coefficients = typer.Option(f.Coefficients(T.coefficients), "--coefficients",
                                                 help="Coefficient pattern."),
-    sparsity: int = typer.Option(10, "--sparsity", help="Non-zero coefficients (sparse)."),
-    snr: float = typer.Option(1.0, "--snr", help="Signal-to-noise ratio beta' Sigma beta / "
+    sparsity: int = typer.Option(T.sparsity, "--sparsity", help="Non-zero coefficients (sparse)."),
+    snr: float = typer.Option(T.snr, "--snr", help="Signal-to-noise ratio beta' Sigma beta / "
                                                  "sigma^2."),
-    noise_variance: float = typer.Option(1.0, "--noise-variance", help="sigma^2."),
+    noise_variance: float = typer.Option(T.noise_variance, "--noise-variance", help="sigma^2."),
     over: f.Over = f.OVER,
     order: f.Order = f.ORDER,
     repeats: int = f.REPEATS,
@@ -40,7 +41,7 @@ def simulate_cmd(
     formats: str = f.FORMATS,
     width: str = f.WIDTH,
     report: bool = f.REPORT,
-    out_dir: Path = f.out_dir("paths-simulate"),
+    out_dir: Path = f.out_dir("simulate"),
     force: bool = f.FORCE,
 ):
     """Simulate synthetic data, run the sweep; write threshold.csv/.json and bias_variance.csv."""

@@ -7,7 +7,8 @@ from pathlib import Path
 import typer
 
 from paths.cli import flags as f
-from paths.cli.app import command, console, emit_summary
+from paths.cli.app import command, console, emit_summary, stdin_file
+from paths.workflows.options import ThresholdOptions
 
 def _fmt(v) -> str:
     return "n/a" if v is None else f"{float(v):.4g}"
@@ -54,8 +55,7 @@ def threshold_cmd(
     encode: f.Encode = f.ENCODE,
     drop_missing: f.DropMissing = f.DROP_MISSING,
     test_file: Path = f.TEST_FILE,
-    holdout: float = typer.Option(None, "--holdout", help="Hold out this fraction of rows as "
-                                  "test rows (default 0.25 without --test; seeded by --seed)."),
+    holdout: float = f.HOLDOUT,
     over: f.Over = f.OVER,
     order: f.Order = f.ORDER,
     repeats: int = f.REPEATS,
@@ -63,7 +63,8 @@ def threshold_cmd(
     n_points: int = f.N_POINTS,
     random_features: int = typer.Option(None, "--random-features",
                                         help="Map the inputs to this many random features."),
-    feature_map: f.FeatureMap = typer.Option(f.FeatureMap.relu, "--feature-map",
+    feature_map: f.FeatureMap = typer.Option(f.FeatureMap(ThresholdOptions.feature_map),
+                                             "--feature-map",
                                              help="Random features: ReLU or random Fourier."),
     ridge_lambda: float = f.RIDGE_LAMBDA,
     ridge_df_fraction: float = f.RIDGE_DF_FRACTION,
@@ -73,7 +74,7 @@ def threshold_cmd(
     formats: str = f.FORMATS,
     width: str = f.WIDTH,
     report: bool = f.REPORT,
-    out_dir: Path = f.out_dir("paths-threshold"),
+    out_dir: Path = f.out_dir("threshold"),
     force: bool = f.FORCE,
 ):
     """Sweep the model size across p = n on DATA; write threshold.csv and threshold.json."""
@@ -81,6 +82,7 @@ def threshold_cmd(
     from paths.workflows import options as o
     from paths.workflows.threshold import run_threshold
 
+    data = stdin_file(data)  # "-": standard input
     given = locals()
     with ProgressBar() as bar:
         run = run_threshold(

@@ -893,26 +893,40 @@ def _svg_of(panel) -> str:
     return buf.getvalue()
 
 
+def _report_progress(progress, done: int) -> None:
+    if progress is not None:
+        progress("report", done, 1)
+
+
 def write_threshold_outputs(result, summary: dict, out_dir, *, formats=("png", "svg"),
-                            width: str = "single", report: bool = True) -> list:
-    """The threshold figure (+ CSV) and, with ``report``, ``report.md``/``report.html``."""
+                            width: str = "single", report: bool = True, progress=None) -> list:
+    """The threshold figure (+ CSV) and, with ``report``, ``report.md``/``report.html``.
+
+    ``progress(stage, done, total)`` hears stages "figures" (per figure) and "report".
+    """
     from paths.present.figures import save_figure, threshold_figure
 
     out = Path(out_dir)
+    if progress is not None:
+        progress("figures", 0, 1)
     panel = threshold_figure(result, width=width)
     files = save_figure(panel, out, formats=formats) if formats else []  # --format none
+    if progress is not None:
+        progress("figures", 1, 1)
     written = list(files)
     if report:
+        _report_progress(progress, 0)
         refs = figure_refs([(panel, files)])
         written += [write_text(out / "report.md", render_threshold_markdown(summary, refs)),
                     write_text(out / "report.html", render_threshold_html(summary, refs))]
+        _report_progress(progress, 1)
     panel.figure.clear()
     return written
 
 
 def write_explore_outputs(result, summary: dict, out_dir, *, cv=None, formats=("png", "svg"),
                           width: str = "single", x: str = "df",
-                          report: bool = True) -> list:
+                          report: bool = True, progress=None) -> list:
     """The path figure of each target and the spectrum figure (+ their CSVs) and, with
     ``report``, the report files.
 
@@ -921,12 +935,16 @@ def write_explore_outputs(result, summary: dict, out_dir, *, cv=None, formats=("
     ``summary["selected"]`` (of ``summary["by_target"]`` per target) and draw
     K-fold CV (``cv``, a :class:`paths.cv.CVResult`) when given.  With several
     targets the path figures are ``fig-path-1``, ``fig-path-2``, … in target order.
+    ``progress(stage, done, total)`` hears stages "figures" (per figure) and "report".
     """
     from paths.present.figures import path_figure, reml_figure, save_figure, spectrum_figure
 
     out = Path(out_dir)
     nums = summary.get("report") or report_numbers(summary)
     names = summary.get("targets") or [None]
+    reml = nums["rule"] == "reml" and result.factorization.u.shape[0] > 0
+    if progress is not None:
+        progress("figures", 0, len(names) + 1 + int(reml))
     panels, owners = [], []
     for j, name in enumerate(names):
         view = summary if name is None else target_view(summary, j)
@@ -943,20 +961,24 @@ def write_explore_outputs(result, summary: dict, out_dir, *, cv=None, formats=("
     chosen = {nums["rule"]: summary["selected"][nums["rule"]]}
     panels.append(spectrum_figure(result, selected=chosen, width=width))
     owners.append(None)
-    if nums["rule"] == "reml" and result.factorization.u.shape[0] > 0:
+    if reml:
         panels.append(reml_figure(result, width=width))  # the profile behind the choice
         owners.append(None)
     written, pairs = [], []
-    for panel in panels:
+    for k, panel in enumerate(panels):
         files = save_figure(panel, out, formats=formats) if formats else []  # --format none
         written += files
         pairs.append((panel, files))
+        if progress is not None:
+            progress("figures", k + 1, len(panels))
     if report:
         from paths.present.interactive import explorer_section
 
+        _report_progress(progress, 0)
         refs = figure_refs(pairs, owners)
         written += write_report(out, summary, refs,
                                 interactive=explorer_section(result, summary))
+        _report_progress(progress, 1)
     for panel in panels:
         panel.figure.clear()
     return written

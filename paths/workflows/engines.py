@@ -14,10 +14,12 @@ from pathlib import Path
 
 import numpy as np
 
+from paths.data.stdin import source_name
 from paths.data.validation import InputError
 from paths.workflows.explore import ExploreRun, check_figures, command_text, per_target
 from paths.workflows.options import (DataOptions, EngineOptions, FigureOptions, FitOptions,
                                      OutputOptions)
+from paths.workflows.stages import SELECT, TABLES, stage
 
 __all__ = ["explore_engine", "unsupported_options", "write_engine_fit", "ENGINES"]
 
@@ -60,9 +62,9 @@ def _file_digests(path: Path) -> tuple[dict, list]:
     for f in files:
         size = f.stat().st_size
         if size <= _HASH_LIMIT:
-            out[str(f)] = sha256_of(f)
+            out[source_name(f)] = sha256_of(f)  # "standard input" for '-'
         else:
-            out[str(f)] = None
+            out[source_name(f)] = None
             notes.append(f"{f}: {size} bytes, not hashed (over 2 GiB; another full read)")
     return out, notes
 
@@ -258,7 +260,8 @@ def explore_engine(data: DataOptions, fit: FitOptions = FitOptions(),
     inputs = [Path(data.file), *([] if data.test_file is None else [Path(data.test_file)])]
     with output.folder(inputs) as folder:
         result = _fit(data, fit, engine, progress)
-        cv_res, selection = _select(result, fit)
+        with stage(progress, SELECT):
+            cv_res, selection = _select(result, fit)
         digests, hash_notes = {}, []
         for f in inputs:
             dig, notes = _file_digests(f)
@@ -273,7 +276,8 @@ def explore_engine(data: DataOptions, fit: FitOptions = FitOptions(),
                                   hash_notes + ([note] if note else []), cv_res, selection)
         summary.update(extra or {})
         files = _write_engine(result, summary, folder.stage, list(data.target), figures,
-                              source=str(data.file), digests=digests, selection=selection)
+                              source=source_name(data.file), digests=digests, selection=selection,
+                              progress=progress)
     return ExploreRun(result=result, summary=summary, out_dir=folder.target,
                       files=folder.final_paths(files))
 
@@ -287,7 +291,7 @@ def _engine_summary(result, data, fit, output, digests, hash_notes, cv_res, sele
     if data.holdout is not None:
         split = {"holdout": data.holdout, "seed": fit.seed, "n_test": int(result.n_test)}
     summary = summary_dict(
-        result, target=targets[0] if len(targets) == 1 else targets, source=str(data.file),
+        result, target=targets[0] if len(targets) == 1 else targets, source=source_name(data.file),
         input_sha256=digests, split=split, command_line=command_text(output),
         data_notes=list(result.notes) + hash_notes, engine=result.engine_record(),
         noise_variance=selection.noise.as_dict(None if result.multi_target else 0),
@@ -319,28 +323,29 @@ def write_engine_fit(dest: Path, result, targets, source: str, input_sha256=None
 
 
 def _write_engine(result, summary: dict, out: Path, targets, figures: FigureOptions, *,
-                  source: str, digests: dict, selection) -> list:
+                  source: str, digests: dict, selection, progress=None) -> list:
     """path.csv, coefficients.csv and fit.npz (when the engine kept coefficients),
     summary.json, figures, report."""
     from paths.data.output import write_csv, write_json
     from paths.present.summary import coefficient_table, path_table
 
     formats, width = check_figures(figures)
-    files = [write_csv(out / "path.csv", *per_target(path_table, result, targets))]
-    if result.coef is not None:
-        files.append(write_csv(out / "coefficients.csv",
-                               *per_target(coefficient_table, result, targets)))
     drawable = result.coef is not None and (formats or figures.report)
-    if drawable:
-        from paths.present.report import report_numbers, write_explore_outputs
+    with stage(progress, TABLES):
+        files = [write_csv(out / "path.csv", *per_target(path_table, result, targets))]
+        if result.coef is not None:
+            files.append(write_csv(out / "coefficients.csv",
+                                   *per_target(coefficient_table, result, targets)))
+        if drawable:
+            from paths.present.report import report_numbers, write_explore_outputs
 
-        summary["report"] = report_numbers(summary)
-    files.append(write_json(out / "summary.json", summary))
-    if result.coef is not None and result.engine != "wide":  # wide: no right factors kept
-        files.append(write_engine_fit(out / "fit.npz", result, targets, source, digests,
-                                      selection=selection))
+            summary["report"] = report_numbers(summary)
+        files.append(write_json(out / "summary.json", summary))
+        if result.coef is not None and result.engine != "wide":  # wide: no right factors kept
+            files.append(write_engine_fit(out / "fit.npz", result, targets, source, digests,
+                                          selection=selection))
     if drawable:
         files += write_explore_outputs(result, summary, out, formats=formats, width=width,
-                                       x=figures.x, report=figures.report)
+                                       x=figures.x, report=figures.report, progress=progress)
     return files
 

@@ -20,6 +20,8 @@ from paths.data.validation import InputError
 from paths.workflows.options import (DataOptions, EngineOptions, FigureOptions, FitOptions,
                                      OutputOptions)
 from paths.workflows.prepare import Prepared, TrainTest, prepare, train_test
+from paths.workflows.stages import (FACTOR, INTERVALS, KFOLD, READ, RECORD, SAVE_FIT, SELECT,
+                                    TABLES, stage)
 
 __all__ = ["ExploreRun", "Fitted", "run_explore", "explore_prepared", "fit_and_select",
            "explore_record", "write_explore", "write_saved_fit", "prediction_intervals_step",
@@ -76,7 +78,8 @@ def run_explore(data: DataOptions, fit: FitOptions = FitOptions(),
     ``engine`` other than in-memory runs :func:`paths.workflows.engines.explore_engine`
     (the file is not read into memory); ``base_dir`` is the folder relative
     data paths are read from; ``extra`` keys are added to ``summary.json``;
-    ``progress(stage, done, total)`` reports the out-of-memory passes.
+    ``progress(stage, done, total)`` hears every stage (:mod:`paths.workflows.stages`) and
+    the out-of-memory engines' passes.
     """
     from paths.workflows.choose_engine import choose_engine
 
@@ -92,15 +95,18 @@ def run_explore(data: DataOptions, fit: FitOptions = FitOptions(),
 
         return explore_engine(here, fit, figures, output, engine=choice.options,
                               progress=progress, extra=extra)
-    prepared = prepare(data, base_dir=base_dir)
-    return explore_prepared(prepared, fit, figures, output, holdout=data.holdout, extra=extra)
+    with stage(progress, READ):
+        prepared = prepare(data, base_dir=base_dir)
+    return explore_prepared(prepared, fit, figures, output, holdout=data.holdout, extra=extra,
+                            progress=progress)
 
 
 def explore_prepared(prepared: Prepared, fit: FitOptions = FitOptions(),
                      figures: FigureOptions = FigureOptions(),
                      output: OutputOptions = OutputOptions(), *, holdout: float | None = None,
-                     extra: dict | None = None) -> ExploreRun:
-    """Fit, select, record and write on prepared data (the steps after :func:`prepare`)."""
+                     extra: dict | None = None, progress=None) -> ExploreRun:
+    """Fit, select, record and write on prepared data (the steps after :func:`prepare`);
+    ``progress(stage, done, total)`` as in :func:`run_explore`."""
     from paths.data.validation import check_rows_for_cv
 
     check_figures(figures)
@@ -109,22 +115,27 @@ def explore_prepared(prepared: Prepared, fit: FitOptions = FitOptions(),
         raise InputError("intervals needs test rows: pass test_file FILE or holdout FRACTION")
     targets = prepared.train.target_names
     with output.folder(prepared.digests) as folder:
-        fitted = fit_and_select(prepared, fit, holdout=holdout)
-        record, table = prediction_intervals_step(fitted, fit, targets)
-        summary = explore_record(prepared, fitted, fit, command_line=command_text(output),
-                                 extra=extra, intervals=record)
-        files = write_explore(fitted, summary, folder.stage, targets, figures)
-        if table is not None:
-            from paths.data.output import write_csv
+        fitted = fit_and_select(prepared, fit, holdout=holdout, progress=progress)
+        with stage(progress if fit.intervals is not None else None, INTERVALS):
+            record, table = prediction_intervals_step(fitted, fit, targets)
+        with stage(progress, RECORD):
+            summary = explore_record(prepared, fitted, fit, command_line=command_text(output),
+                                     extra=extra, intervals=record)
+        files = write_explore(fitted, summary, folder.stage, targets, figures,
+                              progress=progress)
+        with stage(progress, SAVE_FIT):
+            if table is not None:
+                from paths.data.output import write_csv
 
-            files.append(write_csv(folder.stage / "intervals.csv", *table))
-        files.append(write_saved_fit(folder.stage / "fit.npz", fitted.result, fitted.selection,
-                                     prepared.train, prepared.digests))
+                files.append(write_csv(folder.stage / "intervals.csv", *table))
+            files.append(write_saved_fit(folder.stage / "fit.npz", fitted.result,
+                                         fitted.selection, prepared.train, prepared.digests))
     return ExploreRun(result=fitted.result, summary=summary, out_dir=folder.target,
                       files=folder.final_paths(files), selection=fitted.selection, cv=fitted.cv)
 
 
-def fit_and_select(prepared: Prepared, fit: FitOptions, *, holdout=None) -> Fitted:
+def fit_and_select(prepared: Prepared, fit: FitOptions, *, holdout=None,
+                   progress=None) -> Fitted:
     """Factor and fit the whole path, run K-fold CV when asked, apply every selection rule."""
     import pandas as pd
 
@@ -132,12 +143,13 @@ def fit_and_select(prepared: Prepared, fit: FitOptions, *, holdout=None) -> Fitt
 
     data = train_test(prepared, holdout=holdout, seed=fit.seed)
     frame = pd.DataFrame(data.X, columns=prepared.train.feature_names, copy=False)  # a view
-    result = fit_path(frame, data.y, n_lambdas=fit.n_lambdas, standardize=fit.standardize,
-                      solver=fit.solver, X_test=data.X_test, y_test=data.y_test,
-                      sample_weight=data.weights,
-                      test_weight=data.test_weights if data.X_test is not None else None,
-                      unpenalized=fit.unpenalized, relative_penalty=fit.relative_penalty)
-    selection, record, cv_res = select_rules(result, data, fit)
+    with stage(progress, FACTOR):
+        result = fit_path(frame, data.y, n_lambdas=fit.n_lambdas, standardize=fit.standardize,
+                          solver=fit.solver, X_test=data.X_test, y_test=data.y_test,
+                          sample_weight=data.weights,
+                          test_weight=data.test_weights if data.X_test is not None else None,
+                          unpenalized=fit.unpenalized, relative_penalty=fit.relative_penalty)
+    selection, record, cv_res = select_rules(result, data, fit, progress=progress)
     return Fitted(result=result, selection=selection, cv_record=record, cv=cv_res, data=data)
 
 
@@ -182,7 +194,7 @@ def cv_record(cv_res) -> dict:
             "se": lst(cv_res.se), "se_repeats": lst(cv_res.se_repeats)}
 
 
-def select_rules(result, data: TrainTest, fit: FitOptions):
+def select_rules(result, data: TrainTest, fit: FitOptions, *, progress=None):
     """K-fold CV (when asked) and every selection rule; ``(report, cv record, CVResult)``."""
     from paths.selection.cv import cross_validate
     from paths.selection.rules import select_penalty
@@ -191,10 +203,12 @@ def select_rules(result, data: TrainTest, fit: FitOptions):
     n_folds = _folds_for(groups, data.X.shape[0], fit)
     cv_res = None
     if n_folds is not None:
-        cv_res = cross_validate(data.X, data.y, path=result, n_folds=n_folds,
-                                scheme=fit.fold_scheme, seed=fit.seed, repeats=fit.repeats,
-                                groups=groups, scaling=fit.cv_scaling)
-    report = select_penalty(result, cv_res, reported=fit.rule)
+        with stage(progress, KFOLD):
+            cv_res = cross_validate(data.X, data.y, path=result, n_folds=n_folds,
+                                    scheme=fit.fold_scheme, seed=fit.seed, repeats=fit.repeats,
+                                    groups=groups, scaling=fit.cv_scaling)
+    with stage(progress, SELECT):
+        report = select_penalty(result, cv_res, reported=fit.rule)
     return report, None if cv_res is None else cv_record(cv_res), cv_res
 
 
@@ -276,7 +290,8 @@ def per_target(table, result, targets) -> tuple[list, list]:
     return header, rows
 
 
-def write_explore(fitted, summary: dict, out: Path, targets, figures: FigureOptions) -> list:
+def write_explore(fitted, summary: dict, out: Path, targets, figures: FigureOptions, *,
+                  progress=None) -> list:
     """path.csv, coefficients.csv, model.csv, summary.json, then the figures and the report."""
     from paths.data.output import write_csv, write_json
     from paths.present.report import write_explore_outputs
@@ -285,11 +300,14 @@ def write_explore(fitted, summary: dict, out: Path, targets, figures: FigureOpti
 
     formats, width = check_figures(figures)
     result = fitted.result
-    files = [write_csv(out / "path.csv", *per_target(path_table, result, targets)),
-             write_coefficients(out, *per_target(coefficient_table, result, targets)),
-             write_csv(out / "model.csv", *model_table(result, reported_lambdas(summary), targets)),
-             write_json(out / "summary.json", summary)]
+    with stage(progress, TABLES):
+        files = [write_csv(out / "path.csv", *per_target(path_table, result, targets)),
+                 write_coefficients(out, *per_target(coefficient_table, result, targets)),
+                 write_csv(out / "model.csv",
+                           *model_table(result, reported_lambdas(summary), targets)),
+                 write_json(out / "summary.json", summary)]
     if formats or figures.report:
         files += write_explore_outputs(result, summary, out, cv=fitted.cv, formats=formats,
-                                       width=width, x=figures.x, report=figures.report)
+                                       width=width, x=figures.x, report=figures.report,
+                                       progress=progress)
     return files

@@ -32,12 +32,17 @@ from pathlib import Path
 __all__ = ["DataOptions", "FitOptions", "EngineOptions", "ThresholdOptions", "TruthOptions",
            "DrawOptions", "FigureOptions", "OutputOptions", "PlanOptions", "option_names",
            "parse_relative_penalties",
-           "DEFAULT_THRESHOLD_HOLDOUT", "DEMO_CASE"]
+           "DEFAULT_THRESHOLD_HOLDOUT", "DEFAULT_OUT_DIRS", "CASE_OUT_DIR", "DEMO_CASE"]
 
 #: The built-in case ``paths demo`` runs.
 DEMO_CASE = "calibration"
 #: Fraction of rows held out as test rows by the threshold sweep when no test file is given.
 DEFAULT_THRESHOLD_HOLDOUT = 0.25
+#: Each command's default output folder.
+DEFAULT_OUT_DIRS = {"explore": "paths-out", "threshold": "paths-threshold",
+                    "simulate": "paths-simulate", "plan": "paths-plan", "demo": "paths-demo"}
+#: ``paths run CASE``'s default output folder (the case's name goes in).
+CASE_OUT_DIR = "paths-{case}"
 
 
 def _names(values) -> tuple | None:

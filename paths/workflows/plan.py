@@ -15,6 +15,7 @@ from paths.data.validation import InputError
 from paths.workflows.explore import command_text
 from paths.workflows.options import DataOptions, OutputOptions, PlanOptions
 from paths.workflows.prepare import prepare
+from paths.workflows.stages import PLAN, READ, TABLES, stage
 
 __all__ = ["PlanRun", "run_plan", "read_spectrum"]
 
@@ -42,7 +43,7 @@ def read_spectrum(path) -> np.ndarray:
     return np.asarray(vals, dtype=float).ravel()
 
 
-def _from_pilot(options: PlanOptions, pilot: DataOptions) -> tuple:
+def _from_pilot(options: PlanOptions, pilot: DataOptions, progress=None) -> tuple:
     """(options with the pilot's variances and feature count, source text, digests)."""
     from paths.threshold.sweep import estimate_variances
 
@@ -51,7 +52,8 @@ def _from_pilot(options: PlanOptions, pilot: DataOptions) -> tuple:
     if any(v is not None for v in (options.snr, options.signal_variance,
                                    options.noise_variance)):
         raise InputError("give either pilot or snr / the variances, not both")
-    prepared = prepare(pilot)
+    with stage(progress, READ):
+        prepared = prepare(pilot)
     if prepared.train.y.ndim != 1:
         raise InputError("the plan takes one target; name a single target column")
     est = estimate_variances(prepared.train.X, prepared.train.y)
@@ -63,26 +65,30 @@ def _from_pilot(options: PlanOptions, pilot: DataOptions) -> tuple:
 
 
 def run_plan(options: PlanOptions = PlanOptions(), output: OutputOptions = OutputOptions(), *,
-             pilot: DataOptions | None = None) -> PlanRun:
-    """Predict test MSE against n and write plan.csv and plan.json."""
+             pilot: DataOptions | None = None, progress=None) -> PlanRun:
+    """Predict test MSE against n and write plan.csv and plan.json;
+    ``progress(stage, done, total)`` hears the stages (:mod:`paths.workflows.stages`)."""
     from paths.data.output import write_csv, write_json
     from paths.present.summary import versions
     from paths.threshold.plan import plan, plan_summary, plan_table
 
     source, digests = None, {}
     if pilot is not None:
-        options, source, digests = _from_pilot(options, pilot)
+        options, source, digests = _from_pilot(options, pilot, progress)
     if options.n_features is None:
         raise InputError("give the number of features (n_features) or a pilot data file")
     spectrum = read_spectrum(options.spectrum) if options.spectrum is not None else None
     inputs = [*digests, *([] if options.spectrum is None else [options.spectrum])]
     with output.folder(inputs) as folder:
-        res = plan(options.n_features, snr=options.snr, noise_variance=options.noise_variance,
-                   signal_variance=options.signal_variance, spectrum=spectrum,
-                   tolerance=options.tolerance, source=source)
-        summary = plan_summary(res, input_sha256=digests, versions=versions(),
-                               command_line=command_text(output))
-        files = [write_csv(folder.stage / "plan.csv", *plan_table(res)),
-                 write_json(folder.stage / "plan.json", summary)]
+        with stage(progress, PLAN):
+            res = plan(options.n_features, snr=options.snr,
+                       noise_variance=options.noise_variance,
+                       signal_variance=options.signal_variance, spectrum=spectrum,
+                       tolerance=options.tolerance, source=source)
+        with stage(progress, TABLES):
+            summary = plan_summary(res, input_sha256=digests, versions=versions(),
+                                   command_line=command_text(output))
+            files = [write_csv(folder.stage / "plan.csv", *plan_table(res)),
+                     write_json(folder.stage / "plan.json", summary)]
     return PlanRun(result=res, summary=summary, out_dir=folder.target,
                    files=folder.final_paths(files))

@@ -13,8 +13,10 @@ from pathlib import Path
 
 import numpy as np
 
+from paths.data.stdin import source_name
 from paths.data.validation import InputError, as_lambdas
 from paths.present.fitfile import SavedFit, load_fit
+from paths.workflows.stages import INTERVALS, PREDICT, READ, TABLES, stage
 
 __all__ = ["PredictRun", "predict_file", "prediction_columns"]
 
@@ -123,7 +125,8 @@ def _intervals(saved: SavedFit, X, lams, level):
 
 
 def predict_file(fit, data, *, out, lam=None, rule=None, intervals: float | None = None,
-                 id_column: str | None = None, sep=None, force: bool = False) -> PredictRun:
+                 id_column: str | None = None, sep=None, force: bool = False,
+                 progress=None) -> PredictRun:
     """Predict the rows of the table ``data`` with the saved fit ``fit``; write ``out`` (CSV).
 
     Parameters
@@ -144,6 +147,8 @@ def predict_file(fit, data, *, out, lam=None, rule=None, intervals: float | None
     id_column : str, optional
         A column carried through to the output (default: the fit's identifier
         column if the data have it, else the 1-based row number).
+    progress : callable, optional
+        ``progress(stage, done, total)`` (:mod:`paths.workflows.stages`).
     """
     from paths.data.output import write_csv
     from paths.data.tables import read_table
@@ -152,10 +157,11 @@ def predict_file(fit, data, *, out, lam=None, rule=None, intervals: float | None
     _check_out(out, (fit, data), force)
     if intervals is not None and not 0.0 < float(intervals) < 1.0:
         raise InputError(f"--intervals is a level in (0, 1), e.g. 0.9; got {intervals}")
-    saved = load_fit(fit)
-    lams, choice = _choose(saved, lam, rule)
-    frame = read_table(data, sep=sep)
-    rows = saved.prepare_rows(frame, source=str(data))
+    with stage(progress, READ):
+        saved = load_fit(fit)
+        lams, choice = _choose(saved, lam, rule)
+        frame = read_table(data, sep=sep)
+        rows = saved.prepare_rows(frame, source=source_name(data))
     used = set(rows.source_columns) | {id_column, saved.preparation.get("id_column")}
     extra = [str(c) for c in frame.columns if str(c) not in used]
     notes = list(rows.notes)
@@ -165,23 +171,25 @@ def predict_file(fit, data, *, out, lam=None, rule=None, intervals: float | None
                      f"{', '.join(extra[:_SHOW])}{more}")
     id_name, ids = _ids(frame, rows.rows, id_column, saved)
     n = rows.X.shape[0]
-    pred = np.column_stack([saved.predict(rows.X, float(v)).reshape(n, -1)[:, j]
-                            for j, v in enumerate(lams)])  # (n, t): each target at its penalty
-    lo = hi = None
-    record = None
+    with stage(progress, PREDICT):  # (n, t): each target at its penalty
+        pred = np.column_stack([saved.predict(rows.X, float(v)).reshape(n, -1)[:, j]
+                                for j, v in enumerate(lams)])
+    lo = hi = record = None
     if intervals is not None:
-        lo, hi, method = _intervals(saved, rows.X, lams, float(intervals))
+        with stage(progress, INTERVALS):
+            lo, hi, method = _intervals(saved, rows.X, lams, float(intervals))
         record = {"level": float(intervals), "method": method}
-    table = []
-    multi = len(saved.target_names) > 1
-    for j, name in enumerate(saved.target_names):
-        for i in range(pred.shape[0]):
-            row = [ids[i].item() if hasattr(ids[i], "item") else ids[i]]
-            row += [name] if multi else []
-            row.append(float(pred[i, j]))
-            if lo is not None:
-                row += [float(lo[i, j]), float(hi[i, j])]
-            table.append(row)
-    write_csv(out, prediction_columns(saved, id_name, lo is not None), table)
+    with stage(progress, TABLES):
+        table = []
+        multi = len(saved.target_names) > 1
+        for j, name in enumerate(saved.target_names):
+            for i in range(pred.shape[0]):
+                row = [ids[i].item() if hasattr(ids[i], "item") else ids[i]]
+                row += [name] if multi else []
+                row.append(float(pred[i, j]))
+                if lo is not None:
+                    row += [float(lo[i, j]), float(hi[i, j])]
+                table.append(row)
+        write_csv(out, prediction_columns(saved, id_name, lo is not None), table)
     return PredictRun(out=out, n_rows=int(pred.shape[0]), lam=lams, choice=choice, notes=notes,
                       intervals=record)

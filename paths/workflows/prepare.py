@@ -87,6 +87,7 @@ def _resolve(path: Path, base_dir) -> Path:
 
 def _frame(options: DataOptions, base_dir):
     """The raw table: (frame, source description, digests, generator record)."""
+    from paths.data.stdin import source_name
     from paths.data.tables import read_table, sha256_of
 
     if options.generator is not None:
@@ -102,7 +103,8 @@ def _frame(options: DataOptions, base_dir):
     if options.file is None:
         raise InputError("no data: give a data file (or a generator in a case file)")
     path = _resolve(options.file, base_dir)
-    return read_table(path, sep=options.sep), str(path), {str(path): sha256_of(path)}, None
+    name = source_name(path)  # "standard input" for '-'
+    return read_table(path, sep=options.sep), name, {name: sha256_of(path)}, None
 
 
 def _group_labels(frame, column: str, source: str) -> np.ndarray:

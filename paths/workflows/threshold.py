@@ -19,6 +19,7 @@ from paths.workflows.options import (DEFAULT_THRESHOLD_HOLDOUT, DataOptions, Dra
                                      FigureOptions, OutputOptions, ThresholdOptions,
                                      TruthOptions)
 from paths.workflows.prepare import prepare, train_test
+from paths.workflows.stages import READ, TABLES, stage
 
 __all__ = ["ThresholdRun", "run_threshold", "run_simulate", "write_threshold", "simulate_truth"]
 
@@ -52,7 +53,8 @@ def run_threshold(data: DataOptions, threshold: ThresholdOptions = ThresholdOpti
     from paths.threshold.sweep import threshold_sweep
 
     check_figures(figures)
-    prepared = prepare(data, base_dir=base_dir)
+    with stage(progress, READ):
+        prepared = prepare(data, base_dir=base_dir)
     if prepared.train.y.ndim != 1:
         raise InputError("the threshold sweep takes one target; name a single target column")
     holdout = data.holdout
@@ -68,7 +70,7 @@ def run_threshold(data: DataOptions, threshold: ThresholdOptions = ThresholdOpti
         result = threshold_sweep(tt.X, tt.y, tt.X_test, tt.y_test, **threshold.sweep_keywords(),
                                  progress=progress)
         summary, files = write_threshold(result, folder.stage, figures, output,
-                                         {**record, **(extra or {})})
+                                         {**record, **(extra or {})}, progress=progress)
     return ThresholdRun(result=result, summary=summary, out_dir=folder.target,
                         files=folder.final_paths(files))
 
@@ -116,7 +118,7 @@ def run_simulate(truth: TruthOptions = TruthOptions(), draws: DrawOptions = Draw
                        progress=progress)
         summary, files = write_threshold(sim, folder.stage, figures, output,
                                          {**_truth_record(truth, the_truth, sim),
-                                          **(extra or {})})
+                                          **(extra or {})}, progress=progress)
     return ThresholdRun(result=sim, summary=summary, out_dir=folder.target,
                         files=folder.final_paths(files))
 
@@ -137,10 +139,11 @@ def _truth_record(truth: TruthOptions, the_truth, sim) -> dict:
 
 
 def write_threshold(result, out: Path, figures: FigureOptions, output: OutputOptions,
-                    record: dict) -> tuple[dict, list]:
+                    record: dict, *, progress=None) -> tuple[dict, list]:
     """threshold.csv, threshold.json (and bias_variance.csv), the figure and the report.
 
-    Returns the ``threshold.json`` record and the files written.
+    Returns the ``threshold.json`` record and the files written; ``progress(stage, done,
+    total)`` hears the writing stages.
     """
     from paths.data.output import write_csv, write_json
     from paths.present.report import write_threshold_outputs
@@ -150,13 +153,14 @@ def write_threshold(result, out: Path, figures: FigureOptions, output: OutputOpt
 
     formats, width = check_figures(figures)
     sweep = getattr(result, "sweep", result)
-    summary = threshold_summary(sweep, **record, command_line=command_text(output),
-                                versions=versions())
-    files = [write_csv(out / "threshold.csv", *threshold_table(sweep)),
-             write_json(out / "threshold.json", summary)]
-    if sweep is not result:
-        files.append(write_csv(out / "bias_variance.csv", *bias_variance_table(result)))
+    with stage(progress, TABLES):
+        summary = threshold_summary(sweep, **record, command_line=command_text(output),
+                                    versions=versions())
+        files = [write_csv(out / "threshold.csv", *threshold_table(sweep)),
+                 write_json(out / "threshold.json", summary)]
+        if sweep is not result:
+            files.append(write_csv(out / "bias_variance.csv", *bias_variance_table(result)))
     if formats or figures.report:
         files += write_threshold_outputs(result, summary, out, formats=formats, width=width,
-                                         report=figures.report)
+                                         report=figures.report, progress=progress)
     return summary, files
