@@ -433,8 +433,11 @@ def write_csv(path: str | os.PathLike, header, rows) -> Path:
     w = csv.writer(buf, lineterminator="\n")
     w.writerow([safe_cell(str(h)) for h in header])
     for row in rows:
-        w.writerow(["" if v is None else (repr(float(v)) if isinstance(v, float)
-                                          else safe_cell(v)) for v in row])
+        try:  # a row of floats only (the wide tables): joined directly, the same text
+            buf.write(",".join(map(float.__repr__, row)) + "\n")
+        except TypeError:
+            w.writerow(["" if v is None else (repr(float(v)) if isinstance(v, float)
+                                              else safe_cell(v)) for v in row])
     return write_text(path, buf.getvalue())
 
 
