@@ -47,7 +47,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from paths.data.validation import InputError, all_finite, check_memory
+from paths.data.validation import InputError, all_finite, check_memory, column_range
 
 __all__ = [
     "Dataset",
@@ -1343,7 +1343,8 @@ def select(df, target, *, features=None, exclude=None, id_column=None, encode=No
             raise _fail(where, f"target column {t!r} is constant (every value {Y[0, j]:g}); "
                                "there is nothing to fit: choose another target")
 
-    constant = [names[j] for j in np.flatnonzero(X.max(axis=0) == X.min(axis=0))]
+    x_lo, x_hi = column_range(X)  # finite: infinite values were refused above
+    constant = [names[j] for j in np.flatnonzero(x_hi == x_lo)]
     if constant:
         notes.append(f"constant column(s) {_names(constant)}: left out of the fit "
                      "(coefficient 0)")
