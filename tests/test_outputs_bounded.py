@@ -46,3 +46,32 @@ def test_wide_run_outputs_are_bounded(tmp_path, monkeypatch):
     table = pd.read_parquet(out / "coefficients.parquet")
     assert_allclose(table["lambda"].to_numpy(), run.result.lambdas, rtol=0)
     assert_allclose(table[run.result.feature_names].to_numpy(), run.result.coef, rtol=0)
+
+
+def test_explorer_covers_every_target_within_its_byte_budget(tmp_path):
+    """Two targets on wide data: the explorer's inline data carry both (one selector option
+    each) and report.html stays under a few MB; under a tiny budget the first target stays and
+    the page names the one left out (the size bound is common practice, no source)."""
+    import json
+    import re
+
+    from paths.present.interactive import explorer_section, explorer_targets
+
+    train = _wide()
+    rng = np.random.default_rng(5)
+    frame = pd.DataFrame(train.X, columns=train.feature_names)
+    frame["y"] = train.y
+    frame["z"] = train.X[:, 100:103].sum(axis=1) + rng.standard_normal(train.X.shape[0])
+    data = select(frame, ["y", "z"], source="synthetic wide, two targets")
+    run = explore_prepared(Prepared(train=data), FitOptions(n_lambdas=40),
+                           FigureOptions(formats=("svg",)), OutputOptions(out_dir=tmp_path / "o"))
+    html = (tmp_path / "o" / "report.html").read_text()
+    assert len(html.encode()) < 3_000_000
+    blob = re.search(r'id="paths-explorer-data">(.*?)</script>', html, re.S).group(1)
+    record = json.loads(blob)
+    assert [t["name"] for t in record["targets"]] == ["y", "z"] and record["left_out"] == []
+    assert len(record["shared"]["d"]) == run.result.factorization.d.size  # stored once
+    small = explorer_targets(run.result, run.summary, max_bytes=1)
+    assert [t["name"] for t in small["targets"]] == ["y"] and small["left_out"] == ["z"]
+    page = explorer_section(run.result, run.summary, max_bytes=1)
+    assert "left out: z" in page and '<option value="1">' not in page

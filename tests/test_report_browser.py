@@ -165,3 +165,88 @@ def test_fragment_lambda_zero_is_the_min_norm_fit(explored, tmp_path):
     assert_allclose(_value(dom, "ix-df"), mn["df"], rtol=1e-12)
     assert_allclose(_value(dom, "ix-fraction"), 1.0, rtol=1e-9)
     assert _value(dom, "ix-test") == mn["test_mse"]
+
+
+# ------------------------------------------------------------------ the explorer, several targets
+@pytest.fixture(scope="module")
+def explored_two(tmp_path_factory):
+    """A two-target run (invented, seeded): the explorer covers both targets."""
+    import pandas as pd
+
+    rng = np.random.default_rng(11)
+    X = rng.standard_normal((36, 150))
+    frame = pd.DataFrame(X, columns=[f"x{j}" for j in range(150)])
+    frame["first"] = X[:, :5].sum(axis=1) + rng.standard_normal(36)
+    frame["second"] = 10 * X[:, 20:22].sum(axis=1) + 0.1 * rng.standard_normal(36)
+    out = tmp_path_factory.mktemp("browser-two") / "run"
+    data = select(frame, ["first", "second"], source="synthetic two targets")
+    run = explore_prepared(Prepared(train=data), FitOptions(n_lambdas=30),
+                           FigureOptions(formats=()), OutputOptions(out_dir=out), holdout=0.25)
+    return run, out / "report.html"
+
+
+def test_fragment_selects_the_target_and_the_page_recomputes_its_model(explored_two, tmp_path):
+    """``#target=second&lambda=V``: the second target's training MSE, GCV and coefficients
+    (RidgePath.criteria_at / coef_at, column 1; both checked against scikit-learn's Ridge in
+    tests/test_path.py); df is the design's (HTF 2009 eq. 3.50)."""
+    run, report = explored_two
+    lam = 0.37
+    dom = _dump(tmp_path, report.as_uri() + f"#target=second&lambda={lam}")
+    assert 'data-explorer-target="second"' in dom
+    d = np.asarray(run.summary["singular_values"])
+    crit = run.result.criteria_at(lam)
+    assert_allclose(_value(dom, "ix-df"), 1 + np.sum(d**2 / (d**2 + lam)), rtol=1e-9)  # as above
+    assert_allclose(_value(dom, "ix-train"), float(crit.train_mse[0, 1]), rtol=1e-9)
+    assert_allclose(_value(dom, "ix-gcv"), float(crit.gcv[0, 1]), rtol=1e-9)
+    coefs = re.findall(r'<tr><td>([^<]+)</td><td class="num" data-value="([^"]+)"', dom)
+    assert len(coefs) == 12
+    names = list(run.result.feature_names)
+    beta = run.result.coef_at(lam)[:, 1]
+    for name, v in coefs:
+        assert_allclose(float(v), beta[names.index(name)], rtol=1e-9,
+                        atol=1e-12 * np.abs(beta).max())
+    assert {"x20", "x21"} <= {name for name, _ in coefs}  # the second target's own features
+
+
+def test_fragment_target_and_rule_shows_that_targets_choice(explored_two, tmp_path):
+    run, report = explored_two
+    dom = _dump(tmp_path, report.as_uri() + "#target=second&rule=loo")
+    sel = run.summary["by_target"]["second"]["selected"]["loo"]
+    assert _value(dom, "ix-lambda") == sel["lambda"]
+    assert_allclose(_value(dom, "ix-df"), sel["df"], rtol=1e-9)
+    assert "target second, LOO choice" in dom
+
+
+def test_without_a_target_the_explorer_opens_on_the_first(explored_two, tmp_path):
+    run, report = explored_two
+    dom = _dump(tmp_path, report.as_uri() + "#rule=gcv")
+    assert 'data-explorer-target="first"' in dom
+    assert _value(dom, "ix-lambda") == run.summary["by_target"]["first"]["selected"]["gcv"]["lambda"]
+    assert re.search(r'<select id="ix-target">.*first.*second.*</select>', dom, re.S)
+
+
+SWITCH = """<script>
+(function () {
+  var pick = document.getElementById('ix-target');
+  pick.value = '1';
+  pick.dispatchEvent(new Event('change'));
+  document.title = 'SWITCHED ' + document.body.getAttribute('data-explorer-target') + ' ' +
+    document.getElementById('ix-lambda').getAttribute('data-value') + ' ' +
+    document.querySelectorAll('#ix-coef tbody tr').length;
+})();
+</script>"""
+
+
+def test_choosing_a_target_in_the_selector_shows_its_reported_choice(explored_two, tmp_path):
+    """The selector (a change event, as a reader's click sends) switches to the target's own
+    reported penalty, rules and largest coefficients."""
+    run, report = explored_two
+    probe = tmp_path / "switch.html"
+    probe.write_text(report.read_text().replace("</body>", SWITCH + "</body>"))
+    res = _chromium(tmp_path, "--dump-dom", probe.as_uri())
+    m = re.search(r"<title>SWITCHED (\S+) (\S+) (\d+)</title>", res.stdout)
+    assert m, (res.returncode, res.stderr[-2000:])
+    rule = run.summary["reported"]
+    assert m.group(1) == "second"
+    assert float(m.group(2)) == run.summary["by_target"]["second"]["selected"][rule]["lambda"]
+    assert int(m.group(3)) == 12

@@ -86,6 +86,7 @@ __all__ = [
     "augment_rows", "LEVERAGE_REFINE", "loo_sums", "loo_mse",
     "loo_residuals", "project", "test_sums", "coefficients", "min_norm_coefficients",
     "intercepts", "coef_norm", "append_zero", "sample_weights", "path_coef_norm", "fold_factor", "kfold_fold_mse", "tsqr",
+    "HeldOutFold", "heldout_mse",
 ]
 
 _EPS = np.finfo(np.float64).eps
@@ -722,6 +723,33 @@ def test_sums(state: FactorState, lam, proj: np.ndarray, yc: np.ndarray):
     res = yc[:, None, :] - project(proj, gains(state.d, full), state.uty)
     sq = np.einsum("ikt,ikt->kt", res, res)
     return (sq[:-1] if added else sq), sq[-1]
+
+
+@dataclass(frozen=True)
+class HeldOutFold:
+    """A fit without one fold, and that fold's rows: all its held-out error needs.
+
+    Attributes
+    ----------
+    state : FactorState
+        The factor state of the fit on the other folds (``d``, ``uty``).
+    proj : ndarray, shape (b, r)
+        The fold's rows, prepared as that fit's training rows, times its :math:`V`.
+    yc : ndarray, shape (b, t)
+        The fold's responses minus that fit's training mean.
+    """
+
+    state: FactorState
+    proj: np.ndarray
+    yc: np.ndarray
+
+
+def heldout_mse(fold: HeldOutFold, lam) -> np.ndarray:
+    """Held-out mean squared error (k, t) of a refit fold at penalties ``lam``:
+    :math:`\\frac1b \\|y_f - P_f \\operatorname{diag}(g_\\lambda) c\\|^2`."""
+    pred = project(fold.proj, gains(fold.state.d, lam), fold.state.uty)
+    res = fold.yc[:, None, :] - pred
+    return np.einsum("ikt,ikt->kt", res, res) / fold.yc.shape[0]
 
 
 # ------------------------------------------------------------------ coefficients

@@ -22,7 +22,7 @@ import numpy as np
 from paths.data.validation import InputError
 
 __all__ = ["RowSource", "ArrayRows", "ParquetRows", "CSVRows", "open_rows", "count_rows",
-           "HoldoutRows", "GroupValues", "CSVColumns", "frame_block", "RowSubsetColumns",
+           "HoldoutRows", "GroupValues", "CSVColumns", "is_text_path", "frame_block", "RowSubsetColumns",
            "ColumnSource", "ArrayColumns", "ParquetColumns", "open_columns",
            "DEFAULT_CHUNK_ROWS", "DEFAULT_BLOCK_COLUMNS"]
 
@@ -415,6 +415,7 @@ class ArrayColumns(ColumnSource):
             raise InputError(f"X must be a non-empty 2-D array (n, p); got shape {X.shape}")
         if int(block_columns) != block_columns or block_columns < 1:
             raise InputError(f"block_columns must be a positive integer; got {block_columns!r}")
+        self.named = feature_names is not None  # else messages say "column j", as in memory
         names = list(feature_names) if feature_names is not None else [
             f"x{j}" for j in range(X.shape[1])]
         super().__init__(feature_names=names, n_rows=int(X.shape[0]), source=source,
@@ -514,8 +515,8 @@ def open_columns(data, *, features=None, exclude=(), block_columns: int = DEFAUL
             from paths.data.tables import open_npy
 
             return ArrayColumns(open_npy(path), block_columns=block_columns, source=str(path))
-        raise InputError(f"{path}: wide data must be Parquet or .npy (columns are read in "
-                         "blocks); convert the file, e.g. with pandas.DataFrame.to_parquet")
+        raise InputError(f"{path}: a CSV/TSV file is read in column blocks with its target "
+                         "column named (target=); or pass Parquet or .npy")
     cols = getattr(data, "columns", None)
     if cols is not None and not hasattr(data, "compute"):
         feature_names = [str(c) for c in cols]
@@ -722,44 +723,60 @@ class _Aligned:
         return out
 
 
-class CSVColumns(ArrayColumns):
-    """Column blocks of a wide CSV/TSV file, read once by rows with :class:`CSVRows`.
+def is_text_path(path) -> bool:
+    """True for a path read as delimited text: not Parquet (file or folder), not ``.npy``."""
+    p = Path(path)
+    return not p.is_dir() and p.suffix.lower() not in (*_PARQUET_SUFFIXES, ".npy")
 
-    The rows are parsed in chunks under the streaming reader's rules and the
-    feature columns written to a temporary memory-mapped float64 file (n × p on
-    disk, deleted with this object); column blocks are then read from it.  The
-    target columns are kept in memory (``targets``, shape (n, t)).
+
+class CSVColumns(ArrayColumns):
+    """Column blocks of a wide CSV/TSV file, read once by rows under the in-memory reader's rules.
+
+    The records are parsed in chunks of about 32 MiB by
+    :func:`paths.data.tables.read_text_chunks` (the delimiter, header, ragged
+    records, number syntax and messages of :func:`paths.data.tables.read_table`),
+    every value checked by :func:`frame_block`, and the feature columns written
+    to a temporary memory-mapped float64 file (n × p on disk, deleted with this
+    object); column blocks are then read from it, so memory stays at one chunk
+    plus one block.  The target columns are kept in memory (``targets``, shape
+    (n, t)), and so are the ``side`` columns as read (``side[name]``, e.g. the
+    group labels), one value per row.
     """
 
-    def __init__(self, path, target, *, features=None, sep=None,
+    def __init__(self, path, target, *, features=None, sep=None, side=(),
                  block_columns: int = DEFAULT_BLOCK_COLUMNS, progress=None):
         import tempfile
         import weakref
 
+        from paths.data.tables import read_text_chunks
+
         rows = CSVRows(path, target, features=features, sep=sep)
-        rows.chunk_rows = max(1, (32 << 20) // (8 * len(rows.columns)))  # ~32 MiB a chunk
+        chunk = max(1, (32 << 20) // (8 * len(rows.columns)))  # ~32 MiB a chunk
         p = rows.n_features
         tmp = tempfile.TemporaryDirectory(prefix="paths-wide-")
+        weakref.finalize(self, tmp.cleanup)
         raw = Path(tmp.name) / "design.f64"
-        targets, n = [], 0
+        targets, extra, n = [], {c: [] for c in side}, 0
         with open(raw, "wb") as fh:
-            for start, block in rows:
+            for frame in read_text_chunks(rows.layout, chunk):
+                block = frame_block(frame, rows.columns, n, rows.source)
                 np.ascontiguousarray(block[:, :p]).tofile(fh)
                 targets.append(block[:, p:].copy())
-                n = start + block.shape[0]
+                for c in side:
+                    extra[c].append(frame[c].to_numpy())
+                n += block.shape[0]
                 if progress:
                     progress("pass 0: CSV rows to a memory-mapped column store", n, None)
         if n == 0:
-            tmp.cleanup()
             raise InputError(f"{path} has a header row but no data rows; add data rows")
         X = np.memmap(raw, dtype=np.float64, mode="r", shape=(n, p))
         super().__init__(X, block_columns=block_columns, feature_names=rows.feature_names,
                          source=str(path))
         self.targets = np.vstack(targets)
         self.target_names = rows.target_names
+        self.side = {c: np.concatenate(v) for c, v in extra.items()}
+        self.notes = rows.notes
         self._tmp = tmp
-        weakref.finalize(self, tmp.cleanup)
-
 
 
 class RowSubsetColumns(ColumnSource):

@@ -37,16 +37,18 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.linalg as sla
 
-from paths.data.validation import InputError, as_lambdas, as_response
-from paths.data.chunks import DEFAULT_BLOCK_COLUMNS, ColumnSource, ParquetColumns, open_columns
+from paths.data.validation import (InputError, as_lambdas, as_response, check_feature_range,
+                                   check_response_range)
+from paths.data.chunks import (DEFAULT_BLOCK_COLUMNS, ColumnSource, CSVColumns, ParquetColumns,
+                               is_text_path, open_columns)
 from paths.core import algebra
-from paths.core.design import Design, column_norms, reduce_rows
+from paths.core.design import Design, prepare, reduce_rows
 from paths.core.factor import Factorization
 from paths.core.grid import default_grid
 from paths.core.path import PENALTY_CONVENTION, MinNormFit, RidgePath
 from paths.engines.stream import PassInfo, StreamPath
 
-__all__ = ["WidePath", "wide_path"]
+__all__ = ["WidePath", "wide_path", "ColumnBlock", "open_wide", "fold_refits"]
 
 _EPS = np.finfo(np.float64).eps
 
@@ -104,46 +106,76 @@ class WidePath(StreamPath):
         return self.intercept[None] + X @ self.coef.T
 
 
-def _block_design(block, n, fit_intercept, standardize):
-    """Column-local preprocessing of one block, as :func:`paths.design.prepare` does it."""
-    absmax = np.max(np.abs(block), axis=0)
-    if fit_intercept:
-        mean = block.mean(axis=0)
-        rn = np.sqrt(n)
-        z = reduce_rows(block, mean)  # as paths.core.design.prepare
-        sd = column_norms(z) / rn  # overflow-safe, as paths.core.design.prepare
-        active = (sd > n * _EPS * absmax) & (block.max(axis=0) > block.min(axis=0))
-    else:
-        mean = np.zeros(block.shape[1])
-        z = block.copy()
-        sd = block.std(axis=0)
-        active = np.ones(block.shape[1], dtype=bool)
-    scale = np.ones(block.shape[1])
-    if standardize:
-        usable = sd > n * _EPS * absmax
-        scale[usable] = sd[usable]
-    z = z[:, active] / scale[active]
-    return z, mean, scale, active
+@dataclass(frozen=True)
+class ColumnBlock:
+    """One block of columns ``start .. stop - 1``, prepared as
+    :func:`paths.core.design.prepare` prepares a whole design.
+
+    Attributes
+    ----------
+    start, stop : int
+        The block's columns in the source.
+    z : ndarray, shape (m, q_b)
+        The block's active columns of the training rows, centered (reduced
+        coordinates when an intercept is fitted) and scaled.
+    design : paths.core.design.Design
+        The block's column means, scales and active mask (``zy`` is empty).
+    z_test : ndarray, shape (n_test, q_b), or None
+        The test rows' active columns, centered and scaled the same way.
+    """
+
+    start: int
+    stop: int
+    z: np.ndarray
+    design: Design
+    z_test: np.ndarray | None = None
+
+    @property
+    def active(self) -> np.ndarray:
+        return self.design.active
+
+    @property
+    def scale(self) -> np.ndarray:
+        return self.design.x_scale
+
+    @property
+    def mean(self) -> np.ndarray:
+        return self.design.x_mean
 
 
 def _test_block(test, s, e, names):
     if test is None:
         return None
-    if isinstance(test, ParquetColumns):
-        return test.read_columns(names[s:e])
-    blk = test[:, s:e]
-    if hasattr(blk, "compute"):
-        blk = blk.compute()
-    return np.asarray(blk, dtype=np.float64)
+    if isinstance(test, ColumnSource):
+        blk = test.read_columns(names[s:e])
+    else:
+        blk = test[:, s:e]
+        if hasattr(blk, "compute"):
+            blk = blk.compute()
+        blk = np.asarray(blk, dtype=np.float64)
+    bad = ~np.isfinite(blk)
+    if bad.any():
+        j = int(np.flatnonzero(bad.any(axis=0))[0])
+        raise InputError(f"X_test column {names[s + j]!r} has {int(bad[:, j].sum())} missing "
+                         "or infinite value(s); remove or impute them")
+    return blk
 
 
 class _Sweep:
-    """One pass over the column blocks with the per-column preprocessing applied."""
+    """One pass over the column blocks, each prepared by :func:`paths.core.design.prepare`
+    after the in-memory range checks (:func:`paths.data.validation.check_feature_range`).
 
-    def __init__(self, src: ColumnSource, fit_intercept, standardize, test=None):
+    ``test_rows`` (boolean, over the source's rows) splits every block into its
+    training rows and its held-out test rows; else ``test`` is read alongside.
+    """
+
+    def __init__(self, src: ColumnSource, fit_intercept, standardize, test=None, *,
+                 test_rows=None, y_size: float = 1.0):
         self.src, self.fit_intercept, self.standardize, self.test = src, fit_intercept, standardize, test
+        self.test_rows, self.y_size = test_rows, y_size
 
-    def __iter__(self):
+    def blocks(self):
+        """``(start, training rows, test rows or None)`` of every block, checked."""
         n = self.src.n_rows
         names = self.src.feature_names
         for s, block in self.src:
@@ -151,12 +183,23 @@ class _Sweep:
                 raise InputError(f"{self.src.source}: column block at {s} has {block.shape[0]} "
                                  f"rows, expected {n}; all columns must have the same length")
             e = s + block.shape[1]
-            z, mean, scale, active = _block_design(block, n, self.fit_intercept, self.standardize)
-            tb = _test_block(self.test, s, e, names)
-            zt = None
-            if tb is not None:
-                zt = (tb[:, active] - mean[active]) / scale[active]
-            yield s, e, z, mean, scale, active, zt
+            if self.test_rows is not None:
+                yield s, block[~self.test_rows], block[self.test_rows]
+            else:
+                yield s, block, _test_block(self.test, s, e, names)
+
+    def __iter__(self):
+        names = self.src.feature_names
+        for s, block, tb in self.blocks():
+            e = s + block.shape[1]
+            labels = names[s:e] if getattr(self.src, "named", True) else [
+                f"column {j}" for j in range(s, e)]
+            check_feature_range(block, standardize=self.standardize, y_size=self.y_size,
+                                names=labels)
+            design, z = prepare(block, np.empty((block.shape[0], 0)),
+                                fit_intercept=self.fit_intercept, standardize=self.standardize)
+            zt = None if tb is None else design.transform(tb)
+            yield ColumnBlock(start=s, stop=e, z=z, design=design, z_test=zt)
 
 
 def _householder(Y, fit_intercept):
@@ -167,6 +210,61 @@ def _householder(Y, fit_intercept):
     return reduce_rows(Y, mean), mean
 
 
+def _gram_factor(K: np.ndarray, q: int, rtol):
+    """``(u, d, d_all, tol)`` of a Gram matrix :math:`K = ZZ^T` (m × m, overwritten) of a
+    reduced design with ``q`` active columns: its eigenvectors and the square roots of
+    its eigenvalues, kept above the rank tolerance.
+
+    The eigenvalues of the Gram matrix carry absolute errors of order
+    :math:`\\max(m, q)\\,\\varepsilon\\,d_1^2`, so singular values below
+    :math:`\\sqrt{\\max(m, q)\\varepsilon}\\,d_1` cannot be resolved and are not kept.
+    """
+    m = K.shape[0]
+    wv, U = sla.eigh(K, check_finite=False, overwrite_a=True)
+    wv, U = np.maximum(wv[::-1], 0.0), U[:, ::-1]
+    d_all = np.sqrt(wv)
+    dmax = float(d_all[0]) if d_all.size else 0.0
+    tol = max(rtol if rtol is not None else max(m, q) * _EPS, np.sqrt(max(m, q) * _EPS)) * dmax
+    r = int(np.count_nonzero(d_all > tol))
+    return np.ascontiguousarray(U[:, :r]), d_all[:r], d_all, float(tol)
+
+
+def _check_spectrum(d: np.ndarray) -> None:
+    """The in-memory engine's refusal of singular values whose squares leave float64."""
+    with np.errstate(over="ignore", under="ignore"):
+        out = (not np.isfinite(4.0 * np.sum(np.square(d)))
+               or np.square(d[-1]) < 1e6 * np.finfo(np.float64).tiny)
+    if out:
+        raise InputError(
+            f"the design's singular values span {d[-1]:.1e} to {d[0]:.1e}, whose squares "
+            "(the scale of lambda) leave the float64 range; standardize the columns "
+            "(standardize=True) or rescale X")
+
+
+def open_wide(data, y=None, *, target=None, features=None, sep=None,
+              block_columns: int = DEFAULT_BLOCK_COLUMNS, progress=None):
+    """``(source, y)``: the column source of ``data`` and the response.
+
+    A CSV/TSV path is parsed once, in row chunks under the in-memory reader's
+    rules (:class:`paths.data.chunks.CSVColumns`), into a temporary column
+    store; a Parquet path is read a block of columns at a time, with ``target``
+    read as its own columns.
+    """
+    if target is None or y is not None:
+        return open_columns(data, features=features, block_columns=block_columns), y
+    if not isinstance(data, (str, bytes)) and not hasattr(data, "__fspath__"):
+        raise InputError("target= names a column of a Parquet or CSV file; pass y= with arrays")
+    names = [target] if isinstance(target, str) else list(target)
+    if is_text_path(data):
+        src = CSVColumns(data, names, features=features, sep=sep, block_columns=block_columns,
+                         progress=progress)
+        return src, src.targets
+    probe = ParquetColumns(data, features=names)
+    src = open_columns(data, features=features, exclude=probe.feature_names,
+                       block_columns=block_columns)
+    return src, probe.read_columns(probe.feature_names)
+
+
 def wide_path(
     data,
     y=None,
@@ -174,6 +272,7 @@ def wide_path(
     *,
     target: str | None = None,
     features=None,
+    sep: str | None = None,
     block_columns: int = DEFAULT_BLOCK_COLUMNS,
     accurate: bool = False,
     rank: int | None = None,
@@ -184,6 +283,7 @@ def wide_path(
     standardize: bool = True,
     X_test=None,
     y_test=None,
+    test_rows=None,
     n_lambdas: int = 100,
     rtol: float | None = None,
     coefficients: bool = True,
@@ -194,12 +294,16 @@ def wide_path(
     Parameters
     ----------
     data : path, ColumnSource, array or dask array, shape (n, p)
-        Parquet file (columns read a block at a time), ``.npy`` file (memory
+        Parquet file (columns read a block at a time), CSV/TSV file (parsed once
+        in row chunks under the in-memory reader's rules into a temporary
+        memory-mapped column store; needs ``target``), ``.npy`` file (memory
         mapped), an array, or a dask array chunked by columns.
     y : array_like, shape (n,) or (n, t), optional
-        Response; or ``target`` names a column of a Parquet ``data``.
+        Response; or ``target`` names a column of a Parquet or CSV ``data``.
     lambdas : array_like, optional
         Penalties; default from the spectrum as in :func:`paths.path.fit_path`.
+    sep : str, optional
+        Delimiter of a CSV file (default: detected, as the in-memory reader does).
     block_columns : int
         Columns per block (memory ~ 2 × n × block_columns × 8 bytes).
     accurate : bool
@@ -212,6 +316,10 @@ def wide_path(
     X_test, y_test : optional
         Test rows: an array (n_test, p) or a Parquet file with the same columns
         (then ``y_test`` may be omitted and the ``target`` column is read).
+    test_rows : array_like of bool, shape (n,), optional
+        Rows of ``data`` (and ``y``) held out as the test set (a holdout split,
+        e.g. :func:`paths.data.folds.holdout_mask`): every column block is split
+        into its training and its test rows as it is read.
     coefficients : bool
         Make the extra pass that computes the k × p coefficients.
     progress : callable, optional
@@ -225,7 +333,8 @@ def wide_path(
     ------
     InputError
         ``rank`` outside [1, min(n - 1, p)], mismatched shapes, missing or
-        non-numeric values, a constant response.
+        non-numeric values, a response or a column out of the float64 range or
+        constant (the range checks of :func:`paths.core.path.fit_path`).
 
     References
     ----------
@@ -242,179 +351,59 @@ def wide_path(
     >>> res.rank, res.coef.shape
     (49, (100, 3000))
     """
-    if target is not None and y is None:
-        if not isinstance(data, (str, bytes)) and not hasattr(data, "__fspath__"):
-            raise InputError("target= names a column of a Parquet file; pass y= with arrays")
-        probe = ParquetColumns(data, features=[target] if isinstance(target, str) else list(target))
-        y = probe.read_columns(probe.feature_names)
-        exclude = probe.feature_names
-    else:
-        exclude = ()
-    src = open_columns(data, features=features, exclude=exclude, block_columns=block_columns)
-    n, p = src.n_rows, src.n_features
+    src, y = open_wide(data, y, target=target, features=features, sep=sep,
+                       block_columns=block_columns, progress=progress)
     if y is None:
-        raise InputError("pass the response: y= (array) or target= (a Parquet column)")
-    y_arr = as_response(y, n, "y")
+        raise InputError("pass the response: y= (array) or target= (a Parquet or CSV column)")
+    y_arr = as_response(y, src.n_rows, "y")
     multi = y_arr.ndim == 2 and y_arr.shape[1] > 1
-    Y = y_arr if y_arr.ndim == 2 else y_arr[:, None]
+    Y_all = _response_2d(y_arr)
+    test = Yt = None
+    if test_rows is not None:
+        if X_test is not None:
+            raise InputError("pass either X_test or test_rows (a holdout), not both")
+        test_rows = np.asarray(test_rows, dtype=bool)
+        if test_rows.shape != (src.n_rows,) or not test_rows.any() or test_rows.all():
+            raise InputError(f"test_rows must be a boolean mask of the {src.n_rows} rows with "
+                             f"rows on both sides; got shape {test_rows.shape}")
+        Y, Yt = Y_all[~test_rows], Y_all[test_rows]
+    else:
+        Y = Y_all
+        test, Yt = _open_test(X_test, y_test, src, target, sep, Y.shape[1])
+    n, p = Y.shape[0], src.n_features
     if fit_intercept and n < 2:
         raise InputError(f"X has {n} row; at least 2 samples are needed to fit an intercept")
-    spread = (Y.max(axis=0) > Y.min(axis=0)) if fit_intercept else np.any(Y != 0, axis=0)
-    if not spread.all():
-        raise InputError("y is constant; there is nothing to fit — check the target column")
+    check_response_range(Y, fit_intercept=fit_intercept,
+                         names=getattr(src, "target_names", None) if target is not None else None)
+    y_size = float(np.max(np.ptp(Y, axis=0) if fit_intercept else np.abs(Y).max(axis=0)))
     m = n - 1 if fit_intercept else n
-    if rank is not None:
-        if int(rank) != rank or not 1 <= rank <= min(m, p):
-            raise InputError(f"--rank must be an integer in [1, {min(m, p)}] (min(n - 1, p) for "
-                             f"this {n} x {p} design); got {rank}")
-        rank = int(rank)
-        if accurate:
-            raise InputError("pass either accurate=True (--accurate) or rank= (--rank), not both")
+    rank = _check_rank(rank, accurate, m, p, n)
     if n_lambdas < 1:
         raise InputError(f"n_lambdas must be at least 1; got {n_lambdas}")
     lam_user = None if lambdas is None else as_lambdas(lambdas)
-    test = Yt = None
-    if X_test is not None:
-        if isinstance(X_test, (str, bytes)) or hasattr(X_test, "__fspath__"):
-            test = ParquetColumns(X_test, features=src.feature_names)
-            if y_test is None and target is not None:
-                yt_src = ParquetColumns(X_test, features=[target] if isinstance(target, str)
-                                        else list(target))
-                y_test = yt_src.read_columns(yt_src.feature_names)
-        else:
-            test = X_test if hasattr(X_test, "compute") else np.asarray(X_test, dtype=np.float64)
-            if test.ndim != 2 or test.shape[1] != p:
-                raise InputError(f"X_test must have shape (n_test, {p}); got {test.shape}")
-        n_test = test.n_rows if isinstance(test, ParquetColumns) else test.shape[0]
-        if y_test is None:
-            raise InputError("pass y_test with X_test")
-        Yt = as_response(y_test, n_test, "y_test")
-        Yt = Yt if Yt.ndim == 2 else Yt[:, None]
-        if Yt.shape[1] != Y.shape[1]:
-            raise InputError(f"y_test has {Yt.shape[1]} target(s) but y has {Y.shape[1]}")
     zy, y_mean = _householder(Y, fit_intercept)
     t = Y.shape[1]
-
+    n_test = 0 if Yt is None else Yt.shape[0]
+    sweep = _Sweep(src, fit_intercept, standardize, test, test_rows=test_rows, y_size=y_size)
+    acc = _Accumulated(p, m, n_test if Yt is not None else None)
     passes, notes = [], []
-    x_mean, x_scale, active = np.zeros(p), np.ones(p), np.zeros(p, dtype=bool)
-    sweep = _Sweep(src, fit_intercept, standardize, test)
-
-    def run_pass(label, body):
-        t0 = time.perf_counter()
-        for s, e, z, mean, scale, act, zt in sweep:
-            body(s, e, z, mean, scale, act, zt)
-            if progress:
-                progress(label, e, p)
-        passes.append(PassInfo(label, p, time.perf_counter() - t0, n * p * 8))
-
-    total = {"fro": 0.0, "w": np.zeros(m), "C": None if test is None else
-             np.zeros((test.n_rows if isinstance(test, ParquetColumns) else test.shape[0], m))}
-
-    def common(s, e, z, mean, scale, act, zt):
-        x_mean[s:e], x_scale[s:e], active[s:e] = mean, scale, act
-        total["fro"] += float(np.einsum("ij,ij->", z, z))
-        total["w"] += z @ (mean[act] / scale[act])
-        if zt is not None:
-            total["C"] += zt @ z.T
-
+    runner = _Runner(sweep, passes, progress, n * p * 8)
     if rank is None and not accurate:
-        K = np.zeros((m, m))
-
-        def body(s, e, z, mean, scale, act, zt):
-            common(s, e, z, mean, scale, act, zt)
-            np.add(K, z @ z.T, out=K)
-
-        run_pass("pass 1: n x n Gram over column blocks", body)
-        wv, U = sla.eigh(K, check_finite=False, overwrite_a=True)
-        del K
-        wv, U = np.maximum(wv[::-1], 0.0), U[:, ::-1]
-        d_all = np.sqrt(wv)
-        dmax = float(d_all[0]) if d_all.size else 0.0
-        q = int(active.sum())
-        tol = max(rtol if rtol is not None else max(m, q) * _EPS, np.sqrt(max(m, q) * _EPS)) * dmax
-        r = int(np.count_nonzero(d_all > tol))
-        u, d = np.ascontiguousarray(U[:, :r]), d_all[:r]
-        solver, reason = "wide-gram", "n x n Gram accumulated over column blocks (eigh)"
-        predicted = 0.5 * max(m, q) * _EPS * wv[0] / wv[-1] if wv[-1] > 0 else np.inf
-        if predicted > 1e-10 and r:
-            reason += f"; predicted relative error {predicted:.1e}: accurate=True recommended"
+        u, d, d_all, tol, solver, reason = _gram_route(runner, acc, m, rtol)
     elif accurate:
-        stack: list = []
-
-        def body(s, e, z, mean, scale, act, zt):
-            common(s, e, z, mean, scale, act, zt)
-            Rb = sla.qr(z.T, mode="r", check_finite=False)[0][: min(z.shape[1], m)]
-            level = 0
-            while stack and stack[-1][0] == level:
-                Rb = sla.qr(np.vstack([stack.pop()[1], Rb]), mode="r", check_finite=False)[0][:m]
-                level += 1
-            stack.append((level, Rb))
-
-        run_pass("pass 1: QR of Z^T over column blocks", body)
-        R = stack.pop()[1]
-        while stack:
-            R = sla.qr(np.vstack([stack.pop()[1], R]), mode="r", check_finite=False)[0][:m]
-        if R.shape[0] < m:
-            R = np.vstack([R, np.zeros((m - R.shape[0], m))])
-        U, d_all, _ = sla.svd(R.T, full_matrices=False, check_finite=False)
-        dmax = float(d_all[0])
-        q = int(active.sum())
-        tol = (rtol if rtol is not None else max(m, q) * _EPS) * dmax
-        r = int(np.count_nonzero(d_all > tol))
-        u, d = np.ascontiguousarray(U[:, :r]), d_all[:r]
-        solver, reason = "wide-tsqr", "QR of Z^T over column blocks, SVD of R (backward stable)"
+        u, d, d_all, tol, solver, reason = _tsqr_route(runner, acc, m, rtol)
     else:
-        kk = rank + int(oversample)
-        kk = min(kk, m)
-        Ysk = np.zeros((m, kk))
-
-        def omega(s, width):
-            rng = np.random.default_rng([seed, s])
-            return rng.standard_normal((width, kk))
-
-        def sketch(s, e, z, mean, scale, act, zt):
-            common(s, e, z, mean, scale, act, zt)
-            Ysk[:] += z @ omega(s, z.shape[1])
-
-        run_pass("pass 1: randomized range sketch over column blocks", sketch)
-        Qm = sla.qr(Ysk, mode="economic", check_finite=False)[0]
-        for it in range(int(power_iters)):
-            acc = np.zeros((m, kk))
-
-            def power(s, e, z, mean, scale, act, zt, acc=acc):
-                acc += z @ (z.T @ Qm)
-
-            t0 = time.perf_counter()
-            for s, e, z, *_ in sweep:
-                power(s, e, z, None, None, None, None)
-                if progress:
-                    progress(f"power iteration {it + 1}/{power_iters} over column blocks", e, p)
-            passes.append(PassInfo(f"power iteration {it + 1} over column blocks", p, time.perf_counter() - t0,
-                                   n * p * 8))
-            Qm = sla.qr(acc, mode="economic", check_finite=False)[0]
-        B = np.zeros((kk, kk))
-        t0 = time.perf_counter()
-        for s, e, z, *_ in sweep:
-            qz = Qm.T @ z
-            B += qz @ qz.T
-            if progress:
-                progress("final pass: projected Gram over column blocks", e, p)
-        passes.append(PassInfo("final pass: projected Gram over column blocks", p, time.perf_counter() - t0, n * p * 8))
-        wv, W = sla.eigh(B, check_finite=False)
-        wv, W = np.maximum(wv[::-1], 0.0)[:rank], W[:, ::-1][:, :rank]
-        d_all = np.sqrt(wv)
-        dmax = float(d_all[0])
-        tol = (rtol if rtol is not None else max(m, p) * _EPS) * dmax
-        r = int(np.count_nonzero(d_all > tol))
-        u, d = Qm @ W[:, :r], d_all[:r]
-        solver = "wide-randomized"
-        reason = (f"randomized truncated SVD, rank {rank} (oversample {oversample}, "
-                  f"{power_iters} power iterations, seed {seed})")
+        u, d, d_all, tol, solver, reason = _randomized_route(
+            runner, acc, m, p, rank, oversample, power_iters, seed, rtol)
+    active = acc.active
     if not active.any():
-        raise InputError(f"every one of the {p} columns of X is constant; nothing to fit")
+        raise InputError(f"every one of the {p} columns of X is constant; nothing to fit — "
+                         "check the feature selection")
+    r = d.size
     if r == 0:
         raise InputError("the centered design is numerically zero; nothing to fit")
-    share = float(np.sum(np.square(d)) / total["fro"]) if total["fro"] > 0 else 1.0
+    _check_spectrum(d)
+    share = float(np.sum(np.square(d)) / acc.fro) if acc.fro > 0 else 1.0
     approximate = rank is not None
     if approximate:
         msg = (f"--rank {rank}: the fit is ridge on the top {r} principal components, capturing "
@@ -422,47 +411,36 @@ def wide_path(
                "interpolation threshold need the full spectrum and are approximations")
         warnings.warn(msg, UserWarning, stacklevel=2)
         notes.append(msg)
-    for a in (x_mean, x_scale, active, y_mean, zy):
+    if test_rows is not None:
+        notes.append(f"holdout: {n_test} of {src.n_rows} rows held out as the test set "
+                     "(paths.data.folds, as every engine splits)")
+    notes += list(getattr(src, "notes", ()))
+    for a in (acc.x_mean, acc.x_scale, active, y_mean, zy, u, d):
         a.flags.writeable = False
-    design = Design(zy=zy, x_mean=x_mean, x_scale=x_scale, y_mean=y_mean, active=active,
+    design = Design(zy=zy, x_mean=acc.x_mean, x_scale=acc.x_scale, y_mean=y_mean, active=active,
                     n_samples=n, fit_intercept=fit_intercept, standardize=standardize)
-    for a in (u, d):
-        a.flags.writeable = False
-    fac = Factorization(u=u, d=d, vt=np.empty((r, 0)), rank=r, tol=float(tol), d_max=dmax,
-                        d_min=float(d_all[-1]), solver=solver, reason=reason)
+    fac = Factorization(u=u, d=d, vt=np.empty((r, 0)), rank=r, tol=float(tol),
+                        d_max=float(d_all[0]), d_min=float(d_all[-1]), solver=solver,
+                        reason=reason)
     state = algebra.factor_state(fac, design)
-    c = state.uty
     lam = default_grid(d, n_lambdas) if lam_user is None else lam_user
     crit = algebra.criteria(state, lam)
     # standardized coefficients are Z^T a(lam) with a = U diag(g/d) c  (m, k, t)
     A = algebra.sample_weights(state, lam)
     A0 = algebra.sample_weights(state, [0.0])[:, 0]  # min-norm: gain 1/d, divided by d
-    intercept = y_mean[None, :] - np.einsum("m,mkt->kt", total["w"], A)
-    intercept0 = y_mean - total["w"] @ A0
+    intercept = y_mean[None, :] - np.einsum("m,mkt->kt", acc.w, A)
+    intercept0 = y_mean - acc.w @ A0
     test_mse = test0 = None
-    n_test = 0
-    if test is not None:
-        Cm = total["C"]
-        n_test = Cm.shape[0]
+    if Yt is not None:
         # the test rows' projections Z_test V = C U D^-1: the algebra's test error
-        proj = np.einsum("im,mr->ir", Cm, u) / d
+        proj = np.einsum("im,mr->ir", acc.C, u) / d
         sums, sums0 = algebra.test_sums(state, lam, proj, Yt - y_mean)
         test_mse, test0 = sums / n_test, sums0 / n_test
     coef = coef0 = None
     if coefficients:
-        k = lam.size
-        coef = np.zeros((k, p, t))
-        coef0 = np.zeros((p, t))
-        A2 = A.reshape(m, -1)
-        t0 = time.perf_counter()
-        for s, e, z, mean, scale, act, _ in _Sweep(src, fit_intercept, standardize):
-            idx = s + np.flatnonzero(act)
-            cb = (z.T @ A2).reshape(-1, k, t) / scale[act][:, None, None]
-            coef[:, idx, :] = cb.transpose(1, 0, 2)
-            coef0[idx] = (z.T @ A0) / scale[act][:, None]
-            if progress:
-                progress("coefficient pass over column blocks", e, p)
-        passes.append(PassInfo("coefficient pass over column blocks", p, time.perf_counter() - t0, n * p * 8))
+        coef, coef0 = _coefficient_pass(_Runner(
+            _Sweep(src, fit_intercept, standardize, test_rows=test_rows, y_size=y_size),
+            passes, progress, n * p * 8), A, A0, p, t)
 
     def sq(a):
         return a if (multi or a is None) else a[..., 0]
@@ -474,7 +452,7 @@ def wide_path(
         df=float(fit_intercept + r), coef_norm=sq(beta0_norm), rank=r)
     out = dict(coef=sq(coef), intercept=sq(intercept), train_mse=sq(crit.train_mse),
                gcv=sq(crit.gcv), loo_mse=sq(crit.loo_mse), test_mse=sq(test_mse))
-    for v in (*out.values(), crit.df, lam, c, *vars(min_norm).values()):
+    for v in (*out.values(), crit.df, lam, *vars(min_norm).values()):
         if isinstance(v, np.ndarray):
             v.flags.writeable = False
     if not approximate:
@@ -484,6 +462,262 @@ def wide_path(
         condition_number=fac.condition_number, min_norm=min_norm, solver=solver,
         solver_reason=reason, n_samples=n, n_features=p, n_test=n_test,
         fit_intercept=fit_intercept, standardize=standardize, feature_names=src.feature_names,
-        design=design, factorization=fac, uty=c, penalty_convention=PENALTY_CONVENTION,
+        design=design, factorization=fac, uty=state.uty, penalty_convention=PENALTY_CONVENTION,
         state=state, engine="wide", passes=tuple(passes), notes=tuple(notes), captured_share=share,
         approximate=approximate, **out)
+
+
+def _response_2d(y_arr: np.ndarray) -> np.ndarray:
+    return y_arr if y_arr.ndim == 2 else y_arr[:, None]
+
+
+def _open_test(X_test, y_test, src, target, sep, t):
+    """``(test source or array, Y_test)`` of a separate test set, or ``(None, None)``."""
+    if X_test is None:
+        if y_test is not None:
+            raise InputError("pass X_test with y_test")
+        return None, None
+    p = src.n_features
+    if isinstance(X_test, (str, bytes)) or hasattr(X_test, "__fspath__"):
+        if is_text_path(X_test):
+            if target is None:
+                raise InputError("a CSV test file needs target= (the response column)")
+            test = CSVColumns(X_test, target, features=src.feature_names, sep=sep)
+            y_test = test.targets if y_test is None else y_test
+        else:
+            test = ParquetColumns(X_test, features=src.feature_names)
+            if y_test is None and target is not None:
+                yt_src = ParquetColumns(X_test, features=[target] if isinstance(target, str)
+                                        else list(target))
+                y_test = yt_src.read_columns(yt_src.feature_names)
+    else:
+        test = X_test if hasattr(X_test, "compute") else np.asarray(X_test, dtype=np.float64)
+        if test.ndim != 2 or test.shape[1] != p:
+            raise InputError(f"X_test must have shape (n_test, {p}); got {test.shape}")
+    n_test = test.n_rows if isinstance(test, ColumnSource) else test.shape[0]
+    if y_test is None:
+        raise InputError("pass y_test with X_test")
+    Yt = _response_2d(as_response(y_test, n_test, "y_test"))
+    if Yt.shape[1] != t:
+        raise InputError(f"y_test has {Yt.shape[1]} target(s) but y has {t}")
+    return test, Yt
+
+
+def _check_rank(rank, accurate, m, p, n):
+    if rank is None:
+        return None
+    if int(rank) != rank or not 1 <= rank <= min(m, p):
+        raise InputError(f"--rank must be an integer in [1, {min(m, p)}] (min(n - 1, p) for "
+                         f"this {n} x {p} design); got {rank}")
+    if accurate:
+        raise InputError("pass either accurate=True (--accurate) or rank= (--rank), not both")
+    return int(rank)
+
+
+class _Accumulated:
+    """What every first pass collects besides the factor: the column preprocessing,
+    :math:`\\|Z\\|_F^2`, the intercept weights :math:`w = Z\\,(\\bar x/s)` and the test
+    rows' cross Gram :math:`C = Z_{test} Z^T`."""
+
+    def __init__(self, p, m, n_test):
+        self.x_mean, self.x_scale = np.zeros(p), np.ones(p)
+        self.active = np.zeros(p, dtype=bool)
+        self.fro, self.w = 0.0, np.zeros(m)
+        self.C = None if n_test is None else np.zeros((n_test, m))
+
+    def add(self, b: ColumnBlock) -> None:
+        s, e, act = b.start, b.stop, b.active
+        self.x_mean[s:e], self.x_scale[s:e], self.active[s:e] = b.mean, b.scale, act
+        self.fro += float(np.einsum("ij,ij->", b.z, b.z))
+        self.w += b.z @ (b.mean[act] / b.scale[act])
+        if b.z_test is not None:
+            self.C += b.z_test @ b.z.T
+
+
+class _Runner:
+    """Runs a pass over the column blocks, reporting progress and recording it."""
+
+    def __init__(self, sweep, passes, progress, nbytes):
+        self.sweep, self.passes, self.progress, self.nbytes = sweep, passes, progress, nbytes
+
+    def run(self, label, body):
+        t0 = time.perf_counter()
+        p = self.sweep.src.n_features
+        for b in self.sweep:
+            body(b)
+            if self.progress:
+                self.progress(label, b.stop, p)
+        self.passes.append(PassInfo(label, p, time.perf_counter() - t0, self.nbytes))
+
+
+def _gram_route(runner, acc, m, rtol):
+    K = np.zeros((m, m))
+
+    def body(b):
+        acc.add(b)
+        np.add(K, b.z @ b.z.T, out=K)
+
+    runner.run("pass 1: n x n Gram over column blocks", body)
+    q = int(acc.active.sum())
+    u, d, d_all, tol = _gram_factor(K, q, rtol)
+    reason = "n x n Gram accumulated over column blocks (eigh)"
+    wv = np.square(d_all)
+    predicted = 0.5 * max(m, q) * _EPS * wv[0] / wv[-1] if wv[-1] > 0 else np.inf
+    if predicted > 1e-10 and d.size:
+        reason += f"; predicted relative error {predicted:.1e}: accurate=True recommended"
+    return u, d, d_all, tol, "wide-gram", reason
+
+
+def _tsqr_route(runner, acc, m, rtol):
+    stack: list = []
+
+    def body(b):
+        acc.add(b)
+        Rb = sla.qr(b.z.T, mode="r", check_finite=False)[0][: min(b.z.shape[1], m)]
+        level = 0
+        while stack and stack[-1][0] == level:
+            Rb = sla.qr(np.vstack([stack.pop()[1], Rb]), mode="r", check_finite=False)[0][:m]
+            level += 1
+        stack.append((level, Rb))
+
+    runner.run("pass 1: QR of Z^T over column blocks", body)
+    R = stack.pop()[1]
+    while stack:
+        R = sla.qr(np.vstack([stack.pop()[1], R]), mode="r", check_finite=False)[0][:m]
+    if R.shape[0] < m:
+        R = np.vstack([R, np.zeros((m - R.shape[0], m))])
+    U, d_all, _ = sla.svd(R.T, full_matrices=False, check_finite=False)
+    q = int(acc.active.sum())
+    tol = (rtol if rtol is not None else max(m, q) * _EPS) * float(d_all[0])
+    r = int(np.count_nonzero(d_all > tol))
+    return (np.ascontiguousarray(U[:, :r]), d_all[:r], d_all, tol, "wide-tsqr",
+            "QR of Z^T over column blocks, SVD of R (backward stable)")
+
+
+def _randomized_route(runner, acc, m, p, rank, oversample, power_iters, seed, rtol):
+    kk = min(rank + int(oversample), m)
+    Ysk = np.zeros((m, kk))
+
+    def sketch(b):
+        acc.add(b)
+        Ysk[:] += b.z @ np.random.default_rng([seed, b.start]).standard_normal((b.z.shape[1], kk))
+
+    runner.run("pass 1: randomized range sketch over column blocks", sketch)
+    Qm = sla.qr(Ysk, mode="economic", check_finite=False)[0]
+    for it in range(int(power_iters)):
+        prod = np.zeros((m, kk))
+
+        def power(b, prod=prod, Qm=Qm):
+            prod += b.z @ (b.z.T @ Qm)
+
+        runner.run(f"power iteration {it + 1}/{power_iters} over column blocks", power)
+        Qm = sla.qr(prod, mode="economic", check_finite=False)[0]
+    B = np.zeros((kk, kk))
+
+    def project(b):
+        qz = Qm.T @ b.z
+        B[:] += qz @ qz.T
+
+    runner.run("final pass: projected Gram over column blocks", project)
+    wv, W = sla.eigh(B, check_finite=False)
+    wv, W = np.maximum(wv[::-1], 0.0)[:rank], W[:, ::-1][:, :rank]
+    d_all = np.sqrt(wv)
+    tol = (rtol if rtol is not None else max(m, p) * _EPS) * float(d_all[0])
+    r = int(np.count_nonzero(d_all > tol))
+    reason = (f"randomized truncated SVD, rank {rank} (oversample {oversample}, "
+              f"{power_iters} power iterations, seed {seed})")
+    return Qm @ W[:, :r], d_all[:r], d_all, tol, "wide-randomized", reason
+
+
+def _coefficient_pass(runner, A, A0, p, t):
+    """The k × p × t coefficients :math:`Z^T a(\\lambda)` on the original scale, one block
+    at a time, and the minimum-norm ones."""
+    m, k = A.shape[0], A.shape[1]
+    coef, coef0 = np.zeros((k, p, t)), np.zeros((p, t))
+    A2 = A.reshape(m, -1)
+
+    def body(b):
+        act = b.active
+        idx = b.start + np.flatnonzero(act)
+        cb = (b.z.T @ A2).reshape(-1, k, t) / b.scale[act][:, None, None]
+        coef[:, idx, :] = cb.transpose(1, 0, 2)
+        coef0[idx] = (b.z.T @ A0) / b.scale[act][:, None]
+
+    runner.run("coefficient pass over column blocks", body)
+    return coef, coef0
+
+
+def fold_refits(data, y, labels, *, test_rows=None, fit_intercept: bool = True,
+                standardize: bool = True, block_columns: int = DEFAULT_BLOCK_COLUMNS,
+                rtol: float | None = None, progress=None, passes: list | None = None) -> tuple:
+    """Per-fold refits of wide data with per-fold preprocessing, in one pass over the columns.
+
+    For every partition ``labels`` (R, n) of the training rows (those not in
+    ``test_rows``) and every fold f, the columns are centered and scaled on the
+    other folds' rows alone (:func:`paths.core.design.prepare` on them), and
+    the fold-f fit is the dual form of the wide path on those rows: the Gram
+    matrix :math:`K_f = Z_{-f} Z_{-f}^T` and the cross Gram
+    :math:`C_f = Z_f Z_{-f}^T` of the fold's own rows, accumulated block by
+    block; its eigendecomposition gives the fold's factor state and the held-out
+    rows' projections :math:`C_f U_f D_f^{-1}`.  Memory: R·K matrices of size
+    about :math:`(n - b)^2 + b(n - b)`.
+
+    Returns
+    -------
+    tuple of tuple of paths.core.algebra.HeldOutFold
+        ``[r][f]``: the fit without fold f of partition r, and that fold's rows;
+        :class:`paths.selection.cv.RefitFolds` turns them into K-fold errors.
+    """
+    from paths.data.validation import check_memory
+
+    src, y = open_wide(data, y, block_columns=block_columns)
+    Y = _response_2d(as_response(y, src.n_rows, "y"))
+    if test_rows is not None:
+        Y = Y[~np.asarray(test_rows, dtype=bool)]
+    labels = np.atleast_2d(np.asarray(labels))
+    n = Y.shape[0]
+    if labels.shape[1] != n:
+        raise InputError(f"labels cover {labels.shape[1]} rows but there are {n} training rows")
+    K = int(labels.max()) + 1
+    sizes = np.stack([np.bincount(lab, minlength=K) for lab in labels])
+    mf = (n - sizes) - int(fit_intercept)
+    check_memory(8.0 * float(np.sum(mf * (mf + sizes))),
+                 f"per-fold scaling: {labels.shape[0] * K} Gram matrices of wide data",
+                 "use cv_scaling global (exact from one factorization), or fewer folds")
+    grams = [[np.zeros((mf[r, f], mf[r, f])) for f in range(K)] for r in range(len(labels))]
+    cross = [[np.zeros((sizes[r, f], mf[r, f])) for f in range(K)] for r in range(len(labels))]
+    q = np.zeros(sizes.shape, dtype=np.int64)
+    sweep = _Sweep(src, fit_intercept, standardize, test_rows=test_rows)
+    t0 = time.perf_counter()
+    for s, block, _ in sweep.blocks():
+        for r, lab in enumerate(labels):
+            for f in range(K):
+                held = lab == f
+                design, z = prepare(block[~held], np.empty((n - sizes[r, f], 0)),
+                                    fit_intercept=fit_intercept, standardize=standardize)
+                np.add(grams[r][f], z @ z.T, out=grams[r][f])
+                cross[r][f] += design.transform(block[held]) @ z.T
+                q[r, f] += int(design.active.sum())
+        if progress:
+            progress("per-fold scaling: fold Gram matrices over column blocks",
+                     s + block.shape[1], src.n_features)
+    if passes is not None:
+        passes.append(PassInfo("per-fold scaling: fold Gram matrices over column blocks",
+                               src.n_features, time.perf_counter() - t0,
+                               src.n_rows * src.n_features * 8))
+    return tuple(tuple(_fold_fit(grams[r][f], cross[r][f], Y, labels[r] == f, int(q[r, f]), f,
+                                 fit_intercept, rtol) for f in range(K))
+                 for r in range(len(labels)))
+
+
+def _fold_fit(gram, cross, Y, held, q, f, fit_intercept, rtol) -> algebra.HeldOutFold:
+    """The factor state of one fold's Gram matrix and its held-out rows' projections."""
+    if q == 0:
+        raise InputError(f"fold {f} leaves only constant columns in its training rows; "
+                         "use fewer folds or another fold scheme")
+    u, d, _, _ = _gram_factor(gram, q, rtol)
+    zy, y_mean = _householder(Y[~held], fit_intercept)
+    state = algebra.FactorState(d=d, vt=np.empty((d.size, 0)), uty=u.T @ zy,
+                                rss_out=np.zeros(Y.shape[1]), n_samples=int((~held).sum()),
+                                fit_intercept=fit_intercept)
+    return algebra.HeldOutFold(state=state, proj=(cross @ u) / d, yc=Y[held] - y_mean)

@@ -7,6 +7,9 @@ training MSE and GCV (exact at any λ), leave-one-out / K-fold CV / test MSE (at
 the grid penalty nearest λ, or a rule's own numbers when its button is used),
 the coefficient-norm ratio, the coefficients of the largest features (original
 scale, exact at any λ) and the shrinkage factor of each principal component.
+A run with several targets gets a target selector: each target has its own
+``c = Uᵀy``, rules, reported choice and largest coefficients; the factors are
+shared (one design).
 
 The exact read-outs are closed forms on the path's factors ``Z = U D Vᵀ`` with
 ``c = Uᵀy`` (Hastie, Tibshirani & Friedman 2009, eqs. 3.47 and 3.50):
@@ -17,8 +20,14 @@ The exact read-outs are closed forms on the path's factors ``Z = U D Vᵀ`` with
 - β(λ) = V diag(d/(d² + λ)) c, divided by the column scale for the original scale.
 
 A URL fragment selects the state on load: ``#lambda=3.2``, ``#lambda=0`` (the
-min-norm fit) or ``#rule=cv``.  Each read-out element carries its full-precision
+min-norm fit) or ``#rule=cv``; with several targets ``#target=NAME`` picks the
+target (``#target=NAME&lambda=3.2``, ``#target=NAME&rule=cv``; NAME URL-encoded),
+the first target by default.  Each read-out element carries its full-precision
 value in ``data-value`` so that a test (or a reader's script) can read it back.
+
+The page stays bounded: the numbers per target are O(r · n_coef) (r the rank),
+and targets past :data:`EXPLORER_BYTES` of data are left out of the explorer
+(the page says which; every target keeps its section, tables and figures).
 """
 from __future__ import annotations
 
@@ -29,12 +38,17 @@ import numpy as np
 
 from paths.core import algebra
 
-__all__ = ["explorer_data", "explorer_section"]
+__all__ = ["explorer_data", "explorer_targets", "explorer_section", "EXPLORER_BYTES"]
+
+#: the most bytes of explorer data (inline JSON) one report carries
+EXPLORER_BYTES = 2_000_000
+#: keys of :func:`explorer_data` shared by every target (one design, one factorization)
+_SHARED = ("n", "m", "intercept", "d", "lambdas")
 
 _SCRIPT = r"""
 (function () {
-  var D = JSON.parse(document.getElementById('paths-explorer-data').textContent);
-  var d2 = D.d.map(function (v) { return v * v; });
+  var ALL = JSON.parse(document.getElementById('paths-explorer-data').textContent);
+  var D = null, d2 = null, current = -1;
   function fmt(v) {
     if (v === null || v === undefined || !isFinite(v)) return 'n/a';
     var a = Math.abs(v);
@@ -47,6 +61,7 @@ _SCRIPT = r"""
     el.setAttribute('data-value', v === null || v === undefined ? '' : String(v));
     el.textContent = fmt(v) + (note ? ' ' + note : '');
   }
+  function clear(el) { while (el.firstChild) el.removeChild(el.firstChild); }
   function nearest(lam) {
     if (lam <= 0) return -1;
     var best = 0, err = Infinity;
@@ -55,6 +70,43 @@ _SCRIPT = r"""
       if (e < err) { err = e; best = i; }
     }
     return best;
+  }
+  function addButton(box, rule, label) {
+    var b = document.createElement('button');
+    b.type = 'button';
+    b.setAttribute('data-rule', rule);
+    b.textContent = label;
+    b.addEventListener('click', function () {
+      if (rule === 'min_norm') show(0, null); else show(D.rules[rule].lambda, rule);
+    });
+    box.appendChild(b);
+  }
+  function useTarget(k) {
+    if (k === current) return;
+    current = k;
+    D = {};
+    var key;
+    for (key in ALL.shared) D[key] = ALL.shared[key];
+    for (key in ALL.targets[k]) D[key] = ALL.targets[k][key];
+    d2 = D.d.map(function (v) { return v * v; });
+    var pick = document.getElementById('ix-target');
+    if (pick) pick.value = String(k);
+    var box = document.getElementById('ix-rules');
+    clear(box);
+    Object.keys(D.rules).forEach(function (r) { addButton(box, r, D.rules[r].label); });
+    addButton(box, 'min_norm', 'λ → 0 (min-norm)');
+    var body = document.querySelector('#ix-coef tbody');
+    clear(body);
+    D.features.forEach(function (name) {
+      var tr = document.createElement('tr'), a = document.createElement('td'),
+          b = document.createElement('td');
+      a.textContent = name;
+      b.className = 'num';
+      tr.appendChild(a);
+      tr.appendChild(b);
+      body.appendChild(tr);
+    });
+    document.body.setAttribute('data-explorer-target', D.name === null ? '' : D.name);
   }
   function show(lam, rule) {
     var r = D.d.length, f = 0, s = 0, rss = D.rss0, b2 = 0;
@@ -103,24 +155,31 @@ _SCRIPT = r"""
     }
     var slider = document.getElementById('ix-slider');
     if (lam > 0) slider.value = String(Math.log10(lam));
-    var who = document.getElementById('ix-who');
-    who.textContent = rule ? (D.rules[rule].label + ' choice') : (lam === 0 ? 'λ → 0' : 'slider');
+    var who = rule ? (D.rules[rule].label + ' choice') : (lam === 0 ? 'λ → 0' : 'slider');
+    document.getElementById('ix-who').textContent =
+      (ALL.targets.length > 1 ? 'target ' + D.name + ', ' : '') + who;
     document.body.setAttribute('data-explorer', 'ready');
   }
   document.getElementById('ix-slider').addEventListener('input', function (e) {
     show(Math.pow(10, parseFloat(e.target.value)), null);
   });
-  Array.prototype.forEach.call(document.querySelectorAll('button[data-rule]'), function (b) {
-    b.addEventListener('click', function () {
-      var rule = b.getAttribute('data-rule');
-      if (rule === 'min_norm') show(0, null); else show(D.rules[rule].lambda, rule);
-    });
+  var pick = document.getElementById('ix-target');
+  if (pick) pick.addEventListener('change', function () {
+    useTarget(parseInt(pick.value, 10));
+    show(D.reported_lambda, D.reported);
   });
   function fromHash() {
-    var h = decodeURIComponent(window.location.hash.replace(/^#/, ''));
-    var m = /^lambda=([0-9.eE+-]+)$/.exec(h), r = /^rule=([\w-]+)$/.exec(h);
-    if (m && isFinite(parseFloat(m[1])) && parseFloat(m[1]) >= 0) show(parseFloat(m[1]), null);
-    else if (r && D.rules[r[1]]) show(D.rules[r[1]].lambda, r[1]);
+    var q = {};
+    window.location.hash.replace(/^#/, '').split('&').forEach(function (part) {
+      var at = part.indexOf('=');
+      if (at > 0) q[decodeURIComponent(part.slice(0, at))] = decodeURIComponent(part.slice(at + 1));
+    });
+    var k = 0;
+    for (var t = 0; t < ALL.targets.length; t++) if (ALL.targets[t].name === q.target) k = t;
+    useTarget(k);
+    var lam = parseFloat(q.lambda);
+    if (q.lambda !== undefined && /^[0-9.eE+-]+$/.test(q.lambda) && isFinite(lam) && lam >= 0) show(lam, null);
+    else if (q.rule !== undefined && Object.prototype.hasOwnProperty.call(D.rules, q.rule)) show(D.rules[q.rule].lambda, q.rule);
     else show(D.reported_lambda, D.reported);
   }
   window.addEventListener('hashchange', fromHash);
@@ -142,12 +201,14 @@ def _column(a, j):
 
 
 def explorer_data(result, summary: dict, *, target: int = 0, n_coef: int = 12) -> dict | None:
-    """The numbers the explorer needs (JSON-ready), or None when the result has no factors.
+    """The numbers the explorer needs for one target (JSON-ready), or None without factors.
 
     Holds the singular values ``d``, ``c = Uᵀy`` (target ``target``), RSS₀, the
     rows of V (and column scales) of the ``n_coef`` features largest at the
     reported penalty, the grid's LOO / test / CV arrays, and every rule's choice
-    with its own errors (``at_choice``).
+    with its own errors (``at_choice``).  ``summary`` is the record as seen for
+    that target (:func:`paths.present.report.target_view` for several targets):
+    its ``selected``, ``min_norm`` and ``report`` are the target's own.
     """
     fac, design, uty = (getattr(result, k, None) for k in ("factorization", "design", "uty"))
     if fac is None or design is None or uty is None:
@@ -173,7 +234,7 @@ def explorer_data(result, summary: dict, *, target: int = 0, n_coef: int = 12) -
     norm0 = float(np.sqrt(np.sum((c / d) ** 2)))
     return {
         "n": n, "m": int(fac.u.shape[0]), "intercept": int(bool(result.fit_intercept)),
-        "d": d.tolist(), "c": c.tolist(),
+        "d": d.tolist(), "c": c.tolist(), "name": summary.get("target"),
         "rss0": float(_pick(mn.get("train_mse"), target)) * n,
         "gcv0": _pick(mn.get("gcv"), target), "norm0": norm0,
         "features": [str(names[act[k]]) for k in top],
@@ -187,18 +248,68 @@ def explorer_data(result, summary: dict, *, target: int = 0, n_coef: int = 12) -
     }
 
 
-def explorer_section(result, summary: dict, *, target: int = 0, n_coef: int = 12) -> str:
-    """The explorer as one HTML section (``""`` when the result has no factors)."""
-    data = explorer_data(result, summary, target=target, n_coef=n_coef)
+def explorer_targets(result, summary: dict, *, n_coef: int = 12,
+                     max_bytes: int = EXPLORER_BYTES) -> dict | None:
+    """The explorer's data for every target: ``{"shared": {...}, "targets": [...],
+    "left_out": [names]}`` (None without factors).
+
+    ``shared`` holds what one design gives every target (n, the factor rows m,
+    the intercept, ``d`` and the grid); each entry of ``targets`` the rest of
+    :func:`explorer_data` for that target, in target order, while the JSON stays
+    under ``max_bytes`` (the first target always).
+    """
+    names = summary.get("targets") or [None]
+    if summary.get("targets"):
+        from paths.present.report import target_view
+    shared, targets, left_out, size = None, [], [], 0
+    for j, name in enumerate(names):
+        view = summary if name is None else target_view(summary, j)
+        data = explorer_data(result, view, target=j, n_coef=n_coef)
+        if data is None:
+            return None
+        own = {k: v for k, v in data.items() if k not in _SHARED}
+        cost = len(json.dumps(own, allow_nan=False))
+        if targets and size + cost > max_bytes:
+            left_out.append(name)
+            continue
+        shared = shared or {k: data[k] for k in _SHARED}
+        targets.append(own)
+        size += cost
+    return {"shared": shared, "targets": targets, "left_out": left_out}
+
+
+def _target_picker(data: dict, max_bytes: int) -> str:
+    """The target selector (several targets), with a note on targets left out."""
+    e = html.escape
+    if len(data["targets"]) < 2 and not data["left_out"]:
+        return ""
+    opts = "".join(f'<option value="{k}">{e(str(t["name"]))}</option>'
+                   for k, t in enumerate(data["targets"]))
+    note = ""
+    if data["left_out"]:
+        shown, total = len(data["targets"]), len(data["targets"]) + len(data["left_out"])
+        note = (f" The explorer covers the first {shown} of the {total} targets (the page is kept "
+                f"under {max_bytes / 1e6:g} MB of explorer data); left out: "
+                f"{e(', '.join(str(n) for n in data['left_out']))}.")
+    return (f'<p><label for="ix-target">target</label> <select id="ix-target">{opts}</select>'
+            f"{note}</p>")
+
+
+def explorer_section(result, summary: dict, *, n_coef: int = 12,
+                     max_bytes: int = EXPLORER_BYTES) -> str:
+    """The explorer as one HTML section, every target of the run (``""`` without factors);
+    ``max_bytes`` as in :func:`explorer_targets`."""
+    data = explorer_targets(result, summary, n_coef=n_coef, max_bytes=max_bytes)
     if data is None:
         return ""
     e = html.escape
-    lo, hi = np.log10(min(data["lambdas"])), np.log10(max(data["lambdas"]))
+    first = {**data["shared"], **data["targets"][0]}
+    lo, hi = np.log10(min(first["lambdas"])), np.log10(max(first["lambdas"]))
     buttons = "".join(f'<button type="button" data-rule="{e(r)}">{e(v["label"])}</button>'
-                      for r, v in data["rules"].items())
+                      for r, v in first["rules"].items())
     buttons += '<button type="button" data-rule="min_norm">λ → 0 (min-norm)</button>'
-    rows = "".join(f"<tr><td>{e(f)}</td><td class=\"num\"></td></tr>" for f in data["features"])
-    r = len(data["d"])
+    rows = "".join(f"<tr><td>{e(f)}</td><td class=\"num\"></td></tr>" for f in first["features"])
+    r = len(first["d"])
     width = max(2.0, min(8.0, 480.0 / max(r, 1)))
     bars = "".join(f'<rect x="{k * width:.2f}" y="62" width="{width * 0.85:.2f}" height="0"/>'
                    for k in range(r))
@@ -209,17 +320,22 @@ def explorer_section(result, summary: dict, *, target: int = 0, n_coef: int = 12
                            ("ix-loo", "leave-one-out MSE"), ("ix-cv", "K-fold CV MSE"),
                            ("ix-test", "test MSE"),
                            ("ix-fraction", "‖β_λ‖ / ‖β_0‖ (standardized scale)")))
+    several = len(data["targets"]) > 1
+    links = ("<code>#target=NAME&amp;lambda=VALUE</code> or <code>#target=NAME&amp;rule=RULE"
+             "</code> (without <code>target=</code>: the first target)" if several else
+             "<code>#lambda=VALUE</code> or <code>#rule=NAME</code>")
     blob = json.dumps(data, allow_nan=False).replace("</", "<\\/")
+    start = np.log10(first["reported_lambda"]) if first["reported_lambda"] > 0 else lo
     return f"""<h2 id="explorer">Explore the penalty</h2>
-<p>Move the penalty or pick a rule: every number below is recomputed in this page from the
-path's factors (no network). Showing: <b id="ix-who"></b>. A link ending in
-<code>#lambda=VALUE</code> or <code>#rule=NAME</code> opens the page at that penalty.</p>
+<p>Move the penalty or pick a rule{" (and a target)" if several else ""}: every number below is
+recomputed in this page from the path's factors (no network). Showing: <b id="ix-who"></b>.
+A link ending in {links} opens the page at that penalty.</p>
 <div class="explorer">
+{_target_picker(data, max_bytes)}
 <p><label for="ix-slider">log<sub>10</sub> λ</label>
 <input id="ix-slider" type="range" min="{lo:.4f}" max="{hi:.4f}" step="0.01"
-value="{np.log10(data['reported_lambda']) if data['reported_lambda'] > 0 else lo:.4f}"
-style="width:60%"></p>
-<p class="rules">{buttons}</p>
+value="{start:.4f}" style="width:60%"></p>
+<p class="rules" id="ix-rules">{buttons}</p>
 <table class="readouts">{readouts}</table>
 <table id="ix-coef"><thead><tr><th>feature (largest at the reported λ)</th>
 <th>coefficient, original scale</th></tr></thead><tbody>{rows}</tbody></table>

@@ -73,6 +73,9 @@ __all__ = [
     "heldout_residuals",
     "measure_cost_model",
     "cv_from_fold_stats",
+    "fold_partitions",
+    "StateFolds",
+    "RefitFolds",
 ]
 
 SCALINGS = ("global", "per-fold")
@@ -157,6 +160,32 @@ def make_folds(n_samples: int, n_folds: int = 10, *, scheme: str = "shuffled", s
             "use more folds or more rows"
         )
     return labels
+
+
+def fold_partitions(n_samples: int, n_folds: int, *, scheme: str = "shuffled", seed: int = 0,
+                    repeats: int = 1, groups=None, fit_intercept: bool = True) -> np.ndarray:
+    """The fold labels of every repetition, shape (R, n): :func:`make_folds` with
+    ``repeat = 0 .. R - 1`` (the one assignment every engine uses).
+
+    Raises
+    ------
+    InputError
+        As :func:`make_folds`; also ``repeats`` < 1 and repeated blocked folds.
+
+    Examples
+    --------
+    >>> fold_partitions(6, 3, scheme="blocked").tolist()
+    [[0, 0, 1, 1, 2, 2]]
+    """
+    if isinstance(repeats, bool) or int(repeats) != repeats or repeats < 1:
+        raise InputError(f"repeats must be an integer >= 1; got {repeats!r}")
+    if groups is not None:
+        scheme = "grouped"
+    if scheme == "blocked" and repeats > 1:
+        raise InputError("blocked folds are deterministic; use repeats=1 (or shuffled folds)")
+    return np.stack([make_folds(n_samples, n_folds, scheme=scheme, seed=seed, groups=groups,
+                                repeat=i, fit_intercept=fit_intercept)
+                     for i in range(int(repeats))])
 
 
 def _grouped(n, K, groups, seed, repeat):
@@ -400,22 +429,86 @@ class _RefitEngine:
                         "use fewer folds or another fold scheme"
                     )
                 fac = factorize(z, solver=solver, overwrite=True)
-                c = fac.u.T @ dsg.zy
-                proj = dsg.transform(Xs[test]) @ fac.vt.T
-                per.append((fac.d, c, proj, Y[test] - dsg.y_mean))
+                state = algebra.FactorState(d=fac.d, vt=fac.vt, uty=fac.u.T @ dsg.zy,
+                                            rss_out=np.zeros(Y.shape[1]), n_samples=z.shape[0],
+                                            fit_intercept=fit_intercept)
+                per.append(algebra.HeldOutFold(state=state,
+                                               proj=dsg.transform(Xs[test]) @ fac.vt.T,
+                                               yc=Y[test] - dsg.y_mean))
             self.folds.append(per)
 
     form = "refit"
 
     def fold_mse(self, lam):
-        out = []
-        for per in self.folds:
-            rows = []
-            for d, c, proj, yt in per:
-                pred = algebra.project(proj, algebra.gains(d, lam), c)
-                rows.append(np.mean(np.square(yt[:, None, :] - pred), axis=0))
-            out.append(np.stack(rows))
-        return np.stack(out)
+        return _refit_fold_mse(self.folds, lam)
+
+
+def _refit_fold_mse(folds, lam) -> np.ndarray:
+    """(R, K, k, t) held-out errors of refit folds (:func:`paths.core.algebra.heldout_mse`)."""
+    return np.stack([np.stack([algebra.heldout_mse(f, lam) for f in per]) for per in folds])
+
+
+@dataclass(frozen=True)
+class StateFolds:
+    """K-fold statistics of a factor state that holds its left factor (the wide engine):
+    the in-memory exact route (primal or dual form, :mod:`paths.core.algebra`) on the
+    partitions ``labels`` (R, n), as :func:`cross_validate` computes them.
+
+    ``count`` (R, K) are the fold sizes; :meth:`fold_mse` the held-out errors
+    (R, K, k, t) at any penalties; ``form``, ``reason`` and ``scaling`` describe
+    the route for :func:`cv_from_fold_stats`.
+    """
+
+    state: object
+    labels: np.ndarray
+    scaling = "global"
+
+    def __post_init__(self):
+        object.__setattr__(self, "_exact", _ExactEngine(self.state, list(self.labels)))
+
+    @property
+    def count(self) -> np.ndarray:
+        return np.stack([np.asarray(w) for w in self._exact.weights])
+
+    @property
+    def form(self) -> str:
+        return self._exact.form
+
+    @property
+    def reason(self) -> str:
+        return (f"exact ({self.form} form) from the full-data factors held by the engine, "
+                "preprocessing from all training rows")
+
+    def fold_mse(self, lam) -> np.ndarray:
+        try:
+            return self._exact.fold_mse(as_lambdas(lam))
+        except np.linalg.LinAlgError:
+            raise InputError("a fold's block I - H_ff is singular at some penalty (its rows "
+                             "carry directions no other fold sees); use fewer, larger folds, "
+                             "or per-fold scaling (it refits every fold)") from None
+
+
+@dataclass(frozen=True)
+class RefitFolds:
+    """K-fold statistics of per-fold refits made by an engine: ``folds`` (R lists of K
+    :class:`paths.core.algebra.HeldOutFold`), ``labels`` (R, n) — per-fold scaling."""
+
+    folds: tuple
+    labels: np.ndarray
+    form = "refit"
+    scaling = "per-fold"
+
+    @property
+    def count(self) -> np.ndarray:
+        return np.stack([[f.yc.shape[0] for f in per] for per in self.folds])
+
+    @property
+    def reason(self) -> str:
+        return ("refit: per-fold scaling (means and scales from each fold's training rows), "
+                "one factorization per fold")
+
+    def fold_mse(self, lam) -> np.ndarray:
+        return _refit_fold_mse(self.folds, as_lambdas(lam))
 
 
 # --------------------------------------------------------------------- public API
@@ -526,8 +619,6 @@ def cross_validate(
     repeats = int(repeats)
     if groups is not None:
         scheme = "grouped"
-    if scheme == "blocked" and repeats > 1:
-        raise InputError("blocked folds are deterministic; use repeats=1 (or shuffled folds)")
     Xa = as_design(X, "X")
     n = Xa.shape[0]
     Ya = as_response(y, n, "y")
@@ -548,11 +639,8 @@ def cross_validate(
                          "pass the same weights (or none: the path's are used)")
     span = path.design.span
     lam = path.lambdas if lambdas is None else as_lambdas(lambdas)
-    labels = np.stack([
-        make_folds(n, n_folds, scheme=scheme, seed=seed, groups=groups, repeat=i,
-                   fit_intercept=path.fit_intercept)
-        for i in range(repeats)
-    ])
+    labels = fold_partitions(n, n_folds, scheme=scheme, seed=seed, repeats=repeats,
+                             groups=groups, fit_intercept=path.fit_intercept)
     K = int(labels.max()) + 1
     sizes = np.stack([np.bincount(lab, minlength=K) for lab in labels])
     fold_w = None
@@ -649,14 +737,19 @@ def cv_from_fold_stats(stats, plan, lambdas, *, multi_target: bool) -> CVResult:
     lam = as_lambdas(lambdas)
     sizes = np.array(stats.count, dtype=np.int64)
     fold = stats.fold_mse(lam)
+    labels = getattr(stats, "labels", None)
+    if labels is None:
+        labels = np.zeros((plan.repeats, 0), dtype=np.int64)
     mse, se, se_rep = _summarize(fold, sizes)
     if not multi_target:
         mse, se, fold = mse[..., 0], se[..., 0], fold[..., 0]
         se_rep = None if se_rep is None else se_rep[..., 0]
     return CVResult(lambdas=lam, mse=mse, se=se, se_repeats=se_rep, fold_mse=fold,
-                    fold_sizes=sizes, labels=np.zeros((plan.repeats, 0), dtype=np.int64),
+                    fold_sizes=sizes, labels=labels,
                     n_folds=plan.n_folds, repeats=plan.repeats, seed=plan.seed,
-                    scheme=plan.scheme, scaling="global", method="exact", form=stats.form,
-                    method_reason="exact: per-fold triangular factors of the streamed hat "
-                                  "pass, preprocessing from all training rows",
+                    scheme=plan.scheme, scaling=getattr(stats, "scaling", "global"),
+                    method="refit" if stats.form == "refit" else "exact", form=stats.form,
+                    method_reason=getattr(stats, "reason", "exact: per-fold triangular factors "
+                                          "of the streamed hat pass, preprocessing from all "
+                                          "training rows"),
                     multi_target=multi_target, _engine=stats)

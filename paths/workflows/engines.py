@@ -44,13 +44,17 @@ _WHY = {**{name: " (its one-pass moments are unweighted and penalize every colum
                    "accurate=True (QR of the rows) or the Gram matrix)")}
 
 
-def unsupported_options(data: DataOptions, fit: FitOptions) -> list:
-    """The options set away from their defaults that the out-of-memory engines do not offer."""
+def unsupported_options(data: DataOptions, fit: FitOptions, *, wide: bool = False) -> list:
+    """The options set away from their defaults that the out-of-memory engines do not offer
+    (``wide``: the column-blocked engine, which refits per fold and refuses its own data
+    options with their reasons, :data:`paths.workflows.wide.WIDE_REFUSALS`)."""
     defaults = {DataOptions: DataOptions(), FitOptions: FitOptions()}
     out = []
     for opts, names in ((data, _DATA_ONLY_IN_MEMORY), (fit, _FIT_ONLY_IN_MEMORY)):
         default = defaults[type(opts)]
         out += [n for n in names if getattr(opts, n) != getattr(default, n)]
+    if wide:
+        out = [n for n in out if n in _FIT_ONLY_IN_MEMORY and n != "cv_scaling"]
     return out
 
 
@@ -153,37 +157,41 @@ def _plan(data: DataOptions):
     elif data.features or data.exclude or data.id_column or data.groups:
         raise InputError(f"{path}: features/exclude/id_column/groups need named columns "
                          "(CSV or Parquet)")
+    if rows is None and feats is not None and names is not None:  # delimited text
+        rows = _text_rows_below(path, data.sep, len(feats))
     wide = rows is not None and feats is not None and len(feats) > rows
     return path, targets, feats, wide, rows
 
 
+def _text_rows_below(path: Path, sep, limit: int):
+    """The data lines of a text file when fewer than ``limit`` (it is wide), else None;
+    counted from the first data line the in-memory reader finds, stopping at ``limit``."""
+    from paths.data.tables import text_layout
+
+    layout = text_layout(path, sep=sep)
+    count = 0
+    with open(path, "rb") as fh:
+        for i, line in enumerate(fh, start=1):
+            if i >= layout.data_line and line.strip():
+                count += 1
+                if count >= limit:
+                    return None
+    return count
+
+
 def _fit(data: DataOptions, fit: FitOptions, engine: EngineOptions, progress):
     """Run the engine; returns its path result."""
-    from paths.data.chunks import DEFAULT_BLOCK_COLUMNS, DEFAULT_CHUNK_ROWS
+    from paths.data.chunks import DEFAULT_CHUNK_ROWS
 
     name = engine.name
     path, targets, feats, wide, rows = _plan(data)
     test = data.test_file
     cv_seed = _cv_seed(data, fit)
-    if wide and (data.holdout is not None or data.groups is not None or fit.repeats != 1):
-        raise InputError(f"{path} is wide ({rows} rows x {len(feats)} features): holdout, "
-                         "groups and repeats are not available with wide data on the streamed "
-                         "engines yet; use engine memory")
-    if wide:
-        from paths.engines.wide import wide_path
+    if wide:  # more feature columns than rows: column blocks (paths.workflows.wide)
+        from paths.workflows.wide import fit_wide
 
-        if name == "dask":
-            raise InputError(f"{path} is wide ({rows} rows x {len(feats)} features): use "
-                             "engine stream (column blocks); the dask engine splits rows")
-        if fit.n_folds is not None:
-            raise InputError("n_folds with wide data needs the in-memory engine")
-        if path.is_dir():
-            raise InputError(f"{path}: wide data must be one Parquet file (columns are read "
-                             "selectively); combine the parts")
-        return wide_path(path, target=targets if len(targets) > 1 else targets[0],
-                         features=feats, X_test=test, accurate=engine.accurate, rank=engine.rank,
-                         block_columns=engine.chunk_rows or DEFAULT_BLOCK_COLUMNS,
-                         n_lambdas=fit.n_lambdas, standardize=fit.standardize, progress=progress)
+        return fit_wide(data, fit, engine, path=path, targets=targets, feats=feats, rows=rows,
+                        progress=progress)
     if name == "stream":
         from paths.engines.stream import stream_path
 
@@ -250,7 +258,7 @@ def explore_engine(data: DataOptions, fit: FitOptions = FitOptions(),
     """
     if engine.name not in ("stream", "dask"):
         raise InputError(f"engine must be one of {', '.join(ENGINES)}; got {engine.engine!r}")
-    bad = unsupported_options(data, fit)
+    bad = unsupported_options(data, fit, wide=data.file is not None and _plan(data)[3])
     if bad:
         raise InputError(f"{bad[0]} is not available with engine {engine.name}"
                          f"{_WHY.get(bad[0], '')}; drop it or use engine memory")

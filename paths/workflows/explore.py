@@ -25,7 +25,7 @@ from paths.workflows.stages import (FACTOR, INTERVALS, KFOLD, READ, RECORD, SAVE
 
 __all__ = ["ExploreRun", "Fitted", "run_explore", "explore_prepared", "fit_and_select",
            "explore_record", "write_explore", "write_saved_fit", "prediction_intervals_step",
-           "per_target", "command_text",
+           "per_target", "command_text", "folds_for",
            "check_figures"]
 
 
@@ -153,7 +153,7 @@ def fit_and_select(prepared: Prepared, fit: FitOptions, *, holdout=None,
     return Fitted(result=result, selection=selection, cv_record=record, cv=cv_res, data=data)
 
 
-def _folds_for(groups, n_rows: int, fit: FitOptions):
+def folds_for(groups, n_rows: int, fit: FitOptions):
     """The number of folds: the option, or min(10, number of groups) with groups only."""
     if groups is not None:
         if groups.shape[0] != n_rows:
@@ -200,7 +200,7 @@ def select_rules(result, data: TrainTest, fit: FitOptions, *, progress=None):
     from paths.selection.rules import select_penalty
 
     groups = None if data.groups is None else np.asarray(data.groups)
-    n_folds = _folds_for(groups, data.X.shape[0], fit)
+    n_folds = folds_for(groups, data.X.shape[0], fit)
     cv_res = None
     if n_folds is not None:
         with stage(progress, KFOLD):

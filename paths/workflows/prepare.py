@@ -18,7 +18,7 @@ import numpy as np
 from paths.data.validation import InputError
 from paths.workflows.options import DataOptions
 
-__all__ = ["Prepared", "TrainTest", "prepare", "train_test", "GENERATORS"]
+__all__ = ["Prepared", "TrainTest", "prepare", "train_test", "group_labels", "GENERATORS"]
 
 #: Seeded synthetic generators a case file may name (``[data] generator = "..."``).
 GENERATORS = ("calibration", "panel", "isotropic")
@@ -107,7 +107,8 @@ def _frame(options: DataOptions, base_dir):
     return read_table(path, sep=options.sep), name, {name: sha256_of(path)}, None
 
 
-def _group_labels(frame, column: str, source: str) -> np.ndarray:
+def group_labels(frame, column: str, source: str) -> np.ndarray:
+    """The group labels in ``column`` (one per row, none missing), as read."""
     if column not in frame.columns:
         raise InputError(f"{source}: groups column {column!r} not found; columns are: "
                          f"{', '.join(map(str, list(frame.columns)[:8]))}")
@@ -170,7 +171,7 @@ def prepare(options: DataOptions, *, base_dir=None) -> Prepared:
     exclude = options.exclude
     groups = weights = test_weights = None
     if options.groups is not None:
-        groups = _group_labels(frame, options.groups, source)
+        groups = group_labels(frame, options.groups, source)
         exclude = (*(exclude or ()), options.groups)
     if options.weights is not None:
         weights = _row_weights(frame, options.weights, source)

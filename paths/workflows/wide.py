@@ -1,0 +1,142 @@
+"""The explore workflow's wide branch: data with more feature columns than rows, in column blocks.
+
+:func:`fit_wide` is what :func:`paths.workflows.engines.explore_engine` runs
+for a wide file (Parquet or CSV/TSV): the options mean what they mean in memory
+(:func:`paths.workflows.explore.fit_and_select`) — the same holdout rows
+(:func:`paths.data.folds.holdout_mask`), the same folds
+(:func:`paths.selection.cv.fold_partitions`, groups included), the same
+preparation of each column (:func:`paths.core.design.prepare`, one block of
+whole columns at a time) — so the errors are the in-memory engine's.
+
+The engine (:func:`paths.engines.wide.wide_path`) produces the factor state
+(it holds the n × r left factor); K-fold CV is the in-memory exact route on it
+(:class:`paths.selection.cv.StateFolds`), or, with per-fold scaling, per-fold
+refits in the dual form from one more pass over the columns
+(:func:`paths.engines.wide.fold_refits`, :class:`paths.selection.cv.RefitFolds`).
+"""
+from __future__ import annotations
+
+import dataclasses
+from pathlib import Path
+
+import numpy as np
+
+from paths.data.validation import InputError
+from paths.workflows.options import DataOptions, EngineOptions, FitOptions
+
+__all__ = ["fit_wide", "WIDE_REFUSALS"]
+
+#: Options the wide engine refuses, with the reason and what to use instead.
+WIDE_REFUSALS = {
+    "encode": ("encode with wide data: text columns are not encoded in column blocks yet; "
+               "encode them beforehand (e.g. pandas.get_dummies) or use engine memory"),
+    "drop_missing": ("drop_missing with wide data: a missing value is found only when its "
+                     "column block is read, after the rows are fixed; remove the missing "
+                     "values beforehand or use engine memory"),
+    "weights": ("weights with wide data: the column-blocked Gram is unweighted; use engine "
+                "memory"),
+}
+
+
+def _refuse(data: DataOptions, path: Path, engine: EngineOptions, rows, n_feats) -> None:
+    """One-line refusals of what the wide engine cannot do, with the reason."""
+    if engine.name == "dask":
+        raise InputError(f"{path} is wide ({rows} rows x {n_feats} features): use engine "
+                         "stream (column blocks); the dask engine splits rows")
+    if path.is_dir():
+        raise InputError(f"{path}: wide data must be one file (columns are read "
+                         "selectively); combine the parts")
+    for name, why in WIDE_REFUSALS.items():
+        if getattr(data, name) is not None:
+            raise InputError(why)
+    if data.test_file is not None and data.holdout is not None:
+        raise InputError("pass either test_file or holdout, not both")
+
+
+def _side_columns(path: Path, src, column: str) -> np.ndarray:
+    """The values of a non-feature column (group labels), as the in-memory reader reads them."""
+    import pandas as pd
+
+    from paths.workflows.prepare import group_labels
+
+    side = getattr(src, "side", None)
+    if side is not None:
+        frame = pd.DataFrame({column: side[column]})
+    else:
+        import pyarrow.parquet as pq
+
+        frame = pq.read_table(path, columns=[column]).to_pandas()
+    return group_labels(frame, column, str(path))
+
+
+def _open(path: Path, data: DataOptions, targets, feats, engine: EngineOptions, progress):
+    """``(column source, response, group labels or None)`` of a wide file."""
+    from paths.data.chunks import DEFAULT_BLOCK_COLUMNS, CSVColumns, is_text_path
+    from paths.engines.wide import open_wide
+
+    block = engine.chunk_rows or DEFAULT_BLOCK_COLUMNS
+    if is_text_path(path):
+        side = () if data.groups is None else (data.groups,)
+        src = CSVColumns(path, targets, features=feats, sep=data.sep, side=side,
+                         block_columns=block, progress=progress)
+        y = src.targets
+    else:
+        src, y = open_wide(path, target=targets, features=feats, block_columns=block)
+    groups = None if data.groups is None else _side_columns(path, src, data.groups)
+    return src, (y if len(targets) > 1 else y[:, 0]), groups
+
+
+def _kfold_stats(result, src, y, groups, holdout_rows, fit: FitOptions, n_folds, progress):
+    """The fold statistics of the wide fit: the exact route on its factor state, or
+    per-fold refits (per-fold scaling); ``(stats, plan)``."""
+    from paths.engines.stream import FoldPlan
+    from paths.engines.wide import fold_refits
+    from paths.selection.cv import RefitFolds, StateFolds, fold_partitions
+
+    labels = fold_partitions(result.n_samples, n_folds, scheme=fit.fold_scheme, seed=fit.seed,
+                             repeats=fit.repeats, groups=groups,
+                             fit_intercept=result.fit_intercept)
+    if fit.cv_scaling == "per-fold":
+        passes: list = []
+        folds = fold_refits(src, y, labels, test_rows=holdout_rows,
+                            fit_intercept=result.fit_intercept, standardize=result.standardize,
+                            progress=progress, passes=passes)
+        stats = RefitFolds(folds=folds, labels=labels)
+        result = dataclasses.replace(result, passes=result.passes + tuple(passes))
+    elif fit.cv_scaling == "global":
+        stats = StateFolds(state=result.state, labels=labels)
+    else:
+        raise InputError(f"cv_scaling must be global or per-fold; got {fit.cv_scaling!r}")
+    plan = FoldPlan(n_folds=int(labels.max()) + 1, n_rows=result.n_samples,
+                    scheme="grouped" if groups is not None else fit.fold_scheme,
+                    seed=fit.seed, repeats=int(fit.repeats))
+    note = (f"{plan.n_folds}-fold CV" + (f" x {plan.repeats} repeats" if plan.repeats > 1
+                                         else "") + f" on the wide engine: {stats.reason}")
+    return dataclasses.replace(result, fold_stats=stats, fold_plan=plan,
+                               n_folds=plan.n_folds, notes=result.notes + (note,))
+
+
+def fit_wide(data: DataOptions, fit: FitOptions, engine: EngineOptions, *, path: Path,
+             targets, feats, rows, progress=None):
+    """The wide path of ``data.file`` with the explore options: holdout or test file, K-fold
+    CV (any scheme, groups, repeats, global or per-fold scaling); a
+    :class:`paths.engines.wide.WidePath` whose ``fold_stats`` give the CV errors."""
+    from paths.data.folds import holdout_mask
+    from paths.engines.wide import wide_path
+    from paths.workflows.explore import folds_for
+
+    _refuse(data, path, engine, rows, len(feats))
+    src, y, groups = _open(path, data, targets, feats, engine, progress)
+    held = None
+    if data.holdout is not None:
+        held = holdout_mask(np.arange(src.n_rows), src.n_rows, data.holdout, seed=fit.seed)
+        groups = None if groups is None else groups[~held]
+    n_train = src.n_rows - (0 if held is None else int(held.sum()))
+    n_folds = folds_for(groups, n_train, fit)
+    result = wide_path(src, y, target=targets if len(targets) > 1 else targets[0],
+                       X_test=data.test_file, test_rows=held, sep=data.sep,
+                       accurate=engine.accurate, rank=engine.rank, n_lambdas=fit.n_lambdas,
+                       standardize=fit.standardize, progress=progress)
+    if n_folds is None:
+        return result
+    return _kfold_stats(result, src, y, groups, held, fit, n_folds, progress)
