@@ -842,7 +842,7 @@ def _select_one(path, cv, j, g, sigma2, noise, df_target, fraction_target):
         out["cv"] = Selection("cv", None, target=j, note=none)
         out["one-se"] = Selection("one-se", None, target=j, note=none)
     else:
-        cm = _refine_minimum(_cv_fun(cv, j), cv.lambdas, _target_col(cv.mse, j))
+        cm = _refine_minimum(_cv_fun(cv, j), cv.lambdas, _target_col(cv.mse, j), batched=True)
         mse_min, se_min = cv.at(cm["lam"])
         mse_min, se_min = _col(mse_min, j), _col(se_min, j)
         reason = (f"{cv.n_folds}-fold {cv.scheme}" + (f" x {cv.repeats} repeats" if cv.repeats > 1
