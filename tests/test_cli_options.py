@@ -46,6 +46,16 @@ EXCEPTIONS = {
     ("case", "run"): "run's case is a required argument; demo's --case defaults to the demo",
 }
 
+#: flags not spelled as the options field (case-file key) they fill, and why
+FLAG_SPELLINGS = {
+    ("--format", "formats"): "one flag for one or several formats, comma-separated",
+    ("--id", "id_column"): "short flag for an identifier column",
+    ("--test", "test_file"): "short flag for the test table",
+    ("--out", "out_dir"): "the output folder; not a case-file key (paths run --out)",
+    ("--lambda", "lam"): "'lambda' is a Python keyword",
+    ("--list", "list_"): "'list' is a Python builtin; not an options field",
+}
+
 #: the options dataclasses each command fills (paths/cli/<command>.py)
 FILLS = {
     "explore": (o.DataOptions, o.FitOptions, o.EngineOptions, o.FigureOptions, o.OutputOptions),
@@ -158,3 +168,11 @@ def test_predict_defaults_are_the_workflow_defaults():
 def test_demo_runs_the_demo_case_by_default():
     case = next(p for p in _commands()["demo"].params if p.name == "case")
     assert case.default == o.DEMO_CASE
+
+
+def test_a_flag_is_its_field_spelled_with_dashes():
+    """``--n-folds`` fills ``n_folds`` (a case file's key): one concept, one name in both
+    places, but for the spellings listed in ``FLAG_SPELLINGS``."""
+    odd = {(_key(p), p.name) for _, p in _params() if _key(p).startswith("--")
+           and _key(p) != "--" + p.name.replace("_", "-")}
+    assert odd == set(FLAG_SPELLINGS)

@@ -115,7 +115,7 @@ def test_numpy_reader(dtype, shape, edits, npz, seed):
 KEYS = {"case": ["name", "title", "analysis", "synthetic", "description"],
         "data": ["generator", "file", "target", "params", "holdout", "seed"],
         "fit": ["n_lambdas", "cv", "rule", "standardize", "solver", "repeats"],
-        "figures": ["formats", "width", "x", "report"],
+        "figures": ["formats", "width", "figure_x", "report"],
         "threshold": ["n_points", "repeats", "over", "ridge_lambda"],
         "truth": ["p", "snr"], "simulate": ["n_train", "repeats"], "model": ["x"]}
 VALUES = st.one_of(st.integers(-3, 10**12).map(str), st.floats(allow_nan=True).map(

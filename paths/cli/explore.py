@@ -147,7 +147,7 @@ def explore_cmd(
     rank: int = f.RANK,
     formats: str = f.FORMATS,
     width: str = f.WIDTH,
-    x: str = f.FIGURE_X,
+    figure_x: str = f.FIGURE_X,
     report: bool = f.REPORT,
     out_dir: Path = f.out_dir("explore"),
     force: bool = f.FORCE,

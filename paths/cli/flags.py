@@ -149,7 +149,7 @@ FORMATS = typer.Option(",".join(o.FigureOptions.formats), "--format", help="Figu
                        "(300 dpi), pdf (TrueType fonts), svg; or none.")
 WIDTH = typer.Option(o.FigureOptions.width, "--width", help="Figure width: single (3.5 in) or double "
                      "(7.2 in) journal column.")
-FIGURE_X = typer.Option(o.FigureOptions.x, "--figure-x", help="Path figures against log_lambda or df "
+FIGURE_X = typer.Option(o.FigureOptions.figure_x, "--figure-x", help="Path figures against log_lambda or df "
                         "(effective degrees of freedom).")
 REPORT = typer.Option(o.FigureOptions.report, "--report/--no-report", help="Write report.md and a self-contained "
                       "report.html (with the figures).")

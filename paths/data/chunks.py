@@ -734,13 +734,18 @@ class CSVColumns(ArrayColumns):
 
     The records are parsed in chunks of about 32 MiB by
     :func:`paths.data.tables.read_text_chunks` (the delimiter, header, ragged
-    records, number syntax and messages of :func:`paths.data.tables.read_table`),
-    every value checked by :func:`frame_block`, and the feature columns written
-    to a temporary memory-mapped float64 file (n × p on disk, deleted with this
-    object); column blocks are then read from it, so memory stays at one chunk
-    plus one block.  The target columns are kept in memory (``targets``, shape
-    (n, t)), and so are the ``side`` columns as read (``side[name]``, e.g. the
-    group labels), one value per row.
+    records, number syntax and messages of :func:`paths.data.tables.read_table`)
+    and the numeric feature columns written to a temporary memory-mapped
+    float64 file (n × p on disk, deleted with this object; missing values as
+    NaN); column blocks are then read from it, so memory stays at one chunk
+    plus one block.  Kept in memory as read, one value per row: the target
+    columns (``raw[name]``), the ``side`` columns (``raw[name]``, e.g. group
+    labels or identifiers) and the feature columns that hold text
+    (``text[name]``; ``mixed`` names those that are numbers in some chunks and
+    text in others).  ``lines`` are the file lines of the rows.  Iterating
+    refuses missing, infinite and text values (:class:`ArrayColumns`);
+    :meth:`frame` gives the columns as read, for the in-memory selection rules
+    (:mod:`paths.data.wide_select`).
     """
 
     def __init__(self, path, target, *, features=None, sep=None, side=(),
@@ -752,31 +757,108 @@ class CSVColumns(ArrayColumns):
 
         rows = CSVRows(path, target, features=features, sep=sep)
         chunk = max(1, (32 << 20) // (8 * len(rows.columns)))  # ~32 MiB a chunk
-        p = rows.n_features
+        feats = rows.feature_names
         tmp = tempfile.TemporaryDirectory(prefix="paths-wide-")
         weakref.finalize(self, tmp.cleanup)
-        raw = Path(tmp.name) / "design.f64"
-        targets, extra, n = [], {c: [] for c in side}, 0
-        with open(raw, "wb") as fh:
+        raw_path = Path(tmp.name) / "design.f64"
+        keep = [*rows.target_names, *[c for c in side if c not in rows.target_names]]
+        raw, text, lines, n = {c: [] for c in keep}, {}, [], 0
+        with open(raw_path, "wb") as fh:
             for frame in read_text_chunks(rows.layout, chunk):
-                block = frame_block(frame, rows.columns, n, rows.source)
-                np.ascontiguousarray(block[:, :p]).tofile(fh)
-                targets.append(block[:, p:].copy())
-                for c in side:
-                    extra[c].append(frame[c].to_numpy())
-                n += block.shape[0]
+                b = frame.shape[0]
+                block = _text_chunk_block(frame, feats, text, n)
+                np.ascontiguousarray(block).tofile(fh)
+                for c in keep:
+                    raw[c].append(frame[c].to_numpy())
+                got = frame.attrs.get("paths_lines")
+                lines.append(np.arange(n + 2, n + 2 + b) if got is None else np.asarray(got))
+                n += b
                 if progress:
                     progress("pass 0: CSV rows to a memory-mapped column store", n, None)
         if n == 0:
             raise InputError(f"{path} has a header row but no data rows; add data rows")
-        X = np.memmap(raw, dtype=np.float64, mode="r", shape=(n, p))
-        super().__init__(X, block_columns=block_columns, feature_names=rows.feature_names,
-                         source=str(path))
-        self.targets = np.vstack(targets)
+        X = np.memmap(raw_path, dtype=np.float64, mode="r", shape=(n, len(feats)))
+        super().__init__(X, block_columns=block_columns, feature_names=feats, source=str(path))
         self.target_names = rows.target_names
-        self.side = {c: np.concatenate(v) for c, v in extra.items()}
+        self.raw = {c: _joined(v) for c, v in raw.items()}
+        self.side = {c: self.raw[c] for c in side}
+        self.lines = np.concatenate(lines)
+        self.text, self.mixed = {}, set()
+        for c, parts in text.items():
+            self.text[c], mixed = _text_column(parts, X[:, feats.index(c)])
+            if mixed:
+                self.mixed.add(c)
         self.notes = rows.notes
         self._tmp = tmp
+
+    @property
+    def targets(self) -> np.ndarray:
+        """The target columns as float64 (n, t); a non-numeric value is refused with its line."""
+        import pandas as pd
+
+        frame = pd.DataFrame({c: self.raw[c] for c in self.target_names})
+        frame.attrs["paths_lines"] = self.lines
+        return frame_block(frame, self.target_names, 0, self.source)
+
+    def __iter__(self):
+        if self.text:
+            c = next(iter(self.text))
+            raise InputError(f"{self.source}: non-numeric (categorical) feature column(s): "
+                             f"{c!r}; encode or exclude it")
+        yield from super().__iter__()
+
+    def frame(self, names):
+        """The columns ``names`` as read (numbers as float64 with NaN, text as objects)."""
+        import pandas as pd
+
+        pos = [self.feature_names.index(c) for c in names]
+        block = np.array(self._X[:, pos], dtype=np.float64)
+        frame = pd.DataFrame(block, columns=list(names))
+        for c in names:
+            if c in self.text:
+                frame[c] = self.text[c]
+        return frame
+
+
+def _text_chunk_block(frame, feats, text: dict, start: int) -> np.ndarray:
+    """The numeric feature columns of a parsed chunk as float64 (text cells as NaN); the
+    values of the columns that hold text kept in ``text[name]`` as ``(start, values)``."""
+    from paths.data.tables import is_numeric_dtype, numeric_block
+
+    dtypes = frame.dtypes
+    nums = [c for c in feats if is_numeric_dtype(dtypes[c]) or bool(frame[c].isna().all())
+            ] if any(not is_numeric_dtype(dtypes[c]) for c in feats) else feats
+    if len(nums) == len(feats):
+        return numeric_block(frame, feats)
+    block = np.full((frame.shape[0], len(feats)), np.nan)
+    pos = {c: j for j, c in enumerate(feats)}
+    block[:, [pos[c] for c in nums]] = numeric_block(frame, nums)
+    num_set = set(nums)
+    for c in feats:
+        if c not in num_set:
+            text.setdefault(c, []).append((start, frame[c].to_numpy(dtype=object)))
+    return block
+
+
+def _text_column(parts, numbers) -> tuple:
+    """A text column over every row: its text chunks, and the numbers read elsewhere (as
+    floats, missing as None); True when some chunks were numbers (mixed)."""
+    out = np.empty(numbers.shape[0], dtype=object)
+    done = np.zeros(numbers.shape[0], dtype=bool)
+    for start, vals in parts:
+        out[start:start + vals.shape[0]] = vals
+        done[start:start + vals.shape[0]] = True
+    rest = np.flatnonzero(~done)
+    vals = np.asarray(numbers[rest], dtype=np.float64)
+    out[rest] = [None if np.isnan(v) else float(v) for v in vals]
+    return out, bool(np.any(~np.isnan(vals)))
+
+
+def _joined(parts) -> np.ndarray:
+    """Chunks of one column joined; object when any chunk was text."""
+    if any(p.dtype == object for p in parts):
+        return np.concatenate([p.astype(object) for p in parts])
+    return np.concatenate(parts)
 
 
 class RowSubsetColumns(ColumnSource):

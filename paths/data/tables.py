@@ -51,6 +51,8 @@ from paths.data.validation import InputError, all_finite, check_memory, column_r
 
 __all__ = [
     "Dataset",
+    "is_numeric_dtype",
+    "numeric_block",
     "NA_TOKENS",
     "TextBlock",
     "TextLayout",
@@ -1096,6 +1098,17 @@ def _float_block(frame: pd.DataFrame, cols) -> np.ndarray:
            for dt in block.dtypes):
         return block.to_numpy(dtype=np.float64)
     return np.column_stack([_float_column(block[c]) for c in cols])
+
+
+def is_numeric_dtype(dt) -> bool:
+    """Whether :func:`select` reads a column of dtype ``dt`` as numbers (numbers or booleans)."""
+    return _is_numeric_dtype(dt)
+
+
+def numeric_block(frame: pd.DataFrame, cols) -> np.ndarray:
+    """Numeric columns of ``frame`` as float64 (n, len(cols)), missing as NaN, converted as
+    :func:`select` converts them (booleans and nullable types included)."""
+    return _float_block(frame, list(cols))
 
 
 def _missing_mask(s: pd.Series) -> np.ndarray:

@@ -20,7 +20,7 @@ same checks::
                  n_points, ridge_lambda, ...
     [truth]      TruthOptions (simulate): n_features, covariance, snr, seed, ...
     [simulate]   DrawOptions (simulate): n_train, n_test
-    [figures]    FigureOptions: formats, width, x ("log_lambda" | "df"), report
+    [figures]    FigureOptions: formats, width, figure_x ("log_lambda" | "df"), report
 
 Unknown tables or keys are refused with one line naming them and listing the
 valid ones.  Relative file paths are read from the case file's folder.

@@ -354,6 +354,6 @@ def _write_engine(result, summary: dict, out: Path, targets, figures: FigureOpti
                                           selection=selection))
     if drawable:
         files += write_explore_outputs(result, summary, out, formats=formats, width=width,
-                                       x=figures.x, report=figures.report, progress=progress)
+                                       x=figures.figure_x, report=figures.report, progress=progress)
     return files
 

@@ -63,8 +63,9 @@ def check_figures(figures: FigureOptions) -> tuple:
 
     formats = parse_formats(figures.formats) if figures.formats else ()
     width = parse_width(figures.width)
-    if figures.x not in ("log_lambda", "df"):
-        raise InputError(f"x must be log_lambda or df (the axis of the path figures); got {figures.x!r}")
+    if figures.figure_x not in ("log_lambda", "df"):
+        raise InputError(f"figure_x must be log_lambda or df (the axis of the path figures); "
+                         f"got {figures.figure_x!r}")
     return formats, width
 
 
@@ -308,6 +309,6 @@ def write_explore(fitted, summary: dict, out: Path, targets, figures: FigureOpti
                  write_json(out / "summary.json", summary)]
     if formats or figures.report:
         files += write_explore_outputs(result, summary, out, cv=fitted.cv, formats=formats,
-                                       width=width, x=figures.x, report=figures.report,
+                                       width=width, x=figures.figure_x, report=figures.report,
                                        progress=progress)
     return files

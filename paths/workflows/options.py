@@ -218,11 +218,12 @@ class DrawOptions:
 
 @dataclass(frozen=True)
 class FigureOptions:
-    """Figures and the report (``[figures]``): formats, width, x axis of path figures, report."""
+    """Figures and the report (``[figures]``): formats, width, the x axis of path figures
+    (``figure_x``: ``"df"`` or ``"log_lambda"``), report."""
 
     formats: tuple = ("png", "svg")
     width: str = "single"
-    x: str = "df"
+    figure_x: str = "df"
     report: bool = True
 
     def __post_init__(self):

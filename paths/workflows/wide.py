@@ -28,11 +28,6 @@ __all__ = ["fit_wide", "WIDE_REFUSALS"]
 
 #: Options the wide engine refuses, with the reason and what to use instead.
 WIDE_REFUSALS = {
-    "encode": ("encode with wide data: text columns are not encoded in column blocks yet; "
-               "encode them beforehand (e.g. pandas.get_dummies) or use engine memory"),
-    "drop_missing": ("drop_missing with wide data: a missing value is found only when its "
-                     "column block is read, after the rows are fixed; remove the missing "
-                     "values beforehand or use engine memory"),
     "weights": ("weights with wide data: the column-blocked Gram is unweighted; use engine "
                 "memory"),
 }
@@ -51,39 +46,50 @@ def _refuse(data: DataOptions, path: Path, engine: EngineOptions, rows, n_feats)
             raise InputError(why)
     if data.test_file is not None and data.holdout is not None:
         raise InputError("pass either test_file or holdout, not both")
+    if data.test_file is not None and (data.encode or data.drop_missing):
+        raise InputError("test_file with encode or drop_missing on wide data: the test file "
+                         "would need the training file's levels and rows block by block; use "
+                         "holdout, or engine memory")
 
 
-def _side_columns(path: Path, src, column: str) -> np.ndarray:
-    """The values of a non-feature column (group labels), as the in-memory reader reads them."""
-    import pandas as pd
+def _raw_columns(path: Path, src, names) -> dict:
+    """The target and side columns (groups, identifiers) as read, one value per row."""
+    if hasattr(src, "raw"):
+        return {c: src.raw[c] for c in names}
+    import pyarrow.parquet as pq
 
-    from paths.workflows.prepare import group_labels
-
-    side = getattr(src, "side", None)
-    if side is not None:
-        frame = pd.DataFrame({column: side[column]})
-    else:
-        import pyarrow.parquet as pq
-
-        frame = pq.read_table(path, columns=[column]).to_pandas()
-    return group_labels(frame, column, str(path))
+    frame = pq.read_table(path, columns=list(dict.fromkeys(names))).to_pandas()
+    return {c: frame[c].to_numpy() for c in names}
 
 
 def _open(path: Path, data: DataOptions, targets, feats, engine: EngineOptions, progress):
-    """``(column source, response, group labels or None)`` of a wide file."""
+    """``(design source, response, group labels or None, notes)`` of a wide file, under the
+    in-memory reader's rules (:func:`paths.data.wide_select.select_wide`)."""
+    import pandas as pd
+
     from paths.data.chunks import DEFAULT_BLOCK_COLUMNS, CSVColumns, is_text_path
-    from paths.engines.wide import open_wide
+    from paths.data.wide_select import ParquetFrames, SelectedColumns, select_wide
+    from paths.workflows.prepare import group_labels
 
     block = engine.chunk_rows or DEFAULT_BLOCK_COLUMNS
+    side = [c for c in (data.groups, data.id_column) if c is not None]
     if is_text_path(path):
-        side = () if data.groups is None else (data.groups,)
-        src = CSVColumns(path, targets, features=feats, sep=data.sep, side=side,
-                         block_columns=block, progress=progress)
-        y = src.targets
+        frames = CSVColumns(path, targets, features=feats, sep=data.sep, side=side,
+                            block_columns=block, progress=progress)
     else:
-        src, y = open_wide(path, target=targets, features=feats, block_columns=block)
-    groups = None if data.groups is None else _side_columns(path, src, data.groups)
-    return src, (y if len(targets) > 1 else y[:, 0]), groups
+        frames = ParquetFrames(path, feats)
+    raw = _raw_columns(path, frames, [*targets, *side])
+    groups = None
+    if data.groups is not None:  # refused when missing, before the rows are selected
+        groups = group_labels(pd.DataFrame({data.groups: raw[data.groups]}), data.groups,
+                              str(path))
+    sel = select_wide(frames, raw, targets, id_column=data.id_column, encode=data.encode,
+                      drop_missing=data.drop_missing, block_columns=block)
+    if groups is not None and sel.rows is not None:
+        groups = groups[sel.rows]
+    notes = [*getattr(frames, "notes", ()), *sel.notes,
+             "pass 0: the in-memory reader's rules over every column block"]
+    return SelectedColumns(frames, sel, block_columns=block), sel.y, groups, notes
 
 
 def _kfold_stats(result, src, y, groups, holdout_rows, fit: FitOptions, n_folds, progress):
@@ -126,7 +132,7 @@ def fit_wide(data: DataOptions, fit: FitOptions, engine: EngineOptions, *, path:
     from paths.workflows.explore import folds_for
 
     _refuse(data, path, engine, rows, len(feats))
-    src, y, groups = _open(path, data, targets, feats, engine, progress)
+    src, y, groups, notes = _open(path, data, targets, feats, engine, progress)
     held = None
     if data.holdout is not None:
         held = holdout_mask(np.arange(src.n_rows), src.n_rows, data.holdout, seed=fit.seed)
@@ -137,6 +143,7 @@ def fit_wide(data: DataOptions, fit: FitOptions, engine: EngineOptions, *, path:
                        X_test=data.test_file, test_rows=held, sep=data.sep,
                        accurate=engine.accurate, rank=engine.rank, n_lambdas=fit.n_lambdas,
                        standardize=fit.standardize, progress=progress)
+    result = dataclasses.replace(result, notes=tuple(notes) + result.notes)
     if n_folds is None:
         return result
     return _kfold_stats(result, src, y, groups, held, fit, n_folds, progress)
