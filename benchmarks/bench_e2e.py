@@ -19,7 +19,8 @@ table, 200 000 × 50 (not with ``--quick`` unless ``--large``) and
   the same file, standardizes, runs ``RidgeCV`` over 100 log-spaced penalties and
   saves one matplotlib figure (it computes much less: no path, no df, no GCV, no
   report).  Peak memory over the data (float64) above two floors: an idle child
-  with the libraries, and one that also imports the modules of paths.
+  with the libraries (the plain script's included), and one with exactly what
+  explore loads (no scikit-learn; the modules of paths).
 - **predict**: ``paths predict fit.npz FILE`` (the fit of one explore run)
   against unpickling a scikit-learn ``StandardScaler`` + ``Ridge`` pipeline fitted at
   the same penalty, reading the rows with pandas, predicting and writing a CSV.
@@ -69,9 +70,13 @@ _IMPORT_FLOOR = _HWM + "import numpy, scipy.linalg\n"
 
 # an idle child holding every library a run loads: the resident floor under any run
 _IDLE = _HWM + f"import {H.IDLE_LIBRARIES}\n"
-# the same with the modules of paths an explore run loads (code, not data): a second floor
-_IDLE_PATHS = _IDLE + ("import scipy.optimize, paths.cli, paths.workflows.explore, "
-                       "paths.present.figures, paths.present.report, paths.selection.rules\n")
+# exactly what an explore run loads (its libraries without scikit-learn, which it never
+# imports, and the modules of paths: code, not data): the floor under its data
+_IDLE_PATHS = _HWM + ("import numpy, scipy.linalg, scipy.optimize, pandas, pyarrow.parquet, "
+                      "matplotlib.pyplot, rich, paths.cli, paths.workflows.explore, "
+                      "paths.present.figures, paths.present.report, paths.present.fitfile, "
+                      "paths.selection.rules, paths.core.path, paths.data.tables, "
+                      "matplotlib.backends.backend_svg\n")
 
 _PLAIN = _HWM + r"""
 import numpy as np, pandas as pd
@@ -402,8 +407,8 @@ def run(quick: bool) -> list:
     threads = 1  # the stable figure; whole processes at two threads vary too much here
     rows += _startup(threads, 3 if quick else 7)
     floors = {"idle libraries": _repeat(_IDLE, lambda out: [], threads, 1)["rss_mb"],
-              "idle libraries and paths": _repeat(_IDLE_PATHS, lambda out: [], threads,
-                                                  1)["rss_mb"]}
+              "modules explore loads": _repeat(_IDLE_PATHS, lambda out: [], threads,
+                                               1)["rss_mb"]}
     for label, mb in floors.items():
         rows.append(H.row(BENCH, "baseline", f"idle child with the {label}", mb, "MB",
                           threads=threads, kind="memory"))
