@@ -229,6 +229,8 @@ def test_wide_test_file_csv_columns_in_another_order(tmp_path):
     (["--weights", "g3"], "the column-blocked Gram is unweighted"),
     (["--encode", "onehot", "--test", "w.parquet"], "use --holdout, or --engine memory"),
     (["--engine", "dask"], "the dask engine splits rows"),
+    (["--solver", "gram"], "factors the n x n Gram matrix"),
+    (["--intervals", "0.9", "--holdout", "0.2"], "never forms"),
 ])
 def test_wide_refusals_say_why(tmp_path, flags, want):
     """What the wide engine cannot do: exit 2, one line, the reason and the alternative

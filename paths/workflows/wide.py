@@ -30,10 +30,19 @@ __all__ = ["fit_wide", "WIDE_REFUSALS"]
 WIDE_REFUSALS = {
     "weights": ("weights with wide data: the column-blocked Gram is unweighted; use engine "
                 "memory"),
+    "unpenalized": ("unpenalized with wide data: the column blocks would have to be projected "
+                    "off the unpenalized columns' span first; use engine memory"),
+    "relative_penalty": ("relative_penalty with wide data: the column-blocked Gram penalizes "
+                         "every column alike; use engine memory"),
+    "intervals": ("intervals with wide data: the leave-out predictions need the right "
+                  "factors, which the column-blocked engine never forms; use engine memory"),
+    "solver": ("solver with wide data: the column-blocked engine factors the n x n Gram "
+               "matrix, or with accurate a QR of the column blocks; drop solver"),
 }
 
 
-def _refuse(data: DataOptions, path: Path, engine: EngineOptions, rows, n_feats) -> None:
+def _refuse(data: DataOptions, fit: FitOptions, path: Path, engine: EngineOptions, rows,
+            n_feats) -> None:
     """One-line refusals of what the wide engine cannot do, with the reason."""
     if engine.name == "dask":
         raise InputError(f"{path} is wide ({rows} rows x {n_feats} features): use engine "
@@ -41,8 +50,10 @@ def _refuse(data: DataOptions, path: Path, engine: EngineOptions, rows, n_feats)
     if path.is_dir():
         raise InputError(f"{path}: wide data must be one file (columns are read "
                          "selectively); combine the parts")
+    defaults = {DataOptions: DataOptions(), FitOptions: FitOptions()}
     for name, why in WIDE_REFUSALS.items():
-        if getattr(data, name) is not None:
+        opts = data if hasattr(data, name) else fit
+        if getattr(opts, name) != getattr(defaults[type(opts)], name):
             raise InputError(why)
     if data.test_file is not None and data.holdout is not None:
         raise InputError("pass either test_file or holdout, not both")
@@ -131,7 +142,7 @@ def fit_wide(data: DataOptions, fit: FitOptions, engine: EngineOptions, *, path:
     from paths.engines.wide import wide_path
     from paths.workflows.explore import folds_for
 
-    _refuse(data, path, engine, rows, len(feats))
+    _refuse(data, fit, path, engine, rows, len(feats))
     src, y, groups, notes = _open(path, data, targets, feats, engine, progress)
     held = None
     if data.holdout is not None:
