@@ -210,10 +210,11 @@ def test_stream_loo_and_kfold_at_leverage_one_against_refits(lam):
 
     X, y = _one_hot_design()
     n = X.shape[0]
-    sp = stream_path(X, [lam], y=y, chunk_rows=7, accurate=True, standardize=False, cv=5)
+    sp = stream_path(X, [lam], y=y, chunk_rows=7, accurate=True, standardize=False, n_folds=5,
+                     fold_scheme="blocked")
     tol = 100 * _kappa(X) ** 2 * n * EPS
     assert_allclose(sp.loo_mse[0], _refit_loo(X, y, lam), rtol=tol)
-    lab = np.arange(n) * 5 // n  # contiguous blocks, as the engine assigns without a seed
+    lab = np.arange(n) * 5 // n  # contiguous blocks (fold_scheme blocked)
     err = np.empty(n)
     for f in range(5):
         te = lab == f
@@ -290,8 +291,8 @@ def test_dask_leverage_one_equals_stream():
     n = X.shape[0]
     lams = [1.0, 1e-12, 0.0]
     a = dask_path(da.from_array(X, chunks=(7, X.shape[1])), lams, y=y, accurate=True,
-                  standardize=False, cv=5)
-    b = stream_path(X, lams, y=y, chunk_rows=7, accurate=True, standardize=False, cv=5)
+                  standardize=False, n_folds=5)
+    b = stream_path(X, lams, y=y, chunk_rows=7, accurate=True, standardize=False, n_folds=5)
     tol = 100 * _kappa(X) ** 2 * n * EPS
     assert_allclose(a.loo_mse, b.loo_mse, rtol=tol)
     assert_allclose(a.cv_mse, b.cv_mse, rtol=tol)

@@ -91,9 +91,9 @@ def test_parquet_and_npy_stack_equal_streaming(cluster, tmp_path):
         pq.write_table(pa.table({**{nm: X[s:e, j] for j, nm in enumerate(names)},
                                  "target": y[s:e]}), d / f"part{i}.parquet")
         np.save(tmp_path / f"stack{i}.npy", np.column_stack([X[s:e], y[s:e]]))
-    ref = stream_path(d, target="target", cv=5)
-    a = dask_path(d, target="target", cv=5, scheduler=cl.scheduler_address)
-    b = dask_path(str(tmp_path / "stack*.npy"), cv=5, scheduler=cl.scheduler_address)
+    ref = stream_path(d, target="target", n_folds=5)
+    a = dask_path(d, target="target", n_folds=5, scheduler=cl.scheduler_address)
+    b = dask_path(str(tmp_path / "stack*.npy"), n_folds=5, scheduler=cl.scheduler_address)
     assert a.feature_names == names
     for res in (a, b):
         for f in ("coef", "gcv", "loo_mse", "cv_mse"):

@@ -81,10 +81,9 @@ def test_streamed_engines_draw_the_in_memory_folds(scheme):
     y = X @ rng.standard_normal(6) + rng.standard_normal(300)
     lam = [0.1, 3.0, 100.0]
     ref = cross_validate(X, y, lam, n_folds=5, scheme=scheme, seed=0, method="exact")
-    seed = 0 if scheme == "shuffled" else None
     for chunk in (37, 300):
-        res = stream_path(X, lam, y=y, chunk_rows=chunk, cv=5, cv_seed=seed)
+        res = stream_path(X, lam, y=y, chunk_rows=chunk, n_folds=5, fold_scheme=scheme)
         np.testing.assert_allclose(res.cv_mse, ref.mse, rtol=1e-9)
     with dask.config.set(scheduler="synchronous"):
-        res = dask_path(X, lam, y=y, chunk_rows=41, cv=5, cv_seed=seed)
+        res = dask_path(X, lam, y=y, chunk_rows=41, n_folds=5, fold_scheme=scheme)
     np.testing.assert_allclose(res.cv_mse, ref.mse, rtol=1e-9)

@@ -53,7 +53,7 @@ def test_wide_text_file_refused_before_reading(tmp_path, monkeypatch):
     with pytest.raises(InputError) as info:
         load_dataset(f, "y")
     msg = str(info.value)
-    assert "2001 columns" in msg and "--engine stream" in msg and "\n" not in msg
+    assert "2001 columns" in msg and "engine='stream'" in msg and "\n" not in msg
 
 
 def test_non_dask_service_is_named(tmp_path):

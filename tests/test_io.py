@@ -114,7 +114,7 @@ def test_parquet_round_trip_and_nested_columns(tmp_path):
                       "tags": pa.array([[1, 2]] * ARR.shape[0], type=pa.list_(pa.int64()))})
     pq.write_table(table, f)
     msg = _one_line_error(load_dataset, f, "y")
-    assert "'tags'" in msg and "nested" in msg and "--exclude" in msg
+    assert "'tags'" in msg and "nested" in msg and "exclude=tags" in msg  # a parameter; the CLI says --exclude
     d = load_dataset(f, "y", exclude=["tags"])
     assert d.feature_names == ["a", "b"]
     assert_array_equal(d.X, ARR[:, :2])
@@ -220,7 +220,7 @@ def test_categorical_refused_then_onehot_matches_pandas(table):
     ``pandas.get_dummies(drop_first=True)`` (reference level = first sorted level)."""
     t = table.assign(site=["b", "a", "c"] * 4)
     msg = _one_line_error(select, t, "y1", id_column="sample")
-    assert "'site'" in msg and "--encode onehot" in msg
+    assert "'site'" in msg and "encode='onehot'" in msg  # the parameter (CLI: --encode onehot)
     d = select(t, "y1", features=["temp", "site"], encode="onehot")
     ref = pd.get_dummies(t[["temp", "site"]], columns=["site"], drop_first=True, prefix_sep="=",
                          dtype=float)
@@ -261,7 +261,7 @@ def test_missing_values_counted_refused_or_dropped(table):
     assert d.feature_names == ["band_1", "band_10"] and d.dropped_columns == ["band_2", "temp"]
     assert d.X.shape[0] == 12
     t.loc[3, "y1"] = np.nan
-    assert "--drop-missing rows" in _one_line_error(
+    assert "drop_missing='rows'" in _one_line_error(
         select, t, "y1", id_column="sample", exclude=["y2"], drop_missing="columns")
 
 

@@ -138,7 +138,9 @@ def test_kfold_against_sklearn_refits(cv_seed):
     convention): blocked and seeded-shuffle folds, 1e-8 relative."""
     X, y = problem(n=300, p=6, seed=4)
     lams = np.array([100.0, 3.0, 0.0])
-    res = stream_path(X, lams, y=y, chunk_rows=41, cv=5, cv_seed=cv_seed)
+    res = stream_path(X, lams, y=y, chunk_rows=41, n_folds=5,
+                      fold_scheme="blocked" if cv_seed is None else "shuffled",
+                      seed=cv_seed or 0)
     hp_folds = None
     from paths.engines.stream import HatPass, factor_moments  # fold labels as the engine assigns them
     from paths.engines.stream import PairwiseMerger as PM
@@ -284,7 +286,7 @@ def test_parquet_null_reports_row_range(tmp_path):
 
 
 @pytest.mark.parametrize("kw, msg", [
-    (dict(cv=1), "cv must be an integer >= 2"),
+    (dict(n_folds=1), "n_folds must be an integer >= 2"),
     (dict(chunk_rows=0), "chunk_rows must be a positive integer"),
     (dict(target="nope"), "target column 'nope' not found"),
 ])
@@ -374,9 +376,9 @@ def test_cli_bad_input_exit_2(tmp_path, case):
     else:
         X, y = problem(n=50, p=5)
         _parquet(tmp_path / "d.parquet", X, y)
-        args += [str(tmp_path / "d.parquet"), "-t", "y", "--engine", "stream", "--cv-scaling",
-                 "per-fold"]
-        want = "--cv-scaling is not available with --engine stream (per-fold scaling refits"
+        args += [str(tmp_path / "d.parquet"), "-t", "y", "--engine", "stream", "--unpenalized",
+                 "x0"]
+        want = "--unpenalized is not available with --engine stream (its one-pass moments"
     r = CliRunner().invoke(app, args + ["--out", str(tmp_path / "out")])
     assert r.exit_code == 2, r.output
     assert want in r.output

@@ -220,12 +220,25 @@ def as_flags(message: str, flags: dict) -> str:
     """A library error message with the parameters it names spelled as this command's flags.
 
     Library errors name parameters (``n_folds``, ``holdout``); on the command
-    line the user knows the flags (``--n-folds``, ``--holdout``).
+    line the user knows the flags (``--n-folds``, ``--holdout``).  A parameter
+    written as Python passes it, ``name=value`` (``encode='onehot'``,
+    ``target=COLUMN``, ``sep=``), becomes ``--flag value`` (``--encode onehot``;
+    ``name=True``: the flag alone).
+
+    Examples
+    --------
+    >>> as_flags("pass encode='onehot', or exclude= them", {"encode": "--encode",
+    ...                                                     "exclude": "--exclude"})
+    'pass --encode onehot, or --exclude them'
     """
     for name in sorted(flags, key=len, reverse=True):
         flag = flags[name]
+        message = re.sub(r"(?<![\w-])" + re.escape(name)
+                         + r"""=(?:'([^']*)'|"([^"]*)"|([^\s,;)'"]*))""",
+                         lambda m: " ".join(x for x in (flag, *m.groups())
+                                            if x and x != "True"), message)
         where = r"(?<![\w-])" if "_" in name else _CONTEXT
-        message = re.sub(where + re.escape(name) + r"(?![\w-])", flags[name], message)
+        message = re.sub(where + re.escape(name) + r"(?![\w=-])", flag, message)
     return message
 
 

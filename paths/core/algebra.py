@@ -86,7 +86,7 @@ __all__ = [
     "augment_rows", "LEVERAGE_REFINE", "loo_sums", "loo_mse",
     "loo_residuals", "project", "test_sums", "coefficients", "min_norm_coefficients",
     "intercepts", "coef_norm", "append_zero", "sample_weights", "path_coef_norm", "fold_factor", "kfold_fold_mse", "tsqr",
-    "HeldOutFold", "heldout_mse",
+    "block_sse", "loo_power_sums", "loo_standard_error", "HeldOutFold", "heldout_mse",
 ]
 
 _EPS = np.finfo(np.float64).eps
@@ -604,6 +604,38 @@ def loo_sums(rows: LeverageRows, sh: Shrinkage, c: np.ndarray) -> np.ndarray:
     return res.sum(axis=0)
 
 
+def loo_power_sums(rows: LeverageRows, sh: Shrinkage, c: np.ndarray):
+    r""":func:`loo_sums` and the sum of the fourth powers of the leave-one-out
+    residuals, both (k, t): with n, the mean :math:`S_2/n` of the squared
+    residuals and its standard error
+    :math:`\sqrt{(S_4 - S_2^2/n) / ((n - 1)\, n)}` (:func:`loo_standard_error`)."""
+    res = _loo_res(rows, sh, c)
+    np.square(res, out=res)
+    return res.sum(axis=0), np.einsum("ikt,ikt->kt", res, res)
+
+
+def loo_standard_error(s2: np.ndarray, s4: np.ndarray, n: int) -> np.ndarray:
+    r"""Standard error :math:`\operatorname{sd}(e_{(i)}^2)/\sqrt n` of the leave-one-out
+    MSE from the sums of the squared residuals and of their squares.
+
+    The sample variance :math:`(S_4 - S_2^2/n)/(n - 1)` of the squared residuals
+    is formed by one subtraction; its relative rounding error is about
+    :math:`n\,\varepsilon\, S_4 / (S_4 - S_2^2/n)` (the sums' own error over
+    the cancellation), e.g. :math:`1.5\,n\,\varepsilon` for Gaussian
+    residuals (:math:`E e^4 = 3\sigma^4`, variance of :math:`e^2` :math:`2\sigma^4`).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> e2 = np.array([1.0, 4.0, 9.0])
+    >>> se = loo_standard_error(e2.sum(), np.square(e2).sum(), 3)
+    >>> bool(np.isclose(se, e2.std(ddof=1) / np.sqrt(3)))
+    True
+    """
+    var = np.maximum(s4 - np.square(s2) / n, 0.0) / max(n - 1, 1)
+    return np.sqrt(var / n)
+
+
 def _loo_res(rows: LeverageRows, sh: Shrinkage, c: np.ndarray) -> np.ndarray:
     ub = rows.u
     b, (r, k), t = ub.shape[0], sh.s_rel.shape, c.shape[1]
@@ -984,6 +1016,60 @@ def kfold_fold_mse(d: np.ndarray, fold_r: np.ndarray, counts: np.ndarray, lam, *
         rest = np.einsum("it,it->t", Rf[ra:, ra:], Rf[ra:, ra:])
         out[f] = (np.einsum("ikt,ikt->kt", res, res) + rest[None, :]) / counts[f]
     return out
+
+
+def block_sse(coef: np.ndarray, n: int, dmean: np.ndarray, *, m2: np.ndarray | None = None,
+              r: np.ndarray | None = None) -> np.ndarray:
+    r"""Sum of squared errors (k, t) of a fit on a block of rows, from the block's moments.
+
+    Parameters
+    ----------
+    coef : ndarray, shape (k, p, t)
+        Coefficients on the original scale of a fit whose intercepts are
+        :math:`\bar y_o - \bar x_o^T \beta` (means of the rows it was fitted on).
+    n : int
+        Rows of the block.
+    dmean : ndarray, shape (p + t,)
+        The block's column means of ``[X | Y]`` minus the fit's means
+        :math:`(\bar x_o, \bar y_o)`.
+    m2, r : ndarray
+        The block's centered cross products of ``[X | Y]`` (p + t square), or
+        their triangular factor (``r^T r = m2``, the accurate route).
+
+    Returns
+    -------
+    ndarray, shape (k, t)
+
+    Notes
+    -----
+    With :math:`v = (-\beta, e_j)` the residuals of the block are
+    :math:`(w_i - \bar w_b)^T v + \delta`, :math:`\delta = (\bar w_b - \bar w_o)^T v`,
+    so their sum of squares is :math:`v^T M_b v + n \delta^2` (the cross term
+    vanishes: centered rows sum to 0) — :math:`\|R_b v\|^2 + n\delta^2` from
+    the triangular factor, a sum of squares without cancellation.  The mean
+    offset is formed from the difference of the means, never as
+    :math:`\bar y_b - b_0 - \bar x_b^T\beta` with a large intercept.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> W = np.array([[0.0, 1.0], [1.0, 2.0], [2.0, 2.0]])
+    >>> c = W - W.mean(axis=0)
+    >>> coef = np.array([[[0.5]]])  # y = 1 + 0.5 x fitted elsewhere (means 0, 1)
+    >>> round(float(block_sse(coef, 3, W.mean(axis=0) - [0.0, 1.0], m2=c.T @ c)[0, 0]), 12)
+    0.25
+    """
+    p = coef.shape[1]
+    delta = dmean[None, p:] - np.einsum("p,kpt->kt", dmean[:p], coef)
+    if r is not None:
+        res = r[:, None, p:] - np.einsum("sp,kpt->skt", r[:, :p], coef)
+        quad = np.einsum("skt,skt->kt", res, res)
+    else:
+        mxx, mxy, myy = m2[:p, :p], m2[:p, p:], np.diag(m2[p:, p:])
+        quad = (np.einsum("kpt,pq,kqt->kt", coef, mxx, coef)
+                - 2.0 * np.einsum("kpt,pt->kt", coef, mxy) + myy[None, :])
+        quad = np.maximum(quad, 0.0)  # a sum of squares; rounding of the Gram route
+    return quad + n * np.square(delta)
 
 
 def _other_factors(fold_r: np.ndarray):

@@ -24,6 +24,7 @@ from paths.data.validation import InputError
 __all__ = ["RowSource", "ArrayRows", "ParquetRows", "CSVRows", "open_rows", "count_rows",
            "HoldoutRows", "GroupValues", "CSVColumns", "is_text_path", "frame_block", "RowSubsetColumns",
            "ColumnSource", "ArrayColumns", "ParquetColumns", "open_columns",
+           "PreparedRows", "PreparedGroups", "file_frames", "open_prepared",
            "DEFAULT_CHUNK_ROWS", "DEFAULT_BLOCK_COLUMNS"]
 
 DEFAULT_CHUNK_ROWS = 65_536
@@ -135,7 +136,7 @@ def select_columns(names, target, features, where):
     """(features, targets) among the column names: targets checked, features default the rest."""
     targets = [target] if isinstance(target, str) else list(target or [])
     if not targets:
-        raise InputError(f"{where}no target column given; pass --target COLUMN")
+        raise InputError(f"{where}no target column given; pass target=COLUMN")
     missing = [t for t in targets if t not in names]
     if missing:
         shown = ", ".join(map(str, names[:8])) + (" ..." if len(names) > 8 else "")
@@ -146,7 +147,7 @@ def select_columns(names, target, features, where):
         features = list(features)
         absent = [c for c in features if c not in names]
         if absent:
-            raise InputError(f"{where}feature column {absent[0]!r} not found; check --features")
+            raise InputError(f"{where}feature column {absent[0]!r} not found; check features=")
     if not features:
         raise InputError(f"{where}no feature columns left besides the target; add features")
     return features, targets
@@ -195,8 +196,8 @@ class ParquetRows(RowSource):
         nonnum = [c for c in features + targets if not _is_numeric(first.field(c).type)]
         if nonnum:
             shown = ", ".join(f"{c} ({first.field(c).type})" for c in nonnum[:5])
-            raise InputError(f"{where}non-numeric column(s): {shown}; drop them (--features) "
-                             "or encode them as numbers")
+            raise InputError(f"{where}non-numeric column(s): {shown}; drop them (features=), "
+                             "encode them as numbers or pass encode='onehot'")
         self._schema = first
         super().__init__(columns=features + targets, n_features=len(features),
                          n_rows=int(sum(m.num_rows for m in metas)), source=str(path),
@@ -379,7 +380,7 @@ def open_rows(data, target=None, *, features=None, sep=None,
             return ArrayRows(arr, y, chunk_rows=chunk_rows, source=str(path))
         return CSVRows(path, target, features=features, sep=sep, chunk_rows=chunk_rows)
     if y is None:
-        raise InputError("pass the response y with an array design (or a file path and --target)")
+        raise InputError("pass the response y with an array design (or a file path and target=)")
     names = None
     cols = getattr(data, "columns", None)
     if cols is not None:
@@ -466,7 +467,7 @@ class ParquetColumns(ColumnSource):
             features = [c for c in names if c not in set(exclude)]
         absent = [c for c in features if c not in names]
         if absent:
-            raise InputError(f"{path}: feature column {absent[0]!r} not found; check --features")
+            raise InputError(f"{path}: feature column {absent[0]!r} not found; check features=")
         nonnum = [c for c in features if not _is_numeric(schema.field(c).type)]
         if nonnum:
             raise InputError(f"{path}: non-numeric column(s): {', '.join(nonnum[:5])}; "
@@ -590,12 +591,12 @@ class GroupValues:
         self._index = None
         if isinstance(groups, str):
             if not isinstance(src, (CSVRows, ParquetRows)):
-                raise InputError(f"--groups {groups!r} names a column; the data ({src.source}) "
+                raise InputError(f"groups={groups!r} names a column; the data ({src.source}) "
                                  "have none: pass the group labels as an array")
             names = _file_columns(src)
             if groups not in names:
                 shown = ", ".join(map(str, names[:8])) + (" ..." if len(names) > 8 else "")
-                raise InputError(f"{src.source}: --groups column {groups!r} not found; columns "
+                raise InputError(f"{src.source}: groups= column {groups!r} not found; columns "
                                  f"are: {shown}")
         else:
             g = np.asarray(groups)
@@ -642,7 +643,7 @@ class GroupValues:
         for start, vals in self._raw():
             if pd_isna(vals).any():
                 i = int(np.flatnonzero(pd_isna(vals))[0])
-                raise InputError(f"{self._src.source}: --groups column has a missing value at "
+                raise InputError(f"{self._src.source}: groups= column has a missing value at "
                                  f"data row {start + i + 1}; give every row a group")
             if self._keep is not None:
                 vals = vals[self._keep(start, vals.shape[0])]
@@ -877,3 +878,121 @@ class RowSubsetColumns(ColumnSource):
     def __iter__(self):
         for s, block in self._src:
             yield s, block[self._rows]
+
+
+# --------------------------------------------------------------------------- prepared rows
+class PreparedRows(RowSource):
+    """Row chunks of a CSV or Parquet file prepared as the in-memory reader prepares the
+    table (``encode``, ``drop_missing``; :mod:`paths.data.rowprep`): text columns one-hot
+    encoded with the levels of the pre-pass, rows or columns with missing values dropped.
+    ``start`` counts the kept rows only (the holdout and the folds are assigned on them)."""
+
+    def __init__(self, frames, prep, *, source: str, chunk_rows: int = DEFAULT_CHUNK_ROWS):
+        names = prep.names + list(prep.targets)
+        super().__init__(columns=names, n_features=len(prep.names), n_rows=prep.n_rows,
+                         source=source, chunk_rows=_check_chunk_rows(chunk_rows),
+                         nbytes_per_row=8 * len(names))
+        self._frames, self.preparation = frames, prep
+
+    def __iter__(self):
+        start = 0
+        for frame in self._frames(self.preparation.text_columns):
+            block = self.preparation.block(frame, start, self.source)
+            for off in range(0, block.shape[0], self.chunk_rows):
+                yield start + off, block[off:off + self.chunk_rows]
+            start += block.shape[0]
+
+
+def file_frames(path, *, sep=None, chunk_rows: int = DEFAULT_CHUNK_ROWS, columns=None):
+    """``(names, frames)``: the column names of a CSV/TSV or Parquet file and
+    ``frames(keep_text)``, an iterator of its parsed chunks (CSV: ``chunk_rows``
+    records under the in-memory reader's rules, the ``keep_text`` columns as written;
+    Parquet: a row group of the ``columns``)."""
+    path = Path(path)
+    if path.is_dir() or path.suffix.lower() in _PARQUET_SUFFIXES:
+        import pyarrow.parquet as pq
+
+        files = parquet_files(path)
+
+        try:
+            names = list(pq.read_schema(files[0]).names)
+        except Exception as exc:  # pyarrow raises ArrowInvalid / OSError subclasses
+            raise InputError(f"{path}: not a readable Parquet file ({exc}); check the file") \
+                from None
+
+        def frames(keep_text=()):
+            for f in files:
+                pf = pq.ParquetFile(f, pre_buffer=False)
+                for g in range(pf.num_row_groups):
+                    frame = pf.read_row_group(g, columns=columns).to_pandas()
+                    frame.attrs["paths_lines"] = None
+                    yield frame
+        return names, frames
+    if path.suffix.lower() == ".npy":
+        raise InputError(f"{path}: encode and drop_missing need named columns; pass a CSV or "
+                         "Parquet file")
+    from paths.data.tables import read_text_chunks, text_layout
+
+    layout = text_layout(path, sep=sep)
+
+    def frames(keep_text=()):
+        return read_text_chunks(layout, chunk_rows, keep_text=tuple(keep_text))
+    return list(layout.names), frames
+
+
+class PreparedGroups(GroupValues):
+    """Group labels of the rows a :class:`PreparedRows` keeps, read from the same parsed
+    chunks (the ``groups`` column) with the same rows dropped."""
+
+    def __init__(self, groups: str, src: PreparedRows, *, keep=None):
+        if groups not in src.file_columns:
+            shown = ", ".join(map(str, src.file_columns[:8]))
+            raise InputError(f"{src.source}: groups= column {groups!r} not found; columns are: "
+                             f"{shown}")
+        self._groups, self._src, self._sep, self._keep = groups, src, None, keep
+        self._index = None
+
+    def subset(self, rows: "HoldoutRows") -> "PreparedGroups":
+        return PreparedGroups(self._groups, self._src, keep=rows.keep)
+
+    def _raw(self):
+        prep, start = self._src.preparation, 0
+        for frame in self._src._frames(prep.text_columns):
+            vals = frame[self._groups].to_numpy()[prep.kept_mask(frame)]
+            yield start, vals
+            start += vals.shape[0]
+
+
+def open_prepared(data, target, *, features=None, sep=None,
+                  chunk_rows: int = DEFAULT_CHUNK_ROWS, encode=None, drop_missing=None,
+                  like=None, extra=(), progress=None) -> PreparedRows:
+    """A :class:`PreparedRows` source for a CSV or Parquet file: the pre-pass
+    (:func:`paths.data.rowprep.scan_frames`) decides the columns, levels and rows kept;
+    with ``like`` (the training rows' :class:`~paths.data.rowprep.RowPreparation`), test
+    rows are prepared as the training rows were (their levels, their columns)."""
+    from dataclasses import replace
+
+    from paths.data.rowprep import scan_frames
+
+    if not isinstance(data, (str, os.PathLike)):
+        raise InputError("encode and drop_missing need a CSV or Parquet file; pass its path")
+    path = Path(data)
+    if not path.exists():
+        raise InputError(f"{path}: no such file or folder; check the path")
+    names, _ = file_frames(path, sep=sep)
+    if features is None and extra:  # the extra (groups) columns are not features
+        tl = [target] if isinstance(target, str) else list(target or [])
+        features = [c for c in names if c not in tl and c not in extra]
+    feats, targets = select_columns(names, target if like is None else list(like.targets),
+                                    features if like is None else list(like.features),
+                                    f"{path}: ")
+    _, frames = file_frames(path, sep=sep, chunk_rows=chunk_rows,
+                            columns=feats + targets + [c for c in extra if c in names])
+    if like is None:
+        prep = scan_frames(lambda: frames(()), frames, feats, targets, encode=encode,
+                           drop_missing=drop_missing, source=str(path), progress=progress)
+    else:
+        prep = replace(like, n_rows=None, notes=(), kept=())
+    rows = PreparedRows(frames, prep, source=str(path), chunk_rows=chunk_rows)
+    rows.file_columns = names
+    return rows

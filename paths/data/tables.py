@@ -272,7 +272,7 @@ def _parse_sep(sep: str) -> str:
     s = aliases.get(sep.lower(), sep) if isinstance(sep, str) else sep
     if not isinstance(s, str) or len(s) != 1 or s in "\"\r\n" or s.isalnum() or s == ".":
         raise InputError(
-            f"--sep must be one delimiter character (',', ';', '|', or 'tab'); got {sep!r}"
+            f"sep= must be one delimiter character (',', ';', '|', or 'tab'); got {sep!r}"
         )
     return s
 
@@ -487,29 +487,32 @@ def _check_ragged(layout: TextLayout, starts, counts, first_line: int) -> None:
     raise _fail(f"{layout.path}: ", f"line {starts[k]} has {counts[k]} fields but {what} has "
                                     f"{width} ({_DELIM_NAMES.get(sep, repr(sep))}-delimited; "
                                     f"{ragged.size} ragged line(s)){hint}; make every row the "
-                                    "same length or pass the right --sep")
+                                    "same length or pass the right sep=")
 
 
-def _parse_records(layout: TextLayout, text, skiprows: int, body) -> pd.DataFrame:
+def _parse_records(layout: TextLayout, text, skiprows: int, body,
+                   keep_text=()) -> pd.DataFrame:
     """The data records of ``text`` (str, or UTF-8 bytes already checked) as a frame
-    (numbers as numbers, the NA tokens as missing), ``attrs["paths_lines"]`` their lines."""
+    (numbers as numbers, the NA tokens as missing), ``attrs["paths_lines"]`` their lines;
+    the ``keep_text`` columns stay text (stripped) even where they hold only numbers."""
     raw = text.encode("utf-8") if isinstance(text, str) else text
     try:
         df = pd.read_csv(
             _io.BytesIO(raw), sep=layout.sep, header=None, encoding="utf-8",
             skiprows=skiprows, names=layout.names, na_values=list(NA_TOKENS),
             keep_default_na=False, skipinitialspace=True, skip_blank_lines=True, engine="c",
-            low_memory=False, quotechar='"', index_col=False, dtype=None,
+            low_memory=False, quotechar='"', index_col=False,
+            dtype={c: str for c in keep_text} if keep_text else None,
         )
     except (pd.errors.ParserError, pd.errors.EmptyDataError, ValueError, csv.Error,
             OverflowError) as exc:
         msg = _one_line(str(exc).strip().splitlines()[-1] if str(exc).strip() else type(exc).__name__)
         raise _fail(f"{layout.path}: ", f"could not be parsed ({msg}); check the delimiter "
-                                        "(--sep) and the quoting") from None
+                                        "(sep=) and the quoting") from None
     lines = np.asarray(body, dtype=np.int64)
     if df.shape[0] != lines.size:  # pandas read the quoting differently: positions only
         lines = None
-    df = _numeric_text_columns(df, layout.path, lines)
+    df = _numeric_text_columns(df, layout.path, lines, keep_text)
     df.attrs["paths_lines"] = lines
     return df
 
@@ -523,7 +526,7 @@ def _read_text(p: Path, sep: str | None, header: bool | None) -> pd.DataFrame:
     # pandas holds each column as an object (about 4 KiB each) plus the text and the floats
     check_memory(width * 4096.0 + len(counts) * width * 8.0 * 3,
                  f"{p}: {len(counts)} rows x {width} columns read in memory",
-                 "use --engine stream (row chunks; column blocks for wide Parquet) or keep "
+                 "use engine='stream' (row chunks; column blocks for wide Parquet) or keep "
                  "fewer columns")
     _check_ragged(layout, starts, counts, starts[0])
     body = starts[1:] if layout.header else starts
@@ -594,12 +597,12 @@ def text_blocks(layout: TextLayout, block_bytes: int = 64 << 20) -> list:
     return out
 
 
-def read_text_block(layout: TextLayout, block: TextBlock) -> pd.DataFrame:
+def read_text_block(layout: TextLayout, block: TextBlock, keep_text=()) -> pd.DataFrame:
     """The records of one :class:`TextBlock`, under the rules of :func:`read_text_chunks`."""
     with open(layout.path, "rb") as fh:
         fh.seek(block.offset)
         buf = fh.read(block.length)
-    return _records_of(layout, buf, block.first_line)
+    return _records_of(layout, buf, block.first_line, tuple(keep_text))
 
 
 _WS = np.zeros(256, dtype=bool)
@@ -627,7 +630,7 @@ def _scan_bytes(buf: bytes, sep: str):
     return (filled + 1).tolist(), counts.tolist()
 
 
-def _records_of(layout: TextLayout, buf: bytes, line: int):
+def _records_of(layout: TextLayout, buf: bytes, line: int, keep_text=()):
     p = layout.path
     fast = None
     if b'"' not in buf and b"\x00" not in buf and b"\r" not in buf and \
@@ -649,13 +652,14 @@ def _records_of(layout: TextLayout, buf: bytes, line: int):
     if not starts:
         return None
     _check_ragged(layout, starts, counts, layout.data_line - int(layout.header))
-    return _parse_records(layout, text, 0, starts)
+    return _parse_records(layout, text, 0, starts, keep_text)
 
 
-def read_text_chunks(layout: TextLayout, chunk_rows: int):
+def read_text_chunks(layout: TextLayout, chunk_rows: int, keep_text=()):
     """The data records of a text file, ``chunk_rows`` lines at a time, under the rules of
     :func:`read_table`: every record as wide as the header, the NA tokens, numbers with
-    thousands separators or decimal commas named, UTF-8 only.
+    thousands separators or decimal commas named, UTF-8 only.  The ``keep_text``
+    columns stay text as written (stripped), even in chunks where they hold only numbers.
 
     Yields
     ------
@@ -680,7 +684,7 @@ def read_text_chunks(layout: TextLayout, chunk_rows: int):
                     break
                 lines.append(more)
                 buf += more
-            frame = _records_of(layout, buf, line)
+            frame = _records_of(layout, buf, line, tuple(keep_text))
             if frame is not None:
                 yield frame
             line += len(lines)
@@ -700,9 +704,9 @@ def _as_floats(values: list):
     return None  # pragma: no cover (the fast path would have succeeded)
 
 
-def _numeric_text_columns(df: pd.DataFrame, p: Path, lines) -> pd.DataFrame:
-    """Convert text columns that hold numbers; name the column when numbers are written
-    with thousands separators or decimal commas."""
+def _numeric_text_columns(df: pd.DataFrame, p: Path, lines, keep_text=()) -> pd.DataFrame:
+    """Convert text columns that hold numbers (not the ``keep_text`` ones); name the
+    column when numbers are written with thousands separators or decimal commas."""
     out = {}
     text_cols = [c for c, dt in zip(df.columns, df.dtypes) if not pd.api.types.is_numeric_dtype(dt)]
     for col in text_cols:
@@ -710,6 +714,9 @@ def _numeric_text_columns(df: pd.DataFrame, p: Path, lines) -> pd.DataFrame:
         stripped = [None if (v is None or v is pd.NA or (isinstance(v, float) and v != v))
                     else str(v).strip() for v in raw]
         stripped = [None if v is None or v in _NA_SET else v for v in stripped]
+        if col in keep_text:
+            out[col] = np.array(stripped, dtype=object)
+            continue
         conv = _as_floats(stripped)
         if isinstance(conv, np.ndarray):
             out[col] = conv
@@ -842,7 +849,7 @@ def open_npy(path) -> np.ndarray:
                               "imaginary columns")
     if arr.dtype.kind not in "biuf":
         raise _fail(f"{p}: ", f"the array has dtype {arr.dtype} (not numbers); save a numeric "
-                              "2-D array (or read structured arrays with --engine memory)")
+                              "2-D array (or read structured arrays with engine='memory')")
     return arr
 
 
@@ -1110,7 +1117,7 @@ def select(df, target, *, features=None, exclude=None, id_column=None, encode=No
 
     targets = _split_list(target, all_columns) or []
     if not targets:
-        raise InputError(f"{where}no target given; pass --target COLUMN")
+        raise InputError(f"{where}no target given; pass target=COLUMN")
     for t in targets:
         if t not in all_columns:
             close = difflib.get_close_matches(t, all_columns, n=3)
@@ -1118,36 +1125,36 @@ def select(df, target, *, features=None, exclude=None, id_column=None, encode=No
             raise _fail(where, f"target column {t!r} not found{hint}; columns are: "
                                f"{_names(all_columns, 8)}")
     if len(set(targets)) != len(targets):
-        raise _fail(where, "a target column is given twice; pass each --target once")
+        raise _fail(where, "a target column is given twice; pass each target= once")
     if id_column is not None:
         if id_column not in all_columns:
-            raise _fail(where, f"--id column {id_column!r} not found; columns are: "
+            raise _fail(where, f"id_column= column {id_column!r} not found; columns are: "
                                f"{_names(all_columns, 8)}")
         if id_column in targets:
-            raise _fail(where, f"column {id_column!r} is both the --id and a --target; "
+            raise _fail(where, f"column {id_column!r} is both the id_column= and a target=; "
                                "choose one")
     reserved = set(targets) | ({id_column} if id_column else set())
     if features is None:
         feats = [c for c in all_columns if c not in reserved]
     else:
-        feats = _expand(_split_list(features, all_columns), all_columns, "--features pattern",
+        feats = _expand(_split_list(features, all_columns), all_columns, "features= pattern",
                         where)
         named = [f for f in feats if f in reserved]
         explicit = [f for f in named if f in _split_list(features, all_columns)]
         if explicit:
             raise _fail(where, f"column {explicit[0]!r} is given as a feature and as the "
-                               "target or --id; remove it from --features")
+                               "target or id_column=; remove it from features=")
         feats = [f for f in feats if f not in reserved]
     if exclude:
-        gone = _expand(_split_list(exclude, all_columns), all_columns, "--exclude pattern", where)
+        gone = _expand(_split_list(exclude, all_columns), all_columns, "exclude= pattern", where)
         feats = [f for f in feats if f not in gone]
     if not feats:
-        raise _fail(where, "no feature columns left (p = 0) after the target, --id, --features "
-                           "and --exclude; keep at least one feature column")
+        raise _fail(where, "no feature columns left (p = 0) after the target, id_column=, features= "
+                           "and exclude=; keep at least one feature column")
     for c in targets + feats + ([id_column] if id_column else []):
         if c in nested:
             raise _fail(where, f"column {c!r} has the nested type {nested[c]}; flatten it "
-                               f"into scalar columns or leave it out (--exclude {c})")
+                               f"into scalar columns or leave it out (exclude={c})")
 
     # ---- types
     for t in targets:
@@ -1174,10 +1181,10 @@ def select(df, target, *, features=None, exclude=None, id_column=None, encode=No
             categorical.append(c)
     if dates:
         raise _fail(where, f"column(s) {_names(dates)} hold dates or times; convert them to "
-                           "numbers (e.g. days since a start) or --exclude them")
+                           "numbers (e.g. days since a start) or exclude= them")
     if categorical and encode != "onehot":
         raise _fail(where, f"non-numeric (categorical) feature column(s): {_names(categorical)}; "
-                           "pass --encode onehot to one-hot encode them, or --exclude them")
+                           "pass encode='onehot' to one-hot encode them, or exclude= them")
 
     # ---- missing values
     n0 = df.shape[0]
@@ -1195,7 +1202,7 @@ def select(df, target, *, features=None, exclude=None, id_column=None, encode=No
             pass  # dropped below with the other incomplete columns
         else:
             raise _fail(where, f"column(s) {_names(all_missing)} are entirely missing (all {n0} "
-                               "values); --exclude them or pass --drop-missing columns")
+                               "values); exclude= them or pass drop_missing='columns'")
     counts = {used[j]: int(n_miss[j]) for j in np.flatnonzero(n_miss)}
     keep = np.ones(n0, dtype=bool)
     dropped_rows = []
@@ -1208,13 +1215,13 @@ def select(df, target, *, features=None, exclude=None, id_column=None, encode=No
         cols = list(counts)
         if drop_missing is None:
             raise _fail(where, f"missing values in {len(cols)} column(s): {detail(cols)}; "
-                               "remove or impute them, or pass --drop-missing rows|columns")
+                               "remove or impute them, or pass drop_missing=rows|columns")
         if drop_missing == "columns":
             bad_t = [t for t in targets if t in counts]
             if bad_t:
                 raise _fail(where, f"target column {bad_t[0]!r} has {counts[bad_t[0]]} missing "
-                                   "value(s); a target cannot be dropped: use --drop-missing "
-                                   "rows")
+                                   "value(s); a target cannot be dropped: use "
+                                   "drop_missing='rows'")
             dropped_cols = [c for c in feats if c in counts]
             feats = [c for c in feats if c not in counts]
             notes.append(f"dropped {len(dropped_cols)} column(s) with missing values: "
@@ -1222,8 +1229,8 @@ def select(df, target, *, features=None, exclude=None, id_column=None, encode=No
             categorical = [c for c in categorical if c in feats]
             if not feats:
                 raise _fail(where, "every feature column has missing values: none is left (p = 0) "
-                                   "after --drop-missing columns; impute them or use "
-                                   "--drop-missing rows")
+                                   "after drop_missing='columns'; impute them or use "
+                                   "drop_missing='rows'")
         else:
             keep = ~M.any(axis=1)
             gone = np.flatnonzero(~keep)
@@ -1234,8 +1241,8 @@ def select(df, target, *, features=None, exclude=None, id_column=None, encode=No
                          f"{shown})")
             if not keep.any():
                 raise _fail(where, f"every row has a missing value in the used columns; "
-                                   f"nothing is left after --drop-missing rows; try "
-                                   "--drop-missing columns")
+                                   f"nothing is left after drop_missing='rows'; try "
+                                   "drop_missing='columns'")
     sub = df if keep.all() else df.loc[keep]
     sub_lines = None if lines is None else np.asarray(lines)[keep]
     n = sub.shape[0]

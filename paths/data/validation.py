@@ -395,7 +395,7 @@ def check_feature_bounds(lo, hi, n: int, *, standardize: bool, y_size: float = 1
     if not standardize:
         bad = (size > np.sqrt(_HUGE / n) / 2) | ((size > 0) & (size < np.sqrt(1e6 * _TINY)))
         why = ("without standardization the penalty acts on its squares, which leave the "
-               "float64 range; pass standardize=True (--standardize) or rescale it")
+               "float64 range; pass standardize=True or rescale it")
     elif not rescalable:
         bad = (absmax > 2.0**400) | ((absmax > 0) & (absmax < 2.0**-400))
         why = ("this engine accumulates its squares, which would leave the float64 range, "

@@ -32,10 +32,11 @@ import numpy as np
 from paths.data.validation import InputError, as_lambdas
 from paths.core.grid import default_grid
 from paths.engines.stream import (HatPass, LooPasses, Moments, PassInfo, StreamPath, check_cv_options,
+                                  check_moment_ranges, check_scheme, solver_route,
                                   chunk_moments, cv_note, factor_moments, fold_plan,
                                   merge_moments, path_from_moments)
 
-__all__ = ["dask_path", "connect", "as_dask_design"]
+__all__ = ["dask_path", "connect", "as_dask_design", "prepared_design"]
 
 DEFAULT_TIMEOUT = 10.0
 _PARQUET = (".parquet", ".pq", ".parq")
@@ -56,7 +57,7 @@ def check_address(scheduler: str) -> None:
     >>> check_address("10.0.0.5")
     Traceback (most recent call last):
     ...
-    paths.data.validation.InputError: --scheduler '10.0.0.5' is not an address SCHEME://HOST:PORT (no port); use e.g. tcp://10.0.0.5:8786
+    paths.data.validation.InputError: scheduler '10.0.0.5' is not an address SCHEME://HOST:PORT (no port); use e.g. tcp://10.0.0.5:8786
     """
     text = str(scheduler).strip()
     scheme, sep, rest = text.partition("://")
@@ -74,7 +75,7 @@ def check_address(scheduler: str) -> None:
         elif not host or any(ch.isspace() for ch in host) or "/" in host:
             problem = f"host {host!r} is not a host name"
     if problem:
-        raise InputError(f"--scheduler {scheduler!r} is not an address SCHEME://HOST:PORT "
+        raise InputError(f"scheduler {scheduler!r} is not an address SCHEME://HOST:PORT "
                          f"({problem}); use e.g. tcp://10.0.0.5:8786")
 
 
@@ -104,7 +105,7 @@ def connect(scheduler: str | None, timeout: float = DEFAULT_TIMEOUT):
     try:
         from distributed import Client
     except ImportError:  # pragma: no cover - optional dependency
-        raise InputError("--scheduler needs dask.distributed; pip install 'ridgepaths[dask]'") from None
+        raise InputError("scheduler needs dask.distributed; pip install 'ridgepaths[dask]'") from None
     check_address(scheduler)
     try:
         client = Client(scheduler, timeout=timeout, set_as_default=False)
@@ -120,7 +121,7 @@ def connect(scheduler: str | None, timeout: float = DEFAULT_TIMEOUT):
             "the scheduler is running and reachable"
         ) from None
     except (ValueError, TypeError) as exc:
-        raise InputError(f"--scheduler {scheduler!r} is not a valid address ({exc}); "
+        raise InputError(f"scheduler {scheduler!r} is not a valid address ({exc}); "
                          "use e.g. tcp://10.0.0.5:8786") from None
     try:
         yield client
@@ -178,7 +179,7 @@ def as_dask_design(data, y=None, *, target=None, features=None, chunk_rows=None)
             W, names, tnames = _from_dataframe(path, target, features)
     else:
         if y is None:
-            raise InputError("pass the response y with an array design (or a file and --target)")
+            raise InputError("pass the response y with an array design (or a file and target=)")
         X = data if isinstance(data, da.Array) else da.from_array(
             np.asarray(data, dtype=np.float64), chunks=(chunk_rows or 65_536, -1))
         Y = y if isinstance(y, da.Array) else da.from_array(np.asarray(y, dtype=np.float64),
@@ -228,17 +229,17 @@ def _from_dataframe(path: Path, target, features):
     nonnum = [c for c in feats + targets if not pd.api.types.is_numeric_dtype(df.dtypes[c])]
     if nonnum:
         raise InputError(f"{path}: non-numeric column(s): {', '.join(nonnum[:5])}; drop them "
-                         "(--features) or encode them as numbers")
+                         "(features=) or encode them as numbers")
     try:
         W = df.to_dask_array(lengths=True).astype(np.float64)
     except Exception as exc:  # noqa: BLE001 - a block that does not parse as numbers
         if "Mismatched dtypes" in str(exc):
             raise InputError(f"{path}: a later row block has non-numeric values in a column "
                              "the first block showed as numeric (dask's dtype inference); "
-                             "--engine stream reports the column and row range") from None
+                             "engine='stream' reports the column and row range") from None
         msg = " ".join(str(exc).split())[:160]
         raise InputError(f"{path}: a row block could not be read as numbers "
-                         f"({type(exc).__name__}: {msg}); --engine stream reports the row "
+                         f"({type(exc).__name__}: {msg}); engine='stream' reports the row "
                          "range") from None
     return W, feats, targets
 
@@ -276,6 +277,89 @@ def _from_text(path: Path, target, features, sep=None):
     return da.concatenate(parts, axis=0), rows.feature_names, rows.target_names
 
 
+def _read_unit(kind, layout, cols, unit, keep_text=()):
+    """One parsed piece of a file: a text block (CSV) or a row group (Parquet)."""
+    import pandas as pd
+
+    if kind == "csv":
+        from paths.data.tables import read_text_block
+
+        frame = read_text_block(layout, unit, keep_text)
+        if frame is None:
+            frame = pd.DataFrame({c: pd.Series([], dtype=object) for c in cols})
+            frame.attrs["paths_lines"] = None
+        return frame
+    import pyarrow.parquet as pq
+
+    f, g = unit
+    frame = pq.ParquetFile(f, pre_buffer=False).read_row_group(g, columns=cols).to_pandas()
+    frame.attrs["paths_lines"] = None
+    return frame
+
+
+def _prepared_block(kind, layout, cols, unit, prep, start, source):
+    """The prepared float rows of one piece (:meth:`paths.data.rowprep.RowPreparation.block`)."""
+    frame = _read_unit(kind, layout, cols, unit, prep.text_columns)
+    return prep.block(frame, start, source)
+
+
+def prepared_design(path, target, features=None, *, encode=None, drop_missing=None, sep=None,
+                    like=None):
+    """``(W, preparation)``: a CSV or Parquet file prepared as the in-memory reader does
+    (``encode``, ``drop_missing``; :mod:`paths.data.rowprep`), one dask block per text
+    block or row group.  A pre-pass on the client collects the levels and the rows kept
+    per block (the blocks' shapes); with ``like`` (test rows) the training preparation
+    is applied and the blocks' row counts are left unknown."""
+    import dask
+    import dask.array as da
+
+    from paths.data.chunks import CSVRows, parquet_files, select_columns
+    from paths.data.rowprep import scan_frames
+
+    path = Path(path)
+    if not path.exists():
+        raise InputError(f"{path}: no such file or folder; check the path")
+    if path.is_dir() or path.suffix.lower() in _PARQUET:
+        import pyarrow.parquet as pq
+
+        files = parquet_files(path)
+        kind, layout = "parquet", None
+        names = list(pq.read_schema(files[0]).names)
+        units = [(str(f), g) for f in files for g in range(pq.ParquetFile(f).num_row_groups)]
+    elif path.suffix.lower() == ".npy":
+        raise InputError(f"{path}: encode and drop_missing need named columns; pass a CSV or "
+                         "Parquet file")
+    else:
+        from paths.data.tables import text_blocks
+
+        layout = CSVRows(path, list(like.targets) if like else target, sep=sep).layout
+        kind, names, units = "csv", list(layout.names), text_blocks(layout)
+    feats, targets = select_columns(names, list(like.targets) if like else target,
+                                    list(like.features) if like else features, f"{path}: ")
+    cols = feats + targets
+    if like is None:
+        prep = scan_frames(lambda: (_read_unit(kind, layout, cols, u) for u in units),
+                           lambda keep: (_read_unit(kind, layout, cols, u, keep) for u in units),
+                           feats, targets, encode=encode, drop_missing=drop_missing,
+                           source=str(path))
+        kept = prep.kept
+    else:
+        from dataclasses import replace as _replace
+
+        prep, kept = _replace(like, n_rows=None, notes=(), kept=()), [np.nan] * len(units)
+    width = len(prep.names) + len(prep.targets)
+    parts, start = [], 0
+    for u, k in zip(units, kept):
+        if k == 0:
+            continue
+        parts.append(da.from_delayed(dask.delayed(_prepared_block, pure=True)(
+            kind, layout, cols, u, prep, start, str(path)), shape=(k, width), dtype=np.float64))
+        start = start + k if like is None else 0
+    if not parts:
+        raise InputError(f"{path}: no data rows left; add data rows")
+    return da.concatenate(parts, axis=0), prep
+
+
 def _offsets(chunks):
     return np.concatenate([[0], np.cumsum(chunks)])[:-1]
 
@@ -303,7 +387,7 @@ def _tree(items, fn):
     return items[0]
 
 
-def _moments(W, names, accurate, compute):
+def _moments(W, names, accurate, compute, checks=None):
     import dask
     import dask.array as da
 
@@ -318,6 +402,8 @@ def _moments(W, names, accurate, compute):
              for b, s in zip(blocks, starts)]
     summary = _tree(parts, merge_moments)
     mom = compute(summary)[0]
+    if checks is not None:  # the range checks before the squares are formed in dask's TSQR
+        checks(mom)
     c = W.shape[1]
     Wc = W - mom.mean
     rows_min = min(W.chunks[0])
@@ -328,9 +414,9 @@ def _moments(W, names, accurate, compute):
     return Moments(n=mom.n, mean=mom.mean, m2=None, r=R, lo=mom.lo, hi=mom.hi, absmax=mom.absmax)
 
 
-def _hat_part(block, start, fit, lam, p, plan):
+def _hat_part(block, start, fit, lam, p, plan, cv_scaling="global"):
     """The second-pass statistics of one row block (a :class:`HatPass`)."""
-    hp = HatPass(fit, lam, folds=plan)
+    hp = HatPass(fit, lam, folds=plan, cv_scaling=cv_scaling)
     hp.add(int(start), np.asarray(block, dtype=np.float64), p)
     return hp
 
@@ -386,13 +472,13 @@ def _computer(client):
     return compute
 
 
-def _hat_tree(W, fit, lam, p, plan, compute) -> HatPass:
+def _hat_tree(W, fit, lam, p, plan, compute, cv_scaling="global") -> HatPass:
     """The second pass as a delayed tree (and the third, when rows of leverage near 1
     were kept)."""
     import dask
 
     starts = _offsets(W.chunks[0])
-    parts = [dask.delayed(_hat_part, pure=True)(b, int(s0), fit, lam, p, plan)
+    parts = [dask.delayed(_hat_part, pure=True)(b, int(s0), fit, lam, p, plan, cv_scaling)
              for b, s0 in zip(W.to_delayed().ravel(), starts)]
     hp = compute(_tree(parts, _merge_hat))[0]
     if hp.needs_others:  # rows of leverage near 1: the complement of the others
@@ -424,6 +510,7 @@ def dask_path(
     features=None,
     chunk_rows: int | None = None,
     accurate: bool = False,
+    solver: str = "auto",
     scheduler: str | None = None,
     timeout: float = DEFAULT_TIMEOUT,
     fit_intercept: bool = True,
@@ -433,12 +520,15 @@ def dask_path(
     n_lambdas: int = 100,
     rtol: float | None = None,
     loo: bool = True,
-    cv: int | None = None,
-    cv_seed: int | None = None,
+    n_folds: int | None = None,
+    fold_scheme: str = "shuffled",
+    cv_scaling: str = "global",
     repeats: int = 1,
     holdout: float | None = None,
     seed: int = 0,
     rank: int | None = None,
+    encode: str | None = None,
+    drop_missing: str | None = None,
     progress=None,
 ) -> StreamPath:
     """The ridge path of a design held as a dask array (``engine="dask"``).
@@ -461,7 +551,8 @@ def dask_path(
         Seconds to wait for the scheduler.
     test, y_test : optional
         Test rows, in any form ``data`` accepts.
-    loo, cv, cv_seed, repeats, holdout, seed, rank, fit_intercept, standardize, n_lambdas, rtol
+    solver, loo, n_folds, fold_scheme, cv_scaling, repeats, holdout, seed, rank
+    fit_intercept, standardize, n_lambdas, rtol, encode, drop_missing
         As in :func:`paths.engines.stream.stream_path` (the same folds and the
         same holdout rows; the holdout's row mask, one byte per row, is made on
         the client).
@@ -488,8 +579,10 @@ def dask_path(
     >>> dask_path(X, y=y, lambdas=[1.0, 0.1], loo=False).coef.shape
     (2, 5)
     """
-    scheme = "blocked" if cv_seed is None else "shuffled"
-    check_cv_options(cv, scheme, repeats)
+    accurate = solver_route(solver, accurate)
+    scheme = check_scheme(fold_scheme)
+    check_cv_options(n_folds, scheme, repeats, cv_scaling)
+    cv = n_folds
     if test is not None and holdout is not None:
         raise InputError("pass either a test set or a holdout fraction, not both")
     if chunk_rows is not None and (int(chunk_rows) != chunk_rows or chunk_rows < 1):
@@ -499,8 +592,19 @@ def dask_path(
     lam_user = None if lambdas is None else as_lambdas(lambdas)
     with connect(scheduler, timeout) as client:
         compute = _computer(client)
-        W, names, tnames = as_dask_design(data, y, target=target, features=features,
-                                          chunk_rows=chunk_rows)
+        prep = None
+        if encode or drop_missing is not None:
+            if not isinstance(data, (str, Path)):
+                raise InputError("encode and drop_missing need a CSV or Parquet file; pass "
+                                 "its path")
+            W, prep = prepared_design(data, target, features, encode=encode,
+                                      drop_missing=drop_missing)
+            names, tnames = prep.names, list(prep.targets)
+            if chunk_rows is not None:
+                W = W.rechunk((int(chunk_rows), -1))
+        else:
+            W, names, tnames = as_dask_design(data, y, target=target, features=features,
+                                              chunk_rows=chunk_rows)
         W_test = None
         if holdout is not None:
             W, W_test = _holdout_split(W, holdout, seed)
@@ -510,7 +614,13 @@ def dask_path(
         if progress:
             progress(label1, 0, W.shape[0])
         t0 = time.perf_counter()
-        mom = _moments(W, names + tnames, accurate, compute)
+        def checks(m):
+            check_moment_ranges(m, p, fit_intercept=fit_intercept, standardize=standardize,
+                                names=names + tnames, source=str(data) if isinstance(
+                                    data, (str, Path)) else "")
+
+        mom = _moments(W, names + tnames, accurate, compute, checks)
+        checks(mom)
         passes.append(PassInfo(label1 + (" (dask tsqr)" if accurate else ""), mom.n,
                                time.perf_counter() - t0, mom.n * W.shape[1] * 8))
         if progress:
@@ -518,13 +628,14 @@ def dask_path(
         if fit_intercept and mom.n < 2:
             raise InputError(f"the data have {mom.n} row; at least 2 samples are needed")
         fit = factor_moments(mom, p, fit_intercept=fit_intercept, standardize=standardize,
-                             rtol=rtol, rank=rank)
+                             rtol=rtol, rank=rank, names=names + tnames, requested=solver)
         fac = replace(fit.fac, solver=fit.fac.solver.replace("stream-", "dask-"))
         fit = replace(fit, fac=fac)
         lam = default_grid(fit.fac.d, n_lambdas) if lam_user is None else lam_user
-        loo_mse = loo0 = cvres = hp = plan = None
+        loo_mse = loo0 = loo_se = cvres = hp = plan = None
         notes = [f"dask engine: {W.numblocks[0]} row blocks"
                  + (f", scheduler {scheduler}" if scheduler else "")]
+        notes += [] if prep is None else list(prep.notes)
         if loo or cv:
             label2 = ("pass 2/2: hat diagonals for exact leave-one-out (dask delayed tree)"
                       + (f" and {cv}-fold CV" if cv else ""))
@@ -532,22 +643,29 @@ def dask_path(
                 progress(label2, 0, mom.n)
             t0 = time.perf_counter()
             plan = None if not cv else fold_plan(
-                mom.n, cv, scheme=scheme, seed=0 if cv_seed is None else int(cv_seed),
-                repeats=repeats, fit_intercept=fit_intercept)
-            hp = _hat_tree(W, fit, lam, p, plan, compute)
+                mom.n, cv, scheme=scheme, seed=int(seed), repeats=repeats,
+                fit_intercept=fit_intercept)
+            hp = _hat_tree(W, fit, lam, p, plan, compute, cv_scaling)
             passes.append(PassInfo(label2, mom.n, time.perf_counter() - t0,
                                    mom.n * W.shape[1] * 8))
             if progress:
                 progress(label2, mom.n, mom.n)
             loo_mse, loo0 = hp.loo()
+            loo_se = hp.loo_with_se()[1]
             if cv:
                 cvres = hp.kfold()
-                notes.append(cv_note(plan))
+                notes.append(cv_note(plan, cv_scaling))
         test_res = None
         if test is not None or W_test is not None:
-            Wt = W_test if W_test is not None else as_dask_design(
-                test, y_test, target=target if target is not None else tnames,
-                features=names if not hasattr(test, "shape") else None, chunk_rows=chunk_rows)[0]
+            if W_test is not None:
+                Wt = W_test
+            elif prep is not None:
+                Wt = prepared_design(test, None, like=prep)[0]
+            else:
+                Wt = as_dask_design(
+                    test, y_test, target=target if target is not None else tnames,
+                    features=names if not hasattr(test, "shape") else None,
+                    chunk_rows=chunk_rows)[0]
             if Wt.shape[1] != W.shape[1]:
                 raise InputError(f"the test data have {Wt.shape[1] - len(tnames)} feature "
                                  f"columns but the training data {p}; pass the same features")
@@ -565,10 +683,13 @@ def dask_path(
                                    time.perf_counter() - t0, n_test * Wt.shape[1] * 8))
     def one_pass(lam_new):  # leave-one-out at new penalties: the cluster again
         with connect(scheduler, timeout) as client2:
-            return _hat_tree(W, fit, as_lambdas(lam_new), p, None, _computer(client2)).loo()[0]
+            return _hat_tree(W, fit, as_lambdas(lam_new), p, None,
+                             _computer(client2)).loo_with_se()
 
     return path_from_moments(fit, lam, feature_names=names, loo=loo_mse, loo0=loo0,
                              test=test_res, cv=cvres, n_folds=cv or 0, engine="dask",
                              passes=passes, notes=notes,
                              fold_stats=None if hp is None else hp.fold_factors(),
-                             fold_plan=plan, loo_at=LooPasses(one_pass) if loo else None)
+                             fold_plan=plan, loo_at=LooPasses(one_pass, lam, loo_mse, loo_se)
+                             if loo else None,
+                             preparation=None if prep is None else prep.record())

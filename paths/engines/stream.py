@@ -36,8 +36,8 @@ import scipy.linalg as sla
 from paths.data.folds import fold_labels
 from paths.data.validation import (InputError, as_lambdas, check_feature_bounds,
                                    check_response_bounds)
-from paths.data.chunks import (DEFAULT_CHUNK_ROWS, GroupValues, HoldoutRows, RowSource,
-                               count_rows, open_rows)
+from paths.data.chunks import (DEFAULT_CHUNK_ROWS, GroupValues, HoldoutRows, PreparedGroups,
+                               RowSource, count_rows, open_prepared, open_rows)
 from paths.core.design import Design
 from paths.core.factor import Factorization
 from paths.core.grid import default_grid
@@ -47,8 +47,9 @@ from paths.core.path import PENALTY_CONVENTION, MinNormFit, RidgePath
 
 __all__ = ["Moments", "chunk_moments", "merge_moments", "PairwiseMerger", "StreamPath",
            "stream_path", "PassInfo", "path_from_moments", "HatPass", "FoldPlan", "fold_plan",
-           "FoldFactors", "LooPasses",
-           "check_cv_options", "cv_note"]
+           "FoldFactors", "FoldMoments", "fold_moments", "LooPasses",
+           "check_cv_options", "check_scheme", "check_moment_ranges", "cv_note",
+           "solver_route"]
 
 _EPS = np.finfo(np.float64).eps
 
@@ -141,6 +142,11 @@ class PairwiseMerger:
     def __init__(self):
         self._stack: list[tuple[int, Moments]] = []
 
+    @property
+    def filled(self) -> bool:
+        """True once a block was added."""
+        return bool(self._stack)
+
     def add(self, m: Moments) -> None:
         level = 0
         while self._stack and self._stack[-1][0] == level:
@@ -177,15 +183,29 @@ class _Fit:
                            fit_intercept=self.design.fit_intercept)
 
 
-def _preprocess(mom: Moments, p: int, fit_intercept: bool, standardize: bool):
+def check_moment_ranges(mom: Moments, p: int, *, fit_intercept: bool, standardize: bool,
+                        names=None, source: str = "") -> None:
+    """The in-memory engine's range checks (:mod:`paths.data.validation`) on the pass-1
+    bounds of ``[X | Y]``: subnormal columns, a response whose squared errors leave the
+    float64 range or is constant up to rounding, features whose squares or coefficients
+    leave it.  Every streamed engine (stream, dask) calls this before factoring."""
+    names = None if names is None else list(names)
+    if names is not None:
+        check_magnitudes(mom, names, source)
+    n = mom.n
+    check_response_bounds(mom.lo[p:], mom.hi[p:], n, fit_intercept=fit_intercept)  # as fit_path
+    with np.errstate(over="ignore"):
+        y_size = float(np.max(mom.hi[p:] - mom.lo[p:] if fit_intercept else mom.absmax[p:]))
+    check_feature_bounds(mom.lo[:p], mom.hi[:p], n, standardize=standardize, y_size=y_size,
+                         rescalable=False, names=None if names is None else names[:p])
+
+
+def _preprocess(mom: Moments, p: int, fit_intercept: bool, standardize: bool, names=None):
     """Means, scales and active columns, as :func:`paths.design.prepare` defines them."""
     n = mom.n
     t = mom.mean.size - p
-    # the in-memory engine's range checks (paths.data.validation), on the pass-1 bounds
-    check_response_bounds(mom.lo[p:], mom.hi[p:], n, fit_intercept=fit_intercept)
-    y_size = float(np.max(mom.hi[p:] - mom.lo[p:] if fit_intercept else mom.absmax[p:]))
-    check_feature_bounds(mom.lo[:p], mom.hi[:p], n, standardize=standardize, y_size=y_size,
-                         rescalable=False)
+    check_moment_ranges(mom, p, fit_intercept=fit_intercept, standardize=standardize,
+                        names=names)
     if mom.r is not None:
         diag = np.einsum("ij,ij->j", mom.r, mom.r)
     else:
@@ -223,7 +243,8 @@ def _preprocess(mom: Moments, p: int, fit_intercept: bool, standardize: bool):
 
 
 def factor_moments(mom: Moments, p: int, *, fit_intercept: bool = True, standardize: bool = True,
-                   rtol: float | None = None, rank: int | None = None) -> _Fit:
+                   rtol: float | None = None, rank: int | None = None, names=None,
+                   requested: str | None = None) -> _Fit:
     """Singular values, right singular vectors, :math:`U^T y` and the out-of-span RSS.
 
     Gram route: the eigendecomposition of the scaled p × p centered Gram
@@ -235,7 +256,7 @@ def factor_moments(mom: Moments, p: int, *, fit_intercept: bool = True, standard
     :math:`\\|y_\\perp\\|^2 = \\|(I - W W^T) R_{12}\\|^2 + \\|R_{22}\\|^2`, with no
     difference of large squares and no squared condition number.
     """
-    design = _preprocess(mom, p, fit_intercept, standardize)
+    design = _preprocess(mom, p, fit_intercept, standardize, names)
     n = mom.n
     t = mom.mean.size - p
     act = design.active
@@ -276,7 +297,7 @@ def factor_moments(mom: Moments, p: int, *, fit_intercept: bool = True, standard
             finite = np.all(np.isfinite(Gx))
         if not finite:
             raise InputError("the Gram matrix overflows for this design; pass accurate=True "
-                             "(--accurate) or standardize the columns")
+                             "or standardize the columns")
         wv, V = sla.eigh(Gx, check_finite=False)
         wv, V = np.maximum(wv[::-1], 0.0), V[:, ::-1]
         d_all = np.sqrt(wv)
@@ -295,14 +316,16 @@ def factor_moments(mom: Moments, p: int, *, fit_intercept: bool = True, standard
             warnings.warn(
                 f"the streamed Gram route squares the condition number (predicted relative "
                 f"error {predicted:.1e} of the smallest singular value); pass accurate=True "
-                "(--accurate) for the chunked TSQR route", UserWarning, stacklevel=3)
+                "for the chunked TSQR route", UserWarning, stacklevel=3)
             reason += "; accurate=True recommended"
     if r == 0:
         raise InputError("the centered design is numerically zero; nothing to fit")
+    if requested in ("svd", "gram"):
+        reason = f"requested (solver {requested}): {reason}"
     share = 1.0
     if rank is not None:
         if int(rank) != rank or not 1 <= rank <= min(m, q):
-            raise InputError(f"--rank must be an integer in [1, {min(m, q)}] (min(n - 1, p) for "
+            raise InputError(f"rank must be an integer in [1, {min(m, q)}] (min(n - 1, p) for "
                              f"this {n} x {q} design); got {rank}")
         total = float(np.sum(np.square(d_all)))
         if rank < r:
@@ -310,7 +333,7 @@ def factor_moments(mom: Moments, p: int, *, fit_intercept: bool = True, standard
             rss_out = rss_out + np.einsum("it,it->t", uty[rank:], uty[rank:])
             r, d, vt, uty = rank, d[:rank], vt[:rank], uty[:rank]
         share = float(np.sum(np.square(d)) / total) if total > 0 else 1.0
-        msg = (f"--rank {rank}: the fit is ridge on the top {r} principal components, capturing "
+        msg = (f"rank={rank}: the fit is ridge on the top {r} principal components, capturing "
                f"{100 * share:.2f}% of ||X||_F^2; the minimum-norm fit and the quantities near "
                "the interpolation threshold need the full spectrum and are approximations")
         warnings.warn(msg, UserWarning, stacklevel=3)
@@ -349,7 +372,7 @@ class HatPass:
     """
 
     def __init__(self, fit: _Fit, lam: np.ndarray, *, n_folds: int = 0, fold_seed=None,
-                 folds: "FoldPlan | None" = None):
+                 folds: "FoldPlan | None" = None, cv_scaling: str = "global"):
         self.fit = fit
         self.lam = lam
         d = fit.fac.d
@@ -361,6 +384,7 @@ class HatPass:
         self.ra = r + int(fit.design.fit_intercept)
         self.proj = fit.fac.vt.T / d  # (q, r)
         self.sums = np.zeros((full.size, self.t))
+        self.sums4 = np.zeros((full.size, self.t))  # fourth powers: the LOO standard error
         width = self.ra + self.t
         self.r_other = np.zeros((0, width))
         self.kept = np.zeros((0, width))  # high-leverage rows [ua, y], refined at the end
@@ -370,10 +394,14 @@ class HatPass:
                              seed=0 if fold_seed is None else int(fold_seed))
         self.folds = folds
         self.n_folds = 0 if folds is None else folds.n_folds
+        self.per_fold = cv_scaling == "per-fold"
         if self.n_folds:
             R = folds.repeats
             self.fold_r = [[np.zeros((0, width)) for _ in range(self.n_folds)] for _ in range(R)]
             self.count = np.zeros((R, self.n_folds), dtype=np.int64)
+            # per-fold scaling: every fold's raw moments of [X | Y] (its training set's
+            # moments are the merge of the other folds')
+            self.fold_mom = [[PairwiseMerger() for _ in range(self.n_folds)] for _ in range(R)]
 
     def rows_u(self, block: np.ndarray, p: int):
         des = self.fit.design
@@ -395,6 +423,15 @@ class HatPass:
             ub, yc = self.rows_u(block[off:off + step], p)
             g = None if groups is None else groups[off:off + step]
             self.add_rows(start + off, ub, yc, g)
+            if self.n_folds and self.per_fold:
+                self.add_fold_moments(start + off, block[off:off + step], g)
+
+    def add_fold_moments(self, start: int, rows: np.ndarray, groups=None) -> None:
+        """Per-fold scaling: add raw rows ``start ..`` to their folds' moments."""
+        accurate = not self.fit.raw_gram
+        for rep, lab in enumerate(self.folds.labels(start, rows.shape[0], groups)):
+            for f in np.unique(lab):
+                self.fold_mom[rep][f].add(chunk_moments(rows[lab == f], accurate=accurate))
 
     def add_rows(self, start: int, ub: np.ndarray, yc: np.ndarray, groups=None) -> None:
         fit = self.fit
@@ -411,7 +448,9 @@ class HatPass:
                                         e_perp=(np.zeros((int(keep.sum()), self.t))
                                                 if self.state.full_row_rank else
                                                 yc[keep] - ub[keep] @ fit.uty))
-            self.sums += algebra.loo_sums(rows, self.shrink, fit.uty)
+            s2, s4 = algebra.loo_power_sums(rows, self.shrink, fit.uty)
+            self.sums += s2
+            self.sums4 += s4
         if not keep.all():
             self.kept = np.vstack([self.kept, ua_y[~keep]])
         if self.n_folds:
@@ -419,7 +458,9 @@ class HatPass:
             for rep, lab in enumerate(labels):
                 for f in np.unique(lab):
                     sel = lab == f
-                    self.fold_r[rep][f] = algebra.tsqr([self.fold_r[rep][f], ua_y[sel]], width)
+                    if not self.per_fold:
+                        self.fold_r[rep][f] = algebra.tsqr([self.fold_r[rep][f], ua_y[sel]],
+                                                           width)
                     self.count[rep, f] += int(sel.sum())
 
     @property
@@ -444,17 +485,20 @@ class HatPass:
     def merge(self, other: "HatPass") -> None:
         width = self.ra + self.t
         self.sums += other.sums
+        self.sums4 += other.sums4
         self.r_other = algebra.tsqr([self.r_other, other.r_other], width)
         self.kept = np.vstack([self.kept, other.kept])
         if self.n_folds:
             for rep, row in enumerate(self.fold_r):
                 for f in range(self.n_folds):
                     row[f] = algebra.tsqr([row[f], other.fold_r[rep][f]], width)
+                    if other.fold_mom[rep][f].filled:
+                        self.fold_mom[rep][f].add(other.fold_mom[rep][f].result())
             self.count += other.count
 
-    def loo(self):
-        """Leave-one-out MSE on the grid (k, t) and at the min-norm limit (t,)."""
-        total = self.sums.copy()
+    def _loo_totals(self):
+        """Sums of the squared leave-one-out residuals and of their squares, (k + 1, t)."""
+        total, total4 = self.sums.copy(), self.sums4.copy()
         if self.kept.shape[0]:
             ra = self.ra
             ua_s, y_s = self.kept[:, :ra], self.kept[:, ra:]
@@ -463,9 +507,24 @@ class HatPass:
             ell, e_perp = algebra.refine_leverage(self.state, ua_s, y_s, R)
             rows = algebra.LeverageRows(u=ua_s[:, ra - self.fit.fac.rank:], ell=ell,
                                         e_perp=e_perp)
-            total += algebra.loo_sums(rows, self.shrink, self.fit.uty)
-        total /= self.fit.design.n_samples
+            s2, s4 = algebra.loo_power_sums(rows, self.shrink, self.fit.uty)
+            total += s2
+            total4 += s4
+        return total, total4
+
+    def loo(self):
+        """Leave-one-out MSE on the grid (k, t) and at the min-norm limit (t,)."""
+        total = self._loo_totals()[0] / self.fit.design.n_samples
         return (total[:-1] if self._added else total), total[-1]
+
+    def loo_with_se(self):
+        """Leave-one-out MSE and its standard error on the grid, both (k, t)
+        (:func:`paths.core.algebra.loo_standard_error`)."""
+        n = self.fit.design.n_samples
+        s2, s4 = self._loo_totals()
+        se = algebra.loo_standard_error(s2, s4, n)
+        mse = s2 / n
+        return (mse[:-1], se[:-1]) if self._added else (mse, se)
 
     def kfold(self):
         """K-fold CV MSE (k, t) and its standard error across folds (k, t), averaged over
@@ -482,10 +541,19 @@ class HatPass:
         se = fold.std(axis=1, ddof=1) / np.sqrt(self.n_folds)
         return pooled.mean(axis=0), se.mean(axis=0)
 
-    def fold_factors(self) -> "FoldFactors | None":
-        """The per-fold triangular factors, for K-fold errors at any penalty."""
+    def fold_factors(self) -> "FoldFactors | FoldMoments | None":
+        """The per-fold triangular factors, for K-fold errors at any penalty (with
+        per-fold scaling, the per-fold moments and their training sets' factors)."""
         if not self.n_folds:
             return None
+        if self.per_fold:
+            if np.any(self.count == 0):
+                raise InputError(f"{int(np.sum(self.count[0] == 0))} of the {self.n_folds} "
+                                 "folds are empty; use fewer folds")
+            des = self.fit.design
+            return fold_moments([[m.result() for m in row] for row in self.fold_mom],
+                                des.n_features, fit_intercept=des.fit_intercept,
+                                standardize=des.standardize)
         width = self.ra + self.t
         fold_r = np.stack([np.stack([algebra.tsqr([R], width) for R in row])
                            for row in self.fold_r])
@@ -517,6 +585,69 @@ class FoldFactors:
 
 
 @dataclass(frozen=True)
+class FoldMoments:
+    """Per-fold scaling from per-fold moments: every fold's training set centered and
+    scaled on its own rows, refitted from its p x p moments, and scored on the fold's
+    rows from their moments (:func:`paths.core.algebra.block_sse`).
+
+    ``fits`` (R, K): the factors of each training set (the merge of the other
+    folds' moments, :func:`factor_moments`); ``held`` (R, K): each fold's own
+    moments; ``count`` (R, K) the fold sizes.
+    """
+
+    fits: tuple
+    held: tuple
+    count: np.ndarray
+
+    form = "refit"
+    scaling = "per-fold"
+    reason = ("refit: per-fold scaling, each training set factored from the merged moments "
+              "of the other folds (no rows held)")
+
+    def fold_mse(self, lam) -> np.ndarray:
+        """Held-out mean squared error (R, K, k, t) at penalties ``lam``."""
+        lam = np.asarray(lam, dtype=float).reshape(-1)
+        out = []
+        for fits, held, count in zip(self.fits, self.held, self.count):
+            rows = []
+            for fit, mom, c in zip(fits, held, count):
+                coef = algebra.coefficients(fit.state, lam, fit.design)
+                des = fit.design
+                dmean = mom.mean - np.concatenate([des.x_mean, des.y_mean])  # 0s: no intercept
+                sse = algebra.block_sse(coef, mom.n, dmean, m2=mom.m2, r=mom.r)
+                rows.append(sse / c)
+            out.append(np.stack(rows))
+        return np.stack(out)
+
+
+def fold_moments(held, p: int, *, fit_intercept: bool = True,
+                 standardize: bool = True) -> FoldMoments:
+    """:class:`FoldMoments` of the per-fold moments ``held`` (R lists of K
+    :class:`Moments`): each training set's moments merged from the other folds'
+    (prefix and suffix merges, O(K) per repeat) and factored."""
+    fits = []
+    for row in held:
+        K = len(row)
+        prefix = [None]
+        for f in range(K - 1):
+            prefix.append(row[f] if prefix[-1] is None else merge_moments(prefix[-1], row[f]))
+        suffix = [None] * K
+        for f in range(K - 1, 0, -1):
+            suffix[f - 1] = row[f] if suffix[f] is None else merge_moments(row[f], suffix[f])
+        per = []
+        for f in range(K):
+            parts = [m for m in (prefix[f], suffix[f]) if m is not None]
+            train = parts[0] if len(parts) == 1 else merge_moments(*parts)
+            with warnings.catch_warnings():  # the full-data fit already warned
+                warnings.simplefilter("ignore", UserWarning)
+                per.append(factor_moments(train, p, fit_intercept=fit_intercept,
+                                          standardize=standardize))
+        fits.append(tuple(per))
+    count = np.array([[m.n for m in row] for row in held], dtype=np.int64)
+    return FoldMoments(fits=tuple(fits), held=tuple(tuple(r) for r in held), count=count)
+
+
+@dataclass(frozen=True)
 class FoldPlan:
     """Which fold each row is in: :mod:`paths.data.folds`, as every engine assigns folds.
 
@@ -541,27 +672,54 @@ class FoldPlan:
                                      seed=self.seed, repeat=i) for i in range(self.repeats)])
 
 
-def check_cv_options(cv, scheme, repeats) -> None:
+def solver_route(solver: str, accurate: bool) -> bool:
+    """The streamed route for ``solver`` (as :func:`paths.core.factor.factorize` names
+    them): ``"svd"`` → the accurate route (QR of the rows, then the SVD of R),
+    ``"gram"`` → the Gram route, ``"auto"`` → ``accurate`` as given."""
+    if solver not in ("auto", "svd", "gram"):
+        raise InputError(f"solver must be one of auto, svd, gram; got {solver!r}")
+    if solver == "gram" and accurate:
+        raise InputError("accurate=True is the QR route and solver gram the Gram route; "
+                         "drop one of them")
+    return accurate if solver == "auto" else solver == "svd"
+
+
+def check_scheme(fold_scheme: str, groups=None) -> str:
+    """The fold scheme of a streamed engine: ``"grouped"`` with groups, else ``fold_scheme``."""
+    if fold_scheme not in ("shuffled", "blocked", "grouped"):
+        raise InputError(f"fold_scheme must be shuffled or blocked; got {fold_scheme!r}")
+    if groups is not None:
+        if fold_scheme == "blocked":
+            raise InputError("groups makes grouped folds; drop fold_scheme blocked")
+        return "grouped"
+    if fold_scheme == "grouped":
+        raise InputError("fold_scheme grouped needs groups; pass the group labels")
+    return fold_scheme
+
+
+def check_cv_options(n_folds, scheme, repeats, cv_scaling: str = "global") -> None:
     """One-line errors for K-fold options a streamed engine is given."""
-    if cv is None:
+    if cv_scaling not in ("global", "per-fold"):
+        raise InputError(f"cv_scaling must be global or per-fold; got {cv_scaling!r}")
+    if n_folds is None:
         if isinstance(repeats, bool) or repeats != 1:
-            raise InputError("repeats needs K-fold CV (cv=K; CLI: --cv K)")
+            raise InputError("repeats needs K-fold CV; pass n_folds")
         return
-    if isinstance(cv, bool) or int(cv) != cv or cv < 2:
-        raise InputError(f"cv must be an integer >= 2 (number of folds); got {cv!r}")
+    if isinstance(n_folds, bool) or int(n_folds) != n_folds or n_folds < 2:
+        raise InputError(f"n_folds must be an integer >= 2; got {n_folds!r}")
     if isinstance(repeats, bool) or int(repeats) != repeats or repeats < 1:
         raise InputError(f"repeats must be an integer >= 1; got {repeats!r}")
     if scheme == "blocked" and repeats > 1:
         raise InputError("blocked folds are deterministic; use repeats=1 (or shuffled folds)")
 
 
-def fold_plan(n: int, cv: int, *, scheme="shuffled", seed=0, repeats=1, group_counts=None,
+def fold_plan(n: int, n_folds: int, *, scheme="shuffled", seed=0, repeats=1, group_counts=None,
               fit_intercept: bool = True) -> FoldPlan:
     """The :class:`FoldPlan` of ``n`` training rows (checked as
     :func:`paths.selection.cv.make_folds` checks folds)."""
     from paths.data.folds import group_folds
 
-    K = int(cv)
+    K = int(n_folds)
     if group_counts is not None:
         if group_counts.size < K:
             raise InputError(f"{group_counts.size} groups cannot fill {K} folds; use at most "
@@ -583,13 +741,16 @@ def fold_plan(n: int, cv: int, *, scheme="shuffled", seed=0, repeats=1, group_co
     return plan
 
 
-def cv_note(plan: FoldPlan) -> str:
+def cv_note(plan: FoldPlan, cv_scaling: str = "global") -> str:
     """The data note of a streamed engine's K-fold CV."""
     how = {"shuffled": f"seeded shuffle, seed {plan.seed}", "blocked": "contiguous blocks of rows",
            "grouped": f"whole groups, seed {plan.seed}"}[plan.scheme]
     reps = f" x {plan.repeats} repeats" if plan.repeats > 1 else ""
-    return (f"{plan.n_folds}-fold CV{reps} with preprocessing (centering, scaling) from all "
-            f"training rows; {how} (paths.data.folds, as every engine assigns folds)")
+    pre = ("each training set centered and scaled on its own rows (per-fold scaling, "
+           "refitted from the per-fold moments)" if cv_scaling == "per-fold" else
+           "preprocessing (centering, scaling) from all training rows")
+    return (f"{plan.n_folds}-fold CV{reps} with {pre}; {how} (paths.data.folds, as every "
+            "engine assigns folds)")
 
 
 # --------------------------------------------------------------------------- result
@@ -638,6 +799,9 @@ class StreamPath(RidgePath):
     approximate : bool
         True when truncated (``rank``): the fit is ridge on the top principal
         components and the min-norm quantities are approximations.
+    preparation : dict or None
+        With ``encode`` / ``drop_missing``: the source columns, the one-hot
+        levels and the missing-value rule (as ``fit.npz`` records them).
 
     ``factorization.u`` is empty (0 × r): the left singular vectors are never
     formed, so :meth:`criteria_at` (which needs them for leave-one-out) is not
@@ -655,6 +819,7 @@ class StreamPath(RidgePath):
     fold_stats: "FoldFactors | None" = None
     fold_plan: "FoldPlan | None" = None
     loo_at: object = field(default=None, repr=False, compare=False)
+    preparation: dict | None = None
 
     def criteria_at(self, lam):
         """df, training MSE, GCV and leave-one-out MSE at any penalties.
@@ -714,7 +879,7 @@ def _test_pass(fit: _Fit, lam, source: RowSource, p: int, progress):
 
 def path_from_moments(fit: _Fit, lam, *, feature_names, loo, loo0, test=None, cv=None,
                       n_folds=0, engine="stream", passes=(), notes=(), fold_stats=None,
-                      fold_plan=None, loo_at=None) -> StreamPath:
+                      fold_plan=None, loo_at=None, preparation=None) -> StreamPath:
     """Assemble the path result from the factors and the pass results."""
     fac, des = fit.fac, fit.design
     p = des.n_features
@@ -751,28 +916,39 @@ def path_from_moments(fit: _Fit, lam, *, feature_names, loo, loo0, test=None, cv
         penalty_convention=PENALTY_CONVENTION, state=state, engine=engine, passes=tuple(passes),
         n_folds=int(n_folds), notes=tuple(notes), captured_share=fit.captured_share,
         approximate=fit.rank_limit is not None, fold_stats=fold_stats, fold_plan=fold_plan,
-        loo_at=loo_at, **out)
+        loo_at=loo_at, preparation=preparation, **out)
 
 
 class LooPasses:
-    """Leave-one-out MSE (k, t) at new penalties, one pass over the rows each.
+    """Leave-one-out MSE (k, t) and its standard error at new penalties: one pass over
+    the rows for each call with penalties not seen before (all of them at once).
 
-    ``pass_fn(lam) -> mse (k, t)``; results are cached by penalty, and
-    ``passes`` counts the passes made.
+    ``pass_fn(lam) -> (mse, se)``, both (k, t); results are cached by penalty,
+    and ``passes`` counts the passes made.
     """
 
-    def __init__(self, pass_fn):
+    def __init__(self, pass_fn, lam=None, mse=None, se=None):
         self._fn, self._cache, self.passes = pass_fn, {}, 0
+        if lam is not None:  # the values the second pass already gave on the grid
+            for i, v in enumerate(np.asarray(lam, dtype=float).tolist()):
+                self._cache[v] = (mse[i], se[i])
 
-    def __call__(self, lam):
-        lam = np.asarray(lam, dtype=float).reshape(-1)
-        todo = [v for v in dict.fromkeys(lam.tolist()) if v not in self._cache]
+    def _fill(self, lam) -> list:
+        lam = np.asarray(lam, dtype=float).reshape(-1).tolist()
+        todo = [v for v in dict.fromkeys(lam) if v not in self._cache]
         if todo:
-            mse = self._fn(np.array(todo))
+            mse, se = self._fn(np.array(todo))
             self.passes += 1
             for i, v in enumerate(todo):
-                self._cache[v] = mse[i]
-        return np.stack([self._cache[v] for v in lam.tolist()])
+                self._cache[v] = (mse[i], se[i])
+        return lam
+
+    def __call__(self, lam):
+        return np.stack([self._cache[v][0] for v in self._fill(lam)])
+
+    def se(self, lam):
+        """Standard error (k, t) of the leave-one-out MSE at ``lam``."""
+        return np.stack([self._cache[v][1] for v in self._fill(lam)])
 
 
 # --------------------------------------------------------------------------- entry point
@@ -805,6 +981,7 @@ def stream_path(
     sep: str | None = None,
     chunk_rows: int = DEFAULT_CHUNK_ROWS,
     accurate: bool = False,
+    solver: str = "auto",
     fit_intercept: bool = True,
     standardize: bool = True,
     test=None,
@@ -812,13 +989,16 @@ def stream_path(
     n_lambdas: int = 100,
     rtol: float | None = None,
     loo: bool = True,
-    cv: int | None = None,
-    cv_seed: int | None = None,
+    n_folds: int | None = None,
+    fold_scheme: str = "shuffled",
+    cv_scaling: str = "global",
     repeats: int = 1,
     groups=None,
     holdout: float | None = None,
     seed: int = 0,
     rank: int | None = None,
+    encode: str | None = None,
+    drop_missing: str | None = None,
     progress=None,
 ) -> StreamPath:
     """The ridge path of tall data read in row chunks, without holding the design.
@@ -844,6 +1024,10 @@ def stream_path(
     accurate : bool
         Chunked TSQR instead of the Gram matrix: backward stable, about twice
         the arithmetic.
+    solver : {"auto", "svd", "gram"}
+        As in :func:`paths.core.path.fit_path`: ``"svd"`` takes the accurate
+        route (TSQR of the rows, then the SVD of R), ``"gram"`` the Gram route,
+        ``"auto"`` follows ``accurate``; the request is stated in ``solver_reason``.
     fit_intercept, standardize : bool
         As in :func:`paths.path.fit_path`.
     test : path, RowSource or array_like, optional
@@ -855,15 +1039,38 @@ def stream_path(
     loo : bool
         Make the second pass for exact leave-one-out (default True).  With
         ``False`` the result's ``loo_mse`` is None.
-    cv : int, optional
-        Also exact K-fold CV with ``cv`` folds in the second pass (fixed
-        preprocessing): contiguous blocks of rows, or the seeded shuffle
-        with ``cv_seed``.
+    n_folds : int, optional
+        Also exact K-fold CV with ``n_folds`` folds in the second pass (fixed
+        preprocessing), assigned by :mod:`paths.data.folds` as every engine does.
+    fold_scheme : {"shuffled", "blocked"}
+        The fold scheme: the seeded shuffle (``seed``) or contiguous blocks of
+        rows; with ``groups``, whole groups (``"grouped"``).
+    cv_scaling : {"global", "per-fold"}
+        Centering and scaling of the K-fold training sets: from all training
+        rows (held fixed), or each training set's own (every fold refitted from
+        the merged moments of the other folds, as
+        :func:`paths.selection.cv.cross_validate` with ``scaling="per-fold"``).
+    repeats : int
+        Repetitions of the shuffled (or grouped) K-fold split.
+    groups : str or array_like, optional
+        Group labels (a column name of the file, or one label per row): grouped folds.
+    holdout : float, optional
+        Hold out this fraction of the rows (seeded by ``seed``) as the test set.
+    seed : int
+        The one seed of the holdout split and the shuffled or grouped folds.
     rank : int, optional
         Keep only the top ``rank`` principal components (exact truncation of
         the p × p factorization; a warning states the captured share of
         :math:`\\|Z\\|_F^2` and that the min-norm quantities are then
         approximations).  At most min(n - 1, p).
+    encode : {None, "onehot"}
+        One-hot encode text feature columns as the in-memory reader does
+        (:func:`paths.data.tables.select`): same columns, names and order; the
+        levels come from a pre-pass over the file (:mod:`paths.data.rowprep`).
+    drop_missing : {None, "rows", "columns"}
+        Drop rows (or feature columns) with missing values, as in memory; a
+        pre-pass counts the rows kept, and the holdout and the folds are
+        assigned on the kept rows.  Both need a CSV or Parquet file.
     progress : callable, optional
         ``progress(label, rows_done, rows_total_or_None)`` after each chunk.
 
@@ -906,7 +1113,18 @@ def stream_path(
     >>> res.coef.shape, res.engine
     ((100, 10), 'stream')
     """
-    src = open_rows(data, target, features=features, sep=sep, chunk_rows=chunk_rows, y=y)
+    accurate = solver_route(solver, accurate)
+    prepared = bool(encode) or drop_missing is not None
+    if prepared:
+        if groups is not None and not isinstance(groups, str):
+            raise InputError("groups with encode or drop_missing: name the groups column of "
+                             "the file (its labels are read with the prepared rows)")
+        src = open_prepared(data, target, features=features, sep=sep, chunk_rows=chunk_rows,
+                            encode=encode, drop_missing=drop_missing, progress=progress,
+                            extra=() if groups is None else (groups,))
+        prep = src.preparation
+    else:
+        src = open_rows(data, target, features=features, sep=sep, chunk_rows=chunk_rows, y=y)
     if isinstance(groups, str) and groups in src.feature_names:
         if features is not None:
             raise InputError(f"groups column {groups!r} is also a feature; leave it out of "
@@ -918,9 +1136,11 @@ def stream_path(
         raise InputError(f"n_lambdas must be at least 1; got {n_lambdas}")
     if test is not None and holdout is not None:
         raise InputError("pass either a test set or a holdout fraction, not both")
-    group_src = None if groups is None else GroupValues(groups, src, sep=sep)
-    scheme = "grouped" if groups is not None else "blocked" if cv_seed is None else "shuffled"
-    check_cv_options(cv, scheme, repeats)
+    group_src = None if groups is None else (
+        PreparedGroups(groups, src) if prepared else GroupValues(groups, src, sep=sep))
+    scheme = check_scheme(fold_scheme, groups)
+    check_cv_options(n_folds, scheme, repeats, cv_scaling)
+    cv = n_folds
     lam_user = None if lambdas is None else as_lambdas(lambdas)
     test_src = None
     if holdout is not None:
@@ -930,6 +1150,9 @@ def stream_path(
         test_src = HoldoutRows(full, n_all, holdout, seed, test=True)
         if group_src is not None:
             group_src = group_src.subset(src)
+    elif test is not None and prepared:
+        test_src = open_prepared(test, None, sep=sep, chunk_rows=chunk_rows,
+                                 like=prep)
     elif test is not None:
         test_src = open_rows(test, target if target is not None else src.target_names,
                              features=src.feature_names if not isinstance(test, RowSource) and
@@ -949,31 +1172,32 @@ def stream_path(
         if progress:
             progress(label1, rows, src.n_rows)
     mom = merger.result()
-    check_magnitudes(mom, src.columns, src.source)
+    check_magnitudes(mom, src.columns, src.source)  # before the row-count checks below
     passes.append(PassInfo(label1, mom.n, time.perf_counter() - t0, mom.n * src.nbytes_per_row))
     if fit_intercept and mom.n < 2:
         raise InputError(f"the data have {mom.n} row; at least 2 samples are needed to fit an "
                          "intercept (or pass fit_intercept=False)")
     fit = factor_moments(mom, p, fit_intercept=fit_intercept, standardize=standardize, rtol=rtol,
-                         rank=rank)
+                         rank=rank, names=src.columns, requested=solver)
     lam = default_grid(fit.fac.d, n_lambdas) if lam_user is None else lam_user
-    loo_mse = loo0 = cvres = hp = plan = None
-    notes = []
+    loo_mse = loo0 = loo_se = cvres = hp = plan = None
+    notes = list(prep.notes) if prepared else []
     if loo or cv:
         plan = None if not cv else fold_plan(
-            mom.n, cv, scheme=scheme, seed=0 if cv_seed is None else int(cv_seed),
-            repeats=repeats, group_counts=counts, fit_intercept=fit_intercept)
-        hp = _hat_pass(fit, lam, src, p, plan, group_src, passes, progress,
+            mom.n, cv, scheme=scheme, seed=int(seed), repeats=repeats, group_counts=counts,
+            fit_intercept=fit_intercept)
+        hp = _hat_pass(fit, lam, src, p, plan, group_src, passes, progress, cv_scaling,
                        "pass 2/2: hat diagonals for exact leave-one-out"
                        + (f" and {cv}-fold CV" if cv else ""))
         loo_mse, loo0 = hp.loo()
+        loo_se = hp.loo_with_se()[1]
         if cv:
             cvres = hp.kfold()
-            notes.append(cv_note(plan))
+            notes.append(cv_note(plan, cv_scaling))
     else:
         notes.append("leave-one-out skipped (loo=False): no second pass")
     if rank is not None:
-        notes.append(f"truncated to the top {fit.fac.rank} principal components (--rank), "
+        notes.append(f"truncated to the top {fit.fac.rank} principal components (rank=), "
                      f"capturing {100 * fit.captured_share:.2f}% of ||X||_F^2; min-norm "
                      "quantities are approximations")
     test_res = None
@@ -983,19 +1207,22 @@ def stream_path(
         passes.append(PassInfo("test rows: test error", test_res[2], time.perf_counter() - t0,
                                test_res[2] * test_src.nbytes_per_row))
     def one_pass(lam_new):
-        return _hat_pass(fit, lam_new, src, p, None, None, [], progress,
-                         "extra pass: leave-one-out at new penalties").loo()[0]
+        return _hat_pass(fit, lam_new, src, p, None, None, [], progress, "global",
+                         "extra pass: leave-one-out at new penalties").loo_with_se()
 
     return path_from_moments(fit, lam, feature_names=src.feature_names, loo=loo_mse, loo0=loo0,
                              test=test_res, cv=cvres, n_folds=cv or 0, passes=passes,
                              notes=notes, fold_stats=None if hp is None else hp.fold_factors(),
-                             fold_plan=plan, loo_at=LooPasses(one_pass) if loo else None)
+                             fold_plan=plan, loo_at=LooPasses(one_pass, lam, loo_mse, loo_se)
+                             if loo else None,
+                             preparation=prep.record() if prepared else None)
 
 
-def _hat_pass(fit, lam, src, p, plan, group_src, passes, progress, label) -> HatPass:
+def _hat_pass(fit, lam, src, p, plan, group_src, passes, progress, cv_scaling,
+              label) -> HatPass:
     """The second pass (and the third, when rows of leverage near 1 were kept)."""
     n = fit.design.n_samples
-    hp = HatPass(fit, lam, folds=plan)
+    hp = HatPass(fit, lam, folds=plan, cv_scaling=cv_scaling)
     codes = None if plan is None or group_src is None else group_src.codes()
     t0 = time.perf_counter()
     rows2 = 0

@@ -26,22 +26,11 @@ __all__ = ["explore_engine", "unsupported_options", "write_engine_fit", "ENGINES
 ENGINES = ("memory", "stream", "dask")
 _HASH_LIMIT = 2 << 30  # files above 2 GiB are recorded by size, not hashed (another full read)
 # options the out-of-memory engines do not offer (they keep their defaults)
-_DATA_ONLY_IN_MEMORY = ("encode", "drop_missing", "weights")
-_FIT_ONLY_IN_MEMORY = ("cv_scaling", "solver", "unpenalized", "relative_penalty",
-                       "intervals")
+_DATA_ONLY_IN_MEMORY = ("weights",)
+_FIT_ONLY_IN_MEMORY = ("unpenalized", "relative_penalty", "intervals")
 _WHY = {**{name: " (its one-pass moments are unweighted and penalize every column)"
            for name in ("weights", "unpenalized", "relative_penalty")},
-        "intervals": " (the leave-out fits use the left singular vectors)",
-        "encode": (" (one-hot columns need every level of every text column before the first "
-                   "pass, which a streamed engine never holds; encode the columns beforehand, "
-                   "e.g. pandas.get_dummies)"),
-        "drop_missing": (" (rows or columns would be dropped only as the chunks arrive, after "
-                         "the row count that fixes the holdout and the folds; remove the "
-                         "missing values beforehand)"),
-        "cv_scaling": (" (per-fold scaling refits every fold on its own scaling, which needs "
-                       "each fold's rows again in memory; use cv_scaling global)"),
-        "solver": (" (the streamed engines factor the p x p moments: their route is "
-                   "accurate=True (QR of the rows) or the Gram matrix)")}
+        "intervals": " (the leave-out fits use the left singular vectors)"}
 
 
 def unsupported_options(data: DataOptions, fit: FitOptions, *, wide: bool = False) -> list:
@@ -179,26 +168,31 @@ def _text_rows_below(path: Path, sep, limit: int):
 
 def _fit(data: DataOptions, fit: FitOptions, engine: EngineOptions, progress):
     """Run the engine; returns its path result."""
-    from paths.data.chunks import DEFAULT_CHUNK_ROWS
-
-    name = engine.name
     path, targets, feats, wide, rows = _plan(data)
-    test = data.test_file
-    cv_seed = _cv_seed(data, fit)
     if wide:  # more feature columns than rows: column blocks (paths.workflows.wide)
         from paths.workflows.wide import fit_wide
 
         return fit_wide(data, fit, engine, path=path, targets=targets, feats=feats, rows=rows,
                         progress=progress)
-    if name == "stream":
+    return _tall(path, targets, feats, data, fit, engine, progress)
+
+
+def _tall(path, targets, feats, data: DataOptions, fit: FitOptions, engine: EngineOptions,
+          progress):
+    """Tall data on the row-streamed or the dask engine."""
+    from paths.data.chunks import DEFAULT_CHUNK_ROWS
+
+    test = data.test_file
+    common = dict(target=targets, features=feats, accurate=engine.accurate, solver=fit.solver,
+                  standardize=fit.standardize, n_lambdas=fit.n_lambdas, n_folds=fit.n_folds,
+                  fold_scheme=fit.fold_scheme, cv_scaling=fit.cv_scaling, repeats=fit.repeats,
+                  holdout=data.holdout, seed=fit.seed, rank=engine.rank, encode=data.encode,
+                  drop_missing=data.drop_missing, progress=progress)
+    if engine.name == "stream":
         from paths.engines.stream import stream_path
 
-        return stream_path(path, target=targets, features=feats, sep=data.sep,
-                           chunk_rows=engine.chunk_rows or DEFAULT_CHUNK_ROWS,
-                           accurate=engine.accurate, standardize=fit.standardize, test=test,
-                           n_lambdas=fit.n_lambdas, cv=fit.n_folds, cv_seed=cv_seed,
-                           repeats=fit.repeats, groups=data.groups, holdout=data.holdout,
-                           seed=fit.seed, rank=engine.rank, progress=progress)
+        return stream_path(path, sep=data.sep, test=test, groups=data.groups,
+                           chunk_rows=engine.chunk_rows or DEFAULT_CHUNK_ROWS, **common)
     from paths.engines.dask_cluster import dask_path
 
     if data.groups is not None:
@@ -208,21 +202,8 @@ def _fit(data: DataOptions, fit: FitOptions, engine: EngineOptions, progress):
     if engine.scheduler is not None:  # a remote scheduler's workers do not share our folder
         path = path.resolve()
         test = None if test is None else Path(test).resolve()
-    return dask_path(path, target=targets, features=feats, chunk_rows=engine.chunk_rows,
-                     accurate=engine.accurate, scheduler=engine.scheduler,
-                     timeout=engine.scheduler_timeout, standardize=fit.standardize, test=test,
-                     n_lambdas=fit.n_lambdas, cv=fit.n_folds, cv_seed=cv_seed,
-                     repeats=fit.repeats, holdout=data.holdout, seed=fit.seed, rank=engine.rank,
-                     progress=progress)
-
-
-def _cv_seed(data: DataOptions, fit: FitOptions):
-    """The fold seed of the streamed engines: None for blocked folds (not with groups)."""
-    if data.groups is not None:
-        if fit.fold_scheme == "blocked":
-            raise InputError("groups makes grouped folds; drop fold scheme blocked")
-        return fit.seed
-    return fit.seed if fit.fold_scheme == "shuffled" else None
+    return dask_path(path, test=test, chunk_rows=engine.chunk_rows, scheduler=engine.scheduler,
+                     timeout=engine.scheduler_timeout, **common)
 
 
 def _select(result, fit: FitOptions):
@@ -319,8 +300,9 @@ def write_engine_fit(dest: Path, result, targets, source: str, input_sha256=None
     reported, rule = selection.chosen_lambdas(), selection.reported
     if not np.all(np.isfinite(reported)):  # the reported rule gave no penalty: GCV's instead
         reported, rule = np.array(rules["gcv"], dtype=float), f"gcv (rule {rule} gave none)"
-    prep = {"source_columns": list(result.feature_names), "encoding": {}, "id_column": None,
-            "drop_missing": None, "target_names": list(targets), "source": source}
+    prep = {"source_columns": list(result.feature_names), "encoding": {}, "drop_missing": None,
+            **(getattr(result, "preparation", None) or {}),
+            "id_column": None, "target_names": list(targets), "source": source}
     return save_fit(dest, result, reported=reported, reported_rule=rule, rules=rules,
                     preparation=prep, input_sha256=input_sha256)
 

@@ -36,8 +36,6 @@ WIDE_REFUSALS = {
                          "every column alike; use engine memory"),
     "intervals": ("intervals with wide data: the leave-out predictions need the right "
                   "factors, which the column-blocked engine never forms; use engine memory"),
-    "solver": ("solver with wide data: the column-blocked engine factors the n x n Gram "
-               "matrix, or with accurate a QR of the column blocks; drop solver"),
 }
 
 
@@ -139,10 +137,12 @@ def fit_wide(data: DataOptions, fit: FitOptions, engine: EngineOptions, *, path:
     CV (any scheme, groups, repeats, global or per-fold scaling); a
     :class:`paths.engines.wide.WidePath` whose ``fold_stats`` give the CV errors."""
     from paths.data.folds import holdout_mask
+    from paths.engines.stream import solver_route
     from paths.engines.wide import wide_path
     from paths.workflows.explore import folds_for
 
     _refuse(data, fit, path, engine, rows, len(feats))
+    accurate = solver_route(fit.solver, engine.accurate)  # svd: QR of the blocks; gram: Gram
     src, y, groups, notes = _open(path, data, targets, feats, engine, progress)
     held = None
     if data.holdout is not None:
@@ -152,9 +152,11 @@ def fit_wide(data: DataOptions, fit: FitOptions, engine: EngineOptions, *, path:
     n_folds = folds_for(groups, n_train, fit)
     result = wide_path(src, y, target=targets if len(targets) > 1 else targets[0],
                        X_test=data.test_file, test_rows=held, sep=data.sep,
-                       accurate=engine.accurate, rank=engine.rank, n_lambdas=fit.n_lambdas,
+                       accurate=accurate, rank=engine.rank, n_lambdas=fit.n_lambdas,
                        standardize=fit.standardize, progress=progress)
-    result = dataclasses.replace(result, notes=tuple(notes) + result.notes)
+    reason = result.solver_reason if fit.solver == "auto" else \
+        f"requested (solver {fit.solver}): {result.solver_reason}"
+    result = dataclasses.replace(result, notes=tuple(notes) + result.notes, solver_reason=reason)
     if n_folds is None:
         return result
     return _kfold_stats(result, src, y, groups, held, fit, n_folds, progress)
