@@ -16,7 +16,7 @@ from typer.testing import CliRunner
 from paths.cli import app
 
 runner = CliRunner()
-COMMANDS = ["explore", "threshold", "simulate", "plan", "run", "demo"]
+COMMANDS = ["explore", "threshold", "simulate", "plan", "run", "demo", "predict"]
 
 
 def _option_names(cmd):
@@ -112,3 +112,27 @@ def test_standard_input_in_an_error_message_is_named_standard_input(tmp_path):
                         input="a,b,y\n1,2,3\n4,5,6\n7,8,9\n")
     assert res.exit_code == 2
     assert "standard input" in res.stderr and "paths-stdin-" not in res.stderr
+
+
+def test_plan_and_predict_print_json_and_predict_reads_standard_input(tmp_path, csv_text):
+    """--json on plan (its plan.json record) and predict (what it wrote); '-' as predict's
+    rows: the predictions equal those from the same rows read from a file (the file is the
+    reference)."""
+    res = runner.invoke(app, ["--json", "plan", "--n-features", "50", "--snr", "1", "--out",
+                              str(tmp_path / "p")])
+    assert res.exit_code == 0, res.output
+    assert json.loads(res.stdout) == json.loads((tmp_path / "p" / "plan.json").read_text())
+    data = tmp_path / "d.csv"
+    data.write_text(csv_text)
+    res = runner.invoke(app, ["--quiet", "explore", str(data), "--target", "y", "--out",
+                              str(tmp_path / "o"), "--format", "none", "--no-report"])
+    assert res.exit_code == 0, res.output
+    fit = str(tmp_path / "o" / "fit.npz")
+    res = runner.invoke(app, ["--json", "predict", fit, "-", "--out", str(tmp_path / "a.csv")],
+                        input=csv_text)
+    assert res.exit_code == 0, res.output
+    record = json.loads(res.stdout)
+    assert record["n_rows"] == 20 and record["out"] == str(tmp_path / "a.csv")
+    res = runner.invoke(app, ["predict", fit, str(data), "--out", str(tmp_path / "b.csv")])
+    assert res.exit_code == 0, res.output
+    assert (tmp_path / "a.csv").read_text() == (tmp_path / "b.csv").read_text()
