@@ -13,8 +13,14 @@ import pytest
 from hypothesis import given, settings, strategies as st
 from numpy.testing import assert_allclose
 
+from error_bounds import (U, assert_within, backward_eps, centering_atol, explicit_hat_bound,
+                          gamma, gram_atol, orthonormality_bound, ridge_bounds)
 from paths import fit_path
 from paths.core.design import prepare, to_sample_space
+
+# numerical reference checks (numpy, mpmath, scikit-learn, published bounds): CI reruns
+# them under a forced OpenBLAS kernel (.ci/run)
+pytestmark = pytest.mark.reference
 
 EPS = np.finfo(np.float64).eps
 
@@ -31,8 +37,8 @@ def _data(n, p, seed=0, t=1):
 def test_reduction_preserves_inner_products(shape, standardize):
     """The reduced design z (m = n - 1 rows) has the inner products of the
     centered design: z^T z = Xc^T Xc and z^T zy = Xc^T yc (numpy, explicit
-    centering).  rtol: both sides are sums of n products with rounding
-    ~n eps |X|^2; we allow 100 n eps relative to the largest entry."""
+    centering).  Tolerance: gram_atol (two centerings, each within
+    gamma_6n of the raw columns' norms, and two n-term inner products)."""
     n, p = shape
     X, Y = _data(n, p, seed=n)
     design, z = prepare(X, Y, fit_intercept=True, standardize=standardize)
@@ -41,18 +47,24 @@ def test_reduction_preserves_inner_products(shape, standardize):
     yc = Y - Y.mean(axis=0)
     assert z.shape == (n - 1, p) and design.zy.shape == (n - 1, 1)
     G, Gref = z.T @ z, Xc.T @ Xc
-    assert_allclose(G, Gref, rtol=0, atol=100 * n * EPS * np.abs(Gref).max())
+    # bound: gram_atol on the scaled columns (scaling: one rounding per entry,
+    # u relative, inside gamma_6n's constant)
+    Xs = X / scale
+    assert_within(G, Gref, gram_atol(Xs))
     c, cref = z.T @ design.zy, Xc.T @ yc
-    atol = 100 * n * EPS * np.sqrt(np.abs(Gref).max() * (yc**2).sum())
-    assert_allclose(c, cref, rtol=0, atol=atol)
-    assert_allclose(design.zy.T @ design.zy, yc.T @ yc, rtol=100 * n * EPS)
-    # means and scales against numpy; rtol a few eps (one pass of sums)
-    assert_allclose(design.x_mean, X.mean(axis=0), rtol=10 * EPS * n)
-    assert_allclose(design.y_mean, Y.mean(axis=0), rtol=10 * EPS * n)
-    # the SD is computed from data of magnitude max|x_j|, so its rounding is
-    # relative to that magnitude, not to the SD itself
+    assert_within(c, cref, gram_atol(Xs, Y))
+    assert_within(design.zy.T @ design.zy, yc.T @ yc, gram_atol(Y))
+    # bound: means are n-term sums, within gamma_n of the mean of |x| on each side
+    assert_within(design.x_mean, X.mean(axis=0),
+                    atol=2 * gamma(n) * np.abs(X).mean(axis=0))
+    assert_within(design.y_mean, Y.mean(axis=0),
+                    atol=2 * gamma(n) * np.abs(Y).mean(axis=0))
+    # bound: the SD is ||xc|| / sqrt(n) with xc within centering_atol per entry
+    # (relative to the raw column's size, not to the SD), plus gamma_n for the
+    # sum of squares and its square root, on each side
     if standardize:
-        assert np.all(np.abs(design.x_scale - scale) <= 100 * n * EPS * np.abs(X).max(axis=0))
+        assert np.all(np.abs(design.x_scale - scale)
+                      <= 2 * (centering_atol(X) + gamma(n + 2) * scale))
     else:
         assert np.all(design.x_scale == 1.0)
 
@@ -67,17 +79,33 @@ def test_population_sd_scaling_and_transform():
     X, Y = _data(40, 6, seed=3)
     d, z = prepare(X, Y, fit_intercept=True, standardize=True)
     sc = StandardScaler().fit(X)
-    # rtol 1e-13: two implementations of the same one-pass statistics
-    assert_allclose(d.x_scale, sc.scale_, rtol=1e-13)
-    assert_allclose(d.x_scale, X.std(axis=0, ddof=0), rtol=1e-13)
+    # bound: two computations of the SD, each within centering_atol + gamma_n
+    # (see test_reduction_preserves_inner_products)
+    sd = X.std(axis=0)
+    sd_tol = 2 * (centering_atol(X) + gamma(42) * sd)
+    assert_within(d.x_scale, sc.scale_, sd_tol)
+    assert_within(d.x_scale, X.std(axis=0, ddof=0), sd_tol)
     Xn = np.random.default_rng(4).standard_normal((5, 6))
-    assert_allclose(d.transform(Xn), sc.transform(Xn), rtol=1e-12, atol=1e-12)
-    # the columns of z have unit population SD: |z_j|^2 = n
-    assert_allclose(np.sum(z**2, axis=0), 40.0, rtol=1e-13)
+    # bound: (x - mean) / sd with the mean within 2 gamma_n mean|x| and the SD
+    # within sd_tol: |dz| <= (2u (|x| + |mean|) + dmean) / sd + |z| (dsd / sd + u)
+    zn = sc.transform(Xn)
+    dmean = 2 * gamma(40) * np.abs(X).mean(axis=0)
+    atol = ((2 * U * (np.abs(Xn) + np.abs(sc.mean_)) + dmean) / sd
+            + np.abs(zn) * (sd_tol / sd + U))
+    assert_within(d.transform(Xn), zn, atol)
+    # bound: |z_j|^2 = n up to the centered column's error relative to its norm
+    # (centering_atol / ||xc||, twice for the square) and gamma_n for the sums
+    m = np.sqrt(40) * sd
+    assert_within(np.sum(z**2, axis=0), 40.0,
+                    atol=40.0 * (4 * np.sqrt(40) * centering_atol(X) / m + 4 * gamma(42)))
     d0, z0 = prepare(X, Y, fit_intercept=False, standardize=True)
     assert np.all(d0.x_mean == 0) and np.all(d0.y_mean == 0)
-    assert_allclose(d0.x_scale, StandardScaler(with_mean=False).fit(X).scale_, rtol=1e-13)
-    assert_allclose(z0, X / d0.x_scale, rtol=1e-15)
+    # bound: without centering, sqrt(mean of squares): gamma_{n+2} on each side
+    assert_allclose(d0.x_scale, StandardScaler(with_mean=False).fit(X).scale_,
+                    rtol=2 * gamma(42))
+    # bound: one correctly rounded division per entry on each side (IEEE 754)
+    assert_allclose(z0, X / d0.x_scale, rtol=2 * U)
+    # exact: without an intercept y is neither centered nor scaled (a copy)
     assert_allclose(d0.zy, Y, rtol=0)
     d1, z1 = prepare(X, Y, fit_intercept=True, standardize=False)
     assert np.all(d1.x_scale == 1.0)
@@ -114,19 +142,24 @@ def test_to_sample_space_is_orthonormal_and_orthogonal_to_ones(n):
     orthonormal columns orthogonal to the ones vector (Householder reflector Q
     with Q 1 = -sqrt(n) e_1, symmetric and orthogonal: Golub & Van Loan 5.1);
     together with 1/sqrt(n) they form an orthogonal matrix (numpy check).
-    atol: a few rounding errors per entry, 10 n eps."""
+    atol: one reflector's entries, each within gamma_{n+4} (its norm, a product
+    and a quotient; Higham 2002 section 19.3), on each side of an n-term inner
+    product (gamma_n)."""
     a = np.eye(n - 1)
     Q = to_sample_space(a, fit_intercept=True)  # columns 2..n of Q
     assert Q.shape == (n, n - 1)
-    assert_allclose(Q.T @ Q, np.eye(n - 1), atol=10 * n * EPS)
-    assert_allclose(np.ones(n) @ Q, 0.0, atol=10 * n * EPS)
+    # bound: docstring
+    tol = 2 * gamma(n + 4) + gamma(n)
+    assert_allclose(Q.T @ Q, np.eye(n - 1), atol=tol)
+    assert_allclose(np.ones(n) @ Q, 0.0, atol=np.sqrt(n) * tol)
     full = np.column_stack([np.ones(n) / np.sqrt(n), Q])
-    assert_allclose(full @ full.T, np.eye(n), atol=10 * n * EPS)
-    # and it inverts the reduction: Q [0; z] = Xc (numpy centering)
+    assert_allclose(full @ full.T, np.eye(n), atol=tol + 2 * U)
+    # and it inverts the reduction: Q [0; z] = Xc (numpy centering); bound: two
+    # reflector applications and numpy's centering, centering_atol each
     X, Y = _data(n, 4, seed=n)
     _, z = prepare(X, Y, fit_intercept=True, standardize=False)
-    assert_allclose(to_sample_space(z, True), X - X.mean(axis=0),
-                    atol=100 * n * EPS * np.abs(X).max())
+    assert_within(to_sample_space(z, True), X - X.mean(axis=0),
+                    atol=3 * centering_atol(X))
     # without an intercept the map is the identity
     assert to_sample_space(a, False) is a
 
@@ -140,13 +173,20 @@ def test_reduced_response_of_factor_basis_in_sample_space():
     y = rng.standard_normal(15)
     res = fit_path(X, y, [0.7], standardize=False)
     Un = to_sample_space(res.factorization.u, True)
-    assert_allclose(Un.T @ Un, np.eye(res.rank), atol=1e-13)
-    assert_allclose(Un.sum(axis=0), 0.0, atol=1e-13)
+    # bound: the SVD's orthonormality (orthonormality_bound) plus the
+    # reflector's (2 gamma_{n+4} + gamma_n, as above)
+    tol = orthonormality_bound(14, 6, res.condition_number) + 2 * gamma(19) + gamma(15)
+    assert_allclose(Un.T @ Un, np.eye(res.rank), atol=tol)
+    assert_allclose(Un.sum(axis=0), 0.0, atol=np.sqrt(15) * tol)
     d2 = res.singular_values**2
     H = np.full((15, 15), 1 / 15) + (Un * (d2 / (d2 + 0.7))) @ Un.T
     X1 = np.column_stack([np.ones(15), X])
     Href = X1 @ np.linalg.solve(X1.T @ X1 + np.diag([0.0] + [0.7] * 6), X1.T)
-    assert_allclose(H, Href, atol=1e-12)  # cond(X1^T X1 + D) ~ 1e3 here
+    # bound: the explicit solve (explicit_hat_bound) plus ours: a projector-type
+    # matrix moving by 2 kappa_lam eps_b (Wedin, as in ridge_bounds) and tol
+    kap = ridge_bounds(X, y, 0.7, standardize=False).kappa
+    assert_allclose(H, Href, atol=explicit_hat_bound(X1, [0.0] + [0.7] * 6)
+                    + 2 * kap * backward_eps(15, 6) + 2 * tol)
 
 
 @settings(max_examples=25, deadline=None)
@@ -154,12 +194,12 @@ def test_reduced_response_of_factor_basis_in_sample_space():
        loc=st.floats(-1e6, 1e6), log_scale=st.floats(-6, 6))
 def test_property_centering_matches_numpy(n, p, seed, loc, log_scale):
     """For any location and scale of the columns, z^T z equals the Gram matrix
-    of the numpy-centered design (atol 100 n eps |X|^2: the centered design is
-    computed from data of magnitude |X|, so its rounding is relative to |X|,
-    not to the spread)."""
+    of the numpy-centered design (gram_atol: the centered design is computed
+    from data of magnitude |X|, so its rounding is relative to |X|, not to the
+    spread)."""
     rng = np.random.default_rng(seed)
     X = loc + 10.0**log_scale * rng.standard_normal((n, p))
     _, z = prepare(X, np.ones((n, 1)), fit_intercept=True, standardize=False)
     Xc = X - X.mean(axis=0)
-    big = np.abs(X).max() ** 2
-    assert_allclose(z.T @ z, Xc.T @ Xc, rtol=0, atol=100 * n * EPS * big)
+    # bound: gram_atol (docstring)
+    assert_within(z.T @ z, Xc.T @ Xc, gram_atol(X))

@@ -12,6 +12,8 @@ import pytest
 from hypothesis import given, settings, strategies as st
 from numpy.testing import assert_allclose
 
+from error_bounds import (backward_eps, gamma, orthonormality_bound, ridge_bounds,
+                          singular_value_bound, singular_vector_bound)
 from paths import fit_path
 from paths.data.validation import InputError
 from paths.core.design import prepare
@@ -47,11 +49,11 @@ def test_routes_agree_on_well_conditioned(shape):
     """"svd", "gram" and "auto" give the same factors on well-conditioned
     designs; singular values also equal ``numpy.linalg.svd`` (LAPACK).
 
-    Tolerances: the Gram route computes d_j^2 with absolute error
-    ~max(m, q) eps d_1^2 (Golub & Van Loan sec. 8.1), i.e. relative error
-    max(m, q) eps (d_1/d_j)^2 / 2 in d_j; we allow 10x that.  Singular vectors
-    move by at most ||E|| / gap (Davis-Kahan) with ||E|| ~ max(m, q) eps d_1^2 and
-    gap the smallest distance between distinct d_j^2; we allow 100x that.
+    Tolerances: singular values within Weyl's bound (singular_value_bound:
+    eps_b kappa_j for the SVD, eps_b kappa_j^2 through the Gram matrix), singular
+    vectors within Wedin's sin-theta bound (singular_vector_bound), min-norm
+    coefficients within Wedin's least-squares bound (ridge_bounds at lam = 0);
+    eps_b = backward_eps(m, q).
     """
     z = well_conditioned(*shape, seed=1)
     m, q = z.shape
@@ -61,15 +63,16 @@ def test_routes_agree_on_well_conditioned(shape):
     fa = factorize(z, solver="auto")
     assert fa.solver == "gram" and "Gram route" in fa.reason
     assert fs.rank == fg.rank == fa.rank == min(m, q)
-    # SVD route vs numpy: both backward stable, relative error <= ~cond * eps
-    cond = ref[0] / ref[-1]
-    assert_allclose(fs.d, ref, rtol=100 * cond * EPS)
-    bound = 0.5 * max(m, q) * EPS * (ref[0] / ref) ** 2
-    assert np.all(np.abs(fg.d / ref - 1) <= 10 * bound + 4 * EPS)
-    assert_allclose(fa.d, fg.d, rtol=0, atol=0)  # auto took exactly this route
-    d2 = ref**2
-    gap = np.min(np.abs(np.diff(d2)))
-    vec_tol = 100 * max(m, q) * EPS * d2[0] / gap
+    # bound: SVD route vs numpy, both backward stable: Weyl, twice
+    eb = backward_eps(m, q)
+    kj = ref[0] / ref
+    assert_allclose(fs.d, ref, rtol=2 * np.max(singular_value_bound(kj, eb)))
+    # bound: the Gram route's Weyl bound on d_j^2 plus numpy's
+    sv = singular_value_bound(kj, eb, gram=True) + singular_value_bound(kj, eb)
+    assert np.all(np.abs(fg.d / ref - 1) <= sv)
+    assert_allclose(fa.d, fg.d, rtol=0, atol=0)  # exact: auto took exactly this route
+    # bound: Wedin's sin-theta for both routes
+    vec_tol = singular_vector_bound(ref, eb, gram=True) + singular_vector_bound(ref, eb)
     assert_allclose(np.abs(fg.u), np.abs(fs.u), atol=vec_tol)
     assert_allclose(np.abs(fg.vt), np.abs(fs.vt), atol=vec_tol)
     # min-norm coefficients V D^-1 U^T y against numpy pinv
@@ -77,9 +80,11 @@ def test_routes_agree_on_well_conditioned(shape):
     ref_coef = np.linalg.pinv(z) @ y
     for f in (fs, fg, fa):
         coef = f.vt.T @ ((f.u.T @ y) / f.d)
-        # relative error <= ~cond * eps for the SVD route, the Gram bound above
-        # for the other: 1e-12 covers both here (cond <= 3.5)
-        assert np.linalg.norm(coef - ref_coef) <= 1e-12 * np.linalg.norm(ref_coef)
+        # bound: Wedin (ridge_bounds at 0): the route's (Gram bound covers
+        # both) plus numpy's, plus gamma_q for forming the product here
+        tol = sum(ridge_bounds(z, y, 0.0, standardize=False, fit_intercept=False, solvers=1,
+                               gram=g).coef for g in (True, False)) + 2 * gamma(max(m, q))
+        assert np.linalg.norm(coef - ref_coef) <= tol * np.linalg.norm(ref_coef)
 
 
 @pytest.mark.parametrize("case", ["polynomial", "polynomial-std", "p=n", "p=n-1"])
@@ -89,7 +94,7 @@ def test_auto_falls_back_to_svd_and_matches_it(case):
     near 0 by Marchenko-Pastur, cond ~ 1e3), ``solver="auto"`` takes a
     backward-stable route; its reason says so;
     its smallest singular values and min-norm coefficients equal the SVD
-    route's to ~cond * eps (we allow 100 cond eps)."""
+    route's within Weyl's and Wedin's bounds (two SVD solvers)."""
     rng = np.random.default_rng(5)
     if case.startswith("polynomial"):
         X = polynomial_design()
@@ -106,30 +111,41 @@ def test_auto_falls_back_to_svd_and_matches_it(case):
     if case.startswith("polynomial"):
         assert cond >= 1e8
     assert fa.rank == fs.rank
-    assert_allclose(fa.d[-3:], fs.d[-3:], rtol=100 * cond * EPS)
+    # bound: Weyl, two backward-stable SVDs
+    eb = backward_eps(*z.shape)
+    assert_allclose(fa.d[-3:], fs.d[-3:], rtol=2 * float(singular_value_bound(cond, eb)))
     y = rng.standard_normal(z.shape[0])
     ca = fa.vt.T @ ((fa.u.T @ y) / fa.d)
     cs = fs.vt.T @ ((fs.u.T @ y) / fs.d)
-    assert np.linalg.norm(ca - cs) <= 100 * cond * EPS * np.linalg.norm(cs)
+    # bound: Wedin, two SVD solvers (ridge_bounds at 0), gamma_q for the products
+    tol = ridge_bounds(z, y, 0.0, standardize=False, fit_intercept=False).coef
+    assert np.linalg.norm(ca - cs) <= (tol + 2 * gamma(max(z.shape))) * np.linalg.norm(cs)
 
 
 @pytest.mark.parametrize("shape", [(30, 30), (30, 29), (60, 60), (60, 61)])
 def test_auto_near_p_equals_n_small_designs(shape):
     """Small square-ish Gaussian designs (cond ~ 20-130) where "auto" may
     accept a fast route: against the SVD route (LAPACK gesdd, backward stable),
-    the smallest singular value and the min-norm coefficients agree to 1e-10
-    relative, i.e. at least ~3 digits above the 1e-6 to which results are
-    reported (measured <= 2e-12 with the Gram route, 0 with the SVD route)."""
+    the smallest singular value and the min-norm coefficients agree within the
+    Gram route's bounds (Weyl on d^2, Wedin with kappa^2), which also cover an
+    SVD route."""
     rng = np.random.default_rng(5)
     z = reduced(rng.standard_normal(shape))
     fa = factorize(z, solver="auto")
     fs = factorize(z, solver="svd")
     assert fa.rank == fs.rank == min(z.shape)
-    assert_allclose(fa.d[-1], fs.d[-1], rtol=1e-10)
+    eb = backward_eps(*z.shape)
+    cond = fs.d[0] / fs.d[-1]
+    # bound: Weyl for the Gram route plus the SVD's
+    sv = singular_value_bound(cond, eb, gram=True) + singular_value_bound(cond, eb)
+    assert_allclose(fa.d[-1], fs.d[-1], rtol=float(sv))
     y = rng.standard_normal(z.shape[0])
     ca = fa.vt.T @ ((fa.u.T @ y) / fa.d)
     cs = fs.vt.T @ ((fs.u.T @ y) / fs.d)
-    assert np.linalg.norm(ca - cs) <= 1e-10 * np.linalg.norm(cs)
+    # bound: Wedin, the Gram route's kappa^2 term plus the SVD's
+    tol = sum(ridge_bounds(z, y, 0.0, standardize=False, fit_intercept=False, solvers=1,
+                           gram=g).coef for g in (True, False)) + 2 * gamma(max(z.shape))
+    assert np.linalg.norm(ca - cs) <= tol * np.linalg.norm(cs)
 
 
 def test_forced_gram_loses_small_singular_values_as_documented():
@@ -142,12 +158,16 @@ def test_forced_gram_loses_small_singular_values_as_documented():
     m, q = z.shape
     fg = factorize(z, solver="gram")
     fs = factorize(z, solver="svd")
-    assert fg.tol >= np.sqrt(max(m, q) * EPS) * fg.d_max * (1 - 1e-12)
+    # bound: the same formula on the same d_max, three roundings apart
+    assert fg.tol >= np.sqrt(max(m, q) * EPS) * fg.d_max * (1 - gamma(3))
     assert fg.rank < fs.rank == q
     assert fg.rank == np.linalg.matrix_rank(z, tol=fg.tol)
     # the singular values it keeps are accurate to its own error bound
-    bound = 0.5 * max(m, q) * EPS * (fs.d[0] / fs.d[:fg.rank]) ** 2
-    assert np.all(np.abs(fg.d / fs.d[:fg.rank] - 1) <= 10 * bound + 4 * EPS)
+    # bound: Weyl through the Gram matrix plus the SVD's (singular_value_bound)
+    kj = fs.d[0] / fs.d[:fg.rank]
+    eb = backward_eps(m, q)
+    bound = singular_value_bound(kj, eb, gram=True) + singular_value_bound(kj, eb)
+    assert np.all(np.abs(fg.d / fs.d[:fg.rank] - 1) <= bound)
 
 
 @pytest.mark.parametrize("solver", ["svd", "auto"])
@@ -162,8 +182,10 @@ def test_rank_tolerance_and_numpy_matrix_rank(solver, kind):
     f = factorize(z, solver=solver)
     assert f.rank == k == np.linalg.matrix_rank(z)
     d_all = np.linalg.svd(z, compute_uv=False)
-    # rtol 1e-12: d_max from two LAPACK calls, each with relative error ~eps
-    assert_allclose(f.tol, max(m, q) * EPS * d_all[0], rtol=1e-12)
+    # bound: d_max from two backward-stable SVDs (Weyl, kappa_1 = 1) and two
+    # roundings of the product
+    assert_allclose(f.tol, max(m, q) * EPS * d_all[0],
+                    rtol=2 * backward_eps(m, q) + gamma(2))
     assert np.all(f.d > f.tol)
     assert f.d_min <= f.tol  # the dropped values were seen and are below tol
     # a user rtol is honoured
@@ -174,18 +196,20 @@ def test_rank_tolerance_and_numpy_matrix_rank(solver, kind):
 @pytest.mark.parametrize("solver", ["svd", "gram", "auto"])
 def test_factors_are_orthonormal_and_reconstruct(solver):
     """U^T U = I, V^T V = I and U D V^T = Z to backward-error level (numpy
-    norms; LAPACK SVD is backward stable, Golub & Van Loan sec. 8.6): we allow
-    10 max(m, q) eps d_max for the SVD route and the Gram route's
-    sqrt-of-eigenvalue error on this well-conditioned design."""
+    norms; LAPACK SVD is backward stable, Golub & Van Loan sec. 8.6):
+    orthonormality_bound (kappa^2 larger through the Gram matrix), and the
+    reconstruction within twice that times d_max (U D V^T = Z V V^T there)."""
     z = well_conditioned(50, 120, seed=9)
     f = factorize(z, solver=solver)
     r = f.rank
-    tol = 10 * max(z.shape) * EPS
+    # bound: orthonormality_bound; "auto" may take the Gram route
+    tol = orthonormality_bound(*z.shape, f.condition_number, gram=solver != "svd")
     assert_allclose(f.u.T @ f.u, np.eye(r), atol=tol)
     assert_allclose(f.vt @ f.vt.T, np.eye(r), atol=tol)
     recon = (f.u * f.d) @ f.vt
-    assert np.linalg.norm(recon - z, 2) <= tol * f.d_max
+    assert np.linalg.norm(recon - z, 2) <= 2 * tol * f.d_max + gamma(r) * f.d_max
     assert np.all(np.diff(f.d) <= 0)  # descending
+    # exact: the documented definition, the same division
     assert_allclose(f.condition_number, f.d[0] / f.d[-1], rtol=0)
 
 
@@ -211,13 +235,16 @@ def test_empty_and_overflowing_designs():
     """Edge cases: an empty design gives rank 0; a design whose Gram matrix
     overflows (entries 1e200, squares 1e400 > float64 max, IEEE 754) makes
     "auto" take the SVD route with a reason, and a forced "gram" raises
-    InputError; the SVD route's singular values equal numpy's (rtol 1e-13)."""
+    InputError; the SVD route's singular values equal numpy's (Weyl, twice)."""
     f = factorize(np.zeros((5, 0)))
     assert f.rank == 0
     z = well_conditioned(30, 8, seed=13) * 1e200
     fa = factorize(z, solver="auto")
     assert fa.solver.startswith("svd") and "not finite" in fa.reason
-    assert_allclose(fa.d, np.linalg.svd(z, compute_uv=False), rtol=1e-13)
+    ref = np.linalg.svd(z, compute_uv=False)
+    # bound: Weyl for two backward-stable SVDs (a power-of-two rescaling is exact)
+    assert_allclose(fa.d, ref, rtol=2 * np.max(singular_value_bound(ref[0] / ref,
+                                                                     backward_eps(*z.shape))))
     with pytest.raises(InputError):
         factorize(z, solver="gram")
     with pytest.raises(InputError):
@@ -230,6 +257,7 @@ def test_overwrite_gives_the_same_factors():
     z = well_conditioned(40, 40, seed=15)
     a = factorize(z.copy(), solver="svd", overwrite=False)
     b = factorize(z.copy(), solver="svd", overwrite=True)
+    # exact: the same LAPACK call on the same values (docstring)
     assert_allclose(a.d, b.d, rtol=0, atol=0)
     assert_allclose(np.abs(a.u), np.abs(b.u), rtol=0, atol=0)
 
@@ -246,7 +274,9 @@ def test_fit_path_reports_route_and_tolerance(solver):
     if solver == "auto":
         assert res.solver == "gram"
     d_all = np.linalg.svd(X - X.mean(axis=0), compute_uv=False)
-    assert_allclose(res.rank_tol, max(30, 120) * EPS * d_all[0], rtol=1e-12)
+    # bound: d_max from two backward-stable SVDs (Weyl), two roundings
+    assert_allclose(res.rank_tol, max(30, 120) * EPS * d_all[0],
+                    rtol=2 * backward_eps(30, 120) + gamma(2))
     assert res.rank == 29  # centering removes one dimension
     assert res.solver == res.factorization.solver and res.solver_reason
 
@@ -257,9 +287,8 @@ def test_fit_path_reports_route_and_tolerance(solver):
 def test_property_rank_and_pinv(m, q, k, seed, solver):
     """Random low-rank matrices: the rank equals ``numpy.linalg.matrix_rank``
     and V D^-1 U^T y equals ``numpy.linalg.pinv(z) @ y`` with the same tolerance.
-    Relative error <= 100 cond^2 eps: the SVD route is accurate to ~cond eps,
-    the Gram route (which "auto" may take) to ~cond^2 eps (Golub & Van Loan
-    sec. 5.3.7, normal-equation error)."""
+    Within Wedin's bound: the SVD route's kappa eps, the Gram route's (which
+    "auto" may take) kappa^2 eps (Golub & Van Loan sec. 5.3.7), plus pinv's."""
     rng = np.random.default_rng(seed)
     z = rng.standard_normal((m, k)) @ rng.standard_normal((k, q))
     f = factorize(z, solver=solver)
@@ -269,8 +298,14 @@ def test_property_rank_and_pinv(m, q, k, seed, solver):
     y = rng.standard_normal(m)
     ref = np.linalg.pinv(z, rtol=max(m, q) * EPS) @ y
     coef = f.vt.T @ ((f.u.T @ y) / f.d) if f.rank else np.zeros(q)
-    cond = d[0] / d[f.rank - 1] if f.rank else 1.0
-    assert np.linalg.norm(coef - ref) <= 100 * cond**2 * EPS * max(np.linalg.norm(ref), 1e-300)
+    if f.rank:
+        # bound: Wedin (ridge_bounds at 0), Gram bound for the route + pinv's
+        tol = sum(ridge_bounds(z, y, 0.0, standardize=False, fit_intercept=False, solvers=1,
+                               gram=g).coef for g in (solver != "svd", False))
+        tol += 2 * gamma(max(m, q))
+        assert np.linalg.norm(coef - ref) <= tol * np.linalg.norm(ref)
+    else:
+        assert np.all(ref == 0)
 
 
 def test_forced_gram_never_cuts_the_rank_silently():
@@ -296,7 +331,8 @@ def test_forced_gram_never_cuts_the_rank_silently():
     msg = str(rec[0].message)
     assert f"kept rank {cut.rank} of 49" in msg and "solver='svd'" in msg
     limit = np.sqrt(50 * EPS) * cut.singular_values[0]
-    assert f"{cut.rank_tol:.3g}" in msg and cut.rank_tol >= limit * (1 - 1e-12)
+    # bound: the same formula on the same d_max, three roundings apart
+    assert f"{cut.rank_tol:.3g}" in msg and cut.rank_tol >= limit * (1 - gamma(3))
     assert "covers the kept values only" in cut.solver_reason
     # the condition number is that of the kept values, as documented
     assert cut.condition_number == cut.singular_values[0] / cut.singular_values[-1]

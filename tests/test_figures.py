@@ -63,6 +63,7 @@ def test_svg_parses_and_has_the_figure_size(saved):
     """xml.etree parses it; width attribute is 7.2 in = 518.4 pt (double column)."""
     root = ET.parse(saved[1][2]).getroot()
     assert root.tag.endswith("svg")
+    # spec: matplotlib writes the SVG size with 6 significant digits ("518.4pt")
     assert_allclose(float(root.get("width").rstrip("pt")), 7.2 * 72, rtol=1e-6)
 
 
@@ -77,7 +78,8 @@ def test_png_is_300_dpi_at_the_column_width(saved):
 @pytest.mark.parametrize("width, inches", [("single", 3.5), ("double", 7.2)])
 def test_width_sets_the_figure_width(path, width, inches):
     panel = figures.spectrum_figure(path, width=width)
-    assert_allclose(panel.figure.get_figwidth(), inches)
+    # exact: the width is stored as given (a float literal, no arithmetic)
+    assert_allclose(panel.figure.get_figwidth(), inches, rtol=0)
     assert set(panel.artists) == {"a", "b", "c"}
 
 
@@ -90,7 +92,7 @@ def test_csv_holds_exactly_what_is_drawn(path, saved):
     assert list(rows[0]) == figures.CSV_HEADER
     gcv = [r for r in rows if r["panel"] == "a" and r["series"] == "gcv" and r["kind"] == "line"]
     line = panel.artists["a"].lines["gcv"]
-    # repr() of floats round-trips exactly (Python float repr)
+    # exact: repr() of floats round-trips exactly (Python float repr)
     assert_allclose([float(r["x"]) for r in gcv], line.get_xdata(), rtol=0)
     assert_allclose([float(r["y"]) for r in gcv], path.gcv, rtol=0)
     assert "df" in gcv[0]["x_quantity"] and "$" not in gcv[0]["x_quantity"]

@@ -19,6 +19,7 @@ from numpy.testing import assert_allclose
 from sklearn.linear_model import Ridge
 
 import paths
+from error_bounds import U, gamma, ridge_bounds
 from paths import InputError, fit_path
 from paths.present.fitfile import FORMAT_VERSION, fit_bytes, load_fit
 
@@ -91,9 +92,9 @@ def test_predict_matches_sklearn_and_file_on_disk(tmp_path):
     mu, sd = X.mean(0), X.std(0)
     Xn = _problem(9, 20, seed=6)[0]
     ref = Ridge(alpha=lam).fit((X - mu) / sd, y).predict((Xn - mu) / sd)
-    d = path.singular_values
-    kappa = (d[0] ** 2 + lam) / (d[-1] ** 2 + lam)
-    assert_allclose(saved.predict(Xn), ref, rtol=0, atol=10 * 50 * kappa * EPS * np.abs(ref).max())
+    # bound: ours (Gram bound: "auto") + Ridge's Cholesky (Gram bound), predictions
+    b = ridge_bounds(X, y, lam, gram=True)
+    assert_allclose(saved.predict(Xn), ref, rtol=0, atol=b.predict_atol(Xn))
 
 
 def test_predict_table_matched_by_name():
@@ -118,7 +119,11 @@ def test_rules_and_df_rule():
     assert saved.lambda_for("gcv").tolist() == [2.5]
     lam = saved.lambda_for("df=6")[0]
     d2 = np.square(path.singular_values)
-    assert_allclose(1 + np.sum(d2 / (d2 + lam)), 6.0, rtol=1e-10)
+    # spec + bound: brentq on log lambda (xtol 1e-12, rtol 4 eps; twice) times the slope of
+    # df in log lambda, plus df's rounding on both sides (the same saved singular values)
+    slope = np.sum(d2 * lam / (d2 + lam) ** 2)
+    tol = slope * 2 * (1e-12 + 8 * U * abs(np.log(lam))) + 2 * gamma(d2.size + 2) * 6.0
+    assert_allclose(1 + np.sum(d2 / (d2 + lam)), 6.0, rtol=0, atol=tol)
     with pytest.raises(InputError, match="rule cv was not computed"):
         saved.lambda_for("cv")
 
@@ -272,7 +277,7 @@ def test_values_out_of_range_refused():
 def test_predict_only_fit_from_the_streaming_engine(tmp_path):
     """A streamed path (no left factors) saves a predict-only fit: its predictions equal the
     streamed path's own bit for bit, and the in-memory path's to the Gram route's accuracy
-    (kappa^2 eps relative, Higham 2002 ch. 20; 1e3 n kappa^2 eps of the largest value)."""
+    (kappa^2 eps relative, Higham 2002 section 20.4: ridge_bounds with the Gram term)."""
     from paths import stream_path
 
     X, y = _problem(300, 10, seed=31)
@@ -283,9 +288,9 @@ def test_predict_only_fit_from_the_streaming_engine(tmp_path):
     for lam in (0.0, 2.0, 50.0):
         assert np.array_equal(saved.predict(Xn, lam), sp.predict(Xn, lam))
     ref = fit_path(X, y).predict(Xn, 2.0)
-    kappa = sp.condition_number
+    # bound: the streamed Gram route and the in-memory route ("auto": Gram bound covers it)
     assert_allclose(saved.predict(Xn), ref, rtol=0,
-                    atol=1e3 * 300 * kappa ** 2 * EPS * np.abs(ref).max())
+                    atol=ridge_bounds(X, y, 2.0, gram=True).predict_atol(Xn))
     with pytest.raises(InputError, match="needs the full fit"):
         saved.lambda_for("fraction=0.5")
 

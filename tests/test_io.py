@@ -18,6 +18,7 @@ import pyarrow.parquet as pq
 import pytest
 from numpy.testing import assert_array_equal
 
+from error_bounds import ridge_bounds
 from paths import InputError
 from paths.data.tables import as_frame, load_dataset, read_table, select, select_like, sha256_of
 
@@ -434,7 +435,9 @@ def test_explore_data_options_end_to_end(tmp_path):
     for row in rows[1:]:
         lam, coef = float(row[1]), np.array(row[3:], dtype=float)
         sk = Ridge(alpha=lam).fit(design / sd, kept[row[0]].to_numpy())
-        np.testing.assert_allclose(coef, sk.coef_ / sd, rtol=1e-8, atol=1e-12)
+        # bound: ours and scikit-learn's Cholesky (Gram bound covers both routes), two solvers
+        b = ridge_bounds(design, kept[row[0]].to_numpy(), lam, gram=True)
+        assert np.linalg.norm(coef - sk.coef_ / sd) <= b.coef * np.linalg.norm(sk.coef_ / sd)
     assert sum(r[0] == "y2" for r in rows[1:]) == 5
 
 

@@ -44,6 +44,7 @@ def test_wide_run_outputs_are_bounded(tmp_path, monkeypatch):
     # the full table, as Parquet past the limit, equals the path's coefficients
     assert not (out / "coefficients.csv").exists()
     table = pd.read_parquet(out / "coefficients.parquet")
+    # exact: Parquet stores the float64 values unchanged
     assert_allclose(table["lambda"].to_numpy(), run.result.lambdas, rtol=0)
     assert_allclose(table[run.result.feature_names].to_numpy(), run.result.coef, rtol=0)
 

@@ -8,6 +8,7 @@ from numpy.testing import assert_allclose
 from scipy.linalg import toeplitz
 from typer.testing import CliRunner
 
+from error_bounds import gamma, ridge_bounds
 from paths import InputError
 from paths.threshold import theory as T
 from paths.cli import app
@@ -34,17 +35,35 @@ def _published_gap(n, p, snr):
     return (1 + g / (1 - g)) / (1 + g * m) - 1
 
 
+def _gap_atol(n, p, snr):
+    """Rounding of the published gap: m has a cancellation in b - sqrt(b^2 - 4 g z),
+    b = 1 - g - z, amplifying its 8 roundings by (|b| + sqrt(disc)) / |b - sqrt(disc)|
+    (Higham 2002 section 1.8); the gap = ratio - 1 then errs by the ratio's relative error
+    times the ratio; on both sides (ours and the test's)."""
+    g = p / (n - 1)
+    z = -g / snr
+    b = 1 - g - z
+    disc = np.sqrt(b * b - 4 * g * z)
+    canc = (abs(b) + disc) / abs(b - disc)
+    m = (b - disc) / (2 * g * z)
+    ratio = (1 + g / (1 - g)) / (1 + g * m)
+    rel = gamma(8) * canc * abs(g * m) / abs(1 + g * m) + gamma(6)
+    return 2 * rel * abs(ratio)
+
+
 @pytest.mark.parametrize("p,snr,tol", [(50, 1.0, 0.05), (200, 4.0, 0.10), (30, 0.5, 0.01)])
 def test_n_within_is_the_first_size_within_tolerance(p, snr, tol):
     """The reported n is the smallest n > p + 1 whose published-formula gap is within the
     tolerance: gap(n) <= tol < gap(n - 1) (unless n - 1 is at the threshold)."""
     r = plan(p, snr=snr, tolerance=tol)
     n = r.n_within
-    assert _published_gap(n, p, snr) <= tol + 1e-12
+    # bound: _gap_atol (the rounding of the two evaluations)
+    assert _published_gap(n, p, snr) <= tol + _gap_atol(n, p, snr)
     if n - 1 > p + 1:
         assert _published_gap(n - 1, p, snr) > tol
     i = int(np.flatnonzero(r.n == n)[0])
-    assert_allclose(r.relative_gap[i], _published_gap(n, p, snr), rtol=1e-10)
+    assert_allclose(r.relative_gap[i], _published_gap(n, p, snr), rtol=0,
+                    atol=_gap_atol(n, p, snr))  # bound: _gap_atol
     # the min-norm curve has its spike at the threshold n = p + 1 (gamma = 1)
     assert np.isinf(r.min_norm_test_mse[r.n == p + 1]).all()
 
@@ -137,7 +156,9 @@ def test_cli_plan_and_pilot(tmp_path):
     rec = json.loads((tmp_path / "p2" / "plan.json").read_text())
     A = np.column_stack([np.ones(n), X])
     res = y - A @ np.linalg.lstsq(A, y, rcond=None)[0]
-    assert_allclose(rec["noise_variance"], res @ res / (n - p - 1), rtol=1e-10)
+    # bound: two backward-stable least-squares residuals (ridge_bounds at 0: mse)
+    assert_allclose(rec["noise_variance"], res @ res / (n - p - 1),
+                    rtol=ridge_bounds(X, y, 0.0, standardize=False).mse)
     assert rec["n_features"] == p
     for snr in ("0", "-1"):
         bad = runner.invoke(app, ["plan", "--n-features", "10", "--snr", snr,

@@ -15,13 +15,16 @@ from matplotlib.figure import Figure
 from numpy.testing import assert_allclose
 from scipy.integrate import quad
 
+from error_bounds import U, gamma as gamma_n, reorder_bound
 from paths import fit_path
 from paths.present import plot
 from paths.data.validation import InputError
 
-# float64 arrays go into matplotlib unchanged; 0 tolerance would also pass, 1e-12 allows
-# for a log10 recomputation in the helper versus in the test.
-TOL = 1e-12
+# bound: float64 arrays go into matplotlib unchanged; the helper and the test may
+# evaluate the same elementwise expression in another way (log10 vs log / log 10, a
+# quotient): at most 8 operations of at most one ulp each (numpy's elementary
+# functions), gamma_8 relative (Higham 2002 section 3.1).
+TOL = gamma_n(8)
 
 
 def _axes():
@@ -76,9 +79,11 @@ def test_coef_path_dots_the_reported_model(path):
     art = plot.plot_coef_path(path, _axes(), selected=sel, reported="hkb", x="df")
     d = path.singular_values
     df = 1 + np.sum(d**2 / (d**2 + 2.5))
-    assert_allclose(art.markers["reported"].get_xdata()[0], df, rtol=1e-12)
+    # bound: the same sum of r same-sign terms in another order (reorder_bound)
+    tol = reorder_bound(d.size, ops=3)
+    assert_allclose(art.markers["reported"].get_xdata()[0], df, rtol=tol)
     dots = art.markers["reported_coefficients"]
-    assert_allclose(dots.get_xdata(), df, rtol=1e-12)
+    assert_allclose(dots.get_xdata(), df, rtol=tol)
     texts = " ".join(t.get_text() for t in art.texts if hasattr(t, "get_text"))
     assert "reported (HKB)" in texts
 
@@ -95,12 +100,12 @@ def test_error_curves_equal_the_path_and_markers_sit_on_them(path):
     for rule, arr in (("gcv", path.gcv), ("loo", path.loo_mse), ("test", path.test_mse)):
         i = path.index_min(rule)
         m = art.markers[rule]
-        assert_allclose(m.get_xdata()[0], lx[i], rtol=TOL)
-        assert_allclose(m.get_ydata()[0], arr[i], rtol=1e-10)
+        assert_allclose(m.get_xdata()[0], lx[i], rtol=TOL)  # bound: TOL
+        assert_allclose(m.get_ydata()[0], arr[i], rtol=TOL)
     for key, v in (("gcv", path.min_norm.gcv), ("loo", path.min_norm.loo_mse),
                    ("test", path.min_norm.test_mse)):
         m = art.markers[f"min_norm:{key}"]
-        assert_allclose(m.get_ydata()[0], v, rtol=TOL)
+        assert_allclose(m.get_ydata()[0], v, rtol=TOL)  # bound: TOL
         assert m.get_xdata()[0] < lx.min()  # left of the grid: lambda = 0 after the break
     assert art.ax.get_yscale() == "log"
     labels = [t.get_text() for t in art.ax.get_legend().get_texts()]
@@ -112,7 +117,8 @@ def test_error_curves_min_norm_at_its_df_on_a_df_axis(path):
     """On the df axis the lambda -> 0 markers sit at df = rank + 1 (MinNormFit.df), and the
     top axis labels that position 0."""
     art = plot.plot_errors(path, _axes(), x="df")
-    assert_allclose(art.markers["min_norm:gcv"].get_xdata()[0], path.rank + 1)
+    # exact: an integer-valued float, exactly representable
+    assert_allclose(art.markers["min_norm:gcv"].get_xdata()[0], path.rank + 1, rtol=0)
     axis = next(t for t in art.traces if t.series == "lambda_axis")
     assert 0.0 in axis.y and path.rank + 1 in axis.x
 
@@ -127,10 +133,11 @@ def test_error_curves_draw_cv_and_its_se_at_the_choice():
     art = plot.plot_errors(res, _axes(), cv={"mse": mean, "se": se, "n_folds": 5},
                            selected={"cv": {"lambda": lam[7], "df": None}}, x="log_lambda")
     assert set(art.lines) == {"gcv", "cv"}
+    # bound: TOL; the whisker is one addition on each side (u relative)
     assert_allclose(art.lines["cv"].get_ydata(), mean, rtol=TOL)
     bar = next(t for t in art.traces if t.kind == "error bar")
-    assert_allclose([bar.low[0], bar.high[0]], [mean[7] - 0.1, mean[7] + 0.1], rtol=1e-10)
-    assert_allclose(art.markers["cv"].get_ydata()[0], mean[7], rtol=1e-10)
+    assert_allclose([bar.low[0], bar.high[0]], [mean[7] - 0.1, mean[7] + 0.1], rtol=2 * U)
+    assert_allclose(art.markers["cv"].get_ydata()[0], mean[7], rtol=TOL)
     assert "5-fold CV" in [t.get_text() for t in art.ax.get_legend().get_texts()]
 
 
@@ -141,7 +148,9 @@ def test_rule_strip_groups_rules_by_family(path):
     art = plot.plot_rule_strip(path, _axes(), selected=sel, x="df")
     d = path.singular_values
     for rule, lam in (("gcv", 1.0), ("hkb", 2.5), ("cv", 0.5)):
-        assert_allclose(art.markers[rule].get_xdata()[0], 1 + np.sum(d**2 / (d**2 + lam)))
+        # bound: the same sum in another order (reorder_bound)
+        assert_allclose(art.markers[rule].get_xdata()[0], 1 + np.sum(d**2 / (d**2 + lam)),
+                        rtol=reorder_bound(d.size, ops=3))
     heads = [t.get_text() for t in art.texts]
     assert heads == ["prediction-error estimates", "plug-in constants"]
     assert "df" not in art.markers  # a target that was not given: no penalty, not drawn
@@ -154,21 +163,26 @@ def test_shrinkage_factors_at_the_chosen_lambda(path):
     lam = 3.7
     art = plot.plot_shrinkage(path, _axes(), lam=lam)
     d = path.singular_values
+    # bound: TOL (same elementwise expression)
     assert_allclose(art.lines["shrinkage"].get_ydata(), d**2 / (d**2 + lam), rtol=TOL)
     assert_allclose(art.lines["singular_values"].get_ydata(), d, rtol=TOL)
-    assert_allclose(art.lines["shrinkage"].get_xdata(), np.arange(1, d.size + 1))
-    # their sum is the penalized part of the effective df (ESL eq. 3.50)
+    # exact: component numbers are small integers
+    assert_allclose(art.lines["shrinkage"].get_xdata(), np.arange(1, d.size + 1), rtol=0)
+    # their sum is the penalized part of the effective df (ESL eq. 3.50); bound:
+    # the same sum in another order (reorder_bound)
     assert_allclose(np.sum(art.lines["shrinkage"].get_ydata()) + 1,
-                    path.criteria_at([lam]).df[0], rtol=1e-12)
+                    path.criteria_at([lam]).df[0], rtol=reorder_bound(d.size, ops=4))
 
 
 @pytest.mark.parametrize("gamma", [0.3, 1.0, 2.5])
 def test_marchenko_pastur_density_integrates_to_its_continuous_mass(gamma):
     """scipy quad: the continuous part integrates to min(1, 1/γ) (Marchenko & Pastur 1967)."""
     a, b = (1 - np.sqrt(gamma)) ** 2, (1 + np.sqrt(gamma)) ** 2
-    val, _ = quad(lambda x: float(plot.marchenko_pastur_density(np.array([x]), gamma)[0]), a, b,
-                  limit=200)
-    assert_allclose(val, min(1.0, 1.0 / gamma), rtol=1e-6)
+    val, err = quad(lambda x: float(plot.marchenko_pastur_density(np.array([x]), gamma)[0]),
+                    a, b, limit=200)
+    # spec: QUADPACK's accuracy, the larger of its error estimate and the requested
+    # relative accuracy (scipy's default epsrel = 1.49e-8)
+    assert_allclose(val, min(1.0, 1.0 / gamma), rtol=1.49e-8, atol=err)
 
 
 def test_spectrum_histogram_and_curve(path):
@@ -178,14 +192,22 @@ def test_spectrum_histogram_and_curve(path):
     hist = next(t for t in art.traces if t.kind == "histogram")
     widths = hist.high - hist.low
     q = path.n_features
-    assert_allclose(np.sum(hist.y * widths), path.rank / q, rtol=1e-12)
+    # bound: counts / (q width) * width summed over the bins: reorder_bound
+    assert_allclose(np.sum(hist.y * widths), path.rank / q, rtol=reorder_bound(widths.size, ops=4))
     gamma = q / (path.n_samples - 1)
     t = art.lines["marchenko_pastur"].get_xdata()
     x = 10.0 ** t
+    # bound: the same expression (TOL), whose 10**t amplifies t's rounding by
+    # |t| ln 10 (the condition number of 10**t)
+    amp = 1 + np.abs(t) * np.log(10)
     assert_allclose(art.lines["marchenko_pastur"].get_ydata(),
-                    plot.marchenko_pastur_density(x, gamma) * x * np.log(10), rtol=1e-12)
-    assert_allclose(10 ** art.refs["edge_high"].get_xdata()[0], (1 + np.sqrt(gamma)) ** 2,
-                    rtol=1e-12)
+                    plot.marchenko_pastur_density(x, gamma) * x * np.log(10),
+                    rtol=TOL * amp.max() * 4)
+    # bound: a log10 / 10** round trip (2 ulp) amplified by |t| ln 10, plus the
+    # edge's own roundings (gamma_4)
+    te = art.refs["edge_high"].get_xdata()[0]
+    assert_allclose(10 ** te, (1 + np.sqrt(gamma)) ** 2,
+                    rtol=4 * U * (1 + abs(te) * np.log(10)) + gamma_n(4))
     assert any("mass" in n for n in art.notes)  # gamma > 1: the point mass is stated
 
 
@@ -194,8 +216,10 @@ def test_variance_share_sums_to_one(path):
     art = plot.plot_variance_share(path, _axes())
     share = art.lines["share"].get_ydata()
     d = path.singular_values
-    assert_allclose(share, d**-2.0 / np.sum(d**-2.0), rtol=1e-12)
-    assert_allclose(share.sum(), 1.0, rtol=1e-12)
+    # bound: the same quotient of a sum of r positive terms (reorder_bound)
+    tol = reorder_bound(d.size, ops=3)
+    assert_allclose(share, d**-2.0 / np.sum(d**-2.0), rtol=tol)
+    assert_allclose(share.sum(), 1.0, rtol=2 * tol)
     assert art.ax.get_yscale() == "log"
 
 
@@ -226,15 +250,22 @@ def test_threshold_lines_are_repeat_means_with_se_bands():
         sel = tab["method"] == meth
         xs = np.unique(tab["ratio"][sel])
         v = np.array([tab["test_mse"][sel][tab["ratio"][sel] == r] for r in xs])
-        assert_allclose(art.lines[meth].get_xdata(), xs)
-        assert_allclose(art.lines[meth].get_ydata(), v.mean(axis=1), rtol=1e-12)
+        # exact: the ratios are copied values; bound: a mean of 2 (reorder_bound)
+        assert_allclose(art.lines[meth].get_xdata(), xs, rtol=0)
+        assert_allclose(art.lines[meth].get_ydata(), v.mean(axis=1), rtol=reorder_bound(2))
     band = next(t for t in art.traces if t.kind == "band" and t.series == "min_norm")
     sel = tab["method"] == "min_norm"
     v = np.array([tab["test_mse"][sel][tab["ratio"][sel] == r] for r in np.unique(tab["ratio"])])
-    assert_allclose(band.high - band.y, v.std(axis=1, ddof=1) / np.sqrt(2), rtol=1e-12)
-    # with an intercept least squares interpolates at p' + 1 = n: ratio (n - 1)/n, n = 50
-    assert_allclose(art.refs["threshold"].get_xdata()[0], 49 / 50)
-    assert_allclose(art.lines["theory:min_norm"].get_ydata(), theory["min_norm"])
+    # bound: a stable SD of R values errs by gamma_{R+3} (1 + |mean| / sd) relative
+    # (Chan, Golub & LeVeque 1983, Am. Stat. 37, 242), on each side, plus the band's
+    # subtraction (u |high| / (high - y))
+    sd = v.std(axis=1, ddof=1)
+    rtol = 2 * gamma_n(5) * (1 + np.abs(v.mean(axis=1)) / sd) + 2 * U * band.high / (band.high - band.y)
+    assert np.all(np.abs(band.high - band.y - sd / np.sqrt(2)) <= rtol * sd / np.sqrt(2))
+    # with an intercept least squares interpolates at p' + 1 = n: ratio (n - 1)/n, n = 50;
+    # exact: the same division of small integers, and the theory values are copied
+    assert_allclose(art.refs["threshold"].get_xdata()[0], 49 / 50, rtol=0)
+    assert_allclose(art.lines["theory:min_norm"].get_ydata(), theory["min_norm"], rtol=0)
     assert art.ax.get_xscale() == "linear"  # the sweep stops at 2 n
     assert art.ax.get_yscale() == "log"
     assert to_hex(art.lines["min_norm"].get_color()) == plot.STYLES["min_norm"]["color"].lower()
@@ -261,7 +292,7 @@ def test_threshold_axis_is_logarithmic_past_four_n_and_reference_theory_is_grey(
 def test_interpolation_ratio_of_a_sweep_over_rows():
     """Over training rows (p fixed) least squares interpolates at n' = p + 1: ratio p/(p + 1)."""
     cols = {"over": np.array(["samples"]), "n_features": np.array([30]), "ratio": np.array([1.0])}
-    assert_allclose(plot.interpolation_ratio(cols), 30 / 31)
+    assert_allclose(plot.interpolation_ratio(cols), 30 / 31, rtol=2 * U)  # bound: one division, 1 ulp
 
 
 def test_training_law_is_sigma2_times_one_minus_ratio():
@@ -270,14 +301,18 @@ def test_training_law_is_sigma2_times_one_minus_ratio():
     tab = _sweep_table()
     art = plot.plot_training_law(tab, _axes(), noise_variance=1.0)
     xs = art.lines["law"].get_xdata()
-    assert_allclose(art.lines["law"].get_ydata(), np.clip(1 - xs - 1 / 50, 0, None), rtol=1e-12)
+    # bound: three operations on numbers <= 1 on each side: absolute error <= 3u
+    # each (Higham 2002 section 2.2); relative tolerance would be meaningless at 0
+    assert_allclose(art.lines["law"].get_ydata(), np.clip(1 - xs - 1 / 50, 0, None),
+                    rtol=0, atol=6 * U)
 
 
 def test_bias_variance_total_is_the_sum():
     tab = {"ratio": np.array([0.5, 2.0]), "method": np.array(["min_norm"] * 2),
            "bias2": np.array([0.0, 0.5]), "variance": np.array([1.0, 0.9])}
     art = plot.plot_bias_variance(tab, _axes())
-    assert_allclose(art.lines["total"].get_ydata(), [1.0, 1.4])
+    # bound: one rounded addition against the rounded literal: 1 ulp
+    assert_allclose(art.lines["total"].get_ydata(), [1.0, 1.4], rtol=2 * U)
 
 
 def test_missing_inputs_are_one_line_errors():

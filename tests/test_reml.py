@@ -22,9 +22,14 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy.optimize import minimize_scalar
 
+from error_bounds import U, gamma
 from paths import fit_path, select_penalty
 from paths.selection.reml import reml_estimate, reml_loglik
 from paths.selection.rules import parse_rule
+
+# numerical reference checks against outside references: CI reruns them under a
+# forced OpenBLAS kernel (.ci/run)
+pytestmark = pytest.mark.reference
 
 EPS = np.finfo(float).eps
 
@@ -42,7 +47,8 @@ def _dense_loglik(Z, r, lam, m):
 def _dense_tol(Z, lam):
     """Backward-stable solve and LU log-determinant of H: relative error of
     r^T H^-1 r about n kappa(H) eps, absolute error of log det about n^2 eps
-    kappa(H) (each log of a pivot to kappa eps); times a modest constant 10."""
+    kappa(H) (each log of a pivot to kappa eps; Higham 2002 Thm 9.3 and 7.2); times a
+    modest constant 10 for the growth factor and the two terms."""
     n = Z.shape[0]
     kappa = 1.0 + np.linalg.norm(Z, 2) ** 2 / lam
     return 10 * n * n * kappa * EPS
@@ -91,7 +97,7 @@ def test_harville_form_with_raw_design(make_problem):
     lams = np.geomspace(0.1, 1e4, 7)
     ours = reml_loglik(path, lams)
     theirs = np.array([harville(lam) for lam in lams])
-    # V has raw columns (means ~3): kappa(V) <= 1 + |X|_2^2 / lambda
+    # bound: _dense_tol; V has raw columns (means ~3): kappa(V) <= 1 + |X|_2^2 / lambda
     tol = max(_dense_tol(X, lam) for lam in lams)
     assert_allclose(np.diff(ours), np.diff(theirs), rtol=0, atol=2 * tol)
     assert_allclose(ours - theirs, 0.5 * np.log(n), rtol=0, atol=tol)
@@ -109,12 +115,17 @@ def test_maximum_matches_scipy_on_dense(make_problem):
                           bounds=(np.log(1e-3), np.log(1e6)), method="bounded",
                           options={"xatol": 1e-9})
     sel = select_penalty(path).rules["reml"]
-    tol = _dense_tol(Z, sel.lam)
+    tol = _dense_tol(Z, sel.lam)  # bound: _dense_tol
     assert _dense_loglik(Z, r, sel.lam, n - 1) >= -res.fun - tol
     assert abs(sel.loglik - _dense_loglik(Z, r, sel.lam, n - 1)) <= tol
-    # log-lambda accuracy: both searches stop within ~1e-7 in log lambda (xatol)
-    # of a smooth maximum; 1e-4 leaves room for the flat top
-    assert abs(np.log(sel.lam) - res.x) <= 1e-4
+    # bound: near a smooth maximum a value error delta moves the argmax by at most
+    # sqrt(2 delta / |l''|) in log lambda (second-order Taylor); the two searches stop
+    # within their xatol (1e-9 here, 1e-8 in paths/selection/reml.py); the curvature
+    # from the dense form by central differences (h = 0.05)
+    t, h = res.x, 0.05
+    f = [_dense_loglik(Z, r, np.exp(t + k * h), n - 1) for k in (-1, 0, 1)]
+    curv = abs(f[0] - 2 * f[1] + f[2]) / h**2
+    assert abs(np.log(sel.lam) - res.x) <= 2 * np.sqrt(2 * 2 * tol / curv) + 2e-8 + 2e-9
 
 
 def test_limits_without_overflow(make_problem):
@@ -128,20 +139,36 @@ def test_limits_without_overflow(make_problem):
     r = y - y.mean()
     ll = reml_loglik(path, [0.0, 1e-300, 1e-30, 1e300, np.inf])
     assert np.all(np.isfinite(ll))
-    assert_allclose(ll[-1], -0.5 * (n - 1) * np.log(r @ r / (n - 1)), rtol=4 * n * EPS)
-    assert_allclose(ll[3], ll[-1], rtol=4 * n * EPS)  # H = I + O(1e-300)
+    # bound: two evaluations of -m/2 log(q / m) with q an n-term sum (gamma_n) and the
+    # log's own rounding (rnd, _ll_rounding)
+    rnd = _ll_rounding(path)
+    assert_allclose(ll[-1], -0.5 * (n - 1) * np.log(r @ r / (n - 1)), rtol=0, atol=rnd)
+    # bound: H = I + O(|Z|^2 / 1e300) plus the rounding
+    assert_allclose(ll[3], ll[-1], rtol=0, atol=rnd)
     d2min = path.singular_values[-1] ** 2
     lam = 1e-7 * d2min  # dense form at lambda -> 0+: first-order error ~ n lam / d_r^2
     Z = X - X.mean(axis=0)
-    # |l(lam) - l(0)| <= n * lam / d_r^2 (each log(1 + lam / d_j^2) term, and q)
-    assert abs(reml_loglik(path, [lam])[0] - ll[0]) <= 2 * n * 1e-7
-    # rounding: terms of size n |log d_j^2| summed, ~8 n eps each
-    assert abs(ll[1] - ll[0]) <= 8 * n * n * EPS * np.abs(np.log(path.singular_values)).max()
-    # the dense matrix at lam is too ill-conditioned to compare; compare at 1e-3 d_r^2
+    # bound: |l(lam) - l(0)| <= n lam / d_r^2 (each log(1 + lam / d_j^2) term, and
+    # q's), twice for the two parts, plus the rounding of both sides
+    assert abs(reml_loglik(path, [lam])[0] - ll[0]) <= 2 * n * 1e-7 + 2 * rnd
+    # bound: the rounding of both sides (_ll_rounding)
+    assert abs(ll[1] - ll[0]) <= 2 * rnd
+    # the dense matrix at lam is too ill-conditioned to compare; compare at 1e-3 d_r^2;
+    # bound: the first-order gap plus _dense_tol
     lam = 1e-3 * d2min
     assert abs(_dense_loglik(Z, r, lam, n - 1) - ll[0]) <= 2 * n * 1e-3 + _dense_tol(Z, lam)
     tall = fit_path(*make_problem(40, 10, seed=6), standardize=False)
     assert reml_loglik(tall, [0.0])[0] == -np.inf  # response outside the span: det H -> inf
+
+
+def _ll_rounding(path):
+    """Rounding of the closed-form log-likelihood: n terms log(d_j^2 + lam) of size at most
+    L = max |log d_j^2| + 1 summed (gamma_n n L, Higham 2002 section 3.1) and m/2 log q with
+    q an n-term sum of positive terms (relative gamma_n, so m/2 gamma_n absolute), plus the
+    logs' own ulps."""
+    n = path.n_samples
+    L = 2 * np.abs(np.log(path.singular_values)).max() + 1
+    return gamma(n) * n * L + n * gamma(n) + 4 * n * U * L
 
 
 def test_estimates_recover_known_variances():
@@ -164,6 +191,8 @@ def test_estimates_recover_known_variances():
         noise[j], signal[j] = est.noise_variance, est.signal_variance
         lo, hi = est.lam_interval
         covered += lo <= 1.0 / tau2 <= hi
+    # sampling: 4 Monte Carlo SEs over 80 datasets (two-sided normal: false failure
+    # 6.3e-5 per check); the coverage rate within 4 binomial SEs likewise
     for est, truth in ((noise, 1.0), (signal, true_signal)):
         assert abs(est.mean() - truth) <= 4 * est.std(ddof=1) / np.sqrt(reps)
     rate = covered / reps
@@ -179,7 +208,15 @@ def test_rule_fields_and_targets(make_problem):
     for j in range(2):
         sel = both.per_target[j]["reml"]
         alone = select_penalty(fit_path(X, Y[:, j])).rules["reml"]
-        assert_allclose(sel.lam, alone.lam, rtol=1e-6)  # same search, same factors
+        # bound: the same search on likelihoods equal to rounding (2 _ll_rounding): the
+        # argmax moves by sqrt(2 delta / |l''|) in log lambda, plus both searches' xatol
+        # (1e-8, paths/selection/reml.py); curvature by central differences
+        path = fit_path(X, Y[:, j])
+        t, h = np.log(alone.lam), 0.05
+        f = reml_loglik(path, np.exp(t + np.array([-h, 0.0, h])))
+        curv = abs(f[0] - 2 * f[1] + f[2]) / h**2
+        dt = np.sqrt(2 * 2 * _ll_rounding(path) / curv) + 2e-8
+        assert_allclose(sel.lam, alone.lam, rtol=np.expm1(dt))
         assert sel.lam == reml_estimate(fit_path(X, Y), j).lam
         lo, hi = sel.lam_interval
         assert lo < sel.lam < hi
@@ -206,7 +243,9 @@ def test_maximum_at_interpolation_limit():
     assert sel.lam == 0.0 and sel.noise_variance == 0.0
     lam = 1e-9 * path.singular_values[-1] ** 2
     noise, signal = algebra.reml_variances(path.state, lam)
-    assert abs(signal - sel.signal_variance) <= 1e-8 * 30 * signal
+    # bound: first order in tau = lam / d_r^2 = 1e-9: each of the n = 30 terms moves by
+    # at most 2 tau relative, plus the rounding of both sums (gamma_n each)
+    assert abs(signal - sel.signal_variance) <= (2 * 30 * 1e-9 + 4 * gamma(30)) * signal
     assert sel.lam_interval[0] == 0.0 and sel.lam_interval[1] > 0
     json.dumps(sel.as_dict(), allow_nan=False)
 
@@ -219,13 +258,18 @@ def test_profile_figure_and_cut(make_problem):
     from paths.present.figures import reml_figure
     from paths.selection.reml import CHI2_1_95
 
+    # spec: the constant is scipy's value written to 16 digits; scipy's ppf (cephes, libm,
+    # no BLAS) may differ between builds by a few dozen ulp: 1e-14
     assert_allclose(CHI2_1_95, chi2.ppf(0.95, 1), rtol=1e-14)
     X, y = make_problem(40, 60, seed=9)
     path = fit_path(X, y, n_lambdas=30)
     art = reml_figure(path).artists["a"]
     line = next(t for t in art.traces if t.kind == "line")
     est = reml_estimate(path)
-    assert_allclose(line.y, reml_loglik(path) - est.loglik, rtol=0, atol=1e-12)
-    assert np.all(line.y <= 1e-9)  # the refined maximum is above every grid value
+    # bound: the same values up to the likelihood's rounding (_ll_rounding, both sides)
+    rnd = _ll_rounding(path)
+    assert_allclose(line.y, reml_loglik(path) - est.loglik, rtol=0, atol=2 * rnd)
+    assert np.all(line.y <= 2 * rnd)  # the refined maximum is above every grid value
     cut = next(t for t in art.traces if t.kind == "reference")
+    # spec: as for CHI2_1_95 above (the halving is exact)
     assert_allclose(cut.y, -chi2.ppf(0.95, 1) / 2, rtol=1e-14)

@@ -18,6 +18,7 @@ import pytest
 from numpy.testing import assert_allclose
 from typer.testing import CliRunner
 
+from error_bounds import ridge_bounds
 from paths.cli import app
 from paths.workflows.cases import parse_case, run_case
 from paths.workflows.options import DataOptions, FitOptions
@@ -72,7 +73,7 @@ def test_prepare_aligns_test_columns_by_name(tmp_path):
     """The test file's columns (reversed on disk) come back in the training order."""
     train, test, (_, _, Xte, yte) = _tables(tmp_path)
     prep = prepare(DataOptions(file=train, target="y", test_file=test))
-    # the numbers were written with repr(): read back exactly (round trip of the shortest repr)
+    # exact: the numbers were written with repr(): read back exactly (shortest repr round trip)
     assert_allclose(prep.test.X, Xte, rtol=0, atol=0)
     assert_allclose(prep.test.y, yte, rtol=0, atol=0)
 
@@ -107,10 +108,12 @@ formats = ["svg"]
     full = [r for r in cli if r["method"] == "min_norm" and int(r["n_features"]) == 30]
     mean = Xtr.mean(axis=0)
     beta = np.linalg.pinv(Xtr - mean) @ (ytr - ytr.mean())
-    ref = np.mean((yte - ytr.mean() - (Xte - mean) @ beta) ** 2)
-    # p = 30 > n - 1 = 19 (the min-norm interpolator); column scales 1..30 and a Gaussian
-    # design keep kappa below ~1e3: SVD-based solves agree to ~kappa * eps relative
-    assert_allclose(float(full[0]["test_mse"]), ref, rtol=1e-9)
+    pred = ytr.mean() + (Xte - mean) @ beta
+    ref = np.mean((yte - pred) ** 2)
+    # bound: p = 30 > n - 1 = 19 (the min-norm interpolator): two SVD-based solves within
+    # Wedin's bound (ridge_bounds at 0), through the test MSE (test_mse_rtol)
+    b = ridge_bounds(Xtr, ytr, 0.0, standardize=False)
+    assert_allclose(float(full[0]["test_mse"]), ref, rtol=b.test_mse_rtol(Xte, yte, pred))
 
 
 def test_explore_case_equals_command_line_and_sklearn(tmp_path):
@@ -146,10 +149,11 @@ formats = ["svg"]
     scaler = StandardScaler().fit(Xtr)  # population SD, as the package's convention
     for row in _rows(tmp_path / "cli" / "path.csv")[::5]:
         ref = Ridge(alpha=float(row["lambda"])).fit(scaler.transform(Xtr), ytr)
-        mse = np.mean((yte - ref.predict(scaler.transform(Xte))) ** 2)
-        # a well-conditioned 12-column problem (scales 1..12 standardized away): both
-        # solves are backward stable, agreement to a modest multiple of kappa * eps
-        assert_allclose(float(row["test_mse"]), mse, rtol=1e-9)
+        pred = ref.predict(scaler.transform(Xte))
+        mse = np.mean((yte - pred) ** 2)
+        # bound: ours ("auto") and Ridge's Cholesky: ridge_bounds with the Gram term
+        b = ridge_bounds(Xtr, ytr, float(row["lambda"]), gram=True)
+        assert_allclose(float(row["test_mse"]), mse, rtol=b.test_mse_rtol(Xte, yte, pred))
 
 
 def test_simulate_case_equals_command_line(tmp_path):
@@ -185,12 +189,14 @@ formats = ["svg"]
     Xt, yt = draw(truth, 25, rng)
     m = X.mean(axis=0)
     beta = np.linalg.pinv(X - m) @ (y - y.mean())
-    ref = np.mean((yt - y.mean() - (Xt - m) @ beta) ** 2)
+    pred = y.mean() + (Xt - m) @ beta
+    ref = np.mean((yt - pred) ** 2)
     row = [r for r in _rows(tmp_path / "cli" / "threshold.csv")
            if r["method"] == "min_norm" and int(r["n_features"]) == 30][0]
-    # p = 30 > n - 1 = 19: pinv's rank cut and the package's agree on a Gaussian design
-    # (smallest singular value far above the tolerance); error ~ kappa * eps relative
-    assert_allclose(float(row["test_mse"]), ref, rtol=1e-8)
+    # bound: p = 30 > n - 1 = 19: pinv's rank cut and the package's agree on a Gaussian
+    # design; two SVD solves within Wedin's bound (ridge_bounds at 0) in the test MSE
+    b = ridge_bounds(X, y, 0.0, standardize=False)
+    assert_allclose(float(row["test_mse"]), ref, rtol=b.test_mse_rtol(Xt, yt, pred))
 
 
 @pytest.mark.parametrize("command", ["threshold", "explore"])

@@ -838,10 +838,26 @@ def _make(path, rule, lam, j, *, est=None, cv=None, **kw):
                      est_mse=est[0], est_se=est[1], est_source=est[2], target=j, **kw)
 
 
+def _gcv_note(path, g) -> str:
+    """The GCV choice's note, plus a warning when it leaves fewer than max(1, m/10) residual
+    degrees of freedom: GCV's optimality needs tr(H)/n bounded away from 1 (Li 1987, Ann.
+    Statist. 15, 958-975), so near and past p = n it can pick an interpolating fit.  The
+    choice itself stays GCV's minimum (docs/selection.md, "GCV near p = n")."""
+    if g["lam"] is None:
+        return g["note"]
+    floor = max(1.0, 0.1 * _state_of(path).m)
+    resid = path.n_samples - _df_at(path, g["lam"])
+    if resid >= floor:
+        return g["note"]
+    warn = (f"leaves {resid:.3g} residual df, fewer than max(1, m/10) = {floor:g}: GCV's "
+            "optimality needs tr H / n bounded away from 1 (Li 1987); compare loo or cv")
+    return "; ".join(x for x in (g["note"], warn) if x)
+
+
 def _select_one(path, cv, j, g, sigma2, noise, df_target, fraction_target):
     out = {}
     out["gcv"] = _make(path, "gcv", g["lam"], j, est=(g["value"], None, "gcv"), index=g["index"],
-                       refined=True, extended=g["extended"], note=g["note"])
+                       refined=True, extended=g["extended"], note=_gcv_note(path, g))
     lams = _rule_lambdas(path, j, sigma2, df_target, fraction_target)
     streamed = getattr(path, "loo_at", None) is not None  # each new penalty: a pass
     loo_f = _loo_fun(path, j)

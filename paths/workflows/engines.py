@@ -30,24 +30,19 @@ _DATA_ONLY_IN_MEMORY = ("weights",)
 _FIT_ONLY_IN_MEMORY = ("unpenalized", "relative_penalty", "intervals")
 _WHY = {**{name: " (its one-pass moments are unweighted and penalize every column)"
            for name in ("weights", "unpenalized", "relative_penalty")},
-        "intervals": " (the leave-out fits use the left singular vectors)",
-        "solver": (" (with wide data the column-blocked engine factors the n x n Gram of its "
-                   "blocks: accurate=True picks the route)")}
+        "intervals": " (the leave-out fits use the left singular vectors)"}
 
 
 def unsupported_options(data: DataOptions, fit: FitOptions, *, wide: bool = False) -> list:
     """The options set away from their defaults that the out-of-memory engines do not offer
-    (``wide``: the column-blocked engine, which refits per fold and refuses its own data
-    options with their reasons, :data:`paths.workflows.wide.WIDE_REFUSALS`)."""
+    (none with ``wide``: the column-blocked engine refuses what it cannot do itself, with
+    its reasons, :data:`paths.workflows.wide.WIDE_REFUSALS`)."""
     defaults = {DataOptions: DataOptions(), FitOptions: FitOptions()}
     out = []
     for opts, names in ((data, _DATA_ONLY_IN_MEMORY), (fit, _FIT_ONLY_IN_MEMORY)):
         default = defaults[type(opts)]
         out += [n for n in names if getattr(opts, n) != getattr(default, n)]
-    if wide:  # tall data map solver to their routes (svd: TSQR, gram: Gram); wide do not
-        out = [n for n in out if n in _FIT_ONLY_IN_MEMORY]
-        out += ["solver"] if fit.solver != FitOptions().solver else []
-    return out
+    return [] if wide else out
 
 
 def _file_digests(path: Path) -> tuple[dict, list]:
