@@ -270,6 +270,14 @@ CASES = {
     "E89": (CLI, _npy("o.npy", np.array([{"a": 1}, None], dtype=object), allow_pickle=True),
             ["explore", "o.npy", "-t", "x1", "--engine", "stream"]),
     "E90": (CLI, _truncated_npy, ["explore", "t.npy", "-t", "x2", "--engine", "stream"]),
+    "E91": (CLI, _text("data.csv", "a,b,y\n1,2,3\n2,1,5\n3,5,4\n4,3,9\n"),
+            ["explore", "data.csv", "-t", "y", "--engine", "stream", "--accurate", "--solver",
+             "gram"]),
+    "E92": (CLI, lambda d: ((d / "data.csv").write_text(
+        "a,site,y\n1,p,3\n2,q,5\n3,p,4\n4,q,9\n5,p,2\n"), (d / "test.csv").write_text(
+        "a,site,y\n1,p,3\n2,z,5\n")),
+        ["explore", "data.csv", "-t", "y", "--engine", "stream", "--encode", "onehot",
+         "--test", "test.csv"]),
 }
 
 

@@ -235,6 +235,7 @@ def test_wide_test_file_csv_columns_in_another_order(tmp_path):
     (["--weights", "g3"], "the column-blocked Gram is unweighted"),
     (["--encode", "onehot", "--test", "w.parquet"], "use --holdout, or --engine memory"),
     (["--engine", "dask"], "the dask engine splits rows"),
+    (["--intervals", "0.9", "--holdout", "0.2"], "never forms"),
 ])
 def test_wide_refusals_say_why(tmp_path, flags, want):
     """What the wide engine cannot do: exit 2, one line, the reason and the alternative
@@ -410,3 +411,14 @@ def test_column_blocks_are_named_records():
     assert names == ["start", "stop", "z", "design", "z_test"]
     with pytest.raises(dataclasses.FrozenInstanceError):
         ColumnBlock(0, 1, np.zeros((1, 1)), None).start = 2
+
+
+@pytest.mark.parametrize("solver, route", [("svd", "tsqr"), ("gram", "gram")])
+def test_wide_solver_maps_to_the_column_blocked_route(tmp_path, solver, route):
+    """``--solver svd`` takes the backward-stable route of wide data (QR of the column
+    blocks, SVD of R), ``--solver gram`` the n x n Gram; the request is stated."""
+    _files(tmp_path)
+    s = _run(tmp_path, "o", [str(tmp_path / "w.parquet"), "-t", "y", "--exclude", "site",
+                             "--engine", "stream", "--solver", solver])
+    assert s["solver"] == f"wide-{route}"
+    assert s["solver_reason"].startswith(f"requested (solver {solver})")

@@ -187,7 +187,7 @@ class LevelScan:
         written (a second pre-pass with these columns kept as text, :meth:`add_text`)."""
         return sorted(self.text & self.numeric_seen & set(self._kept_features()))
 
-    def add_text(self, frame, start_chunk: int) -> None:
+    def add_text(self, frame) -> None:
         """Second pre-pass: a chunk parsed with the :meth:`needs_text_pass` columns as text."""
         cols = self.needs_text_pass()
         if self.exact is None:
@@ -303,6 +303,6 @@ def scan_frames(frames, text_frames, features, targets, *, encode=None, drop_mis
             progress("pass 0: text levels and missing values", scan.n0, None)
     redo = scan.needs_text_pass()
     if redo and encode == "onehot":
-        for i, frame in enumerate(text_frames(redo)):
-            scan.add_text(frame, i)
+        for frame in text_frames(redo):
+            scan.add_text(frame)
     return scan.result()

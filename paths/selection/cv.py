@@ -726,13 +726,15 @@ def loo_residuals(path, lam) -> np.ndarray:
 
 
 def cv_from_fold_stats(stats, plan, lambdas, *, multi_target: bool) -> CVResult:
-    """The :class:`CVResult` of a streamed engine's per-fold factors.
+    """The :class:`CVResult` of an out-of-memory engine's fold statistics.
 
-    ``stats`` (:class:`paths.engines.stream.FoldFactors`) gives the held-out
-    errors at any penalty, as the in-memory exact route does; ``plan``
+    ``stats`` (:class:`paths.engines.stream.FoldFactors` of a streamed pass;
+    :class:`StateFolds` or :class:`RefitFolds` of the wide engine) gives the
+    held-out errors at any penalty, as the in-memory exact route does; ``plan``
     (:class:`paths.engines.stream.FoldPlan`) says which folds — the assignment
     of :mod:`paths.data.folds`, so the folds, and the errors, are the in-memory
-    engine's.  ``labels`` is empty (R, 0): the rows' labels are never held.
+    engine's.  ``labels`` are the statistics' own (the wide engine holds them),
+    else empty (R, 0): a streamed pass never holds the rows' labels.
     """
     lam = as_lambdas(lambdas)
     sizes = np.array(stats.count, dtype=np.int64)

@@ -30,24 +30,19 @@ _DATA_ONLY_IN_MEMORY = ("weights",)
 _FIT_ONLY_IN_MEMORY = ("unpenalized", "relative_penalty", "intervals")
 _WHY = {**{name: " (its one-pass moments are unweighted and penalize every column)"
            for name in ("weights", "unpenalized", "relative_penalty")},
-        "intervals": " (the leave-out fits use the left singular vectors)",
-        "solver": (" (with wide data the column-blocked engine factors the n x n Gram of its "
-                   "blocks: accurate=True picks the route)")}
+        "intervals": " (the leave-out fits use the left singular vectors)"}
 
 
 def unsupported_options(data: DataOptions, fit: FitOptions, *, wide: bool = False) -> list:
     """The options set away from their defaults that the out-of-memory engines do not offer
-    (``wide``: the column-blocked engine, which refits per fold and refuses its own data
-    options with their reasons, :data:`paths.workflows.wide.WIDE_REFUSALS`)."""
+    (none with ``wide``: the column-blocked engine refuses what it cannot do itself, with
+    its reasons, :data:`paths.workflows.wide.WIDE_REFUSALS`)."""
     defaults = {DataOptions: DataOptions(), FitOptions: FitOptions()}
     out = []
     for opts, names in ((data, _DATA_ONLY_IN_MEMORY), (fit, _FIT_ONLY_IN_MEMORY)):
         default = defaults[type(opts)]
         out += [n for n in names if getattr(opts, n) != getattr(default, n)]
-    if wide:  # tall data map solver to their routes (svd: TSQR, gram: Gram); wide do not
-        out = [n for n in out if n in _FIT_ONLY_IN_MEMORY]
-        out += ["solver"] if fit.solver != FitOptions().solver else []
-    return out
+    return [] if wide else out
 
 
 def _file_digests(path: Path) -> tuple[dict, list]:
@@ -230,14 +225,15 @@ def explore_engine(data: DataOptions, fit: FitOptions = FitOptions(),
                    figures: FigureOptions = FigureOptions(),
                    output: OutputOptions = OutputOptions(), *,
                    engine: EngineOptions = EngineOptions(engine="stream"),
-                   progress=None) -> ExploreRun:
+                   progress=None, extra: dict | None = None) -> ExploreRun:
     """The explore workflow on the ``stream`` or ``dask`` engine (see the module docstring).
 
     Every selection rule is refined between grid points on the engine's own
     path, as in memory (GCV from the factor state, K-fold at any penalty from
     the per-fold factors, leave-one-out at a new penalty by one more pass over
     the rows, counted in the data notes).  ``progress(stage, done, total)``
-    reports each pass.
+    reports each pass.  ``extra`` keys are added to ``summary.json`` (the note of an
+    ``engine_choice`` also to its data notes).
     """
     if engine.name not in ("stream", "dask"):
         raise InputError(f"engine must be one of {', '.join(ENGINES)}; got {engine.engine!r}")
@@ -262,8 +258,10 @@ def explore_engine(data: DataOptions, fit: FitOptions = FitOptions(),
         if loo_passes:
             hash_notes.append(f"{loo_passes} extra pass(es) over the rows for leave-one-out "
                               "between grid points (selection refinement and error estimates)")
-        summary = _engine_summary(result, data, fit, output, digests, hash_notes, cv_res,
-                                  selection)
+        note = (extra or {}).get("engine_choice", {}).get("note")
+        summary = _engine_summary(result, data, fit, output, digests,
+                                  hash_notes + ([note] if note else []), cv_res, selection)
+        summary.update(extra or {})
         files = _write_engine(result, summary, folder.stage, list(data.target), figures,
                               source=source_name(data.file), digests=digests, selection=selection,
                               progress=progress)

@@ -30,10 +30,17 @@ __all__ = ["fit_wide", "WIDE_REFUSALS"]
 WIDE_REFUSALS = {
     "weights": ("weights with wide data: the column-blocked Gram is unweighted; use engine "
                 "memory"),
+    "unpenalized": ("unpenalized with wide data: the column blocks would have to be projected "
+                    "off the unpenalized columns' span first; use engine memory"),
+    "relative_penalty": ("relative_penalty with wide data: the column-blocked Gram penalizes "
+                         "every column alike; use engine memory"),
+    "intervals": ("intervals with wide data: the leave-out predictions need the right "
+                  "factors, which the column-blocked engine never forms; use engine memory"),
 }
 
 
-def _refuse(data: DataOptions, path: Path, engine: EngineOptions, rows, n_feats) -> None:
+def _refuse(data: DataOptions, fit: FitOptions, path: Path, engine: EngineOptions, rows,
+            n_feats) -> None:
     """One-line refusals of what the wide engine cannot do, with the reason."""
     if engine.name == "dask":
         raise InputError(f"{path} is wide ({rows} rows x {n_feats} features): use engine "
@@ -41,8 +48,10 @@ def _refuse(data: DataOptions, path: Path, engine: EngineOptions, rows, n_feats)
     if path.is_dir():
         raise InputError(f"{path}: wide data must be one file (columns are read "
                          "selectively); combine the parts")
+    defaults = {DataOptions: DataOptions(), FitOptions: FitOptions()}
     for name, why in WIDE_REFUSALS.items():
-        if getattr(data, name) is not None:
+        opts = data if hasattr(data, name) else fit
+        if getattr(opts, name) != getattr(defaults[type(opts)], name):
             raise InputError(why)
     if data.test_file is not None and data.holdout is not None:
         raise InputError("pass either test_file or holdout, not both")
@@ -128,10 +137,12 @@ def fit_wide(data: DataOptions, fit: FitOptions, engine: EngineOptions, *, path:
     CV (any scheme, groups, repeats, global or per-fold scaling); a
     :class:`paths.engines.wide.WidePath` whose ``fold_stats`` give the CV errors."""
     from paths.data.folds import holdout_mask
+    from paths.engines.stream import solver_route
     from paths.engines.wide import wide_path
     from paths.workflows.explore import folds_for
 
-    _refuse(data, path, engine, rows, len(feats))
+    _refuse(data, fit, path, engine, rows, len(feats))
+    accurate = solver_route(fit.solver, engine.accurate)  # svd: QR of the blocks; gram: Gram
     src, y, groups, notes = _open(path, data, targets, feats, engine, progress)
     held = None
     if data.holdout is not None:
@@ -141,9 +152,11 @@ def fit_wide(data: DataOptions, fit: FitOptions, engine: EngineOptions, *, path:
     n_folds = folds_for(groups, n_train, fit)
     result = wide_path(src, y, target=targets if len(targets) > 1 else targets[0],
                        X_test=data.test_file, test_rows=held, sep=data.sep,
-                       accurate=engine.accurate, rank=engine.rank, n_lambdas=fit.n_lambdas,
+                       accurate=accurate, rank=engine.rank, n_lambdas=fit.n_lambdas,
                        standardize=fit.standardize, progress=progress)
-    result = dataclasses.replace(result, notes=tuple(notes) + result.notes)
+    reason = result.solver_reason if fit.solver == "auto" else \
+        f"requested (solver {fit.solver}): {result.solver_reason}"
+    result = dataclasses.replace(result, notes=tuple(notes) + result.notes, solver_reason=reason)
     if n_folds is None:
         return result
     return _kfold_stats(result, src, y, groups, held, fit, n_folds, progress)
