@@ -77,20 +77,7 @@ def _make_parquet(path: Path, n: int, p: int, *, seed: int = 0, group: int = 131
     return path
 
 
-# shared by the child scripts: the peak-RSS probe
-_PRELUDE = r"""
-import json, resource, sys
-def _hwm_kb():
-    # peak RSS of this process image: /proc VmHWM (getrusage's ru_maxrss keeps the
-    # parent's resident size across fork + exec on Linux, which would inflate it)
-    try:
-        for line in open("/proc/self/status"):
-            if line.startswith("VmHWM:"):
-                return int(line.split()[1])
-    except OSError:
-        pass
-    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
-"""
+_PRELUDE = H.RSS_PRELUDE  # the peak-RSS probe of every child
 
 _CHILD_CLI = _PRELUDE + r"""
 import time
@@ -107,8 +94,7 @@ with open(out, "w") as fh:
                "seconds": time.perf_counter() - t0, "code": code}, fh)
 """
 
-_CHILD_IDLE = _PRELUDE + r"""
-import numpy, scipy.linalg, pyarrow.parquet, pandas, rich
+_CHILD_IDLE = _PRELUDE + f"import {H.IDLE_LIBRARIES}\n" + r"""
 import paths, paths.cli, paths.engines.stream, paths.engines.wide
 with open(sys.argv[1], "w") as fh:
     json.dump({"maxrss_kb": _hwm_kb()}, fh)

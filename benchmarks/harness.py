@@ -37,11 +37,52 @@ from pathlib import Path
 
 __all__ = ["THREAD_SETTINGS", "RESULTS_DIR", "measure", "peak_memory", "blas_threads",
            "machine_info", "row", "write_record", "latest_record", "load_record",
-           "render_markdown"]
+           "render_markdown", "RSS_PRELUDE", "RECORD_PRELUDE", "IDLE_LIBRARIES", "load_average"]
 
 THREAD_SETTINGS = (1, 2)
 RESULTS_DIR = Path(__file__).resolve().parent / "results"
 SCHEMA = 1
+
+
+# ------------------------------------------------------------- child processes
+#: Source every benchmark child process starts with: ``_hwm_kb()``, the peak resident
+#: set size of this process image in kB (``VmHWM`` of ``/proc/self/status``; on Linux
+#: ``getrusage``'s ``ru_maxrss`` carries the parent's resident size over fork + exec,
+#: so it is only the fallback).
+RSS_PRELUDE = r"""
+import atexit, json, resource, sys, time
+_T0 = time.perf_counter()
+def _hwm_kb():
+    try:
+        for line in open("/proc/self/status"):
+            if line.startswith("VmHWM:"):
+                return int(line.split()[1])
+    except OSError:
+        pass
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+"""
+
+#: :data:`RSS_PRELUDE` plus a record written at exit to the path given as the first
+#: argument (removed from ``sys.argv``): ``{"maxrss_kb", "inner_seconds"}``.
+RECORD_PRELUDE = RSS_PRELUDE + r"""
+_OUT = sys.argv.pop(1)
+@atexit.register
+def _report():
+    with open(_OUT, "w") as fh:
+        json.dump({"maxrss_kb": _hwm_kb(), "inner_seconds": time.perf_counter() - _T0}, fh)
+"""
+
+#: Every library a command run loads: an idle child importing them is the resident
+#: floor under any run (the "idle libraries" of the memory figures).
+IDLE_LIBRARIES = "numpy, scipy.linalg, pandas, pyarrow.parquet, sklearn, matplotlib.pyplot, rich"
+
+
+def load_average() -> str:
+    """The 1, 5 and 15 minute load averages (``uptime``), recorded with timings."""
+    try:
+        return " ".join(f"{v:.2f}" for v in os.getloadavg())
+    except OSError:
+        return "?"
 
 
 # --------------------------------------------------------------------- timing
@@ -219,6 +260,7 @@ def write_record(rows: list[dict], *, quick: bool, argv=None, extra: dict | None
         "quick": bool(quick),
         "machine": machine_info(),
         "max_rss_bytes": max_rss_bytes(),
+        "load_average": load_average(),
         "rows": rows,
     }
     if extra:
@@ -293,6 +335,8 @@ def render_markdown(record: dict, benches=None) -> str:
         f"Measured {record.get('created_utc', '?')} on {m.get('cpu_count', '?')} cores "
         f"({m.get('machine', '?')}), BLAS {blas or '?'}; numpy {m.get('numpy')}, "
         f"scipy {m.get('scipy')}, scikit-learn {m.get('sklearn')}"
+        + (f"; load average {record['load_average']} (1, 5, 15 min) at the end"
+           if record.get("load_average") else "")
         + (" — quick mode (fewer repeats)" if record.get("quick") else "") + "."
     )
     order_bench = []

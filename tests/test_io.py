@@ -122,6 +122,47 @@ def test_parquet_round_trip_and_nested_columns(tmp_path):
     assert_array_equal(d.y, ARR[:, 3])
 
 
+def test_float_parquet_read_in_column_batches_equals_pandas(tmp_path, monkeypatch):
+    """An all-float Parquet file (float32 and float64 columns, nulls, several row groups),
+    read a few columns at a time into one block, equals ``pandas.read_parquet`` (values as
+    float64, nulls as NaN); a file with a stored (float) pandas index takes the general
+    reader: its columns are pyarrow's without the pandas metadata, the index one of them."""
+    import paths.data.tables as tables
+
+    monkeypatch.setattr(tables, "_PARQUET_BATCH_BYTES", 8 * 50 * 2)  # two columns a batch
+    X = RNG.standard_normal((50, 5))
+    cols = {f"c{j}": pa.array(X[:, j], type=pa.float32() if j == 1 else pa.float64())
+            for j in range(5)}
+    cols["c3"] = pa.array([None if i % 7 == 0 else float(v) for i, v in enumerate(X[:, 3])])
+    f = tmp_path / "floats.parquet"
+    pq.write_table(pa.table(cols), f, row_group_size=16)
+    got, ref = read_table(f), pd.read_parquet(f)
+    assert list(got.columns) == list(ref.columns)
+    assert_array_equal(got.to_numpy(dtype=np.float64), ref.to_numpy(dtype=np.float64))
+    frame = pd.DataFrame(X[:, :2], columns=["a", "b"], index=np.arange(50) * 0.5)
+    g = tmp_path / "indexed.parquet"
+    frame.to_parquet(g)
+    back, plain = read_table(g), pq.read_table(g).to_pandas(ignore_metadata=True)
+    assert list(back.columns) == list(plain.columns) and len(plain.columns) == 3
+    assert_array_equal(back.to_numpy(), plain.to_numpy())
+
+
+def test_duplicate_columns_found_across_row_blocks():
+    """Exact duplicate columns are grouped when the rows are hashed in many blocks; the
+    groups equal those of ``numpy.unique(axis=1)`` (numpy reference)."""
+    from paths.data.tables import _duplicate_groups as groups_of  # noqa: PLC2701 (the unit)
+
+    X = RNG.standard_normal((301, 6))
+    X[:, 4] = X[:, 1]
+    X[:, 5] = X[:, 1]
+    X[-1, 5] += 1.0  # differs in the last block only
+    names = [f"x{j}" for j in range(6)]
+    found = groups_of(X, names, block_bytes=8 * 6 * 10)
+    _, inverse, counts = np.unique(X, axis=1, return_inverse=True, return_counts=True)
+    ref = [[names[j] for j in np.flatnonzero(inverse == g)] for g in np.flatnonzero(counts > 1)]
+    assert found == ref == [["x1", "x4"]]
+
+
 def test_parquet_struct_and_unreadable(tmp_path):
     """A struct column is nested too; bytes that are not Parquet give a one-line error."""
     f = tmp_path / "s.parquet"

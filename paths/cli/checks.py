@@ -43,7 +43,7 @@ def check_options(kw: dict) -> None:
     if engine == "stream" and kw.get("scheduler") is not None:
         raise InputError("--scheduler needs --engine dask (the stream engine runs in this "
                          "process); drop --scheduler or use --engine dask")
-    if engine == "memory" and kw.get("rank") is None and kw.get("scheduler") is None:
+    if engine in ("memory", "auto") and kw.get("rank") is None and kw.get("scheduler") is None:
         for key, flag in (("accurate", "--accurate"), ("chunk_rows", "--chunk-rows")):
             if kw.get(key) not in (None, False):
                 raise InputError(f"{flag} applies to --engine stream or dask; the in-memory "

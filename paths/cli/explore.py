@@ -154,6 +154,7 @@ def explore_cmd(
 ):
     """Fit the whole ridge path of DATA and write path.csv, coefficients.csv, summary.json."""
     from paths.workflows import options as o
+    from paths.workflows.choose_engine import choose_engine
     from paths.workflows.explore import run_explore
 
     data = stdin_file(data)  # "-": standard input
@@ -164,7 +165,11 @@ def explore_cmd(
                    figures=f.build(o.FigureOptions, given),
                    output=f.build(o.OutputOptions, given, command_line=["paths", *sys.argv[1:]]),
                    engine=engine_options)
-    if engine_options.name == "memory":
+    choice = choose_engine(options["data"], options["fit"], engine_options)
+    if choice.note:
+        console.print(f"note: {choice.note}", markup=False, highlight=False)
+    options.update(engine=choice.options, extra=choice.extra)
+    if choice.options.name == "memory":
         from paths.cli.progress import ProgressBar
 
         with ProgressBar() as bar:

@@ -54,6 +54,7 @@ class IntervalMethod(str, Enum):
 
 
 class Engine(str, Enum):
+    auto = "auto"
     memory = "memory"
     stream = "stream"
     dask = "dask"
@@ -196,7 +197,9 @@ CV_SCALING = typer.Option(CVScaling(o.FitOptions.cv_scaling), "--cv-scaling", he
 RULE = typer.Option(None, "--rule", help="Reported choice: gcv, loo, cv, one-se, "
                     "df=VALUE, fraction=VALUE, hkb, lw, isotropic or reml (default: cv with "
                     "--n-folds, else gcv).")
-ENGINE = typer.Option(Engine(o.EngineOptions.engine), "--engine", help="memory: read everything; "
+ENGINE = typer.Option(Engine(o.EngineOptions.engine), "--engine", help="auto: in memory "
+                      "unless the table would take more than half the available memory, then "
+                      "stream; memory: read everything (forced); "
                       "stream: row chunks (tall) or column blocks (wide Parquet) "
                       "in bounded memory; dask: a dask cluster (docs/scaling.md).")
 SCHEDULER = typer.Option(None, "--scheduler", help="Address of a running dask "

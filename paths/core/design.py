@@ -22,6 +22,8 @@ import numpy as np
 import scipy.linalg as sla
 from scipy.linalg import lapack
 
+from paths.data.validation import column_range
+
 __all__ = ["Design", "FixedSpan", "prepare", "prepare_weighted", "to_sample_space",
            "column_norms", "reduce_rows"]
 
@@ -179,7 +181,8 @@ def prepare(X: np.ndarray, Y: np.ndarray, *, fit_intercept: bool,
     to its own magnitude, so the test is scale free).
     """
     n, p = X.shape
-    g = _power_of_two_scales(X) if standardize else None
+    x_min, x_max = column_range(X)
+    g = _power_of_two_scales(x_min, x_max) if standardize else None
     if g is not None:  # extreme columns: exact rescaling, absorbed by the standardization
         design, z = prepare(X / g, Y, fit_intercept=fit_intercept, standardize=True)
         x_mean = design.x_mean * g
@@ -188,7 +191,6 @@ def prepare(X: np.ndarray, Y: np.ndarray, *, fit_intercept: bool,
         return Design(zy=design.zy, x_mean=x_mean, x_scale=scale, y_mean=design.y_mean,
                       active=design.active, n_samples=n, fit_intercept=fit_intercept,
                       standardize=True), z
-    x_max, x_min = X.max(axis=0), X.min(axis=0)
     absmax = np.maximum(x_max, -x_min)  # = max |x_ij|, without an |X|-sized temporary
     if fit_intercept:
         x_mean = X.mean(axis=0)
@@ -228,7 +230,7 @@ def prepare(X: np.ndarray, Y: np.ndarray, *, fit_intercept: bool,
     return design, Z
 
 
-def _power_of_two_scales(X: np.ndarray) -> np.ndarray | None:
+def _power_of_two_scales(x_min: np.ndarray, x_max: np.ndarray) -> np.ndarray | None:
     """Powers of two that bring extreme columns (max |x| beyond 2**±400) near 1, else None.
 
     Dividing by a power of two is exact (IEEE 754), so standardizing ``X / g``
@@ -236,7 +238,7 @@ def _power_of_two_scales(X: np.ndarray) -> np.ndarray | None:
     sums of n values near 1e308 no longer overflow and subnormal columns regain
     normal range.
     """
-    absmax = np.maximum(X.max(axis=0), -X.min(axis=0))
+    absmax = np.maximum(x_max, -x_min)
     extreme = (absmax > 2.0**400) | ((absmax > 0) & (absmax < 2.0**-400))
     if not extreme.any():
         return None
@@ -246,7 +248,8 @@ def _power_of_two_scales(X: np.ndarray) -> np.ndarray | None:
 
 def column_norms(A: np.ndarray) -> np.ndarray:
     """Euclidean column norms, without overflow or underflow for extreme scales."""
-    big = np.maximum(A.max(axis=0), -A.min(axis=0))  # max |a_ij|, no |A|-sized temporary
+    lo, hi = column_range(A)
+    big = np.maximum(hi, -lo)  # max |a_ij|, no |A|-sized temporary
     if big.size and (big.max() > 1e150 or big[big > 0].min(initial=1.0) < 1e-150):
         safe = np.where(big > 0, big, 1.0)
         S = A / safe
@@ -383,7 +386,7 @@ def prepare_weighted(X: np.ndarray, Y: np.ndarray, *, fit_intercept: bool, stand
     w = np.ones(n) if sample_weight is None else np.asarray(sample_weight, dtype=np.float64)
     sqrt_w = np.sqrt(w)
     total = float(w.sum())
-    x_max, x_min = X.max(axis=0), X.min(axis=0)
+    x_min, x_max = column_range(X)
     absmax = np.maximum(x_max, -x_min)
     mu = (w @ X) / total
     if fit_intercept:

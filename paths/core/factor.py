@@ -180,7 +180,8 @@ def factorize(
         ``matrix_rank`` default).  A forced Gram route raises it to at least
         ``sqrt(max(m, q) * eps)``, the smallest value that route resolves.
     overwrite : bool
-        Allow the SVD route to destroy ``z`` (saves one copy of the design).  If
+        Allow the factorization to destroy ``z`` (saves one copy of the design: the
+        Gram route writes the other factor over it, the SVD route lets LAPACK use it).  If
         ``gesdd`` then fails to converge, :class:`numpy.linalg.LinAlgError` is
         raised so the caller can rebuild ``z`` and retry without it (the retry
         falls back to ``gesvd``).
@@ -235,7 +236,8 @@ def factorize(
                 if solver == "auto":
                     reason = (f"Gram route: condition number {cond:.3g} <= {gram_max_cond:g} "
                               "(at most one digit below the SVD route)")
-                return _from_gram(z, w, vec, rtol, reason, forced=solver == "gram")
+                return _from_gram(z, w, vec, rtol, reason, forced=solver == "gram",
+                                  overwrite=overwrite)
             reason = (f"SVD route: condition number {cond:.3g} > {gram_max_cond:g}, "
                       "too large for the Gram route")
     if min(m, q) == 0:
@@ -248,7 +250,7 @@ def factorize(
     return _finish(u[:, :r], d[:r], vt[:r], r, tol, dmax, float(d[-1]), route, reason)
 
 
-def _from_gram(z, w, vec, rtol, reason, forced):
+def _from_gram(z, w, vec, rtol, reason, forced, overwrite=False):
     m, q = z.shape
     d_all = np.sqrt(w)
     dmax = float(d_all[0])
@@ -261,13 +263,42 @@ def _from_gram(z, w, vec, rtol, reason, forced):
     d = d_all[:r]
     if m < q:  # g = Z Z^T = U D^2 U^T ;  V^T = D^-1 U^T Z
         u = np.ascontiguousarray(vec[:, :r])
-        vt = u.T @ z
-        vt /= d[:, None]  # in place: one design-sized array, not two
+        vt = _product_into(z, u.T, d, by_rows=False) if overwrite else u.T @ z
+        if not overwrite:
+            vt /= d[:, None]  # in place: one design-sized array, not two
     else:  # g = Z^T Z = V D^2 V^T ;  U = Z V D^-1
         vt = np.ascontiguousarray(vec[:, :r].T)
-        u = z @ vt.T
-        u /= d
+        u = _product_into(z, vt.T, d, by_rows=True) if overwrite else z @ vt.T
+        if not overwrite:
+            u /= d
     return _finish(u, d, vt, r, tol, dmax, float(d_all[-1]), "gram", reason)
+
+
+def _product_into(z: np.ndarray, f: np.ndarray, d: np.ndarray, *, by_rows: bool,
+                  block_bytes: int = 8 << 20) -> np.ndarray:
+    """The other factor written over ``z`` block by block: no second design-sized array.
+
+    ``by_rows`` (tall): :math:`U = Z V D^{-1}`, row block by row block, into the first
+    ``r`` columns of ``z``; else (wide): :math:`V^T = D^{-1} U^T Z`, column block by
+    column block, into the first ``r`` rows.  Each block's product is formed from the
+    block's original values before they are overwritten; the products are the same
+    sums as the whole-matrix product, in blocks.
+    """
+    m, q = z.shape
+    r = d.size
+    if by_rows:
+        step = max(1, block_bytes // (8 * max(r, 1)))
+        for s in range(0, m, step):
+            blk = z[s:s + step] @ f
+            blk /= d
+            z[s:s + step, :r] = blk
+        return z if r == q else np.ascontiguousarray(z[:, :r])
+    step = max(1, block_bytes // (8 * max(r, 1)))
+    for s in range(0, q, step):
+        blk = f @ z[:, s:s + step]
+        blk /= d[:, None]
+        z[:r, s:s + step] = blk
+    return z[:r]
 
 
 def _warn_rank_cut(r: int, full: int, tol: float, dmax: float, rtol: float) -> str:

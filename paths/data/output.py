@@ -356,6 +356,12 @@ def prepare_out_dir(path: str | os.PathLike, *, force: bool = False) -> Path:
 
 def write_bytes(path: str | os.PathLike, data: bytes) -> Path:
     """Write ``data`` to ``path`` atomically (temporary file in the same folder, then rename)."""
+    return write_with(path, lambda fh: fh.write(data))
+
+
+def write_with(path: str | os.PathLike, writer) -> Path:
+    """Write ``path`` atomically with ``writer(fh)`` (a binary file open for writing), so
+    large outputs stream to the disk instead of being built in memory first."""
     dest = Path(path)
     if dest.is_dir():
         raise OutputError(f"{dest} is a folder; cannot write a file over it: remove it or "
@@ -367,7 +373,7 @@ def write_bytes(path: str | os.PathLike, data: bytes) -> Path:
                           "choose a writable --out") from None
     try:
         with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
+            writer(fh)
             fh.flush()
             os.fsync(fh.fileno())
             # mkstemp makes the file private (0600); give it the usual mode for new files
@@ -427,8 +433,11 @@ def write_csv(path: str | os.PathLike, header, rows) -> Path:
     w = csv.writer(buf, lineterminator="\n")
     w.writerow([safe_cell(str(h)) for h in header])
     for row in rows:
-        w.writerow(["" if v is None else (repr(float(v)) if isinstance(v, float)
-                                          else safe_cell(v)) for v in row])
+        try:  # a row of floats only (the wide tables): joined directly, the same text
+            buf.write(",".join(map(float.__repr__, row)) + "\n")
+        except TypeError:
+            w.writerow(["" if v is None else (repr(float(v)) if isinstance(v, float)
+                                              else safe_cell(v)) for v in row])
     return write_text(path, buf.getvalue())
 
 

@@ -47,7 +47,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from paths.data.validation import InputError, check_memory
+from paths.data.validation import InputError, all_finite, check_memory, column_range
 
 __all__ = [
     "Dataset",
@@ -743,11 +743,65 @@ def _numeric_text_columns(df: pd.DataFrame, p: Path, lines, keep_text=()) -> pd.
     return df
 
 
+#: Bytes of Arrow columns held at a time while a float table is copied into its frame.
+_PARQUET_BATCH_BYTES = 4 << 20
+
+
+def _float_parquet(p: Path):
+    """An all-float Parquet table as a frame over ONE float64 block, or None.
+
+    The columns are read a few at a time (about :data:`_PARQUET_BATCH_BYTES`) and
+    copied into one ``(columns, rows)`` array that the frame wraps without a copy,
+    so the file's data are held once (plus one batch of Arrow columns), not as an
+    Arrow table and a pandas frame side by side.  None (the general reader) for
+    any other column type, repeated names, or a stored pandas index.
+    """
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    try:
+        pf = pq.ParquetFile(p)
+    except (pa.ArrowException, OSError, ValueError):
+        return None  # the general reader states why, in its own words
+    schema = pf.schema_arrow
+    names = schema.names
+    n = pf.metadata.num_rows
+    if n == 0 or not names or len(set(names)) != len(names):
+        return None
+    if not all(pa.types.is_float32(f.type) or pa.types.is_float64(f.type) for f in schema):
+        return None
+    meta = schema.pandas_metadata
+    if meta is not None and (any(not isinstance(i, dict) for i in meta.get("index_columns", []))
+                             or any(c.get("name") != c.get("field_name")
+                                    for c in meta.get("columns", []))):
+        return None
+    block = np.empty((len(names), n))
+    per = max(1, _PARQUET_BATCH_BYTES // (8 * n))
+    for s in range(0, len(names), per):
+        part = pf.read(columns=None if per >= len(names) else names[s:s + per],
+                       use_pandas_metadata=False)
+        for j, col in enumerate(part.columns):
+            at = 0
+            for chunk in col.chunks:
+                block[s + j, at:at + len(chunk)] = chunk.to_numpy(zero_copy_only=False)
+                at += len(chunk)
+            if at != n:
+                return None
+        del part
+    pa.default_memory_pool().release_unused()
+    df = pd.DataFrame(block.T, columns=list(names), copy=False)
+    df.attrs["paths_nested"] = {}
+    return df
+
+
 def _read_parquet(p: Path) -> pd.DataFrame:
     import pyarrow as pa
     import pyarrow.parquet as pq
 
     try:
+        fast = _float_parquet(p)
+        if fast is not None:
+            return fast
         table = pq.read_table(p)
     except (pa.ArrowException, OSError, ValueError) as exc:
         msg = _one_line(str(exc)) or type(exc).__name__
@@ -772,6 +826,8 @@ def _read_parquet(p: Path) -> pd.DataFrame:
         cols[fld.name] = arr
     table = pa.table(cols) if cols else table
     df = table.to_pandas()
+    del table, cols
+    pa.default_memory_pool().release_unused()
     if df.shape[0] == 0:
         raise _fail("", f"{p} has columns but no rows; add data rows")
     df.attrs["paths_nested"] = nested
@@ -945,6 +1001,8 @@ def _nullable_booleans(df: pd.DataFrame) -> pd.DataFrame:
 def _refuse_infinite(where, sub_lines, *blocks):
     """One-line error for the first infinite value in ``(array, column names, kind)`` blocks."""
     for arr, cols, kind in blocks:
+        if all_finite(arr):
+            continue
         bad = ~np.isfinite(arr)
         if bad.any():
             j = int(np.flatnonzero(bad.any(axis=0))[0])
@@ -1021,8 +1079,12 @@ def _plain_float_frame(frame: pd.DataFrame) -> bool:
 def _missing_block(frame: pd.DataFrame, cols) -> np.ndarray:
     """Missing-value mask (n, len(cols)); one array operation for an all-numeric table."""
     if _plain_float_frame(frame):
-        pos = frame.columns.get_indexer(cols)
-        return np.isnan(frame.to_numpy(dtype=np.float64)[:, pos])
+        values = frame.to_numpy(dtype=np.float64)  # a view for a one-block float frame
+        step = max(1, (1 << 20) // max(values.shape[1], 1))
+        if not any(np.isnan(values[s:s + step]).any()  # row blocks: no table-sized mask
+                   for s in range(0, values.shape[0], step)):
+            return np.zeros((values.shape[0], len(cols)), dtype=bool)
+        return np.isnan(values[:, frame.columns.get_indexer(cols)])
     return frame[list(cols)].isna().to_numpy()
 
 
@@ -1031,7 +1093,13 @@ def _float_block(frame: pd.DataFrame, cols) -> np.ndarray:
     if not cols:
         return np.zeros((frame.shape[0], 0))
     if _plain_float_frame(frame):  # one conversion, then columns by position (no block takes)
-        return frame.to_numpy(dtype=np.float64)[:, frame.columns.get_indexer(cols)]
+        values = frame.to_numpy(dtype=np.float64)  # a view for a one-block float frame
+        pos = frame.columns.get_indexer(cols)
+        out = np.empty((values.shape[0], len(cols)))  # row-major: the design's layout
+        step = max(1, (8 << 20) // (8 * len(cols)))  # row blocks: no whole-table temporary
+        for s in range(0, values.shape[0], step):
+            out[s:s + step] = values[s:s + step, pos]
+        return out
     block = frame[list(cols)]
     if all(dt.kind in "fiu" and not pd.api.types.is_extension_array_dtype(dt)
            for dt in block.dtypes):
@@ -1295,7 +1363,8 @@ def select(df, target, *, features=None, exclude=None, id_column=None, encode=No
             raise _fail(where, f"target column {t!r} is constant (every value {Y[0, j]:g}); "
                                "there is nothing to fit: choose another target")
 
-    constant = [names[j] for j in np.flatnonzero(X.max(axis=0) == X.min(axis=0))]
+    x_lo, x_hi = column_range(X)  # finite: infinite values were refused above
+    constant = [names[j] for j in np.flatnonzero(x_hi == x_lo)]
     if constant:
         notes.append(f"constant column(s) {_names(constant)}: left out of the fit "
                      "(coefficient 0)")
@@ -1319,13 +1388,18 @@ def select(df, target, *, features=None, exclude=None, id_column=None, encode=No
     )
 
 
-def _duplicate_groups(X: np.ndarray, names, skip=()) -> list:
+def _duplicate_groups(X: np.ndarray, names, skip=(), block_bytes: int = 8 << 20) -> list:
+    """Groups of exactly equal columns (by a hash of each column, then compared)."""
+    keep = [j for j in range(X.shape[1]) if names[j] not in skip]
+    hashes = [hashlib.blake2b(digest_size=16) for _ in keep]
+    step = max(1, block_bytes // max(8 * len(keep), 1))
+    for s in range(0, X.shape[0], step):  # row blocks transposed: no copy of the whole design
+        part = np.ascontiguousarray(X[s:s + step, keep].T)
+        for h, row in zip(hashes, part):
+            h.update(row.tobytes())
     groups = defaultdict(list)
-    XT = np.ascontiguousarray(X.T)  # one copy; rows of XT are the columns of X
-    for j in range(X.shape[1]):
-        if names[j] in skip:
-            continue
-        groups[hashlib.blake2b(XT[j].tobytes(), digest_size=16).digest()].append(j)
+    for j, h in zip(keep, hashes):
+        groups[h.digest()].append(j)
     out = []
     for idx in groups.values():
         if len(idx) > 1:

@@ -13,7 +13,8 @@ import numpy as np
 
 __all__ = ["InputError", "as_design", "as_response", "as_lambdas", "as_count", "check_rows_for_cv",
            "available_memory", "check_memory", "check_response_range", "check_feature_range",
-           "check_response_bounds", "check_feature_bounds"]
+           "check_response_bounds", "check_feature_bounds", "all_finite",
+           "column_range"]
 
 _EPS = np.finfo(np.float64).eps
 _TINY = np.finfo(np.float64).tiny
@@ -66,7 +67,34 @@ def _one_line(exc) -> str:
     return " ".join(str(exc).split())[:160]
 
 
+def all_finite(arr: np.ndarray, block_bytes: int = 1 << 20) -> bool:
+    """Whether every entry of ``arr`` is finite, checked in row blocks of about
+    ``block_bytes`` (no mask the size of ``arr``, 1/8 of its bytes, is formed)."""
+    arr = np.asarray(arr)
+    if arr.ndim < 2:
+        return bool(np.isfinite(arr).all())
+    step = max(1, block_bytes // max(arr[:1].size, 1))
+    return all(np.isfinite(arr[s:s + step]).all() for s in range(0, arr.shape[0], step))
+
+
+def column_range(A: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Column minima and maxima ``(lo, hi)`` of a finite 2-D array.
+
+    ``fmin``/``fmax`` reductions: on finite data they equal ``min``/``max``
+    exactly, without the NaN checks that make those several times slower along
+    the rows of a tall array.
+
+    Examples
+    --------
+    >>> column_range(np.array([[1.0, -2.0], [3.0, 0.5]]))
+    (array([ 1., -2.]), array([3. , 0.5]))
+    """
+    return np.fmin.reduce(A, axis=0), np.fmax.reduce(A, axis=0)
+
+
 def _check_finite(arr: np.ndarray, what: str, names=None) -> None:
+    if all_finite(arr):
+        return
     bad = ~np.isfinite(arr)
     if bad.any():
         if arr.ndim == 2:
@@ -375,8 +403,9 @@ def check_feature_range(X: np.ndarray, *, standardize: bool, y_size: float = 1.0
     Without standardization the penalty acts on the squared singular values,
     of order :math:`n \\max|x|^2`, which must be normal numbers.
     """
-    check_feature_bounds(X.min(axis=0), X.max(axis=0), X.shape[0], standardize=standardize,
-                         y_size=y_size, names=names)
+    lo, hi = column_range(X)  # X is finite (validated first)
+    check_feature_bounds(lo, hi, X.shape[0], standardize=standardize, y_size=y_size,
+                         names=names)
 
 
 def check_feature_bounds(lo, hi, n: int, *, standardize: bool, y_size: float = 1.0,

@@ -173,24 +173,54 @@ def fit_bytes(path: RidgePath, *, reported, reported_rule: str = "given", **head
     ``reported`` is one penalty, or one per target.  Keyword arguments go to
     :func:`fit_header`.
     """
+    buf = io.BytesIO()
+    _write_fit(buf, path, reported=reported, reported_rule=reported_rule, **header_kw)
+    return buf.getvalue()
+
+
+def _write_fit(fh, path: RidgePath, *, reported, reported_rule: str, **header_kw) -> None:
+    """Write the ``fit.npz`` archive of ``path`` to the binary file ``fh``."""
     t = path.uty.shape[1]
     rep = np.broadcast_to(as_lambdas(reported), (t,)).astype(np.float64)
     header = fit_header(path, reported_rule=reported_rule, reported=rep, **header_kw)
     header["arrays"] = {k: [list(s), dt] for k, (s, dt) in _expected_shapes(header).items()}
     text = json.dumps(header, allow_nan=False, sort_keys=True).encode("utf-8")
     arrays = _arrays_of(path, rep)  # memory order kept (np.save writes Fortran order as such)
-    buf = io.BytesIO()
-    np.savez(buf, header=np.frombuffer(text, dtype=np.uint8), **arrays)
-    return buf.getvalue()
+    savez_streamed(fh, {"header": np.frombuffer(text, dtype=np.uint8), **arrays})
+
+
+def savez_streamed(fh, arrays: dict) -> None:
+    """``numpy.savez`` (stored, not compressed) without its copy of each array.
+
+    The same archive members, byte for byte (``.npy`` format 1.0 headers from
+    :mod:`numpy.lib.format`), but every array's memory is written as it is (a
+    contiguous array, or the transpose of a Fortran-ordered one) instead of in
+    16 MiB copies: the left factor of a tall design is as large as the data.
+    """
+    fmt = np.lib.format
+    with zipfile.ZipFile(fh, mode="w", compression=zipfile.ZIP_STORED, allowZip64=True) as zf:
+        for name, value in arrays.items():
+            arr = np.asanyarray(value)
+            if arr.dtype.hasobject:
+                raise ValueError(f"{name}: object arrays are not saved")
+            with zf.open(f"{name}.npy", "w", force_zip64=True) as out:
+                fmt.write_array_header_1_0(out, fmt.header_data_from_array_1_0(arr))
+                if arr.flags.c_contiguous:
+                    out.write(memoryview(arr).cast("B") if arr.size else b"")
+                elif arr.flags.f_contiguous:  # the header says Fortran order: write the memory
+                    out.write(memoryview(arr.T).cast("B") if arr.size else b"")
+                else:
+                    out.write(np.ascontiguousarray(arr).tobytes())
 
 
 def save_fit(dest, path: RidgePath, *, reported, reported_rule: str = "given",
              **header_kw) -> Path:
-    """Write ``fit.npz`` atomically (see :func:`fit_bytes`); returns the path written."""
-    from paths.data.output import write_bytes
+    """Write ``fit.npz`` atomically (see :func:`fit_bytes`), streamed to the file (the left
+    factor of a tall design is as large as the data); returns the path written."""
+    from paths.data.output import write_with
 
-    return write_bytes(dest, fit_bytes(path, reported=reported, reported_rule=reported_rule,
-                                       **header_kw))
+    return write_with(dest, lambda fh: _write_fit(fh, path, reported=reported,
+                                                  reported_rule=reported_rule, **header_kw))
 
 
 # ------------------------------------------------------------------------- reading

@@ -72,7 +72,7 @@ __all__ = [
 RULES = ("gcv", "loo", "cv", "one-se", "df", "fraction", "hkb", "lw", "isotropic", "reml")
 _XATOL = 1e-7  # tolerance of the refinement, in log(lambda)
 _N_EXTEND = 24  # grid extension: up to 12 decades beyond the edge, half a decade a step
-_SUBGRID, _SUBGRID_ROUNDS = 33, 3  # batched refinement (streamed leave-one-out)
+_SUBGRID, _SUBGRID_ROUNDS = 33, 3  # batched refinement (leave-one-out, K-fold)
 
 
 def parse_rule(spec: str) -> tuple[str, float | None]:
@@ -447,10 +447,25 @@ def _gcv_fun(path, j):
 
 
 def _loo_fun(path, j):
+    """Leave-one-out MSE at any penalties: one pass over the rows per call, however many
+    penalties (in memory O(n r k); a streamed path reads the file once)."""
+    state = getattr(path, "state", None)
+
     def f(lam):
         lam = np.atleast_1d(np.asarray(lam, dtype=float))
-        return _target_col(path.criteria_at(lam).loo_mse, j).reshape(lam.shape)
+        if state is not None and state.u is not None:
+            vals = algebra.loo_mse(state, lam.reshape(-1))[0]
+        else:
+            vals = path.criteria_at(lam.reshape(-1)).loo_mse
+        return _target_col(vals, j).reshape(lam.shape)
     return f
+
+
+def _loo_grid(path, j):
+    """Leave-one-out MSE on the path's own grid: the path's values when it holds them."""
+    if getattr(path, "loo_mse", None) is not None:
+        return _target_col(path.loo_mse, j)
+    return _loo_fun(path, j)(path.lambdas)
 
 
 def _cv_fun(cv, j):
@@ -846,7 +861,7 @@ def _select_one(path, cv, j, g, sigma2, noise, df_target, fraction_target):
     lams = _rule_lambdas(path, j, sigma2, df_target, fraction_target)
     streamed = getattr(path, "loo_at", None) is not None  # each new penalty: a pass
     loo_f = _loo_fun(path, j)
-    lo = _refine_minimum(loo_f, path.lambdas, loo_f(path.lambdas), batched=streamed)
+    lo = _refine_minimum(loo_f, path.lambdas, _loo_grid(path, j), batched=True)
     if streamed:  # one more pass for the estimates at every rule's penalty
         extra = [] if cv is not None else [v for v in lams.values() if v is not None]
         path.loo_at(np.array([lo["lam"], *extra]))
@@ -860,7 +875,7 @@ def _select_one(path, cv, j, g, sigma2, noise, df_target, fraction_target):
         out["cv"] = Selection("cv", None, target=j, note=none)
         out["one-se"] = Selection("one-se", None, target=j, note=none)
     else:
-        cm = _refine_minimum(_cv_fun(cv, j), cv.lambdas, _target_col(cv.mse, j))
+        cm = _refine_minimum(_cv_fun(cv, j), cv.lambdas, _target_col(cv.mse, j), batched=True)
         mse_min, se_min = cv.at(cm["lam"])
         mse_min, se_min = _col(mse_min, j), _col(se_min, j)
         reason = (f"{cv.n_folds}-fold {cv.scheme}" + (f" x {cv.repeats} repeats" if cv.repeats > 1

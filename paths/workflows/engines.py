@@ -225,14 +225,15 @@ def explore_engine(data: DataOptions, fit: FitOptions = FitOptions(),
                    figures: FigureOptions = FigureOptions(),
                    output: OutputOptions = OutputOptions(), *,
                    engine: EngineOptions = EngineOptions(engine="stream"),
-                   progress=None) -> ExploreRun:
+                   progress=None, extra: dict | None = None) -> ExploreRun:
     """The explore workflow on the ``stream`` or ``dask`` engine (see the module docstring).
 
     Every selection rule is refined between grid points on the engine's own
     path, as in memory (GCV from the factor state, K-fold at any penalty from
     the per-fold factors, leave-one-out at a new penalty by one more pass over
     the rows, counted in the data notes).  ``progress(stage, done, total)``
-    reports each pass.
+    reports each pass.  ``extra`` keys are added to ``summary.json`` (the note of an
+    ``engine_choice`` also to its data notes).
     """
     if engine.name not in ("stream", "dask"):
         raise InputError(f"engine must be one of {', '.join(ENGINES)}; got {engine.engine!r}")
@@ -257,8 +258,10 @@ def explore_engine(data: DataOptions, fit: FitOptions = FitOptions(),
         if loo_passes:
             hash_notes.append(f"{loo_passes} extra pass(es) over the rows for leave-one-out "
                               "between grid points (selection refinement and error estimates)")
-        summary = _engine_summary(result, data, fit, output, digests, hash_notes, cv_res,
-                                  selection)
+        note = (extra or {}).get("engine_choice", {}).get("note")
+        summary = _engine_summary(result, data, fit, output, digests,
+                                  hash_notes + ([note] if note else []), cv_res, selection)
+        summary.update(extra or {})
         files = _write_engine(result, summary, folder.stage, list(data.target), figures,
                               source=source_name(data.file), digests=digests, selection=selection,
                               progress=progress)

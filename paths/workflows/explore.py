@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import shlex
 import sys
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
@@ -82,11 +82,20 @@ def run_explore(data: DataOptions, fit: FitOptions = FitOptions(),
     ``progress(stage, done, total)`` hears every stage (:mod:`paths.workflows.stages`) and
     the out-of-memory engines' passes.
     """
+    from paths.workflows.choose_engine import choose_engine
+
     check_figures(figures)
-    if engine.name != "memory":
+    here = data
+    if engine.engine == "auto" and base_dir is not None:  # files as the streaming engine sees them
+        here = replace(data, **{k: Path(base_dir) / getattr(data, k)
+                                for k in ("file", "test_file") if getattr(data, k) is not None})
+    choice = choose_engine(here, fit, engine)
+    extra = {**(extra or {}), **choice.extra}
+    if choice.options.name != "memory":
         from paths.workflows.engines import explore_engine
 
-        return explore_engine(data, fit, figures, output, engine=engine, progress=progress)
+        return explore_engine(here, fit, figures, output, engine=choice.options,
+                              progress=progress, extra=extra)
     with stage(progress, READ):
         prepared = prepare(data, base_dir=base_dir)
     return explore_prepared(prepared, fit, figures, output, holdout=data.holdout, extra=extra,
@@ -134,7 +143,7 @@ def fit_and_select(prepared: Prepared, fit: FitOptions, *, holdout=None,
     from paths.core.path import fit_path
 
     data = train_test(prepared, holdout=holdout, seed=fit.seed)
-    frame = pd.DataFrame(data.X, columns=prepared.train.feature_names)
+    frame = pd.DataFrame(data.X, columns=prepared.train.feature_names, copy=False)  # a view
     with stage(progress, FACTOR):
         result = fit_path(frame, data.y, n_lambdas=fit.n_lambdas, standardize=fit.standardize,
                           solver=fit.solver, X_test=data.X_test, y_test=data.y_test,

@@ -141,9 +141,14 @@ class FitOptions:
 
 @dataclass(frozen=True)
 class EngineOptions:
-    """Where the path is computed (``[engine]``): in memory, streamed, or on a dask cluster."""
+    """Where the path is computed (``[engine]``): in memory, streamed, or on a dask cluster.
 
-    engine: str = "memory"
+    ``"auto"`` (the default) runs in memory unless the table would take more than a
+    stated share of the available memory, and then streams it
+    (:mod:`paths.workflows.choose_engine`); ``"memory"`` forces memory.
+    """
+
+    engine: str = "auto"
     scheduler: str | None = None
     scheduler_timeout: float = 10.0
     chunk_rows: int | None = None
@@ -153,9 +158,9 @@ class EngineOptions:
     @property
     def name(self) -> str:
         """The engine that runs: a scheduler implies dask, ``rank`` implies an out-of-memory one."""
-        if self.engine == "memory" and self.scheduler is not None:
+        if self.engine in ("memory", "auto") and self.scheduler is not None:
             return "dask"
-        if self.engine == "memory" and self.rank is not None:
+        if self.engine in ("memory", "auto") and self.rank is not None:
             return "stream"
         return self.engine
 
