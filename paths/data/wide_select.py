@@ -75,8 +75,9 @@ def _offenders(frames, block_columns: int):
     for s in range(0, len(names), block_columns):
         frame = frames.frame(names[s:s + block_columns])
         nums = [c for c, dt in zip(frame.columns, frame.dtypes) if is_numeric_dtype(dt)]
+        num_set = set(nums)
         for c in frame.columns:
-            if c not in set(nums):  # text, or no value at all (a null-typed column)
+            if c not in num_set:  # text, or no value at all (a null-typed column)
                 bad[c] = frame[c]
         if nums:
             X = numeric_block(frame, nums)
@@ -166,11 +167,17 @@ class SelectedColumns(ColumnSource):
         frame = self._frames.frame(cols)
         if self._sel.rows is not None:
             frame = frame.iloc[self._sel.rows]
+        enc = self._sel.encoding
+        nums = [c for c in cols if c not in enc]
+        num = numeric_block(frame, nums)  # one conversion for every numeric column
+        if len(nums) == len(cols):
+            return num
+        pos = {c: j for j, c in enumerate(nums)}
         parts = []
         for c in cols:
-            levels = self._sel.encoding.get(c)
+            levels = enc.get(c)
             if levels is None:
-                parts.append(numeric_block(frame, [c]))
+                parts.append(num[:, pos[c]:pos[c] + 1])
             elif len(levels) > 1:
                 vals = frame[c].astype(str).to_numpy()
                 parts.append(np.column_stack([(vals == lv).astype(np.float64)
