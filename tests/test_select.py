@@ -281,11 +281,16 @@ def test_loo_refined_minimum_against_brent_on_sklearn_loo(make_problem):
     lo, hi = lambdas[min(i + 1, 24)], lambdas[max(i - 1, 0)]
     ref = minimize_scalar(lambda t: loo(np.exp(t)), bounds=(np.log(lo), np.log(hi)),
                           method="bounded", options={"xatol": 1e-10})
-    # both are exact LOO on the same data, ours from the factors, sklearn's from its own
-    # eigendecomposition: relative agreement ~ n kappa^2 eps = 90 * 16 * 2.2e-16 ~ 3e-13 on
-    # this design (kappa ~ 4); 1e-10 is that bound times a modest constant
-    assert sel.est_mse <= ref.fun * (1 + 1e-10)
-    assert_allclose(loo(sel.lam), sel.est_mse, rtol=1e-10)
+    # bound: both are exact LOO on the same data, ours from the factors, sklearn's from its
+    # own eigendecomposition: ridge_bounds(...).loo covers both solvers (Wedin, leverage form)
+    b = ridge_bounds(X, y, sel.lam)
+    assert_allclose(loo(sel.lam), sel.est_mse, rtol=b.loo)
+    # bound: our search ends within h = 1.2e-4 of a minimum in log lambda (below), so its
+    # value exceeds Brent's by at most c h^2 / 2, c the curvature from a central difference
+    # (step 0.05, doubled for the difference's own error), plus both rounding bounds
+    x, step = ref.x, 0.05
+    curv = abs(loo(np.exp(x + step)) - 2 * ref.fun + loo(np.exp(x - step))) / step**2
+    assert sel.est_mse <= ref.fun * (1 + 2 * b.loo) + curv * 1.2e-4**2
     # the batched search (rules._subgrid_minimum) ends within +-h of its last sub-grid
     # minimum, h = (two grid steps, 2 ln(10^5) / 24 = 0.96 in log lambda) / 32 / 16 / 16
     # = 1.2e-4: lambda within 1e-3 (the flat criterion's rounding limit is far below)
