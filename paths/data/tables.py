@@ -1122,6 +1122,325 @@ def _missing_mask(s: pd.Series) -> np.ndarray:
     return s.isna().to_numpy()
 
 
+@dataclass(frozen=True)
+class _SelectFrame:
+    """A table as :func:`select` reads it: a bare frame with string column names, plus what the
+    reader left in its attributes."""
+    df: pd.DataFrame
+    source: str
+    where: str  # message prefix ("file: " or "")
+    lines: object  # the file line of each row, or None
+    nested: dict  # nested-type column -> its type
+    notes: tuple  # the reader's notes
+
+
+@dataclass(frozen=True)
+class _Columns:
+    """The columns :func:`select` uses, in order."""
+    targets: list
+    features: list
+    id_column: str | None
+
+
+@dataclass(frozen=True)
+class _Rows:
+    """What the missing values leave: the kept rows and feature columns, and what was dropped."""
+    keep: np.ndarray  # boolean, one per row
+    features: list
+    categorical: list
+    dropped_rows: list
+    dropped_columns: list
+    notes: tuple
+
+
+@dataclass(frozen=True)
+class _Design:
+    """The design matrix built from the kept rows, with its column names."""
+    X: np.ndarray
+    names: list
+    encoding: dict  # categorical column -> its sorted levels
+    notes: tuple
+
+
+@dataclass(frozen=True)
+class _DesignNotes:
+    """Constant and exactly duplicated design columns, and the notes about them."""
+    constant: list
+    duplicates: list
+    notes: tuple
+
+
+def _select_frame(df, source: str) -> _SelectFrame:
+    """The table as a bare frame (no attrs) with string column names, and its reader attrs."""
+    df = as_frame(df)
+    attrs = dict(df.attrs)
+    if attrs:  # pandas deep-copies attrs on every column access: work on a bare view
+        df = df.copy(deep=False)
+        df.attrs = {}
+    source = source or attrs.get("paths_source", "")
+    df = df.rename(columns=str) if any(not isinstance(c, str) for c in df.columns) else df
+    return _SelectFrame(df=df, source=source, where=f"{source}: " if source else "",
+                        lines=attrs.get("paths_lines"),
+                        nested=dict(attrs.get("paths_nested") or {}),
+                        notes=tuple(attrs.get("paths_notes") or []))
+
+
+def _select_options(encode, drop_missing):
+    """The ``encode`` option normalised ("none" and "" mean None); both options checked."""
+    if encode in ("none", ""):
+        encode = None
+    if encode not in (None, "onehot"):
+        raise InputError(f"encode must be 'onehot' or None; got {encode!r}")
+    if drop_missing not in (None, "rows", "columns"):
+        raise InputError(f"drop_missing must be 'rows', 'columns' or None; got {drop_missing!r}")
+    return encode
+
+
+def _choose_targets(target, id_column, all_columns, where: str) -> list:
+    """The target column names, checked to exist, be distinct and differ from the id column."""
+    targets = _split_list(target, all_columns) or []
+    if not targets:
+        raise InputError(f"{where}no target given; pass target=COLUMN")
+    for t in targets:
+        if t not in all_columns:
+            close = difflib.get_close_matches(t, all_columns, n=3)
+            hint = f" (close: {_names(close)})" if close else ""
+            raise _fail(where, f"target column {t!r} not found{hint}; columns are: "
+                               f"{_names(all_columns, 8)}")
+    if len(set(targets)) != len(targets):
+        raise _fail(where, "a target column is given twice; pass each target= once")
+    if id_column is not None:
+        if id_column not in all_columns:
+            raise _fail(where, f"id_column= column {id_column!r} not found; columns are: "
+                               f"{_names(all_columns, 8)}")
+        if id_column in targets:
+            raise _fail(where, f"column {id_column!r} is both the id_column= and a target=; "
+                               "choose one")
+    return targets
+
+
+def _choose_features(features, exclude, reserved: set, all_columns, where: str) -> list:
+    """Feature columns from the ``features=`` and ``exclude=`` names or patterns."""
+    if features is None:
+        feats = [c for c in all_columns if c not in reserved]
+    else:
+        feats = _expand(_split_list(features, all_columns), all_columns, "features= pattern",
+                        where)
+        named = [f for f in feats if f in reserved]
+        explicit = [f for f in named if f in _split_list(features, all_columns)]
+        if explicit:
+            raise _fail(where, f"column {explicit[0]!r} is given as a feature and as the "
+                               "target or id_column=; remove it from features=")
+        feats = [f for f in feats if f not in reserved]
+    if exclude:
+        gone = _expand(_split_list(exclude, all_columns), all_columns, "exclude= pattern", where)
+        feats = [f for f in feats if f not in gone]
+    if not feats:
+        raise _fail(where, "no feature columns left (p = 0) after the target, id_column=, features= "
+                           "and exclude=; keep at least one feature column")
+    return feats
+
+
+def _choose_columns(frame: _SelectFrame, target, features, exclude, id_column) -> _Columns:
+    """The target, feature and identifier columns; nested-type columns among them refused."""
+    where, nested = frame.where, frame.nested
+    all_columns = [str(c) for c in frame.df.columns] + list(nested)
+    targets = _choose_targets(target, id_column, all_columns, where)
+    reserved = set(targets) | ({id_column} if id_column else set())
+    feats = _choose_features(features, exclude, reserved, all_columns, where)
+    for c in targets + feats + ([id_column] if id_column else []):
+        if c in nested:
+            raise _fail(where, f"column {c!r} has the nested type {nested[c]}; flatten it "
+                               f"into scalar columns or leave it out (exclude={c})")
+    return _Columns(targets=targets, features=feats, id_column=id_column)
+
+
+def _refuse_text_targets(frame: _SelectFrame, targets) -> None:
+    """One-line error for the first target column that holds something other than numbers."""
+    for t in targets:
+        s = frame.df[t]
+        if not _is_numeric(s) and not s.isna().all():
+            i = _first_non_number(s)
+            raise _fail(frame.where, f"target column {t!r} is not numeric (e.g. "
+                                     f"{str(s.iloc[i])!r} on {_row_label(frame.lines, i)}); "
+                                     "choose a numeric target or recode it as numbers")
+
+
+def _categorical_features(frame: _SelectFrame, feats, encode) -> list:
+    """The categorical (text) feature columns; dates, times and complex numbers refused, and
+    categorical columns refused unless ``encode="onehot"``."""
+    df, where = frame.df, frame.where
+    categorical, dates = [], []
+    dtypes = dict(zip([str(c) for c in df.columns], df.dtypes))
+    for c in feats:
+        if _is_numeric_dtype(dtypes[c]):
+            continue
+        s = df[c]
+        if s.isna().all():
+            continue
+        if pd.api.types.is_datetime64_any_dtype(s) or pd.api.types.is_timedelta64_dtype(s):
+            dates.append(c)
+        elif pd.api.types.is_complex_dtype(s):
+            raise _fail(where, f"column {c!r} holds complex numbers; split it into real and "
+                               "imaginary columns")
+        else:
+            categorical.append(c)
+    if dates:
+        raise _fail(where, f"column(s) {_names(dates)} hold dates or times; convert them to "
+                           "numbers (e.g. days since a start) or exclude= them")
+    if categorical and encode != "onehot":
+        raise _fail(where, f"non-numeric (categorical) feature column(s): {_names(categorical)}; "
+                           "pass encode='onehot' to one-hot encode them, or exclude= them")
+    return categorical
+
+
+def _missing_detail(cols, counts: dict, first: dict, lines) -> str:
+    """``'a' (3, first on line 7), ...`` for the first columns with missing values."""
+    return ", ".join(
+        f"{c!r} ({counts[c]}, first on {_row_label(lines, first[c])})"
+        for c in cols[:_SHOW]) + (f" and {len(cols) - _SHOW} more" if len(cols) > _SHOW
+                                   else "")
+
+
+def _drop_missing_columns(n0: int, targets, feats, categorical, counts: dict,
+                          where: str) -> _Rows:
+    """Drop the feature columns with a missing value (``drop_missing="columns"``)."""
+    bad_t = [t for t in targets if t in counts]
+    if bad_t:
+        raise _fail(where, f"target column {bad_t[0]!r} has {counts[bad_t[0]]} missing "
+                           "value(s); a target cannot be dropped: use "
+                           "drop_missing='rows'")
+    dropped_cols = [c for c in feats if c in counts]
+    feats = [c for c in feats if c not in counts]
+    note = (f"dropped {len(dropped_cols)} column(s) with missing values: "
+            + ", ".join(f"{c!r} ({counts[c]})" for c in dropped_cols))
+    if not feats:
+        raise _fail(where, "every feature column has missing values: none is left (p = 0) "
+                           "after drop_missing='columns'; impute them or use "
+                           "drop_missing='rows'")
+    return _Rows(keep=np.ones(n0, dtype=bool), features=feats,
+                 categorical=[c for c in categorical if c in feats],
+                 dropped_rows=[], dropped_columns=dropped_cols, notes=(note,))
+
+
+def _drop_missing_rows(M: np.ndarray, feats, categorical, lines, where: str) -> _Rows:
+    """Drop the rows with a missing value in a used column (``drop_missing="rows"``)."""
+    n0 = M.shape[0]
+    keep = ~M.any(axis=1)
+    gone = np.flatnonzero(~keep)
+    dropped_rows = [int(lines[i]) if lines is not None else int(i + 1) for i in gone]
+    word = "line" if lines is not None else "row"
+    shown = ", ".join(map(str, dropped_rows[:10])) + (" ..." if len(gone) > 10 else "")
+    note = f"dropped {gone.size} of {n0} row(s) with missing values ({word}s {shown})"
+    if not keep.any():
+        raise _fail(where, f"every row has a missing value in the used columns; "
+                           f"nothing is left after drop_missing='rows'; try "
+                           "drop_missing='columns'")
+    return _Rows(keep=keep, features=feats, categorical=categorical, dropped_rows=dropped_rows,
+                 dropped_columns=[], notes=(note,))
+
+
+def _handle_missing(frame: _SelectFrame, targets, feats, categorical, drop_missing) -> _Rows:
+    """Missing values in the used columns: refused (with a count per column) or dropped."""
+    df, where, lines = frame.df, frame.where, frame.lines
+    n0 = df.shape[0]
+    used = targets + feats
+    M = _missing_block(df, used)
+    n_miss = M.sum(axis=0)
+    all_missing = [c for c, k in zip(used, n_miss) if k == n0]
+    for t in targets:
+        if n_miss[used.index(t)] == n0:
+            raise _fail(where, f"target column {t!r} is entirely missing; choose another target")
+    if all_missing and drop_missing != "columns":  # "columns" drops them below
+        raise _fail(where, f"column(s) {_names(all_missing)} are entirely missing (all {n0} "
+                           "values); exclude= them or pass drop_missing='columns'")
+    counts = {used[j]: int(n_miss[j]) for j in np.flatnonzero(n_miss)}
+    if not counts:
+        return _Rows(keep=np.ones(n0, dtype=bool), features=feats, categorical=categorical,
+                     dropped_rows=[], dropped_columns=[], notes=())
+    if drop_missing is None:
+        cols = list(counts)
+        first = {c: int(np.argmax(M[:, used.index(c)])) for c in cols[:_SHOW]}
+        raise _fail(where, f"missing values in {len(cols)} column(s): "
+                           f"{_missing_detail(cols, counts, first, lines)}; "
+                           "remove or impute them, or pass drop_missing=rows|columns")
+    if drop_missing == "columns":
+        return _drop_missing_columns(n0, targets, feats, categorical, counts, where)
+    return _drop_missing_rows(M, feats, categorical, lines, where)
+
+
+def _one_hot(c: str, s: pd.Series) -> tuple:
+    """0/1 columns ``c=LEVEL`` of a categorical column (reference level dropped): returns
+    ``(columns, names, levels, note)``."""
+    vals = s.astype(str).to_numpy()
+    levels = sorted(set(vals.tolist()))
+    if len(levels) == 1:
+        return [], [], levels, (f"categorical column {c!r} has the single level "
+                                f"{levels[0]!r}: no column (constant)")
+    cols = [(vals == lvl).astype(np.float64) for lvl in levels[1:]]
+    names = [f"{c}={lvl}" for lvl in levels[1:]]
+    note = (f"one-hot encoded {c!r} ({len(levels)} levels): reference level "
+            f"{levels[0]!r} dropped, columns " + ", ".join(
+                repr(f"{c}={lv}") for lv in levels[1:4])
+            + (" ..." if len(levels) > 4 else ""))
+    return cols, names, levels, note
+
+
+def _build_design(sub: pd.DataFrame, feats, categorical, where: str) -> _Design:
+    """The design matrix: numeric features as floats, categorical ones one-hot encoded."""
+    blocks, names, encoding, notes = [], [], {}, []
+    numeric = [c for c in feats if c not in categorical]
+    num_block = _float_block(sub, numeric)
+    num_at = {c: j for j, c in enumerate(numeric)}
+    for c in feats:
+        if c in num_at:
+            blocks.append(num_block[:, num_at[c]])
+            names.append(c)
+        elif c in categorical:
+            cols, cnames, encoding[c], note = _one_hot(c, sub[c])
+            blocks.extend(cols)
+            names.extend(cnames)
+            notes.append(note)
+    if len(set(names)) != len(names):
+        dup = next(nm for nm in names if names.count(nm) > 1)
+        raise _fail(where, f"one-hot column {dup!r} clashes with an existing column name; "
+                           "rename that column")
+    if not blocks:
+        raise _fail(where, "no feature columns left (p = 0): every feature is a single-level "
+                           "categorical; keep at least one varying feature")
+    if not categorical:
+        X = np.ascontiguousarray(num_block)
+    else:
+        X = np.ascontiguousarray(np.column_stack(blocks), dtype=np.float64)
+    return _Design(X=X, names=names, encoding=encoding, notes=tuple(notes))
+
+
+def _check_values(design: _Design, Y: np.ndarray, targets, sub_lines, where: str) -> None:
+    """Refuse infinite feature or target values and a constant target."""
+    _refuse_infinite(where, sub_lines, (design.X, design.names, "feature"),
+                     (Y, targets, "target"))
+    for j, t in enumerate(targets):
+        if Y[:, j].max() == Y[:, j].min():
+            raise _fail(where, f"target column {t!r} is constant (every value {Y[0, j]:g}); "
+                               "there is nothing to fit: choose another target")
+
+
+def _design_notes(X: np.ndarray, names) -> _DesignNotes:
+    """Constant design columns (left out of the fit) and groups of exact duplicates."""
+    notes = []
+    x_lo, x_hi = column_range(X)  # finite: infinite values were refused before
+    constant = [names[j] for j in np.flatnonzero(x_hi == x_lo)]
+    if constant:
+        notes.append(f"constant column(s) {_names(constant)}: left out of the fit "
+                     "(coefficient 0)")
+    duplicates = _duplicate_groups(X, names, skip=set(constant))
+    if duplicates:
+        notes.append("exact duplicate columns (kept; ridge shares the weight between copies): "
+                     + "; ".join(" = ".join(map(repr, g)) for g in duplicates[:_SHOW])
+                     + (" ..." if len(duplicates) > _SHOW else ""))
+    return _DesignNotes(constant=constant, duplicates=duplicates, notes=tuple(notes))
+
+
 def select(df, target, *, features=None, exclude=None, id_column=None, encode=None,
            drop_missing=None, source: str = "", min_rows: int = 2) -> Dataset:
     """Split a table into the response column(s) and the numeric design.
@@ -1163,228 +1482,39 @@ def select(df, target, *, features=None, exclude=None, id_column=None, encode=No
         categorical features without ``encode``, missing or infinite values,
         all-missing columns, too few rows, a constant target.
     """
-    df = as_frame(df)
-    attrs = dict(df.attrs)
-    if attrs:  # pandas deep-copies attrs on every column access: work on a bare view
-        df = df.copy(deep=False)
-        df.attrs = {}
-    source = source or attrs.get("paths_source", "")
-    where = f"{source}: " if source else ""
-    lines = attrs.get("paths_lines")
-    nested = dict(attrs.get("paths_nested") or {})
-    notes = list(attrs.get("paths_notes") or [])
-    if encode in ("none", ""):
-        encode = None
-    if encode not in (None, "onehot"):
-        raise InputError(f"encode must be 'onehot' or None; got {encode!r}")
-    if drop_missing not in (None, "rows", "columns"):
-        raise InputError(f"drop_missing must be 'rows', 'columns' or None; got {drop_missing!r}")
-    df = df.rename(columns=str) if any(not isinstance(c, str) for c in df.columns) else df
-    columns = [str(c) for c in df.columns]
-    all_columns = columns + list(nested)
-
-    targets = _split_list(target, all_columns) or []
-    if not targets:
-        raise InputError(f"{where}no target given; pass target=COLUMN")
-    for t in targets:
-        if t not in all_columns:
-            close = difflib.get_close_matches(t, all_columns, n=3)
-            hint = f" (close: {_names(close)})" if close else ""
-            raise _fail(where, f"target column {t!r} not found{hint}; columns are: "
-                               f"{_names(all_columns, 8)}")
-    if len(set(targets)) != len(targets):
-        raise _fail(where, "a target column is given twice; pass each target= once")
-    if id_column is not None:
-        if id_column not in all_columns:
-            raise _fail(where, f"id_column= column {id_column!r} not found; columns are: "
-                               f"{_names(all_columns, 8)}")
-        if id_column in targets:
-            raise _fail(where, f"column {id_column!r} is both the id_column= and a target=; "
-                               "choose one")
-    reserved = set(targets) | ({id_column} if id_column else set())
-    if features is None:
-        feats = [c for c in all_columns if c not in reserved]
-    else:
-        feats = _expand(_split_list(features, all_columns), all_columns, "features= pattern",
-                        where)
-        named = [f for f in feats if f in reserved]
-        explicit = [f for f in named if f in _split_list(features, all_columns)]
-        if explicit:
-            raise _fail(where, f"column {explicit[0]!r} is given as a feature and as the "
-                               "target or id_column=; remove it from features=")
-        feats = [f for f in feats if f not in reserved]
-    if exclude:
-        gone = _expand(_split_list(exclude, all_columns), all_columns, "exclude= pattern", where)
-        feats = [f for f in feats if f not in gone]
-    if not feats:
-        raise _fail(where, "no feature columns left (p = 0) after the target, id_column=, features= "
-                           "and exclude=; keep at least one feature column")
-    for c in targets + feats + ([id_column] if id_column else []):
-        if c in nested:
-            raise _fail(where, f"column {c!r} has the nested type {nested[c]}; flatten it "
-                               f"into scalar columns or leave it out (exclude={c})")
-
-    # ---- types
-    for t in targets:
-        s = df[t]
-        if not _is_numeric(s) and not s.isna().all():
-            i = _first_non_number(s)
-            raise _fail(where, f"target column {t!r} is not numeric (e.g. {str(s.iloc[i])!r} "
-                               f"on {_row_label(lines, i)}); choose a numeric target or "
-                               "recode it as numbers")
-    categorical, dates = [], []
-    dtypes = dict(zip(columns, df.dtypes))
-    for c in feats:
-        if _is_numeric_dtype(dtypes[c]):
-            continue
-        s = df[c]
-        if s.isna().all():
-            continue
-        if pd.api.types.is_datetime64_any_dtype(s) or pd.api.types.is_timedelta64_dtype(s):
-            dates.append(c)
-        elif pd.api.types.is_complex_dtype(s):
-            raise _fail(where, f"column {c!r} holds complex numbers; split it into real and "
-                               "imaginary columns")
-        else:
-            categorical.append(c)
-    if dates:
-        raise _fail(where, f"column(s) {_names(dates)} hold dates or times; convert them to "
-                           "numbers (e.g. days since a start) or exclude= them")
-    if categorical and encode != "onehot":
-        raise _fail(where, f"non-numeric (categorical) feature column(s): {_names(categorical)}; "
-                           "pass encode='onehot' to one-hot encode them, or exclude= them")
-
-    # ---- missing values
-    n0 = df.shape[0]
-    used = targets + feats
-    M = _missing_block(df, used)
-    miss = {c: M[:, j] for j, c in enumerate(used)}
-    n_miss = M.sum(axis=0)
-    all_missing = [c for c, k in zip(used, n_miss) if k == n0]
-    dropped_cols = []
-    for t in targets:
-        if n_miss[used.index(t)] == n0:
-            raise _fail(where, f"target column {t!r} is entirely missing; choose another target")
-    if all_missing:
-        if drop_missing == "columns":
-            pass  # dropped below with the other incomplete columns
-        else:
-            raise _fail(where, f"column(s) {_names(all_missing)} are entirely missing (all {n0} "
-                               "values); exclude= them or pass drop_missing='columns'")
-    counts = {used[j]: int(n_miss[j]) for j in np.flatnonzero(n_miss)}
-    keep = np.ones(n0, dtype=bool)
-    dropped_rows = []
-    if counts:
-        def detail(cols):
-            return ", ".join(
-                f"{c!r} ({counts[c]}, first on {_row_label(lines, int(np.argmax(miss[c])))})"
-                for c in cols[:_SHOW]) + (f" and {len(cols) - _SHOW} more" if len(cols) > _SHOW
-                                           else "")
-        cols = list(counts)
-        if drop_missing is None:
-            raise _fail(where, f"missing values in {len(cols)} column(s): {detail(cols)}; "
-                               "remove or impute them, or pass drop_missing=rows|columns")
-        if drop_missing == "columns":
-            bad_t = [t for t in targets if t in counts]
-            if bad_t:
-                raise _fail(where, f"target column {bad_t[0]!r} has {counts[bad_t[0]]} missing "
-                                   "value(s); a target cannot be dropped: use "
-                                   "drop_missing='rows'")
-            dropped_cols = [c for c in feats if c in counts]
-            feats = [c for c in feats if c not in counts]
-            notes.append(f"dropped {len(dropped_cols)} column(s) with missing values: "
-                         + ", ".join(f"{c!r} ({counts[c]})" for c in dropped_cols))
-            categorical = [c for c in categorical if c in feats]
-            if not feats:
-                raise _fail(where, "every feature column has missing values: none is left (p = 0) "
-                                   "after drop_missing='columns'; impute them or use "
-                                   "drop_missing='rows'")
-        else:
-            keep = ~M.any(axis=1)
-            gone = np.flatnonzero(~keep)
-            dropped_rows = [int(lines[i]) if lines is not None else int(i + 1) for i in gone]
-            word = "line" if lines is not None else "row"
-            shown = ", ".join(map(str, dropped_rows[:10])) + (" ..." if len(gone) > 10 else "")
-            notes.append(f"dropped {gone.size} of {n0} row(s) with missing values ({word}s "
-                         f"{shown})")
-            if not keep.any():
-                raise _fail(where, f"every row has a missing value in the used columns; "
-                                   f"nothing is left after drop_missing='rows'; try "
-                                   "drop_missing='columns'")
-    sub = df if keep.all() else df.loc[keep]
-    sub_lines = None if lines is None else np.asarray(lines)[keep]
+    frame = _select_frame(df, source)
+    encode = _select_options(encode, drop_missing)
+    chosen = _choose_columns(frame, target, features, exclude, id_column)
+    targets = chosen.targets
+    _refuse_text_targets(frame, targets)
+    categorical = _categorical_features(frame, chosen.features, encode)
+    rows = _handle_missing(frame, targets, chosen.features, categorical, drop_missing)
+    keep, feats = rows.keep, rows.features
+    sub = frame.df if keep.all() else frame.df.loc[keep]
+    sub_lines = None if frame.lines is None else np.asarray(frame.lines)[keep]
     n = sub.shape[0]
     if n < min_rows:
-        after = " after dropping rows with missing values" if dropped_rows else ""
-        raise _fail(where, f"{n} data row{'s' if n != 1 else ''}{after}; at least {min_rows} "
-                           "are needed to fit an intercept and a slope; add rows")
-
-    # ---- build the design
-    blocks, names, encoding = [], [], {}
-    numeric = [c for c in feats if c not in categorical]
-    num_block = _float_block(sub, numeric)
-    num_at = {c: j for j, c in enumerate(numeric)}
-    for c in feats:
-        if c in num_at:
-            blocks.append(num_block[:, num_at[c]])
-            names.append(c)
-            continue
-        s = sub[c]
-        if c in categorical:
-            vals = s.astype(str).to_numpy()
-            levels = sorted(set(vals.tolist()))
-            encoding[c] = levels
-            if len(levels) == 1:
-                notes.append(f"categorical column {c!r} has the single level {levels[0]!r}: "
-                             "no column (constant)")
-                continue
-            for lvl in levels[1:]:
-                blocks.append((vals == lvl).astype(np.float64))
-                names.append(f"{c}={lvl}")
-            notes.append(f"one-hot encoded {c!r} ({len(levels)} levels): reference level "
-                         f"{levels[0]!r} dropped, columns " + ", ".join(
-                             repr(f"{c}={lv}") for lv in levels[1:4])
-                         + (" ..." if len(levels) > 4 else ""))
-    if len(set(names)) != len(names):
-        dup = next(nm for nm in names if names.count(nm) > 1)
-        raise _fail(where, f"one-hot column {dup!r} clashes with an existing column name; "
-                           "rename that column")
-    if not blocks:
-        raise _fail(where, "no feature columns left (p = 0): every feature is a single-level "
-                           "categorical; keep at least one varying feature")
-    if not categorical:
-        X = np.ascontiguousarray(num_block)
-    else:
-        X = np.ascontiguousarray(np.column_stack(blocks), dtype=np.float64)
+        after = " after dropping rows with missing values" if rows.dropped_rows else ""
+        raise _fail(frame.where, f"{n} data row{'s' if n != 1 else ''}{after}; at least "
+                                 f"{min_rows} are needed to fit an intercept and a slope; "
+                                 "add rows")
+    design = _build_design(sub, feats, rows.categorical, frame.where)
     Y = _float_block(sub, targets)
-    _refuse_infinite(where, sub_lines, (X, names, "feature"), (Y, targets, "target"))
-    for j, t in enumerate(targets):
-        if Y[:, j].max() == Y[:, j].min():
-            raise _fail(where, f"target column {t!r} is constant (every value {Y[0, j]:g}); "
-                               "there is nothing to fit: choose another target")
-
-    x_lo, x_hi = column_range(X)  # finite: infinite values were refused above
-    constant = [names[j] for j in np.flatnonzero(x_hi == x_lo)]
-    if constant:
-        notes.append(f"constant column(s) {_names(constant)}: left out of the fit "
-                     "(coefficient 0)")
-    duplicates = _duplicate_groups(X, names, skip=set(constant))
-    if duplicates:
-        notes.append("exact duplicate columns (kept; ridge shares the weight between copies): "
-                     + "; ".join(" = ".join(map(repr, g)) for g in duplicates[:_SHOW])
-                     + (" ..." if len(duplicates) > _SHOW else ""))
+    _check_values(design, Y, targets, sub_lines, frame.where)
+    checked = _design_notes(design.X, design.names)
+    notes = list(frame.notes) + list(rows.notes) + list(design.notes) + list(checked.notes)
     ids = None
     if id_column is not None:
         ids = sub[id_column].to_numpy()
         if len(pd.unique(ids)) != n:
             notes.append(f"identifier column {id_column!r} has repeated values")
-    y = Y[:, 0] if len(targets) == 1 else Y
     return Dataset(
-        X=X, y=y, feature_names=names, target_names=list(targets), source=source, notes=notes,
-        ids=ids, id_column=id_column, source_columns=list(feats), encoding=encoding,
-        dropped_rows=dropped_rows, dropped_columns=dropped_cols, constant_columns=constant,
-        duplicate_columns=duplicates, drop_missing=drop_missing,
-        rows=None if keep.all() else np.flatnonzero(keep),
+        X=design.X, y=Y[:, 0] if len(targets) == 1 else Y, feature_names=design.names,
+        target_names=list(targets), source=frame.source, notes=notes, ids=ids,
+        id_column=id_column, source_columns=list(feats), encoding=design.encoding,
+        dropped_rows=rows.dropped_rows, dropped_columns=rows.dropped_columns,
+        constant_columns=checked.constant, duplicate_columns=checked.duplicates,
+        drop_missing=drop_missing, rows=None if keep.all() else np.flatnonzero(keep),
     )
 
 
