@@ -5,8 +5,17 @@ here).
 """
 from __future__ import annotations
 
+import os
+
 import numpy as np
 import pytest
+from hypothesis import settings
+
+# Property tests draw the same examples on every run (derandomized), so that a CI run is
+# reproducible; HYPOTHESIS_PROFILE=explore draws fresh ones to search for failures.
+settings.register_profile("repeatable", derandomize=True)
+settings.register_profile("explore", derandomize=False)
+settings.load_profile(os.environ.get("HYPOTHESIS_PROFILE", "repeatable"))
 
 def _gaussian_problem(n, p, *, seed=0, t=None, noise=0.5, shift=3.0, spread=True):
     """Synthetic regression problem: Gaussian design with non-zero means and

@@ -34,7 +34,7 @@ with :math:`m = n' - 1` the rows of the centered design.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Callable
 
 import numpy as np
@@ -683,6 +683,119 @@ def threshold_sweep(
     the intercept's error :math:`\\bar\\varepsilon - \\bar x^T(\\hat\\beta - \\beta)`
     adds :math:`(\\sigma^2 + \\text{excess})/n'`.
     """
+    data = _validated_inputs(X, y, X_test, y_test, over=over, order=order, band=band,
+                             repeats=repeats, n_points=n_points, random_features=random_features,
+                             ridge_lambda=ridge_lambda, ridge_df_fraction=ridge_df_fraction)
+    rng = np.random.default_rng(seed)
+    if random_features is None:
+        data = _without_constant_columns(data, fit_intercept)
+    p_total = int(random_features) if random_features is not None else data.X.shape[1]
+    spec = _SweepSpec(over=over, order=order, fit_intercept=fit_intercept,
+                      standardize=standardize, solver=solver, ridge_lambda=ridge_lambda,
+                      ridge_df_fraction=ridge_df_fraction, random_features=random_features,
+                      variances=variances, on_point=on_point)
+    grid = _sweep_grid(spec, sizes, n=data.n, p_total=p_total, n_points=n_points)
+    P = grid.n_features.size
+    tally = _Tally(vals=np.full((data.repeats, P, len(METHODS), 7), np.nan),
+                   total=data.repeats * P, progress=progress)
+    for rep in range(data.repeats):
+        if random_features is not None:
+            fmap = random_feature_map(data.X, int(random_features), kind=feature_map, seed=rng)
+            F, Ft = fmap.transform(data.X), fmap.transform(data.X_test)
+        else:
+            F, Ft = data.X, data.X_test
+        # one column (or row) reordering per repeat
+        if over == "features":
+            _sweep_features(rep, F, Ft, data, grid, spec, rng, tally)
+        else:
+            _sweep_samples(rep, F, Ft, data, grid, spec, rng, tally)
+    return _sweep_result(data, grid, spec, tally, p_total=p_total, feature_map=feature_map,
+                         band=band, seed=seed, variance_source=variance_source)
+
+
+@dataclass(frozen=True)
+class _SweepData:
+    """The validated training and test rows of a sweep (and notes on what was left out)."""
+
+    X: np.ndarray
+    y: np.ndarray
+    X_test: np.ndarray
+    y_test: np.ndarray
+    repeats: int
+    notes: tuple = ()
+
+    @property
+    def n(self) -> int:
+        return self.X.shape[0]
+
+
+@dataclass(frozen=True)
+class _SweepSpec:
+    """The options every sweep point is fitted with."""
+
+    over: str
+    order: str
+    fit_intercept: bool
+    standardize: bool
+    solver: str
+    ridge_lambda: float | None
+    ridge_df_fraction: float | None
+    random_features: int | None
+    variances: VarianceEstimate | None
+    on_point: Callable[[PointFit], None] | None
+
+    @property
+    def intercept(self) -> int:
+        return 1 if self.fit_intercept else 0
+
+    def fixed_penalty(self, scale: float) -> float | None:
+        """Penalty of ``ridge_fixed`` (None: chosen per point from the df fraction)."""
+        if self.ridge_lambda is not None:
+            return self.ridge_lambda
+        return None if self.ridge_df_fraction is not None else 0.1 * scale
+
+
+@dataclass(frozen=True)
+class _SweepGrid:
+    """Features :math:`p'` and training rows :math:`n'` of each point."""
+
+    n_features: np.ndarray
+    n_rows: np.ndarray
+
+
+@dataclass(frozen=True)
+class _NestedDesign:
+    """A repeat's reordered, centered and scaled design whose leading columns nest."""
+
+    design: Design
+    z: np.ndarray
+    zy: np.ndarray
+    test_std: np.ndarray
+    yt_c: np.ndarray
+
+
+@dataclass
+class _Tally:
+    """What the sweep loop accumulates: the values, the progress count, full-design facts."""
+
+    vals: np.ndarray
+    total: int
+    progress: Callable[[str, int, int], None] | None
+    done: int = 0
+    spectrum: np.ndarray | None = None
+    spec_gamma: float = float("nan")
+    est: VarianceEstimate | None = None
+
+    def tick(self) -> None:
+        """Count one point done and report it."""
+        self.done += 1
+        if self.progress is not None:
+            self.progress("sweep", self.done, self.total)
+
+
+def _validated_inputs(X, y, X_test, y_test, *, over, order, band, repeats, n_points,
+                      random_features, ridge_lambda, ridge_df_fraction) -> _SweepData:
+    """Check the rows and options of :func:`threshold_sweep` (one-line InputErrors)."""
     _check_choice("over", over, OVERS)
     _check_choice("order", order, ORDERS)
     _check_choice("band", band, BANDS)
@@ -733,28 +846,33 @@ def threshold_sweep(
                          "use --order random or --repeats 1")
     if np.ptp(yv) == 0:
         raise InputError("y is constant on the training rows; there is nothing to fit")
+    return _SweepData(X=X, y=yv, X_test=Xt, y_test=yt, repeats=repeats)
 
-    rng = np.random.default_rng(seed)
-    intercept = 1 if fit_intercept else 0
-    notes: list = []
-    if random_features is None:
-        sd = X.std(axis=0)
-        keep = sd > n * _EPS * np.max(np.abs(X), axis=0)
-        if fit_intercept and not keep.all():
-            notes.append(f"{int((~keep).sum())} constant training column(s) left out of the sweep")
-            X, Xt = X[:, keep], Xt[:, keep]
-            if X.shape[1] == 0:
-                raise InputError("every feature is constant on the training rows; nothing to fit")
-    p_total = int(random_features) if random_features is not None else X.shape[1]
 
-    # grid
-    if over == "features":
+def _without_constant_columns(data: _SweepData, fit_intercept: bool) -> _SweepData:
+    """Leave out training columns constant to rounding (with an intercept they carry nothing)."""
+    X = data.X
+    sd = X.std(axis=0)
+    keep = sd > data.n * _EPS * np.max(np.abs(X), axis=0)
+    if not fit_intercept or keep.all():
+        return data
+    note = f"{int((~keep).sum())} constant training column(s) left out of the sweep"
+    data = replace(data, X=X[:, keep], X_test=data.X_test[:, keep], notes=data.notes + (note,))
+    if data.X.shape[1] == 0:
+        raise InputError("every feature is constant on the training rows; nothing to fit")
+    return data
+
+
+def _sweep_grid(spec: _SweepSpec, sizes, *, n: int, p_total: int, n_points: int) -> _SweepGrid:
+    """The points of the sweep, checked to straddle the threshold."""
+    intercept = spec.intercept
+    if spec.over == "features":
         thr = n - intercept
         if sizes is None:
             lo, hi = 1, p_total
             if hi < n:
                 fix = ("pass more random features (--random-features N with N >= "
-                       f"{n})" if random_features is not None else
+                       f"{n})" if spec.random_features is not None else
                        f"map the inputs to random features (--random-features N, N >= {n})")
                 raise InputError(
                     f"the feature-wise sweep reaches p' = 1..{hi} but the threshold is at "
@@ -766,165 +884,168 @@ def threshold_sweep(
                 raise InputError(
                     f"the given sizes reach p' = {grid.min()}..{grid.max()} but must lie in "
                     f"1..{p_total} and straddle the threshold p' = n_train = {n}; adjust them")
-        n_feat = grid
-        n_rows = np.full(grid.size, n)
+        return _SweepGrid(n_features=grid, n_rows=np.full(grid.size, n))
+    thr = p_total + intercept
+    lo = 2 + intercept
+    if sizes is None:
+        if n <= thr:
+            raise InputError(
+                f"the sample-wise sweep reaches n' = {lo}..{n} but the threshold is at "
+                f"n' = p + 1 = {thr}; use fewer feature columns or a smaller "
+                "--holdout so the training rows exceed the features")
+        grid = sweep_sizes(lo, n, thr, n_points)
     else:
-        thr = p_total + intercept
-        lo = 2 + intercept
-        if sizes is None:
-            if n <= thr:
-                raise InputError(
-                    f"the sample-wise sweep reaches n' = {lo}..{n} but the threshold is at "
-                    f"n' = p + 1 = {thr}; use fewer feature columns or a smaller "
-                    "--holdout so the training rows exceed the features")
-            grid = sweep_sizes(lo, n, thr, n_points)
-        else:
-            grid = np.unique(np.asarray(sizes, dtype=int))
-            if grid.min() < lo or grid.max() > n or grid.min() > thr or grid.max() <= thr:
-                raise InputError(
-                    f"the given sizes reach n' = {grid.min()}..{grid.max()} but must lie in "
-                    f"{lo}..{n} and straddle the threshold n' = {thr}; adjust them")
-        n_rows = grid
-        n_feat = np.full(grid.size, p_total)
-    P = grid.size
-    M = len(METHODS)
-    vals = np.full((repeats, P, M, 7), np.nan)
-    total = repeats * P
-    done = 0
-    spectrum = None
-    spec_gamma = float("nan")
-    est = None
-    for rep in range(repeats):
-        if random_features is not None:
-            fmap = random_feature_map(X, int(random_features), kind=feature_map, seed=rng)
-            F, Ft = fmap.transform(X), fmap.transform(Xt)
-        else:
-            F, Ft = X, Xt
-        # one column (or row) reordering per repeat
-        if over == "features":
-            if order == "random":
-                perm = rng.permutation(F.shape[1])
-            elif order == "screening":
-                Fc = F - F.mean(axis=0)
-                yc = yv - yv.mean()
-                nrm = np.sqrt(np.einsum("ij,ij->j", Fc, Fc)) * np.sqrt(yc @ yc)
-                score = np.abs(Fc.T @ yc) / np.where(nrm > 0, nrm, 1.0)
-                perm = np.argsort(-score, kind="stable")
-            else:
-                perm = np.arange(F.shape[1])
-            Fr, Ftr = F[:, perm], Ft[:, perm]
-            design, z = prepare(Fr, yv[:, None], fit_intercept=fit_intercept,
-                                standardize=standardize)
-            if not design.active.all():  # constant random features: drop, keep nesting
-                z_full = np.zeros((z.shape[0], Fr.shape[1]))
-                z_full[:, design.active] = z
-                z = z_full
-            zf = np.asfortranarray(z)
-            zy = design.zy[:, 0]
-            tstd = np.zeros_like(Ftr)
-            a = design.active
-            tstd[:, a] = (Ftr[:, a] - design.x_mean[a]) / design.x_scale[a]
-            tstd = np.asfortranarray(tstd)
-            yt_c = yt - design.y_mean[0]
-            base, best = _baselines(zf, zy, n, tstd, yt_c, fit_intercept)
-            m = zf.shape[0]
-            lam_grid = m * _LAMBDA_N_GRID
-            lam_fixed = (ridge_lambda if ridge_lambda is not None else
-                         (None if ridge_df_fraction is not None else 0.1 * m))
-            for i, k in enumerate(n_feat):
-                zk = zf[:, :k]
-                fac = factorize(zk, solver=solver)
-                if rep == 0 and k == zf.shape[1]:  # the full design: spectrum, sigma^2, r^2
-                    spectrum, spec_gamma = _spectrum_of(fac, m), k / m
-                    if random_features is None and variances is None:
-                        est = _variances_from(design, fac)
-                if fac.rank == 0:
-                    vals[rep, i, :4, :] = np.nan
-                    lambdas = {}
-                else:
-                    vals[rep, i, :4], lambdas = _fit_point(
-                        fac, zy, n, fit_intercept, tstd[:, :k] @ fac.vt.T, yt_c, lam_fixed,
-                        ridge_df_fraction, lam_grid)
-                vals[rep, i, 4:] = base
-                if on_point is not None:
-                    on_point(PointFit(rep, i, perm[:k], np.arange(n),
-                                      _sub_design(design, k), fac, lambdas))
-                done += 1
-                if progress is not None:
-                    progress("sweep", done, total)
-        else:
-            rows = rng.permutation(n) if order == "random" else np.arange(n)
-            for i, k in enumerate(n_rows):
-                sel = rows[:k]
-                Fk = F[sel]
-                if np.ptp(yv[sel]) == 0:
-                    done += 1
-                    if progress is not None:
-                        progress("sweep", done, total)
-                    continue
-                design, z = prepare(Fk, yv[sel, None], fit_intercept=fit_intercept,
-                                    standardize=standardize)
-                zy = design.zy[:, 0]
-                tstd = design.transform(Ft)
-                yt_c = yt - design.y_mean[0]
-                m = z.shape[0]
-                lam_fixed = (ridge_lambda if ridge_lambda is not None else
-                             (None if ridge_df_fraction is not None else 0.1 * (n - intercept)))
-                fac = factorize(z, solver=solver)
-                if rep == 0 and k == n_rows[-1]:  # all training rows: spectrum, sigma^2, r^2
-                    spectrum, spec_gamma = _spectrum_of(fac, m), z.shape[1] / m
-                    if variances is None:
-                        est = _variances_from(design, fac)
-                if fac.rank == 0:
-                    lambdas = {}
-                else:
-                    vals[rep, i, :4], lambdas = _fit_point(
-                        fac, zy, int(k), fit_intercept, tstd @ fac.vt.T, yt_c, lam_fixed,
-                        ridge_df_fraction, m * _LAMBDA_N_GRID)
-                vals[rep, i, 4:], _ = _baselines(z, zy, int(k), tstd, yt_c, fit_intercept)
-                if on_point is not None:
-                    on_point(PointFit(rep, i, np.flatnonzero(design.active), sel, design, fac,
-                                      lambdas))
-                done += 1
-                if progress is not None:
-                    progress("sweep", done, total)
+        grid = np.unique(np.asarray(sizes, dtype=int))
+        if grid.min() < lo or grid.max() > n or grid.min() > thr or grid.max() <= thr:
+            raise InputError(
+                f"the given sizes reach n' = {grid.min()}..{grid.max()} but must lie in "
+                f"{lo}..{n} and straddle the threshold n' = {thr}; adjust them")
+    return _SweepGrid(n_features=np.full(grid.size, p_total), n_rows=grid)
 
-    ratio = n_feat / n_rows
-    if ridge_lambda is not None:
-        rule = f"fixed penalty lambda = {ridge_lambda:g}"
-    elif ridge_df_fraction is not None:
-        rule = f"penalty leaving df = {ridge_df_fraction:g} x rank at each point"
-    else:
-        m_all = n - intercept
-        rule = f"fixed penalty lambda = 0.1 x {m_all} = {0.1 * m_all:g} (lambda_n = 0.1)"
+
+def _feature_order(F: np.ndarray, y: np.ndarray, order: str, rng) -> np.ndarray:
+    """Column order of one feature-wise repeat: given, random or by screening score."""
+    if order == "random":
+        return rng.permutation(F.shape[1])
+    if order == "screening":
+        Fc = F - F.mean(axis=0)
+        yc = y - y.mean()
+        nrm = np.sqrt(np.einsum("ij,ij->j", Fc, Fc)) * np.sqrt(yc @ yc)
+        score = np.abs(Fc.T @ yc) / np.where(nrm > 0, nrm, 1.0)
+        return np.argsort(-score, kind="stable")
+    return np.arange(F.shape[1])
+
+
+def _nested_design(Fr: np.ndarray, Ftr: np.ndarray, data: _SweepData,
+                   spec: _SweepSpec) -> _NestedDesign:
+    """Center and scale a repeat's reordered columns once; every point takes leading columns."""
+    design, z = prepare(Fr, data.y[:, None], fit_intercept=spec.fit_intercept,
+                        standardize=spec.standardize)
+    if not design.active.all():  # constant random features: drop, keep nesting
+        z_full = np.zeros((z.shape[0], Fr.shape[1]))
+        z_full[:, design.active] = z
+        z = z_full
+    tstd = np.zeros_like(Ftr)
+    a = design.active
+    tstd[:, a] = (Ftr[:, a] - design.x_mean[a]) / design.x_scale[a]
+    return _NestedDesign(design=design, z=np.asfortranarray(z), zy=design.zy[:, 0],
+                         test_std=np.asfortranarray(tstd), yt_c=data.y_test - design.y_mean[0])
+
+
+def _sweep_features(rep: int, F, Ft, data: _SweepData, grid: _SweepGrid, spec: _SweepSpec,
+                    rng, tally: _Tally) -> None:
+    """One feature-wise repeat: nested column sets on all training rows, into ``tally``."""
+    n = data.n
+    perm = _feature_order(F, data.y, spec.order, rng)
+    nest = _nested_design(F[:, perm], Ft[:, perm], data, spec)
+    zf = nest.z
+    base, _ = _baselines(zf, nest.zy, n, nest.test_std, nest.yt_c, spec.fit_intercept)
+    m = zf.shape[0]
+    lam_grid = m * _LAMBDA_N_GRID
+    lam_fixed = spec.fixed_penalty(m)
+    for i, k in enumerate(grid.n_features):
+        fac = factorize(zf[:, :k], solver=spec.solver)
+        if rep == 0 and k == zf.shape[1]:  # the full design: spectrum, sigma^2, r^2
+            tally.spectrum, tally.spec_gamma = _spectrum_of(fac, m), k / m
+            if spec.random_features is None and spec.variances is None:
+                tally.est = _variances_from(nest.design, fac)
+        if fac.rank == 0:
+            tally.vals[rep, i, :4, :] = np.nan
+            lambdas = {}
+        else:
+            tally.vals[rep, i, :4], lambdas = _fit_point(
+                fac, nest.zy, n, spec.fit_intercept, nest.test_std[:, :k] @ fac.vt.T,
+                nest.yt_c, lam_fixed, spec.ridge_df_fraction, lam_grid)
+        tally.vals[rep, i, 4:] = base
+        if spec.on_point is not None:
+            spec.on_point(PointFit(rep, i, perm[:k], np.arange(n),
+                                   _sub_design(nest.design, k), fac, lambdas))
+        tally.tick()
+
+
+def _sweep_samples(rep: int, F, Ft, data: _SweepData, grid: _SweepGrid, spec: _SweepSpec,
+                   rng, tally: _Tally) -> None:
+    """One sample-wise repeat: nested training rows, all columns, into ``tally``."""
+    n = data.n
+    rows = rng.permutation(n) if spec.order == "random" else np.arange(n)
+    lam_fixed = spec.fixed_penalty(n - spec.intercept)
+    for i, k in enumerate(grid.n_rows):
+        sel = rows[:k]
+        if np.ptp(data.y[sel]) == 0:
+            tally.tick()
+            continue
+        design, z = prepare(F[sel], data.y[sel, None], fit_intercept=spec.fit_intercept,
+                            standardize=spec.standardize)
+        zy = design.zy[:, 0]
+        tstd = design.transform(Ft)
+        yt_c = data.y_test - design.y_mean[0]
+        m = z.shape[0]
+        fac = factorize(z, solver=spec.solver)
+        if rep == 0 and k == grid.n_rows[-1]:  # all training rows: spectrum, sigma^2, r^2
+            tally.spectrum, tally.spec_gamma = _spectrum_of(fac, m), z.shape[1] / m
+            if spec.variances is None:
+                tally.est = _variances_from(design, fac)
+        if fac.rank == 0:
+            lambdas = {}
+        else:
+            tally.vals[rep, i, :4], lambdas = _fit_point(
+                fac, zy, int(k), spec.fit_intercept, tstd @ fac.vt.T, yt_c, lam_fixed,
+                spec.ridge_df_fraction, m * _LAMBDA_N_GRID)
+        tally.vals[rep, i, 4:], _ = _baselines(z, zy, int(k), tstd, yt_c, spec.fit_intercept)
+        if spec.on_point is not None:
+            spec.on_point(PointFit(rep, i, np.flatnonzero(design.active), sel, design, fac,
+                                   lambdas))
+        tally.tick()
+
+
+def _ridge_rule(spec: _SweepSpec, n: int) -> str:
+    """How ``ridge_fixed`` chose its penalty, in words."""
+    if spec.ridge_lambda is not None:
+        return f"fixed penalty lambda = {spec.ridge_lambda:g}"
+    if spec.ridge_df_fraction is not None:
+        return f"penalty leaving df = {spec.ridge_df_fraction:g} x rank at each point"
+    m_all = n - spec.intercept
+    return f"fixed penalty lambda = 0.1 x {m_all} = {0.1 * m_all:g} (lambda_n = 0.1)"
+
+
+def _sweep_result(data: _SweepData, grid: _SweepGrid, spec: _SweepSpec, tally: _Tally, *,
+                  p_total: int, feature_map: str, band: str, seed: int,
+                  variance_source: str | None) -> ThresholdResult:
+    """Assemble the :class:`ThresholdResult`: read-only fields, variances, theory, notes."""
+    n, n_feat, n_rows = data.n, grid.n_features, grid.n_rows
+    notes = list(data.notes)
+    variances = spec.variances
     if variances is None:
-        variances = est if est is not None else estimate_variances(
-            X, yv, fit_intercept=fit_intercept, standardize=standardize)
+        variances = tally.est if tally.est is not None else estimate_variances(
+            data.X, data.y, fit_intercept=spec.fit_intercept, standardize=spec.standardize)
         source = "estimated from the training rows: " + variances.noise_estimator
     else:
         source = variance_source or "given"
-    fields = {name: vals[..., j] for j, name in enumerate(
+    fields = {name: tally.vals[..., j] for j, name in enumerate(
         ("lam", "df", "train_mse", "test_mse", "rank", "min_singular_value", "coef_norm"))}
     lf = fields["lam"][:, :, 1]
     ok = np.isfinite(lf)
     lam_fixed_mean = np.where(ok.any(axis=0), np.where(ok, lf, 0.0).sum(axis=0)
                               / np.maximum(ok.sum(axis=0), 1), np.nan)
     th = None
-    if random_features is None:
-        th = _theory_curves(over, order, n_feat, n_rows, p_total, intercept, variances, source,
-                            lam_fixed_mean)
+    if spec.random_features is None:
+        th = _theory_curves(spec.over, spec.order, n_feat, n_rows, p_total, spec.intercept,
+                            variances, source, lam_fixed_mean)
     else:
         notes.append("no theory overlay: the isotropic linear theory does not describe random "
                      "features")
     for a in fields.values():
         a.flags.writeable = False
+    spectrum = tally.spectrum
     return ThresholdResult(
-        over=over, order=order, feature_map=feature_map if random_features is not None else None,
-        n_train=n, n_test=Xt.shape[0], n_features_total=p_total, n_features=n_feat,
-        n_train_points=n_rows, ratio=ratio, repeats=repeats, methods=METHODS, band=band,
-        variances=variances, theory=th, spectrum_gamma=float(spec_gamma),
-        spectrum=spectrum if spectrum is not None else np.zeros(0), ridge_rule=rule, seed=seed,
-        fit_intercept=fit_intercept, standardize=standardize, notes=notes, **fields)
+        over=spec.over, order=spec.order,
+        feature_map=feature_map if spec.random_features is not None else None,
+        n_train=n, n_test=data.X_test.shape[0], n_features_total=p_total, n_features=n_feat,
+        n_train_points=n_rows, ratio=n_feat / n_rows, repeats=data.repeats, methods=METHODS,
+        band=band, variances=variances, theory=th, spectrum_gamma=float(tally.spec_gamma),
+        spectrum=spectrum if spectrum is not None else np.zeros(0),
+        ridge_rule=_ridge_rule(spec, n), seed=seed, fit_intercept=spec.fit_intercept,
+        standardize=spec.standardize, notes=notes, **fields)
 
 
 def _sub_design(design: Design, k: int) -> Design:
