@@ -466,21 +466,7 @@ def fit_path(
                  "ask for fewer penalties (n_lambdas) or targets")
     has_test = X_test is not None or y_test is not None
     if has_test:
-        if X_test is None or y_test is None:
-            raise InputError("pass both X_test and y_test, or neither")
-        X_test = as_design(X_test, "X_test")
-        if X_test.shape[1] != p:
-            raise InputError(
-                f"X_test has {X_test.shape[1]} columns but X has {p}; "
-                "pass the same features in the same order"
-            )
-        Yt = as_response(y_test, X_test.shape[0], "y_test")
-        if Yt.ndim != y_arr.ndim or (multi and Yt.shape[1] != Y.shape[1]):
-            raise InputError(
-                f"y_test has shape {Yt.shape} but y has shape {y_arr.shape}; "
-                "pass the same targets"
-            )
-        Yt = Yt if multi else Yt[:, None]
+        X_test, Yt = _test_set(X_test, y_test, p, y_arr)
     lam_user = None if lambdas is None else as_lambdas(lambdas)
     names = names if names is not None else [f"x{j}" for j in range(p)]
     general = _penalty_spec(names, n, sample_weight, unpenalized, relative_penalty)
@@ -496,6 +482,36 @@ def fit_path(
         return prepare_weighted(X, Y, fit_intercept=fit_intercept, standardize=standardize,
                                 names=names, **general)
 
+    design, fac = _factor_prepared(prep, n, p, solver, rtol)
+    lam = default_grid(fac.d, n_lambdas) if lam_user is None else lam_user
+    return path_from_factors(
+        design, fac, lam, feature_names=names, multi_target=multi,
+        X_test=X_test if has_test else None, Y_test=Yt if has_test else None, test_weight=Wt,
+        X_train=X if return_fitted else None, return_fitted=return_fitted)
+
+
+def _test_set(X_test, y_test, p, y_arr):
+    """The checked test rows: ``(X_test, Y_test)`` with a two-dimensional response."""
+    if X_test is None or y_test is None:
+        raise InputError("pass both X_test and y_test, or neither")
+    X_test = as_design(X_test, "X_test")
+    if X_test.shape[1] != p:
+        raise InputError(
+            f"X_test has {X_test.shape[1]} columns but X has {p}; "
+            "pass the same features in the same order"
+        )
+    Yt = as_response(y_test, X_test.shape[0], "y_test")
+    multi = y_arr.ndim == 2
+    if Yt.ndim != y_arr.ndim or (multi and Yt.shape[1] != y_arr.shape[1]):
+        raise InputError(
+            f"y_test has shape {Yt.shape} but y has shape {y_arr.shape}; "
+            "pass the same targets"
+        )
+    return X_test, (Yt if multi else Yt[:, None])
+
+
+def _factor_prepared(prep, n, p, solver, rtol):
+    """``(design, factorization)`` of the prepared design, refused when nothing can be fitted."""
     design, z = prep()
     if not design.active.any():
         raise InputError(
@@ -522,11 +538,7 @@ def fit_path(
             "(the scale of lambda) leave the float64 range; standardize the columns "
             "(standardize=True) or rescale X"
         )
-    lam = default_grid(fac.d, n_lambdas) if lam_user is None else lam_user
-    return path_from_factors(
-        design, fac, lam, feature_names=names, multi_target=multi,
-        X_test=X_test if has_test else None, Y_test=Yt if has_test else None, test_weight=Wt,
-        X_train=X if return_fitted else None, return_fitted=return_fitted)
+    return design, fac
 
 
 def _penalty_spec(names, n, sample_weight, unpenalized, relative_penalty) -> dict | None:
