@@ -608,15 +608,7 @@ def cross_validate(
     >>> cv.mse.shape, cv.method, cv.form
     ((3,), 'exact', 'dual')
     """
-    from paths.core.path import fit_path
-
-    if scaling not in SCALINGS:
-        raise InputError(f"scaling must be one of {', '.join(SCALINGS)}; got {scaling!r}")
-    if method not in METHODS:
-        raise InputError(f"method must be one of {', '.join(METHODS)}; got {method!r}")
-    if isinstance(repeats, bool) or int(repeats) != repeats or repeats < 1:
-        raise InputError(f"repeats must be an integer >= 1; got {repeats!r}")
-    repeats = int(repeats)
+    repeats = _checked_options(scaling, method, repeats)
     if groups is not None:
         scheme = "grouped"
     Xa = as_design(X, "X")
@@ -625,18 +617,13 @@ def cross_validate(
     multi = Ya.ndim == 2
     Y = Ya if multi else Ya[:, None]
     if path is None:
+        from paths.core.path import fit_path
+
         path = fit_path(X, y, lambdas, fit_intercept=fit_intercept, standardize=standardize,
                         solver=solver, n_lambdas=n_lambdas, sample_weight=sample_weight,
                         unpenalized=unpenalized, relative_penalty=relative_penalty)
-    elif path.n_samples != n or path.n_features != Xa.shape[1]:
-        raise InputError(
-            f"path was fitted on {path.n_samples} x {path.n_features} data but X is "
-            f"{n} x {Xa.shape[1]}; pass the same data"
-        )
-    elif sample_weight is not None and (path.design.sample_weight is None or not np.array_equal(
-            np.asarray(sample_weight, dtype=float), path.design.sample_weight)):
-        raise InputError("sample_weight differs from the weights the path was fitted with; "
-                         "pass the same weights (or none: the path's are used)")
+    else:
+        _check_given_path(path, Xa.shape, sample_weight)
     span = path.design.span
     lam = path.lambdas if lambdas is None else as_lambdas(lambdas)
     labels = fold_partitions(n, n_folds, scheme=scheme, seed=seed, repeats=repeats,
@@ -647,38 +634,10 @@ def cross_validate(
     if span is not None:
         w = np.square(span.sqrt_w)
         fold_w = np.stack([np.bincount(lab, weights=w, minlength=K) for lab in labels])
-    fac = path.factorization
-    if span is not None:
-        if scaling == "per-fold" or method == "refit":
-            raise InputError("with row weights, unpenalized columns or relative penalties, "
-                             "K-fold CV is exact from the full-data factors only; use "
-                             "scaling='global' and method='exact' (CLI: --cv-scaling global)")
-        route, reason = "exact", "exact: row weights / unpenalized columns (no refit route)"
-    elif scaling == "per-fold":
-        route, reason = "refit", "refit: per-fold scaling cannot be read off the full-data factors"
-    elif method != "auto":
-        route, reason = method, "requested"
-    else:
-        route, reason = (cost_model or CostModel()).choose(
-            sizes[0], n=n, r=fac.rank, q=int(path.design.active.sum()), k=lam.size,
-            t=Y.shape[1], dual=path.state.full_row_rank)
-    engine = None
-    if route == "exact":
-        engine = _ExactEngine(path.state, list(labels))
-        try:
-            fold = engine.fold_mse(lam)
-        except np.linalg.LinAlgError:
-            if span is not None:
-                raise InputError("a fold's block I - H_ff is singular (its rows carry "
-                                 "parameters no other fold sees); use fewer, larger folds") \
-                    from None
-            route, engine = "refit", None
-            reason = "refit: a fold block I - H_ff was singular at some penalty"
-    if engine is None:
-        engine = _RefitEngine(Xa, Y, list(labels), fit_intercept=path.fit_intercept,
-                              standardize=path.standardize, scaling=scaling, solver=path.solver
-                              if path.solver in ("svd", "gram") else "auto", design=path.design)
-        fold = engine.fold_mse(lam)
+    route, reason = _route(path, span, scaling, method, cost_model, sizes[0], lam.size,
+                           Y.shape[1])
+    fold, engine, route, reason = _fold_errors(path, route, reason, Xa, Y, labels, lam,
+                                               scaling)
     mse, se, se_rep = _summarize(fold, sizes if fold_w is None else fold_w)
     if not multi:
         mse, se, fold = mse[..., 0], se[..., 0], fold[..., 0]
@@ -691,6 +650,71 @@ def cross_validate(
                     scheme=scheme, scaling=scaling, method=route, form=engine.form,
                     method_reason=reason, multi_target=multi, _engine=engine,
                     fold_weights=fold_w)
+
+
+def _checked_options(scaling, method, repeats) -> int:
+    """Refuse unknown ``scaling`` and ``method`` values; ``repeats`` as an integer >= 1."""
+    if scaling not in SCALINGS:
+        raise InputError(f"scaling must be one of {', '.join(SCALINGS)}; got {scaling!r}")
+    if method not in METHODS:
+        raise InputError(f"method must be one of {', '.join(METHODS)}; got {method!r}")
+    if isinstance(repeats, bool) or int(repeats) != repeats or repeats < 1:
+        raise InputError(f"repeats must be an integer >= 1; got {repeats!r}")
+    return int(repeats)
+
+
+def _check_given_path(path, shape, sample_weight) -> None:
+    """Refuse a given path fitted on data of another shape or with other row weights."""
+    n, p = shape
+    if path.n_samples != n or path.n_features != p:
+        raise InputError(
+            f"path was fitted on {path.n_samples} x {path.n_features} data but X is "
+            f"{n} x {p}; pass the same data"
+        )
+    if sample_weight is not None and (path.design.sample_weight is None or not np.array_equal(
+            np.asarray(sample_weight, dtype=float), path.design.sample_weight)):
+        raise InputError("sample_weight differs from the weights the path was fitted with; "
+                         "pass the same weights (or none: the path's are used)")
+
+
+def _route(path, span, scaling, method, cost_model, sizes, k, t):
+    """``(route, reason)``: exact from the full-data factors or one refit per fold."""
+    if span is not None:
+        if scaling == "per-fold" or method == "refit":
+            raise InputError("with row weights, unpenalized columns or relative penalties, "
+                             "K-fold CV is exact from the full-data factors only; use "
+                             "scaling='global' and method='exact' (CLI: --cv-scaling global)")
+        return "exact", "exact: row weights / unpenalized columns (no refit route)"
+    if scaling == "per-fold":
+        return "refit", "refit: per-fold scaling cannot be read off the full-data factors"
+    if method != "auto":
+        return method, "requested"
+    return (cost_model or CostModel()).choose(
+        sizes, n=path.n_samples, r=path.factorization.rank, q=int(path.design.active.sum()),
+        k=k, t=t, dual=path.state.full_row_rank)
+
+
+def _fold_errors(path, route, reason, Xa, Y, labels, lam, scaling):
+    """``(fold errors, engine, route, reason)``; the exact route falls back to refits when a
+    fold block is singular (refused with row weights or unpenalized columns)."""
+    engine = None
+    if route == "exact":
+        engine = _ExactEngine(path.state, list(labels))
+        try:
+            fold = engine.fold_mse(lam)
+        except np.linalg.LinAlgError:
+            if path.design.span is not None:
+                raise InputError("a fold's block I - H_ff is singular (its rows carry "
+                                 "parameters no other fold sees); use fewer, larger folds") \
+                    from None
+            route, engine = "refit", None
+            reason = "refit: a fold block I - H_ff was singular at some penalty"
+    if engine is None:
+        engine = _RefitEngine(Xa, Y, list(labels), fit_intercept=path.fit_intercept,
+                              standardize=path.standardize, scaling=scaling, solver=path.solver
+                              if path.solver in ("svd", "gram") else "auto", design=path.design)
+        fold = engine.fold_mse(lam)
+    return fold, engine, route, reason
 
 
 def heldout_residuals(path, lam: float, labels, *, only=None) -> np.ndarray:
