@@ -265,78 +265,17 @@ def factor_moments(mom: Moments, p: int, *, fit_intercept: bool = True, standard
     s = design.x_scale[act]
     cols = np.concatenate([np.flatnonzero(act), p + np.arange(t)])
     colscale = np.concatenate([s, np.ones(t)])
-    if mom.r is not None:
-        R = mom.r
-        if not fit_intercept:  # raw cross products: append the mean row
-            R = _qr_r(np.vstack([R, np.sqrt(n) * mom.mean[None, :]]))
-        A = R[:, cols] / colscale
-        if A.shape[0] < A.shape[1]:
-            A = np.vstack([A, np.zeros((A.shape[1] - A.shape[0], A.shape[1]))])
-        R2 = _qr_r(A)
-        R11, R12, R22 = R2[:q, :q], R2[:q, q:], R2[q:, q:]
-        w, d_all, vt_all = sla.svd(R11, full_matrices=False, check_finite=False)
-        if rtol is None:
-            rtol = max(m, q) * _EPS
-        dmax = float(d_all[0])
-        tol = rtol * dmax
-        r = int(np.count_nonzero(d_all > tol))
-        d, vt, w = d_all[:r], vt_all[:r], w[:, :r]
-        uty = w.T @ R12
-        rest = R12 - w @ uty
-        rss_out = np.einsum("it,it->t", rest, rest) + np.einsum("it,it->t", R22, R22)
-        solver = "stream-tsqr"
-        reason = ("accurate: chunked TSQR of the centered design, SVD of the final R "
-                  "(backward stable, no squared condition number)")
-    else:
-        G = mom.m2
-        if not fit_intercept:
-            G = G + n * np.outer(mom.mean, mom.mean)
-        G = G[np.ix_(cols, cols)] / np.outer(colscale, colscale)
-        Gx, Gxy, Gyy = G[:q, :q], G[:q, q:], np.diag(G[q:, q:])
-        with np.errstate(over="ignore", invalid="ignore"):
-            finite = np.all(np.isfinite(Gx))
-        if not finite:
-            raise InputError("the Gram matrix overflows for this design; pass accurate=True "
-                             "or standardize the columns")
-        wv, V = sla.eigh(Gx, check_finite=False)
-        wv, V = np.maximum(wv[::-1], 0.0), V[:, ::-1]
-        d_all = np.sqrt(wv)
-        dmax = float(d_all[0])
-        tol = max(rtol if rtol is not None else max(m, q) * _EPS,
-                  np.sqrt(max(m, q) * _EPS)) * dmax
-        r = int(np.count_nonzero(d_all > tol))
-        d, vt = d_all[:r], np.ascontiguousarray(V[:, :r].T)
-        uty = (vt @ Gxy) / d[:, None] if r else np.zeros((0, t))
-        rss_out = np.maximum(Gyy - np.einsum("it,it->t", uty, uty), 0.0)
-        predicted = 0.5 * max(m, q) * _EPS * wv[0] / wv[-1] if wv[-1] > 0 else np.inf
-        solver = "stream-gram"
-        reason = (f"Gram route over row chunks: predicted relative error of the smallest "
-                  f"singular value {predicted:.1e}")
-        if predicted > 1e-10:
-            warnings.warn(
-                f"the streamed Gram route squares the condition number (predicted relative "
-                f"error {predicted:.1e} of the smallest singular value); pass accurate=True "
-                "for the chunked TSQR route", UserWarning, stacklevel=3)
-            reason += "; accurate=True recommended"
+    route = _tsqr_route if mom.r is not None else _gram_route
+    d_all, d, vt, uty, rss_out, tol, dmax, solver, reason = route(
+        mom, cols, colscale, q, m, fit_intercept, rtol)
+    r = d.size
     if r == 0:
         raise InputError("the centered design is numerically zero; nothing to fit")
     if requested in ("svd", "gram"):
         reason = f"requested (solver {requested}): {reason}"
     share = 1.0
     if rank is not None:
-        if int(rank) != rank or not 1 <= rank <= min(m, q):
-            raise InputError(f"rank must be an integer in [1, {min(m, q)}] (min(n - 1, p) for "
-                             f"this {n} x {q} design); got {rank}")
-        total = float(np.sum(np.square(d_all)))
-        if rank < r:
-            # the discarded components' part of y moves outside the retained span
-            rss_out = rss_out + np.einsum("it,it->t", uty[rank:], uty[rank:])
-            r, d, vt, uty = rank, d[:rank], vt[:rank], uty[:rank]
-        share = float(np.sum(np.square(d)) / total) if total > 0 else 1.0
-        msg = (f"rank={rank}: the fit is ridge on the top {r} principal components, capturing "
-               f"{100 * share:.2f}% of ||X||_F^2; the minimum-norm fit and the quantities near "
-               "the interpolation threshold need the full spectrum and are approximations")
-        warnings.warn(msg, UserWarning, stacklevel=3)
+        r, d, vt, uty, rss_out, share = _truncated(rank, d_all, d, vt, uty, rss_out, n, m, q)
         reason += f"; truncated to rank {r}"
     for a in (d, vt, uty):
         a.flags.writeable = False
@@ -344,6 +283,87 @@ def factor_moments(mom: Moments, p: int, *, fit_intercept: bool = True, standard
                         d_min=float(d_all[-1]), solver=solver, reason=reason)
     return _Fit(design=design, fac=fac, uty=uty, rss_out=rss_out, raw_gram=mom.r is None,
                 captured_share=share, rank_limit=rank)
+
+
+def _tsqr_route(mom: Moments, cols, colscale, q, m, fit_intercept, rtol):
+    """The accurate route's factors from the moments' R factor (see :func:`factor_moments`)."""
+    n = mom.n
+    R = mom.r
+    if not fit_intercept:  # raw cross products: append the mean row
+        R = _qr_r(np.vstack([R, np.sqrt(n) * mom.mean[None, :]]))
+    A = R[:, cols] / colscale
+    if A.shape[0] < A.shape[1]:
+        A = np.vstack([A, np.zeros((A.shape[1] - A.shape[0], A.shape[1]))])
+    R2 = _qr_r(A)
+    R11, R12, R22 = R2[:q, :q], R2[:q, q:], R2[q:, q:]
+    w, d_all, vt_all = sla.svd(R11, full_matrices=False, check_finite=False)
+    if rtol is None:
+        rtol = max(m, q) * _EPS
+    dmax = float(d_all[0])
+    tol = rtol * dmax
+    r = int(np.count_nonzero(d_all > tol))
+    d, vt, w = d_all[:r], vt_all[:r], w[:, :r]
+    uty = w.T @ R12
+    rest = R12 - w @ uty
+    rss_out = np.einsum("it,it->t", rest, rest) + np.einsum("it,it->t", R22, R22)
+    reason = ("accurate: chunked TSQR of the centered design, SVD of the final R "
+              "(backward stable, no squared condition number)")
+    return d_all, d, vt, uty, rss_out, tol, dmax, "stream-tsqr", reason
+
+
+def _gram_route(mom: Moments, cols, colscale, q, m, fit_intercept, rtol):
+    """The Gram route's factors from the moments' cross products (see :func:`factor_moments`)."""
+    n = mom.n
+    t = cols.size - q
+    G = mom.m2
+    if not fit_intercept:
+        G = G + n * np.outer(mom.mean, mom.mean)
+    G = G[np.ix_(cols, cols)] / np.outer(colscale, colscale)
+    Gx, Gxy, Gyy = G[:q, :q], G[:q, q:], np.diag(G[q:, q:])
+    with np.errstate(over="ignore", invalid="ignore"):
+        finite = np.all(np.isfinite(Gx))
+    if not finite:
+        raise InputError("the Gram matrix overflows for this design; pass accurate=True "
+                         "or standardize the columns")
+    wv, V = sla.eigh(Gx, check_finite=False)
+    wv, V = np.maximum(wv[::-1], 0.0), V[:, ::-1]
+    d_all = np.sqrt(wv)
+    dmax = float(d_all[0])
+    tol = max(rtol if rtol is not None else max(m, q) * _EPS,
+              np.sqrt(max(m, q) * _EPS)) * dmax
+    r = int(np.count_nonzero(d_all > tol))
+    d, vt = d_all[:r], np.ascontiguousarray(V[:, :r].T)
+    uty = (vt @ Gxy) / d[:, None] if r else np.zeros((0, t))
+    rss_out = np.maximum(Gyy - np.einsum("it,it->t", uty, uty), 0.0)
+    predicted = 0.5 * max(m, q) * _EPS * wv[0] / wv[-1] if wv[-1] > 0 else np.inf
+    reason = (f"Gram route over row chunks: predicted relative error of the smallest "
+              f"singular value {predicted:.1e}")
+    if predicted > 1e-10:
+        warnings.warn(
+            f"the streamed Gram route squares the condition number (predicted relative "
+            f"error {predicted:.1e} of the smallest singular value); pass accurate=True "
+            "for the chunked TSQR route", UserWarning, stacklevel=4)
+        reason += "; accurate=True recommended"
+    return d_all, d, vt, uty, rss_out, tol, dmax, "stream-gram", reason
+
+
+def _truncated(rank, d_all, d, vt, uty, rss_out, n, m, q):
+    """``(r, d, vt, uty, rss_out, captured share)`` kept to the top ``rank`` components."""
+    r = d.size
+    if int(rank) != rank or not 1 <= rank <= min(m, q):
+        raise InputError(f"rank must be an integer in [1, {min(m, q)}] (min(n - 1, p) for "
+                         f"this {n} x {q} design); got {rank}")
+    total = float(np.sum(np.square(d_all)))
+    if rank < r:
+        # the discarded components' part of y moves outside the retained span
+        rss_out = rss_out + np.einsum("it,it->t", uty[rank:], uty[rank:])
+        r, d, vt, uty = rank, d[:rank], vt[:rank], uty[:rank]
+    share = float(np.sum(np.square(d)) / total) if total > 0 else 1.0
+    msg = (f"rank={rank}: the fit is ridge on the top {r} principal components, capturing "
+           f"{100 * share:.2f}% of ||X||_F^2; the minimum-norm fit and the quantities near "
+           "the interpolation threshold need the full spectrum and are approximations")
+    warnings.warn(msg, UserWarning, stacklevel=4)
+    return r, d, vt, uty, rss_out, share
 
 
 # --------------------------------------------------------------------------- second pass
