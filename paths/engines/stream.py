@@ -1134,6 +1134,59 @@ def stream_path(
     """
     accurate = solver_route(solver, accurate)
     prepared = bool(encode) or drop_missing is not None
+    src, prep = _open_source(data, target, features, sep, chunk_rows, y, groups, progress,
+                             encode, drop_missing, prepared)
+    p = src.n_features
+    group_src, scheme = _checked_options(src, groups, prepared, sep, n_lambdas, test, holdout,
+                                         fold_scheme, n_folds, repeats, cv_scaling)
+    cv = n_folds
+    lam_user = None if lambdas is None else as_lambdas(lambdas)
+    src, test_src, group_src = _split_test(src, group_src, test, y_test, holdout, seed, target,
+                                           prep, sep, chunk_rows, progress)
+    counts = None if group_src is None else group_src.counts(progress)
+    if counts is not None and cv is None:
+        cv = int(min(10, counts.size))
+    passes = []
+    label1 = "pass 1/2: moments (X'X, X'y, y'y)" if loo or cv else "pass 1/1: moments (X'X, X'y, y'y)"
+    mom = _moment_pass(src, accurate, label1, passes, progress)
+    if fit_intercept and mom.n < 2:
+        raise InputError(f"the data have {mom.n} row; at least 2 samples are needed to fit an "
+                         "intercept (or pass fit_intercept=False)")
+    fit = factor_moments(mom, p, fit_intercept=fit_intercept, standardize=standardize, rtol=rtol,
+                         rank=rank, names=src.columns, requested=solver)
+    lam = default_grid(fit.fac.d, n_lambdas) if lam_user is None else lam_user
+    loo_mse = loo0 = loo_se = cvres = hp = None
+    notes = list(prep.notes) if prepared else []
+    plan = None if not cv else fold_plan(
+        mom.n, cv, scheme=scheme, seed=int(seed), repeats=repeats, group_counts=counts,
+        fit_intercept=fit_intercept)
+    if loo or cv:
+        hp, loo_mse, loo0, loo_se, cvres = _second_pass(fit, lam, src, p, cv, plan, group_src,
+                                                        passes, progress, cv_scaling, notes)
+    else:
+        notes.append("leave-one-out skipped (loo=False): no second pass")
+    if rank is not None:
+        notes.append(f"truncated to the top {fit.fac.rank} principal components (rank=), "
+                     f"capturing {100 * fit.captured_share:.2f}% of ||X||_F^2; min-norm "
+                     "quantities are approximations")
+    test_res = None if test_src is None else _timed_test_pass(fit, lam, test_src, p, passes,
+                                                              progress)
+    def one_pass(lam_new):
+        return _hat_pass(fit, lam_new, src, p, None, None, [], progress, "global",
+                         "extra pass: leave-one-out at new penalties").loo_with_se()
+
+    return path_from_moments(fit, lam, feature_names=src.feature_names, loo=loo_mse, loo0=loo0,
+                             test=test_res, cv=cvres, n_folds=cv or 0, passes=passes,
+                             notes=notes, fold_stats=None if hp is None else hp.fold_factors(),
+                             fold_plan=plan, loo_at=LooPasses(one_pass, lam, loo_mse, loo_se)
+                             if loo else None,
+                             preparation=prep.record() if prepared else None)
+
+
+def _open_source(data, target, features, sep, chunk_rows, y, groups, progress, encode,
+                 drop_missing, prepared):
+    """``(source, preparation or None)``: the rows to stream, a groups column left out."""
+    prep = None
     if prepared:
         if groups is not None and not isinstance(groups, str):
             raise InputError("groups with encode or drop_missing: name the groups column of "
@@ -1150,7 +1203,12 @@ def stream_path(
                              "the features")
         src = open_rows(data, target, features=[c for c in src.feature_names if c != groups],
                         sep=sep, chunk_rows=chunk_rows)
-    p = src.n_features
+    return src, prep
+
+
+def _checked_options(src, groups, prepared, sep, n_lambdas, test, holdout, fold_scheme,
+                     n_folds, repeats, cv_scaling):
+    """``(groups source or None, fold scheme)``, the options checked."""
     if n_lambdas < 1:
         raise InputError(f"n_lambdas must be at least 1; got {n_lambdas}")
     if test is not None and holdout is not None:
@@ -1159,8 +1217,12 @@ def stream_path(
         PreparedGroups(groups, src) if prepared else GroupValues(groups, src, sep=sep))
     scheme = check_scheme(fold_scheme, groups)
     check_cv_options(n_folds, scheme, repeats, cv_scaling)
-    cv = n_folds
-    lam_user = None if lambdas is None else as_lambdas(lambdas)
+    return group_src, scheme
+
+
+def _split_test(src, group_src, test, y_test, holdout, seed, target, prep, sep, chunk_rows,
+                progress):
+    """``(training rows, test rows or None, groups)``: a seeded holdout or a test source."""
     test_src = None
     if holdout is not None:
         n_all = count_rows(src, progress)
@@ -1169,7 +1231,7 @@ def stream_path(
         test_src = HoldoutRows(full, n_all, holdout, seed, test=True)
         if group_src is not None:
             group_src = group_src.subset(src)
-    elif test is not None and prepared:
+    elif test is not None and prep is not None:
         test_src = open_prepared(test, None, sep=sep, chunk_rows=chunk_rows,
                                  like=prep)
     elif test is not None:
@@ -1177,64 +1239,46 @@ def stream_path(
                              features=src.feature_names if not isinstance(test, RowSource) and
                              not hasattr(test, "shape") else None,
                              sep=sep, chunk_rows=chunk_rows, y=y_test)
-    counts = None if group_src is None else group_src.counts(progress)
-    if counts is not None and cv is None:
-        cv = int(min(10, counts.size))
-    passes = []
+    return src, test_src, group_src
+
+
+def _moment_pass(src, accurate, label, passes, progress) -> Moments:
+    """The first pass: the merged moments of the row chunks (magnitudes checked)."""
     merger = PairwiseMerger()
-    label1 = "pass 1/2: moments (X'X, X'y, y'y)" if loo or cv else "pass 1/1: moments (X'X, X'y, y'y)"
     t0 = time.perf_counter()
     rows = 0
     for start, block in src:
         merger.add(chunk_moments(block, accurate=accurate))
         rows = start + block.shape[0]
         if progress:
-            progress(label1, rows, src.n_rows)
+            progress(label, rows, src.n_rows)
     mom = merger.result()
-    check_magnitudes(mom, src.columns, src.source)  # before the row-count checks below
-    passes.append(PassInfo(label1, mom.n, time.perf_counter() - t0, mom.n * src.nbytes_per_row))
-    if fit_intercept and mom.n < 2:
-        raise InputError(f"the data have {mom.n} row; at least 2 samples are needed to fit an "
-                         "intercept (or pass fit_intercept=False)")
-    fit = factor_moments(mom, p, fit_intercept=fit_intercept, standardize=standardize, rtol=rtol,
-                         rank=rank, names=src.columns, requested=solver)
-    lam = default_grid(fit.fac.d, n_lambdas) if lam_user is None else lam_user
-    loo_mse = loo0 = loo_se = cvres = hp = plan = None
-    notes = list(prep.notes) if prepared else []
-    if loo or cv:
-        plan = None if not cv else fold_plan(
-            mom.n, cv, scheme=scheme, seed=int(seed), repeats=repeats, group_counts=counts,
-            fit_intercept=fit_intercept)
-        hp = _hat_pass(fit, lam, src, p, plan, group_src, passes, progress, cv_scaling,
-                       "pass 2/2: hat diagonals for exact leave-one-out"
-                       + (f" and {cv}-fold CV" if cv else ""))
-        loo_mse, loo0 = hp.loo()
-        loo_se = hp.loo_with_se()[1]
-        if cv:
-            cvres = hp.kfold()
-            notes.append(cv_note(plan, cv_scaling))
-    else:
-        notes.append("leave-one-out skipped (loo=False): no second pass")
-    if rank is not None:
-        notes.append(f"truncated to the top {fit.fac.rank} principal components (rank=), "
-                     f"capturing {100 * fit.captured_share:.2f}% of ||X||_F^2; min-norm "
-                     "quantities are approximations")
-    test_res = None
-    if test_src is not None:
-        t0 = time.perf_counter()
-        test_res = _test_pass(fit, lam, test_src, p, progress)
-        passes.append(PassInfo("test rows: test error", test_res[2], time.perf_counter() - t0,
-                               test_res[2] * test_src.nbytes_per_row))
-    def one_pass(lam_new):
-        return _hat_pass(fit, lam_new, src, p, None, None, [], progress, "global",
-                         "extra pass: leave-one-out at new penalties").loo_with_se()
+    check_magnitudes(mom, src.columns, src.source)  # before the row-count checks
+    passes.append(PassInfo(label, mom.n, time.perf_counter() - t0, mom.n * src.nbytes_per_row))
+    return mom
 
-    return path_from_moments(fit, lam, feature_names=src.feature_names, loo=loo_mse, loo0=loo0,
-                             test=test_res, cv=cvres, n_folds=cv or 0, passes=passes,
-                             notes=notes, fold_stats=None if hp is None else hp.fold_factors(),
-                             fold_plan=plan, loo_at=LooPasses(one_pass, lam, loo_mse, loo_se)
-                             if loo else None,
-                             preparation=prep.record() if prepared else None)
+
+def _second_pass(fit, lam, src, p, cv, plan, group_src, passes, progress, cv_scaling, notes):
+    """``(hat pass, loo MSE, min-norm loo MSE, loo SE, K-fold result or None)``."""
+    hp = _hat_pass(fit, lam, src, p, plan, group_src, passes, progress, cv_scaling,
+                   "pass 2/2: hat diagonals for exact leave-one-out"
+                   + (f" and {cv}-fold CV" if cv else ""))
+    loo_mse, loo0 = hp.loo()
+    loo_se = hp.loo_with_se()[1]
+    cvres = None
+    if cv:
+        cvres = hp.kfold()
+        notes.append(cv_note(plan, cv_scaling))
+    return hp, loo_mse, loo0, loo_se, cvres
+
+
+def _timed_test_pass(fit, lam, test_src, p, passes, progress):
+    """The test rows' pass, recorded in ``passes``."""
+    t0 = time.perf_counter()
+    test_res = _test_pass(fit, lam, test_src, p, progress)
+    passes.append(PassInfo("test rows: test error", test_res[2], time.perf_counter() - t0,
+                           test_res[2] * test_src.nbytes_per_row))
+    return test_res
 
 
 def _hat_pass(fit, lam, src, p, plan, group_src, passes, progress, cv_scaling,
