@@ -354,6 +354,54 @@ def wide_path(
     """
     src, y = open_wide(data, y, target=target, features=features, sep=sep,
                        block_columns=block_columns, progress=progress)
+    multi, Y, Yt, test, test_rows, y_size = _responses(src, y, test_rows, X_test, y_test,
+                                                       target, sep, fit_intercept)
+    n, p, t = Y.shape[0], src.n_features, Y.shape[1]
+    m = n - 1 if fit_intercept else n
+    rank = _check_rank(rank, accurate, m, p, n)
+    if n_lambdas < 1:
+        raise InputError(f"n_lambdas must be at least 1; got {n_lambdas}")
+    lam_user = None if lambdas is None else as_lambdas(lambdas)
+    zy, y_mean = _householder(Y, fit_intercept)
+    n_test = 0 if Yt is None else Yt.shape[0]
+    sweep = _Sweep(src, fit_intercept, standardize, test, test_rows=test_rows, y_size=y_size)
+    acc = _Accumulated(p, m, n_test if Yt is not None else None)
+    passes = []
+    runner = _Runner(sweep, passes, progress, n * p * 8)
+    u, d, d_all, tol, solver, reason = _factor_blocks(runner, acc, m, p, rank, accurate,
+                                                      oversample, power_iters, seed, rtol)
+    r = d.size
+    share = float(np.sum(np.square(d)) / acc.fro) if acc.fro > 0 else 1.0
+    approximate = rank is not None
+    notes = _wide_notes(src, rank, r, share, test_rows, n_test)
+    design, fac = _frozen_factors(acc, y_mean, zy, u, d, d_all, tol, solver, reason, n,
+                                  fit_intercept, standardize)
+    state = algebra.factor_state(fac, design)
+    lam = default_grid(d, n_lambdas) if lam_user is None else lam_user
+    crit = algebra.criteria(state, lam)
+    A, A0, intercept, intercept0 = _intercepts(state, lam, acc, y_mean)
+    test_mse, test0 = _test_errors(state, lam, acc, u, d, Yt, y_mean, n_test)
+    coef = coef0 = None
+    if coefficients:
+        coef, coef0 = _coefficient_pass(_Runner(
+            _Sweep(src, fit_intercept, standardize, test_rows=test_rows, y_size=y_size),
+            passes, progress, n * p * 8), A, A0, p, t)
+    min_norm, out = _squeezed(state, crit, lam, multi, fit_intercept, r, coef0, intercept,
+                              intercept0, test_mse, test0)
+    return WidePath(
+        lambdas=lam, df=crit.df, fitted=None, rank=r, rank_tol=fac.tol, singular_values=d,
+        condition_number=fac.condition_number, min_norm=min_norm, solver=solver,
+        solver_reason=reason, n_samples=n, n_features=p, n_test=n_test,
+        fit_intercept=fit_intercept, standardize=standardize, feature_names=src.feature_names,
+        design=design, factorization=fac, uty=state.uty, penalty_convention=PENALTY_CONVENTION,
+        state=state, engine="wide", passes=tuple(passes), notes=tuple(notes), captured_share=share,
+        approximate=approximate, multi_target=multi,
+        cache={"coef": coef if (multi or coef is None) else coef[..., 0]}, **out)
+
+
+def _responses(src, y, test_rows, X_test, y_test, target, sep, fit_intercept):
+    """``(multi, Y, Y_test, test set, test_rows, y_size)``: the checked responses, a holdout
+    split off or a separate test set opened."""
     if y is None:
         raise InputError("pass the response: y= (array) or target= (a Parquet or CSV column)")
     y_arr = as_response(y, src.n_rows, "y")
@@ -371,24 +419,18 @@ def wide_path(
     else:
         Y = Y_all
         test, Yt = _open_test(X_test, y_test, src, target, sep, Y.shape[1])
-    n, p = Y.shape[0], src.n_features
+    n = Y.shape[0]
     if fit_intercept and n < 2:
         raise InputError(f"X has {n} row; at least 2 samples are needed to fit an intercept")
     check_response_range(Y, fit_intercept=fit_intercept,
                          names=getattr(src, "target_names", None) if target is not None else None)
     y_size = float(np.max(np.ptp(Y, axis=0) if fit_intercept else np.abs(Y).max(axis=0)))
-    m = n - 1 if fit_intercept else n
-    rank = _check_rank(rank, accurate, m, p, n)
-    if n_lambdas < 1:
-        raise InputError(f"n_lambdas must be at least 1; got {n_lambdas}")
-    lam_user = None if lambdas is None else as_lambdas(lambdas)
-    zy, y_mean = _householder(Y, fit_intercept)
-    t = Y.shape[1]
-    n_test = 0 if Yt is None else Yt.shape[0]
-    sweep = _Sweep(src, fit_intercept, standardize, test, test_rows=test_rows, y_size=y_size)
-    acc = _Accumulated(p, m, n_test if Yt is not None else None)
-    passes, notes = [], []
-    runner = _Runner(sweep, passes, progress, n * p * 8)
+    return multi, Y, Yt, test, test_rows, y_size
+
+
+def _factor_blocks(runner, acc, m, p, rank, accurate, oversample, power_iters, seed, rtol):
+    """``(u, d, d_all, tol, solver, reason)`` from the passes of the route asked for, refused
+    when nothing can be fitted."""
     if rank is None and not accurate:
         u, d, d_all, tol, solver, reason = _gram_route(runner, acc, m, rtol)
     elif accurate:
@@ -396,53 +438,71 @@ def wide_path(
     else:
         u, d, d_all, tol, solver, reason = _randomized_route(
             runner, acc, m, p, rank, oversample, power_iters, seed, rtol)
-    active = acc.active
-    if not active.any():
+    if not acc.active.any():
         raise InputError(f"every one of the {p} columns of X is constant; nothing to fit — "
                          "check the feature selection")
-    r = d.size
-    if r == 0:
+    if d.size == 0:
         raise InputError("the centered design is numerically zero; nothing to fit")
     _check_spectrum(d)
-    share = float(np.sum(np.square(d)) / acc.fro) if acc.fro > 0 else 1.0
-    approximate = rank is not None
-    if approximate:
+    return u, d, d_all, tol, solver, reason
+
+
+def _wide_notes(src, rank, r, share, test_rows, n_test) -> list:
+    """What a report states; a truncation (``rank``) is also a warning."""
+    notes = []
+    if rank is not None:
         msg = (f"--rank {rank}: the fit is ridge on the top {r} principal components, capturing "
                f"{100 * share:.2f}% of ||X||_F^2; the minimum-norm fit and the quantities near the "
                "interpolation threshold need the full spectrum and are approximations")
-        warnings.warn(msg, UserWarning, stacklevel=2)
+        warnings.warn(msg, UserWarning, stacklevel=3)
         notes.append(msg)
     if test_rows is not None:
         notes.append(f"holdout: {n_test} of {src.n_rows} rows held out as the test set "
                      "(paths.data.folds, as every engine splits)")
     notes += list(getattr(src, "notes", ()))
-    for a in (acc.x_mean, acc.x_scale, active, y_mean, zy, u, d):
+    if rank is None:
+        notes.append("n x n Gram over column blocks; the p x n factor was never formed")
+    return notes
+
+
+def _frozen_factors(acc, y_mean, zy, u, d, d_all, tol, solver, reason, n, fit_intercept,
+                    standardize):
+    """The read-only ``(Design, Factorization)`` of the accumulated column blocks."""
+    for a in (acc.x_mean, acc.x_scale, acc.active, y_mean, zy, u, d):
         a.flags.writeable = False
-    design = Design(zy=zy, x_mean=acc.x_mean, x_scale=acc.x_scale, y_mean=y_mean, active=active,
-                    n_samples=n, fit_intercept=fit_intercept, standardize=standardize)
+    design = Design(zy=zy, x_mean=acc.x_mean, x_scale=acc.x_scale, y_mean=y_mean,
+                    active=acc.active, n_samples=n, fit_intercept=fit_intercept,
+                    standardize=standardize)
+    r = d.size
     fac = Factorization(u=u, d=d, vt=np.empty((r, 0)), rank=r, tol=float(tol),
                         d_max=float(d_all[0]), d_min=float(d_all[-1]), solver=solver,
                         reason=reason)
-    state = algebra.factor_state(fac, design)
-    lam = default_grid(d, n_lambdas) if lam_user is None else lam_user
-    crit = algebra.criteria(state, lam)
+    return design, fac
+
+
+def _intercepts(state, lam, acc, y_mean):
+    """``(A, A0, intercepts, min-norm intercept)`` with the sample weights ``A``."""
     # standardized coefficients are Z^T a(lam) with a = U diag(g/d) c  (m, k, t)
     A = algebra.sample_weights(state, lam)
     A0 = algebra.sample_weights(state, [0.0])[:, 0]  # min-norm: gain 1/d, divided by d
     intercept = y_mean[None, :] - np.einsum("m,mkt->kt", acc.w, A)
     intercept0 = y_mean - acc.w @ A0
-    test_mse = test0 = None
-    if Yt is not None:
-        # the test rows' projections Z_test V = C U D^-1: the algebra's test error
-        proj = np.einsum("im,mr->ir", acc.C, u) / d
-        sums, sums0 = algebra.test_sums(state, lam, proj, Yt - y_mean)
-        test_mse, test0 = sums / n_test, sums0 / n_test
-    coef = coef0 = None
-    if coefficients:
-        coef, coef0 = _coefficient_pass(_Runner(
-            _Sweep(src, fit_intercept, standardize, test_rows=test_rows, y_size=y_size),
-            passes, progress, n * p * 8), A, A0, p, t)
+    return A, A0, intercept, intercept0
 
+
+def _test_errors(state, lam, acc, u, d, Yt, y_mean, n_test):
+    """``(test MSE, min-norm test MSE)`` from the test rows' cross Gram, or ``(None, None)``."""
+    if Yt is None:
+        return None, None
+    # the test rows' projections Z_test V = C U D^-1: the algebra's test error
+    proj = np.einsum("im,mr->ir", acc.C, u) / d
+    sums, sums0 = algebra.test_sums(state, lam, proj, Yt - y_mean)
+    return sums / n_test, sums0 / n_test
+
+
+def _squeezed(state, crit, lam, multi, fit_intercept, r, coef0, intercept, intercept0,
+              test_mse, test0):
+    """``(min-norm fit, per-penalty fields)``, one target squeezed, the arrays read-only."""
     def sq(a):
         return a if (multi or a is None) else a[..., 0]
 
@@ -456,16 +516,7 @@ def wide_path(
     for v in (*out.values(), crit.df, lam, *vars(min_norm).values()):
         if isinstance(v, np.ndarray):
             v.flags.writeable = False
-    if not approximate:
-        notes.append("n x n Gram over column blocks; the p x n factor was never formed")
-    return WidePath(
-        lambdas=lam, df=crit.df, fitted=None, rank=r, rank_tol=fac.tol, singular_values=d,
-        condition_number=fac.condition_number, min_norm=min_norm, solver=solver,
-        solver_reason=reason, n_samples=n, n_features=p, n_test=n_test,
-        fit_intercept=fit_intercept, standardize=standardize, feature_names=src.feature_names,
-        design=design, factorization=fac, uty=state.uty, penalty_convention=PENALTY_CONVENTION,
-        state=state, engine="wide", passes=tuple(passes), notes=tuple(notes), captured_share=share,
-        approximate=approximate, multi_target=multi, cache={"coef": sq(coef)}, **out)
+    return min_norm, out
 
 
 def _response_2d(y_arr: np.ndarray) -> np.ndarray:
