@@ -501,6 +501,120 @@ def _holdout_split(W, fraction: float, seed: int):
     return W[~held], W[held]
 
 
+def _checked_options(solver, accurate, fold_scheme, n_folds, repeats, cv_scaling, test,
+                     holdout, chunk_rows, n_lambdas):
+    """``(accurate, fold scheme)``, the options checked before any connection."""
+    accurate = solver_route(solver, accurate)
+    scheme = check_scheme(fold_scheme)
+    check_cv_options(n_folds, scheme, repeats, cv_scaling)
+    if test is not None and holdout is not None:
+        raise InputError("pass either a test set or a holdout fraction, not both")
+    if chunk_rows is not None and (int(chunk_rows) != chunk_rows or chunk_rows < 1):
+        raise InputError(f"chunk_rows must be a positive integer; got {chunk_rows!r}")
+    if n_lambdas < 1:
+        raise InputError(f"n_lambdas must be at least 1; got {n_lambdas}")
+    return accurate, scheme
+
+
+def _open_design(data, y, target, features, chunk_rows, encode, drop_missing, holdout, seed):
+    """``(W, held-out W or None, feature names, target names, preparation or None)``."""
+    prep = None
+    if encode or drop_missing is not None:
+        if not isinstance(data, (str, Path)):
+            raise InputError("encode and drop_missing need a CSV or Parquet file; pass "
+                             "its path")
+        W, prep = prepared_design(data, target, features, encode=encode,
+                                  drop_missing=drop_missing)
+        names, tnames = prep.names, list(prep.targets)
+        if chunk_rows is not None:
+            W = W.rechunk((int(chunk_rows), -1))
+    else:
+        W, names, tnames = as_dask_design(data, y, target=target, features=features,
+                                          chunk_rows=chunk_rows)
+    W_test = None
+    if holdout is not None:
+        W, W_test = _holdout_split(W, holdout, seed)
+    return W, W_test, names, tnames, prep
+
+
+def _moment_pass(W, data, names, tnames, accurate, compute, fit_intercept, standardize, label,
+                 passes, progress) -> Moments:
+    """The first pass: the moments of the row blocks, their ranges checked."""
+    p = len(names)
+    if progress:
+        progress(label, 0, W.shape[0])
+    t0 = time.perf_counter()
+    def checks(m):
+        check_moment_ranges(m, p, fit_intercept=fit_intercept, standardize=standardize,
+                            names=names + tnames, source=str(data) if isinstance(
+                                data, (str, Path)) else "")
+
+    mom = _moments(W, names + tnames, accurate, compute, checks)
+    checks(mom)
+    passes.append(PassInfo(label + (" (dask tsqr)" if accurate else ""), mom.n,
+                           time.perf_counter() - t0, mom.n * W.shape[1] * 8))
+    if progress:
+        progress(label, mom.n, mom.n)
+    if fit_intercept and mom.n < 2:
+        raise InputError(f"the data have {mom.n} row; at least 2 samples are needed")
+    return mom
+
+
+def _second_pass(W, fit, lam, p, n, cv, scheme, seed, repeats, fit_intercept, cv_scaling,
+                 compute, passes, progress, notes):
+    """``(hat pass, fold plan, loo MSE, min-norm loo MSE, loo SE, K-fold result or None)``."""
+    label2 = ("pass 2/2: hat diagonals for exact leave-one-out (dask delayed tree)"
+              + (f" and {cv}-fold CV" if cv else ""))
+    if progress:
+        progress(label2, 0, n)
+    t0 = time.perf_counter()
+    plan = None if not cv else fold_plan(
+        n, cv, scheme=scheme, seed=int(seed), repeats=repeats, fit_intercept=fit_intercept)
+    hp = _hat_tree(W, fit, lam, p, plan, compute, cv_scaling)
+    passes.append(PassInfo(label2, n, time.perf_counter() - t0, n * W.shape[1] * 8))
+    if progress:
+        progress(label2, n, n)
+    loo_mse, loo0 = hp.loo()
+    loo_se = hp.loo_with_se()[1]
+    cvres = None
+    if cv:
+        cvres = hp.kfold()
+        notes.append(cv_note(plan, cv_scaling))
+    return hp, plan, loo_mse, loo0, loo_se, cvres
+
+
+def _test_design(W_test, test, y_test, prep, target, names, tnames, chunk_rows):
+    """The test rows as a row-blocked array: the holdout, or the test data prepared alike."""
+    if W_test is not None:
+        return W_test
+    if prep is not None:
+        return prepared_design(test, None, like=prep)[0]
+    return as_dask_design(
+        test, y_test, target=target if target is not None else tnames,
+        features=names if not hasattr(test, "shape") else None,
+        chunk_rows=chunk_rows)[0]
+
+
+def _test_pass(Wt, W, fit, lam, p, tnames, compute, passes):
+    """``(test MSE, min-norm test MSE, n_test)`` from the test rows' blocks on the cluster."""
+    if Wt.shape[1] != W.shape[1]:
+        raise InputError(f"the test data have {Wt.shape[1] - len(tnames)} feature "
+                         f"columns but the training data {p}; pass the same features")
+    k, t = lam.size, fit.uty.shape[1]
+    t0 = time.perf_counter()
+    parts = Wt.map_blocks(_test_block, fit, lam, p,
+                          chunks=((1,) * Wt.numblocks[0], (k * t + t + 1,)),
+                          dtype=np.float64, meta=np.empty((0, 0)))
+    vec = np.asarray(compute(parts.sum(axis=0))[0])
+    n_test = int(round(vec[-1]))
+    if n_test == 0:
+        raise InputError("the test data have no rows; pass test rows")
+    test_res = (vec[:k * t].reshape(k, t) / n_test, vec[k * t:k * t + t] / n_test, n_test)
+    passes.append(PassInfo("test rows: test error (dask delayed tree)", n_test,
+                           time.perf_counter() - t0, n_test * Wt.shape[1] * 8))
+    return test_res
+
+
 def dask_path(
     data,
     lambdas=None,
@@ -579,54 +693,19 @@ def dask_path(
     >>> dask_path(X, y=y, lambdas=[1.0, 0.1], loo=False).coef.shape
     (2, 5)
     """
-    accurate = solver_route(solver, accurate)
-    scheme = check_scheme(fold_scheme)
-    check_cv_options(n_folds, scheme, repeats, cv_scaling)
+    accurate, scheme = _checked_options(solver, accurate, fold_scheme, n_folds, repeats,
+                                        cv_scaling, test, holdout, chunk_rows, n_lambdas)
     cv = n_folds
-    if test is not None and holdout is not None:
-        raise InputError("pass either a test set or a holdout fraction, not both")
-    if chunk_rows is not None and (int(chunk_rows) != chunk_rows or chunk_rows < 1):
-        raise InputError(f"chunk_rows must be a positive integer; got {chunk_rows!r}")
-    if n_lambdas < 1:
-        raise InputError(f"n_lambdas must be at least 1; got {n_lambdas}")
     lam_user = None if lambdas is None else as_lambdas(lambdas)
     with connect(scheduler, timeout) as client:
         compute = _computer(client)
-        prep = None
-        if encode or drop_missing is not None:
-            if not isinstance(data, (str, Path)):
-                raise InputError("encode and drop_missing need a CSV or Parquet file; pass "
-                                 "its path")
-            W, prep = prepared_design(data, target, features, encode=encode,
-                                      drop_missing=drop_missing)
-            names, tnames = prep.names, list(prep.targets)
-            if chunk_rows is not None:
-                W = W.rechunk((int(chunk_rows), -1))
-        else:
-            W, names, tnames = as_dask_design(data, y, target=target, features=features,
-                                              chunk_rows=chunk_rows)
-        W_test = None
-        if holdout is not None:
-            W, W_test = _holdout_split(W, holdout, seed)
+        W, W_test, names, tnames, prep = _open_design(data, y, target, features, chunk_rows,
+                                                      encode, drop_missing, holdout, seed)
         p = len(names)
         passes = []
         label1 = "pass 1/2: moments on the cluster" if (loo or cv) else "pass 1/1: moments"
-        if progress:
-            progress(label1, 0, W.shape[0])
-        t0 = time.perf_counter()
-        def checks(m):
-            check_moment_ranges(m, p, fit_intercept=fit_intercept, standardize=standardize,
-                                names=names + tnames, source=str(data) if isinstance(
-                                    data, (str, Path)) else "")
-
-        mom = _moments(W, names + tnames, accurate, compute, checks)
-        checks(mom)
-        passes.append(PassInfo(label1 + (" (dask tsqr)" if accurate else ""), mom.n,
-                               time.perf_counter() - t0, mom.n * W.shape[1] * 8))
-        if progress:
-            progress(label1, mom.n, mom.n)
-        if fit_intercept and mom.n < 2:
-            raise InputError(f"the data have {mom.n} row; at least 2 samples are needed")
+        mom = _moment_pass(W, data, names, tnames, accurate, compute, fit_intercept, standardize,
+                           label1, passes, progress)
         fit = factor_moments(mom, p, fit_intercept=fit_intercept, standardize=standardize,
                              rtol=rtol, rank=rank, names=names + tnames, requested=solver)
         fac = replace(fit.fac, solver=fit.fac.solver.replace("stream-", "dask-"))
@@ -637,50 +716,13 @@ def dask_path(
                  + (f", scheduler {scheduler}" if scheduler else "")]
         notes += [] if prep is None else list(prep.notes)
         if loo or cv:
-            label2 = ("pass 2/2: hat diagonals for exact leave-one-out (dask delayed tree)"
-                      + (f" and {cv}-fold CV" if cv else ""))
-            if progress:
-                progress(label2, 0, mom.n)
-            t0 = time.perf_counter()
-            plan = None if not cv else fold_plan(
-                mom.n, cv, scheme=scheme, seed=int(seed), repeats=repeats,
-                fit_intercept=fit_intercept)
-            hp = _hat_tree(W, fit, lam, p, plan, compute, cv_scaling)
-            passes.append(PassInfo(label2, mom.n, time.perf_counter() - t0,
-                                   mom.n * W.shape[1] * 8))
-            if progress:
-                progress(label2, mom.n, mom.n)
-            loo_mse, loo0 = hp.loo()
-            loo_se = hp.loo_with_se()[1]
-            if cv:
-                cvres = hp.kfold()
-                notes.append(cv_note(plan, cv_scaling))
+            hp, plan, loo_mse, loo0, loo_se, cvres = _second_pass(
+                W, fit, lam, p, mom.n, cv, scheme, seed, repeats, fit_intercept, cv_scaling,
+                compute, passes, progress, notes)
         test_res = None
         if test is not None or W_test is not None:
-            if W_test is not None:
-                Wt = W_test
-            elif prep is not None:
-                Wt = prepared_design(test, None, like=prep)[0]
-            else:
-                Wt = as_dask_design(
-                    test, y_test, target=target if target is not None else tnames,
-                    features=names if not hasattr(test, "shape") else None,
-                    chunk_rows=chunk_rows)[0]
-            if Wt.shape[1] != W.shape[1]:
-                raise InputError(f"the test data have {Wt.shape[1] - len(tnames)} feature "
-                                 f"columns but the training data {p}; pass the same features")
-            k, t = lam.size, fit.uty.shape[1]
-            t0 = time.perf_counter()
-            parts = Wt.map_blocks(_test_block, fit, lam, p,
-                                  chunks=((1,) * Wt.numblocks[0], (k * t + t + 1,)),
-                                  dtype=np.float64, meta=np.empty((0, 0)))
-            vec = np.asarray(compute(parts.sum(axis=0))[0])
-            n_test = int(round(vec[-1]))
-            if n_test == 0:
-                raise InputError("the test data have no rows; pass test rows")
-            test_res = (vec[:k * t].reshape(k, t) / n_test, vec[k * t:k * t + t] / n_test, n_test)
-            passes.append(PassInfo("test rows: test error (dask delayed tree)", n_test,
-                                   time.perf_counter() - t0, n_test * Wt.shape[1] * 8))
+            Wt = _test_design(W_test, test, y_test, prep, target, names, tnames, chunk_rows)
+            test_res = _test_pass(Wt, W, fit, lam, p, tnames, compute, passes)
     def one_pass(lam_new):  # leave-one-out at new penalties: the cluster again
         with connect(scheduler, timeout) as client2:
             return _hat_tree(W, fit, as_lambdas(lam_new), p, None,
