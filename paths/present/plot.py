@@ -520,17 +520,7 @@ def plot_coef_path(result, ax=None, *, x: str = "df", scale: str = "standardized
     """
     ax = _new_axes(ax)
     xv, xlabel = _x_of(result, x)
-    if scale == "standardized":
-        coef = _first(result, "coef_std", "coef")
-    elif scale == "original":
-        coef = _get(result, "coef")
-    else:
-        raise InputError(f"scale must be 'standardized' or 'original'; got {scale!r}")
-    if coef is None:
-        raise InputError("the result has no 'coef'; pass a RidgePath or a mapping with 'coef'")
-    coef = np.asarray(coef, dtype=np.float64)
-    if coef.ndim == 3:
-        coef = coef[:, :, target]
+    coef = _coef_on_scale(result, scale, target)
     names = list(_get(result, "feature_names") or [f"x{j}" for j in range(coef.shape[1])])
     unpen = set(_get(result, "unpenalized") or [])  # said on the curve: not shrunk
     names = [f"{c} (unpenalized)" if c in unpen else c for c in names]
@@ -538,17 +528,7 @@ def plot_coef_path(result, ax=None, *, x: str = "df", scale: str = "standardized
     art = Artists(ax=ax, x_quantity=xlabel,
                   y_quantity="coefficient (standardized scale)" if scale == "standardized"
                   and _get(result, "coef_std") is not None else "coefficient (original scale)")
-    lam = np.asarray(_get(result, "lambdas"), dtype=float)
-    ref_i, ref_rule = None, None
-    for rule, sel in sorted(sels.items(), key=lambda kv: kv[0] != reported):
-        if sel["lambda"] is None:
-            continue
-        ref_rule = rule
-        ref_i = sel["index"] if sel.get("index") is not None else \
-            int(np.argmin(np.abs(np.log(lam + 1e-300) - np.log(max(sel["lambda"], 1e-300)))))
-        break
-    if ref_i is None:
-        ref_i = int(np.nanargmax(xv)) if x == "df" else int(np.nanargmin(xv))
+    ref_i, ref_rule = _reported_index(result, sels, reported, xv, x)
     top = np.argsort(-np.abs(coef[ref_i]))[:max(0, min(n_labels, coef.shape[1]))]
     others = np.setdiff1d(np.arange(coef.shape[1]), top)
     ok = np.isfinite(xv)
@@ -571,27 +551,7 @@ def plot_coef_path(result, ax=None, *, x: str = "df", scale: str = "standardized
     ax.autoscale_view()
     _end_labels(art, xv[ok], coef[ok][:, top], [names[j] for j in top], x)
     if ref_rule is not None and top.size:
-        xs = _x_of_penalty(result, sels[ref_rule]["lambda"], sels[ref_rule]["df"], x)
-        if np.isfinite(xs):
-            ys = [float(np.interp(xs, *_sorted_xy(xv[ok], coef[ok, j]))) for j in top]
-            (dots,) = ax.plot([xs] * len(ys), ys, linestyle="none", marker="o", markersize=3,
-                              color="black", zorder=6, label="_nolegend_")
-            art.markers["reported_coefficients"] = dots
-            art.traces.append(Trace(f"at reported ({_rule_label(ref_rule)})", "marker",
-                                    np.full(len(ys), xs), np.asarray(ys)))
-            (wedge,) = ax.plot([xs], [0.0], transform=ax.get_xaxis_transform(), marker="^",
-                               markersize=6, color="black", clip_on=False, zorder=6,
-                               linestyle="none", label="_nolegend_")
-            art.markers["reported"] = wedge
-            right = _xfrac(ax, xs)[0] > 0.6
-            art.texts.append(ax.annotate(f"reported ({_rule_label(ref_rule)})", (xs, 0.0),
-                                         xycoords=ax.get_xaxis_transform(),
-                                         xytext=(-6 if right else 4, 3),
-                                         textcoords="offset points", fontsize=NOTE_PT,
-                                         ha="right" if right else "left", va="bottom",
-                                         bbox=dict(boxstyle="square,pad=0.1",
-                                                   facecolor="white", edgecolor="none",
-                                                   alpha=0.85)))
+        _mark_reported(art, result, sels[ref_rule], ref_rule, xv[ok], coef[ok][:, top], x)
     if others.size:
         art.texts.append(ax.legend(handles=[art.bands["others"]], loc="upper left",
                                    fontsize=NOTE_PT, frameon=False, handlelength=1.4,
@@ -600,6 +560,66 @@ def plot_coef_path(result, ax=None, *, x: str = "df", scale: str = "standardized
     ax.set_ylabel(art.y_quantity)
     _lambda_axis(art, result, x)
     return art
+
+
+def _coef_on_scale(result, scale: str, target: int) -> np.ndarray:
+    """The coefficients (k × p) of one target on the asked scale."""
+    if scale == "standardized":
+        coef = _first(result, "coef_std", "coef")
+    elif scale == "original":
+        coef = _get(result, "coef")
+    else:
+        raise InputError(f"scale must be 'standardized' or 'original'; got {scale!r}")
+    if coef is None:
+        raise InputError("the result has no 'coef'; pass a RidgePath or a mapping with 'coef'")
+    coef = np.asarray(coef, dtype=np.float64)
+    if coef.ndim == 3:
+        coef = coef[:, :, target]
+    return coef
+
+
+def _reported_index(result, sels, reported, xv, x):
+    """``(index, rule)`` of the reported penalty: the rule ``reported`` first, then the first
+    selected; without one, the least penalized end of the grid and ``None``."""
+    lam = np.asarray(_get(result, "lambdas"), dtype=float)
+    ref_i, ref_rule = None, None
+    for rule, sel in sorted(sels.items(), key=lambda kv: kv[0] != reported):
+        if sel["lambda"] is None:
+            continue
+        ref_rule = rule
+        ref_i = sel["index"] if sel.get("index") is not None else \
+            int(np.argmin(np.abs(np.log(lam + 1e-300) - np.log(max(sel["lambda"], 1e-300)))))
+        break
+    if ref_i is None:
+        ref_i = int(np.nanargmax(xv)) if x == "df" else int(np.nanargmin(xv))
+    return ref_i, ref_rule
+
+
+def _mark_reported(art: Artists, result, sel, rule, xs_all, coefs, x) -> None:
+    """Dots on the named lines and a labelled wedge on the x axis at the reported penalty."""
+    ax = art.ax
+    xs = _x_of_penalty(result, sel["lambda"], sel["df"], x)
+    if not np.isfinite(xs):
+        return
+    ys = [float(np.interp(xs, *_sorted_xy(xs_all, c))) for c in coefs.T]
+    (dots,) = ax.plot([xs] * len(ys), ys, linestyle="none", marker="o", markersize=3,
+                      color="black", zorder=6, label="_nolegend_")
+    art.markers["reported_coefficients"] = dots
+    art.traces.append(Trace(f"at reported ({_rule_label(rule)})", "marker",
+                            np.full(len(ys), xs), np.asarray(ys)))
+    (wedge,) = ax.plot([xs], [0.0], transform=ax.get_xaxis_transform(), marker="^",
+                       markersize=6, color="black", clip_on=False, zorder=6,
+                       linestyle="none", label="_nolegend_")
+    art.markers["reported"] = wedge
+    right = _xfrac(ax, xs)[0] > 0.6
+    art.texts.append(ax.annotate(f"reported ({_rule_label(rule)})", (xs, 0.0),
+                                 xycoords=ax.get_xaxis_transform(),
+                                 xytext=(-6 if right else 4, 3),
+                                 textcoords="offset points", fontsize=NOTE_PT,
+                                 ha="right" if right else "left", va="bottom",
+                                 bbox=dict(boxstyle="square,pad=0.1",
+                                           facecolor="white", edgecolor="none",
+                                           alpha=0.85)))
 
 
 def _sorted_xy(xs, ys):
