@@ -7,6 +7,7 @@ threshold → present → workflows → cli; a module may import from its own la
 and the layers before it.  A name with a leading underscore is private to its
 module (PEP 8, "Descriptive: Naming Styles"): importing one from another module
 fails.  The package root (``paths/__init__.py``, a lazy name table) is exempt.
+No function is longer than the style limit (docstring aside).
 """
 from __future__ import annotations
 
@@ -112,3 +113,33 @@ def test_functions_of_the_orchestration_layers_are_short(layer):
                     long.append(f"{path.relative_to(ROOT.parent)}:{node.lineno} {node.name}: "
                                 f"{n} lines")
     assert long == [], "functions over 80 lines:\n" + "\n".join(long)
+
+
+# The project's style rule (functions short, one job each): common practice, no source.
+MAX_FUNCTION_LINES = 80
+
+
+def _body_lines(node) -> int:
+    """Lines of a function (signature included) less those of its docstring."""
+    n = node.end_lineno - node.lineno + 1
+    first = node.body[0] if node.body else None
+    if (isinstance(first, ast.Expr) and isinstance(first.value, ast.Constant)
+            and isinstance(first.value.value, str)):
+        n -= first.end_lineno - first.lineno + 1
+    return n
+
+
+def test_no_function_is_longer_than_the_style_limit():
+    """Every function of ``paths/`` (methods and nested functions too) has at most
+    ``MAX_FUNCTION_LINES`` lines besides its docstring."""
+    long = []
+    for path in MODULES.values():
+        tree = ast.parse(path.read_text(encoding="utf-8"), filename=str(path))
+        for node in ast.walk(tree):
+            if isinstance(node, (ast.FunctionDef, ast.AsyncFunctionDef)):
+                n = _body_lines(node)
+                if n > MAX_FUNCTION_LINES:
+                    long.append(f"{path.relative_to(ROOT.parent)}:{node.lineno} {node.name}: "
+                                f"{n} lines (docstring aside)")
+    assert long == [], (f"functions over {MAX_FUNCTION_LINES} lines; split them into private "
+                        "helpers with one job each:\n" + "\n".join(long))
