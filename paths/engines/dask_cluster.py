@@ -557,7 +557,9 @@ def dask_path(
         same holdout rows; the holdout's row mask, one byte per row, is made on
         the client).
     progress : callable, optional
-        ``progress(label, done, total)`` at the start and end of each pass.
+        ``progress(label, done, total)`` at the start and end of each pass; with
+        ``n_folds``, also the K-fold stage (:data:`paths.data.folds.KFOLD_STAGE`)
+        once per fold (times the repeats), as in :func:`paths.engines.stream.stream_path`.
 
     Returns
     -------
@@ -653,7 +655,7 @@ def dask_path(
             loo_mse, loo0 = hp.loo()
             loo_se = hp.loo_with_se()[1]
             if cv:
-                cvres = hp.kfold()
+                cvres = hp.kfold(progress)
                 notes.append(cv_note(plan, cv_scaling))
         test_res = None
         if test is not None or W_test is not None:
