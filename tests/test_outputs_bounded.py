@@ -76,3 +76,24 @@ def test_explorer_covers_every_target_within_its_byte_budget(tmp_path):
     assert [t["name"] for t in small["targets"]] == ["y"] and small["left_out"] == ["z"]
     page = explorer_section(run.result, run.summary, max_bytes=1)
     assert "left out: z" in page and '<option value="1">' not in page
+
+
+def test_coefficient_parquet_of_several_targets(tmp_path, monkeypatch):
+    """Two targets past the CSV limit: the Parquet table (read back by pandas) holds each
+    target's rows under a text ``target`` column, the float64 values unchanged."""
+    from paths import fit_path
+    from paths.workflows.explore import per_target
+
+    monkeypatch.setattr(summary_mod, "COEFFICIENTS_CSV_LIMIT", 100)
+    rng = np.random.default_rng(5)
+    X, Y = rng.standard_normal((30, 60)), rng.standard_normal((30, 2))
+    res = fit_path(X, Y, n_lambdas=12)
+    written = summary_mod.write_coefficients(
+        tmp_path, *per_target(summary_mod.coefficient_table, res, ["a", "b"]))
+    assert written.name == "coefficients.parquet"
+    table = pd.read_parquet(written)
+    assert list(table.columns[:3]) == ["target", "lambda", "intercept"]
+    for j, name in enumerate(["a", "b"]):  # exact: Parquet stores float64 values unchanged
+        part = table[table["target"] == name]
+        assert_allclose(part[res.feature_names].to_numpy(), res.coef_of(j), rtol=0)  # exact:
+        assert_allclose(part["lambda"].to_numpy(), res.lambdas, rtol=0)  # exact: as stored

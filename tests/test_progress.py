@@ -129,6 +129,113 @@ def test_threshold_plan_and_predict_report_their_stages(table, tmp_path):
     rec.check_protocol()
 
 
+# ------------------------------------------------------------ the K-fold stage, fold by fold
+@pytest.fixture(scope="module")
+def tall(tmp_path_factory):
+    """A small invented tall table (seeded; more rows than columns: the row engines)."""
+    path = tmp_path_factory.mktemp("progress_tall") / "tall.csv"
+    rng = np.random.default_rng(11)
+    X = rng.standard_normal((60, 5))
+    y = X[:, 0] - 0.5 * X[:, 1] + 0.3 * rng.standard_normal(60)
+    lines = [",".join([*(f"x{j}" for j in range(5)), "y"])]
+    lines += [",".join(f"{v:.6f}" for v in (*row, t)) for row, t in zip(X, y)]
+    path.write_text("\n".join(lines) + "\n")
+    return path
+
+
+def assert_counts_folds(rec, total):
+    """The K-fold stage went 0, 1, .., total (folds times repeats), in order, once."""
+    calls = [(d, t) for s, d, t in rec.calls if s == S.KFOLD]
+    assert [d for d, _ in calls] == list(range(total + 1)), calls
+    assert {t for _, t in calls} == {total}, calls
+    names = rec.stages()
+    assert names.index(S.KFOLD) < names.index(S.SELECT), names
+
+
+def _explore(file, out, engine, scaling, progress):
+    from paths.workflows.explore import run_explore
+
+    return run_explore(DataOptions(file=file, target="y"),
+                       FitOptions(n_lambdas=10, n_folds=3, repeats=2, cv_scaling=scaling),
+                       FigureOptions(formats=(), report=False), OutputOptions(out_dir=out),
+                       engine=EngineOptions(engine=engine), progress=progress)
+
+
+# memory on wide and tall data (the dual and the primal exact routes; per-fold: refits),
+# stream and dask on tall data (rows), stream on wide data (the wide engine, columns)
+ENGINE_CASES = [("memory", "table"), ("memory", "tall"), ("stream", "tall"), ("dask", "tall"),
+                ("stream", "table")]
+
+
+@pytest.mark.parametrize("scaling", ["global", "per-fold"])
+@pytest.mark.parametrize("engine,data", ENGINE_CASES)
+def test_kfold_stage_counts_folds_times_repeats_on_every_engine(table, tall, tmp_path, engine,
+                                                                data, scaling):
+    """3 folds x 2 repeats: the K-fold stage reports 0..6 of 6, and the numbers of
+    the run are the same bit for bit with and without a progress callback."""
+    if engine == "dask":
+        pytest.importorskip("dask.array")
+    file = table[0] if data == "table" else tall
+    rec = Recorder()
+    run = _explore(file, tmp_path / "a", engine, scaling, rec)
+    assert_counts_folds(rec, 6)
+    rec.check_protocol()
+    if data == "table" and engine == "stream":
+        assert run.summary["engine"]["engine"] == "wide"
+    quiet = _explore(file, tmp_path / "b", engine, scaling, None)
+    # exact: the same operations in the same order; the callback only counts
+    assert quiet.summary["cv"] == run.summary["cv"]
+    assert quiet.summary["selected"]["cv"] == run.summary["selected"]["cv"]
+
+
+@pytest.mark.parametrize("kind", ["dual", "primal", "refit"])
+def test_cross_validate_counts_folds_and_keeps_its_numbers(kind):
+    """Every route of :func:`cross_validate` counts the folds x repeats in order;
+    the errors are bit-identical with and without the callback."""
+    from paths.selection.cv import cross_validate
+
+    rng = np.random.default_rng(3)
+    n, p = (20, 40) if kind == "dual" else (60, 5)
+    X = rng.standard_normal((n, p))
+    y = X[:, 0] + rng.standard_normal(n)
+    kw = dict(n_folds=4, repeats=3, seed=2,
+              scaling="per-fold" if kind == "refit" else "global")
+    seen = []
+    cv = cross_validate(X, y, [0.1, 1.0, 10.0], progress=lambda *a: seen.append(a), **kw)
+    ref = cross_validate(X, y, [0.1, 1.0, 10.0], **kw)
+    assert cv.form == kind
+    assert seen == [(S.KFOLD, d, 12) for d in range(13)]
+    # exact: the same operations in the same order; the callback only counts
+    assert np.array_equal(cv.fold_mse, ref.fold_mse) and np.array_equal(cv.mse, ref.mse)
+    assert np.array_equal(cv.se, ref.se) and np.array_equal(cv.se_repeats, ref.se_repeats)
+
+
+@pytest.mark.parametrize("scaling", ["global", "per-fold"])
+def test_stream_path_counts_folds_once(scaling):
+    """The streamed engine counts its folds on its pass; the workflow's CV result from
+    the same fold statistics at the grid reuses those errors (no second count)."""
+    from paths.engines.stream import stream_path
+    from paths.selection.cv import cv_from_fold_stats
+
+    rng = np.random.default_rng(5)
+    X = rng.standard_normal((90, 4))
+    y = X[:, 0] + rng.standard_normal(90)
+    rec = Recorder()
+    res = stream_path(X, y=y, chunk_rows=25, n_lambdas=8, n_folds=5, repeats=2,
+                      cv_scaling=scaling, progress=rec)
+    ref = stream_path(X, y=y, chunk_rows=25, n_lambdas=8, n_folds=5, repeats=2,
+                      cv_scaling=scaling)
+    calls = [c for c in rec.calls if c[0] == S.KFOLD]
+    assert calls == [(S.KFOLD, d, 10) for d in range(11)]
+    # exact: the same operations in the same order; the callback only counts
+    assert np.array_equal(res.cv_mse, ref.cv_mse) and np.array_equal(res.cv_se, ref.cv_se)
+    again = Recorder()
+    cv = cv_from_fold_stats(res.fold_stats, res.fold_plan, res.lambdas, multi_target=False,
+                            progress=again)
+    assert again.calls == []
+    assert np.array_equal(cv.mse, ref.cv_mse)  # exact: the pass's own errors, reused
+
+
 @pytest.fixture()
 def terminal(monkeypatch):
     """Standard error as a terminal (rich's force_terminal) writing into a buffer."""
@@ -161,6 +268,23 @@ def test_cli_quiet_silences_progress(table, tmp_path, terminal):
     res = runner.invoke(app, ["--quiet", *_explore_args(table, tmp_path / "o")])
     assert res.exit_code == 0, res.output
     assert terminal.getvalue() == "" and res.stdout == ""
+
+
+@pytest.mark.parametrize("engine", ["memory", "stream"])
+def test_cli_quiet_prints_nothing_with_folds_and_repeats(tall, tmp_path, terminal, engine):
+    res = runner.invoke(app, ["--quiet", "explore", str(tall), "--target", "y", "--n-folds",
+                              "4", "--repeats", "2", "--engine", engine, "--out",
+                              str(tmp_path / "o"), "--format", "none", "--no-report"])
+    assert res.exit_code == 0, res.output
+    assert terminal.getvalue() == "" and res.stdout == "" and res.stderr == ""
+
+
+def test_cli_draws_the_fold_count(tall, tmp_path, terminal):
+    res = runner.invoke(app, ["explore", str(tall), "--target", "y", "--n-folds", "4",
+                              "--repeats", "2", "--out", str(tmp_path / "o"), "--format",
+                              "none", "--no-report"])
+    assert res.exit_code == 0, res.output
+    assert S.KFOLD in terminal.getvalue() and "/8" in terminal.getvalue()
 
 
 def test_cli_json_keeps_standard_output_for_the_json(table, tmp_path, terminal):

@@ -145,8 +145,9 @@ N_LAMBDAS = typer.Option(o.FitOptions.n_lambdas, "--n-lambdas", help="Number of 
 N_POINTS = typer.Option(o.ThresholdOptions.n_points, "--n-points", help="Sweep points, dense around the threshold.")
 
 # ------------------------------------------------------------------ figures and output
-FORMATS = typer.Option(",".join(o.FigureOptions.formats), "--format", help="Figure formats, comma-separated: png "
-                       "(300 dpi), pdf (TrueType fonts), svg; or none.")
+FORMATS = typer.Option(",".join(o.FigureOptions.formats), "--format", help="Figure formats, comma-separated: svg "
+                       "(vector, inlined in the report), pdf (TrueType fonts), png (300 dpi); or "
+                       "none.")
 WIDTH = typer.Option(o.FigureOptions.width, "--width", help="Figure width: single (3.5 in) or double "
                      "(7.2 in) journal column.")
 FIGURE_X = typer.Option(o.FigureOptions.figure_x, "--figure-x", help="Path figures against log_lambda or df "

@@ -87,7 +87,8 @@ __all__ = [
     "shrunk_projections", "LOO_BLOCK_ELEMS", "LOO_PER_PENALTY_TARGETS", "loo_row_weights", "gcv_paired", "reml_paired", "coefficients_paired",
     "path_intercepts",
     "loo_residuals", "project", "test_sums", "coefficients", "min_norm_coefficients",
-    "intercepts", "coef_norm", "append_zero", "sample_weights", "path_coef_norm", "fold_factor", "kfold_fold_mse", "tsqr",
+    "intercepts", "coef_norm", "append_zero", "sample_weights", "path_coef_norm", "fold_factor", "kfold_fold_mse",
+    "kfold_fold_errors", "tsqr",
     "block_sse", "loo_power_sums", "loo_standard_error", "HeldOutFold", "heldout_mse",
 ]
 
@@ -1195,20 +1196,29 @@ def kfold_fold_mse(d: np.ndarray, fold_r: np.ndarray, counts: np.ndarray, lam, *
     """
     lam = _lam(lam)
     K, w_all, _ = fold_r.shape
+    out = np.empty((K, lam.size, w_all - d.size - int(n_fixed)))
+    for f, mse in enumerate(kfold_fold_errors(d, fold_r, counts, lam, n_fixed=n_fixed,
+                                              rtol=rtol)):
+        out[f] = mse
+    return out
+
+
+def kfold_fold_errors(d: np.ndarray, fold_r: np.ndarray, counts: np.ndarray, lam, *,
+                      n_fixed: int, rtol: float | None = None):
+    """Yield the held-out MSE (k, t) of fold 0, 1, .. K-1 in turn: :func:`kfold_fold_mse`
+    one fold at a time (same arguments, same numbers), for a caller that counts folds."""
+    lam = _lam(lam)
     r = d.size
     ra = r + int(n_fixed)
-    t = w_all - ra
     if rtol is None:
         rtol = max(int(np.sum(counts)), r) * _EPS
-    out = np.empty((K, lam.size, t))
     for f, Ro in enumerate(_other_factors(fold_r)):
         X = _refit_coords(Ro, d, lam, ra, int(n_fixed), rtol)  # (ra, k, t)
         Rf = fold_r[f]
         fit = np.einsum("ij,jkt->ikt", Rf[:ra, :ra], X)
         res = Rf[:ra, None, ra:] - fit
         rest = np.einsum("it,it->t", Rf[ra:, ra:], Rf[ra:, ra:])
-        out[f] = (np.einsum("ikt,ikt->kt", res, res) + rest[None, :]) / counts[f]
-    return out
+        yield (np.einsum("ikt,ikt->kt", res, res) + rest[None, :]) / counts[f]
 
 
 def block_sse(coef: np.ndarray, n: int, dmean: np.ndarray, *, m2: np.ndarray | None = None,

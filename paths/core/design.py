@@ -111,7 +111,11 @@ class Design:
     def transform(self, X: np.ndarray) -> np.ndarray:
         """Center and scale new rows the way the training rows were (active columns)."""
         a = self.active
-        return (X[:, a] - self.x_mean[a]) / self.x_scale[a]
+        # one new array, centered and scaled in place (the same operations, the same numbers)
+        z = np.array(X, dtype=np.float64) if a.all() else np.asarray(X[:, a], dtype=np.float64)
+        z -= self.x_mean[a]
+        z /= self.x_scale[a]
+        return z
 
 
 def reduce_rows(A: np.ndarray, mean: np.ndarray) -> np.ndarray:

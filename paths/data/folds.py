@@ -37,9 +37,11 @@ import numpy as np
 from paths.data.validation import InputError
 
 __all__ = ["permuted_index", "fold_labels", "holdout_mask", "holdout_count", "group_folds",
-           "SCHEMES"]
+           "SCHEMES", "KFOLD_STAGE", "FoldCount"]
 
 SCHEMES = ("shuffled", "blocked", "grouped")
+#: The progress stage under which every engine counts its folds (``paths.workflows.stages.KFOLD``).
+KFOLD_STAGE = "K-fold cross-validation"
 _MASK64 = (1 << 64) - 1
 _ROUNDS = 6
 _PURPOSE = {"folds": 0x66_6F_6C_64_73, "holdout": 0x68_6F_6C_64_6F_75_74}
@@ -253,3 +255,33 @@ def group_folds(counts, n_folds: int, *, seed: int = 0, repeat: int = 0) -> np.n
         fold_of[grp] = f
         load[f] += counts[grp]
     return fold_of
+
+
+class FoldCount:
+    """Report finished folds as ``progress(KFOLD_STAGE, done, total)``.
+
+    ``(KFOLD_STAGE, 0, total)`` when made, then one more fold at each
+    :meth:`tick`; ``total`` is the number of folds times the repeats.  With
+    ``progress=None`` nothing is reported (and nothing else changes).
+
+    Examples
+    --------
+    >>> seen = []
+    >>> count = FoldCount(lambda *a: seen.append(a[1:]), 2)
+    >>> [count.tick(x) for x in "ab"]
+    ['a', 'b']
+    >>> seen
+    [(0, 2), (1, 2), (2, 2)]
+    """
+
+    def __init__(self, progress, total: int):
+        self.progress, self.total, self.done = progress, int(total), 0
+        if progress is not None:
+            progress(KFOLD_STAGE, 0, self.total)
+
+    def tick(self, value=None):
+        """Count one more finished fold; returns ``value`` (to count inside an expression)."""
+        self.done += 1
+        if self.progress is not None:
+            self.progress(KFOLD_STAGE, self.done, self.total)
+        return value

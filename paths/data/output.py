@@ -32,7 +32,6 @@ written as numbers.
 """
 from __future__ import annotations
 
-import csv
 import io
 import json
 import os
@@ -42,9 +41,11 @@ import tempfile
 import time
 from pathlib import Path
 
+import numpy as np
+
 from paths.data.validation import InputError
 
-__all__ = ["OutputError", "OutputFolder", "prepare_out_dir", "write_text", "write_bytes",
+__all__ = ["OutputError", "OutputFolder", "prepare_out_dir", "write_text", "write_bytes", "write_columns",
            "write_json", "write_csv", "safe_cell", "confined_name", "input_at"]
 
 LOCK = ".paths-lock"
@@ -430,15 +431,59 @@ def write_csv(path: str | os.PathLike, header, rows) -> Path:
     Text cells that a spreadsheet would evaluate are neutralised (:func:`safe_cell`).
     """
     buf = io.StringIO()
-    w = csv.writer(buf, lineterminator="\n")
-    w.writerow([safe_cell(str(h)) for h in header])
+    buf.write(",".join(_cell_text(str(h)) for h in header) + "\n")
     for row in rows:
         try:  # a row of floats only (the wide tables): joined directly, the same text
             buf.write(",".join(map(float.__repr__, row)) + "\n")
         except TypeError:
-            w.writerow(["" if v is None else (repr(float(v)) if isinstance(v, float)
-                                              else safe_cell(v)) for v in row])
+            buf.write(",".join(map(_cell_text, row)) + "\n")
     return write_text(path, buf.getvalue())
+
+
+def write_columns(path: str | os.PathLike, header, columns) -> Path:
+    """Write a CSV given column by column (equal lengths); the same text as :func:`write_csv`
+    of the rows, each column formatted once instead of cell by cell.
+
+    A float column is written at full precision (repr), an integer column as
+    integers, anything else cell by cell as :func:`write_csv` does (text made
+    safe for spreadsheets, :func:`safe_cell`, and quoted where the CSV needs it).
+
+    Examples
+    --------
+    >>> import io, numpy as np, tempfile, os
+    >>> f = os.path.join(tempfile.mkdtemp(), "t.csv")
+    >>> _ = write_columns(f, ["id", "y"], [np.array(["a,b", "=1"], dtype=object),
+    ...                                    np.array([0.1, 2.0])])
+    >>> print(open(f).read(), end="")
+    id,y
+    "a,b",0.1
+    '=1,2.0
+    """
+    cols = [_column_text(c) for c in columns]
+    buf = io.StringIO()
+    buf.write(",".join(_cell_text(str(h)) for h in header) + "\n")
+    if cols and len(cols[0]):
+        buf.write("\n".join(map(",".join, zip(*cols))) + "\n")
+    return write_text(path, buf.getvalue())
+
+
+def _column_text(col) -> list:
+    a = np.asarray(col)
+    if a.dtype.kind == "f":
+        return list(map(float.__repr__, a.astype(np.float64).tolist()))
+    if a.dtype.kind in "iu":
+        return list(map(str, a.tolist()))
+    return [_cell_text(v.item() if hasattr(v, "item") else v) for v in a.tolist()]
+
+
+def _cell_text(v) -> str:
+    """One cell: empty for None, floats by repr, text made safe (:func:`safe_cell`) and
+    quoted (RFC 4180) when it holds a comma, a quote, CR or LF."""
+    v = "" if v is None else (repr(float(v)) if isinstance(v, float) else safe_cell(v))
+    text = v if isinstance(v, str) else str(v)
+    if any(ch in text for ch in ',"\r\n'):
+        return '"' + text.replace('"', '""') + '"'
+    return text
 
 
 def _umask() -> int:

@@ -578,7 +578,7 @@ def _second_pass(W, fit, lam, p, n, cv, scheme, seed, repeats, fit_intercept, cv
     loo_se = hp.loo_with_se()[1]
     cvres = None
     if cv:
-        cvres = hp.kfold()
+        cvres = hp.kfold(progress)
         notes.append(cv_note(plan, cv_scaling))
     return hp, plan, loo_mse, loo0, loo_se, cvres
 
@@ -671,7 +671,9 @@ def dask_path(
         same holdout rows; the holdout's row mask, one byte per row, is made on
         the client).
     progress : callable, optional
-        ``progress(label, done, total)`` at the start and end of each pass.
+        ``progress(label, done, total)`` at the start and end of each pass; with
+        ``n_folds``, also the K-fold stage (:data:`paths.data.folds.KFOLD_STAGE`)
+        once per fold (times the repeats), as in :func:`paths.engines.stream.stream_path`.
 
     Returns
     -------

@@ -28,12 +28,12 @@ from __future__ import annotations
 
 import time
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 import scipy.linalg as sla
 
-from paths.data.folds import fold_labels
+from paths.data.folds import FoldCount, fold_labels
 from paths.data.validation import (InputError, as_lambdas, check_feature_bounds,
                                    check_response_bounds)
 from paths.data.chunks import (DEFAULT_CHUNK_ROWS, GroupValues, HoldoutRows, PreparedGroups,
@@ -422,6 +422,7 @@ class HatPass:
             # per-fold scaling: every fold's raw moments of [X | Y] (its training set's
             # moments are the merge of the other folds')
             self.fold_mom = [[PairwiseMerger() for _ in range(self.n_folds)] for _ in range(R)]
+        self._stats = None  # the fold statistics, made once the rows are all in
 
     def rows_u(self, block: np.ndarray, p: int):
         des = self.fit.design
@@ -503,6 +504,7 @@ class HatPass:
                 self.r_other = algebra.tsqr([self.r_other, ua_y], width)
 
     def merge(self, other: "HatPass") -> None:
+        self._stats = None
         width = self.ra + self.t
         self.sums += other.sums
         self.sums4 += other.sums4
@@ -546,26 +548,40 @@ class HatPass:
         mse = s2 / n
         return (mse[:-1], se[:-1]) if self._added else (mse, se)
 
-    def kfold(self):
+    def kfold(self, progress=None):
         """K-fold CV MSE (k, t) and its standard error across folds (k, t), averaged over
-        the repeats (as :func:`paths.selection.cv.cross_validate` pools them)."""
+        the repeats (as :func:`paths.selection.cv.cross_validate` pools them).
+
+        ``progress(stage, done, total)`` counts the folds times the repeats (the K-fold
+        stage, :class:`paths.data.folds.FoldCount`).  The per-fold errors on the grid
+        stay with :meth:`fold_factors` (their ``grid``): asked for again at the grid,
+        they are not computed (nor counted) twice.
+        """
         if not self.n_folds:
             return None, None
         if np.any(self.count == 0):
             raise InputError(f"{int(np.sum(self.count[0] == 0))} of the {self.n_folds} folds "
                              "are empty; use fewer folds")
-        stats = self.fold_factors()
-        fold = stats.fold_mse(self.lam)
+        stats = self.fold_factors(progress)
+        fold = stats.fold_mse(self.lam, progress=progress)
+        fold.flags.writeable = False
+        self._stats = replace(stats, grid=(self.lam, fold))
         w = self.count / self.count.sum(axis=1, keepdims=True)  # (R, K)
         pooled = np.einsum("rf,rfkt->rkt", w, fold)
         se = fold.std(axis=1, ddof=1) / np.sqrt(self.n_folds)
         return pooled.mean(axis=0), se.mean(axis=0)
 
-    def fold_factors(self) -> "FoldFactors | FoldMoments | None":
+    def fold_factors(self, progress=None) -> "FoldFactors | FoldMoments | None":
         """The per-fold triangular factors, for K-fold errors at any penalty (with
-        per-fold scaling, the per-fold moments and their training sets' factors)."""
+        per-fold scaling, the per-fold moments and their training sets' factors, whose
+        refits ``progress(stage, done, total)`` counts); made once."""
         if not self.n_folds:
             return None
+        if self._stats is None:
+            self._stats = self._make_fold_stats(progress)
+        return self._stats
+
+    def _make_fold_stats(self, progress):
         if self.per_fold:
             if np.any(self.count == 0):
                 raise InputError(f"{int(np.sum(self.count[0] == 0))} of the {self.n_folds} "
@@ -573,7 +589,7 @@ class HatPass:
             des = self.fit.design
             return fold_moments([[m.result() for m in row] for row in self.fold_mom],
                                 des.n_features, fit_intercept=des.fit_intercept,
-                                standardize=des.standardize)
+                                standardize=des.standardize, progress=progress)
         width = self.ra + self.t
         fold_r = np.stack([np.stack([algebra.tsqr([R], width) for R in row])
                            for row in self.fold_r])
@@ -587,21 +603,27 @@ class FoldFactors:
     without the rows (:func:`paths.core.algebra.kfold_fold_mse`).
 
     ``fold_r`` (R, K, r' + t, r' + t), ``count`` (R, K): the factor of every
-    fold's rows :math:`[1/\\sqrt n,\\ u_i,\\ y_i]` and the fold sizes.
+    fold's rows :math:`[1/\\sqrt n,\\ u_i,\\ y_i]` and the fold sizes; ``grid``:
+    ``(lambdas, errors)`` already computed by the pass (:meth:`HatPass.kfold`).
     """
 
     d: np.ndarray
     fold_r: np.ndarray
     count: np.ndarray
     n_fixed: int
+    grid: tuple | None = field(default=None, repr=False, compare=False)
 
     form = "primal"
 
-    def fold_mse(self, lam) -> np.ndarray:
-        """Held-out mean squared error (R, K, k, t) at penalties ``lam``."""
+    def fold_mse(self, lam, progress=None) -> np.ndarray:
+        """Held-out mean squared error (R, K, k, t) at penalties ``lam``;
+        ``progress(stage, done, total)`` counts the folds (none at the ``grid``)."""
         lam = np.asarray(lam, dtype=float).reshape(-1)
-        return np.stack([algebra.kfold_fold_mse(self.d, fr, c, lam, n_fixed=self.n_fixed)
-                         for fr, c in zip(self.fold_r, self.count)])
+        if self.grid is not None and np.array_equal(lam, self.grid[0]):
+            return self.grid[1]
+        count = FoldCount(progress, self.count.size)
+        return np.stack([np.stack([count.tick(mse) for mse in algebra.kfold_fold_errors(
+            self.d, fr, c, lam, n_fixed=self.n_fixed)]) for fr, c in zip(self.fold_r, self.count)])
 
 
 @dataclass(frozen=True)
@@ -612,21 +634,26 @@ class FoldMoments:
 
     ``fits`` (R, K): the factors of each training set (the merge of the other
     folds' moments, :func:`factor_moments`); ``held`` (R, K): each fold's own
-    moments; ``count`` (R, K) the fold sizes.
+    moments; ``count`` (R, K) the fold sizes; ``grid``: ``(lambdas, errors)`` already
+    computed by the pass (:meth:`HatPass.kfold`).
     """
 
     fits: tuple
     held: tuple
     count: np.ndarray
+    grid: tuple | None = field(default=None, repr=False, compare=False)
 
     form = "refit"
     scaling = "per-fold"
     reason = ("refit: per-fold scaling, each training set factored from the merged moments "
               "of the other folds (no rows held)")
 
-    def fold_mse(self, lam) -> np.ndarray:
-        """Held-out mean squared error (R, K, k, t) at penalties ``lam``."""
+    def fold_mse(self, lam, progress=None) -> np.ndarray:
+        """Held-out mean squared error (R, K, k, t) at penalties ``lam`` (the folds were
+        counted when refitted, :func:`fold_moments`)."""
         lam = np.asarray(lam, dtype=float).reshape(-1)
+        if self.grid is not None and np.array_equal(lam, self.grid[0]):
+            return self.grid[1]
         out = []
         for fits, held, count in zip(self.fits, self.held, self.count):
             rows = []
@@ -641,10 +668,12 @@ class FoldMoments:
 
 
 def fold_moments(held, p: int, *, fit_intercept: bool = True,
-                 standardize: bool = True) -> FoldMoments:
+                 standardize: bool = True, progress=None) -> FoldMoments:
     """:class:`FoldMoments` of the per-fold moments ``held`` (R lists of K
     :class:`Moments`): each training set's moments merged from the other folds'
-    (prefix and suffix merges, O(K) per repeat) and factored."""
+    (prefix and suffix merges, O(K) per repeat) and factored;
+    ``progress(stage, done, total)`` counts the folds as they are refitted."""
+    count = FoldCount(progress, sum(len(row) for row in held))
     fits = []
     for row in held:
         K = len(row)
@@ -660,8 +689,8 @@ def fold_moments(held, p: int, *, fit_intercept: bool = True,
             train = parts[0] if len(parts) == 1 else merge_moments(*parts)
             with warnings.catch_warnings():  # the full-data fit already warned
                 warnings.simplefilter("ignore", UserWarning)
-                per.append(factor_moments(train, p, fit_intercept=fit_intercept,
-                                          standardize=standardize))
+                per.append(count.tick(factor_moments(train, p, fit_intercept=fit_intercept,
+                                                    standardize=standardize)))
         fits.append(tuple(per))
     count = np.array([[m.n for m in row] for row in held], dtype=np.int64)
     return FoldMoments(fits=tuple(fits), held=tuple(tuple(r) for r in held), count=count)
@@ -1091,7 +1120,9 @@ def stream_path(
         pre-pass counts the rows kept, and the holdout and the folds are
         assigned on the kept rows.  Both need a CSV or Parquet file.
     progress : callable, optional
-        ``progress(label, rows_done, rows_total_or_None)`` after each chunk.
+        ``progress(label, rows_done, rows_total_or_None)`` after each chunk; with
+        ``n_folds``, also the K-fold stage (:data:`paths.data.folds.KFOLD_STAGE`)
+        once per fold (times the repeats) as its errors are computed.
 
     Returns
     -------
@@ -1267,7 +1298,7 @@ def _second_pass(fit, lam, src, p, cv, plan, group_src, passes, progress, cv_sca
     loo_se = hp.loo_with_se()[1]
     cvres = None
     if cv:
-        cvres = hp.kfold()
+        cvres = hp.kfold(progress)
         notes.append(cv_note(plan, cv_scaling))
     return hp, loo_mse, loo0, loo_se, cvres
 

@@ -37,6 +37,7 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.linalg as sla
 
+from paths.data.folds import FoldCount
 from paths.data.validation import (InputError, as_lambdas, as_response, check_feature_range,
                                    check_response_range)
 from paths.data.chunks import (DEFAULT_BLOCK_COLUMNS, ColumnSource, CSVColumns, ParquetColumns,
@@ -714,6 +715,9 @@ def fold_refits(data, y, labels, *, test_rows=None, fit_intercept: bool = True,
     rows' projections :math:`C_f U_f D_f^{-1}`.  Memory: R·K matrices of size
     about :math:`(n - b)^2 + b(n - b)`.
 
+    ``progress(label, done, total)`` hears the pass over the column blocks, then the
+    K-fold stage (:data:`paths.data.folds.KFOLD_STAGE`) once per fold refitted.
+
     Returns
     -------
     tuple of tuple of paths.core.algebra.HeldOutFold
@@ -757,8 +761,10 @@ def fold_refits(data, y, labels, *, test_rows=None, fit_intercept: bool = True,
         passes.append(PassInfo("per-fold scaling: fold Gram matrices over column blocks",
                                src.n_features, time.perf_counter() - t0,
                                src.n_rows * src.n_features * 8))
-    return tuple(tuple(_fold_fit(grams[r][f], cross[r][f], Y, labels[r] == f, int(q[r, f]), f,
-                                 fit_intercept, rtol) for f in range(K))
+    count = FoldCount(progress, labels.shape[0] * K)
+    return tuple(tuple(count.tick(_fold_fit(grams[r][f], cross[r][f], Y, labels[r] == f,
+                                            int(q[r, f]), f, fit_intercept, rtol))
+                       for f in range(K))
                  for r in range(len(labels)))
 
 

@@ -454,8 +454,9 @@ def save_figure(panel: Panel, out_dir, name: str | None = None, *, formats=("png
             buf = io.BytesIO()
             panel.figure.savefig(buf, format=fmt, dpi=DPI, metadata=meta[fmt])
             files.append(write_bytes(out / f"{stem}.{fmt}", buf.getvalue()))
-            # the layout is solved once (at the first format): the others reuse it
-            panel.figure.set_layout_engine("none")
+            # the layout is solved once (at the first format): the others reuse it, and with
+            # no engine at all (not "none", a placeholder) savefig skips its layout pre-draw
+            panel.figure.set_layout_engine(None)
     files.append(write_csv(out / f"{stem}.csv", *figure_table(panel)))
     if close:
         panel.figure.clear()

@@ -38,11 +38,13 @@ import struct
 import zipfile
 import zlib
 from dataclasses import dataclass, field
+from functools import cached_property
 from pathlib import Path
 
 import numpy as np
 
 from paths.data.validation import InputError, as_design, as_lambdas
+from paths.core import algebra
 from paths.core.design import Design
 from paths.core.factor import Factorization
 from paths.core.path import PENALTY_CONVENTION, RidgePath, path_from_factors
@@ -421,10 +423,11 @@ class SavedFit:
     ----------
     path : RidgePath or None
         The path rebuilt from the saved factors on the saved grid: the same
-        coefficients and criteria, bit for bit, as the run that saved it.  None
-        for a ``"predict-only"`` fit (from ``--engine stream`` or ``dask``, which
-        keep no left factors): it predicts at any penalty, but has no criteria
-        and no prediction intervals.
+        coefficients and criteria, bit for bit, as the run that saved it.  Built
+        on first use (every criterion on the grid is O(n r k)); predictions do
+        not need it.  None for a ``"predict-only"`` fit (from ``--engine stream``
+        or ``dask``, which keep no left factors): it predicts at any penalty, but
+        has no criteria and no prediction intervals.
     header : dict
         The JSON header (see the module notes).
     reported_lambda : ndarray, shape (t,)
@@ -439,7 +442,6 @@ class SavedFit:
         The factors predictions at any penalty are made from.
     """
 
-    path: RidgePath | None
     header: dict
     reported_lambda: np.ndarray
     coef: np.ndarray
@@ -450,6 +452,21 @@ class SavedFit:
     singular_values: np.ndarray | None = None
     vt: np.ndarray | None = None
     uty: np.ndarray | None = None
+    factorization: Factorization | None = None  # with the left factor (a full fit)
+    lambdas: np.ndarray | None = None
+
+    @cached_property
+    def path(self) -> RidgePath | None:
+        if self.factorization is None:
+            return None
+        try:
+            with np.errstate(over="raise", invalid="raise", divide="raise"):
+                return path_from_factors(self.design, self.factorization, self.lambdas,
+                                         feature_names=self.header["feature_names"],
+                                         multi_target=self.header["multi_target"])
+        except (FloatingPointError, np.linalg.LinAlgError):
+            raise _refuse(self.source, "the saved factors leave the float64 range when the "
+                                       "path is rebuilt; the file is damaged") from None
 
     @property
     def feature_names(self) -> list:
@@ -557,12 +574,10 @@ class SavedFit:
         return pred
 
     def _at(self, X: np.ndarray, lam: float) -> np.ndarray:
-        """Predictions at one penalty: the path's own, or (predict-only) the same
-        arithmetic as :meth:`RidgePath.predict` on the saved factors."""
-        if self.path is not None:
+        """Predictions at one penalty: the arithmetic of :meth:`RidgePath.predict` on the
+        saved factors (the path itself, only where an unpenalized span needs it)."""
+        if self.design.span is not None:
             return self.path.predict(X, lam)
-        from paths.core import algebra
-
         gains = algebra.gains(self.singular_values, np.array([lam]))
         proj = self.design.transform(X) @ self.vt.T
         pred = (self.design.y_mean + algebra.project(proj, gains, self.uty))[:, 0]
@@ -664,15 +679,14 @@ def _rebuild(h: dict, a: dict, src) -> SavedFit:
                         tol=float(h.get("rank_tol", 0.0)), d_max=float(h.get("d_max", d[0])),
                         d_min=float(h.get("d_min", d[-1])), solver=str(h.get("solver", "svd")),
                         reason=str(h.get("solver_reason", "saved fit")))
-    if h.get("kind", "full") == "full":
-        path = path_from_factors(design, fac, a["lambdas"], feature_names=h["feature_names"],
-                                 multi_target=h["multi_target"])
-        uty = path.uty
-    else:
-        path, uty = None, a["fac_uty"]
+    np.square(d)  # squares of the singular values in range (every formula takes them)
+    full = h.get("kind", "full") == "full"
+    # U^T y as path_from_factors forms it (the same call): predictions bit for bit the path's
+    uty = algebra.factor_state(fac, design).uty if full else a["fac_uty"]
     multi = h["multi_target"]
     coef = a["coef"] if multi else a["coef"][:, 0]
     icpt = a["intercept"] if multi else float(a["intercept"][0])
-    return SavedFit(path=path, header=h, reported_lambda=a["reported_lambda"], coef=coef,
+    return SavedFit(header=h, reported_lambda=a["reported_lambda"], coef=coef,
                     intercept=icpt, source=src, preparation=dict(h.get("preparation") or {}),
-                    design=design, singular_values=d, vt=a["fac_vt"], uty=uty)
+                    design=design, singular_values=d, vt=a["fac_vt"], uty=uty,
+                    factorization=fac if full else None, lambdas=a["lambdas"])

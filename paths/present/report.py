@@ -910,7 +910,7 @@ def _report_progress(progress, done: int) -> None:
         progress("report", done, 1)
 
 
-def write_threshold_outputs(result, summary: dict, out_dir, *, formats=("png", "svg"),
+def write_threshold_outputs(result, summary: dict, out_dir, *, formats=("svg",),
                             width: str = "single", report: bool = True, progress=None) -> list:
     """The threshold figure (+ CSV) and, with ``report``, ``report.md``/``report.html``.
 
@@ -936,7 +936,7 @@ def write_threshold_outputs(result, summary: dict, out_dir, *, formats=("png", "
     return written
 
 
-def write_explore_outputs(result, summary: dict, out_dir, *, cv=None, formats=("png", "svg"),
+def write_explore_outputs(result, summary: dict, out_dir, *, cv=None, formats=("svg",),
                           width: str = "single", x: str = "df",
                           report: bool = True, progress=None) -> list:
     """The path figure of each target and the spectrum figure (+ their CSVs) and, with

@@ -330,11 +330,15 @@ def write_coefficients(out_dir, header, rows):
         return write_csv(out / "coefficients.csv", header, rows)
     import io
 
-    import pandas as pd
+    import pyarrow as pa
+    import pyarrow.parquet as pq
 
-    frame = pd.DataFrame(rows, columns=[str(h) for h in header])
+    # column by column straight to Arrow (a pandas frame of thousands of columns is slow);
+    # plain encoding, no compression: distinct doubles gain nothing from either
+    table = pa.Table.from_arrays([pa.array(col) for col in zip(*rows)],
+                                 names=[str(h) for h in header])
     buf = io.BytesIO()
-    frame.to_parquet(buf, index=False)
+    pq.write_table(table, buf, use_dictionary=False, compression="none", write_statistics=False)
     return write_bytes(out / "coefficients.parquet", buf.getvalue())
 
 

@@ -52,6 +52,7 @@ from __future__ import annotations
 
 import time
 from dataclasses import dataclass, field
+from functools import cached_property
 
 import numpy as np
 
@@ -59,7 +60,7 @@ from paths.data.validation import InputError, as_design, as_lambdas, as_response
 from paths.core import algebra
 from paths.core.design import prepare
 from paths.core.factor import factorize
-from paths.data.folds import SCHEMES, fold_labels, group_folds
+from paths.data.folds import SCHEMES, FoldCount, fold_labels, group_folds
 
 __all__ = [
     "SCHEMES",
@@ -362,6 +363,8 @@ class _ExactEngine:
     Primal (rank below n − 1): the refit on the other folds from per-fold
     triangular factors (:func:`paths.core.algebra.kfold_fold_mse`); dual (full
     row rank): the b × b blocks of :func:`paths.core.algebra.kfold_dual_mse`.
+    The per-fold factors of the primal form are made on first use (inside the
+    K-fold stage of :meth:`fold_mse`).
     """
 
     def __init__(self, state, labels_list):
@@ -373,12 +376,15 @@ class _ExactEngine:
         w = None if state.span is None else np.square(state.span.sqrt_w)
         self.weights = [np.array([idx.size if w is None else w[idx].sum() for idx in folds])
                         for folds in self.folds]
-        self.fold_r = []
-        if not self.dual:
-            zy = algebra.reduced_response(state)
-            for folds in self.folds:
-                self.fold_r.append(np.stack([
-                    algebra.fold_factor(*algebra.sample_rows(state, idx, zy)) for idx in folds]))
+
+    @cached_property
+    def fold_r(self) -> list:
+        """Primal form: the triangular factor of every fold's rows, per partition."""
+        if self.dual:
+            return []
+        zy = algebra.reduced_response(self.state)
+        return [np.stack([algebra.fold_factor(*algebra.sample_rows(self.state, idx, zy))
+                          for idx in folds]) for folds in self.folds]
 
     @property
     def form(self):
@@ -396,21 +402,26 @@ class _ExactEngine:
             return out
         return algebra.kfold_residuals(self.state, self.fold_r[0], folds, lam, only=only)
 
-    def fold_mse(self, lam):
+    def fold_mse(self, lam, progress=None):
+        """Held-out MSE (R, K, k, t); ``progress(stage, done, total)`` counts the folds."""
+        count = FoldCount(progress, sum(len(folds) for folds in self.folds))
         if self.dual:
-            return np.stack([np.stack([
-                algebra.kfold_dual_mse(self.state, idx, lam, weight=wf, chunk_elems=_CHUNK_ELEMS)
+            return np.stack([np.stack([count.tick(
+                algebra.kfold_dual_mse(self.state, idx, lam, weight=wf, chunk_elems=_CHUNK_ELEMS))
                 for idx, wf in zip(folds, wts)]) for folds, wts in zip(self.folds, self.weights)])
-        return np.stack([
-            algebra.kfold_fold_mse(self.state.d, R, wts, lam, n_fixed=self.state.n_fixed)
+        return np.stack([np.stack([count.tick(mse) for mse in algebra.kfold_fold_errors(
+            self.state.d, R, wts, lam, n_fixed=self.state.n_fixed)])
             for R, wts in zip(self.fold_r, self.weights)])
 
 
 class _RefitEngine:
-    """One factorization per fold; predictions for any penalty from the fold's factors."""
+    """One factorization per fold; predictions for any penalty from the fold's factors.
+    ``progress(stage, done, total)`` counts the folds as they are refitted."""
 
-    def __init__(self, X, Y, labels_list, *, fit_intercept, standardize, scaling, solver, design):
+    def __init__(self, X, Y, labels_list, *, fit_intercept, standardize, scaling, solver, design,
+                 progress=None):
         self.folds = []
+        count = FoldCount(progress, sum(int(lab.max()) + 1 for lab in labels_list))
         if scaling == "global":
             act = design.active
             Xs = X[:, act] / design.x_scale[act]
@@ -432,14 +443,15 @@ class _RefitEngine:
                 state = algebra.FactorState(d=fac.d, vt=fac.vt, uty=fac.u.T @ dsg.zy,
                                             rss_out=np.zeros(Y.shape[1]), n_samples=z.shape[0],
                                             fit_intercept=fit_intercept)
-                per.append(algebra.HeldOutFold(state=state,
-                                               proj=dsg.transform(Xs[test]) @ fac.vt.T,
-                                               yc=Y[test] - dsg.y_mean))
+                per.append(count.tick(algebra.HeldOutFold(
+                    state=state, proj=dsg.transform(Xs[test]) @ fac.vt.T,
+                    yc=Y[test] - dsg.y_mean)))
             self.folds.append(per)
 
     form = "refit"
 
-    def fold_mse(self, lam):
+    def fold_mse(self, lam, progress=None):
+        """Held-out MSE (R, K, k, t); the folds were counted as they were refitted."""
         return _refit_fold_mse(self.folds, lam)
 
 
@@ -479,9 +491,11 @@ class StateFolds:
         return (f"exact ({self.form} form) from the full-data factors held by the engine, "
                 "preprocessing from all training rows")
 
-    def fold_mse(self, lam) -> np.ndarray:
+    def fold_mse(self, lam, progress=None) -> np.ndarray:
+        """Held-out MSE (R, K, k, t) at ``lam``; ``progress(stage, done, total)`` counts
+        the folds (:class:`paths.data.folds.FoldCount`)."""
         try:
-            return self._exact.fold_mse(as_lambdas(lam))
+            return self._exact.fold_mse(as_lambdas(lam), progress)
         except np.linalg.LinAlgError:
             raise InputError("a fold's block I - H_ff is singular at some penalty (its rows "
                              "carry directions no other fold sees); use fewer, larger folds, "
@@ -507,7 +521,9 @@ class RefitFolds:
         return ("refit: per-fold scaling (means and scales from each fold's training rows), "
                 "one factorization per fold")
 
-    def fold_mse(self, lam) -> np.ndarray:
+    def fold_mse(self, lam, progress=None) -> np.ndarray:
+        """Held-out MSE (R, K, k, t) at ``lam`` (the folds were counted when refitted,
+        :func:`paths.engines.wide.fold_refits`)."""
         return _refit_fold_mse(self.folds, as_lambdas(lam))
 
 
@@ -533,6 +549,7 @@ def cross_validate(
     sample_weight=None,
     unpenalized=None,
     relative_penalty=None,
+    progress=None,
 ) -> CVResult:
     """K-fold cross-validation errors for every penalty, without refitting per penalty.
 
@@ -572,6 +589,11 @@ def cross_validate(
         With row weights the error is :math:`\\sum_i w_i e_{(-f),i}^2 / \\sum_i w_i`
         from the weighted refits without each fold; weights and unpenalized
         columns need ``scaling="global"`` and are always exact (no refit route).
+    progress : callable, optional
+        ``progress(stage, done, total)``: the K-fold stage
+        (:data:`paths.data.folds.KFOLD_STAGE`) counts the folds times the repeats as
+        their errors (exact route) or refits (refit route) are done; a fall back from
+        the exact route to refits counts again from 0.  The numbers do not depend on it.
 
     Returns
     -------
@@ -637,7 +659,7 @@ def cross_validate(
     route, reason = _route(path, span, scaling, method, cost_model, sizes[0], lam.size,
                            Y.shape[1])
     fold, engine, route, reason = _fold_errors(path, route, reason, Xa, Y, labels, lam,
-                                               scaling)
+                                               scaling, progress)
     mse, se, se_rep = _summarize(fold, sizes if fold_w is None else fold_w)
     if not multi:
         mse, se, fold = mse[..., 0], se[..., 0], fold[..., 0]
@@ -694,14 +716,14 @@ def _route(path, span, scaling, method, cost_model, sizes, k, t):
         k=k, t=t, dual=path.state.full_row_rank)
 
 
-def _fold_errors(path, route, reason, Xa, Y, labels, lam, scaling):
+def _fold_errors(path, route, reason, Xa, Y, labels, lam, scaling, progress):
     """``(fold errors, engine, route, reason)``; the exact route falls back to refits when a
     fold block is singular (refused with row weights or unpenalized columns)."""
     engine = None
     if route == "exact":
         engine = _ExactEngine(path.state, list(labels))
         try:
-            fold = engine.fold_mse(lam)
+            fold = engine.fold_mse(lam, progress)
         except np.linalg.LinAlgError:
             if path.design.span is not None:
                 raise InputError("a fold's block I - H_ff is singular (its rows carry "
@@ -712,7 +734,8 @@ def _fold_errors(path, route, reason, Xa, Y, labels, lam, scaling):
     if engine is None:
         engine = _RefitEngine(Xa, Y, list(labels), fit_intercept=path.fit_intercept,
                               standardize=path.standardize, scaling=scaling, solver=path.solver
-                              if path.solver in ("svd", "gram") else "auto", design=path.design)
+                              if path.solver in ("svd", "gram") else "auto", design=path.design,
+                              progress=progress)
         fold = engine.fold_mse(lam)
     return fold, engine, route, reason
 
@@ -749,7 +772,7 @@ def loo_residuals(path, lam) -> np.ndarray:
     return res if path.multi_target else res[..., 0]
 
 
-def cv_from_fold_stats(stats, plan, lambdas, *, multi_target: bool) -> CVResult:
+def cv_from_fold_stats(stats, plan, lambdas, *, multi_target: bool, progress=None) -> CVResult:
     """The :class:`CVResult` of an out-of-memory engine's fold statistics.
 
     ``stats`` (:class:`paths.engines.stream.FoldFactors` of a streamed pass;
@@ -759,10 +782,12 @@ def cv_from_fold_stats(stats, plan, lambdas, *, multi_target: bool) -> CVResult:
     of :mod:`paths.data.folds`, so the folds, and the errors, are the in-memory
     engine's.  ``labels`` are the statistics' own (the wide engine holds them),
     else empty (R, 0): a streamed pass never holds the rows' labels.
+    ``progress(stage, done, total)`` counts the folds whose errors are computed here
+    (none when the engine already did, at these penalties, and counted them then).
     """
     lam = as_lambdas(lambdas)
     sizes = np.array(stats.count, dtype=np.int64)
-    fold = stats.fold_mse(lam)
+    fold = stats.fold_mse(lam, progress=progress)
     labels = getattr(stats, "labels", None)
     if labels is None:
         labels = np.zeros((plan.repeats, 0), dtype=np.int64)

@@ -206,19 +206,26 @@ def _tall(path, targets, feats, data: DataOptions, fit: FitOptions, engine: Engi
                      timeout=engine.scheduler_timeout, **common)
 
 
-def _select(result, fit: FitOptions):
-    """K-fold CV from the engine's per-fold factors and every selection rule, refined
-    between grid points on the engine's own path (:func:`paths.selection.rules.select_penalty`):
-    GCV from the factor state, K-fold at any penalty from the per-fold factors,
-    leave-one-out at a new penalty by one more pass over the rows."""
+def _kfold(result, progress):
+    """K-fold CV from the engine's per-fold factors, or None.  The folds are counted
+    (the K-fold stage) where their errors are computed: the row engines already did on
+    their pass (:meth:`paths.engines.stream.HatPass.kfold`), the wide engine does here."""
     from paths.selection.cv import cv_from_fold_stats
+
+    if result.fold_stats is None:
+        return None
+    return cv_from_fold_stats(result.fold_stats, result.fold_plan, result.lambdas,
+                              multi_target=result.multi_target, progress=progress)
+
+
+def _select(result, cv_res, fit: FitOptions):
+    """Every selection rule, refined between grid points on the engine's own path
+    (:func:`paths.selection.rules.select_penalty`): GCV from the factor state, K-fold at
+    any penalty from the per-fold factors, leave-one-out at a new penalty by one more
+    pass over the rows."""
     from paths.selection.rules import select_penalty
 
-    cv_res = None
-    if result.fold_stats is not None:
-        cv_res = cv_from_fold_stats(result.fold_stats, result.fold_plan, result.lambdas,
-                                    multi_target=result.multi_target)
-    return cv_res, select_penalty(result, cv_res, reported=fit.rule)
+    return select_penalty(result, cv_res, reported=fit.rule)
 
 
 def explore_engine(data: DataOptions, fit: FitOptions = FitOptions(),
@@ -232,8 +239,9 @@ def explore_engine(data: DataOptions, fit: FitOptions = FitOptions(),
     path, as in memory (GCV from the factor state, K-fold at any penalty from
     the per-fold factors, leave-one-out at a new penalty by one more pass over
     the rows, counted in the data notes).  ``progress(stage, done, total)``
-    reports each pass.  ``extra`` keys are added to ``summary.json`` (the note of an
-    ``engine_choice`` also to its data notes).
+    reports each pass, the K-fold stage fold by fold, and the workflow's stages.
+    ``extra`` keys are added to ``summary.json`` (the note of an ``engine_choice``
+    also to its data notes).
     """
     if engine.name not in ("stream", "dask"):
         raise InputError(f"engine must be one of {', '.join(ENGINES)}; got {engine.engine!r}")
@@ -247,8 +255,9 @@ def explore_engine(data: DataOptions, fit: FitOptions = FitOptions(),
     inputs = [Path(data.file), *([] if data.test_file is None else [Path(data.test_file)])]
     with output.folder(inputs) as folder:
         result = _fit(data, fit, engine, progress)
+        cv_res = _kfold(result, progress)
         with stage(progress, SELECT):
-            cv_res, selection = _select(result, fit)
+            selection = _select(result, cv_res, fit)
         digests, hash_notes = {}, []
         for f in inputs:
             dig, notes = _file_digests(f)

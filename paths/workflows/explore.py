@@ -20,8 +20,8 @@ from paths.data.validation import InputError
 from paths.workflows.options import (DataOptions, EngineOptions, FigureOptions, FitOptions,
                                      OutputOptions)
 from paths.workflows.prepare import Prepared, TrainTest, prepare, train_test
-from paths.workflows.stages import (FACTOR, INTERVALS, KFOLD, READ, RECORD, SAVE_FIT, SELECT,
-                                    TABLES, stage)
+from paths.workflows.stages import (FACTOR, INTERVALS, READ, RECORD, SAVE_FIT, SELECT, TABLES,
+                                    stage)
 
 __all__ = ["ExploreRun", "Fitted", "run_explore", "explore_prepared", "fit_and_select",
            "explore_record", "write_explore", "write_saved_fit", "prediction_intervals_step",
@@ -203,11 +203,10 @@ def select_rules(result, data: TrainTest, fit: FitOptions, *, progress=None):
     groups = None if data.groups is None else np.asarray(data.groups)
     n_folds = folds_for(groups, data.X.shape[0], fit)
     cv_res = None
-    if n_folds is not None:
-        with stage(progress, KFOLD):
-            cv_res = cross_validate(data.X, data.y, path=result, n_folds=n_folds,
-                                    scheme=fit.fold_scheme, seed=fit.seed, repeats=fit.repeats,
-                                    groups=groups, scaling=fit.cv_scaling)
+    if n_folds is not None:  # the K-fold stage (KFOLD), counted per fold by cross_validate
+        cv_res = cross_validate(data.X, data.y, path=result, n_folds=n_folds,
+                                scheme=fit.fold_scheme, seed=fit.seed, repeats=fit.repeats,
+                                groups=groups, scaling=fit.cv_scaling, progress=progress)
     with stage(progress, SELECT):
         report = select_penalty(result, cv_res, reported=fit.rule)
     return report, None if cv_res is None else cv_record(cv_res), cv_res

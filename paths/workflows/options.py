@@ -221,7 +221,7 @@ class FigureOptions:
     """Figures and the report (``[figures]``): formats, width, the x axis of path figures
     (``figure_x``: ``"df"`` or ``"log_lambda"``), report."""
 
-    formats: tuple = ("png", "svg")
+    formats: tuple = ("svg",)  # vector, and what the report inlines; png/pdf on request
     width: str = "single"
     figure_x: str = "df"
     report: bool = True

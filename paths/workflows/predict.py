@@ -150,7 +150,7 @@ def predict_file(fit, data, *, out, lam=None, rule=None, intervals: float | None
     progress : callable, optional
         ``progress(stage, done, total)`` (:mod:`paths.workflows.stages`).
     """
-    from paths.data.output import write_csv
+    from paths.data.output import write_columns
     from paths.data.tables import read_table
 
     out = Path(out)
@@ -179,17 +179,11 @@ def predict_file(fit, data, *, out, lam=None, rule=None, intervals: float | None
         with stage(progress, INTERVALS):
             lo, hi, method = _intervals(saved, rows.X, lams, float(intervals))
         record = {"level": float(intervals), "method": method}
-    with stage(progress, TABLES):
-        table = []
-        multi = len(saved.target_names) > 1
-        for j, name in enumerate(saved.target_names):
-            for i in range(pred.shape[0]):
-                row = [ids[i].item() if hasattr(ids[i], "item") else ids[i]]
-                row += [name] if multi else []
-                row.append(float(pred[i, j]))
-                if lo is not None:
-                    row += [float(lo[i, j]), float(hi[i, j])]
-                table.append(row)
-        write_csv(out, prediction_columns(saved, id_name, lo is not None), table)
+    with stage(progress, TABLES):  # target-major: every row of target 1, then of target 2, ...
+        names = saved.target_names
+        cols = [np.tile(np.asarray(ids), len(names))]
+        cols += [np.repeat(np.asarray(names, dtype=object), n)] if len(names) > 1 else []
+        cols += [a.T.ravel() for a in ((pred,) if lo is None else (pred, lo, hi))]
+        write_columns(out, prediction_columns(saved, id_name, lo is not None), cols)
     return PredictRun(out=out, n_rows=int(pred.shape[0]), lam=lams, choice=choice, notes=notes,
                       intervals=record)

@@ -3,8 +3,8 @@
 A workflow takes ``progress=None`` or a callable ``progress(stage, done, total)``
 (``total`` may be ``None`` while unknown).  A stage that runs as one step
 reports ``(stage, 0, 1)`` when it starts and ``(stage, 1, 1)`` when it ends; a
-stage of countable steps (figures, sweep points, passes over the rows)
-reports each step.  The out-of-memory engines report their passes under their
+stage of countable steps (figures, sweep points, passes over the rows, the
+folds of K-fold CV) reports each step.  The out-of-memory engines report their passes under their
 own labels ("pass 1: ...") with rows or columns as the count.  The command line
 draws these as progress lines on standard error (:mod:`paths.cli.progress`).
 """
@@ -12,12 +12,15 @@ from __future__ import annotations
 
 import contextlib
 
+from paths.data.folds import KFOLD_STAGE
+
 __all__ = ["READ", "FACTOR", "KFOLD", "SELECT", "INTERVALS", "RECORD", "TABLES", "FIGURES",
            "REPORT", "SAVE_FIT", "PLAN", "PREDICT", "stage"]
 
 READ = "reading and preparing the data"
 FACTOR = "factoring the design, the whole path"
-KFOLD = "K-fold cross-validation"
+#: counted per fold (times the repeats) by every engine (:class:`paths.data.folds.FoldCount`)
+KFOLD = KFOLD_STAGE
 SELECT = "selection rules (refined between grid points)"
 INTERVALS = "prediction intervals"
 RECORD = "errors at each rule's choice (summary record)"
