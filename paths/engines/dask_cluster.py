@@ -33,7 +33,7 @@ from paths.data.validation import InputError, as_lambdas
 from paths.core.grid import default_grid
 from paths.engines.stream import (HatPass, LooPasses, Moments, PassInfo, StreamPath, check_cv_options,
                                   check_moment_ranges, check_scheme, solver_route,
-                                  chunk_moments, cv_note, factor_moments, fold_plan,
+                                  chunk_moments, factor_moments, fold_plan, hat_results,
                                   merge_moments, path_from_moments)
 
 __all__ = ["dask_path", "connect", "as_dask_design", "prepared_design"]
@@ -574,13 +574,7 @@ def _second_pass(W, fit, lam, p, n, cv, scheme, seed, repeats, fit_intercept, cv
     passes.append(PassInfo(label2, n, time.perf_counter() - t0, n * W.shape[1] * 8))
     if progress:
         progress(label2, n, n)
-    loo_mse, loo0 = hp.loo()
-    loo_se = hp.loo_with_se()[1]
-    cvres = None
-    if cv:
-        cvres = hp.kfold(progress)
-        notes.append(cv_note(plan, cv_scaling))
-    return hp, plan, loo_mse, loo0, loo_se, cvres
+    return (hp, plan, *hat_results(hp, plan, cv_scaling, notes, progress))
 
 
 def _test_design(W_test, test, y_test, prep, target, names, tnames, chunk_rows):

@@ -1294,13 +1294,19 @@ def _second_pass(fit, lam, src, p, cv, plan, group_src, passes, progress, cv_sca
     hp = _hat_pass(fit, lam, src, p, plan, group_src, passes, progress, cv_scaling,
                    "pass 2/2: hat diagonals for exact leave-one-out"
                    + (f" and {cv}-fold CV" if cv else ""))
+    return (hp, *hat_results(hp, plan, cv_scaling, notes, progress))
+
+
+def hat_results(hp, plan, cv_scaling: str, notes: list, progress=None) -> tuple:
+    """``(loo MSE, min-norm loo MSE, loo SE, K-fold result or None)`` of a finished hat
+    pass (row-streamed or dask); a K-fold run adds its note to ``notes``."""
     loo_mse, loo0 = hp.loo()
     loo_se = hp.loo_with_se()[1]
     cvres = None
-    if cv:
+    if plan is not None:
         cvres = hp.kfold(progress)
         notes.append(cv_note(plan, cv_scaling))
-    return hp, loo_mse, loo0, loo_se, cvres
+    return loo_mse, loo0, loo_se, cvres
 
 
 def _timed_test_pass(fit, lam, test_src, p, passes, progress):
