@@ -244,7 +244,8 @@ def _bad(call, *words):
 def test_bad_input_one_line_errors():
     """Bad input (house rule): one-line InputError naming the problem and the fix."""
     Xtr, ytr, Xte, yte = _data(n=40, p=20)
-    _bad(lambda: threshold_sweep(Xtr, ytr, Xte, yte), "reaches p' = 1..20", "--random-features")
+    _bad(lambda: threshold_sweep(Xtr, ytr, Xte, yte), "reaches p' = 1..20",
+         "random_features=N")  # the parameter; the CLI says --random-features N
     _bad(lambda: threshold_sweep(Xtr, ytr, Xte[:1], yte[:1], random_features=80),
          "at least 2")
     _bad(lambda: threshold_sweep(Xtr, ytr, Xte, yte, random_features=0), ">= 1")

@@ -197,8 +197,14 @@ def command(*args, **kwargs):
     return register
 
 
+#: library parameter -> the command parameter that sets it, where the two names differ
+#: (``cross_validate(scaling=)`` is ``paths explore --cv-scaling``)
+LIBRARY_NAMES = {"scaling": "cv_scaling"}
+
+
 def flags_of(func) -> dict:
-    """``{parameter name: its long flag}`` of a command function's typer options."""
+    """``{parameter name: its long flag}`` of a command function's typer options, and the
+    library's name of a parameter where it differs (:data:`LIBRARY_NAMES`)."""
     import inspect
 
     out = {}
@@ -207,6 +213,7 @@ def flags_of(func) -> dict:
         longs = [d.split("/")[0] for d in decls if d.startswith("--")]
         if longs:
             out[name] = longs[0]
+    out.update({lib: out[own] for lib, own in LIBRARY_NAMES.items() if own in out})
     return out
 
 

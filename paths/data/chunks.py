@@ -536,7 +536,7 @@ def count_rows(src: RowSource, progress=None) -> int:
     for start, block in src:
         n = start + block.shape[0]
         if progress:
-            progress("pass 0: counting rows (for --holdout)", n, None)
+            progress("pass 0: counting rows (for the holdout)", n, None)
     return n
 
 

@@ -187,11 +187,11 @@ def holdout_count(n: int, fraction: float) -> int:
         two training rows.
     """
     if not 0.0 < fraction < 1.0:
-        raise InputError(f"--holdout must lie strictly between 0 and 1; got {fraction}")
+        raise InputError(f"holdout= must lie strictly between 0 and 1; got {fraction}")
     n_test = int(round(fraction * n))
     if n_test < 1 or n - n_test < 2:
         raise InputError(
-            f"--holdout {fraction} leaves {n_test} test and {n - n_test} training rows of {n}; "
+            f"holdout={fraction} leaves {n_test} test and {n - n_test} training rows of {n}; "
             "choose a fraction that keeps at least 1 test and 2 training rows"
         )
     return n_test

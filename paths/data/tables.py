@@ -1589,7 +1589,7 @@ def select_like(df, like: Dataset, *, source: str = "", targets: bool = True) ->
         if like.drop_missing != "rows":
             shown = ", ".join(f"{c!r} ({k})" for c, k in list(counts.items())[:_SHOW])
             raise _fail(where, f"missing values in {'the test data' if targets else 'the data'}: {shown}; remove or impute "
-                               "them, or pass --drop-missing rows")
+                               "them, or pass drop_missing='rows'")
         for m in miss.values():
             keep &= ~m
         notes.append(f"dropped {int((~keep).sum())} {'test ' if targets else ''}row(s) with "

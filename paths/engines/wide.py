@@ -452,7 +452,7 @@ def _wide_notes(src, rank, r, share, test_rows, n_test) -> list:
     """What a report states; a truncation (``rank``) is also a warning."""
     notes = []
     if rank is not None:
-        msg = (f"--rank {rank}: the fit is ridge on the top {r} principal components, capturing "
+        msg = (f"rank={rank}: the fit is ridge on the top {r} principal components, capturing "
                f"{100 * share:.2f}% of ||X||_F^2; the minimum-norm fit and the quantities near the "
                "interpolation threshold need the full spectrum and are approximations")
         warnings.warn(msg, UserWarning, stacklevel=3)
@@ -560,10 +560,10 @@ def _check_rank(rank, accurate, m, p, n):
     if rank is None:
         return None
     if int(rank) != rank or not 1 <= rank <= min(m, p):
-        raise InputError(f"--rank must be an integer in [1, {min(m, p)}] (min(n - 1, p) for "
+        raise InputError(f"rank= must be an integer in [1, {min(m, p)}] (min(n - 1, p) for "
                          f"this {n} x {p} design); got {rank}")
     if accurate:
-        raise InputError("pass either accurate=True (--accurate) or rank= (--rank), not both")
+        raise InputError("pass either accurate=True or rank=, not both")
     return int(rank)
 
 

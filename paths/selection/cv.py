@@ -134,12 +134,12 @@ def make_folds(n_samples: int, n_folds: int = 10, *, scheme: str = "shuffled", s
     if groups is not None and len(groups) and np.unique(np.asarray(groups)).size < 2:
         one = np.asarray(groups).ravel()[0]
         raise InputError(f"every row is in a single group ({str(one)!r}); grouped cross-validation "
-                         "needs at least 2 groups: check the --groups column")
+                         "needs at least 2 groups: check the group labels (groups=)")
     if K < 2:
         raise InputError(f"the number of folds must be at least 2; got {K} (valid: 2 to {n_samples})")
     if groups is not None or scheme == "grouped":
         if groups is None:
-            raise InputError("grouped folds need group labels; pass groups= (CLI: --groups COL)")
+            raise InputError("grouped folds need group labels; pass groups=")
         labels = _grouped(n_samples, K, groups, seed, repeat)
     else:
         if n_samples < K:
@@ -154,7 +154,7 @@ def make_folds(n_samples: int, n_folds: int = 10, *, scheme: str = "shuffled", s
         raise InputError(
             f"one fold of whole groups holds {sizes.max()} of {n_samples} rows, leaving fewer "
             f"than {need} training rows when it is held out; the groups are too unbalanced for "
-            f"{K} folds: regroup, or drop --groups")
+            f"{K} folds: regroup, or leave out groups=")
     if n_samples - sizes.max() < need:
         raise InputError(
             f"a fold of {sizes.max()} of {n_samples} rows leaves fewer than {need} training rows; "
@@ -702,10 +702,12 @@ def _check_given_path(path, shape, sample_weight) -> None:
 def _route(path, span, scaling, method, cost_model, sizes, k, t):
     """``(route, reason)``: exact from the full-data factors or one refit per fold."""
     if span is not None:
-        if scaling == "per-fold" or method == "refit":
+        fixes = [fix for fix, wrong in (("scaling='global'", scaling == "per-fold"),
+                                        ("method='exact'", method == "refit")) if wrong]
+        if fixes:
             raise InputError("with row weights, unpenalized columns or relative penalties, "
                              "K-fold CV is exact from the full-data factors only; use "
-                             "scaling='global' and method='exact' (CLI: --cv-scaling global)")
+                             + " and ".join(fixes))
         return "exact", "exact: row weights / unpenalized columns (no refit route)"
     if scaling == "per-fold":
         return "refit", "refit: per-fold scaling cannot be read off the full-data factors"

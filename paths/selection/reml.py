@@ -60,7 +60,7 @@ def path_state(path) -> algebra.FactorState:
         from paths.data.validation import InputError
 
         raise InputError("this path was computed without its left singular vectors (streaming "
-                         "engine); REML and prediction intervals need --engine memory")
+                         "engine); REML and prediction intervals need engine='memory'")
     return algebra.factor_state(path.factorization, path.design)
 
 

@@ -158,17 +158,17 @@ def plan(n_features: int, *, snr: float | None = None, noise_variance: float | N
     p = int(n_features)
     if snr is not None:
         if signal_variance is not None:
-            raise InputError("give either --snr or the signal variance, not both")
+            raise InputError("give either snr= or signal_variance=, not both")
         if not (np.isfinite(snr) and snr > 0):
-            raise InputError(f"the SNR must be a finite number > 0; got {snr} (pass e.g. --snr 1)")
+            raise InputError(f"the SNR must be a finite number > 0; got {snr} (pass e.g. snr=1)")
         s2 = 1.0 if noise_variance is None else float(noise_variance)
         r2 = float(snr) * s2
         src = source or (f"SNR = {snr:g}" + (" (errors in units of the noise variance)"
                                              if noise_variance is None else ""))
     else:
         if noise_variance is None or signal_variance is None:
-            raise InputError("give an SNR (--snr) or both the noise and signal variances "
-                             "(or a pilot dataset)")
+            raise InputError("give an SNR (snr=) or both the noise and signal variances "
+                             "(noise_variance=, signal_variance=; or a pilot dataset)")
         s2, r2 = float(noise_variance), float(signal_variance)
         if not r2 >= 0 or not np.isfinite(r2):
             raise InputError(f"the signal variance must be finite and >= 0; got {r2}")

@@ -118,7 +118,7 @@ def make_truth(p: int, *, covariance: str = "isotropic", rho: float = 0.5, n_spi
         check_memory(8.0 * 4 * float(p) ** 2, f"the {p} x {p} covariance of p = {p} features "
                      "and its eigenvectors", "simulate fewer features (n_features)")
     if not (np.isfinite(snr) and snr > 0):
-        raise InputError(f"the SNR must be a finite number > 0; got {snr} (pass e.g. --snr 1)")
+        raise InputError(f"the SNR must be a finite number > 0; got {snr} (pass e.g. snr=1)")
     if not (np.isfinite(noise_variance) and noise_variance > 0):
         raise InputError(f"the noise variance must be > 0; got {noise_variance}")
     if int(p) != p or p < 1:
@@ -331,6 +331,20 @@ def sweep_with_truth(truth: Truth, X, y, X_test, y_test, **sweep_options) -> Sim
                             exact_test_mse=truth.noise_variance + b2 + v)
 
 
+def _check_straddles(p: int, n_train: int, over: str, fit_intercept: bool) -> None:
+    """Refuse a simulation whose sweep cannot cross the threshold, naming the simulation's
+    own fix (the sweep's would name random features and a holdout, which it has not)."""
+    if over == "features" and p < n_train:
+        raise InputError(f"the feature-wise sweep reaches p' = 1..{p} but the threshold is at "
+                         f"p' = {n_train} training rows; simulate at least {n_train} features "
+                         "(n_features=) or fewer training rows (n_train=)")
+    threshold = p + int(fit_intercept)
+    if over == "samples" and n_train <= threshold:
+        raise InputError(f"the sample-wise sweep reaches n' = {2 + int(fit_intercept)}..{n_train} "
+                         f"but the threshold is at n' = {threshold}; simulate more than "
+                         f"{threshold} training rows (n_train=) or fewer features (n_features=)")
+
+
 def simulate(
     n_train: int,
     truth: Truth,
@@ -385,9 +399,11 @@ def simulate(
         raise InputError(f"repeats must be an integer >= 1; got {repeats}")
     if int(n_test) != n_test or n_test < 2:
         raise InputError(f"the simulation needs at least 2 test rows; got {n_test} "
-                         "(pass e.g. --n-test 1000)")
+                         "(pass e.g. n_test=1000)")
     if int(n_train) != n_train or n_train < 3:
         raise InputError(f"the simulation needs at least 3 training rows; got {n_train}")
+    if sizes is None:
+        _check_straddles(truth.n_features, int(n_train), over, fit_intercept)
     rng = np.random.default_rng(seed)
     sweeps, b2s, vs = [], [], []
     for rep in range(int(repeats)):

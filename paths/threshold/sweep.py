@@ -144,7 +144,7 @@ def random_feature_map(X_train, n_features: int, *, kind: str = "relu",
     """
     if int(n_features) != n_features or n_features < 1:
         raise InputError(f"the random-features count must be an integer >= 1; got {n_features}"
-                         " (pass e.g. --random-features 800)")
+                         " (pass e.g. n_features=800)")
     if kind not in FEATURE_MAPS:
         raise InputError(f"feature map must be one of {', '.join(FEATURE_MAPS)}; got {kind!r}")
     X = as_design(X_train, "X")
@@ -212,7 +212,7 @@ def estimate_variances(X, y, *, fit_intercept: bool = True,
     X = as_design(X, "X")
     yv = as_response(y, X.shape[0], "y")
     if yv.ndim != 1:
-        raise InputError("the threshold sweep takes one target; pass a single --target column")
+        raise InputError("the threshold sweep takes one target; pass y as a 1-D array")
     design, z = prepare(X, yv[:, None], fit_intercept=fit_intercept, standardize=standardize)
     return _variances_from(design, factorize(z))
 
@@ -803,13 +803,14 @@ def _validated_inputs(X, y, X_test, y_test, *, over, order, band, repeats, n_poi
     n, d_in = X.shape
     yv = as_response(y, n, "y")
     if yv.ndim != 1:
-        raise InputError("the threshold sweep takes one target; pass a single --target column")
+        raise InputError("the threshold sweep takes one target; pass y as a 1-D array")
     if X_test is None or y_test is None:
-        raise InputError("the sweep needs test rows; pass a test file (--test) or --holdout")
+        raise InputError("the sweep needs test rows; pass X_test and y_test")
     Xt = as_design(X_test, "X_test")
     if Xt.shape[0] < 2:
         raise InputError(f"the sweep has {Xt.shape[0]} test row(s); at least 2 are needed — "
-                         "pass a larger --holdout fraction or a bigger --test file")
+                         "pass a larger holdout= fraction or a test file with more rows "
+                         "(test_file=)")
     if Xt.shape[1] != d_in:
         raise InputError(f"X_test has {Xt.shape[1]} columns but X has {d_in}; "
                          "pass the same features in the same order")
@@ -826,24 +827,24 @@ def _validated_inputs(X, y, X_test, y_test, *, over, order, band, repeats, n_poi
     if ridge_df_fraction is not None and not 0 < ridge_df_fraction < 1:
         raise InputError(f"the ridge df fraction must lie in (0, 1); got {ridge_df_fraction}")
     if order == "screening" and over == "samples":
-        raise InputError("order 'screening' ranks features; for --over samples use "
-                         "--order given or random")
+        raise InputError("order='screening' ranks features; for over='samples' use "
+                         "order='given' or order='random'")
     if random_features is not None:
         if int(random_features) != random_features or random_features < 1:
             raise InputError(f"the random-features count must be an integer >= 1; got "
-                             f"{random_features} (pass e.g. --random-features 800)")
+                             f"{random_features} (pass e.g. random_features=800)")
         rows = X.shape[0] + Xt.shape[0]
         check_memory(8.0 * 3 * rows * float(random_features),
                      f"{random_features} random features of {rows} rows",
-                     "ask for fewer random features (--random-features)")
+                     "ask for fewer random features (random_features=)")
     if (repeats > 1 and random_features is None and over == "features"
             and order != "random"):
-        raise InputError(f"--repeats {repeats} repeats nothing with order {order!r}; "
-                         "use --order random or --random-features, or --repeats 1")
+        raise InputError(f"repeats={repeats} repeats nothing with order={order!r}; "
+                         "use order='random' or random_features=, or repeats=1")
     if (repeats > 1 and over == "samples" and order != "random"
             and random_features is None):
-        raise InputError(f"--repeats {repeats} repeats nothing with rows in the given order; "
-                         "use --order random or --repeats 1")
+        raise InputError(f"repeats={repeats} repeats nothing with rows in the given order; "
+                         "use order='random' or repeats=1")
     if np.ptp(yv) == 0:
         raise InputError("y is constant on the training rows; there is nothing to fit")
     return _SweepData(X=X, y=yv, X_test=Xt, y_test=yt, repeats=repeats)
@@ -871,12 +872,12 @@ def _sweep_grid(spec: _SweepSpec, sizes, *, n: int, p_total: int, n_points: int)
         if sizes is None:
             lo, hi = 1, p_total
             if hi < n:
-                fix = ("pass more random features (--random-features N with N >= "
+                fix = ("pass more random features (random_features=N with N >= "
                        f"{n})" if spec.random_features is not None else
-                       f"map the inputs to random features (--random-features N, N >= {n})")
+                       f"map the inputs to random features (random_features=N, N >= {n})")
                 raise InputError(
                     f"the feature-wise sweep reaches p' = 1..{hi} but the threshold is at "
-                    f"p' = n_train = {n}; {fix} or hold out more rows (--holdout)")
+                    f"p' = n_train = {n}; {fix} or hold out more rows (holdout=)")
             grid = sweep_sizes(lo, hi, thr, n_points)
         else:
             grid = np.unique(np.asarray(sizes, dtype=int))
@@ -892,7 +893,7 @@ def _sweep_grid(spec: _SweepSpec, sizes, *, n: int, p_total: int, n_points: int)
             raise InputError(
                 f"the sample-wise sweep reaches n' = {lo}..{n} but the threshold is at "
                 f"n' = p + 1 = {thr}; use fewer feature columns or a smaller "
-                "--holdout so the training rows exceed the features")
+                "holdout= so the training rows exceed the features")
         grid = sweep_sizes(lo, n, thr, n_points)
     else:
         grid = np.unique(np.asarray(sizes, dtype=int))
