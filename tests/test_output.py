@@ -23,7 +23,7 @@ def test_prepare_out_dir_creates_and_refuses(tmp_path):
     (out / "x").write_text("1")
     with pytest.raises(OutputError) as info:
         prepare_out_dir(out)
-    assert "--force" in str(info.value) and "\n" not in str(info.value)
+    assert "force=True" in str(info.value) and "\n" not in str(info.value)  # the parameter
     assert prepare_out_dir(out, force=True) == out
     assert (out / "x").read_text() == "1"  # --force does not empty the folder
 

@@ -126,16 +126,18 @@ class OutputFolder:
         if out.exists() and not out.is_dir():
             which = input_at(out, self.inputs)
             extra = " (it is an input of this run)" if which is not None else ""
-            raise OutputError(f"--out {out} exists and is not a folder{extra}; choose another --out")
+            raise OutputError(f"out_dir={out} exists and is not a folder{extra}; "
+                              "choose another out_dir=")
         for src in self.inputs:  # the folder itself must not be an input (a Parquet folder)
             if src.is_dir() and input_at(out, [src]) is not None:
-                raise OutputError(f"--out {out} is the input folder {src}; choose another --out")
+                raise OutputError(f"out_dir={out} is the input folder {src}; "
+                                  "choose another out_dir=")
         self._created = not out.exists()
         try:
             out.mkdir(parents=True, exist_ok=True)
         except OSError as exc:
             raise OutputError(f"cannot create output folder {out} ({exc.strerror}); "
-                              "choose a writable --out") from None
+                              "choose a writable out_dir=") from None
         try:
             self._lock()
             recover(out)
@@ -144,7 +146,7 @@ class OutputFolder:
                 self.stage = Path(tempfile.mkdtemp(prefix=STAGING_PREFIX, dir=out))
             except OSError as exc:
                 raise OutputError(f"output folder {out} is not writable ({exc.strerror}); "
-                                  "choose a writable --out") from None
+                                  "choose a writable out_dir=") from None
         except BaseException:
             self._release(remove_created=True)
             raise
@@ -157,13 +159,13 @@ class OutputFolder:
                 fd = os.open(out / LOCK, os.O_RDWR | os.O_CREAT, 0o644)
             except OSError as exc:
                 raise OutputError(f"output folder {out} is not writable ({exc.strerror}); "
-                                  "choose a writable --out") from None
+                                  "choose a writable out_dir=") from None
             if not _try_flock(fd):
                 holder = _read_small(fd)
                 os.close(fd)
                 raise OutputError(f"output folder {out} is in use by another paths run "
                                   f"({holder or 'unknown process'}); wait for it to finish or "
-                                  "choose another --out")
+                                  "choose another out_dir=")
             try:  # the file may have been unlinked by the previous holder between open and lock
                 same = os.fstat(fd).st_ino == os.stat(out / LOCK).st_ino
             except FileNotFoundError:
@@ -174,7 +176,8 @@ class OutputFolder:
                 self._lock_fd = fd
                 return
             os.close(fd)
-        raise OutputError(f"could not lock output folder {out}; try again or choose another --out")
+        raise OutputError(f"could not lock output folder {out}; try again or choose another "
+                          "out_dir=")
 
     def _check_empty(self) -> None:
         out = self.target
@@ -182,8 +185,8 @@ class OutputFolder:
         if present and not self.force:
             shown = ", ".join(sorted(present)[:3]) + (" ..." if len(present) > 3 else "")
             raise OutputError(
-                f"output folder {out} exists and is not empty ({shown}); choose another --out "
-                "or pass --force to replace the outputs of the previous run")
+                f"output folder {out} exists and is not empty ({shown}); choose another out_dir= "
+                "or pass force=True to replace the outputs of the previous run")
 
     # -------------------------------------------------------------- stage
     def path(self, name: str) -> Path:
@@ -223,11 +226,11 @@ class OutputFolder:
             dest = out / rel
             src = input_at(dest, self.inputs)
             if src is not None:
-                raise OutputError(f"--out {out} would overwrite the input file {src} ({rel}); "
-                                  "choose another --out")
+                raise OutputError(f"out_dir={out} would overwrite the input file {src} ({rel}); "
+                                  "choose another out_dir=")
             if dest.is_dir():
                 raise OutputError(f"{dest} is a folder; cannot write a file over it: remove it "
-                                  "or choose another --out")
+                                  "or choose another out_dir=")
         old = [r for r in _manifest(out) if r not in names
                and input_at(out / r, self.inputs) is None]
         write_json(out / JOURNAL, {"staging": stage.name, "files": names, "remove": old})
@@ -332,26 +335,26 @@ def prepare_out_dir(path: str | os.PathLike, *, force: bool = False) -> Path:
     """
     out = Path(path)
     if out.exists() and not out.is_dir():
-        raise OutputError(f"--out {out} exists and is not a folder; choose another --out")
+        raise OutputError(f"{out} exists and is not a folder; choose another path")
     if out.is_dir() and any(out.iterdir()) and not force:
         raise OutputError(
-            f"output folder {out} exists and is not empty; choose another --out "
-            "or pass --force to overwrite the files it writes"
+            f"output folder {out} exists and is not empty; choose another path "
+            "or pass force=True to overwrite the files it writes"
         )
     try:
         out.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise OutputError(f"cannot create output folder {out} ({exc.strerror}); "
-                          "choose a writable --out") from None
+                          "choose a writable path") from None
     if not os.access(out, os.W_OK | os.X_OK):
-        raise OutputError(f"output folder {out} is not writable; choose a writable --out")
+        raise OutputError(f"output folder {out} is not writable; choose a writable path")
     try:  # os.access says yes to root and on some network file systems: try for real
         fd, probe = tempfile.mkstemp(prefix=".paths-probe.", dir=out)
         os.close(fd)
         os.unlink(probe)
     except OSError as exc:
         raise OutputError(f"output folder {out} is not writable ({exc.strerror}); "
-                          "choose a writable --out") from None
+                          "choose a writable path") from None
     return out
 
 
@@ -366,12 +369,12 @@ def write_with(path: str | os.PathLike, writer) -> Path:
     dest = Path(path)
     if dest.is_dir():
         raise OutputError(f"{dest} is a folder; cannot write a file over it: remove it or "
-                          "choose another --out")
+                          "choose another path")
     try:
         fd, tmp = tempfile.mkstemp(prefix=f".{dest.name}.", suffix=".tmp", dir=dest.parent)
     except OSError as exc:
         raise OutputError(f"cannot write in {dest.parent} ({exc.strerror}); "
-                          "choose a writable --out") from None
+                          "choose a writable folder") from None
     try:
         with os.fdopen(fd, "wb") as fh:
             writer(fh)
@@ -387,7 +390,7 @@ def write_with(path: str | os.PathLike, writer) -> Path:
             pass
         if isinstance(exc, OSError) and exc.errno is not None:
             raise OutputError(f"cannot write {dest} ({exc.strerror}); free space or choose "
-                              "another --out") from None
+                              "another path") from None
         raise
     return dest
 

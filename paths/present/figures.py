@@ -69,7 +69,7 @@ def parse_formats(spec) -> tuple:
             continue
         if f not in FORMATS:
             raise InputError(f"unknown figure format {f!r}; choose from {', '.join(FORMATS)} "
-                             "(comma-separated, e.g. --format png,pdf) or none")
+                             "(comma-separated, e.g. formats='png,pdf') or none")
         if f not in out:
             out.append(f)
     if not out:

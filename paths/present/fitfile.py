@@ -503,7 +503,7 @@ class SavedFit:
         if name == "fraction":
             if self.path is None:
                 raise InputError("fraction=VALUE needs the full fit; this predict-only fit "
-                                 "(out-of-memory engine) takes --lambda, df=VALUE or a saved rule")
+                                 "(out-of-memory engine) takes lam=, df=VALUE or a saved rule")
             if not 0.0 < value <= 1.0:
                 raise InputError(f"target shrinkage fraction must lie in (0, 1]; got {value:g}")
             return np.array([lambda_for_fraction(self.path, value, j) for j in range(t)])
@@ -513,7 +513,7 @@ class SavedFit:
                     if v is not None and None not in np.atleast_1d(v).tolist()]
             raise InputError(f"rule {name} was not computed when this fit was saved; choose one "
                              f"of {', '.join(have) or 'none'}, df=VALUE, fraction=VALUE or "
-                             "--lambda VALUE")
+                             "lam=VALUE")
         return np.broadcast_to(np.asarray(lams, dtype=float), (t,)).copy()
 
     def design_matrix(self, X) -> np.ndarray:
