@@ -20,6 +20,7 @@ import pyarrow.parquet as pq
 import pytest
 from typer.testing import CliRunner
 
+from paths import InputError
 from paths.cli import app
 
 runner = CliRunner()
@@ -168,6 +169,86 @@ def test_fewer_rows_than_the_requested_cv(tmp_path):
     _user_error(["explore", f, "-t", "y", "--n-folds", "10", "--out", tmp_path / "o"],
                 ["small.csv", "10-fold", "--n-folds between 2 and 4"])
     assert not (tmp_path / "o").exists() or not any((tmp_path / "o").iterdir())
+
+
+
+# ------------------------------------------- library errors name parameters, the CLI flags
+
+
+def _python_error(call):
+    with pytest.raises(InputError) as info:
+        call()
+    msg = str(info.value)
+    assert "\n" not in msg and "--" not in msg, msg  # a parameter, never a flag
+    return msg
+
+
+def test_sweep_errors_name_parameters_and_the_cli_prints_flags(tmp_path):
+    """One error, two spellings: the Python call names the parameter as Python passes it
+    (``random_features=N``, ``repeats=3``, ``snr=1``), the command line prints the same
+    message with the command's flags (``paths/cli/app.py:as_flags``)."""
+    from paths.threshold.plan import plan
+    from paths.threshold.simulate import make_truth, simulate
+    from paths.threshold.sweep import threshold_sweep
+
+    X, y = _good_rows(40, 5)
+    f = _csv(tmp_path / "d.csv", X, y)
+    out = ["--out", tmp_path / "o"]
+    # too few features for the feature-wise sweep: more random features, or a larger holdout
+    msg = _python_error(lambda: threshold_sweep(X[:30], y[:30], X[30:], y[30:]))
+    assert "(random_features=N, N >= 30)" in msg and "(holdout=)" in msg
+    err = _user_error(["threshold", f, "-t", "y", *out],
+                      ["(--random-features N, N >= 30)", "(--holdout)"])
+    assert "random_features" not in err and "holdout=" not in err
+    # repeats that repeat nothing in the given order
+    msg = _python_error(lambda: threshold_sweep(X[:30], y[:30], X[30:], y[30:], repeats=3,
+                                                over="samples"))
+    assert "repeats=3 repeats nothing" in msg and "use order='random' or repeats=1" in msg
+    _user_error(["threshold", f, "-t", "y", "--repeats", "3", "--over", "samples", *out],
+                ["--repeats 3 repeats nothing", "use --order random or --repeats 1"])
+    # the SNR of a simulation; too few simulated features; an SNR and a signal variance
+    assert "(pass e.g. snr=1)" in _python_error(lambda: make_truth(5, snr=0.0))
+    _user_error(["simulate", "--snr", "0", *out], ["(pass e.g. --snr 1)"])
+    assert "(n_features=) or fewer training rows (n_train=)" in _python_error(
+        lambda: simulate(100, make_truth(20)))  # the simulation's own fix, not the sweep's
+    _user_error(["simulate", "--n-train", "100", "--n-features", "20", *out],
+                ["(--n-features) or fewer training rows (--n-train)"])
+    assert "either snr= or signal_variance=" in _python_error(
+        lambda: plan(10, snr=1.0, signal_variance=2.0))
+    _user_error(["plan", "--n-features", "10", "--snr", "1", "--signal-variance", "2", *out],
+                ["either --snr or --signal-variance"])
+
+
+def test_fit_errors_name_parameters_and_the_cli_prints_flags(tmp_path):
+    """The same for explore: a library name that differs from the command's
+    (``cross_validate(scaling=)`` is ``--cv-scaling``), the wide engine's options, and
+    the output folder (``OutputOptions(out_dir=, force=)`` is ``--out``, ``--force``)."""
+    from paths.engines.wide import wide_path
+    from paths.selection.cv import cross_validate
+    from paths.workflows.options import OutputOptions
+
+    X, y = _good_rows(40, 5)
+    w = 1.0 + np.arange(40) % 3
+    f = _csv(tmp_path / "w.csv", np.column_stack([X, w]), y, names=["f0", "f1", "f2", "f3",
+                                                                     "f4", "w"])
+    out = ["--out", tmp_path / "o"]
+    msg = _python_error(lambda: cross_validate(X, y, n_folds=3, scaling="per-fold",
+                                               sample_weight=w))
+    assert msg.endswith("use scaling='global'"), msg
+    err = _user_error(["explore", f, "-t", "y", "--weights", "w", "--n-folds", "3",
+                       "--cv-scaling", "per-fold", *out])
+    assert err.endswith("use --cv-scaling global"), err
+    wide = _csv(tmp_path / "wide.csv", *_good_rows(10, 20))
+    assert "either accurate=True or rank=, not both" in _python_error(
+        lambda: wide_path(X[:4].T, X[0], rank=2, accurate=True))
+    _user_error(["explore", wide, "-t", "y", "--rank", "2", "--accurate", *out],
+                ["pass either --accurate or --rank, not both"])
+    full = tmp_path / "full"
+    full.mkdir()
+    (full / "keep.txt").write_text("mine")
+    msg = _python_error(lambda: OutputOptions(out_dir=full).folder().__enter__())
+    assert "choose another out_dir= or pass force=True" in msg
+    _user_error(["explore", f, "-t", "y", "--out", full], ["choose another --out or pass --force"])
 
 
 # --------------------------------------------------------------- internal failures
