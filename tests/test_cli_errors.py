@@ -251,6 +251,30 @@ def test_fit_errors_name_parameters_and_the_cli_prints_flags(tmp_path):
     _user_error(["explore", f, "-t", "y", "--out", full], ["choose another --out or pass --force"])
 
 
+def test_predict_errors_name_parameters_and_the_cli_prints_flags(tmp_path):
+    """``predict_file(lam=, rule=, intervals=, out=, force=)`` is ``paths predict --lambda,
+    --rule, --intervals, --out, --force``: the same message in each spelling."""
+    from paths.workflows.predict import predict_file
+
+    f = _csv(tmp_path / "d.csv", *_good_rows(40, 5))
+    res = runner.invoke(app, ["explore", str(f), "-t", "y", "--out", str(tmp_path / "fit"),
+                              "--format", "none", "--no-report"])
+    assert res.exit_code == 0, res.output
+    fit, dest = tmp_path / "fit" / "fit.npz", tmp_path / "p.csv"
+    cases = [({"lam": 1.0, "rule": "gcv"}, ["--lambda", "1", "--rule", "gcv"],
+              "pass either lam= or rule=, not both", "pass either --lambda or --rule, not both"),
+             ({"intervals": 1.5}, ["--intervals", "1.5"],
+              "intervals= is a level in (0, 1), e.g. intervals=0.9",
+              "--intervals is a level in (0, 1), e.g. --intervals 0.9")]
+    for kw, flags, py, cli in cases:
+        assert py in _python_error(lambda: predict_file(fit, f, out=dest, **kw))
+        _user_error(["predict", fit, f, "--out", dest, *flags], [cli])
+    dest.write_text("mine")
+    assert "choose another out= or pass force=True" in _python_error(
+        lambda: predict_file(fit, f, out=dest))
+    _user_error(["predict", fit, f, "--out", dest], ["choose another --out or pass --force"])
+
+
 # --------------------------------------------------------------- internal failures
 
 

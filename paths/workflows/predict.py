@@ -51,7 +51,7 @@ class PredictRun:
 
 def _choose(saved: SavedFit, lam, rule) -> tuple[np.ndarray, str]:
     if lam is not None and rule is not None:
-        raise InputError("pass either --lambda or --rule, not both")
+        raise InputError("pass either lam= or rule=, not both")
     t = saved.reported_lambda.size
     if lam is not None:
         return np.full(t, float(as_lambdas(lam)[0])), "lambda"
@@ -64,14 +64,14 @@ def _check_out(out: Path, inputs, force: bool) -> None:
     from paths.data.output import OutputError, input_at
 
     if out.is_dir():
-        raise OutputError(f"--out {out} is a folder; give a file name such as predictions.csv")
+        raise OutputError(f"out={out} is a folder; give a file name such as predictions.csv")
     src = input_at(out, inputs)  # resolved path or inode: the one check of every command
     if src is not None:
-        raise OutputError(f"--out {out} is the input file {src}; choose another --out")
+        raise OutputError(f"out={out} is the input file {src}; choose another out=")
     if out.exists() and not force:
-        raise OutputError(f"{out} exists; choose another --out or pass --force to overwrite it")
+        raise OutputError(f"{out} exists; choose another out= or pass force=True to overwrite it")
     if not out.parent.is_dir():
-        raise OutputError(f"the folder of --out {out} does not exist; create it first")
+        raise OutputError(f"the folder of out={out} does not exist; create it first")
 
 
 def _ids(frame, rows, id_column, saved: SavedFit):
@@ -79,10 +79,10 @@ def _ids(frame, rows, id_column, saved: SavedFit):
     if id_column is not None:
         if id_column in saved.feature_names or id_column in (
                 saved.preparation.get("source_columns") or []):
-            raise InputError(f"--id {id_column!r} is a feature of the fit; name a column that is "
+            raise InputError(f"id_column={id_column!r} is a feature of the fit; name a column that is "
                              "not used as a feature")
         if id_column not in frame.columns:
-            raise InputError(f"--id column {id_column!r} not found in the data; columns are: "
+            raise InputError(f"id_column={id_column!r} not found in the data; columns are: "
                              f"{', '.join(map(str, list(frame.columns)[:8]))}")
         return id_column, frame[id_column].to_numpy()[rows]
     saved_id = saved.preparation.get("id_column")
@@ -99,21 +99,21 @@ def prediction_columns(saved: SavedFit, id_name: str, intervals: bool) -> list:
 
 def _intervals(saved: SavedFit, X, lams, level):
     if saved.path is None:
-        raise InputError("--intervals needs the full fit; this fit.npz is predict-only (written "
-                         "by an out-of-memory engine, which keeps no left factors): refit with "
-                         "--engine memory or predict without --intervals")
+        raise InputError("intervals= needs the full fit; this fit.npz is predict-only (written "
+                         "by an out-of-memory engine, which keeps no left factors): refit in "
+                         "memory (paths explore --engine memory) or predict without intervals=")
     if saved.path.design.span is not None:
-        raise InputError("--intervals is not available for a fit with row weights, unpenalized "
+        raise InputError("intervals= is not available for a fit with row weights, unpenalized "
                          "columns or relative penalties (the conformal intervals assume the "
-                         "plain intercept); predict without --intervals")
+                         "plain intercept); predict without intervals=")
     import paths
 
     try:
         pi = getattr(paths, "prediction_intervals")
     except AttributeError:
-        raise InputError("--intervals needs prediction intervals (paths.prediction_intervals), "
+        raise InputError("intervals= needs prediction intervals (paths.prediction_intervals), "
                          "which this version of paths does not have; predict without "
-                         "--intervals") from None
+                         "intervals=") from None
     lower, upper = [], []
     for j, lam in enumerate(lams):
         res = pi(saved.path, X, float(lam), level=level)
@@ -156,7 +156,7 @@ def predict_file(fit, data, *, out, lam=None, rule=None, intervals: float | None
     out = Path(out)
     _check_out(out, (fit, data), force)
     if intervals is not None and not 0.0 < float(intervals) < 1.0:
-        raise InputError(f"--intervals is a level in (0, 1), e.g. 0.9; got {intervals}")
+        raise InputError(f"intervals= is a level in (0, 1), e.g. intervals=0.9; got {intervals}")
     with stage(progress, READ):
         saved = load_fit(fit)
         lams, choice = _choose(saved, lam, rule)
