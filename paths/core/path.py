@@ -26,7 +26,7 @@ from paths.core import algebra
 from paths.core.algebra import Criteria, FactorState
 
 __all__ = ["PENALTY_CONVENTION", "DENSE_COEF_LIMIT", "RidgePath", "MinNormFit", "Criteria", "fit_path",
-           "path_from_factors"]
+           "path_from_factors", "predict_from_factors"]
 
 PENALTY_CONVENTION = (
     "minimize ||y - b0 - X beta||^2 + lambda ||beta||^2; X column-centered "
@@ -320,9 +320,8 @@ class RidgePath:
             coef = algebra.coefficients(self._state(), lam_arr, self.design)  # (k, p, t)
             pred = np.einsum("np,kpt->nkt", X, coef) + algebra.intercepts(coef, self.design)
         else:
-            gains = algebra.gains(self.factorization.d, lam_arr)  # (r, k)
-            proj = self.design.transform(X) @ self.factorization.vt.T  # (n_new, r)
-            pred = self.design.y_mean + algebra.project(proj, gains, self.uty)
+            fac = self.factorization
+            pred = predict_from_factors(self.design, fac.d, fac.vt, self.uty, X, lam_arr)
         if not self.multi_target:
             pred = pred[..., 0]
         return pred[:, 0] if np.ndim(lam) == 0 else pred
@@ -333,6 +332,22 @@ class RidgePath:
         fac = self.factorization
         return FactorState(d=fac.d, vt=fac.vt, uty=self.uty, rss_out=np.zeros(self.uty.shape[1]),
                            n_samples=self.n_samples, fit_intercept=self.fit_intercept)
+
+
+def predict_from_factors(design: Design, d: np.ndarray, vt: np.ndarray, uty: np.ndarray,
+                         X: np.ndarray, lam: np.ndarray) -> np.ndarray:
+    """Predictions (n_new, k, t) for validated rows ``X`` at validated penalties ``lam``
+    from the factors alone: :math:`\bar y + \tilde x V G_\lambda U^T y`, with
+    :math:`\tilde x` the row centered and scaled as the training rows and
+    :math:`G_\lambda = \operatorname{diag}(d_j/(d_j^2 + \lambda))`.
+
+    The arithmetic of :meth:`RidgePath.predict` for a design without an unpenalized
+    span (and of a saved fit, :meth:`paths.present.fitfile.SavedFit.predict`, which
+    therefore gives the same numbers bit for bit).
+    """
+    gains = algebra.gains(d, lam)  # (r, k)
+    proj = design.transform(X) @ vt.T  # (n_new, r)
+    return design.y_mean + algebra.project(proj, gains, uty)
 
 
 def fit_path(

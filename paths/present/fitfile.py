@@ -47,7 +47,8 @@ from paths.data.validation import InputError, as_design, as_lambdas
 from paths.core import algebra
 from paths.core.design import Design
 from paths.core.factor import Factorization
-from paths.core.path import PENALTY_CONVENTION, RidgePath, path_from_factors
+from paths.core.path import (PENALTY_CONVENTION, RidgePath, path_from_factors,
+                              predict_from_factors)
 
 __all__ = ["FORMAT", "FORMAT_VERSION", "SavedFit", "fit_header", "load_fit", "save_fit",
            "fit_bytes"]
@@ -56,6 +57,8 @@ FORMAT = "paths-fit"
 FORMAT_VERSION = 1
 _HEADER_LIMIT = 16 << 20  # a header larger than 16 MiB is not one we wrote
 _NPY_OVERHEAD = 4096  # bytes of .npy header allowed beyond an array's data
+_OUT_OF_RANGE = ("the saved factors leave the float64 range when the path is rebuilt; the file "
+                 "is damaged")
 
 
 def _arrays_of(path: RidgePath, reported: np.ndarray) -> dict:
@@ -403,6 +406,9 @@ def _check_values(a: dict, h: dict, src) -> None:
     d = a["fac_d"]
     if np.any(d <= 0) or np.any(np.diff(d) > 0):
         raise _refuse(src, "singular values are not positive and descending; the file is damaged")
+    with np.errstate(over="ignore"):
+        if not np.all(np.isfinite(np.square(d[:1]))):  # every formula takes d^2 (d[0] largest)
+            raise _refuse(src, _OUT_OF_RANGE)
     if np.any(a["design_x_scale"] <= 0):
         raise _refuse(src, "column scales are not positive; the file is damaged")
     if "span_sqrt_w" in a and (np.any(a["span_sqrt_w"] <= 0)
@@ -465,8 +471,7 @@ class SavedFit:
                                          feature_names=self.header["feature_names"],
                                          multi_target=self.header["multi_target"])
         except (FloatingPointError, np.linalg.LinAlgError):
-            raise _refuse(self.source, "the saved factors leave the float64 range when the "
-                                       "path is rebuilt; the file is damaged") from None
+            raise _refuse(self.source, _OUT_OF_RANGE) from None
 
     @property
     def feature_names(self) -> list:
@@ -578,9 +583,8 @@ class SavedFit:
         saved factors (the path itself, only where an unpenalized span needs it)."""
         if self.design.span is not None:
             return self.path.predict(X, lam)
-        gains = algebra.gains(self.singular_values, np.array([lam]))
-        proj = self.design.transform(X) @ self.vt.T
-        pred = (self.design.y_mean + algebra.project(proj, gains, self.uty))[:, 0]
+        pred = predict_from_factors(self.design, self.singular_values, self.vt, self.uty, X,
+                                    np.array([lam]))[:, 0]
         return pred if self.header["multi_target"] else pred[:, 0]
 
 
@@ -644,8 +648,7 @@ def load_fit(path) -> SavedFit:
         with np.errstate(over="raise", invalid="raise", divide="raise"):
             return _rebuild(header, arrays, src)
     except (FloatingPointError, np.linalg.LinAlgError):
-        raise _refuse(src, "the saved factors leave the float64 range when the path is rebuilt; "
-                           "the file is damaged") from None
+        raise _refuse(src, _OUT_OF_RANGE) from None
 
 
 def _rebuild_span(h: dict, a: dict) -> dict:
@@ -679,7 +682,6 @@ def _rebuild(h: dict, a: dict, src) -> SavedFit:
                         tol=float(h.get("rank_tol", 0.0)), d_max=float(h.get("d_max", d[0])),
                         d_min=float(h.get("d_min", d[-1])), solver=str(h.get("solver", "svd")),
                         reason=str(h.get("solver_reason", "saved fit")))
-    np.square(d)  # squares of the singular values in range (every formula takes them)
     full = h.get("kind", "full") == "full"
     # U^T y as path_from_factors forms it (the same call): predictions bit for bit the path's
     uty = algebra.factor_state(fac, design).uty if full else a["fac_uty"]
