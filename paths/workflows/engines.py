@@ -218,16 +218,6 @@ def _kfold(result, progress):
                               multi_target=result.multi_target, progress=progress)
 
 
-def _select(result, cv_res, fit: FitOptions):
-    """Every selection rule, refined between grid points on the engine's own path
-    (:func:`paths.selection.rules.select_penalty`): GCV from the factor state, K-fold at
-    any penalty from the per-fold factors, leave-one-out at a new penalty by one more
-    pass over the rows."""
-    from paths.selection.rules import select_penalty
-
-    return select_penalty(result, cv_res, reported=fit.rule)
-
-
 def explore_engine(data: DataOptions, fit: FitOptions = FitOptions(),
                    figures: FigureOptions = FigureOptions(),
                    output: OutputOptions = OutputOptions(), *,
@@ -253,11 +243,13 @@ def explore_engine(data: DataOptions, fit: FitOptions = FitOptions(),
     if data.file is None:
         raise InputError(f"the {engine.name} engine reads a data file; give one")
     inputs = [Path(data.file), *([] if data.test_file is None else [Path(data.test_file)])]
+    from paths.selection.rules import select_penalty
+
     with output.folder(inputs) as folder:
         result = _fit(data, fit, engine, progress)
         cv_res = _kfold(result, progress)
-        with stage(progress, SELECT):
-            selection = _select(result, cv_res, fit)
+        with stage(progress, SELECT):  # every rule, refined between grid points on the
+            selection = select_penalty(result, cv_res, reported=fit.rule)  # engine's own path
         digests, hash_notes = {}, []
         for f in inputs:
             dig, notes = _file_digests(f)
