@@ -336,7 +336,7 @@ class RidgePath:
 
 def predict_from_factors(design: Design, d: np.ndarray, vt: np.ndarray, uty: np.ndarray,
                          X: np.ndarray, lam: np.ndarray) -> np.ndarray:
-    """Predictions (n_new, k, t) for validated rows ``X`` at validated penalties ``lam``
+    r"""Predictions (n_new, k, t) for validated rows ``X`` at validated penalties ``lam``
     from the factors alone: :math:`\bar y + \tilde x V G_\lambda U^T y`, with
     :math:`\tilde x` the row centered and scaled as the training rows and
     :math:`G_\lambda = \operatorname{diag}(d_j/(d_j^2 + \lambda))`.
